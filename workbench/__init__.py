@@ -1,0 +1,4 @@
+"""Survival and prognostic modelling workbench."""
+
+__version__ = "0.1.0"
+

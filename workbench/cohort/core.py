@@ -1,0 +1,114 @@
+"""The :class:`Cohort`: one validated, joined table of patients.
+
+A cohort holds, row-aligned by position:
+
+* ``ids`` -- patient identifiers (strings). After bootstrap resampling the same id
+  can appear more than once; inner cross-validation groups rows by this id.
+* ``y`` -- the outcome as a structured array (see :mod:`workbench.cohort.outcome`).
+* ``clinical`` -- the clinical fields as read (raw values such as ``"<0.5"`` kept
+  as text; preprocessing turns them into model terms).
+* ``features`` -- numeric imaging features (float columns).
+* ``centre`` and ``batch`` -- optional grouping labels (hospital, scanner).
+
+It never changes after construction; :meth:`take` returns a new cohort.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from workbench.cohort.outcome import check_outcome
+
+TIME_UNITS = {"days": 365.25, "weeks": 365.25 / 7.0, "months": 12.0, "years": 1.0}
+"""Time units accepted for follow-up, with the number of units in one year."""
+
+
+@dataclass(frozen=True)
+class CohortSource:
+    """Where a cohort came from: files, column mapping and content hashes."""
+
+    feature_file: str = ""
+    clinical_file: str = ""
+    id_column: str = ""
+    time_column: str = ""
+    event_column: str = ""
+    time_unit: str = "months"
+    centre_column: str | None = None
+    batch_column: str | None = None
+    data_hash: str = ""
+    dropped_ids: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Cohort:
+    ids: np.ndarray
+    y: np.ndarray
+    clinical: pd.DataFrame
+    features: pd.DataFrame
+    time_unit: str = "months"
+    centre: np.ndarray | None = None
+    batch: np.ndarray | None = None
+    source: CohortSource = field(default_factory=CohortSource)
+
+    def __post_init__(self):
+        check_outcome(self.y, "Cohort.y")
+        n = self.y.shape[0]
+        ids = np.asarray(self.ids).astype(str)
+        object.__setattr__(self, "ids", ids)
+        for name, obj in (("ids", ids), ("clinical", self.clinical), ("features", self.features)):
+            if len(obj) != n:
+                raise ValueError(f"Cohort.{name} has {len(obj)} rows but the outcome has {n}.")
+        for name in ("centre", "batch"):
+            v = getattr(self, name)
+            if v is not None:
+                v = np.asarray(v).astype(str)
+                if v.shape[0] != n:
+                    raise ValueError(f"Cohort.{name} has {v.shape[0]} rows but the outcome has {n}.")
+                object.__setattr__(self, name, v)
+        if self.time_unit not in TIME_UNITS:
+            raise ValueError(f"time unit {self.time_unit!r} is not one of {sorted(TIME_UNITS)}.")
+
+    # ------------------------------------------------------------------ basics
+    @property
+    def n(self) -> int:
+        return int(self.y.shape[0])
+
+    @property
+    def n_events(self) -> int:
+        return int(self.y["event"].sum())
+
+    @property
+    def time(self) -> np.ndarray:
+        return self.y["time"].astype(float)
+
+    @property
+    def event(self) -> np.ndarray:
+        return self.y["event"].astype(bool)
+
+    @property
+    def feature_names(self) -> list[str]:
+        return list(self.features.columns)
+
+    def __len__(self) -> int:
+        return self.n
+
+    def take(self, idx) -> Cohort:
+        """Rows at the given positions (duplicates allowed, as in a bootstrap sample)."""
+        idx = np.asarray(idx, dtype=int)
+        return Cohort(
+            ids=self.ids[idx],
+            y=self.y[idx],
+            clinical=self.clinical.iloc[idx].reset_index(drop=True),
+            features=self.features.iloc[idx].reset_index(drop=True),
+            time_unit=self.time_unit,
+            centre=None if self.centre is None else self.centre[idx],
+            batch=None if self.batch is None else self.batch[idx],
+            source=self.source,
+        )
+
+    def mask(self, keep) -> Cohort:
+        """Rows where the boolean mask ``keep`` is true."""
+        return self.take(np.flatnonzero(np.asarray(keep, dtype=bool)))
