@@ -1,0 +1,42 @@
+#!/usr/bin/env bash
+# The two set-up commands of the README, and a few conveniences.
+#   ./tasks.sh demo   create .venv, install, run the demo study (results in results/demo)
+#   ./tasks.sh test   create .venv, install, run the whole test suite
+#   ./tasks.sh app    create .venv, install, start the browser front end
+set -euo pipefail
+cd "$(dirname "$0")"
+VENV="${WORKBENCH_VENV:-.venv}"
+
+setup() {
+  if [ ! -x "$VENV/bin/python" ]; then
+    python3 -m venv "$VENV"
+  fi
+  local stamp
+  stamp="$VENV/.installed-$(cat pyproject.toml constraints.txt | sha256sum | cut -c1-16)"
+  if [ ! -f "$stamp" ]; then
+    "$VENV/bin/python" -m pip install --quiet --upgrade pip
+    "$VENV/bin/python" -m pip install --quiet -c constraints.txt -e ".[test,app,dask]"
+    touch "$stamp"
+  fi
+}
+
+cmd="${1:-}"
+[ $# -gt 0 ] && shift
+case "$cmd" in
+  demo)
+    setup
+    "$VENV/bin/workbench" inspect \
+      --features demo_cohort/imaging.csv --clinical demo_cohort/clinical.csv \
+      --id patient_id --time os_months --time-unit months \
+      --event status --event-codes dead --censor-codes alive \
+      --centre hospital --batch scanner --horizons 12,24,36 "$@"
+    ;;
+  test)
+    setup
+    "$VENV/bin/python" -m pytest -q "$@"
+    ;;
+  *)
+    echo "usage: ./tasks.sh demo | test" >&2
+    exit 2
+    ;;
+esac

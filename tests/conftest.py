@@ -1,0 +1,92 @@
+"""Shared fixtures.
+
+Input-table fixtures are built from the German Breast Cancer Study Group 2 data
+(Schumacher et al. 1994) as shipped with scikit-survival, split into an
+"imaging features" table (its numeric measurements) and a "clinical" table, so
+that reading and validation are exercised on real public data, not invented data.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+
+@dataclass
+class TablePair:
+    features: Path
+    clinical: Path
+    feat_df: pd.DataFrame
+    clin_df: pd.DataFrame
+
+    def write(self, feat_df=None, clin_df=None, suffix=".csv"):
+        """Rewrite the tables (optionally modified) and return the pair."""
+        feat_df = self.feat_df if feat_df is None else feat_df
+        clin_df = self.clin_df if clin_df is None else clin_df
+        f = self.features.with_suffix(suffix)
+        c = self.clinical.with_suffix(suffix)
+        _write(feat_df, f)
+        _write(clin_df, c)
+        return TablePair(f, c, feat_df, clin_df)
+
+
+def _write(df: pd.DataFrame, path: Path) -> None:
+    suf = path.suffix.lower()
+    if suf == ".csv":
+        df.to_csv(path, index=False)
+    elif suf == ".tsv":
+        df.to_csv(path, index=False, sep="\t")
+    elif suf == ".parquet":
+        df.to_parquet(path, index=False)
+    elif suf == ".xlsx":
+        df.to_excel(path, index=False)
+    else:
+        raise ValueError(suf)
+
+
+@pytest.fixture(scope="session")
+def gbsg2_frames():
+    from sksurv.datasets import load_gbsg2
+
+    X, y = load_gbsg2()
+    X = X.reset_index(drop=True)
+    ids = [f"GB{i:04d}" for i in range(len(X))]
+    feat = pd.DataFrame({"patient_id": ids})
+    for c in ("age", "tsize", "pnodes", "progrec", "estrec"):
+        feat[c] = X[c].astype(float).to_numpy()
+    clin = pd.DataFrame(
+        {
+            "patient_id": ids,
+            "horTh": X["horTh"].astype(str).to_numpy(),
+            "menostat": X["menostat"].astype(str).to_numpy(),
+            "tgrade": X["tgrade"].astype(str).to_numpy(),
+            "time_days": y["time"],
+            "status": np.where(y["cens"], "recurrence", "censored"),
+        }
+    )
+    return feat, clin, y
+
+
+@pytest.fixture
+def gbsg2_tables(tmp_path, gbsg2_frames):
+    feat, clin, _ = gbsg2_frames
+    pair = TablePair(tmp_path / "features.csv", tmp_path / "clinical.csv", feat.copy(), clin.copy())
+    return pair.write()
+
+
+@pytest.fixture
+def gbsg2_columns():
+    from workbench.cohort.io import ColumnMap
+
+    return ColumnMap(
+        id="patient_id",
+        time="time_days",
+        event="status",
+        time_unit="days",
+        event_codes=("recurrence",),
+        censor_codes=("censored",),
+    )
