@@ -1,0 +1,381 @@
+"""The study file: what to fit and how to validate it, as frozen dataclasses.
+
+A study file is TOML with our own layout (see ``docs/study-file.md``). Reading
+checks every key and value and says, for a misspelt key, which key was probably
+meant. Writing a :class:`StudySpec` back out and reading it again gives the same
+spec; this is how the command line and the app hand studies to each other.
+
+Relative file paths in ``[data]`` and ``[external]`` are resolved against the
+folder of the study file when it is read, and written back relative to the
+folder of the file being written when possible.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+import tomllib
+from dataclasses import dataclass, field, fields, replace
+from pathlib import Path
+
+import tomli_w
+
+from workbench.cohort.core import TIME_UNITS
+from workbench.cohort.io import ColumnMap
+from workbench.errors import SpecError
+from workbench.preprocess.clinical import PredictorSpec
+
+MODEL_NAMES = ("clinical", "combined", "penalised_all", "forest")
+"""Models a study can fit: clinical-only Cox, clinical + signature Cox, penalised
+Cox on clinical plus every imaging feature, random survival forest."""
+
+VALIDATION_METHODS = ("bootstrap", "cv", "by_centre", "none")
+BACKENDS = ("processes", "threads", "serial", "dask")
+
+
+@dataclass(frozen=True)
+class DataSpec:
+    """The two input tables and what their columns mean."""
+
+    features: str
+    clinical: str
+    id: str = "patient_id"
+    time: str = "time"
+    event: str = "event"
+    time_unit: str = "months"
+    event_codes: tuple[str, ...] | None = None
+    censor_codes: tuple[str, ...] | None = None
+    centre: str | None = None
+    batch: str | None = None
+    on_unmatched: str = "error"
+    drop_unusable_features: bool = False
+
+    def column_map(self) -> ColumnMap:
+        return ColumnMap(
+            id=self.id,
+            time=self.time,
+            event=self.event,
+            time_unit=self.time_unit,
+            event_codes=self.event_codes,
+            censor_codes=self.censor_codes,
+            centre=self.centre,
+            batch=self.batch,
+        )
+
+
+@dataclass(frozen=True)
+class ExternalSpec:
+    """An external validation cohort with the same columns as the training data."""
+
+    features: str
+    clinical: str
+
+
+@dataclass(frozen=True)
+class HarmoniseSpec:
+    """ComBat harmonisation of imaging features by scanner / batch."""
+
+    method: str = "combat"  # "combat" or "none"
+    protect: tuple[str, ...] = ()  # clinical predictors whose effects must be preserved
+    unseen_batch: str = "error"  # "error" or "reference"
+    empirical_bayes: str = "parametric"  # "parametric" or "nonparametric"
+
+
+@dataclass(frozen=True)
+class ReduceSpec:
+    """Filters applied to the imaging pool before penalised regression."""
+
+    min_variance: float = 1e-8
+    correlation: float = 0.90
+    screen: bool = False
+    screen_fdr: float = 0.10
+
+
+@dataclass(frozen=True)
+class PenaltySpec:
+    """The LASSO / elastic-net Cox penalty and how it is chosen."""
+
+    l1_ratio: float = 1.0
+    rule: str = "1se"  # "1se" or "min"
+    folds: int = 5
+    n_alphas: int = 50
+    alpha_min_ratio: float = 0.05
+
+
+@dataclass(frozen=True)
+class ImagingSpec:
+    """Which feature columns form the imaging pool and how the signature is built."""
+
+    include: tuple[str, ...] = ("*",)  # glob patterns or prefixes such as "cm_*"
+    exclude: tuple[str, ...] = ()
+    volume_feature: str | None = None
+    harmonise: HarmoniseSpec = field(default_factory=HarmoniseSpec)
+    reduce: ReduceSpec = field(default_factory=ReduceSpec)
+    penalty: PenaltySpec = field(default_factory=PenaltySpec)
+
+
+@dataclass(frozen=True)
+class ForestSpec:
+    trees: int = 200
+    min_leaf: int = 15
+    max_features: str = "sqrt"
+    time_grid: int = 100
+
+
+@dataclass(frozen=True)
+class ModelsSpec:
+    fit: tuple[str, ...] = ("clinical", "combined")
+    baseline: str = "clinical"
+    forest: ForestSpec = field(default_factory=ForestSpec)
+
+
+@dataclass(frozen=True)
+class ValidationSpec:
+    method: str = "bootstrap"
+    replicates: int = 200
+    folds: int = 5
+    repeats: int = 10
+    forest_replicates: int = 25
+    workers: int = 1
+    backend: str = "processes"
+    scheduler: str | None = None
+
+
+@dataclass(frozen=True)
+class StudySpec:
+    """Everything a study run needs, besides the data themselves."""
+
+    name: str
+    data: DataSpec
+    predictors: tuple[PredictorSpec, ...]
+    horizons: tuple[float, ...]
+    seed: int = 20261202
+    imaging: ImagingSpec = field(default_factory=ImagingSpec)
+    models: ModelsSpec = field(default_factory=ModelsSpec)
+    validation: ValidationSpec = field(default_factory=ValidationSpec)
+    external: ExternalSpec | None = None
+    anticipated_r2: float | None = None
+
+    def __post_init__(self):
+        check_spec(self)
+
+
+# ------------------------------------------------------------------ checks
+
+
+def _choice(where: str, value, allowed) -> None:
+    if value not in allowed:
+        raise SpecError(f"{where} is {value!r}; choose one of {', '.join(repr(a) for a in allowed)}.")
+
+
+def check_spec(spec: StudySpec) -> None:
+    d = spec.data
+    _choice("[data] time_unit", d.time_unit, tuple(TIME_UNITS))
+    _choice("[data] on_unmatched", d.on_unmatched, ("error", "intersect"))
+    if not spec.predictors:
+        raise SpecError("the study lists no clinical predictors; add at least one [[predictor]] table.")
+    cols = [p.column for p in spec.predictors]
+    dup = sorted({c for c in cols if cols.count(c) > 1})
+    if dup:
+        raise SpecError(f"clinical predictors listed twice: {', '.join(dup)}.")
+    if not spec.horizons:
+        raise SpecError("[study] horizons is empty; give the times of interest, e.g. horizons = [12, 24, 36].")
+    if any(h <= 0 for h in spec.horizons) or list(spec.horizons) != sorted(set(spec.horizons)):
+        raise SpecError(f"[study] horizons must be positive and increasing; got {list(spec.horizons)}.")
+    im = spec.imaging
+    _choice("[imaging.harmonise] method", im.harmonise.method, ("combat", "none"))
+    _choice("[imaging.harmonise] unseen_batch", im.harmonise.unseen_batch, ("error", "reference"))
+    _choice("[imaging.harmonise] empirical_bayes", im.harmonise.empirical_bayes, ("parametric", "nonparametric"))
+    missing = sorted(set(im.harmonise.protect) - set(cols))
+    if missing:
+        raise SpecError(
+            f"[imaging.harmonise] protect names {', '.join(missing)}, which are not clinical predictors of the study."
+        )
+    if im.harmonise.method == "combat" and not d.batch:
+        raise SpecError("[imaging.harmonise] method is 'combat' but [data] names no batch column; set batch = '...' or method = 'none'.")
+    if not 0 < im.reduce.correlation <= 1:
+        raise SpecError(f"[imaging.reduce] correlation must lie in (0, 1]; got {im.reduce.correlation}.")
+    if not 0 < im.reduce.screen_fdr < 1:
+        raise SpecError(f"[imaging.reduce] screen_fdr must lie in (0, 1); got {im.reduce.screen_fdr}.")
+    pen = im.penalty
+    _choice("[imaging.penalty] rule", pen.rule, ("1se", "min"))
+    if not 0 < pen.l1_ratio <= 1:
+        raise SpecError(f"[imaging.penalty] l1_ratio must lie in (0, 1] (1 = LASSO); got {pen.l1_ratio}.")
+    if pen.folds < 3:
+        raise SpecError(f"[imaging.penalty] folds must be at least 3; got {pen.folds}.")
+    for m in spec.models.fit:
+        _choice("[models] fit entry", m, MODEL_NAMES)
+    if spec.models.baseline not in spec.models.fit:
+        raise SpecError(f"[models] baseline {spec.models.baseline!r} is not among the fitted models {list(spec.models.fit)}.")
+    v = spec.validation
+    _choice("[validation] method", v.method, VALIDATION_METHODS)
+    _choice("[validation] backend", v.backend, BACKENDS)
+    if v.method == "by_centre" and not d.centre:
+        raise SpecError("[validation] method 'by_centre' needs a centre column in [data] (centre = '...').")
+    if v.backend == "dask" and not v.scheduler:
+        raise SpecError("[validation] backend 'dask' needs scheduler = 'tcp://host:8786' (or 'local' for a local cluster).")
+    for name in ("replicates", "folds", "repeats", "workers"):
+        if getattr(v, name) < 1:
+            raise SpecError(f"[validation] {name} must be at least 1; got {getattr(v, name)}.")
+    if spec.anticipated_r2 is not None and not 0 < spec.anticipated_r2 < 1:
+        raise SpecError(f"[study] anticipated_r2 must lie in (0, 1); got {spec.anticipated_r2}.")
+
+
+# ------------------------------------------------------------------ reading
+
+
+def _take(table: dict, cls, where: str, nested: dict | None = None, base: Path | None = None, paths=()):
+    """Build dataclass ``cls`` from a TOML table, refusing unknown keys with a suggestion."""
+    if not isinstance(table, dict):
+        raise SpecError(f"{where} must be a table of keys, not {type(table).__name__}.")
+    names = [f.name for f in fields(cls)]
+    kwargs = {}
+    for key, value in table.items():
+        if key not in names:
+            close = difflib.get_close_matches(key, names, n=1)
+            hint = f" Did you mean {close[0]!r}?" if close else f" Known keys: {', '.join(names)}."
+            raise SpecError(f"{where}: unknown key {key!r}.{hint}")
+        if nested and key in nested:
+            sub_cls, sub_where = nested[key]
+            value = _take(value, sub_cls, sub_where)
+        elif isinstance(value, list):
+            value = tuple(value)
+        if key in paths and base is not None and isinstance(value, str):
+            p = Path(value)
+            value = str(p if p.is_absolute() else (base / p))
+        kwargs[key] = value
+    try:
+        return cls(**kwargs)
+    except TypeError as exc:
+        raise SpecError(f"{where}: {exc}") from None
+
+
+def read_study(path) -> StudySpec:
+    """Read and check a study file."""
+    p = Path(path)
+    if not p.exists():
+        raise SpecError(f"{p}: study file not found.")
+    try:
+        doc = tomllib.loads(p.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{p}: not valid TOML ({exc}).") from None
+    return study_from_dict(doc, base=p.resolve().parent, source=str(p))
+
+
+def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study") -> StudySpec:
+    known = {"study", "data", "predictor", "imaging", "models", "validation", "external"}
+    for key in doc:
+        if key not in known:
+            close = difflib.get_close_matches(key, sorted(known), n=1)
+            hint = f" Did you mean [{close[0]}]?" if close else ""
+            raise SpecError(f"{source}: unknown section [{key}].{hint}")
+    study = dict(doc.get("study", {}))
+    for key in ("name", "horizons"):
+        if key not in study:
+            raise SpecError(f"{source}: [study] needs '{key}'.")
+    if "data" not in doc:
+        raise SpecError(f"{source}: the [data] section is missing.")
+    data = _take(doc["data"], DataSpec, f"{source} [data]", base=base, paths=("features", "clinical"))
+    if data.time_unit not in TIME_UNITS:
+        raise SpecError(f"{source} [data] time_unit {data.time_unit!r}; choose one of {', '.join(TIME_UNITS)}.")
+    preds = doc.get("predictor", [])
+    if not isinstance(preds, list):
+        raise SpecError(f"{source}: predictors are written as [[predictor]] tables.")
+    predictors = tuple(_take(t, PredictorSpec, f"{source} [[predictor]] #{i + 1}") for i, t in enumerate(preds))
+    imaging = _take(
+        doc.get("imaging", {}),
+        ImagingSpec,
+        f"{source} [imaging]",
+        nested={
+            "harmonise": (HarmoniseSpec, f"{source} [imaging.harmonise]"),
+            "reduce": (ReduceSpec, f"{source} [imaging.reduce]"),
+            "penalty": (PenaltySpec, f"{source} [imaging.penalty]"),
+        },
+    )
+    models = _take(doc.get("models", {}), ModelsSpec, f"{source} [models]", nested={"forest": (ForestSpec, f"{source} [models.forest]")})
+    validation = _take(doc.get("validation", {}), ValidationSpec, f"{source} [validation]")
+    external = None
+    if "external" in doc:
+        external = _take(doc["external"], ExternalSpec, f"{source} [external]", base=base, paths=("features", "clinical"))
+    extra = set(study) - {"name", "horizons", "seed", "anticipated_r2"}
+    if extra:
+        raise SpecError(f"{source} [study]: unknown key(s) {', '.join(sorted(extra))}.")
+    try:
+        horizons = tuple(float(h) for h in study["horizons"])
+    except (TypeError, ValueError):
+        raise SpecError(f"{source} [study] horizons must be a list of numbers, e.g. [12, 24, 36].") from None
+    return StudySpec(
+        name=str(study["name"]),
+        data=data,
+        predictors=predictors,
+        horizons=horizons,
+        seed=int(study.get("seed", 20261202)),
+        imaging=imaging,
+        models=models,
+        validation=validation,
+        external=external,
+        anticipated_r2=study.get("anticipated_r2"),
+    )
+
+
+# ------------------------------------------------------------------ writing
+
+
+def _plain(obj, defaults=None) -> dict:
+    """Dataclass to a TOML-ready dict: tuples to lists, None values left out."""
+    out = {}
+    for f in fields(obj):
+        v = getattr(obj, f.name)
+        if v is None:
+            continue
+        if hasattr(v, "__dataclass_fields__"):
+            v = _plain(v)
+        elif isinstance(v, tuple):
+            v = list(v)
+        out[f.name] = v
+    return out
+
+
+def _rel(path: str, base: Path | None) -> str:
+    if base is None:
+        return path
+    try:
+        return Path(os.path.relpath(Path(path).resolve(), base.resolve())).as_posix()
+    except ValueError:  # another drive on Windows
+        return path
+
+
+def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
+    study = {"name": spec.name, "horizons": list(spec.horizons), "seed": spec.seed}
+    if spec.anticipated_r2 is not None:
+        study["anticipated_r2"] = spec.anticipated_r2
+    data = _plain(spec.data)
+    data["features"] = _rel(spec.data.features, base)
+    data["clinical"] = _rel(spec.data.clinical, base)
+    doc = {"study": study, "data": data, "predictor": [_plain(p) for p in spec.predictors]}
+    doc["imaging"] = _plain(spec.imaging)
+    doc["models"] = _plain(spec.models)
+    doc["validation"] = _plain(spec.validation)
+    if spec.external is not None:
+        doc["external"] = {
+            "features": _rel(spec.external.features, base),
+            "clinical": _rel(spec.external.clinical, base),
+        }
+    return doc
+
+
+def dumps_study(spec: StudySpec, *, base: Path | None = None) -> str:
+    return tomli_w.dumps(study_to_dict(spec, base=base))
+
+
+def write_study(spec: StudySpec, path) -> Path:
+    """Write ``spec`` as a study file; paths are stored relative to its folder."""
+    p = Path(path)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    p.write_text(dumps_study(spec, base=p.resolve().parent), encoding="utf-8")
+    return p
+
+
+def with_validation(spec: StudySpec, **changes) -> StudySpec:
+    """A copy of ``spec`` with validation settings changed (e.g. fewer replicates)."""
+    return replace(spec, validation=replace(spec.validation, **changes))
