@@ -1,0 +1,69 @@
+"""Build the models a study asks for: an explicit table, nothing registers itself."""
+
+from __future__ import annotations
+
+from workbench.models.cox import ClinicalCox, CombinedCox
+from workbench.models.signature import ImagingSignature
+from workbench.models.wide import ForestModel, PenalisedAllCox
+from workbench.study import StudySpec
+
+MODEL_LABELS = {
+    "clinical": "Clinical Cox",
+    "combined": "Clinical + imaging signature",
+    "penalised_all": "Penalised Cox, clinical + all imaging",
+    "forest": "Random survival forest",
+}
+
+
+def build_signature(spec: StudySpec, random_state: int) -> ImagingSignature:
+    im = spec.imaging
+    return ImagingSignature(
+        harmonize=im.harmonise.method == "combat",
+        combat_prior=im.harmonise.empirical_bayes,
+        unseen_batch=im.harmonise.unseen_batch,
+        redundancy_threshold=im.reduce.correlation if im.reduce.correlation < 1 else None,
+        screen_fdr=im.reduce.screen_fdr if im.reduce.screen else None,
+        l1_ratio=im.penalty.l1_ratio,
+        n_alphas=im.penalty.n_alphas,
+        path_stop_ratio=im.penalty.alpha_min_ratio,
+        n_folds=im.penalty.folds,
+        rule=im.penalty.rule,
+        random_state=random_state,
+    )
+
+
+def build_models(spec: StudySpec) -> dict:
+    """Unfitted models for ``spec.models.fit``, in that order, keyed by name."""
+    preds = tuple(spec.predictors)
+    h = spec.imaging.harmonise
+    seed = int(spec.seed)
+    table = {
+        "clinical": lambda: ClinicalCox(preds),
+        "combined": lambda: CombinedCox(preds, signature=build_signature(spec, seed), protect=tuple(h.protect)),
+        "penalised_all": lambda: PenalisedAllCox(
+            preds,
+            harmonise=h.method == "combat",
+            protect=tuple(h.protect),
+            combat_prior=h.empirical_bayes,
+            unseen_batch=h.unseen_batch,
+            l1_ratio=spec.imaging.penalty.l1_ratio,
+            n_alphas=spec.imaging.penalty.n_alphas,
+            alpha_min_ratio=spec.imaging.penalty.alpha_min_ratio,
+            n_folds=spec.imaging.penalty.folds,
+            rule=spec.imaging.penalty.rule,
+            random_state=seed,
+        ),
+        "forest": lambda: ForestModel(
+            preds,
+            harmonise=h.method == "combat",
+            protect=tuple(h.protect),
+            combat_prior=h.empirical_bayes,
+            unseen_batch=h.unseen_batch,
+            n_estimators=spec.models.forest.trees,
+            min_samples_leaf=spec.models.forest.min_leaf,
+            max_features=spec.models.forest.max_features,
+            time_grid=spec.models.forest.time_grid,
+            random_state=seed,
+        ),
+    }
+    return {name: table[name]() for name in spec.models.fit}
