@@ -82,7 +82,9 @@ def _parametric(Zb, g_hat, d_hat, tol, max_iter):
         a = (2 * s2 + m * m) / s2  # inverse-gamma shape and scale by the method of moments
         b = (m * s2 + m**3) / s2
     g_old, d_old = g_hat.copy(), d_hat.copy()
-    for it in range(1, max_iter + 1):
+    it = 0
+    while it < max_iter:
+        it += 1
         den = n * tau2 + d_old
         g_new = np.where(den > 0, (n * tau2 * g_hat + d_old * g_bar) / np.where(den > 0, den, 1.0), g_hat)
         if shrink_delta:
