@@ -58,10 +58,11 @@ def _join(names) -> str:
 
 
 def _rows(mask: np.ndarray) -> str:
-    idx = np.flatnonzero(mask) + 1
+    # Spreadsheet numbering (header = row 1), the project's convention for messages.
+    idx = np.flatnonzero(mask) + 2
     shown = ", ".join(str(i) for i in idx[:5])
     more = f" and {idx.size - 5} more" if idx.size > 5 else ""
-    return f"row{'s' if idx.size > 1 else ''} {shown}{more} (first data row = 1)"
+    return f"row{'s' if idx.size > 1 else ''} {shown}{more} (spreadsheet numbering, header = row 1)"
 
 
 # ----------------------------------------------------------------- results
