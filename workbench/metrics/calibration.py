@@ -25,9 +25,10 @@ import numpy as np
 from scipy.stats import norm
 
 from workbench.cohort.outcome import split_outcome
-from workbench.errors import MetricError
+from workbench.errors import MetricError, ModelError
 from workbench.metrics.brier import _check_single_horizon, _require_curves
 from workbench.predictions import SurvivalCurves
+from workbench.stats.coxph import fit_coxph
 from workbench.stats.km import kaplan_meier, km_ci_at, survival_at
 
 # Knot positions (quantiles) for restricted cubic splines, Harrell, Regression
@@ -44,13 +45,17 @@ _EPS = 1e-12
 
 def _fit_cox(X: np.ndarray, time: np.ndarray, event: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Coefficients and their covariance from an Efron-ties Cox model (the one Cox adapter)."""
-    import pandas as pd
-    from lifelines import CoxPHFitter
-
-    df = pd.DataFrame(X, columns=[f"z{j}" for j in range(X.shape[1])])
-    df["_time"], df["_event"] = time, event.astype(int)
-    fit = CoxPHFitter().fit(df, "_time", "_event")
-    return fit.params_.to_numpy(), fit.variance_matrix_.to_numpy()
+    try:
+        # The calibration model has one to a few spline terms; the events-per-parameter
+        # warning meant for prognostic models would only confuse here.
+        fit = fit_coxph(X, time, event, ties="efron", min_events_per_parameter=0.0)
+    except ModelError as exc:
+        raise MetricError(
+            "the Cox model relating outcomes to predicted risks could not be fitted "
+            f"({exc}). This usually means too few events or too little spread in the "
+            "predictions at this horizon."
+        ) from exc
+    return np.asarray(fit.coef, dtype=float), np.asarray(fit.cov, dtype=float)
 
 
 def _cloglog(risk: np.ndarray) -> np.ndarray:
@@ -133,7 +138,7 @@ def _fit_cox_at_horizon(Z, time, event, t0) -> _CoxAtHorizon:
     )
 
 
-def _prepare(y, curves, t0, where, censor_at_horizon=False):
+def _prepare(y, curves, t0, where, censor_at_horizon=False, spread_needed=False):
     curves = _require_curves(curves, where)
     time, event = split_outcome(y)
     if curves.n_samples != time.size:
@@ -142,6 +147,12 @@ def _prepare(y, curves, t0, where, censor_at_horizon=False):
             "predictions and outcomes must describe the same patients in the same order."
         )
     t0 = _check_single_horizon(time, event, t0, where)
+    if spread_needed and np.ptp(curves.risk_at(t0)) <= 0:
+        raise MetricError(
+            f"{where}: every patient has the same predicted risk at {t0:g}, so there is no "
+            "spread of predictions to relate to outcomes. Use observed_expected for a "
+            "single-value model, or check that the model's predictions depend on its predictors."
+        )
     if censor_at_horizon:
         event = event & (time <= t0)
         time = np.minimum(time, t0)
@@ -375,7 +386,9 @@ def smoothed_calibration(
     .. [2] Tsiatis AA. A large sample study of Cox's regression model. Ann Stat
            1981;9:93-108.
     """
-    _, time, event, t0, risk = _prepare(y, curves, t0, "smoothed_calibration", censor_at_horizon)
+    _, time, event, t0, risk = _prepare(
+        y, curves, t0, "smoothed_calibration", censor_at_horizon, spread_needed=True
+    )
     x = _cloglog(risk)
     knot_pos = _rcs_knots(x, knots)
     if knot_pos.size < 3:
@@ -433,7 +446,9 @@ def calibration_slope(
            of prognostic survival models. Stat Med 2000;19:3401-15.
     .. [2] Royston P, Altman DG. BMC Med Res Methodol 2013;13:33.
     """
-    _, time, event, t0, risk = _prepare(y, curves, t0, "calibration_slope", censor_at_horizon)
+    _, time, event, t0, risk = _prepare(
+        y, curves, t0, "calibration_slope", censor_at_horizon, spread_needed=True
+    )
     beta, cov = _fit_cox(_cloglog(risk)[:, None], time, event)
     slope, se = float(beta[0]), float(np.sqrt(cov[0, 0]))
     z = norm.ppf(0.5 + conf_level / 2.0)
