@@ -31,6 +31,7 @@ from sksurv.ensemble import RandomSurvivalForest
 
 from workbench.cohort.outcome import check_outcome, split_outcome
 from workbench.errors import MetricError, ModelError, NotFittedError, WorkbenchWarning
+from workbench.metrics.concordance import harrell_c
 from workbench.predictions import RiskScores, SurvivalCurves
 
 __all__ = ["PermutationImportanceResult", "SurvivalForest", "permutation_importance"]
@@ -245,7 +246,7 @@ class SurvivalForest(BaseEstimator):
                 WorkbenchWarning,
                 stacklevel=2,
             )
-        self.oob_score_ = _harrell_c(time[scored], event[scored], oob_num[scored] / oob_den[scored])
+        self.oob_score_ = _harrell_c(y[scored], oob_num[scored] / oob_den[scored])
         return self
 
     # -------------------------------------------------------------- predict
@@ -654,21 +655,13 @@ def _fingerprint(Xa: np.ndarray, time: np.ndarray, event: np.ndarray) -> str:
     return h.hexdigest()
 
 
-def _harrell_c(time: np.ndarray, event: np.ndarray, risk: np.ndarray) -> float:
-    from sksurv.metrics import concordance_index_censored
-
-    try:
-        return float(concordance_index_censored(event, time, risk)[0])
-    except ValueError as exc:
-        raise MetricError(
-            f"Harrell's C cannot be computed here ({exc}); it needs at least one event "
-            "followed by a patient still at risk."
-        ) from exc
+def _harrell_c(y: np.ndarray, risk: np.ndarray) -> float:
+    return harrell_c(y, RiskScores(risk, model="survival forest")).c_index
 
 
 def _resolve_metric(metric):
     if callable(metric):
         return (lambda y, risk: float(metric(y, risk))), getattr(metric, "__name__", "custom")
     if metric == "harrell_c":
-        return (lambda y, risk: _harrell_c(y["time"], y["event"], risk)), "harrell_c"
+        return _harrell_c, "harrell_c"
     raise MetricError(f"metric={metric!r} is not available; use 'harrell_c' or a function (y, risk) -> score.")

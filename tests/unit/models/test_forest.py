@@ -73,17 +73,28 @@ def test_fit_returns_self_and_keeps_no_training_rows(train):
                 assert arr.ndim == 1 or not np.array_equal(arr, Xa), name
 
 
+def test_pickled_forest_predicts_the_same(fitted, test_rows):
+    import pickle
+
+    Xt, _ = test_rows
+    again = pickle.loads(pickle.dumps(fitted))
+    np.testing.assert_array_equal(again.predict_survival(Xt), fitted.predict_survival(Xt))
+    np.testing.assert_array_equal(again.predict_risk(Xt), fitted.predict_risk(Xt))
+
+
 def test_predict_before_fit_raises():
     with pytest.raises(NotFittedError, match="not been fitted"):
         SurvivalForest().predict_risk(np.zeros((2, 3)))
 
 
+@few_trees
 def test_same_seed_same_forest_other_seed_other_forest(train, test_rows):
     X, y = train
     Xt, _ = test_rows
-    a = SurvivalForest(**SETTINGS).fit(X, y).predict_survival(Xt)
-    b = SurvivalForest(**SETTINGS).fit(X, y).predict_survival(Xt)
-    c = SurvivalForest(**{**SETTINGS, "random_state": 4}).fit(X, y).predict_survival(Xt)
+    small = {**SETTINGS, "n_estimators": 8}
+    a = SurvivalForest(**small).fit(X, y).predict_survival(Xt)
+    b = SurvivalForest(**small).fit(X, y).predict_survival(Xt)
+    c = SurvivalForest(**{**small, "random_state": 4}).fit(X, y).predict_survival(Xt)
     np.testing.assert_array_equal(a, b)
     assert np.abs(a - c).max() > 1e-3
 
