@@ -241,6 +241,10 @@ class TermInfo:
     has_limit_indicator : bool
         True if the term has a "below the detection limit" indicator column
         (the last of ``columns``).
+    limit_requested : bool
+        True if the specification asked for detection-limit handling (so a
+        below-limit value without training counterparts is an unestimable case,
+        not a specification mistake).
     n_below_limit_train : int
         Training rows below the detection limit.
     train_min, train_max : float
@@ -274,6 +278,7 @@ class TermInfo:
     level_counts: tuple[int, ...] = ()
     detection_limit: float | None = None
     has_limit_indicator: bool = False
+    limit_requested: bool = False
     n_below_limit_train: int = 0
     train_min: float = float("nan")
     train_max: float = float("nan")
@@ -370,6 +375,15 @@ class HazardRatioRow:
 # ------------------------------------------------------------------ encoding
 
 
+def _no_estimate_below(term: TermInfo, below: np.ndarray, where: RowContext) -> str:
+    limit = "" if term.detection_limit is None else f" {term.detection_limit:.6g}"
+    return (
+        f"{column_name(term.column, term.label)}: {where.rows(below)} lie below the detection "
+        f"limit{limit}, but no training patient did, so the model has no estimate for them. "
+        "Refit on data that include such patients, or correct the values."
+    )
+
+
 def _encode(term: TermInfo, series: pd.Series, where: RowContext) -> tuple[np.ndarray, np.ndarray]:
     """Design columns of one term (NaN rows where missing) and the missing mask."""
     if term.kind in ("categorical", "ordinal"):
@@ -380,17 +394,16 @@ def _encode(term: TermInfo, series: pd.Series, where: RowContext) -> tuple[np.nd
             z = (k[:, None] == np.asarray(others, dtype=str)[None, :]).astype(float)
         else:
             score = dict(zip(term.levels, term.scores, strict=True))
-            z = np.array([score.get(v, np.nan) for v in k], dtype=float)[:, None]
+            z = pd.Series(k).map(score).to_numpy(dtype=float, na_value=np.nan)[:, None]
     else:
         parsed = read_numbers(term.column, term.label, series, where)
         missing = parsed.missing
+        stated = parsed.below_limit & ~missing
+        if term.limit_requested and term.detection_limit is None and stated.any():
+            raise ModelError(_no_estimate_below(term, stated, where))
         value, below = apply_detection_limit(term.column, term.label, parsed, term.detection_limit, where)
         if below.any() and not term.has_limit_indicator:
-            raise ModelError(
-                f"{column_name(term.column, term.label)}: {where.rows(below)} lie below the detection limit "
-                f"{term.detection_limit:.6g}, but no training patient did, so the model has no "
-                "estimate for them. Refit on data that include such patients, or correct the values."
-            )
+            raise ModelError(_no_estimate_below(term, below, where))
         check_positive(term.column, term.label, term.transform, value, missing, where)
         with np.errstate(invalid="ignore", divide="ignore"):
             x = _TRANSFORM_FUNCS[term.transform](np.where(missing, np.nan, value))
@@ -531,6 +544,7 @@ def _learn_numeric(spec: PredictorSpec, series: pd.Series, where: RowContext, st
         columns=names, start=start, stop=start + len(names),
         knots=knots, knots_raw=knots_raw,
         detection_limit=limit, has_limit_indicator=has_indicator,
+        limit_requested=spec.detection_limit is not None,
         n_below_limit_train=int(below[obs].sum()),
         train_min=float(raw.min()), train_max=float(raw.max()),
         percentiles=tuple(zip(PERCENTILES, np.percentile(raw, PERCENTILES).tolist(), strict=True)),

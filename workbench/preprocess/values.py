@@ -9,6 +9,7 @@ never guesses: a cell it cannot read is reported, not dropped.
 
 from __future__ import annotations
 
+import re
 import warnings
 from dataclasses import dataclass
 
@@ -21,7 +22,7 @@ from workbench.errors import CohortError, DataQualityWarning, ModelError, SpecEr
 MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "."})
 """Cell texts (after trimming, any letter case) read as a missing value."""
 
-_MEASUREMENT = (
+_MEASUREMENT = re.compile(
     r"^(?P<below><=?|\u2264)?\s*"
     r"(?P<number>[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?)$"
 )
@@ -72,17 +73,40 @@ def parse_measurements(values: ArrayLike) -> ParsedMeasurements:
         v = np.where(invalid, np.nan, v)
         return ParsedMeasurements(v, np.zeros(n, dtype=bool), missing, invalid)
 
-    obj = s.astype(object).reset_index(drop=True)
-    missing = obj.isna().to_numpy()
-    text = obj.where(~missing, "").astype(str).str.strip()
-    missing |= text.str.lower().isin(MISSING_TOKENS).to_numpy()
-    parts = text.str.extract(_MEASUREMENT)
-    number = pd.to_numeric(parts["number"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
-    readable = np.isfinite(number)
-    invalid = ~missing & ~readable
-    below = readable & parts["below"].notna().to_numpy()
-    value = np.where(readable & ~missing, number, np.nan)
-    return ParsedMeasurements(value, below & ~missing, missing, invalid)
+    # Parse each distinct cell once: clinical columns repeat values heavily, and
+    # per-cell regular expressions over the whole column dominate otherwise.
+    codes, uniques = pd.factorize(s.to_numpy(dtype=object), use_na_sentinel=True)
+    table = np.array([_parse_cell(u) for u in uniques] + [(np.nan, False, True, False)], dtype=object)
+    picked = table[codes]  # code -1 (NaN, None) picks the trailing "missing" row
+    return ParsedMeasurements(
+        value=picked[:, 0].astype(float),
+        below_limit=picked[:, 1].astype(bool),
+        missing=picked[:, 2].astype(bool),
+        invalid=picked[:, 3].astype(bool),
+    )
+
+
+def _parse_cell(cell: object) -> tuple[float, bool, bool, bool]:
+    """(value, below_limit, missing, invalid) of one distinct cell."""
+    if isinstance(cell, (bool, np.bool_)):
+        return np.nan, False, False, True
+    if isinstance(cell, (int, float, np.integer, np.floating)):
+        f = float(cell)
+        if np.isnan(f):
+            return np.nan, False, True, False
+        return (f, False, False, False) if np.isfinite(f) else (np.nan, False, False, True)
+    text = str(cell).strip()
+    if text.lower() in MISSING_TOKENS:
+        return np.nan, False, True, False
+    match = _MEASUREMENT.match(text)
+    if match is None:
+        return np.nan, False, False, True
+    # Python's float() rounds correctly; pandas' fast text parser can be one unit
+    # in the last place off, which would move knots and limits by a hair.
+    f = float(match["number"])
+    if not np.isfinite(f):
+        return np.nan, False, False, True
+    return f, match["below"] is not None, False, False
 
 
 def _canonical(cell: object) -> str:
@@ -115,12 +139,15 @@ def level_keys(values: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     obj = s.astype(object).reset_index(drop=True)
     missing = obj.isna().to_numpy()
     present = obj[~missing]
-    lookup = {u: _canonical(u) for u in pd.unique(present)}
+    lookup = {}
+    for u in pd.unique(present):
+        key = _canonical(u)
+        lookup[u] = None if key.lower() in MISSING_TOKENS else key
     keys = np.full(len(obj), None, dtype=object)
     keys[~missing] = present.map(lookup).to_numpy(dtype=object)
-    blank = np.array([k is not None and k.lower() in MISSING_TOKENS for k in keys], dtype=bool)
-    keys[blank] = None
-    return keys, missing | blank
+    missing = pd.isna(keys)
+    keys[missing] = None
+    return keys, missing
 
 
 def canonical_level(level: object) -> str:
