@@ -90,3 +90,32 @@ def gbsg2_columns():
         event_codes=("recurrence",),
         censor_codes=("censored",),
     )
+
+
+@pytest.fixture(scope="session")
+def simulated_cohort(tmp_path_factory):
+    """A small cohort from the demo generator (invented data, used where the truth is needed).
+
+    Written to CSV and read back through the real reader, as a user's tables would be.
+    """
+    from workbench.cohort.io import ColumnMap, read_cohort
+    from workbench.simulate import simulate_cohort
+
+    sim = simulate_cohort(300, random_state=11, n_features=60)
+    d = tmp_path_factory.mktemp("sim")
+    sim.imaging.to_csv(d / "imaging.csv", index=False)
+    sim.clinical.to_csv(d / "clinical.csv", index=False)
+    cols = ColumnMap(
+        time="os_months", event="status", event_codes=("dead",), censor_codes=("alive",),
+        centre="hospital", batch="scanner",
+    )
+    return read_cohort(d / "imaging.csv", d / "clinical.csv", cols), sim
+
+
+
+@pytest.fixture(scope="session")
+def demo_predictors():
+    """The clinical predictor specification of demo_cohort/study.toml."""
+    from workbench.study import read_study
+
+    return read_study(Path(__file__).parents[1] / "demo_cohort" / "study.toml").predictors
