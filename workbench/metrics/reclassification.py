@@ -148,6 +148,8 @@ def continuous_nri(
     and likewise for "down", where ``D`` is an event by ``t0``. This is the
     Kaplan-Meier estimator for survival data of Pencina et al. (2011); it needs
     censoring to be independent of the event time within the up and down groups.
+    Because the three Kaplan-Meier curves are fitted separately,
+    ``P(up | D) + P(down | D)`` can differ slightly from 1 even without ties.
 
     Parameters
     ----------
