@@ -1,0 +1,67 @@
+"""Write the invented demo cohort: three network hospitals plus one external hospital.
+
+Synthetic data only; no real patient is behind any row. Run from the repository root::
+
+    python demo_cohort/generate.py
+
+Rerunning reproduces every file byte for byte (fixed seeds, fixed number formats).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import pandas as pd
+
+from workbench.simulate import EXTERNAL_HOSPITALS, NETWORK_HOSPITALS, simulate_cohort
+
+HERE = Path(__file__).resolve().parent
+TRAINING_SEED = 20240
+EXTERNAL_SEED = 20241
+N_TRAINING = 500
+N_EXTERNAL = 150
+FEATURE_FORMAT = "%.5g"  # five significant digits keep the files small
+
+
+def _csv(frame: pd.DataFrame, float_format: str) -> str:
+    return frame.to_csv(index=False, float_format=float_format, lineterminator="\n")
+
+
+def build_files() -> dict[str, str]:
+    """Return the text of every demo file, keyed by file name."""
+    train = simulate_cohort(N_TRAINING, random_state=TRAINING_SEED, hospitals=NETWORK_HOSPITALS)
+    ext = simulate_cohort(N_EXTERNAL, random_state=EXTERNAL_SEED, hospitals=EXTERNAL_HOSPITALS)
+    if set(train.clinical["patient_id"]) & set(ext.clinical["patient_id"]):
+        raise RuntimeError("patient identifiers collide between the training and external cohorts.")
+    if train.truth["model"] != ext.truth["model"]:
+        raise RuntimeError("the training and external cohorts were drawn from different models.")
+    truth = {
+        "synthetic": True,
+        "description": "Invented cohort for demonstration and testing; no real patients.",
+        "model": train.truth["model"],
+        "scanner_shifts": {**train.truth["scanner_shifts"], **ext.truth["scanner_shifts"]},
+        "scanner_sensitivity": train.truth["scanner_sensitivity"],
+        "cohorts": {
+            "training": {"files": ["clinical.csv", "imaging.csv"], **train.truth["cohort"]},
+            "external": {"files": ["external_clinical.csv", "external_imaging.csv"],
+                         **ext.truth["cohort"]},
+        },
+    }
+    return {
+        "clinical.csv": _csv(train.clinical, "%.1f"),
+        "imaging.csv": _csv(train.imaging, FEATURE_FORMAT),
+        "external_clinical.csv": _csv(ext.clinical, "%.1f"),
+        "external_imaging.csv": _csv(ext.imaging, FEATURE_FORMAT),
+        "truth.json": json.dumps(truth, indent=2) + "\n",
+    }
+
+
+def main(out_dir: Path = HERE) -> None:
+    for name, text in build_files().items():
+        (out_dir / name).write_text(text, encoding="utf-8", newline="\n")
+
+
+if __name__ == "__main__":
+    main(Path(sys.argv[1]) if len(sys.argv) > 1 else HERE)
