@@ -369,7 +369,7 @@ class _RiskSets:
 
 def _solve(info, rhs):
     try:
-        return linalg.cho_solve(linalg.cho_factor(info), rhs)
+        return linalg.cho_solve(linalg.cho_factor(info, check_finite=False), rhs, check_finite=False)
     except (linalg.LinAlgError, ValueError):
         return None
 

@@ -100,9 +100,9 @@ class PHTestResult:
 
 
 def _check_data(fit: CoxPHFit, X, time, event, weights, offset):
-    data = _prepare(X, time, event, weights, offset, None)
     if isinstance(X, pd.DataFrame) and set(fit.names) <= set(map(str, X.columns)):
-        data = _prepare(X.rename(columns=str)[list(fit.names)], time, event, weights, offset, None)
+        X = X.rename(columns=str)[list(fit.names)]
+    data = _prepare(X, time, event, weights, offset, None)
     if data.X.shape[1] != fit.n_params:
         raise ModelError(
             f"The data have {data.X.shape[1]} predictor columns but the model has {fit.n_params} "
