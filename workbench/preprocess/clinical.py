@@ -36,9 +36,7 @@ References
 from __future__ import annotations
 
 import warnings
-from collections.abc import Mapping
 from dataclasses import dataclass
-from types import MappingProxyType
 
 import numpy as np
 import pandas as pd
@@ -108,7 +106,8 @@ class PredictorSpec:
         Continuous kinds only. ``None``: a value such as ``"<0.5"`` is an error.
         ``"auto"``: the limit is read from the ``"<x"`` cells of the training
         rows (the largest, if several). A number: the limit itself. Cells below
-        the limit get an indicator column and the continuous term at the limit.
+        the limit (written ``"<x"``, or a number under the limit) get an
+        indicator column and the continuous term evaluated at the limit.
     missing : {"complete_case", "impute"}
         ``complete_case``: rows with this value missing are dropped (the design
         matrix reports which). ``impute``: the training median (continuous) or
@@ -247,8 +246,9 @@ class TermInfo:
         not a specification mistake).
     n_below_limit_train : int
         Training rows below the detection limit.
-    train_min, train_max : float
-        Range of the detectable training values (original scale).
+    train_min, train_max : float or None
+        Range of the detectable training values (original scale); None for
+        categorical and ordinal terms.
     percentiles : tuple of (float, float)
         ``(q, value)`` pairs for ``PERCENTILES`` of the detectable training values.
     impute_value : float, str or None
@@ -280,8 +280,8 @@ class TermInfo:
     has_limit_indicator: bool = False
     limit_requested: bool = False
     n_below_limit_train: int = 0
-    train_min: float = float("nan")
-    train_max: float = float("nan")
+    train_min: float | None = None
+    train_max: float | None = None
     percentiles: tuple[tuple[float, float], ...] = ()
     impute_value: float | str | None = None
     n_missing_train: int = 0
@@ -321,7 +321,7 @@ class DesignMatrix:
         drop the same rows from the outcome: ``y[rows_used]``.
     n_dropped : int
         Rows dropped for a missing value.
-    n_imputed : mapping of str to int
+    n_imputed : dict of str to int
         Imputed cells per ``impute`` predictor, among the rows used.
     """
 
@@ -330,7 +330,7 @@ class DesignMatrix:
     terms: tuple[TermInfo, ...]
     rows_used: np.ndarray
     n_dropped: int
-    n_imputed: Mapping[str, int]
+    n_imputed: dict[str, int]
 
     def to_frame(self) -> pd.DataFrame:
         """The design matrix as a DataFrame with the design column names."""
@@ -610,7 +610,7 @@ class ClinicalTransformer(BaseEstimator):
     n_dropped_train_ : int
         Training rows left out for a missing value in a complete-case predictor;
         everything is learned on the remaining rows, the ones the model sees.
-    n_imputed_train_ : mapping of str to int
+    n_imputed_train_ : dict of str to int
         Training cells imputed, per ``impute`` predictor.
 
     Notes
@@ -642,7 +642,7 @@ class ClinicalTransformer(BaseEstimator):
         keep = np.flatnonzero(~drop)
         if keep.size == 0:
             raise CohortError("no training patient has all complete-case predictors recorded.")
-        sub, sub_where = frame.iloc[keep], where.take(keep)
+        sub, sub_where = frame[[s.column for s in specs]].iloc[keep], where.take(keep)
         terms, start = [], 0
         for s in specs:
             learn = _learn_levels if s.kind in ("categorical", "ordinal") else _learn_numeric
@@ -653,9 +653,7 @@ class ClinicalTransformer(BaseEstimator):
         self.columns_ = tuple(c for t in terms for c in t.columns)
         self.n_train_ = len(frame)
         self.n_dropped_train_ = int(drop.sum())
-        self.n_imputed_train_ = MappingProxyType(
-            {t.column: t.n_missing_train for t in terms if t.missing == "impute"}
-        )
+        self.n_imputed_train_ = {t.column: t.n_missing_train for t in terms if t.missing == "impute"}
         return self
 
     def transform(self, X: Cohort | pd.DataFrame) -> DesignMatrix:
@@ -694,7 +692,7 @@ class ClinicalTransformer(BaseEstimator):
             terms=self.terms_,
             rows_used=keep,
             n_dropped=int(drop.sum()),
-            n_imputed=MappingProxyType({c: int((m & keep).sum()) for c, m in imputed.items()}),
+            n_imputed={c: int((m & keep).sum()) for c, m in imputed.items()},
         )
 
     def fit_transform(self, X: Cohort | pd.DataFrame, y=None) -> DesignMatrix:
@@ -798,7 +796,13 @@ def hazard_ratio_rows(
     Notes
     -----
     Intervals are ``exp(log HR +- z se)`` with ``z`` the normal quantile; this
-    is the Wald interval a Cox fit reports for a single coefficient.
+    is the Wald interval a Cox fit reports for a single coefficient. For a
+    contrast, ``c'b`` is asymptotically normal with variance ``c'Vc``.
+
+    References
+    ----------
+    .. [1] Harrell FE Jr. Regression Modeling Strategies, 2nd ed. Springer,
+       2015 (inter-quartile-range hazard ratios for nonlinear effects).
     """
     if not 0.0 < level < 1.0:
         raise SpecError(f"confidence level must lie between 0 and 1; got {level}.")
@@ -823,7 +827,8 @@ def hazard_ratio_rows(
         d, _ = _encode(t, _as_series([hi, lo]), RowContext.plain(2))
         c = d[0] - d[1]
         text = f"75th vs 25th percentile ({hi:.4g} vs {lo:.4g}{unit})"
-        rows.append(_row(t, names, text, c @ b, np.sqrt(max(c @ v @ c, 0.0)), level))
+        spline_names = names[:-1] if t.has_limit_indicator else names
+        rows.append(_row(t, spline_names, text, c @ b, np.sqrt(max(c @ v @ c, 0.0)), level))
     if t.has_limit_indicator:
         j = t.width - 1
         text = f"below the detection limit vs at the limit ({t.detection_limit:.4g}{unit})"

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import pickle
 import warnings
 
 import numpy as np
@@ -423,6 +424,16 @@ def test_transform_never_mutates_its_input(frame):
     pd.testing.assert_frame_equal(cohort.clinical, clinical_before)
 
 
+def test_fitted_transformer_and_design_survive_pickling(frame):
+    # worker processes and saved model bundles pickle the fitted transformer
+    ct = ClinicalTransformer(SPECS).fit(frame)
+    dm = ct.transform(frame)
+    again = pickle.loads(pickle.dumps(ct))
+    assert again.terms_ == ct.terms_
+    np.testing.assert_array_equal(again.transform(frame).X, dm.X)
+    assert pickle.loads(pickle.dumps(dm)).columns == dm.columns
+
+
 def test_fitted_terms_are_frozen(frame):
     ct = ClinicalTransformer(SPECS).fit(frame)
     with pytest.raises(dataclasses.FrozenInstanceError):
@@ -499,6 +510,12 @@ def test_spline_hazard_ratio_is_a_quartile_contrast(frame):
     c = rcs_basis([q75], term.knots)[0] - rcs_basis([q25], term.knots)[0]
     assert row.se == pytest.approx(np.sqrt(c @ cov @ c), rel=1e-12)
     assert row.design_columns == term.columns and "75th vs 25th" in row.contrast
+    # with a detection limit the quartile row uses the spline columns only, and
+    # the indicator gets its own "below the limit" row
+    lim = ClinicalTransformer((PredictorSpec("pr_text", "spline", knots=3, detection_limit="auto"),)).fit(frame)
+    quartiles, below = hazard_ratio_rows(lim.terms_[0], np.array([0.01, 0.02, 0.3]), np.eye(3) * 1e-4)
+    assert quartiles.design_columns == ("pr_text", "pr_text:nl1")
+    assert below.design_columns == ("pr_text:below_limit",) and below.hr == pytest.approx(np.exp(0.3))
 
 
 def test_no_warnings_on_a_clean_table(frame):
