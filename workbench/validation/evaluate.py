@@ -1,0 +1,579 @@
+"""Every performance measure of fitted models on one set of evaluation rows.
+
+One call gives, per model: Harrell's and Uno's C, the cumulative/dynamic AUC at
+each horizon and its mean, the Brier score and index of prediction accuracy at
+each horizon, the integrated Brier score, and calibration (ICI, E50, E90,
+calibration slope, observed/expected) at each horizon, plus decision-curve net
+benefit. Inverse-probability-of-censoring weights always come from the TRAINING
+rows (``y_train``), never from the evaluation rows.
+
+This runs hundreds of times in a validation (every replicate, every model, on
+two sets of rows), so it avoids repeated work: one prediction call per model on
+a time grid that holds the horizons and the integration grid, one Brier-score
+pass over that grid, one Kaplan-Meier curve for all observed/expected ratios, and
+calibration Cox fits done by the workbench's own Cox fitter (a few milliseconds
+each) with exactly the estimator of :mod:`workbench.metrics.calibration`.
+
+Horizons outside follow-up
+--------------------------
+A horizon is usable for a set of evaluation rows when it lies strictly between
+0 and the longest follow-up of those rows and at least one event has occurred by
+then. With ``on_error="raise"`` (the default) an unusable horizon is a
+:class:`~workbench.errors.MetricError` naming the horizon and the follow-up range.
+With ``on_error="nan"`` (what the resampling engine uses inside replicates) the
+metrics at that horizon, and the summaries that need every horizon (mean AUC,
+integrated Brier score), are NaN and the reason is listed in
+``ModelPerformance.dropped``; the engine counts them per metric.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from workbench.cohort.core import Cohort
+from workbench.cohort.outcome import check_outcome, split_outcome
+from workbench.errors import MetricError, WorkbenchError
+from workbench.metrics.brier import brier_score
+from workbench.metrics.calibration import _cloglog, _rcs_basis, _rcs_knots
+from workbench.metrics.concordance import harrell_c, uno_c
+from workbench.metrics.decision import net_benefit
+from workbench.metrics.reclassification import continuous_nri, integrated_discrimination
+from workbench.metrics.td_auc import time_dependent_auc
+from workbench.predictions import RiskScores, SurvivalCurves
+from workbench.stats.coxph import fit_coxph, linear_predictor
+from workbench.stats.km import kaplan_meier, survival_at
+
+__all__ = [
+    "ModelPerformance",
+    "PairPerformance",
+    "check_horizons",
+    "evaluate_models",
+    "evaluate_pair",
+    "evaluate_predictions",
+    "ibs_grid",
+    "metric_names",
+    "pair_metric_names",
+    "prediction_times",
+]
+
+DEFAULT_THRESHOLDS = np.round(np.arange(1, 100) / 100.0, 2)
+"""Threshold probabilities of the decision curves: 0.01 to 0.99."""
+
+_HORIZON_METRICS = ("auc", "brier", "ipa", "ici", "e50", "e90", "cal_slope", "oe_ratio")
+_GLOBAL_METRICS = ("harrell_c", "uno_c", "mean_auc", "ibs", "null_ibs", "ipa_integrated")
+_PAIR_METRICS = ("nri", "nri_events", "nri_nonevents", "idi", "idi_events", "idi_nonevents")
+_ON_ERROR = ("raise", "nan")
+
+
+def _h(h: float) -> str:
+    return f"{float(h):g}"
+
+
+def metric_names(horizons) -> tuple[str, ...]:
+    """Names of the scalar metrics of :meth:`ModelPerformance.scalars`, in order.
+
+    Global metrics first (``harrell_c``, ``uno_c``, ``mean_auc``, ``ibs``,
+    ``null_ibs``, ``ipa_integrated``), then per horizon ``auc@h``, ``brier@h``,
+    ``ipa@h``, ``ici@h``, ``e50@h``, ``e90@h``, ``cal_slope@h``, ``oe_ratio@h``
+    with the horizon written as in ``f"{h:g}"``.
+    """
+    hs = [_h(h) for h in np.atleast_1d(horizons)]
+    return _GLOBAL_METRICS + tuple(f"{m}@{h}" for m in _HORIZON_METRICS for h in hs)
+
+
+def pair_metric_names(horizons) -> tuple[str, ...]:
+    """Names of the scalar metrics of :meth:`PairPerformance.scalars`, in order."""
+    hs = [_h(h) for h in np.atleast_1d(horizons)]
+    return tuple(f"{m}@{h}" for m in _PAIR_METRICS for h in hs)
+
+
+@dataclass(frozen=True)
+class ModelPerformance:
+    """Performance of one fitted model on one set of evaluation rows.
+
+    Attributes
+    ----------
+    model : str
+    n, n_events : int
+        Evaluation rows and their events.
+    horizons : ndarray of shape (k,)
+    harrell_c, harrell_c_se : float
+        Harrell's C and its asymptotic standard error.
+    uno_c, tau : float
+        Uno's C truncated at ``tau`` (the last horizon unless given).
+    auc : ndarray of shape (k,)
+        Cumulative/dynamic AUC at each horizon.
+    mean_auc : float
+        Kaplan-Meier-weighted mean of ``auc`` (see
+        :func:`workbench.metrics.td_auc.time_dependent_auc`); NaN if a horizon is dropped.
+    brier, null_brier, ipa : ndarray of shape (k,)
+        IPCW Brier score of the model and of the training Kaplan-Meier curve, and
+        ``1 - brier / null_brier``.
+    ibs, null_ibs, ipa_integrated : float
+        Brier scores integrated (trapezoidal rule, divided by the range) over
+        ``ibs_times``, and ``1 - ibs / null_ibs``.
+    ibs_range : tuple of float
+        First and last time of the integration grid actually used.
+    ici, e50, e90, cal_slope, oe_ratio : ndarray of shape (k,)
+        Smoothed calibration (mean, median and 90th percentile of
+        |observed - predicted| risk), calibration slope and Kaplan-Meier
+        observed over mean predicted risk, at each horizon.
+    thresholds : ndarray of shape (m,)
+    net_benefit, treat_all : ndarray of shape (k, m)
+        Decision-curve net benefit of the model and of treating everyone at each
+        horizon (treating no one is 0).
+    dropped : tuple of str
+        Why any metric is NaN (horizon outside follow-up, undefined calibration).
+    """
+
+    model: str
+    n: int
+    n_events: int
+    horizons: np.ndarray
+    harrell_c: float
+    harrell_c_se: float
+    uno_c: float
+    tau: float
+    auc: np.ndarray
+    mean_auc: float
+    brier: np.ndarray
+    null_brier: np.ndarray
+    ipa: np.ndarray
+    ibs: float
+    null_ibs: float
+    ipa_integrated: float
+    ibs_range: tuple[float, float]
+    ici: np.ndarray
+    e50: np.ndarray
+    e90: np.ndarray
+    cal_slope: np.ndarray
+    oe_ratio: np.ndarray
+    thresholds: np.ndarray
+    net_benefit: np.ndarray
+    treat_all: np.ndarray
+    dropped: tuple[str, ...] = ()
+
+    def scalars(self) -> dict[str, float]:
+        """All scalar metrics by name, in the order of :func:`metric_names`."""
+        out = {m: float(getattr(self, m)) for m in _GLOBAL_METRICS}
+        for m in _HORIZON_METRICS:
+            vals = getattr(self, m)
+            for h, v in zip(self.horizons, vals, strict=True):
+                out[f"{m}@{_h(h)}"] = float(v)
+        return out
+
+    def vector(self) -> np.ndarray:
+        """The values of :meth:`scalars` as one float array."""
+        return np.fromiter(self.scalars().values(), dtype=float)
+
+
+@dataclass(frozen=True)
+class PairPerformance:
+    """Category-free NRI and IDI of ``model`` against ``baseline``, by component.
+
+    Attributes
+    ----------
+    model, baseline : str
+    horizons : ndarray of shape (k,)
+    nri, nri_events, nri_nonevents : ndarray of shape (k,)
+    idi, idi_events, idi_nonevents : ndarray of shape (k,)
+    dropped : tuple of str
+    """
+
+    model: str
+    baseline: str
+    horizons: np.ndarray
+    nri: np.ndarray
+    nri_events: np.ndarray
+    nri_nonevents: np.ndarray
+    idi: np.ndarray
+    idi_events: np.ndarray
+    idi_nonevents: np.ndarray
+    dropped: tuple[str, ...] = ()
+
+    def scalars(self) -> dict[str, float]:
+        out = {}
+        for m in _PAIR_METRICS:
+            for h, v in zip(self.horizons, getattr(self, m), strict=True):
+                out[f"{m}@{_h(h)}"] = float(v)
+        return out
+
+    def vector(self) -> np.ndarray:
+        return np.fromiter(self.scalars().values(), dtype=float)
+
+
+# ------------------------------------------------------------------ horizons
+
+
+def _as_horizons(horizons) -> np.ndarray:
+    h = np.atleast_1d(np.asarray(horizons, dtype=float))
+    if h.ndim != 1 or h.size == 0 or not np.all(np.isfinite(h)) or np.any(h <= 0):
+        raise MetricError(
+            f"horizons must be a non-empty list of positive follow-up times, got {list(h.ravel())}."
+        )
+    if h.size > 1 and np.any(np.diff(h) <= 0):
+        raise MetricError(f"horizons must be strictly increasing, got {list(h)}.")
+    return h
+
+
+def check_horizons(y_eval, horizons, *, time_unit: str = "") -> dict[float, str]:
+    """Horizons that cannot be evaluated on these rows, with the reason.
+
+    Parameters
+    ----------
+    y_eval : structured ndarray
+        Outcome of the evaluation rows.
+    horizons : array-like
+    time_unit : str, optional
+        Used in the messages only.
+
+    Returns
+    -------
+    dict
+        ``{horizon: message}`` for every unusable horizon (empty if all are usable).
+    """
+    time, event = split_outcome(y_eval)
+    unit = f" {time_unit}" if time_unit else ""
+    lo, hi = float(time.min()), float(time.max())
+    bad = {}
+    for h in _as_horizons(horizons):
+        if h >= hi:
+            bad[float(h)] = (
+                f"horizon {h:g}{unit} lies outside the follow-up of the {time.size} evaluation "
+                f"patients (follow-up from {lo:g} to {hi:g}{unit}); a horizon must be shorter than "
+                "the longest follow-up, ideally well inside it. Choose an earlier horizon."
+            )
+        elif not np.any(event & (time <= h)):
+            bad[float(h)] = (
+                f"horizon {h:g}{unit}: none of the {time.size} evaluation patients (follow-up "
+                f"{lo:g} to {hi:g}{unit}) had an event by then, so risks at this horizon cannot "
+                "be assessed. Choose a later horizon."
+            )
+    return bad
+
+
+def ibs_grid(y, horizons) -> np.ndarray:
+    """Default integration grid of the integrated Brier score.
+
+    The distinct event times of ``y`` from the first event time up to the last
+    horizon, with the last horizon itself as the end point.
+    """
+    time, event = split_outcome(y)
+    h = _as_horizons(horizons)
+    et = np.unique(time[event])
+    if et.size == 0:
+        raise MetricError("the integrated Brier score needs at least one event in the outcome given.")
+    grid = np.unique(np.r_[et[et <= h[-1]], h[-1]])
+    if grid.size < 2:
+        grid = np.r_[min(et[0], h[-1] / 2.0), h[-1]]
+    return grid
+
+
+def prediction_times(horizons, ibs_times) -> np.ndarray:
+    """Sorted union of the horizons and the integration grid (the times to predict at)."""
+    return np.unique(np.r_[_as_horizons(horizons), np.asarray(ibs_times, dtype=float)])
+
+
+# ----------------------------------------------------------------- calibration
+
+
+def _breslow_h0(lp: np.ndarray, time: np.ndarray, event: np.ndarray, t0: float) -> float:
+    order = np.argsort(time, kind="stable")
+    ts, es = time[order], event[order]
+    w = np.exp(lp[order])
+    s0 = np.cumsum(w[::-1])[::-1]
+    starts = np.flatnonzero(np.r_[True, ts[1:] != ts[:-1]])
+    d = np.add.reduceat(es.astype(float), starts)
+    keep = (ts[starts] <= t0) & (d > 0)
+    return float(np.sum(d[keep] / s0[starts][keep]))
+
+
+def _calibration_at(time, event, risk, t0, knots: int = 3) -> tuple[float, float, float, float]:
+    """ICI, E50, E90 and calibration slope at ``t0``.
+
+    The estimator of :func:`workbench.metrics.calibration.smoothed_calibration`
+    (Cox model on a restricted cubic spline of log(-log(1 - risk)), Breslow
+    baseline at t0, all follow-up) and of ``calibration_slope``; the Cox fits
+    use :func:`workbench.stats.coxph.fit_coxph` (Efron ties) for speed.
+    """
+    x = _cloglog(risk)
+    kp = _rcs_knots(x, knots)
+    if kp.size < 3:
+        kp = kp[:0]  # too few distinct predictions for a spline: linear term only
+    B = _rcs_basis(x, kp)
+    fit = fit_coxph(B, time, event, min_events_per_parameter=0)
+    lp = linear_predictor(fit, B)
+    observed = -np.expm1(-_breslow_h0(lp, time, event, t0) * np.exp(lp))
+    diff = np.abs(observed - risk)
+    slope = fit_coxph(x[:, None], time, event, min_events_per_parameter=0).coef[0]
+    return float(diff.mean()), float(np.median(diff)), float(np.quantile(diff, 0.9)), float(slope)
+
+
+# ------------------------------------------------------------------ evaluation
+
+
+def _nan(k: int) -> np.ndarray:
+    return np.full(k, np.nan)
+
+
+def evaluate_predictions(
+    risk: RiskScores,
+    curves: SurvivalCurves,
+    y_train,
+    y_eval,
+    horizons,
+    *,
+    tau: float | None = None,
+    ibs_times=None,
+    thresholds=None,
+    calibration: bool = True,
+    on_error: str = "raise",
+    time_unit: str = "",
+    model: str = "",
+) -> ModelPerformance:
+    """All metrics of one model's predictions for the evaluation rows.
+
+    Parameters
+    ----------
+    risk : RiskScores
+        Risk scores of the evaluation rows (higher = worse).
+    curves : SurvivalCurves
+        Predicted survival of the same rows on a grid containing ``horizons``
+        and ``ibs_times`` (see :func:`prediction_times`).
+    y_train : structured ndarray
+        Outcome of the training rows: censoring weights and the null model.
+    y_eval : structured ndarray
+        Outcome of the evaluation rows.
+    horizons : array-like of shape (k,)
+        Strictly increasing horizons, in the cohort's time unit.
+    tau : float, optional
+        Truncation time of Uno's C; the last horizon by default.
+    ibs_times : array-like, optional
+        Integration grid of the integrated Brier score; by default
+        :func:`ibs_grid` of ``y_eval``. Grid times before the first follow-up
+        time of ``y_eval`` are left out (the range shrinks accordingly).
+    thresholds : array-like, optional
+        Decision-curve thresholds; 0.01 to 0.99 by default.
+    calibration : bool, default True
+        Compute ICI, E50, E90 and the calibration slope (two small Cox fits per
+        horizon); False leaves them NaN.
+    on_error : {"raise", "nan"}
+        What to do with a horizon outside the follow-up of ``y_eval`` (see the
+        module notes).
+    time_unit, model : str
+        For messages and labels.
+
+    Returns
+    -------
+    ModelPerformance
+
+    References
+    ----------
+    .. [1] Harrell FE et al. JAMA 1982;247:2543-6 (C-index).
+    .. [2] Uno H et al. Stat Med 2011;30:1105-17 (IPCW C-index).
+    .. [3] Uno H et al. J Am Stat Assoc 2007;102:527-37 (cumulative/dynamic AUC).
+    .. [4] Graf E et al. Stat Med 1999;18:2529-45 (Brier score).
+    .. [5] Kattan MW, Gerds TA. Diagn Progn Res 2018;2:7 (IPA).
+    .. [6] Austin PC, Harrell FE, van Klaveren D. Stat Med 2020;39:2714-42 (ICI).
+    .. [7] Vickers AJ et al. BMC Med Inform Decis Mak 2008;8:53 (net benefit).
+    """
+    if on_error not in _ON_ERROR:
+        raise MetricError(f"on_error must be one of {_ON_ERROR}, got {on_error!r}.")
+    y_train = check_outcome(y_train, "y_train")
+    y_eval = check_outcome(y_eval, "y_eval")
+    h = _as_horizons(horizons)
+    k = h.size
+    time, event = split_outcome(y_eval)
+    bad = check_horizons(y_eval, h, time_unit=time_unit)
+    if bad and on_error == "raise":
+        raise MetricError(f"model {model!r}: " + " ".join(bad.values()))
+    dropped = list(bad.values())
+    ok = np.array([float(x) not in bad for x in h])
+    hv = h[ok]
+    tau = float(h[-1]) if tau is None else float(tau)
+
+    def guarded(what, fn, default):
+        try:
+            return fn()
+        except (MetricError, np.linalg.LinAlgError) as exc:
+            if on_error == "raise":
+                raise
+            dropped.append(f"{what}: {exc}")
+            return default
+
+    hc = guarded("Harrell's C", lambda: harrell_c(y_eval, risk), None)
+    uc = guarded("Uno's C", lambda: uno_c(y_train, y_eval, risk, tau=tau).c_index, np.nan)
+
+    auc, mean_auc = _nan(k), np.nan
+    if hv.size:
+        res = guarded("AUC", lambda: time_dependent_auc(y_train, y_eval, risk, hv), None)
+        if res is not None:
+            auc[ok] = res.auc
+            mean_auc = res.mean_auc if ok.all() else np.nan
+
+    grid = ibs_grid(y_eval, h) if ibs_times is None else np.asarray(ibs_times, dtype=float)
+    grid = grid[(grid >= time.min()) & (grid <= h[-1])]
+    brier, null_brier, ipa = _nan(k), _nan(k), _nan(k)
+    ibs = null_ibs = ipa_int = np.nan
+    rng = (float(grid[0]), float(grid[-1])) if grid.size else (np.nan, np.nan)
+    if hv.size:
+        both = np.unique(np.r_[hv, grid if ok.all() else []])
+        res = guarded("Brier score", lambda: brier_score(y_train, y_eval, curves, both), None)
+        if res is not None:
+            pos = np.searchsorted(both, hv)
+            brier[ok], null_brier[ok], ipa[ok] = res.brier[pos], res.null_brier[pos], res.ipa[pos]
+            if ok.all() and grid.size >= 2:
+                gpos = np.searchsorted(both, grid)
+                span = grid[-1] - grid[0]
+                ibs = float(np.trapezoid(res.brier[gpos], grid) / span)
+                null_ibs = float(np.trapezoid(res.null_brier[gpos], grid) / span)
+                ipa_int = 1.0 - ibs / null_ibs if null_ibs > 0 else np.nan
+
+    ici, e50, e90, slope, oe = _nan(k), _nan(k), _nan(k), _nan(k), _nan(k)
+    thr = DEFAULT_THRESHOLDS if thresholds is None else np.asarray(thresholds, dtype=float)
+    nb, treat_all = np.full((k, thr.size), np.nan), np.full((k, thr.size), np.nan)
+    km = kaplan_meier(time, event)
+    for j in np.flatnonzero(ok):
+        t0 = float(h[j])
+        r = curves.risk_at(t0)
+        with warnings.catch_warnings():
+            # Horizon checks were made above; the per-metric follow-up notes would repeat them.
+            warnings.simplefilter("ignore", category=Warning)
+            dc = guarded(f"net benefit at {t0:g}", lambda t0=t0: net_benefit(y_eval, curves, t0, thr), None)
+            if dc is not None:
+                nb[j], treat_all[j] = dc.net_benefit, dc.treat_all
+            if r.mean() > 0:
+                oe[j] = (1.0 - float(survival_at(km, t0))) / float(r.mean())
+            if calibration:
+                try:
+                    ici[j], e50[j], e90[j], slope[j] = _calibration_at(time, event, r, t0)
+                except (WorkbenchError, np.linalg.LinAlgError) as exc:
+                    # Undefined (e.g. every patient has the same predicted risk): NaN in any mode.
+                    dropped.append(f"calibration at {t0:g}: {exc}")
+    return ModelPerformance(
+        model=model or risk.model,
+        n=int(time.size),
+        n_events=int(event.sum()),
+        horizons=h,
+        harrell_c=np.nan if hc is None else hc.c_index,
+        harrell_c_se=np.nan if hc is None else hc.std_err,
+        uno_c=float(uc),
+        tau=tau,
+        auc=auc,
+        mean_auc=float(mean_auc),
+        brier=brier,
+        null_brier=null_brier,
+        ipa=ipa,
+        ibs=float(ibs),
+        null_ibs=float(null_ibs),
+        ipa_integrated=float(ipa_int),
+        ibs_range=rng,
+        ici=ici,
+        e50=e50,
+        e90=e90,
+        cal_slope=slope,
+        oe_ratio=oe,
+        thresholds=thr,
+        net_benefit=nb,
+        treat_all=treat_all,
+        dropped=tuple(dropped),
+    )
+
+
+def evaluate_pair(
+    curves_model: SurvivalCurves,
+    curves_baseline: SurvivalCurves,
+    y_eval,
+    horizons,
+    *,
+    model: str = "",
+    baseline: str = "",
+) -> PairPerformance:
+    """Category-free NRI and IDI of one model against a baseline at each horizon.
+
+    Horizons outside the follow-up of ``y_eval`` give NaN (listed in ``dropped``).
+    See :func:`workbench.metrics.reclassification.continuous_nri` and
+    :func:`~workbench.metrics.reclassification.integrated_discrimination`.
+
+    References
+    ----------
+    .. [1] Pencina MJ, D'Agostino RB Sr, Steyerberg EW. Stat Med 2011;30:11-21.
+    .. [2] Kerr KF et al. Epidemiology 2014;25:114-21 (cautions).
+    """
+    h = _as_horizons(horizons)
+    bad = check_horizons(y_eval, h)
+    vals = {m: _nan(h.size) for m in _PAIR_METRICS}
+    dropped = list(bad.values())
+    for j, t0 in enumerate(h):
+        if float(t0) in bad:
+            continue
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", category=Warning)
+                nri = continuous_nri(y_eval, curves_baseline, curves_model, float(t0))
+                idi = integrated_discrimination(y_eval, curves_baseline, curves_model, float(t0))
+        except MetricError as exc:
+            dropped.append(f"NRI/IDI at {t0:g}: {exc}")
+            continue
+        vals["nri"][j], vals["nri_events"][j], vals["nri_nonevents"][j] = (
+            nri.nri, nri.nri_events, nri.nri_nonevents)
+        vals["idi"][j], vals["idi_events"][j], vals["idi_nonevents"][j] = (
+            idi.idi, idi.idi_events, idi.idi_nonevents)
+    return PairPerformance(model=model, baseline=baseline, horizons=h, dropped=tuple(dropped), **vals)
+
+
+def evaluate_models(
+    fitted: Mapping[str, object],
+    y_train,
+    cohort_eval: Cohort,
+    horizons,
+    *,
+    tau: float | None = None,
+    ibs_times=None,
+    thresholds=None,
+    calibration: bool = True,
+    on_error: str = "raise",
+) -> dict[str, ModelPerformance]:
+    """Evaluate fitted models on a cohort.
+
+    Parameters
+    ----------
+    fitted : mapping of name to fitted model
+        Models following :class:`workbench.models.base.SurvivalModel`.
+    y_train : structured ndarray
+        Outcome of the rows the models were fitted on (censoring weights, null model).
+    cohort_eval : Cohort
+        Evaluation rows.
+    horizons : array-like
+        Strictly increasing horizons in ``cohort_eval.time_unit``.
+    tau, ibs_times, thresholds, calibration, on_error
+        See :func:`evaluate_predictions`.
+
+    Returns
+    -------
+    dict of name to ModelPerformance
+    """
+    h = _as_horizons(horizons)
+    grid = ibs_grid(cohort_eval.y, h) if ibs_times is None else np.asarray(ibs_times, dtype=float)
+    times = prediction_times(h, grid)
+    out = {}
+    for name, m in fitted.items():
+        out[name] = evaluate_predictions(
+            m.predict_risk(cohort_eval),
+            m.predict_survival(cohort_eval, times),
+            y_train,
+            cohort_eval.y,
+            h,
+            tau=tau,
+            ibs_times=grid,
+            thresholds=thresholds,
+            calibration=calibration,
+            on_error=on_error,
+            time_unit=cohort_eval.time_unit,
+            model=name,
+        )
+    return out
