@@ -312,19 +312,31 @@ def choose_alpha(cv_mean: np.ndarray, cv_se: np.ndarray, rule: str = "min") -> t
 # -------------------------------------------------------------------- fitting
 
 
-def _coxnet_path(X, y, alphas, l1_ratio, penalty_factor, tol, max_iter):
-    model = CoxnetSurvivalAnalysis(
-        alphas=alphas, l1_ratio=l1_ratio, penalty_factor=penalty_factor, tol=tol,
-        max_iter=max_iter, fit_baseline_model=False)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        model.fit(X, y)
-    for w in caught:
-        if issubclass(w.category, _SkConvergenceWarning):
-            warnings.warn(
-                f"the penalised Cox solver stopped before converging ({w.message}). "
-                "Increase max_iter or loosen tol.", ConvergenceWarning, stacklevel=3)
-    return model.coef_
+def _coxnet_path(X, y, alphas, l1_ratio, penalty_factor, tol, max_iter, done=None):
+    """Coefficients at every one of ``alphas`` (columns), continuing early-stopped paths.
+
+    The solver ends a path early when the deviance stops changing, which happens in a
+    training fold whose own alpha_max lies below the common grid's first penalties (a
+    run of all-zero models). The rest of the grid is then fitted from the next penalty
+    on (cold start), so every fold scores the same penalties.
+    """
+    parts = [] if done is None else [done]
+    start = 0 if done is None else done.shape[1]
+    while start < len(alphas):
+        model = CoxnetSurvivalAnalysis(
+            alphas=alphas[start:], l1_ratio=l1_ratio, penalty_factor=penalty_factor, tol=tol,
+            max_iter=max_iter, fit_baseline_model=False)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            model.fit(X, y)
+        for w in caught:
+            if issubclass(w.category, _SkConvergenceWarning):
+                warnings.warn(
+                    f"the penalised Cox solver stopped before converging ({w.message}). "
+                    "Increase max_iter or loosen tol.", ConvergenceWarning, stacklevel=3)
+        parts.append(model.coef_)
+        start += model.coef_.shape[1]
+    return np.hstack(parts)
 
 
 def fit_penalized_path(
@@ -431,7 +443,8 @@ def fit_penalized_path(
         ).fit(X, y)
     alpha_max = float(first.alphas_[0])
     grid = alpha_max * np.exp(log_step * np.arange(n_alphas))
-    n_cur, coefs, n_ext = n_seg, first.coef_, 0
+    n_cur, n_ext = n_seg, 0
+    coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter, done=first.coef_)
     while True:
         alphas = grid[:n_cur]
         with warnings.catch_warnings():
