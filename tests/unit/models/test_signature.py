@@ -201,3 +201,25 @@ def test_volume_dominance_check():
         check_volume_dominance(other)
     with pytest.raises(SpecError, match="shape_volume"):
         volume_correlation(mostly_volume, X, "volume")
+
+
+def test_path_is_extended_only_when_the_optimum_sits_on_its_end():
+    # Few strong predictors and many patients: the cross-validated optimum lies at a
+    # weak penalty, below the first stop at 0.05 x alpha_max.
+    rng = np.random.default_rng(12)
+    n = 400
+    X = rng.standard_normal((n, 4))
+    t = rng.exponential(np.exp(-X @ np.array([1.0, -0.8, 0.6, 0.4])))
+    y = make_outcome(t, np.ones(n, bool))
+    r = fit_penalized_path(X, y, path_stop_ratio=0.05, alpha_min_ratio=1e-3, random_state=0)
+    assert r.n_extensions >= 1
+    assert r.alphas[-1] < 0.05 * r.alpha_max
+    assert r.index_min < r.alphas.size - 1 or r.on_boundary
+    one_se = fit_penalized_path(X, y, path_stop_ratio=0.05, alpha_min_ratio=1e-3, rule="1se",
+                                random_state=0)
+    assert one_se.alpha >= r.alpha
+    # a cohort with a weak signal stops at the first segment
+    X2, y2, _, _ = _signal_cohort(seed=3)
+    Z2 = ((X2 - X2.mean()) / X2.std(ddof=0)).to_numpy()
+    r2 = fit_penalized_path(Z2, y2, random_state=0)
+    assert r2.n_extensions == 0 and r2.alphas[-1] >= 0.05 * r2.alpha_max * (1 - 1e-9)
