@@ -1,0 +1,73 @@
+"""Small figures the app draws itself when the figures layer offers none for the purpose.
+
+Built on ``matplotlib.figure.Figure`` directly (never pyplot), from results the
+library has already computed; nothing here estimates anything.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+from matplotlib.figure import Figure
+
+INK = "#1b2a41"
+BAND = "#9fb8d9"
+
+
+def km_figure(km, *, time_unit: str, horizons=()) -> Figure:
+    """Overall Kaplan-Meier curve with its 95% band from a ``KaplanMeierResult``."""
+    fig = Figure(figsize=(6.4, 3.4), layout="constrained")
+    ax = fig.add_subplot()
+    t = np.concatenate([[0.0], np.asarray(km.times, float)])
+    s = np.concatenate([[1.0], np.asarray(km.survival, float)])
+    lo = np.concatenate([[1.0], np.asarray(km.ci_lower, float)])
+    hi = np.concatenate([[1.0], np.asarray(km.ci_upper, float)])
+    ax.fill_between(t, lo, hi, step="post", color=BAND, alpha=0.5, linewidth=0, label="95% CI")
+    ax.step(t, s, where="post", color=INK, linewidth=1.6, label="Kaplan-Meier")
+    for h in horizons:
+        ax.axvline(float(h), color="#7a7a7a", linewidth=0.8, linestyle=":")
+    ax.set_ylim(0, 1.02)
+    ax.set_xlim(left=0)
+    ax.set_xlabel(f"Time ({time_unit})")
+    ax.set_ylabel("Overall survival")
+    ax.grid(alpha=0.25)
+    ax.legend(frameon=False, loc="upper right")
+    return fig
+
+
+def line_figure(x, series: dict, *, xlabel: str, ylabel: str, hline=None, logx: bool = False) -> Figure:
+    """Lines of already computed values (e.g. a coefficient path) against one x axis."""
+    fig = Figure(figsize=(6.4, 3.4), layout="constrained")
+    ax = fig.add_subplot()
+    for label, y in series.items():
+        ax.plot(x, y, linewidth=1.2, label=label)
+    if hline is not None:
+        ax.axhline(hline, color="#7a7a7a", linewidth=0.8)
+    if logx:
+        ax.set_xscale("log")
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    ax.grid(alpha=0.25)
+    if 0 < len(series) <= 8:
+        ax.legend(frameon=False, fontsize=8)
+    return fig
+
+
+def bar_figure(labels, values, *, xlabel: str) -> Figure:
+    """Horizontal bars of already computed values (e.g. selection frequencies)."""
+    labels, values = list(labels)[::-1], list(values)[::-1]
+    fig = Figure(figsize=(6.4, max(2.0, 0.24 * len(labels) + 0.8)), layout="constrained")
+    ax = fig.add_subplot()
+    ax.barh(range(len(values)), values, color=INK)
+    ax.set_yticks(range(len(labels)), labels, fontsize=8)
+    ax.set_xlabel(xlabel)
+    ax.set_xlim(0, 1)
+    ax.grid(axis="x", alpha=0.25)
+    return fig
+
+
+def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 200) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=dpi)
+    return buf.getvalue()

@@ -1,0 +1,43 @@
+"""Entry point of the browser front end: ``streamlit run workbench/app/main.py``.
+
+One router (``st.navigation``) over the views, in the order a study is worked
+through. The caution text is shown above every view.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import streamlit as st
+
+from workbench.app import state
+
+HERE = Path(__file__).resolve().parent
+
+PAGES = (
+    ("views/data.py", "Data", "data", ":material/table:"),
+    ("views/design.py", "Design", "design", ":material/tune:"),
+    ("views/signature.py", "Signature", "signature", ":material/filter_alt:"),
+    ("views/results.py", "Results", "results", ":material/monitoring:"),
+    ("views/nomogram.py", "Nomogram", "nomogram", ":material/straighten:"),
+    ("views/patient.py", "Patient", "patient", ":material/person:"),
+    ("views/export.py", "Export", "export", ":material/download:"),
+)
+
+
+def main() -> None:
+    st.set_page_config(page_title="Survival workbench", page_icon=":material/monitoring:", layout="wide")
+    state.init_session()
+    pages = [
+        st.Page(str(HERE / path), title=title, url_path=url, icon=icon, default=(i == 0))
+        for i, (path, title, url, icon) in enumerate(PAGES)
+    ]
+    page = st.navigation(pages)
+    with st.sidebar:
+        st.caption("Does an imaging signature add to clinical factors?")
+        st.caption(f"Caution: {state.CAUTION}")
+    state.show_caution()
+    page.run()
+
+
+main()

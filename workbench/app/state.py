@@ -1,0 +1,328 @@
+"""Per-user choices, cached reads and the background study run of the browser front end.
+
+Everything a user chooses lives in ``st.session_state`` under the keys below;
+tables are cached with ``st.cache_data`` (keyed by file digest and column
+mapping) and fitted study results with ``st.cache_resource`` (keyed by the data
+hash and the study text). The views only call the functions here and the
+library's workflow, figures, report and estimate layers.
+
+Uploaded tables are written to a private temporary folder so that the library
+can read them like any other file; nothing is logged, and messages shown to the
+user name the file, never the temporary folder.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib
+import importlib.util
+import tempfile
+import threading
+import time
+import warnings
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import streamlit as st
+
+from workbench.cohort.io import ColumnMap, file_digest, read_cohort, read_table
+from workbench.cohort.summary import CAUTION, summarise_cohort
+from workbench.errors import WorkbenchError
+from workbench.study import DataSpec, StudySpec, dumps_study, read_study
+
+REPO_ROOT = Path(__file__).resolve().parents[2]
+DEMO_DIR = REPO_ROOT / "demo_cohort"
+DEMO_STUDY = DEMO_DIR / "study.toml"
+
+DEMO_REPLICATES = 20
+"""Bootstrap replicates of the quick run in the browser (the study file keeps its own number)."""
+
+# session_state keys
+K_SOURCE = "wb_source"  # "demo" or "upload"
+K_UPLOAD_DIR = "wb_upload_dir"
+K_DATA = "wb_data"  # DataSpec of the chosen tables and column roles
+K_STUDY = "wb_study"  # StudySpec being designed (or None)
+K_STUDY_NOTE = "wb_study_note"
+K_JOB = "wb_job"  # RunJob of the last study run
+K_HORIZONS = "wb_horizons"
+
+UPLOAD_TYPES = ["csv", "tsv", "txt", "parquet", "pq", "xlsx", "xlsm", "xls"]
+
+
+# ------------------------------------------------------------------ messages
+
+
+def friendly(message: str) -> str:
+    """A message with machine folders removed, so users see file names they know."""
+    text = str(message)
+    roots = [str(REPO_ROOT) + "/"]
+    up = st.session_state.get(K_UPLOAD_DIR)
+    if up:
+        roots.insert(0, str(up) + "/")
+    for r in roots:
+        text = text.replace(r, "")
+    return text
+
+
+def show_error(where: str, exc: BaseException) -> None:
+    """Show an error as readable text; unexpected errors name their kind, never a traceback."""
+    if isinstance(exc, WorkbenchError):
+        st.error(f"{where}: {friendly(str(exc))}")
+    else:
+        first = str(exc).splitlines()[0] if str(exc) else ""
+        st.error(
+            f"{where}: something unexpected went wrong ({type(exc).__name__}"
+            f"{': ' + friendly(first) if first else ''}). Check the inputs on this page; "
+            "if they look right, please report this message."
+        )
+
+
+def show_warnings(messages) -> None:
+    for m in messages:
+        st.warning(friendly(m))
+
+
+def show_caution() -> None:
+    st.info(f"**Caution.** {CAUTION}")
+
+
+def not_available(what: str) -> None:
+    st.info(f"{what} is not available yet in this version of the workbench.")
+
+
+def module_available(name: str) -> bool:
+    """True when a library layer (e.g. ``workbench.workflow``) is installed."""
+    try:
+        return importlib.util.find_spec(name) is not None
+    except (ImportError, ValueError):
+        return False
+
+
+def load_module(name: str):
+    """The module, or None when that layer has not been installed yet."""
+    if not module_available(name):
+        return None
+    return importlib.import_module(name)
+
+
+# ------------------------------------------------------------------ tables
+
+
+@st.cache_data(show_spinner=False, max_entries=32)
+def table_columns(path: str, digest: str) -> list[str]:
+    """Column names of one table (the digest keys the cache on the file's content)."""
+    return list(read_table(path).columns)
+
+
+@st.cache_data(show_spinner=False, max_entries=64)
+def column_levels(path: str, digest: str, column: str, limit: int = 30) -> list[str]:
+    """Distinct non-blank values of one column, as text (for event codes and levels)."""
+    df = read_table(path)
+    if column not in df.columns:
+        return []
+    v = df[column].dropna().astype(str).str.strip()
+    return sorted(v[v != ""].unique().tolist())[:limit]
+
+
+def _record(fn, *args, **kwargs):
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        out = fn(*args, **kwargs)
+    return out, tuple(dict.fromkeys(str(w.message) for w in caught))
+
+
+@st.cache_data(show_spinner="Reading and checking the tables...", max_entries=16)
+def load_cohort(features: str, clinical: str, digests: tuple[str, str], columns: ColumnMap,
+                on_unmatched: str = "error", drop_unusable: bool = False):
+    """The joined, validated cohort and the warnings raised while reading it."""
+    return _record(read_cohort, features, clinical, columns, on_unmatched=on_unmatched,
+                   drop_unusable_features=drop_unusable)
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def cohort_summary(data_hash: str, horizons: tuple[float, ...], _cohort):
+    """Cohort summary (and its warnings) for the cohort whose hash is ``data_hash``."""
+    return _record(summarise_cohort, _cohort, horizons)
+
+
+def digests(data: DataSpec) -> tuple[str, str]:
+    return file_digest(data.features), file_digest(data.clinical)
+
+
+# ------------------------------------------------------------------ session
+
+
+def demo_study() -> StudySpec:
+    return read_study(DEMO_STUDY)
+
+
+def init_session() -> None:
+    """Defaults on first visit: the demo cohort and its study, preselected."""
+    ss = st.session_state
+    if K_SOURCE in ss:
+        return
+    ss[K_SOURCE] = "demo"
+    try:
+        study = demo_study()
+    except WorkbenchError:  # a damaged checkout: start empty rather than fail
+        study = None
+    ss[K_STUDY] = study
+    ss[K_DATA] = study.data if study is not None else None
+    ss[K_HORIZONS] = tuple(study.horizons) if study is not None else (12.0, 24.0, 36.0)
+    ss[K_STUDY_NOTE] = "The demo study (demo_cohort/study.toml) is loaded."
+
+
+def upload_dir() -> Path:
+    ss = st.session_state
+    if not ss.get(K_UPLOAD_DIR):
+        ss[K_UPLOAD_DIR] = tempfile.mkdtemp(prefix="workbench-upload-")
+    return Path(ss[K_UPLOAD_DIR])
+
+
+def save_upload(uploaded, role: str) -> Path:
+    """Write an uploaded table into the session's private folder, named as the user named it."""
+    name = Path(uploaded.name).name or f"{role}.csv"
+    target = upload_dir() / role / name
+    target.parent.mkdir(parents=True, exist_ok=True)
+    data = uploaded.getvalue()
+    if not target.exists() or target.read_bytes() != data:
+        target.write_bytes(data)
+    return target
+
+
+def current_data() -> DataSpec | None:
+    return st.session_state.get(K_DATA)
+
+
+def current_study() -> StudySpec | None:
+    return st.session_state.get(K_STUDY)
+
+
+def set_study(spec: StudySpec | None, note: str = "") -> None:
+    st.session_state[K_STUDY] = spec
+    st.session_state[K_STUDY_NOTE] = note
+
+
+def study_base() -> Path | None:
+    """Folder the data paths of a downloaded study file are written relative to."""
+    data = current_data()
+    if data is None:
+        return None
+    return Path(data.clinical).resolve().parent
+
+
+def study_text(spec: StudySpec) -> str:
+    return dumps_study(spec, base=study_base())
+
+
+def get_cohort():
+    """(cohort, warnings) for the chosen tables, or raise the reading error."""
+    data = current_data()
+    if data is None:
+        raise WorkbenchError("no tables are chosen yet; choose them on the Data page.")
+    return load_cohort(data.features, data.clinical, digests(data), data.column_map(),
+                       data.on_unmatched, data.drop_unusable_features)
+
+
+# ------------------------------------------------------------------ study runs
+
+
+@st.cache_resource(show_spinner=False, max_entries=4)
+def run_study_cached(data_hash: str, text: str, replicates: int, workers: int,
+                     _spec: StudySpec, _progress=None, _cancel=None):
+    """Fitted study result, cached on the data hash and the study text."""
+    workflow = importlib.import_module("workbench.workflow")
+    return workflow.run_study(_spec, progress=_progress, cancel=_cancel,
+                              replicates=replicates, workers=workers)
+
+
+@dataclass
+class RunJob:
+    """One study run in a background thread, so the page stays responsive and can cancel it."""
+
+    key: tuple
+    spec: StudySpec
+    replicates: int
+    workers: int
+    done: int = 0
+    total: int = 0
+    message: str = "starting"
+    result: object = None
+    error: BaseException | None = None
+    cancelled: bool = False
+    started: float = field(default_factory=time.monotonic)
+    finished: float | None = None
+    _cancel: threading.Event = field(default_factory=threading.Event)
+    _thread: threading.Thread | None = None
+
+    def start(self) -> RunJob:
+        self._thread = threading.Thread(target=self._work, name="workbench-study-run", daemon=True)
+        self._thread.start()
+        return self
+
+    def _progress(self, done, total, message="") -> None:
+        self.done, self.total, self.message = int(done), int(total), str(message or "")
+
+    def _work(self) -> None:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # the result carries its warning counts
+                self.result = run_study_cached(self.key[0], self.key[1], self.replicates, self.workers,
+                                               self.spec, self._progress, self._cancel.is_set)
+        except BaseException as exc:  # noqa: BLE001 - reported in the page, never re-raised
+            if self._cancel.is_set():
+                self.cancelled = True
+            else:
+                self.error = exc
+        finally:
+            if self._cancel.is_set() and self.result is None:
+                self.cancelled = True
+            self.finished = time.monotonic()
+
+    def cancel(self) -> None:
+        self._cancel.set()
+
+    @property
+    def running(self) -> bool:
+        return self._thread is not None and self._thread.is_alive()
+
+    def wait(self, seconds: float) -> None:
+        if self._thread is not None:
+            self._thread.join(seconds)
+
+
+def run_key(spec: StudySpec, replicates: int, workers: int) -> tuple:
+    d = spec.data
+    h = hashlib.sha256()
+    paths = [d.features, d.clinical]
+    if spec.external is not None:
+        paths += [spec.external.features, spec.external.clinical]
+    for p in paths:
+        h.update(file_digest(p).encode())
+    return (h.hexdigest(), dumps_study(spec), int(replicates), int(workers))
+
+
+def start_run(spec: StudySpec, replicates: int, workers: int) -> RunJob:
+    job = RunJob(run_key(spec, replicates, workers), spec, int(replicates), int(workers)).start()
+    st.session_state[K_JOB] = job
+    return job
+
+
+def current_job() -> RunJob | None:
+    return st.session_state.get(K_JOB)
+
+
+def current_result():
+    """The finished study result matching the current study, or None."""
+    job = current_job()
+    if job is None or job.result is None:
+        return None
+    return job.result
+
+
+def quick_spec(spec: StudySpec, replicates: int, workers: int) -> StudySpec:
+    """The study with the replicates and workers of this run (forest replicates capped to match)."""
+    v = spec.validation
+    return replace(spec, validation=replace(
+        v, replicates=int(replicates), workers=int(workers),
+        forest_replicates=min(v.forest_replicates, int(replicates))))

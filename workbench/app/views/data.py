@@ -1,0 +1,246 @@
+"""Data: choose the two tables, say what their columns mean, and look at the cohort."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from workbench.app import charts, state
+from workbench.cohort.core import TIME_UNITS
+from workbench.errors import WorkbenchError
+from workbench.stats.km import kaplan_meier
+from workbench.study import DataSpec
+
+NONE = "(none)"
+
+
+def _choose_tables() -> tuple[str, str] | None:
+    ss = st.session_state
+    options = {"demo": "Demo cohort (invented patients)", "upload": "My own tables"}
+    source = st.radio(
+        "Tables", list(options), format_func=options.get, horizontal=True, key="data_source",
+        index=list(options).index(ss.get(state.K_SOURCE, "demo")),
+        help="The demo cohort is synthetic; no real patient is behind any value.",
+    )
+    if source != ss.get(state.K_SOURCE):
+        ss[state.K_SOURCE] = source
+        if source == "demo":
+            study = state.demo_study()
+            ss[state.K_DATA] = study.data
+            state.set_study(study, "The demo study (demo_cohort/study.toml) is loaded.")
+    if source == "demo":
+        d = ss.get(state.K_DATA)
+        if d is None or not str(d.clinical).startswith(str(state.DEMO_DIR)):
+            d = state.demo_study().data
+        return d.features, d.clinical
+    left, right = st.columns(2)
+    with left:
+        f = st.file_uploader("Imaging features table", type=state.UPLOAD_TYPES, key="upload_features",
+                             help="One row per patient: the patient id, then one column per imaging feature.")
+    with right:
+        c = st.file_uploader("Clinical table", type=state.UPLOAD_TYPES, key="upload_clinical",
+                             help="One row per patient: the id, follow-up time, event and clinical fields.")
+    if f is None or c is None:
+        d = ss.get(state.K_DATA)
+        if d is not None and str(state.upload_dir()) in str(d.clinical):
+            st.caption("Using the tables uploaded earlier in this session.")
+            return d.features, d.clinical
+        st.info("Upload both tables (CSV, TSV, Parquet or Excel) to continue.")
+        return None
+    return str(state.save_upload(f, "features")), str(state.save_upload(c, "clinical"))
+
+
+def _pick(label, options, current, key, help=None, optional=False):
+    opts = ([NONE] if optional else []) + list(options)
+    cur = current if current in opts else (NONE if optional else None)
+    idx = opts.index(cur) if cur in opts else 0
+    v = st.selectbox(label, opts, index=idx, key=key, help=help)
+    return None if v == NONE else v
+
+
+def _map_columns(features: str, clinical: str) -> DataSpec | None:
+    prev = state.current_data()
+    try:
+        f_cols = state.table_columns(features, state.file_digest(features))
+        c_cols = state.table_columns(clinical, state.file_digest(clinical))
+    except WorkbenchError as exc:
+        state.show_error("Reading the tables", exc)
+        return None
+    shared = [c for c in c_cols if c in f_cols]
+    if not shared:
+        st.error(
+            "The two tables share no column name, so patients cannot be matched. "
+            "Both tables need the same patient id column (for example patient_id)."
+        )
+        return None
+    g = lambda name, default=None: getattr(prev, name, default) if prev is not None else default  # noqa: E731
+    st.subheader("What the columns mean")
+    a, b, c = st.columns(3)
+    with a:
+        id_col = _pick("Patient id (in both tables)", shared, g("id"), "map_id")
+        time_col = _pick("Follow-up time", c_cols, g("time"), "map_time")
+        unit = st.selectbox("Time unit", list(TIME_UNITS), key="map_unit",
+                            index=list(TIME_UNITS).index(g("time_unit", "months")))
+    with b:
+        event_col = _pick("Event (death, progression...)", c_cols, g("event"), "map_event")
+        levels = state.column_levels(clinical, state.file_digest(clinical), event_col) if event_col else []
+        binary = set(levels) <= {"0", "1", "0.0", "1.0", "true", "false", "True", "False"}
+        ev_default = [v for v in (g("event_codes") or ()) if v in levels]
+        cz_default = [v for v in (g("censor_codes") or ()) if v in levels]
+        ev = st.multiselect("Values meaning the event happened", levels, default=ev_default, key="map_event_codes",
+                            help="Leave empty when the column holds 0/1 or true/false.")
+        cz = st.multiselect("Values meaning censored (event-free at last follow-up)", levels,
+                            default=cz_default, key="map_censor_codes")
+        if not binary and not ev:
+            st.caption("This column is not 0/1: choose which values mean the event happened.")
+    with c:
+        every = list(dict.fromkeys(c_cols + f_cols))
+        centre = _pick("Hospital / centre (optional)", every, g("centre"), "map_centre", optional=True)
+        batch = _pick("Scanner / batch (optional)", every, g("batch"), "map_batch", optional=True,
+                      help="Needed for harmonisation of imaging features across scanners.")
+        keep = st.checkbox("Keep only patients found in both tables", value=g("on_unmatched") == "intersect",
+                           key="map_keep")
+        drop = st.checkbox("Drop constant or empty feature columns", value=bool(g("drop_unusable_features")),
+                           key="map_drop")
+    try:
+        data = DataSpec(
+            features=features, clinical=clinical, id=id_col, time=time_col, event=event_col,
+            time_unit=unit, event_codes=tuple(ev) or None, censor_codes=tuple(cz) or None,
+            centre=centre, batch=batch, on_unmatched="intersect" if keep else "error",
+            drop_unusable_features=drop,
+        )
+        data.column_map()
+    except WorkbenchError as exc:
+        state.show_error("Column roles", exc)
+        return None
+    if data != prev:
+        st.session_state[state.K_DATA] = data
+        study = state.current_study()
+        if study is not None:
+            try:
+                state.set_study(replace(study, data=data), st.session_state.get(state.K_STUDY_NOTE, ""))
+            except WorkbenchError:
+                pass  # the Design page rebuilds the study and explains what must change
+    return data
+
+
+def _frame(rows, columns) -> pd.DataFrame:
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _fmt(x: float) -> str:
+    return "not reached" if not np.isfinite(x) else f"{x:.1f}"
+
+
+def _summary(cohort, horizons) -> None:
+    inside = tuple(h for h in horizons if 0 < h <= float(cohort.time.max()))
+    summary, warns = state.cohort_summary(cohort.source.data_hash, inside, cohort)
+    u = summary.time_unit
+    st.subheader("Cohort summary")
+    m = st.columns(5)
+    m[0].metric("Patients", summary.n_patients)
+    m[1].metric("Events", summary.n_events, help=f"{100 * summary.n_events / summary.n_patients:.0f}% of patients")
+    m[2].metric("Censored", summary.n_censored)
+    m[3].metric(f"Median follow-up ({u})", _fmt(summary.median_followup),
+                help="Reverse Kaplan-Meier (Schemper & Smith 1996): censoring treated as the event.")
+    m[4].metric(f"Median survival ({u})", _fmt(summary.median_survival))
+    st.caption(
+        f"Median follow-up 95% CI {_fmt(summary.median_followup_ci[0])} to {_fmt(summary.median_followup_ci[1])} {u}; "
+        f"longest follow-up {summary.max_followup:.1f} {u}. Median survival 95% CI "
+        f"{_fmt(summary.median_survival_ci[0])} to {_fmt(summary.median_survival_ci[1])} {u}."
+    )
+    state.show_warnings(warns)
+    left, right = st.columns([3, 2])
+    with left:
+        fig = charts.km_figure(kaplan_meier(cohort.time, cohort.event), time_unit=u, horizons=inside)
+        st.image(charts.figure_bytes(fig), caption="Overall survival with 95% confidence band")
+    with right:
+        if summary.horizons:
+            st.markdown("**Survival at the horizons**")
+            st.dataframe(_frame(
+                [(f"{h.horizon:g} {u}", f"{100 * h.survival:.1f}%",
+                  f"{100 * h.ci_lower:.1f} to {100 * h.ci_upper:.1f}", h.at_risk) for h in summary.horizons],
+                ["Horizon", "Survival", "95% CI (%)", "At risk"]), hide_index=True, width="stretch")
+        skipped = [h for h in horizons if h not in inside]
+        if skipped:
+            st.caption(f"Horizons beyond the longest follow-up are left out: {', '.join(f'{h:g}' for h in skipped)}.")
+        if summary.centres:
+            st.markdown("**Centres**")
+            st.dataframe(_frame(list(summary.centres.items()), ["Centre", "Patients"]), hide_index=True,
+                         width="stretch")
+        if summary.batches:
+            st.markdown("**Scanners / batches**")
+            st.dataframe(_frame(list(summary.batches.items()), ["Scanner", "Patients"]), hide_index=True,
+                         width="stretch")
+
+    a, b = st.columns(2)
+    with a:
+        st.markdown("**Missing values**")
+        if summary.missing:
+            st.dataframe(_frame(
+                [(x.table, x.column, x.n_missing, f"{100 * x.fraction:.1f}%")
+                 for x in sorted(summary.missing, key=lambda x: -x.n_missing)],
+                ["Table", "Column", "Missing", "Share"]), hide_index=True, width="stretch")
+        else:
+            st.write("None.")
+        st.markdown(f"**Imaging features**: {summary.n_features} in {len(summary.feature_families)} families")
+        st.dataframe(_frame(sorted(summary.feature_families.items()), ["Family prefix", "Features"]),
+                     hide_index=True, width="stretch")
+    with b:
+        ss_ = summary.sample_size
+        st.markdown("**Events per parameter**")
+        st.write(
+            f"{summary.events_per_clinical_parameter:.1f} events per candidate clinical parameter "
+            f"({summary.n_events} events / {summary.n_clinical_parameters} parameters); "
+            f"{summary.events_per_feature:.2f} per imaging feature, which is why the signature needs "
+            "penalisation and honest validation."
+        )
+        st.markdown("**Minimum sample size** (Riley et al. 2019/2020)")
+        rows = [
+            (f"(i) shrinkage at least {ss_.shrinkage_target}", ss_.n_shrinkage),
+            ("(ii) optimism in R-squared at most 0.05", ss_.n_optimism),
+        ]
+        if ss_.n_overall_risk is not None:
+            rows.append((f"(iii) overall risk at {ss_.horizon:g} {u} within 0.05", ss_.n_overall_risk))
+        rows.append(("Required (largest)", ss_.n_required))
+        st.dataframe(_frame(rows, ["Criterion", "Patients"]), hide_index=True, width="stretch")
+        verdict = "meets" if ss_.adequate else "falls short of"
+        st.write(
+            f"For a Cox model with {ss_.n_parameters} parameters, anticipated Cox-Snell R-squared "
+            f"{ss_.r2_cs:.3f} ({ss_.r2_cs_source}): {ss_.n_required} patients ({ss_.events_required} events) "
+            f"are needed; this cohort ({ss_.n_available}) {verdict} it."
+        )
+    if summary.dropped_ids:
+        st.warning(f"{len(summary.dropped_ids)} patients were in only one table and are left out.")
+
+
+def render() -> None:
+    st.title("Data")
+    st.write("Choose the imaging-features table and the clinical table, and say what their columns mean.")
+    tables = _choose_tables()
+    if tables is None:
+        return
+    data = _map_columns(*tables)
+    if data is None:
+        return
+    try:
+        cohort, warns = state.get_cohort()
+    except WorkbenchError as exc:
+        state.show_error("The tables cannot be used yet", exc)
+        return
+    except Exception as exc:  # noqa: BLE001 - shown as text, never as a traceback
+        state.show_error("Reading the tables", exc)
+        return
+    st.success(f"Read {cohort.n} patients with {len(cohort.feature_names)} imaging features.")
+    state.show_warnings(warns)
+    try:
+        _summary(cohort, tuple(st.session_state.get(state.K_HORIZONS, ())))
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Summarising the cohort", exc)
+
+
+if __name__ == "__main__":
+    render()

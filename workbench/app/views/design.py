@@ -1,0 +1,357 @@
+"""Design: which predictors, how the signature is built, which models, how they are validated."""
+
+from __future__ import annotations
+
+import os
+import tomllib
+from dataclasses import replace
+from pathlib import Path
+
+import pandas as pd
+import streamlit as st
+
+from workbench.app import state
+from workbench.errors import WorkbenchError
+from workbench.models.registry import MODEL_LABELS
+from workbench.prepare import select_pool
+from workbench.preprocess.clinical import PredictorSpec
+from workbench.study import (
+    BACKENDS,
+    MODEL_NAMES,
+    VALIDATION_METHODS,
+    ForestSpec,
+    HarmoniseSpec,
+    ImagingSpec,
+    ModelsSpec,
+    PenaltySpec,
+    ReduceSpec,
+    StudySpec,
+    ValidationSpec,
+    study_from_dict,
+)
+
+K_GEN = "wb_design_gen"
+K_LOADED = "wb_design_loaded_file"
+KINDS = ("linear", "spline", "categorical", "ordinal")
+TRANSFORMS = ("", "log", "log2")
+MISSING = ("complete_case", "impute")
+METHOD_LABELS = {
+    "bootstrap": "Optimism-corrected bootstrap",
+    "cv": "Repeated k-fold cross-validation",
+    "by_centre": "Leave one centre out",
+    "none": "Apparent performance only",
+}
+
+
+def _key(name: str) -> str:
+    return f"design{st.session_state.get(K_GEN, 0)}_{name}"
+
+
+def _is_numeric(values: pd.Series) -> bool:
+    v = values.dropna().astype(str).str.strip().str.lstrip("<")
+    v = v[v != ""]
+    return not v.empty and pd.to_numeric(v, errors="coerce").notna().mean() > 0.9
+
+
+def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
+    chosen = {p.column: p for p in (template.predictors if template else ())}
+    skip = {data.centre, data.batch}
+    rows = []
+    for col in cohort.clinical.columns:
+        if col in skip:
+            continue
+        p = chosen.get(col)
+        numeric = _is_numeric(cohort.clinical[col])
+        if p is None:
+            p = PredictorSpec(column=col, kind="linear" if numeric else "categorical")
+        rows.append({
+            "use": col in chosen,
+            "column": col,
+            "kind": p.kind,
+            "transform": p.transform or "",
+            "missing": p.missing,
+            "reference": p.reference or "",
+            "levels": ", ".join(p.levels or ()),
+            "detection_limit": "" if p.detection_limit is None else str(p.detection_limit),
+            "knots": int(p.knots) if p.knots else None,
+            "label": p.label if p.label and p.label != col else "",
+            "unit": p.unit or "",
+        })
+    return pd.DataFrame(rows)
+
+
+def _predictors_from(table: pd.DataFrame) -> tuple[PredictorSpec, ...]:
+    out = []
+    for i, r in table.iterrows():
+        if not bool(r["use"]):
+            continue
+        col = str(r["column"])
+        limit = str(r.get("detection_limit") or "").strip()
+        if limit and limit != "auto":
+            try:
+                limit = float(limit)
+            except ValueError:
+                raise WorkbenchError(
+                    f"predictor {col!r} (row {i + 1}): detection limit {limit!r} is neither 'auto' nor a number."
+                ) from None
+        levels = tuple(x.strip() for x in str(r.get("levels") or "").split(",") if x.strip())
+        knots = r.get("knots")
+        out.append(PredictorSpec(
+            column=col,
+            kind=str(r["kind"] or "linear"),
+            transform=str(r["transform"]) or None,
+            knots=int(knots) if knots is not None and pd.notna(knots) and r["kind"] == "spline" else None,
+            reference=str(r.get("reference") or "").strip() or None,
+            levels=levels or None,
+            detection_limit=limit or None,
+            missing=str(r["missing"] or "complete_case"),
+            label=str(r.get("label") or "").strip() or col,
+            unit=str(r.get("unit") or "").strip(),
+        ))
+    return tuple(out)
+
+
+def _lines(text: str) -> tuple[str, ...]:
+    return tuple(x.strip() for x in text.replace(",", "\n").splitlines() if x.strip())
+
+
+def _horizons(text: str) -> tuple[float, ...]:
+    try:
+        return tuple(float(x) for x in text.replace(";", ",").split(",") if x.strip())
+    except ValueError:
+        raise WorkbenchError(
+            f"horizons must be numbers separated by commas, such as 12, 24, 36; got {text!r}."
+        ) from None
+
+
+def _load_study_file(data) -> None:
+    up = st.file_uploader("Load an existing study file (.toml)", type=["toml"], key="design_load")
+    if up is None or st.session_state.get(K_LOADED) == up.file_id:
+        return
+    st.session_state[K_LOADED] = up.file_id
+    try:
+        doc = tomllib.loads(up.getvalue().decode("utf-8"))
+        spec = study_from_dict(doc, source=Path(up.name).name)
+    except UnicodeDecodeError:
+        st.error(f"{up.name}: not a text file; a study file is TOML text.")
+        return
+    except tomllib.TOMLDecodeError as exc:
+        st.error(f"{up.name}: not valid TOML ({exc}).")
+        return
+    except WorkbenchError as exc:
+        state.show_error(f"Loading {up.name}", exc)
+        return
+    # The study's own file paths point at a folder on another machine; keep the tables chosen here.
+    new_data = replace(spec.data, features=data.features, clinical=data.clinical)
+    note = f"Loaded {up.name}; its column roles now apply to the tables chosen on the Data page."
+    external = None
+    if spec.external is not None:
+        base = Path(data.clinical).parent
+        f, c = base / spec.external.features, base / spec.external.clinical
+        if f.exists() and c.exists():
+            external = replace(spec.external, features=str(f), clinical=str(c))
+        else:
+            note += " Its external cohort files are not beside these tables, so external validation is left out."
+    try:
+        spec = replace(spec, data=new_data, external=external)
+    except WorkbenchError as exc:
+        state.show_error(f"Loading {up.name}", exc)
+        return
+    st.session_state[state.K_DATA] = new_data
+    st.session_state[state.K_HORIZONS] = tuple(spec.horizons)
+    state.set_study(spec, note)
+    st.session_state[K_GEN] = st.session_state.get(K_GEN, 0) + 1
+    st.rerun()
+
+
+def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
+    st.subheader("Imaging signature")
+    a, b = st.columns(2)
+    with a:
+        inc = st.text_area("Imaging pool: name patterns to include (one per line)", "\n".join(tpl.include),
+                           key=_key("include"), help="Shell-style patterns such as cm_* (all co-occurrence features).")
+        exc = st.text_area("Patterns to exclude", "\n".join(tpl.exclude), key=_key("exclude"))
+        include, exclude = _lines(inc) or ("*",), _lines(exc)
+        try:
+            pooled, _ = select_pool(cohort, include, exclude)
+            st.caption(f"{len(pooled.feature_names)} of {len(cohort.feature_names)} imaging features in the pool.")
+            names = pooled.feature_names
+        except WorkbenchError as e:
+            state.show_error("Imaging pool", e)
+            names = cohort.feature_names
+        vol_opts = ["(none)"] + list(names)
+        vol = st.selectbox("Tumour-volume feature (checked for dominance of the signature)", vol_opts,
+                           index=vol_opts.index(tpl.volume_feature) if tpl.volume_feature in vol_opts else 0,
+                           key=_key("volume"))
+    with b:
+        h = tpl.harmonise
+        can_combat = bool(data.batch)
+        method = st.radio("Harmonisation across scanners", ["combat", "none"],
+                          format_func={"combat": "ComBat by scanner", "none": "None"}.get,
+                          index=0 if (h.method == "combat" and can_combat) else 1, horizontal=True,
+                          key=_key("harmonise"), disabled=not can_combat,
+                          help=None if can_combat else "Choose a scanner / batch column on the Data page first.")
+        cols = [p.column for p in predictors]
+        protect = st.multiselect("Clinical predictors whose association with the features is preserved",
+                                 cols, default=[c for c in h.protect if c in cols], key=_key("protect"))
+        unseen = st.selectbox("A scanner not seen in training", ["error", "reference"],
+                              format_func={"error": "stop with a message",
+                                           "reference": "standardise without batch adjustment"}.get,
+                              index=["error", "reference"].index(h.unseen_batch), key=_key("unseen"))
+        r = tpl.reduce
+        corr = st.slider("Redundancy filter: drop one of each pair correlated above", 0.5, 1.0,
+                         float(r.correlation), 0.01, key=_key("corr"))
+        screen = st.checkbox("Univariable Cox screening (false discovery rate)", value=r.screen, key=_key("screen"))
+        fdr = st.number_input("False discovery rate", 0.01, 0.5, float(r.screen_fdr), 0.01, key=_key("fdr"),
+                              disabled=not screen)
+        p = tpl.penalty
+        c1, c2, c3 = st.columns(3)
+        l1 = c1.number_input("L1 ratio (1 = LASSO)", 0.05, 1.0, float(p.l1_ratio), 0.05, key=_key("l1"))
+        rule = c2.selectbox("Penalty choice", ["1se", "min"], index=["1se", "min"].index(p.rule),
+                            format_func={"1se": "within 1 SE of best", "min": "best"}.get, key=_key("rule"))
+        folds = c3.number_input("Inner folds", 3, 20, int(p.folds), key=_key("pfolds"))
+    return replace(
+        tpl, include=include, exclude=exclude, volume_feature=None if vol == "(none)" else vol,
+        harmonise=HarmoniseSpec(method=method if can_combat else "none", protect=tuple(protect),
+                                unseen_batch=unseen, empirical_bayes=h.empirical_bayes),
+        reduce=ReduceSpec(min_variance=r.min_variance, correlation=float(corr), screen=bool(screen),
+                          screen_fdr=float(fdr)),
+        penalty=PenaltySpec(l1_ratio=float(l1), rule=rule, folds=int(folds), n_alphas=p.n_alphas,
+                            alpha_min_ratio=p.alpha_min_ratio),
+    )
+
+
+def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tuple[ModelsSpec, ValidationSpec]:
+    st.subheader("Models and validation")
+    a, b = st.columns(2)
+    with a:
+        fit = st.multiselect("Models to fit", list(MODEL_NAMES), default=list(tpl_m.fit),
+                             format_func=MODEL_LABELS.get, key=_key("models"))
+        base_opts = fit or ["clinical"]
+        baseline = st.selectbox("Baseline every model is compared with", base_opts,
+                                index=base_opts.index(tpl_m.baseline) if tpl_m.baseline in base_opts else 0,
+                                format_func=MODEL_LABELS.get, key=_key("baseline"))
+        f = tpl_m.forest
+        c1, c2 = st.columns(2)
+        trees = c1.number_input("Forest trees", 10, 2000, int(f.trees), 10, key=_key("trees"))
+        leaf = c2.number_input("Smallest leaf (patients)", 1, 200, int(f.min_leaf), key=_key("leaf"))
+    with b:
+        methods = [m for m in VALIDATION_METHODS if m != "by_centre" or data.centre]
+        method = st.selectbox("Validation", methods, format_func=METHOD_LABELS.get,
+                              index=methods.index(tpl_v.method) if tpl_v.method in methods else 0,
+                              key=_key("vmethod"))
+        c1, c2, c3 = st.columns(3)
+        reps = c1.number_input("Bootstrap replicates", 1, 5000, int(tpl_v.replicates), key=_key("reps"))
+        freps = c2.number_input("Forest replicates", 1, 5000, int(tpl_v.forest_replicates), key=_key("freps"))
+        workers = c3.number_input("Parallel workers", 1, max(os.cpu_count() or 1, 1) * 4, int(tpl_v.workers),
+                                  key=_key("workers"))
+        c1, c2, c3 = st.columns(3)
+        vfolds = c1.number_input("CV folds", 2, 20, int(tpl_v.folds), key=_key("vfolds"))
+        repeats = c2.number_input("CV repeats", 1, 100, int(tpl_v.repeats), key=_key("repeats"))
+        backends = [x for x in BACKENDS]
+        backend = c3.selectbox("Where replicates run", backends, index=backends.index(tpl_v.backend),
+                               key=_key("backend"))
+        scheduler = tpl_v.scheduler
+        if backend == "dask":
+            scheduler = st.text_input("Dask scheduler address (or 'local')", tpl_v.scheduler or "local",
+                                      key=_key("scheduler")) or None
+    models = ModelsSpec(fit=tuple(fit), baseline=baseline,
+                        forest=ForestSpec(trees=int(trees), min_leaf=int(leaf), max_features=f.max_features,
+                                          time_grid=f.time_grid))
+    validation = ValidationSpec(method=method, replicates=int(reps), folds=int(vfolds), repeats=int(repeats),
+                                forest_replicates=int(freps), workers=int(workers), backend=backend,
+                                scheduler=scheduler if backend == "dask" else None)
+    return models, validation
+
+
+def render() -> None:
+    st.title("Design")
+    st.write("Say how the clinical predictors enter the model, how the imaging signature is built, "
+             "which models are compared and how they are validated.")
+    data = state.current_data()
+    if data is None:
+        st.info("Choose the tables on the Data page first.")
+        return
+    try:
+        cohort, _ = state.get_cohort()
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("The tables on the Data page cannot be used yet", exc)
+        return
+    note = st.session_state.get(state.K_STUDY_NOTE)
+    if note:
+        st.caption(note)
+    _load_study_file(data)
+    tpl = state.current_study()
+
+    a, b, c = st.columns([3, 2, 1])
+    name = a.text_input("Study name", tpl.name if tpl else "My study", key=_key("name"))
+    hz_default = ", ".join(f"{h:g}" for h in (tpl.horizons if tpl else st.session_state.get(state.K_HORIZONS, ())))
+    hz_text = b.text_input(f"Horizons ({data.time_unit}, comma separated)", hz_default, key=_key("horizons"))
+    seed = c.number_input("Seed", 0, 2**31 - 1, int(tpl.seed if tpl else 20261202), key=_key("seed"))
+
+    st.subheader("Clinical predictors")
+    st.caption("Tick the predictors of the clinical model. Kind: linear, spline (restricted cubic), "
+               "categorical or ordinal (levels in order, comma separated). Transform log2 gives hazard ratios "
+               "per doubling. Detection limit 'auto' reads values such as <0.5 from the data.")
+    table = st.data_editor(
+        _predictor_table(cohort, tpl, data), key=_key("predictors"), hide_index=True, width="stretch",
+        disabled=["column"],
+        column_config={
+            "use": st.column_config.CheckboxColumn("Use", width="small"),
+            "column": st.column_config.TextColumn("Column"),
+            "kind": st.column_config.SelectboxColumn("Kind", options=list(KINDS), required=True),
+            "transform": st.column_config.SelectboxColumn("Transform", options=list(TRANSFORMS)),
+            "missing": st.column_config.SelectboxColumn("Missing values", options=list(MISSING), required=True),
+            "reference": st.column_config.TextColumn("Reference level"),
+            "levels": st.column_config.TextColumn("Levels (in order)"),
+            "detection_limit": st.column_config.TextColumn("Detection limit"),
+            "knots": st.column_config.NumberColumn("Spline knots", min_value=3, max_value=7, step=1),
+            "label": st.column_config.TextColumn("Label"),
+            "unit": st.column_config.TextColumn("Unit"),
+        },
+    )
+    problems = []
+    try:
+        predictors = _predictors_from(table)
+    except WorkbenchError as exc:
+        problems.append(exc)
+        predictors = tpl.predictors if tpl else ()
+    base_im = tpl.imaging if tpl else ImagingSpec()
+    imaging = _imaging(cohort, base_im, predictors, data)
+    models, validation = _models_and_validation(tpl.models if tpl else ModelsSpec(),
+                                                tpl.validation if tpl else ValidationSpec(), data)
+    try:
+        horizons = _horizons(hz_text)
+    except WorkbenchError as exc:
+        problems.append(exc)
+        horizons = tpl.horizons if tpl else ()
+    for p in problems:
+        state.show_error("Design", p)
+    if problems:
+        return
+    try:
+        spec = StudySpec(name=name.strip() or "My study", data=data, predictors=predictors, horizons=horizons,
+                         seed=int(seed), imaging=imaging, models=models, validation=validation,
+                         external=tpl.external if tpl else None,
+                         anticipated_r2=tpl.anticipated_r2 if tpl else None)
+    except WorkbenchError as exc:
+        state.show_error("The study cannot be built yet", exc)
+        return
+    if horizons and max(horizons) > float(cohort.time.max()):
+        st.warning(f"The horizon {max(horizons):g} {data.time_unit} lies beyond the longest follow-up "
+                   f"({float(cohort.time.max()):.1f} {data.time_unit}); choose horizons inside follow-up.")
+    if spec != tpl:
+        state.set_study(spec, note or "")
+    st.session_state[state.K_HORIZONS] = tuple(spec.horizons)
+    text = state.study_text(spec)
+    st.success(f"The study is complete: {len(spec.predictors)} clinical predictors, "
+               f"{len(spec.models.fit)} models, {METHOD_LABELS[spec.validation.method].lower()}.")
+    st.download_button("Download the study file (TOML)", text, file_name="study.toml", mime="application/toml",
+                       key="design_download")
+    st.caption("Put the study file in the folder of the two tables: the file names in [data] are relative to it.")
+    with st.expander("Study file"):
+        st.code(text, language="toml")
+
+
+if __name__ == "__main__":
+    render()
