@@ -1,3 +1,93 @@
+"""Export: the report, the results file and the fitted-model bundle, as downloads."""
+
+from __future__ import annotations
+
+import json
+import tempfile
+from pathlib import Path
+
 import streamlit as st
 
-st.title("export")
+from workbench.app import state
+
+
+@st.cache_data(show_spinner="Preparing results.json...", max_entries=4)
+def _results_json(run_key: tuple, _result) -> str:
+    return json.dumps(_result.to_dict(), indent=2, default=str)
+
+
+@st.cache_data(show_spinner="Saving the model bundle...", max_entries=4)
+def _bundle_zip(run_key: tuple, _result) -> bytes:
+    bundle = state.load_module("workbench.report.bundle")
+    summary = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons)
+    with tempfile.TemporaryDirectory(prefix="workbench-bundle-") as tmp:
+        path = bundle.save_bundle(_result.models, _result.spec, summary, Path(tmp) / "model_bundle.zip")
+        return Path(path).read_bytes()
+
+
+def _report():
+    """(bytes, file name, mime) of the report from the report layer, or None when it has none yet."""
+    mod = state.load_module("workbench.report.html")
+    for name in ("render_report", "report_html", "build_report"):
+        fn = getattr(mod, name, None) if mod is not None else None
+        if fn is not None:
+            return fn
+    return None
+
+
+def render() -> None:
+    st.title("Export")
+    st.write("Download what the run produced, to archive it, share it or apply the models to new patients.")
+    if not state.module_available("workbench.workflow"):
+        state.not_available("Export (it needs a study run)")
+        return
+    result = state.current_result()
+    if result is None:
+        st.info("Run the study on the Results page first.")
+        return
+    key = state.current_job().key
+
+    st.subheader("Study file")
+    st.download_button("Download the study file as run (TOML)", result.study_text, file_name="study.toml",
+                       mime="application/toml", key="export_study")
+
+    st.subheader("Report")
+    fn = _report()
+    if fn is None:
+        state.not_available("The HTML report")
+    else:
+        try:
+            html = fn(result)
+            st.download_button("Download the report (HTML)", html, file_name="report.html", mime="text/html",
+                               key="export_report")
+        except Exception as exc:  # noqa: BLE001
+            state.show_error("Writing the report", exc)
+
+    st.subheader("Results file")
+    st.caption("Every number of the run with the study, seed, data hash and package versions (results.json).")
+    if not hasattr(result, "to_dict"):
+        state.not_available("results.json")
+    else:
+        try:
+            st.download_button("Download results.json", _results_json(key, result), file_name="results.json",
+                               mime="application/json", key="export_json")
+        except Exception as exc:  # noqa: BLE001
+            state.show_error("Writing results.json", exc)
+
+    st.subheader("Model bundle")
+    st.caption("The fitted models in a safe format (JSON and arrays, no executable code) to estimate survival "
+               "for new patients. It holds no patient identifiers.")
+    if not state.module_available("workbench.report.bundle"):
+        state.not_available("The model bundle")
+        return
+    try:
+        data = _bundle_zip(key, result)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Saving the model bundle", exc)
+        return
+    st.download_button("Download the model bundle (zip)", data, file_name="model_bundle.zip",
+                       mime="application/zip", key="export_bundle")
+
+
+if __name__ == "__main__":
+    render()

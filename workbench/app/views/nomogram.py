@@ -1,3 +1,83 @@
+"""Nomogram: the clinical-only and the clinical + imaging model, side by side, with downloads."""
+
+from __future__ import annotations
+
 import streamlit as st
 
-st.title("nomogram")
+from workbench.app import nomo, state, tables
+
+FORMATS = (("png", "PNG", "image/png"), ("svg", "SVG", "image/svg+xml"), ("pdf", "PDF", "application/pdf"))
+
+
+def render() -> None:
+    st.title("Nomogram")
+    st.write("Read each predictor's points off its axis, add them up on the total-points axis, and read the "
+             "predicted survival below it.")
+    if not state.module_available("workbench.workflow") or not state.module_available("workbench.figures.nomogram_points"):
+        state.not_available("The nomogram")
+        return
+    result = state.current_result()
+    if result is None:
+        st.info("Run the study on the Results page first; the nomogram is drawn from the fitted models.")
+        return
+    names = nomo.nomogram_models(result)
+    if not names:
+        st.info("This study fits neither the clinical nor the clinical + imaging Cox model, which the nomogram needs.")
+        return
+    u = result.validation.time_unit
+    hz_all = [float(h) for h in result.spec.horizons]
+    a, b, c = st.columns([2, 2, 1])
+    chosen = a.multiselect("Models", names, default=names, format_func=tables.label, key="nomo_models")
+    hz = b.multiselect(f"Survival axes at ({u})", hz_all, default=hz_all, key="nomo_horizons",
+                       format_func=lambda h: f"{h:g} {u}")
+    layout = c.radio("Layout", ["columns", "rows"], format_func={"columns": "side by side", "rows": "stacked"}.get,
+                     key="nomo_layout")
+    if not chosen or not hz:
+        st.info("Choose at least one model and one horizon.")
+        return
+    hz = tuple(sorted(hz))
+    key = state.current_job().key
+    try:
+        scales = [nomo.scales_for(key, m, hz, result) for m in chosen]
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Building the nomogram", exc)
+        return
+    draw = state.load_module("workbench.figures.nomogram")
+    if draw is None or not hasattr(draw, "plot_nomogram"):
+        state.not_available("The nomogram drawing")
+        fig = None
+    else:
+        try:
+            fig = draw.plot_nomogram(scales, titles=[tables.label(m) for m in chosen], layout=layout)
+        except Exception as exc:  # noqa: BLE001
+            state.show_error("Drawing the nomogram", exc)
+            fig = None
+    if fig is not None:
+        st.image(nomo.save_figure(fig, "png"), width="stretch")
+        cols = st.columns(len(FORMATS) + 1)
+        for col, (fmt, text, mime) in zip(cols, FORMATS, strict=False):
+            col.download_button(f"Download {text}", nomo.save_figure(fig, fmt), file_name=f"nomogram.{fmt}",
+                                mime=mime, key=f"nomo_dl_{fmt}")
+    points = state.load_module("workbench.figures.nomogram_points")
+    try:
+        tabs = {m: points.points_table(s) for m, s in zip(chosen, scales, strict=True)}
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Tabulating the points", exc)
+        return
+    st.download_button("Download the points tables (CSV files, zip)", nomo.points_table_zip(tabs),
+                       file_name="nomogram_points.zip", mime="application/zip", key="nomo_dl_points")
+    st.subheader("Points table")
+    st.caption("Points per predictor value (between two rows of a continuous predictor, interpolate), and the "
+               "survival probability for each total. This is what the drawing shows, as numbers.")
+    for m in chosen:
+        with st.expander(tables.label(m)):
+            t = tabs[m]
+            left, right = st.columns(2)
+            left.dataframe(t.terms, hide_index=True, width="stretch", height=320)
+            right.dataframe(t.survival.round(4), hide_index=True, width="stretch", height=320)
+            st.download_button(f"Download the {tables.label(m).lower()} points (CSV)", t.terms.to_csv(index=False),
+                               file_name=f"{m}_points.csv", mime="text/csv", key=f"nomo_dl_csv_{m}")
+
+
+if __name__ == "__main__":
+    render()

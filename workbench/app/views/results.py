@@ -1,3 +1,172 @@
+"""Results: run the study, then discrimination, calibration, overall accuracy and the comparison with the baseline."""
+
+from __future__ import annotations
+
+import os
+import time
+
+import numpy as np
 import streamlit as st
 
-st.title("results")
+from workbench.app import charts, state, tables
+from workbench.validation.compare import LR_CAUTION
+
+POLL_SECONDS = 0.5
+
+
+def comparisons(result) -> list:
+    """Every model against the study's baseline, from the result (or the library's comparison)."""
+    comp = getattr(result, "comparison", None)
+    if isinstance(comp, dict):
+        return [c for c in comp.values() if c is not None]
+    if comp is not None:
+        return [comp]
+    from workbench.validation.compare import compare_models
+
+    base = result.spec.models.baseline
+    v = result.validation
+    return [compare_models(v, m, base) for m in v.models if m != base]
+
+
+def _run_controls(spec) -> None:
+    a, b, c = st.columns([1, 1, 2])
+    reps = a.number_input("Bootstrap replicates for this run", 1, 5000, state.DEMO_REPLICATES,
+                          key="results_replicates",
+                          help="A quick look uses few replicates; the study file keeps its own number.")
+    workers = b.number_input("Parallel workers", 1, 64, min(2, os.cpu_count() or 1), key="results_workers")
+    c.caption(
+        f"Quick mode: {state.DEMO_REPLICATES} bootstrap replicates, so that a run in the browser finishes in "
+        f"about a minute. The full analysis uses the {spec.validation.replicates} replicates of the study file: "
+        "set the number here, or run the study file from the command line. Intervals from few replicates are rough."
+    )
+    job = state.current_job()
+    busy = job is not None and job.running
+    if st.button("Run the study", type="primary", disabled=busy, key="results_run"):
+        state.start_run(spec, int(reps), int(workers))
+        st.rerun()
+
+
+def _watch(job) -> None:
+    """Show progress while the background run goes on; a click on Cancel stops it between replicates."""
+    st.button("Cancel the run", on_click=job.cancel, key="results_cancel")
+    bar = st.progress(0.0, text="Preparing the cohort and fitting the models on all patients...")
+    while job.running:
+        if job._cancel.is_set():
+            text = "Stopping after the replicates under way..."
+        elif job.total:
+            text = f"{job.message}: {job.done} of {job.total} replicates"
+        else:
+            text = "Preparing the cohort and fitting the models on all patients..."
+        bar.progress(min(job.done / job.total, 1.0) if job.total else 0.0, text=text)
+        job.wait(POLL_SECONDS)
+    st.rerun()
+
+
+def _decision_figure(dc, model: str, baseline: str):
+    x = np.asarray(dc.thresholds, float)
+    return charts.line_figure(
+        x,
+        {tables.label(model): dc.model_validated, tables.label(baseline): dc.baseline_validated,
+         "Treat all": dc.treat_all, "Treat none": dc.treat_none},
+        xlabel="Threshold probability of death by the horizon", ylabel="Net benefit (validated)",
+        hline=0.0,
+    )
+
+
+def _show(result, job) -> None:
+    v = result.validation
+    u = v.time_unit
+    spec = result.spec
+    reps = v.n_replicates
+    st.success(
+        f"Finished in {time.strftime('%M:%S', time.gmtime(job.finished - job.started))} (min:s): "
+        f"{v.n} patients, {v.n_events} events; {v.method} validation with "
+        + ", ".join(f"{r} replicates for {tables.label(m).lower()}" for m, r in reps.items()) + "."
+    )
+    if job.key[:2] != state.run_key(state.current_study(), job.replicates, job.workers)[:2]:
+        st.warning("The study has changed since this run; run it again to update these results.")
+    if result.warnings:
+        with st.expander(f"Statistical warnings raised during the run ({len(result.warnings)})"):
+            for cat, msg in result.warnings:
+                st.write(f"**{cat}**: {state.friendly(msg)}")
+
+    st.subheader("Discrimination")
+    st.caption("Validated = corrected for optimism (bootstrap) or held out (cross-validation, centres). "
+               "Higher is better; 0.5 is chance.")
+    st.dataframe(tables.metric_table(v, tables.DISCRIMINATION, time_unit=u), hide_index=True, width="stretch")
+    st.subheader("Calibration")
+    st.caption("Slope 1 and observed/expected 1 are ideal; ICI, E50 and E90 are absolute differences between "
+               "predicted and observed risk (0 is ideal).")
+    st.dataframe(tables.metric_table(v, tables.CALIBRATION, time_unit=u), hide_index=True, width="stretch")
+    st.subheader("Overall accuracy (Brier score)")
+    st.caption("Lower Brier score is better; IPA compares with the no-information model (higher is better).")
+    st.dataframe(tables.metric_table(v, tables.OVERALL, time_unit=u), hide_index=True, width="stretch")
+
+    st.subheader(f"Against the baseline: {tables.label(spec.models.baseline)}")
+    try:
+        comps = comparisons(result)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Comparing the models", exc)
+        comps = []
+    for comp in comps:
+        st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}**")
+        st.dataframe(tables.difference_table(comp, time_unit=u), hide_index=True, width="stretch")
+        lr = comp.lr_test
+        if lr.nested and np.isfinite(lr.statistic):
+            st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
+            st.caption(LR_CAUTION)
+        elif lr.note:
+            st.caption(f"Likelihood-ratio test: {lr.note}")
+        with st.expander("Reclassification (NRI, IDI)"):
+            st.dataframe(tables.reclassification_table(comp, time_unit=u), hide_index=True, width="stretch")
+            if comp.reclassification:
+                st.caption(comp.reclassification[0].nri_caution)
+                st.caption(comp.reclassification[0].idi_caution)
+        if comp.decision:
+            hz = [f"{d.horizon:g}" for d in comp.decision]
+            pick = st.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
+                                format_func=lambda h: f"{h} {u}")
+            dc = comp.decision[hz.index(pick)]
+            st.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline)),
+                     caption=f"Decision curves at {pick} {u}")
+        for note in comp.notes:
+            st.caption(note)
+
+    if result.external is not None:
+        st.subheader("External validation")
+        st.caption("The models fitted on all training patients, applied unchanged to the external cohort.")
+        st.dataframe(tables.metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
+                                         + tables.OVERALL, time_unit=u), hide_index=True, width="stretch")
+
+
+def render() -> None:
+    st.title("Results")
+    spec = state.current_study()
+    if spec is None:
+        st.info("Complete the study on the Design page first.")
+        return
+    if not state.module_available("workbench.workflow"):
+        state.not_available("Running a study")
+        return
+    _run_controls(spec)
+    job = state.current_job()
+    if job is None:
+        st.info("Press Run the study to fit the models and validate them.")
+        return
+    if job.running:
+        _watch(job)
+        return
+    if job.cancelled:
+        st.warning("The run was cancelled; nothing was kept from it. Press Run the study to start again.")
+        return
+    if job.error is not None:
+        state.show_error("The run stopped", job.error)
+        return
+    try:
+        _show(job.result, job)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Showing the results", exc)
+
+
+if __name__ == "__main__":
+    render()

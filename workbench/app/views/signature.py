@@ -1,3 +1,96 @@
+"""Signature: how the imaging pool was reduced, which features were kept, and how stable that choice is."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
 import streamlit as st
 
-st.title("signature")
+from workbench.app import charts, state, tables
+
+
+def _figure(name: str, *args, **kwargs):
+    """A figure from the figures layer when it offers ``name``, else None."""
+    mod = state.load_module("workbench.figures.signature")
+    fn = getattr(mod, name, None) if mod is not None else None
+    if fn is None:
+        return None
+    try:
+        return fn(*args, **kwargs)
+    except Exception:  # noqa: BLE001 - fall back to the app's own plain chart
+        return None
+
+
+def _path(sig) -> None:
+    path = sig.path_
+    if path is None:
+        st.info("No feature survived the filters, so no penalised path was fitted.")
+        return
+    st.markdown("**Coefficient path** (standardised features; the chosen penalty is marked)")
+    fig = _figure("plot_coefficient_path", path)
+    if fig is None:
+        coefs = np.asarray(path.coefs, float)
+        kept = np.flatnonzero(coefs[:, path.index] != 0)
+        order = kept[np.argsort(-np.abs(coefs[kept, path.index]))][:8]
+        series = {path.feature_names[j]: coefs[j] for j in order}
+        fig = charts.line_figure(np.asarray(path.alphas, float), series, xlabel="Penalty (log scale)",
+                                 ylabel="Coefficient", hline=0.0, logx=True)
+        fig.axes[0].axvline(float(path.alpha), color="#b04a2f", linestyle="--", linewidth=1.0)
+        fig.axes[0].invert_xaxis()
+    st.image(charts.figure_bytes(fig))
+    st.caption(
+        f"Penalty chosen by {path.rule} rule of {len(path.cv_folds)}-fold cross-validation split by patient: "
+        f"{int(path.n_nonzero[path.index])} features with non-zero coefficients."
+    )
+
+
+def render() -> None:
+    st.title("Signature")
+    st.write("How the imaging signature of the clinical + imaging model was built from the feature pool.")
+    if not state.module_available("workbench.workflow"):
+        state.not_available("The signature report (it needs a study run)")
+        return
+    result = state.current_result()
+    if result is None:
+        st.info("Run the study on the Results page first; the signature is fitted there.")
+        return
+    model = result.models.get("combined")
+    if model is None or not hasattr(model, "signature_"):
+        st.info("This study fits no clinical + imaging signature model; add 'combined' on the Design page.")
+        return
+    sig = model.signature_
+    a, b = st.columns([2, 3])
+    with a:
+        st.markdown("**Reduction steps** (fitted on all patients)")
+        st.dataframe(tables.steps_table(sig.steps_), hide_index=True, width="stretch")
+        coef = getattr(sig, "coef_", None)
+        if coef is not None and len(coef):
+            st.markdown("**Selected features** (coefficient per training SD)")
+            df = pd.DataFrame({"Feature": list(coef.index), "Coefficient": [f"{c:+.3f}" for c in coef.to_numpy()]})
+            st.dataframe(df, hide_index=True, width="stretch")
+        vol = result.volume.get("combined") if isinstance(getattr(result, "volume", None), dict) else None
+        if vol is not None and hasattr(vol, "correlation"):
+            st.caption(f"Correlation of the signature with tumour volume: {float(vol.correlation):.2f}.")
+    with b:
+        _path(sig)
+    sel = result.validation.selection.get("combined")
+    st.subheader("Stability across resamples")
+    if sel is None or not sel.n_fits:
+        st.info("No resample refits reported their selected features.")
+        return
+    top = tables.selection_table(sel, top=25)
+    fig = _figure("plot_selection_frequency", sel.frequency, n_replicates=sel.n_fits)
+    if fig is None:
+        fig = charts.bar_figure(top["Feature"], top["Share of refits keeping it"],
+                                xlabel=f"Share of {sel.n_fits} refits that kept the feature")
+    left, right = st.columns([3, 2])
+    left.image(charts.figure_bytes(fig))
+    with right:
+        n_sel = np.asarray(sel.n_selected)
+        st.write(f"{sel.n_fits} refits kept between {int(n_sel.min())} and {int(n_sel.max())} features "
+                 f"(median {float(np.median(n_sel)):.0f}).")
+        st.dataframe(top, hide_index=True, width="stretch")
+
+
+if __name__ == "__main__":
+    render()

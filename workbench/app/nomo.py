@@ -1,0 +1,58 @@
+"""Nomogram scales of a finished run, cached per run, shared by the Nomogram and Patient views."""
+
+from __future__ import annotations
+
+import io
+import zipfile
+
+import streamlit as st
+
+from workbench.app import state, tables
+
+NOMOGRAM_MODELS = ("clinical", "combined")
+
+
+def nomogram_models(result) -> list[str]:
+    """Models of the run that have a nomogram (the Cox models with clinical terms)."""
+    return [m for m in NOMOGRAM_MODELS if m in result.models and hasattr(result.models[m], "transformer_")]
+
+
+def training_scores(result, name: str):
+    model = result.models[name]
+    if hasattr(model, "signature_score"):
+        return model.signature_score(result.cohort)
+    return None
+
+
+@st.cache_resource(show_spinner=False, max_entries=16)
+def scales_for(run_key: tuple, name: str, horizons: tuple[float, ...], _result):
+    """``NomogramScales`` of one model at the chosen horizons (cached on the run and horizons)."""
+    points = state.load_module("workbench.figures.nomogram_points")
+    return points.nomogram_scales(
+        _result.models[name], horizons, signature_scores=training_scores(_result, name),
+        time_unit=_result.validation.time_unit, name=tables.label(name),
+    )
+
+
+def save_figure(fig, fmt: str) -> bytes:
+    """Figure bytes through the figures layer's exporter when present (editable text), else savefig."""
+    export = state.load_module("workbench.figures.export")
+    fn = getattr(export, "figure_bytes", None) if export is not None else None
+    if fn is not None:
+        try:
+            return fn(fig, fmt)
+        except Exception:  # noqa: BLE001 - the plain route below still gives a usable file
+            pass
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=300 if fmt == "png" else None, bbox_inches="tight")
+    return buf.getvalue()
+
+
+def points_table_zip(tables_by_model: dict) -> bytes:
+    """The points tables of each model as CSV files in one zip (terms and total points -> survival)."""
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+        for name, t in tables_by_model.items():
+            zf.writestr(f"{name}_points.csv", t.terms.to_csv(index=False))
+            zf.writestr(f"{name}_total_points_survival.csv", t.survival.round(4).to_csv(index=False))
+    return buf.getvalue()

@@ -1,0 +1,129 @@
+"""Display tables built from a finished study result (formatting only; every number comes from the library)."""
+
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+
+from workbench.models.registry import MODEL_LABELS
+
+METRIC_LABELS = {
+    "harrell_c": "Harrell C",
+    "uno_c": "Uno C",
+    "mean_auc": "Mean AUC",
+    "auc": "AUC",
+    "brier": "Brier score",
+    "ipa": "IPA (scaled Brier)",
+    "ibs": "Integrated Brier score",
+    "null_ibs": "Integrated Brier, no-information model",
+    "ipa_integrated": "Integrated IPA",
+    "ici": "ICI",
+    "e50": "E50",
+    "e90": "E90",
+    "cal_slope": "Calibration slope",
+    "oe_ratio": "Observed / expected",
+}
+
+DISCRIMINATION = ("harrell_c", "uno_c", "auc", "mean_auc")
+CALIBRATION = ("cal_slope", "oe_ratio", "ici", "e50", "e90")
+OVERALL = ("brier", "ipa", "ibs", "null_ibs", "ipa_integrated")
+
+
+def label(model: str) -> str:
+    return MODEL_LABELS.get(model, model)
+
+
+def metric_label(name: str, time_unit: str = "") -> str:
+    base, _, h = name.partition("@")
+    text = METRIC_LABELS.get(base, base)
+    return f"{text} at {h} {time_unit}".rstrip() if h else text
+
+
+def num(x, digits: int = 3) -> str:
+    if x is None:
+        return "-"
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    return "-" if not math.isfinite(x) else f"{x:.{digits}f}"
+
+
+def interval(lo, hi, digits: int = 3) -> str:
+    a, b = num(lo, digits), num(hi, digits)
+    return "-" if a == "-" or b == "-" else f"{a} to {b}"
+
+
+def _ordered(names, families) -> list[str]:
+    out = []
+    for fam in families:
+        out += [n for n in names if n.split("@")[0] == fam]
+    return out
+
+
+def metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
+    """One row per model and metric: validated estimate with its interval, apparent value and optimism."""
+    rows = []
+    for m in validation.models:
+        est = validation.estimates.get(m, {})
+        for name in _ordered(list(est), families):
+            e = est[name]
+            rows.append({
+                "Model": label(m),
+                "Measure": metric_label(name, time_unit),
+                "Validated": num(e.estimate),
+                f"{round(100 * validation.conf_level)}% CI": interval(e.ci_lower, e.ci_upper),
+                "Apparent": num(e.apparent),
+                "Optimism": num(e.optimism),
+                "Replicates": int(e.n_used),
+            })
+    return pd.DataFrame(rows)
+
+
+def difference_table(comparison, *, time_unit: str = "") -> pd.DataFrame:
+    """Model minus baseline for the headline measures, with intervals and which direction is better."""
+    rows = []
+    names = _ordered(list(comparison.differences), DISCRIMINATION + OVERALL + ("ici",))
+    for name in names:
+        d = comparison.differences[name]
+        rows.append({
+            "Measure": metric_label(name, time_unit),
+            "Difference (validated)": num(d.estimate),
+            f"{round(100 * comparison.conf_level)}% CI": interval(d.ci_lower, d.ci_upper),
+            "Apparent difference": num(d.apparent),
+            "Better when": d.better,
+            "Paired replicates": int(d.n_used),
+        })
+    return pd.DataFrame(rows)
+
+
+def reclassification_table(comparison, *, time_unit: str = "") -> pd.DataFrame:
+    rows = []
+    for r in comparison.reclassification:
+        for key, text in (("nri", "NRI (category-free)"), ("nri_events", "NRI, events"),
+                          ("nri_nonevents", "NRI, non-events"), ("idi", "IDI"),
+                          ("idi_events", "IDI, events"), ("idi_nonevents", "IDI, non-events")):
+            e = getattr(r, key)
+            rows.append({
+                "Horizon": f"{r.horizon:g} {time_unit}".strip(),
+                "Measure": text,
+                "Validated": num(e.estimate),
+                "CI": interval(e.ci_lower, e.ci_upper),
+                "Apparent": num(e.apparent),
+            })
+    return pd.DataFrame(rows)
+
+
+def selection_table(selection, top: int = 30) -> pd.DataFrame:
+    df = selection.to_frame().head(top)
+    return df.rename(columns={"feature": "Feature", "frequency": "Share of refits keeping it",
+                              "in_apparent_fit": "In the fit on all patients"})
+
+
+def steps_table(steps) -> pd.DataFrame:
+    return pd.DataFrame([
+        {"Step": s.step, "Features in": int(s.n_in), "Features out": int(s.n_out),
+         "Dropped": int(s.n_in) - int(s.n_out)}
+        for s in steps
+    ])
