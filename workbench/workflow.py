@@ -1,0 +1,207 @@
+"""The one orchestrator: a study file in, everything measured out.
+
+``run_study(spec)`` reads and prepares the cohort, summarises it, fits every
+model on all rows (the apparent fits, used for coefficient tables, figures, the
+bundle and patient estimates), validates the whole modelling process by
+resampling, compares each model with the baseline, and applies the fitted
+models to the external cohort when the study has one. The command line and the
+app are thin faces over this function.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
+from datetime import UTC, datetime
+
+from workbench.cohort.summary import CohortSummary, summarise_cohort
+from workbench.errors import WorkbenchError
+from workbench.models.base import clone_model
+from workbench.models.registry import build_models
+from workbench.models.signature import check_volume_dominance, volume_correlation
+from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
+from workbench.stats.schoenfeld import warn_if_nonproportional
+from workbench.study import StudySpec, dumps_study
+from workbench.validation.resample import ValidationResult, validate, validate_external
+
+
+class RunCancelled(WorkbenchError):
+    """The user stopped a run before it finished."""
+
+
+@dataclass(frozen=True)
+class StudyResult:
+    """Everything one study run produced.
+
+    Attributes
+    ----------
+    spec : StudySpec
+    study_text : str
+        The study file as run (TOML), so the run can be repeated exactly.
+    prepared : PreparedCohort
+        The analysis cohort and what was set aside (incomplete cases, pool).
+    summary : CohortSummary
+    models : dict of str to fitted model
+        Fitted on all analysis rows.
+    validation : ValidationResult
+        Internal validation of the whole modelling process.
+    external : ValidationResult or None
+    external_prepared : PreparedCohort or None
+    ph_tests : dict of str to PHTestResult
+        Proportional-hazards tests of the Cox models (apparent fits).
+    volume : dict of str to VolumeCorrelation
+        Correlation of each signature with the tumour-volume feature.
+    provenance : dict
+        Seed, input data hash, study-file hash, package versions, time stamps.
+    warnings : tuple of (category, message)
+        Statistical warnings raised during the run (each once).
+    """
+
+    spec: StudySpec
+    study_text: str
+    prepared: PreparedCohort
+    summary: CohortSummary
+    models: dict
+    validation: ValidationResult
+    external: ValidationResult | None
+    external_prepared: PreparedCohort | None
+    ph_tests: dict
+    volume: dict
+    provenance: dict
+    warnings: tuple = field(default_factory=tuple)
+
+    @property
+    def cohort(self):
+        return self.prepared.cohort
+
+
+def _progress(progress, cancel, stage: str):
+    def report(done: int, total: int) -> None:
+        if cancel is not None and cancel():
+            raise RunCancelled(f"the run was stopped during {stage} ({done} of {total} done).")
+        if progress is not None:
+            progress(done, total, stage)
+
+    return report
+
+
+def run_study(
+    spec: StudySpec,
+    *,
+    progress: Callable[[int, int, str], None] | None = None,
+    cancel: Callable[[], bool] | None = None,
+    replicates: int | None = None,
+    workers: int | None = None,
+) -> StudyResult:
+    """Run a study end to end.
+
+    Parameters
+    ----------
+    spec : StudySpec
+    progress : callable(done, total, stage), optional
+        Called as replicates finish (the app draws a progress bar from it).
+    cancel : callable() -> bool, optional
+        Checked as replicates finish; returning True stops the run with
+        :class:`RunCancelled`.
+    replicates, workers : int, optional
+        Override the study's validation settings (e.g. a quick look with fewer
+        replicates); the override is recorded in the results.
+    """
+    started = time.time()
+    v = spec.validation
+    changes = {}
+    if replicates is not None:
+        changes["replicates"] = int(replicates)
+        changes["forest_replicates"] = min(v.forest_replicates, int(replicates))
+    if workers is not None:
+        changes["workers"] = int(workers)
+    if changes:
+        spec = replace(spec, validation=replace(v, **changes))
+        v = spec.validation
+    text = dumps_study(spec)
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        prepared = prepare_cohort(spec)
+        cohort = prepared.cohort
+        summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2)
+
+        unfitted = build_models(spec)
+        fitted = {name: clone_model(m).fit(cohort) for name, m in unfitted.items()}
+        ph_tests = {}
+        for name, m in fitted.items():
+            if hasattr(m, "ph_test"):
+                ph_tests[name] = m.ph_test(cohort)
+                warn_if_nonproportional(ph_tests[name])
+        volume = {}
+        if spec.imaging.volume_feature and spec.imaging.volume_feature in cohort.feature_names:
+            for name, m in fitted.items():
+                if hasattr(m, "signature_score"):
+                    volume[name] = volume_correlation(m.signature_score(cohort), cohort.features, spec.imaging.volume_feature)
+                    check_volume_dominance(volume[name])
+
+        model_reps = {"forest": v.forest_replicates} if "forest" in unfitted else None
+        method = v.method if v.method != "none" else "bootstrap"
+        reps = v.replicates if v.method != "none" else 0
+        validation = validate(
+            unfitted,
+            cohort,
+            spec.horizons,
+            method=method,
+            replicates=reps,
+            folds=v.folds,
+            repeats=v.repeats,
+            random_state=spec.seed,
+            backend=v.backend,
+            workers=v.workers,
+            scheduler=v.scheduler,
+            progress=_progress(progress, cancel, "internal validation"),
+            model_replicates=model_reps,
+        )
+
+        external = ext_prepared = None
+        if spec.external is not None:
+            ext_prepared = prepare_cohort(spec, external=True)
+            external = validate_external(
+                fitted,
+                cohort.y,
+                ext_prepared.cohort,
+                spec.horizons,
+                replicates=max(v.replicates, 50) if v.method != "none" else 0,
+                random_state=spec.seed,
+                progress=_progress(progress, cancel, "external validation"),
+            )
+
+    seen, messages = set(), []
+    for w in caught:
+        key = (w.category.__name__, str(w.message))
+        if key not in seen:
+            seen.add(key)
+            messages.append(key)
+    provenance = {
+        "seed": spec.seed,
+        "data_hash": cohort.source.data_hash,
+        "external_data_hash": ext_prepared.cohort.source.data_hash if ext_prepared else None,
+        "study_hash": spec_digest(text),
+        "versions": package_versions(),
+        "started": datetime.fromtimestamp(started, tz=UTC).isoformat(timespec="seconds"),
+        "seconds": round(time.time() - started, 1),
+        "overrides": changes,
+    }
+    return StudyResult(
+        spec=spec,
+        study_text=text,
+        prepared=prepared,
+        summary=summary,
+        models=fitted,
+        validation=validation,
+        external=external,
+        external_prepared=ext_prepared,
+        ph_tests=ph_tests,
+        volume=volume,
+        provenance=provenance,
+        warnings=tuple(messages),
+    )
+
