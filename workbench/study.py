@@ -99,7 +99,7 @@ class PenaltySpec:
     rule: str = "1se"  # "1se" or "min"
     folds: int = 5
     n_alphas: int = 50
-    alpha_min_ratio: float = 0.05
+    path_stop_ratio: float = 0.05
 
 
 @dataclass(frozen=True)

@@ -220,9 +220,14 @@ class CombinedCox(_CoxBase):
         cols = [j for t in self.transformer_.terms_ if t.column in self.protect for j in range(t.start, t.stop)]
         return design.X[:, cols]
 
+    def _features(self, cohort: Cohort) -> pd.DataFrame:
+        # Missing imaging values get the training medians learned in fit, never evaluation-row values.
+        feats = cohort.features.reset_index(drop=True)
+        return feats.fillna(pd.Series(self.feature_medians_))
+
     def signature_score(self, cohort: Cohort) -> np.ndarray:
         check_fitted(self, "signature_")
-        return self.signature_.score(cohort.features, batch=cohort.batch, covariates=self._protected(cohort))
+        return self.signature_.score(self._features(cohort), batch=cohort.batch, covariates=self._protected(cohort))
 
     def _design(self, cohort: Cohort) -> np.ndarray:
         design = self.transformer_.transform(cohort)
@@ -233,8 +238,9 @@ class CombinedCox(_CoxBase):
         if self.signature is None:
             raise ModelError("CombinedCox needs an ImagingSignature (signature=...).")
         self.transformer_ = ClinicalTransformer(tuple(self.predictors)).fit(cohort)
+        self.feature_medians_ = cohort.features.median().to_dict()
         self.signature_ = clone(self.signature).fit(
-            cohort.features,
+            self._features(cohort),
             cohort.y,
             groups=cohort.ids,
             batch=cohort.batch,

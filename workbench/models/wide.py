@@ -74,7 +74,9 @@ class PenalisedAllCox(_WideInputs):
         Clinical predictors preserved by the harmonisation.
     combat_prior, unseen_batch : str
         See :class:`~workbench.preprocess.harmonize.ComBat`.
-    l1_ratio, n_alphas, alpha_min_ratio, n_folds, rule : penalty settings
+    l1_ratio, n_alphas, path_stop_ratio, n_folds, rule : penalty settings
+        (the path first stops at ``path_stop_ratio`` x alpha_max and is extended
+        when the cross-validated optimum lands on its end)
     random_state : int
     name : str
     """
@@ -88,7 +90,7 @@ class PenalisedAllCox(_WideInputs):
         unseen_batch: str = "error",
         l1_ratio: float = 1.0,
         n_alphas: int = 50,
-        alpha_min_ratio: float = 0.05,
+        path_stop_ratio: float = 0.05,
         n_folds: int = 5,
         rule: str = "1se",
         random_state: int | None = None,
@@ -101,7 +103,7 @@ class PenalisedAllCox(_WideInputs):
         self.unseen_batch = unseen_batch
         self.l1_ratio = l1_ratio
         self.n_alphas = n_alphas
-        self.alpha_min_ratio = alpha_min_ratio
+        self.path_stop_ratio = path_stop_ratio
         self.n_folds = n_folds
         self.rule = rule
         self.random_state = random_state
@@ -114,7 +116,7 @@ class PenalisedAllCox(_WideInputs):
             list(self.transformer_.columns_),
             l1_ratio=self.l1_ratio,
             n_alphas=self.n_alphas,
-            alpha_min_ratio=self.alpha_min_ratio,
+            path_stop_ratio=self.path_stop_ratio,
             n_folds=self.n_folds,
             rule=self.rule,
             random_state=self.random_state,
