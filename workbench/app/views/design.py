@@ -19,12 +19,8 @@ from workbench.study import (
     BACKENDS,
     MODEL_NAMES,
     VALIDATION_METHODS,
-    ForestSpec,
-    HarmoniseSpec,
     ImagingSpec,
     ModelsSpec,
-    PenaltySpec,
-    ReduceSpec,
     StudySpec,
     ValidationSpec,
     study_from_dict,
@@ -80,7 +76,9 @@ def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _predictors_from(table: pd.DataFrame) -> tuple[PredictorSpec, ...]:
+def _predictors_from(table: pd.DataFrame, template: StudySpec | None) -> tuple[PredictorSpec, ...]:
+    """Predictor specs from the edited table; settings the table does not show are kept from the template."""
+    known = {p.column: p for p in (template.predictors if template else ())}
     out = []
     for i, r in table.iterrows():
         if not bool(r["use"]):
@@ -96,8 +94,7 @@ def _predictors_from(table: pd.DataFrame) -> tuple[PredictorSpec, ...]:
                 ) from None
         levels = tuple(x.strip() for x in str(r.get("levels") or "").split(",") if x.strip())
         knots = r.get("knots")
-        out.append(PredictorSpec(
-            column=col,
+        fields = dict(
             kind=str(r["kind"] or "linear"),
             transform=str(r["transform"]) or None,
             knots=int(knots) if knots is not None and pd.notna(knots) and r["kind"] == "spline" else None,
@@ -107,7 +104,8 @@ def _predictors_from(table: pd.DataFrame) -> tuple[PredictorSpec, ...]:
             missing=str(r["missing"] or "complete_case"),
             label=str(r.get("label") or "").strip() or col,
             unit=str(r.get("unit") or "").strip(),
-        ))
+        )
+        out.append(replace(known[col], **fields) if col in known else PredictorSpec(column=col, **fields))
     return tuple(out)
 
 
@@ -212,12 +210,9 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
         folds = c3.number_input("Inner folds", 3, 20, int(p.folds), key=_key("pfolds"))
     return replace(
         tpl, include=include, exclude=exclude, volume_feature=None if vol == "(none)" else vol,
-        harmonise=HarmoniseSpec(method=method if can_combat else "none", protect=tuple(protect),
-                                unseen_batch=unseen, empirical_bayes=h.empirical_bayes),
-        reduce=ReduceSpec(min_variance=r.min_variance, correlation=float(corr), screen=bool(screen),
-                          screen_fdr=float(fdr)),
-        penalty=PenaltySpec(l1_ratio=float(l1), rule=rule, folds=int(folds), n_alphas=p.n_alphas,
-                            alpha_min_ratio=p.alpha_min_ratio),
+        harmonise=replace(h, method=method if can_combat else "none", protect=tuple(protect), unseen_batch=unseen),
+        reduce=replace(r, correlation=float(corr), screen=bool(screen), screen_fdr=float(fdr)),
+        penalty=replace(p, l1_ratio=float(l1), rule=rule, folds=int(folds)),
     )
 
 
@@ -255,12 +250,11 @@ def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tu
         if backend == "dask":
             scheduler = st.text_input("Dask scheduler address (or 'local')", tpl_v.scheduler or "local",
                                       key=_key("scheduler")) or None
-    models = ModelsSpec(fit=tuple(fit), baseline=baseline,
-                        forest=ForestSpec(trees=int(trees), min_leaf=int(leaf), max_features=f.max_features,
-                                          time_grid=f.time_grid))
-    validation = ValidationSpec(method=method, replicates=int(reps), folds=int(vfolds), repeats=int(repeats),
-                                forest_replicates=int(freps), workers=int(workers), backend=backend,
-                                scheduler=scheduler if backend == "dask" else None)
+    models = replace(tpl_m, fit=tuple(fit), baseline=baseline,
+                     forest=replace(f, trees=int(trees), min_leaf=int(leaf)))
+    validation = replace(tpl_v, method=method, replicates=int(reps), folds=int(vfolds), repeats=int(repeats),
+                         forest_replicates=int(freps), workers=int(workers), backend=backend,
+                         scheduler=scheduler if backend == "dask" else None)
     return models, validation
 
 
@@ -312,7 +306,7 @@ def render() -> None:
     )
     problems = []
     try:
-        predictors = _predictors_from(table)
+        predictors = _predictors_from(table, tpl)
     except WorkbenchError as exc:
         problems.append(exc)
         predictors = tpl.predictors if tpl else ()

@@ -1,0 +1,84 @@
+"""Design view under AppTest: the demo study round-trips, the study file downloads, bad input is explained."""
+
+from __future__ import annotations
+
+from conftest import DEMO, assert_clean
+
+from workbench.app import state
+from workbench.study import dumps_study, read_study, study_from_dict
+
+
+def _design(new_app):
+    at = new_app().run()
+    return at.switch_page("views/design.py").run()
+
+
+def test_demo_study_rebuilt_unchanged(new_app):
+    at = _design(new_app)
+    assert_clean(at)
+    # Reference: the study file itself, read by the library's reader.
+    assert at.session_state[state.K_STUDY] == read_study(DEMO / "study.toml")
+    assert any("The study is complete" in s.value for s in at.success)
+
+
+def test_download_is_the_library_study_text(new_app):
+    import tomllib
+
+    at = _design(new_app)
+    spec = read_study(DEMO / "study.toml")
+    shown = at.code[0].value
+    assert shown == dumps_study(spec, base=DEMO).rstrip("\n")  # st.code drops the final newline
+    # Paths are written relative to the tables' folder, and the text reads back to the same study.
+    doc = tomllib.loads(shown)
+    assert doc["data"]["features"] == "imaging.csv"
+    assert study_from_dict(doc, base=DEMO) == spec
+
+
+def test_changing_models_and_replicates_reaches_the_study(new_app):
+    at = _design(new_app)
+    gen = at.session_state["wb_design_gen"] if "wb_design_gen" in at.session_state else 0
+    at.multiselect(key=f"design{gen}_models").set_value(["clinical", "combined"])
+    at.number_input(key=f"design{gen}_reps").set_value(50)
+    at.run()
+    assert_clean(at)
+    spec = at.session_state[state.K_STUDY]
+    assert spec.models.fit == ("clinical", "combined") and spec.validation.replicates == 50
+
+
+def test_bad_horizons_are_explained(new_app):
+    at = _design(new_app)
+    at.text_input(key="design0_horizons").set_value("12, two years").run()
+    assert_clean(at)
+    assert any("horizons must be numbers" in e.value for e in at.error)
+    at.text_input(key="design0_horizons").set_value("36, 12").run()
+    assert any("positive and increasing" in e.value for e in at.error)
+
+
+def test_baseline_not_fitted_is_explained(new_app):
+    at = _design(new_app)
+    at.multiselect(key="design0_models").set_value(["combined"]).run()
+    assert_clean(at)
+    # The baseline box offers only fitted models, so the study stays consistent.
+    assert at.session_state[state.K_STUDY].models.baseline == "combined"
+
+
+def test_load_study_file_applies_its_settings(new_app):
+    at = _design(new_app)
+    spec = read_study(DEMO / "study.toml")
+    text = dumps_study(spec, base=DEMO).replace("replicates = 200", "replicates = 77")
+    at.file_uploader(key="design_load").set_value(("other.toml", text.encode(), "application/toml")).run()
+    assert_clean(at)
+    loaded = at.session_state[state.K_STUDY]
+    assert loaded.validation.replicates == 77
+    assert loaded.data.features == spec.data.features  # the tables chosen on the Data page are kept
+
+
+def test_malformed_study_file_is_a_plain_message(new_app):
+    at = _design(new_app)
+    at.file_uploader(key="design_load").set_value(("broken.toml", b"[study\nname = 1", "application/toml")).run()
+    assert_clean(at)
+    assert any("broken.toml" in e.value and "not valid TOML" in e.value for e in at.error)
+    at.file_uploader(key="design_load").set_value(
+        ("typo.toml", b'[study]\nname = "x"\nhorizons = [12]\n[data]\nfeatures = "a.csv"\nclinical = "b.csv"\ntiem = "t"\n',
+         "application/toml")).run()
+    assert any("unknown key 'tiem'" in e.value and "time" in e.value for e in at.error)
