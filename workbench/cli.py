@@ -84,6 +84,29 @@ def _cmd_inspect(args) -> int:
     return 0
 
 
+def _cmd_run(args) -> int:
+    from workbench.report.results import format_results, write_results
+    from workbench.study import read_study
+    from workbench.validation.backends import tqdm_progress
+    from workbench.workflow import run_study
+
+    spec = read_study(args.study)
+    bars: dict = {}
+
+    def progress(done, total, stage):
+        if stage not in bars:
+            bars[stage] = tqdm_progress(stage, file=sys.stderr)
+        bars[stage](done, total)
+
+    result = run_study(spec, progress=None if args.quiet else progress, replicates=args.replicates, workers=args.workers)
+    out = Path(args.out)
+    path = write_results(result, out)
+    print()
+    print(format_results(result))
+    print(f"\nResults written to {path.parent}/ (results.json, CSV tables, run.log)")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="workbench",
@@ -98,6 +121,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--anticipated-r2", type=float, metavar="R2", help="anticipated Cox-Snell R-squared for the sample-size criteria")
     p.add_argument("--json", metavar="FILE", help="also write the summary as JSON")
     p.set_defaults(func=_cmd_inspect)
+
+    p = sub.add_parser("run", help="run a study file end to end and write a results folder")
+    p.add_argument("study", metavar="STUDY.toml", help="study file (see docs/study-file.md)")
+    p.add_argument("--out", default="results", metavar="FOLDER", help="results folder (default: results)")
+    p.add_argument("--replicates", type=int, metavar="N", help="override the number of resampling replicates")
+    p.add_argument("--workers", type=int, metavar="N", help="override the number of parallel workers")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=_cmd_run)
     return parser
 
 

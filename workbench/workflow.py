@@ -24,6 +24,7 @@ from workbench.models.signature import check_volume_dominance, volume_correlatio
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
+from workbench.validation.compare import ComparisonResult, compare_models
 from workbench.validation.resample import ValidationResult, validate, validate_external
 
 
@@ -47,7 +48,10 @@ class StudyResult:
         Fitted on all analysis rows.
     validation : ValidationResult
         Internal validation of the whole modelling process.
+    comparisons : dict of str to ComparisonResult
+        Each model against the baseline (internal validation).
     external : ValidationResult or None
+    external_comparisons : dict of str to ComparisonResult
     external_prepared : PreparedCohort or None
     ph_tests : dict of str to PHTestResult
         Proportional-hazards tests of the Cox models (apparent fits).
@@ -65,7 +69,9 @@ class StudyResult:
     summary: CohortSummary
     models: dict
     validation: ValidationResult
+    comparisons: dict[str, ComparisonResult]
     external: ValidationResult | None
+    external_comparisons: dict[str, ComparisonResult]
     external_prepared: PreparedCohort | None
     ph_tests: dict
     volume: dict
@@ -174,6 +180,12 @@ def run_study(
                 progress=_progress(progress, cancel, "external validation"),
             )
 
+        baseline = spec.models.baseline
+        comparisons = {m: compare_models(validation, m, baseline) for m in unfitted if m != baseline}
+        external_comparisons = (
+            {m: compare_models(external, m, baseline) for m in unfitted if m != baseline} if external else {}
+        )
+
     seen, messages = set(), []
     for w in caught:
         key = (w.category.__name__, str(w.message))
@@ -197,7 +209,9 @@ def run_study(
         summary=summary,
         models=fitted,
         validation=validation,
+        comparisons=comparisons,
         external=external,
+        external_comparisons=external_comparisons,
         external_prepared=ext_prepared,
         ph_tests=ph_tests,
         volume=volume,
