@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # The two set-up commands of the README, and a few conveniences.
 #   ./tasks.sh demo   create .venv, install, run the demo study (results in results/demo)
+#                     extra options go to 'workbench run', e.g. ./tasks.sh demo --replicates 200
 #   ./tasks.sh test   create .venv, install, run the whole test suite
 #   ./tasks.sh app    create .venv, install, start the browser front end
 set -euo pipefail
@@ -25,11 +26,7 @@ cmd="${1:-}"
 case "$cmd" in
   demo)
     setup
-    "$VENV/bin/workbench" inspect \
-      --features demo_cohort/imaging.csv --clinical demo_cohort/clinical.csv \
-      --id patient_id --time os_months --time-unit months \
-      --event status --event-codes dead --censor-codes alive \
-      --centre hospital --batch scanner --horizons 12,24,36 "$@"
+    "$VENV/bin/workbench" run demo_cohort/study.toml --out results/demo "$@"
     ;;
   test)
     setup

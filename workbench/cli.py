@@ -85,6 +85,7 @@ def _cmd_inspect(args) -> int:
 
 
 def _cmd_run(args) -> int:
+    from workbench.cohort.summary import format_summary
     from workbench.report.results import format_results, write_results
     from workbench.study import read_study
     from workbench.validation.backends import tqdm_progress
@@ -101,6 +102,8 @@ def _cmd_run(args) -> int:
     result = run_study(spec, progress=None if args.quiet else progress, replicates=args.replicates, workers=args.workers)
     out = Path(args.out)
     path = write_results(result, out)
+    print()
+    print(format_summary(result.summary))
     print()
     print(format_results(result))
     print(f"\nResults written to {path.parent}/ (results.json, CSV tables, run.log)")
