@@ -71,3 +71,23 @@ def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 200) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=dpi)
     return buf.getvalue()
+
+
+def survival_curve_figure(times, survival, lower, upper, *, time_unit: str, horizons=()) -> Figure:
+    """One patient's predicted survival curve with its pointwise band (values from the estimate)."""
+    fig = Figure(figsize=(6.4, 3.2), layout="constrained")
+    ax = fig.add_subplot()
+    t = np.asarray(times, float)
+    lo, hi = np.asarray(lower, float), np.asarray(upper, float)
+    if np.isfinite(lo).any():
+        ax.fill_between(t, lo, hi, step="post", color=BAND, alpha=0.5, linewidth=0, label="95% CI")
+    ax.step(t, np.asarray(survival, float), where="post", color=INK, linewidth=1.6, label="Predicted survival")
+    for h in horizons:
+        ax.axvline(float(h), color="#7a7a7a", linewidth=0.8, linestyle=":")
+    ax.set_ylim(0, 1.02)
+    ax.set_xlim(left=0)
+    ax.set_xlabel(f"Time ({time_unit})")
+    ax.set_ylabel("Survival probability")
+    ax.grid(alpha=0.25)
+    ax.legend(frameon=False, loc="lower left")
+    return fig

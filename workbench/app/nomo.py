@@ -56,3 +56,26 @@ def points_table_zip(tables_by_model: dict) -> bytes:
             zf.writestr(f"{name}_points.csv", t.terms.to_csv(index=False))
             zf.writestr(f"{name}_total_points_survival.csv", t.survival.round(4).to_csv(index=False))
     return buf.getvalue()
+
+
+def nomogram_values(result, name: str, record: dict) -> dict:
+    """The patient's raw values as the nomogram reads them, with the signature score of the combined model."""
+    import numpy as np
+    import pandas as pd
+
+    from workbench.cohort.core import Cohort
+    from workbench.cohort.outcome import make_outcome
+
+    model = result.models[name]
+    clinical_cols = list(result.cohort.clinical.columns)
+    values = {c: record.get(c) for c in clinical_cols}
+    if hasattr(model, "signature_score"):
+        feats = list(result.cohort.feature_names)
+        row = pd.DataFrame([[float(record[f]) for f in feats]], columns=feats)
+        batch_col = result.spec.data.batch
+        batch = np.array([str(record[batch_col])]) if batch_col and batch_col in record else None
+        one = Cohort(ids=np.array(["patient"]), y=make_outcome([1.0], [False]),
+                     clinical=pd.DataFrame({c: pd.Series([values[c]], dtype=object) for c in clinical_cols}),
+                     features=row, time_unit=result.cohort.time_unit, batch=batch)
+        values["imaging_signature"] = float(model.signature_score(one)[0])
+    return values

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import os
-import time
 
 import numpy as np
 import streamlit as st
@@ -12,6 +11,8 @@ from workbench.app import charts, state, tables
 from workbench.validation.compare import LR_CAUTION
 
 POLL_SECONDS = 0.5
+METHODS = {"bootstrap": "optimism-corrected bootstrap", "cv": "repeated cross-validation",
+           "by_centre": "leave-one-centre-out validation", "external": "external validation"}
 
 
 def comparisons(result) -> list:
@@ -78,10 +79,11 @@ def _show(result, job) -> None:
     u = v.time_unit
     spec = result.spec
     reps = v.n_replicates
+    secs = job.finished - job.started
+    took = f"{secs:.0f} s" if secs < 120 else f"{secs / 60:.1f} min"
     st.success(
-        f"Finished in {time.strftime('%M:%S', time.gmtime(job.finished - job.started))} (min:s): "
-        f"{v.n} patients, {v.n_events} events; {v.method} validation with "
-        + ", ".join(f"{r} replicates for {tables.label(m).lower()}" for m, r in reps.items()) + "."
+        f"Finished in {took}: {v.n} patients, {v.n_events} events; {METHODS.get(v.method, v.method)} with "
+        + ", ".join(f"{r} replicates for the {tables.label(m)} model" for m, r in reps.items()) + "."
     )
     if job.key[:2] != state.run_key(state.current_study(), job.replicates, job.workers)[:2]:
         st.warning("The study has changed since this run; run it again to update these results.")
