@@ -1,0 +1,131 @@
+"""run_study and the results folder, on a small cohort from the demo generator (invented data)."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from workbench.cli import main
+from workbench.report.results import results_dict, write_results
+from workbench.study import read_study
+from workbench.workflow import RunCancelled, run_study
+
+STUDY = """
+[study]
+name = "small simulated study"
+horizons = [12, 24]
+seed = 5
+
+[data]
+features = "imaging.csv"
+clinical = "clinical.csv"
+time = "os_months"
+event = "status"
+event_codes = ["dead"]
+censor_codes = ["alive"]
+centre = "hospital"
+batch = "scanner"
+
+[[predictor]]
+column = "age"
+
+[[predictor]]
+column = "stage"
+kind = "categorical"
+reference = "I"
+
+[[predictor]]
+column = "ecog"
+kind = "ordinal"
+levels = ["0", "1", "2"]
+missing = "impute"
+
+[imaging]
+include = ["*"]
+volume_feature = "morph_volume_cc"
+
+[imaging.harmonise]
+method = "combat"
+protect = ["age"]
+
+[imaging.penalty]
+n_alphas = 25
+
+[models]
+fit = ["clinical", "combined"]
+
+[validation]
+method = "bootstrap"
+replicates = 3
+backend = "serial"
+"""
+
+
+@pytest.fixture(scope="module")
+def study_file(tmp_path_factory):
+    from workbench.simulate import simulate_cohort
+
+    sim = simulate_cohort(260, random_state=3, n_features=50)
+    d = tmp_path_factory.mktemp("study")
+    sim.imaging.to_csv(d / "imaging.csv", index=False)
+    sim.clinical.to_csv(d / "clinical.csv", index=False)
+    (d / "study.toml").write_text(STUDY)
+    return d / "study.toml"
+
+
+@pytest.fixture(scope="module")
+def result(study_file):
+    return run_study(read_study(study_file))
+
+
+def test_result_holds_every_block(result, tmp_path):
+    path = write_results(result, tmp_path / "out")
+    data = json.loads(path.read_text())
+    assert data["format"] == "workbench-results/1"
+    assert "Research use only" in data["caution"]
+    assert set(data["models"]) == {"clinical", "combined"}
+    perf = data["models"]["combined"]["performance"]
+    for key in ("harrell_c", "uno_c", "ibs", "auc@12", "auc@24", "brier@12", "ici@24", "e50@12", "e90@12", "cal_slope@24"):
+        assert key in perf, key
+    c = perf["harrell_c"]
+    assert c["estimate"] == pytest.approx(c["apparent"] - c["optimism"])
+    assert c["n_used"] == 3
+    assert data["comparison"]["combined"]["likelihood_ratio_test"]["nested"] is True
+    assert data["models"]["clinical"]["baseline_survival"]["survival"][0] > data["models"]["clinical"]["baseline_survival"]["survival"][1]
+    assert data["provenance"]["data_hash"] == result.cohort.source.data_hash
+    assert data["provenance"]["versions"]["numpy"]
+    for f in ("performance.csv", "comparison.csv", "hazard_ratios_clinical.csv", "run.log", "study.toml"):
+        assert (tmp_path / "out" / f).exists(), f
+    assert "HB-" not in path.read_text(), "patient identifiers must not be written"
+
+
+def test_same_seed_same_numbers(study_file, result):
+    again = results_dict(run_study(read_study(study_file)))
+    first = results_dict(result)
+    for d in (again, first):
+        d["provenance"].pop("started")
+        d["provenance"].pop("seconds")
+    assert again == first
+
+
+def test_overrides_are_recorded(study_file):
+    r = run_study(read_study(study_file), replicates=2)
+    assert r.provenance["overrides"]["replicates"] == 2
+    assert r.validation.n_replicates["clinical"] == 2
+
+
+def test_cancel_stops_the_run(study_file):
+    with pytest.raises(RunCancelled, match="stopped during internal validation"):
+        run_study(read_study(study_file), cancel=lambda: True)
+
+
+def test_cli_run_and_bad_study(study_file, tmp_path, capsys):
+    assert main(["run", str(study_file), "--out", str(tmp_path / "r"), "--replicates", "2", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "Harrell C" in out and "Caution:" in out
+    assert (tmp_path / "r" / "results.json").exists()
+    bad = tmp_path / "bad.toml"
+    bad.write_text(STUDY.replace("replicates = 3", "replicate = 3"))
+    assert main(["run", str(bad)]) == 2
+    assert "Did you mean 'replicates'" in capsys.readouterr().err
