@@ -147,7 +147,9 @@ def ranges_from_model(model, training: TrainingSummary | None = None, *, name: s
     The model itself knows its clinical ranges and levels and its known batches;
     the imaging percentiles, risk-group cut-points and last event time come from
     ``training`` (:func:`workbench.report.bundle.summarise_training`), looked up
-    under ``name`` (default ``model.name``).
+    under ``name`` (default ``model.name``). Fields of the training imaging pool
+    and the batch field are accepted (and left aside) even when this model
+    does not read them.
     """
     inp = describe_inputs(model)
     key = name or getattr(model, "name", "")
@@ -159,7 +161,8 @@ def ranges_from_model(model, training: TrainingSummary | None = None, *, name: s
         risk_cutpoints=t.risk_cutpoints.get(key) if t else None,
         last_event_time=t.last_event_time if t else float("nan"),
         time_unit=time_unit or (t.time_unit if t else "months"),
-        known_columns=frozenset(),
+        # the whole imaging pool is known even to a model that reads none of it
+        known_columns=frozenset(t.imaging_p01) | {batch_column} if t else frozenset(),
     )
 
 
