@@ -245,3 +245,14 @@ def test_external_validation_percentile_intervals(gbsg2):
     assert res.method == "external" and np.isnan(e.optimism)
     assert e.estimate == res.apparent["m"].harrell_c
     assert e.ci_lower < e.estimate < e.ci_upper and e.n_used == 10
+
+
+def test_tqdm_progress_bar_counts_to_total():
+    import io
+
+    from workbench.validation.backends import run_tasks, tqdm_progress
+
+    buf = io.StringIO()
+    out = run_tasks(abs, [-1, -2, -3], backend="serial", progress=tqdm_progress("reps", file=buf))
+    assert out == [1, 2, 3]
+    assert "3/3" in buf.getvalue()
