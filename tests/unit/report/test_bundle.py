@@ -22,8 +22,9 @@ import numpy as np
 import pytest
 
 import workbench
+from workbench.cohort.outcome import make_outcome
 from workbench.errors import BundleError
-from workbench.models.forest import SurvivalForest
+from workbench.models.forest import SurvivalForest, permutation_importance
 from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
 from workbench.report._codec import CODECS, StoredTree, decode_model, encode_model, encode_value
@@ -318,13 +319,13 @@ def gbsg2_forest():
 
     X, y = load_gbsg2()
     Xn = X[["age", "tsize", "pnodes", "progrec", "estrec"]].astype(float)
-    y = np.array(list(zip(y["cens"], y["time"], strict=True)), dtype=[("event", "?"), ("time", "<f8")])
-    return SurvivalForest(12, min_samples_leaf=10, random_state=4).fit(Xn, y), Xn
+    y = make_outcome(y["time"], y["cens"])
+    return SurvivalForest(12, min_samples_leaf=10, random_state=4).fit(Xn, y), Xn, y
 
 
 @pytest.mark.filterwarnings("ignore::workbench.errors.WorkbenchWarning")
 def test_stored_trees_route_rows_like_scikit_learn(gbsg2_forest):
-    forest, X = gbsg2_forest
+    forest, X, y = gbsg2_forest
     Xa = X.to_numpy(dtype=np.float32)
     for tree in forest.trees_:
         stored = StoredTree(tree.children_left, tree.children_right, tree.feature, tree.threshold)
@@ -333,11 +334,15 @@ def test_stored_trees_route_rows_like_scikit_learn(gbsg2_forest):
     back = decode_model(tree_, arrays)
     np.testing.assert_array_equal(back.predict_risk(X), forest.predict_risk(X))
     np.testing.assert_array_equal(back.predict_survival(X, [365.0, 1000.0]), forest.predict_survival(X, [365.0, 1000.0]))
+    for rows in ("held-out", "out-of-bag"):
+        a = permutation_importance(forest, X, y, n_repeats=2, random_state=1, rows=rows)
+        b = permutation_importance(back, X, y, n_repeats=2, random_state=1, rows=rows)
+        np.testing.assert_array_equal(a.drops, b.drops)
 
 
 @pytest.mark.filterwarnings("ignore::workbench.errors.WorkbenchWarning")
 def test_a_damaged_tree_is_refused(gbsg2_forest):
-    forest, _ = gbsg2_forest
+    forest, _, _ = gbsg2_forest
     tree_, arrays = encode_model(forest)
     key = tree_["state"]["trees"]["children_left"]["$array"]
     bad = arrays[key].copy()
