@@ -1,0 +1,95 @@
+"""Time-dependent AUC over time for several models, with pointwise confidence bands.
+
+The AUC itself is computed by :func:`workbench.metrics.td_auc.time_dependent_auc`;
+:func:`td_auc_by_model` is only a convenience that calls it once per model on
+the same grid, and :func:`plot_td_auc` draws the results.
+
+References
+----------
+.. [1] Heagerty PJ, Zheng Y. Survival model predictive accuracy and ROC curves.
+   Biometrics 2005;61:92-105.
+.. [2] Uno H, Cai T, Tian L, Wei LJ. Evaluating prediction rules for t-year
+   survivors with censored regression models. J Am Stat Assoc 2007;102:527-37.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+
+from workbench.errors import SpecError
+from workbench.figures.style import (
+    BAND_ALPHA,
+    NEUTRAL,
+    figure_and_axes,
+    series_style,
+    style_context,
+)
+from workbench.metrics.td_auc import TimeDependentAUCResult, time_dependent_auc
+
+
+def td_auc_by_model(y_train, y_test, risks: Mapping, times) -> dict[str, TimeDependentAUCResult]:
+    """Call the AUC(t) metric for every model on the same grid of times.
+
+    Parameters
+    ----------
+    y_train, y_test : structured outcome arrays
+    risks : mapping of model name to RiskScores (evaluation rows)
+    times : array-like
+        Grid of horizons strictly inside the evaluation follow-up.
+    """
+    return {name: time_dependent_auc(y_train, y_test, r, times) for name, r in risks.items()}
+
+
+def plot_td_auc(
+    results: Mapping[str, TimeDependentAUCResult],
+    *,
+    ax=None,
+    width: str | float = "single",
+    time_unit: str = "",
+    title: str = "",
+    horizons=None,
+):
+    """Draw AUC(t) curves with confidence bands, one per model.
+
+    Parameters
+    ----------
+    results : mapping of model name to TimeDependentAUCResult
+    ax : Axes, optional
+    width : "single", "double" or millimetres
+    time_unit : str
+    title : str
+    horizons : sequence of float, optional
+        Study horizons, marked with faint vertical lines.
+
+    Returns
+    -------
+    Figure, or the Axes when ``ax`` is given.
+    """
+    if not results:
+        raise SpecError("plot_td_auc needs at least one model's TimeDependentAUCResult.")
+    with style_context(width):
+        fig, a = figure_and_axes(ax, width, aspect=0.72)
+        for i, (name, r) in enumerate(results.items()):
+            st = series_style(i)
+            a.fill_between(r.times, r.ci_lower, r.ci_upper, color=st.color, alpha=BAND_ALPHA, linewidth=0)
+            a.plot(r.times, r.auc, color=st.color, linestyle=st.linestyle,
+                   label=f"{name} (mean {r.mean_auc:.2f})")
+        a.axhline(0.5, color=NEUTRAL, lw=0.7, linestyle=(0, (2, 2)))
+        for h in horizons or ():
+            a.axvline(h, color=NEUTRAL, lw=0.4, alpha=0.5)
+        lo = min(float(np.min(r.ci_lower)) for r in results.values())
+        a.set_ylim(max(0.0, min(0.45, np.floor(lo * 20) / 20)), 1.0)
+        unit = f" ({time_unit})" if time_unit else ""
+        a.set_xlabel(f"Time{unit}")
+        a.set_ylabel("Time-dependent AUC")
+        if ax is None:
+            a.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=1, borderaxespad=0.2)
+            if title:
+                a.set_title(title, loc="left", pad=8 + 11 * len(results))
+        else:
+            a.legend(loc="lower right")
+            if title:
+                a.set_title(title, loc="left")
+        return fig if ax is None else a

@@ -1,0 +1,778 @@
+"""Nomogram arithmetic: axes, points, total points and predicted survival (no plotting).
+
+For a fitted Cox model with terms :math:`f_j` (each the contribution of one
+predictor to the uncentred linear predictor, see
+:func:`workbench.preprocess.clinical.term_contribution`), every term gets an
+axis covering its training range (1st to 99th percentile for continuous terms,
+all levels for categorical ones, the 1st-99th percentiles of the training
+signature scores for the imaging signature). With :math:`m_j` and
+:math:`M_j` the smallest and largest contribution of term j over that range and
+:math:`R = \\max_j (M_j - m_j)`,
+
+.. math:: \\mathrm{points}_j(x) = 100\\,(f_j(x) - m_j) / R,
+
+so the term with the widest range spans 0-100 points (Iasonos et al. 2008).
+The total :math:`T = \\sum_j \\mathrm{points}_j` maps back to the centred
+linear predictor by the affine relation
+
+.. math:: \\mathrm{LP}(T) = T R / 100 + \\sum_j m_j - \\bar x^\\top \\beta,
+
+and to survival at horizon t by :math:`S(t \\mid T) = S_0(t)^{\\exp \\mathrm{LP}(T)}`,
+with :math:`S_0` the model's baseline survival for a patient at the training
+means, exactly as :meth:`ClinicalCox.predict_survival` computes it.
+
+Values outside an axis still get points from the same formula (below 0 or
+above the axis end); the points table covers the whole training range.
+
+References
+----------
+.. [1] Iasonos A, Schrag D, Raj GV, Panageas KS. How to build and interpret a
+   nomogram for cancer prognosis. J Clin Oncol 2008;26:1364-70.
+.. [2] Harrell FE Jr. Regression Modeling Strategies, 2nd ed. Springer, 2015,
+   Section 10.10 (nomograms).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike
+
+from workbench.errors import ModelError, NotFittedError, SpecError
+from workbench.figures.grouping import GROUP_NAMES, risk_cutpoints
+from workbench.figures.ticks import format_number, nice_log_ticks, nice_ticks
+from workbench.preprocess.clinical import TermInfo, term_contribution
+from workbench.preprocess.values import MISSING_TOKENS, canonical_level
+from workbench.stats.coxph import baseline_survival_at
+
+SIGNATURE_TERM = "imaging_signature"  # the design column name CombinedCox gives the signature
+_GRID = 801
+_SURVIVAL_CANDIDATES = (
+    # (probability, priority): tenths first, then twentieths, then the tails
+    *((p / 10, 0) for p in range(1, 10)),
+    *((p / 20, 1) for p in range(1, 20, 2)),
+    (0.01, 2), (0.02, 2), (0.98, 2), (0.99, 2),
+)
+
+
+# ------------------------------------------------------------------ data objects
+
+
+@dataclass(frozen=True)
+class AxisTick:
+    """One labelled tick: the value shown and where it sits in points."""
+
+    label: str
+    value: object
+    points: float
+
+
+@dataclass(frozen=True)
+class AxisSegment:
+    """One straight piece of a term's axis; along it points are monotone in the value.
+
+    ``value_range`` is ``(lo, hi)`` on the original scale for continuous terms
+    (None for categorical); ``start_points`` / ``end_points`` are the points at
+    ``lo`` / ``hi`` (the drawn line runs between them).
+    """
+
+    ticks: tuple[AxisTick, ...]
+    start_points: float
+    end_points: float
+    value_range: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
+class RiskBand:
+    """A stretch of the signature axis belonging to one risk group."""
+
+    label: str
+    lo_value: float
+    hi_value: float
+    lo_points: float
+    hi_points: float
+
+
+@dataclass(frozen=True)
+class TermScale:
+    """One nomogram axis and its value-to-points function.
+
+    Attributes
+    ----------
+    name, label, unit, kind : str
+        Predictor column, display name, unit and kind (``"signature"`` for the
+        imaging signature).
+    segments : tuple of AxisSegment
+        One for monotone terms; several parallel pieces for a spline whose
+        effect changes direction (one per monotone stretch, in value order).
+    extra_ticks : tuple of AxisTick
+        Ticks off the continuous scale, e.g. "< 0.5" for values below a detection limit.
+    bands : tuple of RiskBand
+        Risk groups (signature axis only).
+    min_contribution, max_contribution : float
+        Range of the term's contribution to the linear predictor over its axis.
+    points_per_lp : float
+        100 / R, shared by all terms of the model.
+    term_info : TermInfo or None
+        The fitted clinical term (None for the signature).
+    coef : ndarray
+        The term's coefficients.
+    """
+
+    name: str
+    label: str
+    unit: str
+    kind: str
+    segments: tuple[AxisSegment, ...]
+    min_contribution: float
+    max_contribution: float
+    points_per_lp: float
+    coef: np.ndarray
+    term_info: TermInfo | None = None
+    extra_ticks: tuple[AxisTick, ...] = ()
+    bands: tuple[RiskBand, ...] = ()
+    transform: str | None = None
+    table_range: tuple[float, float] | None = None
+
+    @property
+    def ticks(self) -> tuple[AxisTick, ...]:
+        """Every tick of the axis (all segments, then the extra ticks)."""
+        return tuple(t for s in self.segments for t in s.ticks) + self.extra_ticks
+
+    @property
+    def max_points(self) -> float:
+        return (self.max_contribution - self.min_contribution) * self.points_per_lp
+
+    def fill_missing(self, values) -> tuple[list, np.ndarray]:
+        """Raw values with missing cells replaced by the training imputation value, if the term has one."""
+        vals = list(np.atleast_1d(np.asarray(values, dtype=object)).ravel())
+        miss = np.array([_is_missing(v) for v in vals], dtype=bool)
+        info = self.term_info
+        if miss.any():
+            if info is None or info.missing != "impute":
+                raise SpecError(
+                    f"{self.label}: a value is missing and this model has no imputation rule for it; "
+                    "give the patient's value (the nomogram needs every predictor)."
+                )
+            vals = [info.impute_value if m else v for v, m in zip(vals, miss, strict=True)]
+        return vals, miss
+
+    def contribution(self, values) -> np.ndarray:
+        """Contribution to the uncentred linear predictor of raw values (missing ones imputed if allowed)."""
+        vals, _ = self.fill_missing(values)
+        if self.term_info is None:
+            try:
+                x = np.asarray(vals, dtype=float)
+            except (TypeError, ValueError) as exc:
+                raise SpecError(f"{self.label}: signature values must be numbers; got {vals[:3]}.") from exc
+            return x * float(self.coef[0])
+        return term_contribution(self.term_info, self.coef, vals)
+
+    def points(self, values) -> np.ndarray:
+        """Points of raw values on this axis (the same formula beyond the drawn range)."""
+        return (self.contribution(values) - self.min_contribution) * self.points_per_lp
+
+
+@dataclass(frozen=True)
+class SurvivalScale:
+    """The survival-probability axis at one horizon."""
+
+    horizon: float
+    baseline_survival: float
+    ticks: tuple[AxisTick, ...]
+    lp_intercept: float
+    points_per_lp: float
+
+    def survival(self, total_points: ArrayLike) -> np.ndarray:
+        """S(horizon | total points) = S0(horizon) ** exp(LP(total))."""
+        lp = self.lp_intercept + np.asarray(total_points, dtype=float) / self.points_per_lp
+        return np.exp(np.log(self.baseline_survival) * np.exp(lp))
+
+    def total_points_for(self, survival: ArrayLike) -> np.ndarray:
+        """Total points at which predicted survival equals the given probabilities."""
+        s = np.asarray(survival, dtype=float)
+        lp = np.log(np.log(s) / np.log(self.baseline_survival))
+        return (lp - self.lp_intercept) * self.points_per_lp
+
+
+@dataclass(frozen=True)
+class MedianScale:
+    """Median survival time axis: tick ``m`` sits where the predicted median reaches ``m``."""
+
+    ticks: tuple[AxisTick, ...]
+    event_times: np.ndarray
+    baseline_cumhaz: np.ndarray
+
+
+@dataclass(frozen=True)
+class NomogramScales:
+    """Everything needed to draw, or hand-compute, one model's nomogram.
+
+    Attributes
+    ----------
+    model : str
+    terms : tuple of TermScale
+        In design order; the imaging signature (if any) last.
+    points_per_lp : float
+        Points per unit of linear predictor (100 / widest term range).
+    lp_intercept : float
+        Centred linear predictor at 0 total points; ``LP = lp_intercept + total / points_per_lp``.
+    total_ticks : tuple of AxisTick
+        Ticks of the total-points axis (0 to ``total_axis_max``).
+    total_axis_max : float
+    survival : tuple of SurvivalScale
+        One per horizon, in the order given.
+    median : MedianScale or None
+    time_unit : str
+    """
+
+    model: str
+    terms: tuple[TermScale, ...]
+    points_per_lp: float
+    lp_intercept: float
+    total_ticks: tuple[AxisTick, ...]
+    total_axis_max: float
+    survival: tuple[SurvivalScale, ...]
+    median: MedianScale | None = None
+    time_unit: str = ""
+
+    @property
+    def horizons(self) -> tuple[float, ...]:
+        return tuple(s.horizon for s in self.survival)
+
+    def term(self, name: str) -> TermScale:
+        for t in self.terms:
+            if t.name == name:
+                return t
+        raise SpecError(f"the nomogram has no axis {name!r}; axes: {', '.join(t.name for t in self.terms)}.")
+
+    def linear_predictor(self, total_points: ArrayLike) -> np.ndarray:
+        """Centred linear predictor of a total score (the points-to-LP affine map)."""
+        return self.lp_intercept + np.asarray(total_points, dtype=float) / self.points_per_lp
+
+    def total_points_for_lp(self, lp: ArrayLike) -> np.ndarray:
+        return (np.asarray(lp, dtype=float) - self.lp_intercept) * self.points_per_lp
+
+    def survival_scale(self, horizon: float) -> SurvivalScale:
+        for s in self.survival:
+            if np.isclose(s.horizon, horizon):
+                return s
+        raise SpecError(f"the nomogram has no survival axis at {horizon:g}; horizons: {list(self.horizons)}.")
+
+    def median_survival(self, total_points: float) -> float:
+        """Predicted median survival time of a total score (inf when not reached in follow-up)."""
+        if self.median is None:
+            raise SpecError("this nomogram was built without a median-survival axis (median_axis=True).")
+        h = self.median.baseline_cumhaz * np.exp(float(self.linear_predictor(total_points)))
+        k = np.searchsorted(h, np.log(2.0), side="left")
+        return float(self.median.event_times[k]) if k < h.size else float("inf")
+
+
+@dataclass(frozen=True)
+class PatientPoints:
+    """One patient read off a nomogram.
+
+    Attributes
+    ----------
+    values : mapping
+        Value used per axis (after imputing missing values where the model allows it).
+    points : mapping of str to float
+        Points per axis.
+    total : float
+    linear_predictor : float
+        Centred linear predictor from the total.
+    survival : mapping of float to float
+        Predicted survival probability at each horizon.
+    median_survival : float or None
+    imputed : tuple of str
+        Axes whose value was missing and imputed.
+    """
+
+    values: Mapping
+    points: Mapping
+    total: float
+    linear_predictor: float
+    survival: Mapping
+    median_survival: float | None = None
+    imputed: tuple[str, ...] = field(default=())
+
+
+# ------------------------------------------------------------------ helpers
+
+
+def _is_missing(v) -> bool:
+    if v is None:
+        return True
+    if isinstance(v, str):
+        return v.strip().lower() in MISSING_TOKENS
+    try:
+        return bool(np.isnan(v))
+    except TypeError:
+        return False
+
+
+def _check_model(model):
+    if not hasattr(model, "fit_") or not hasattr(model, "transformer_"):
+        raise NotFittedError(
+            f"a nomogram needs a fitted Cox model with clinical terms (ClinicalCox or CombinedCox); "
+            f"got {type(model).__name__} without fit_/transformer_. Fit the model on the training cohort first."
+        )
+    return model.fit_, model.transformer_.terms_
+
+
+def _continuous_grid(info: TermInfo, lo: float, hi: float, n: int) -> np.ndarray:
+    if info.transform is not None:
+        return np.geomspace(lo, hi, n)
+    return np.linspace(lo, hi, n)
+
+
+def _monotone_pieces(y: np.ndarray, tol: float) -> list[tuple[int, int]]:
+    """Index ranges [i, j] over which y is monotone (turning points belong to both neighbours)."""
+    d = np.diff(y)
+    sign = np.where(d > tol, 1, np.where(d < -tol, -1, 0))
+    pieces, start, current = [], 0, 0
+    for i, s in enumerate(sign):
+        if s == 0:
+            continue
+        if current == 0:
+            current = s
+        elif s != current:
+            pieces.append((start, i))
+            start, current = i, s
+    pieces.append((start, y.size - 1))
+    return pieces
+
+
+def _max_ticks(span_points: float) -> int:
+    # roughly one label per 12 points of a 0-100 axis keeps labels apart at column width
+    return max(3, int(abs(span_points) // 12) + 1)
+
+
+def _value_ticks(scale_fn, info_transform, lo, hi, span_points, unit_free=False):
+    log = info_transform is not None
+    vals = nice_log_ticks(lo, hi, _max_ticks(span_points)) if log else nice_ticks(lo, hi, _max_ticks(span_points))
+    return [AxisTick(format_number(v), float(v), float(p)) for v, p in zip(vals, scale_fn(vals), strict=True)]
+
+
+# ------------------------------------------------------------------ building
+
+
+def _term_from_info(info: TermInfo, coef: np.ndarray, percentiles) -> dict:
+    """Axis pieces of one clinical term before the common points scale is known (in LP units)."""
+    b = np.asarray(coef[info.design_slice], dtype=float)
+    if info.kind in ("categorical", "ordinal"):
+        levels = list(info.levels)
+        contrib = term_contribution(info, b, levels)
+        return {"kind": info.kind, "levels": levels, "contrib": contrib, "b": b,
+                "lo": float(contrib.min()), "hi": float(contrib.max())}
+    p_lo, p_hi = (info.percentile(q) for q in percentiles)
+    if not p_hi > p_lo:
+        p_lo, p_hi = info.train_min, info.train_max
+    grid = _continuous_grid(info, p_lo, p_hi, _GRID)
+    contrib = term_contribution(info, b, grid)
+    bounds = [float(grid[0]), float(grid[-1])]
+    if info.kind == "spline":
+        span = float(contrib.max() - contrib.min())
+        pieces = _monotone_pieces(contrib, tol=1e-9 * max(span, 1e-12))
+        turns = [_refine_turn(info, b, grid, j) for _, j in pieces[:-1]]
+        bounds = [bounds[0], *turns, bounds[1]]
+        if turns:  # extremes of the effect sit at the refined turning points, not on the grid
+            contrib = np.r_[contrib, term_contribution(info, b, turns)]
+    below = None
+    if info.has_limit_indicator:
+        below = float(term_contribution(info, b, [f"<{info.detection_limit:.10g}"])[0])
+    allc = contrib if below is None else np.r_[contrib, below]
+    return {"kind": info.kind, "grid": grid, "bounds": bounds, "below": below, "b": b,
+            "lo": float(allc.min()), "hi": float(allc.max())}
+
+
+def _refine_turn(info: TermInfo, b: np.ndarray, grid: np.ndarray, j: int) -> float:
+    """Locate a turning point of a spline term between the grid nodes around it."""
+    from scipy.optimize import minimize_scalar
+
+    lo, hi = float(grid[max(j - 1, 0)]), float(grid[min(j + 1, grid.size - 1)])
+    f = term_contribution(info, b, [lo, float(grid[j]), hi])
+    sign = -1.0 if f[1] >= max(f[0], f[2]) else 1.0  # maximum: minimise -f
+
+    def g(v):
+        return sign * float(term_contribution(info, b, [v])[0])
+
+    res = minimize_scalar(g, bounds=(lo, hi), method="bounded", options={"xatol": 1e-12 * max(abs(hi), 1.0)})
+    return float(res.x)
+
+
+def _continuous_segments(info, part, scale_fn, ppl) -> tuple[AxisSegment, ...]:
+    bounds = part["bounds"]
+    n_pieces = len(bounds) - 1
+    segs = []
+    for k in range(n_pieces):
+        lo, hi = bounds[k], bounds[k + 1]
+        p_lo, p_hi = (float(v) for v in scale_fn([lo, hi]))
+        ticks = _value_ticks(scale_fn, info.transform, lo, hi, p_hi - p_lo)
+        if n_pieces > 1:
+            # label where one piece turns into the next, unless a nice tick is already there
+            for v, p in ((lo, p_lo), (hi, p_hi)):
+                if all(abs(t.points - p) > 4.0 and abs(t.value - v) > 1e-9 for t in ticks):
+                    ticks.append(AxisTick(format_number(v, 3), v, p))
+            ticks.sort(key=lambda t: t.value)
+        segs.append(AxisSegment(tuple(ticks), p_lo, p_hi, (lo, hi)))
+    return tuple(segs)
+
+
+def _survival_ticks(scale: SurvivalScale, axis_max: float) -> tuple[AxisTick, ...]:
+    min_gap = 0.07 * axis_max
+    kept: list[AxisTick] = []
+    for prob, _prio in sorted(_SURVIVAL_CANDIDATES, key=lambda c: c[1]):
+        t = float(scale.total_points_for(prob))
+        if not 0.0 <= t <= axis_max:
+            continue
+        if all(abs(t - k.points) >= min_gap for k in kept):
+            kept.append(AxisTick(format_number(prob, 2), prob, t))
+    return tuple(sorted(kept, key=lambda k: k.points))
+
+
+def nomogram_scales(
+    model,
+    horizons: Sequence[float],
+    *,
+    signature_scores: ArrayLike | None = None,
+    percentiles: tuple[float, float] = (1.0, 99.0),
+    signature_groups: str | Sequence[float] = "tertiles",
+    median_axis: bool = False,
+    time_unit: str = "",
+    name: str | None = None,
+) -> NomogramScales:
+    """Build the axes and point mappings of a fitted Cox model's nomogram.
+
+    Parameters
+    ----------
+    model : ClinicalCox or CombinedCox
+        A fitted model (uses ``transformer_.terms_`` and ``fit_``).
+    horizons : sequence of float
+        Times (in the cohort's unit) of the survival-probability axes.
+    signature_scores : array-like, optional
+        Imaging-signature scores of the TRAINING patients; required when the
+        model has a signature term (they set its axis range and risk groups).
+    percentiles : (float, float)
+        Training percentiles bounding continuous axes; stored percentiles only
+        (1, 5, 10, 25, 50, 75, 90, 95, 99).
+    signature_groups : {"median", "tertiles", "quartiles"} or cut-points
+        Risk groups marked on the signature axis, cut on the training scores.
+    median_axis : bool
+        Add a predicted median survival axis.
+    time_unit : str
+    name : str, optional
+        Model name shown (default ``model.name``).
+
+    Returns
+    -------
+    NomogramScales
+    """
+    fit, infos = _check_model(model)
+    coef = np.asarray(fit.coef, dtype=float)
+    hz = np.atleast_1d(np.asarray(horizons, dtype=float))
+    if hz.size == 0 or np.any(~np.isfinite(hz)) or np.any(hz <= 0):
+        raise SpecError(f"nomogram horizons must be positive times, for example [12, 24, 36]; got {list(hz)}.")
+    parts = [(_term_from_info(info, coef, percentiles), info) for info in infos]
+    has_sig = SIGNATURE_TERM in fit.names
+    sig = None
+    if has_sig:
+        if signature_scores is None:
+            raise SpecError(
+                f"the nomogram of model {getattr(model, 'name', '')!r} has an imaging-signature axis; pass "
+                "signature_scores = the training patients' scores (model.signature_score(training_cohort)) "
+                "so its range and risk groups come from the training patients."
+            )
+        s = np.asarray(signature_scores, dtype=float).ravel()
+        if s.size < 3 or not np.all(np.isfinite(s)):
+            raise SpecError("signature_scores must be the (finite) signature scores of the training patients.")
+        b_sig = float(coef[list(fit.names).index(SIGNATURE_TERM)])
+        lo, hi = np.percentile(s, percentiles)
+        cuts = risk_cutpoints(s, signature_groups)
+        sig = {"scores": s, "b": b_sig, "range": (float(lo), float(hi)), "cuts": cuts,
+               "lo": min(b_sig * lo, b_sig * hi), "hi": max(b_sig * lo, b_sig * hi)}
+    ranges = [p["hi"] - p["lo"] for p, _ in parts] + ([sig["hi"] - sig["lo"]] if sig else [])
+    widest = max(ranges)
+    if not widest > 0:
+        raise ModelError("every coefficient of the model is zero, so a nomogram would have no scale.")
+    ppl = 100.0 / widest
+    terms = []
+    for part, info in parts:
+        def scale_fn(v, _info=info, _b=part["b"], _lo=part["lo"]):
+            return (term_contribution(_info, _b, list(np.atleast_1d(v))) - _lo) * ppl
+
+        if info.kind in ("categorical", "ordinal"):
+            pts = (part["contrib"] - part["lo"]) * ppl
+            ticks = tuple(AxisTick(lv, lv, float(p)) for lv, p in zip(part["levels"], pts, strict=True))
+            segs = (AxisSegment(ticks, float(pts.min()), float(pts.max())),)
+            extra = ()
+        else:
+            segs = _continuous_segments(info, part, scale_fn, ppl)
+            extra = ()
+            if part["below"] is not None:
+                lim = format_number(info.detection_limit)
+                below_pts = float((part["below"] - part["lo"]) * ppl)
+                extra = (AxisTick(f"< {lim}", f"<{info.detection_limit:.10g}", below_pts),)
+        terms.append(TermScale(
+            name=info.column, label=info.label, unit=info.unit, kind=info.kind, segments=segs,
+            min_contribution=part["lo"], max_contribution=part["hi"], points_per_lp=ppl,
+            coef=part["b"], term_info=info, extra_ticks=extra, transform=info.transform,
+        ))
+    if sig:
+        terms.append(_signature_scale(sig, ppl, signature_groups))
+    sum_min = sum(t.min_contribution for t in terms)
+    lp_intercept = float(sum_min - fit.x_mean @ coef)
+    total_max = float(sum(t.max_points for t in terms))
+    tvals = nice_ticks(0.0, total_max, 11, cover=True)
+    axis_max = float(tvals[-1])
+    total_ticks = tuple(AxisTick(format_number(v), float(v), float(v)) for v in tvals)
+    s0 = baseline_survival_at(fit, hz)
+    if np.any(s0 >= 1.0):
+        bad = hz[s0 >= 1.0]
+        raise SpecError(
+            f"horizon(s) {list(bad)} come before the first event time {fit.baseline_times[0]:g}, where every "
+            "predicted survival is 1; choose later horizons."
+        )
+    scales = []
+    for h, s in zip(hz, s0, strict=True):
+        base = SurvivalScale(float(h), float(s), (), lp_intercept, ppl)
+        scales.append(SurvivalScale(float(h), float(s), _survival_ticks(base, axis_max), lp_intercept, ppl))
+    median = _median_scale(fit, lp_intercept, ppl, axis_max) if median_axis else None
+    return NomogramScales(
+        model=name if name is not None else getattr(model, "name", ""),
+        terms=tuple(terms), points_per_lp=ppl, lp_intercept=lp_intercept,
+        total_ticks=total_ticks, total_axis_max=axis_max, survival=tuple(scales),
+        median=median, time_unit=time_unit,
+    )
+
+
+def _signature_scale(sig: dict, ppl: float, method) -> TermScale:
+    b, (lo, hi) = sig["b"], sig["range"]
+
+    def pts(v):
+        return (b * np.asarray(v, dtype=float) - sig["lo"]) * ppl
+
+    p_lo, p_hi = (float(v) for v in pts([lo, hi]))
+    vals = nice_ticks(lo, hi, _max_ticks(p_hi - p_lo))
+    ticks = tuple(AxisTick(format_number(v), float(v), float(p)) for v, p in zip(vals, pts(vals), strict=True))
+    edges = np.r_[lo, np.clip(sig["cuts"], lo, hi), hi]
+    k = edges.size - 1
+    names = GROUP_NAMES.get(k, tuple(f"group {i + 1}" for i in range(k)))
+    bands = tuple(
+        RiskBand(names[i], float(edges[i]), float(edges[i + 1]), float(pts(edges[i])), float(pts(edges[i + 1])))
+        for i in range(k)
+    )
+    return TermScale(
+        name=SIGNATURE_TERM, label="Imaging signature", unit="score", kind="signature",
+        segments=(AxisSegment(ticks, p_lo, p_hi, (lo, hi)),),
+        min_contribution=sig["lo"], max_contribution=sig["hi"], points_per_lp=ppl,
+        coef=np.array([b]), bands=bands,
+        table_range=(float(sig["scores"].min()), float(sig["scores"].max())),
+    )
+
+
+def _median_scale(fit, lp_intercept: float, ppl: float, axis_max: float) -> MedianScale | None:
+    t, H = np.asarray(fit.baseline_times, float), np.asarray(fit.baseline_cumhaz, float)
+    # The predicted median is at most m exactly when H0(m) exp(LP) >= ln 2.
+    def points_at(m):
+        Hm = H[np.searchsorted(t, m, side="right") - 1]
+        return (np.log(np.log(2.0) / Hm) - lp_intercept) * ppl
+
+    cand = nice_ticks(t[0], t[-1], 12)
+    ticks = []
+    for m in cand:
+        if m < t[0]:
+            continue
+        p = float(points_at(m))
+        if 0.0 <= p <= axis_max and all(abs(p - k.points) >= 0.07 * axis_max for k in ticks):
+            ticks.append(AxisTick(format_number(m), float(m), p))
+    if len(ticks) < 2:
+        return None
+    return MedianScale(tuple(sorted(ticks, key=lambda k: k.points)), t, H)
+
+
+# ------------------------------------------------------------------ reading a patient
+
+
+def points_for_patient(scales: NomogramScales, raw_values: Mapping) -> PatientPoints:
+    """Read one patient off the nomogram's scales.
+
+    Parameters
+    ----------
+    scales : NomogramScales
+    raw_values : mapping
+        Value per axis name (the clinical column names, plus ``"imaging_signature"``
+        for the signature score), as in the clinical table: numbers, level
+        names, ``"<0.5"`` below a detection limit. A missing value is replaced
+        by the training imputation value where the model defines one.
+
+    Returns
+    -------
+    PatientPoints
+    """
+    absent = [t.name for t in scales.terms if t.name not in raw_values]
+    if absent:
+        raise SpecError(
+            f"the patient has no value for {', '.join(map(repr, absent))}; the nomogram of "
+            f"{scales.model!r} needs every one of: {', '.join(t.name for t in scales.terms)}."
+        )
+    values, points, imputed = {}, {}, []
+    for t in scales.terms:
+        vals, miss = t.fill_missing([raw_values[t.name]])
+        if miss[0]:
+            imputed.append(t.name)
+        values[t.name] = vals[0]
+        p = float(t.points(vals)[0])
+        if not np.isfinite(p):
+            raise SpecError(f"{t.label}: the value {raw_values[t.name]!r} gives no points on the nomogram.")
+        points[t.name] = p
+    total = float(sum(points.values()))
+    surv = {s.horizon: float(s.survival(total)) for s in scales.survival}
+    med = scales.median_survival(total) if scales.median is not None else None
+    return PatientPoints(
+        values=MappingProxyType(values), points=MappingProxyType(points), total=total,
+        linear_predictor=float(scales.linear_predictor(total)), survival=MappingProxyType(surv),
+        median_survival=med, imputed=tuple(imputed),
+    )
+
+
+def patient_values(cohort, index: int, signature_scores: ArrayLike | None = None) -> dict:
+    """Raw values of one cohort row as :func:`points_for_patient` expects them."""
+    row = cohort.clinical.iloc[int(index)]
+    out = {str(k): (None if _is_missing(v) else v) for k, v in row.items()}
+    if signature_scores is not None:
+        out[SIGNATURE_TERM] = float(np.asarray(signature_scores, dtype=float)[int(index)])
+    return out
+
+
+# ------------------------------------------------------------------ the points table
+
+
+@dataclass(frozen=True)
+class PointsTable:
+    """Tables to compute a nomogram by hand.
+
+    Attributes
+    ----------
+    terms : DataFrame
+        Columns ``term``, ``label``, ``value``, ``points``, ``on_axis``: every level
+        of categorical terms, a fine grid of values over the whole training
+        range of continuous terms (and the below-limit value), the signature
+        over the training scores. Between two rows of a continuous term, read
+        the points by linear interpolation.
+    survival : DataFrame
+        ``total_points``, ``linear_predictor`` and one ``survival_<horizon>``
+        column per horizon, every ``total_step`` points.
+    model : str
+    horizons : tuple of float
+    """
+
+    terms: pd.DataFrame
+    survival: pd.DataFrame
+    model: str
+    horizons: tuple[float, ...]
+
+
+def _table_values(t: TermScale, n_grid: int, signature_range) -> list:
+    info = t.term_info
+    if info is None:
+        lo, hi = signature_range
+        return list(nice_ticks(lo, hi, n_grid, cover=True))
+    if info.kind in ("categorical", "ordinal"):
+        return list(info.levels)
+    lo, hi = info.train_min, info.train_max
+    if info.transform is not None:
+        raw = np.geomspace(lo, hi, n_grid)
+        vals = np.unique(np.r_[lo, [float(f"{v:.2g}") for v in raw], hi])
+        vals = vals[(vals >= lo) & (vals <= hi)]
+    else:
+        vals = nice_ticks(lo, hi, n_grid, cover=False)
+        vals = np.unique(np.r_[lo, vals, hi])
+    out = list(vals.astype(float))
+    if info.has_limit_indicator:
+        out = [f"<{info.detection_limit:.10g}", *out]
+    return out
+
+
+def points_table(
+    scales: NomogramScales, *, n_grid: int = 120, total_step: float = 1.0,
+    signature_range: tuple[float, float] | None = None,
+) -> PointsTable:
+    """The nomogram as tables: value -> points per term, total points -> survival per horizon.
+
+    Parameters
+    ----------
+    scales : NomogramScales
+    n_grid : int
+        Approximate rows per continuous term.
+    total_step : float
+        Spacing of the total-points rows.
+    signature_range : (float, float), optional
+        Signature values to tabulate (default: the signature axis range).
+    """
+    rows = []
+    for t in scales.terms:
+        seg = t.segments[0]
+        rng = signature_range or t.table_range or seg.value_range or (0.0, 1.0)
+        vals = _table_values(t, n_grid, rng)
+        pts = t.points(vals)
+        lo_ax = min(s.value_range[0] for s in t.segments) if seg.value_range else None
+        hi_ax = max(s.value_range[1] for s in t.segments) if seg.value_range else None
+        for v, p in zip(vals, pts, strict=True):
+            on_axis = True if lo_ax is None or isinstance(v, str) else bool(lo_ax - 1e-12 <= v <= hi_ax + 1e-12)
+            rows.append({"term": t.name, "label": t.label, "value": v, "points": float(p), "on_axis": on_axis})
+    terms = pd.DataFrame(rows)
+    lo_tot = float(np.floor(terms.groupby("term")["points"].min().sum()))
+    hi_tot = float(np.ceil(max(terms.groupby("term")["points"].max().sum(), scales.total_axis_max)))
+    tot = np.arange(min(lo_tot, 0.0), hi_tot + total_step / 2, total_step)
+    surv = {"total_points": tot, "linear_predictor": scales.linear_predictor(tot)}
+    for s in scales.survival:
+        surv[f"survival_{format_number(s.horizon)}"] = s.survival(tot)
+    return PointsTable(terms, pd.DataFrame(surv), scales.model, scales.horizons)
+
+
+def write_points_table(table: PointsTable, path) -> tuple:
+    """Write the points table as two CSV files: ``<path>`` (terms) and ``<stem>_survival.csv``.
+
+    Returns the two paths written.
+    """
+    from pathlib import Path
+
+    p = Path(path)
+    if p.suffix.lower() != ".csv":
+        p = p.with_suffix(".csv")
+    p.parent.mkdir(parents=True, exist_ok=True)
+    terms = table.terms.assign(points=table.terms["points"].round(2))
+    terms.to_csv(p, index=False)
+    q = p.with_name(f"{p.stem}_survival.csv")
+    table.survival.round({"total_points": 2, "linear_predictor": 4}).round(4).to_csv(q, index=False)
+    return p, q
+
+
+def survival_from_table(table: PointsTable, raw_values: Mapping, horizon: float) -> float:
+    """Predicted survival read from the points table alone, as a reader would by hand.
+
+    Continuous values are interpolated linearly between neighbouring rows,
+    levels are looked up, and the total is interpolated in the survival table.
+    Missing values must be filled in by the caller.
+    """
+    total = 0.0
+    for name, part in table.terms.groupby("term", sort=False):
+        v = raw_values[name]
+        num = part[[not isinstance(x, str) for x in part["value"]]]
+        key = canonical_level(v) if isinstance(v, str) else None
+        levels = [canonical_level(x) if isinstance(x, str) else None for x in part["value"]]
+        if key is not None and key in levels:
+            total += float(part["points"].iloc[levels.index(key)])
+            continue
+        if num.empty:
+            raise SpecError(f"{name}: value {v!r} is not a row of the points table.")
+        total += float(np.interp(float(v), num["value"].astype(float), num["points"]))
+    col = f"survival_{format_number(horizon)}"
+    if col not in table.survival:
+        raise SpecError(f"the points table has no survival column for horizon {horizon:g}.")
+    return float(np.interp(total, table.survival["total_points"], table.survival[col]))

@@ -1,0 +1,75 @@
+"""Nice tick values and number labels (pure arithmetic, shared by the nomogram and plots)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+_STEPS = (1.0, 2.0, 2.5, 5.0)
+_LOG_SETS = ((1.0,), (1.0, 3.0), (1.0, 2.0, 5.0), (1.0, 2.0, 3.0, 5.0, 7.0))
+
+
+def format_number(v: float, sig: int = 4) -> str:
+    """Short label of a number: up to ``sig`` significant digits, no trailing zeros or exponent."""
+    v = float(v)
+    if v == 0 or not np.isfinite(v):
+        return "0" if v == 0 else str(v)
+    digits = sig - 1 - int(np.floor(np.log10(abs(v))))
+    r = round(v, max(digits, 0)) if digits >= 0 else round(v, digits)
+    text = np.format_float_positional(r, precision=max(digits, 0), unique=True, trim="-")
+    return "0" if text in ("-0", "") else text
+
+
+def _candidate_steps(span: float):
+    k = int(np.floor(np.log10(span))) - 2
+    for e in range(k, k + 5):
+        for m in _STEPS:
+            yield m * 10.0**e
+
+
+def nice_ticks(lo: float, hi: float, max_ticks: int, *, cover: bool = False) -> np.ndarray:
+    """Round tick values at a 1-2-2.5-5 step, at most ``max_ticks`` of them.
+
+    ``cover=False``: ticks inside [lo, hi]. ``cover=True``: from a tick at or
+    below ``lo`` to one at or above ``hi``.
+    """
+    lo, hi = float(lo), float(hi)
+    if hi < lo:
+        lo, hi = hi, lo
+    if hi == lo:
+        return np.array([lo])
+    span = hi - lo
+    best = None
+    for step in _candidate_steps(span):
+        if cover:
+            a, b = np.floor(lo / step + 1e-9) * step, np.ceil(hi / step - 1e-9) * step
+        else:
+            a, b = np.ceil(lo / step - 1e-9) * step, np.floor(hi / step + 1e-9) * step
+        n = int(round((b - a) / step)) + 1
+        if n <= max_ticks:
+            best = a + step * np.arange(n)
+            break
+    if best is None or best.size == 0:
+        best = np.array([lo, hi])
+    # remove floating noise such as 0.30000000000000004
+    return np.array([float(f"{v:.12g}") for v in best])
+
+
+def nice_log_ticks(lo: float, hi: float, max_ticks: int) -> np.ndarray:
+    """Ticks at 1-2-5 style values on a log scale inside [lo, hi] (positive values).
+
+    Uses the densest mantissa set with at most ``max_ticks`` ticks; falls back to
+    :func:`nice_ticks` when the range is too narrow for two log-spaced values.
+    """
+    lo, hi = float(min(lo, hi)), float(max(lo, hi))
+    e0, e1 = int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi)))
+    chosen = None
+    for mset in _LOG_SETS:
+        vals = np.array([m * 10.0**e for e in range(e0, e1 + 1) for m in mset])
+        vals = vals[(vals >= lo * (1 - 1e-9)) & (vals <= hi * (1 + 1e-9))]
+        if vals.size <= max_ticks:
+            chosen = vals
+        else:
+            break
+    if chosen is None or chosen.size < 2:
+        return nice_ticks(lo, hi, max_ticks)
+    return np.array([float(f"{v:.12g}") for v in chosen])
