@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import io
 import json
 import tempfile
+import zipfile
 from pathlib import Path
 
 import streamlit as st
@@ -11,9 +13,33 @@ import streamlit as st
 from workbench.app import state
 
 
+def _results_data(result) -> dict | None:
+    if hasattr(result, "to_dict"):
+        return result.to_dict()
+    mod = state.load_module("workbench.report.results")
+    return mod.results_dict(result) if mod is not None and hasattr(mod, "results_dict") else None
+
+
 @st.cache_data(show_spinner="Preparing results.json...", max_entries=4)
-def _results_json(run_key: tuple, _result) -> str:
-    return json.dumps(_result.to_dict(), indent=2, default=str)
+def _results_json(run_key: tuple, _result) -> str | None:
+    data = _results_data(_result)
+    return None if data is None else json.dumps(data, indent=2, allow_nan=False)
+
+
+@st.cache_data(show_spinner="Writing the results folder...", max_entries=4)
+def _results_folder_zip(run_key: tuple, _result) -> bytes | None:
+    """results.json, the CSV tables and the run log, as the command line writes them, in one zip."""
+    mod = state.load_module("workbench.report.results")
+    if mod is None or not hasattr(mod, "write_results"):
+        return None
+    with tempfile.TemporaryDirectory(prefix="workbench-results-") as tmp:
+        folder = Path(tmp) / "results"
+        mod.write_results(_result, folder)
+        buf = io.BytesIO()
+        with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+            for f in sorted(folder.iterdir()):
+                zf.write(f, arcname=f"results/{f.name}")
+        return buf.getvalue()
 
 
 @st.cache_data(show_spinner="Saving the model bundle...", max_entries=4)
@@ -65,14 +91,21 @@ def render() -> None:
 
     st.subheader("Results file")
     st.caption("Every number of the run with the study, seed, data hash and package versions (results.json).")
-    if not hasattr(result, "to_dict"):
+    try:
+        text = _results_json(key, result)
+        folder = _results_folder_zip(key, result)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Writing the results", exc)
+        text = folder = None
+    if text is None:
         state.not_available("results.json")
     else:
-        try:
-            st.download_button("Download results.json", _results_json(key, result), file_name="results.json",
-                               mime="application/json", key="export_json")
-        except Exception as exc:  # noqa: BLE001
-            state.show_error("Writing results.json", exc)
+        a, b = st.columns(2)
+        a.download_button("Download results.json", text, file_name="results.json", mime="application/json",
+                          key="export_json")
+        if folder is not None:
+            b.download_button("Download the results folder (JSON, CSV tables, run log; zip)", folder,
+                              file_name="results.zip", mime="application/zip", key="export_folder")
 
     st.subheader("Model bundle")
     st.caption("The fitted models in a safe format (JSON and arrays, no executable code) to estimate survival "

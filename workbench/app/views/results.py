@@ -17,7 +17,7 @@ METHODS = {"bootstrap": "optimism-corrected bootstrap", "cv": "repeated cross-va
 
 def comparisons(result) -> list:
     """Every model against the study's baseline, from the result (or the library's comparison)."""
-    comp = getattr(result, "comparison", None)
+    comp = getattr(result, "comparisons", None) or getattr(result, "comparison", None)
     if isinstance(comp, dict):
         return [c for c in comp.values() if c is not None]
     if comp is not None:
@@ -139,6 +139,9 @@ def _show(result, job) -> None:
         st.caption("The models fitted on all training patients, applied unchanged to the external cohort.")
         st.dataframe(tables.metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
                                          + tables.OVERALL, time_unit=u), hide_index=True, width="stretch")
+        for comp in (getattr(result, "external_comparisons", None) or {}).values():
+            st.markdown(f"**External: {tables.label(comp.model)} minus {tables.label(comp.baseline)}**")
+            st.dataframe(tables.difference_table(comp, time_unit=u), hide_index=True, width="stretch")
 
 
 def render() -> None:

@@ -1,0 +1,166 @@
+"""A whole study through the app under AppTest: Results, Signature, Nomogram, Patient and Export views.
+
+The study is the demo study reduced to the clinical and the clinical + imaging
+model with 3 bootstrap replicates, so that the module runs in well under a minute.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import time
+from dataclasses import replace
+
+import numpy as np
+import pytest
+from conftest import APP_MAIN, DEMO, REPO, assert_clean, page_texts
+
+from workbench.app import state
+from workbench.study import read_study, write_study
+
+REPLICATES = 3
+
+
+def _light_spec():
+    spec = read_study(DEMO / "study.toml")
+    return replace(spec, models=replace(spec.models, fit=("clinical", "combined")), external=None)
+
+
+@pytest.fixture(scope="module")
+def ran():
+    from streamlit.testing.v1 import AppTest
+
+    at = AppTest.from_file(str(APP_MAIN), default_timeout=600).run()
+    at.session_state[state.K_STUDY] = _light_spec()
+    at.switch_page("views/results.py").run()
+    at.number_input(key="results_replicates").set_value(REPLICATES)
+    at.number_input(key="results_workers").set_value(1)
+    at.button(key="results_run").click().run()
+    return at
+
+
+@pytest.fixture(scope="module")
+def cli_results(tmp_path_factory):
+    """results.json of the command line for the same study file and seed."""
+    tmp = tmp_path_factory.mktemp("cli")
+    study = write_study(_light_spec(), tmp / "light.toml")
+    out = tmp / "out"
+    subprocess.run(
+        [sys.executable, "-m", "workbench.cli", "run", str(study), "--replicates", str(REPLICATES),
+         "--workers", "1", "--out", str(out), "--quiet"],
+        check=True, cwd=REPO, capture_output=True, timeout=600,
+    )
+    return json.loads((out / "results.json").read_text())
+
+
+def _cell(df, model_label: str, measure: str, column: str) -> str:
+    row = df[(df["Model"] == model_label) & (df["Measure"] == measure)]
+    assert len(row) == 1, (model_label, measure, df[["Model", "Measure"]].to_string())
+    return str(row.iloc[0][column])
+
+
+def test_results_page_runs_and_shows_harrell_c_of_the_command_line(ran, cli_results):
+    assert_clean(ran)
+    assert any("Finished in" in s.value for s in ran.success)
+    disc = ran.dataframe[0].value
+    # Reference: the command line's results.json for the same study file and seed.
+    for name, label in (("clinical", "Clinical Cox"), ("combined", "Clinical + imaging signature")):
+        perf = cli_results["models"][name]["performance"]["harrell_c"]
+        assert _cell(disc, label, "Harrell C", "Validated") == f"{perf['estimate']:.3f}"
+        assert _cell(disc, label, "Harrell C", "Apparent") == f"{perf['apparent']:.3f}"
+
+
+def test_results_page_shows_the_comparison(ran, cli_results):
+    texts = " ".join(page_texts(ran))
+    assert "Clinical + imaging signature minus Clinical Cox" in texts
+    diff = ran.dataframe[3].value
+    ref = cli_results["comparison"]["combined"]["differences"]["harrell_c"]
+    row = diff[diff["Measure"] == "Harrell C"].iloc[0]
+    assert row["Difference (validated)"] == f"{ref['estimate']:.3f}"
+    full = read_study(DEMO / "study.toml").validation.replicates
+    assert "Quick mode" in texts and f"the {full} replicates of the study file" in texts
+
+
+def test_signature_page_matches_the_fitted_signature(ran):
+    ran.switch_page("views/signature.py").run()
+    assert_clean(ran)
+    sig = ran.session_state[state.K_JOB].result.models["combined"].signature_
+    steps = ran.dataframe[0].value
+    assert list(steps["Features out"]) == [s.n_out for s in sig.steps_]
+    selected = ran.dataframe[1].value
+    assert list(selected["Feature"]) == list(sig.coef_.index)
+    assert any("refits kept between" in m.value for m in ran.markdown)
+
+
+def test_nomogram_page_draws_and_offers_downloads(ran):
+    ran.switch_page("views/nomogram.py").run()
+    assert_clean(ran)
+    assert not ran.error
+    labels = [b.label for b in ran.get("download_button")]
+    for fmt in ("PNG", "SVG", "PDF"):
+        assert f"Download {fmt}" in labels
+    assert any("points tables" in x for x in labels)
+
+
+def _estimate_page(at, **overrides):
+    at.switch_page("views/patient.py").run()
+    for col, val in overrides.items():
+        at.text_input(key=f"pt_combined_id_{at.session_state['patient_start']}_{col}").set_value(val)
+    at.button[0].click().run()
+    return at
+
+
+def test_patient_estimate_matches_the_library(ran):
+    from workbench.estimate import estimate_patient, ranges_from_model
+    from workbench.report.bundle import summarise_training
+
+    at = _estimate_page(ran)
+    assert_clean(at)
+    result = at.session_state[state.K_JOB].result
+    model = result.models["combined"]
+    cohort = result.cohort
+    record = {c: cohort.clinical.iloc[0][c] for c in cohort.clinical.columns if c != result.spec.data.batch}
+    record = {k: (None if isinstance(v, float) and np.isnan(v) else v) for k, v in record.items()}
+    record.update({f: float(v) for f, v in cohort.features.iloc[0].items()})
+    record[result.spec.data.batch] = str(cohort.batch[0])
+    training = summarise_training(cohort, result.models, result.spec.horizons)
+    ranges = ranges_from_model(model, training, name="combined", batch_column=result.spec.data.batch)
+    keep = {c.column for c in ranges.clinical} | set(ranges.imaging_features) | {result.spec.data.batch}
+    est = estimate_patient(model, {k: v for k, v in record.items() if k in keep}, result.spec.horizons,
+                           training_ranges=ranges)
+    shown = {m.label: m.value for m in at.metric}
+    for hz in est.horizons:
+        assert shown[f"Survival at {hz.horizon:g} months"] == f"{100 * hz.survival:.1f}%"
+    assert "Research use only" in " ".join(w.value for w in at.warning)
+
+
+def test_patient_out_of_range_and_text_are_explained(ran):
+    at = _estimate_page(ran, age="120")
+    assert_clean(at)
+    assert any("age" in w.value and "above the training range" in w.value for w in at.warning)
+    at = _estimate_page(ran, age="old")
+    assert_clean(at)
+    assert any("'age'" in e.value and "not a number" in e.value for e in at.error)
+
+
+def test_export_page_offers_results_and_bundle(ran, cli_results):
+    ran.switch_page("views/export.py").run()
+    assert_clean(ran)
+    labels = [b.label for b in ran.get("download_button")]
+    assert "Download results.json" in labels
+    assert "Download the model bundle (zip)" in labels
+
+
+@pytest.mark.slow
+def test_cancel_stops_a_run_between_replicates():
+    # Two workers: the engine then reports (and checks for cancelling) after each chunk of replicates.
+    job = state.RunJob(("cancel-test", "x", 16, 2), _light_spec(), 16, 2).start()
+    deadline = time.monotonic() + 300
+    while job.running and job.done == 0 and time.monotonic() < deadline:
+        job.wait(0.1)
+    job.cancel()
+    job.wait(300)
+    assert not job.running
+    assert job.cancelled and job.result is None and job.error is None
+    assert 0 < job.done < job.total
