@@ -395,7 +395,17 @@ def load_bundle(path) -> Bundle:
             f"{path} uses bundle format version {version!r}; this workbench ({workbench.__version__}) reads "
             f"version(s) {', '.join(map(str, KNOWN_FORMAT_VERSIONS))}. Use a matching workbench version."
         )
-    _check_versions(manifest, path)
+    try:
+        _check_versions(manifest, path)
+        return _read_models(manifest, read, path)
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
+        raise BundleError(
+            f"{path}: the bundle's contents are malformed ({type(exc).__name__}: {exc}); it cannot be used. "
+            "Export the model again from the original study run."
+        ) from None
+
+
+def _read_models(manifest: dict, read, path: Path) -> Bundle:
     data = {}
     for name, digest in manifest["files"].items():
         blob = read(name)

@@ -266,6 +266,20 @@ def test_unknown_class_is_refused_even_with_valid_checksums(saved, tmp_path):
         load_bundle(folder)
 
 
+def test_a_pickled_array_is_refused_even_with_valid_checksums(saved, tmp_path):
+    folder = _copy(saved[0], tmp_path)
+    target = next((folder / "models").glob("*clinical.npz"))
+    with np.load(target) as z:
+        arrays = {k: z[k] for k in z.files}
+    arrays["a0"] = np.array([{"runs": "code"}], dtype=object)  # np.savez pickles object arrays
+    np.savez(target, **arrays)
+    m = _manifest(folder)
+    m["files"][target.relative_to(folder).as_posix()] = hashlib.sha256(target.read_bytes()).hexdigest()
+    _rewrite_manifest(folder, m, fix_checksum=True)
+    with pytest.raises(BundleError, match="contents are malformed .*allow_pickle=False"):
+        load_bundle(folder)
+
+
 def test_missing_and_foreign_paths(tmp_path):
     with pytest.raises(BundleError, match="no bundle here"):
         load_bundle(tmp_path / "nothing")
