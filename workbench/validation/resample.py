@@ -748,7 +748,7 @@ def validate(
         Optimism-corrected bootstrap, repeated k-fold cross-validation, or
         leave-one-centre-out (needs ``cohort.centre``). See the module notes.
     replicates : int, default 200
-        Bootstrap replicates.
+        Bootstrap replicates; 0 gives apparent performance only (estimates NaN).
     folds, repeats : int, default 5 and 10
         Cross-validation.
     random_state : int, SeedSequence or None
@@ -785,9 +785,9 @@ def validate(
     models = _check_models(models)
     if method not in METHODS:
         raise SpecError(f"unknown validation method {method!r}; choose one of {', '.join(METHODS)}.")
-    for nm, v in (("replicates", replicates), ("folds", folds), ("repeats", repeats)):
-        if int(v) != v or v < 1:
-            raise SpecError(f"{nm} must be a whole number of at least 1, got {v!r}.")
+    for nm, v, least in (("replicates", replicates, 0), ("folds", folds, 1), ("repeats", repeats, 1)):
+        if int(v) != v or v < least:
+            raise SpecError(f"{nm} must be a whole number of at least {least}, got {v!r}.")
     if method == "cv" and folds < 2:
         raise SpecError("cross-validation needs at least 2 folds.")
     if not 0.0 <= max_failure_rate < 1.0:
@@ -802,8 +802,11 @@ def validate(
 
     notes, centres = [], ()
     if method == "bootstrap":
-        n_rep = _replicate_counts(models, replicates, model_replicates)
+        n_rep = _replicate_counts(models, replicates, model_replicates) if replicates else dict.fromkeys(models, 0)
         plan = _bootstrap_plan(cohort.n, max(n_rep.values()), rep_root)
+        if not replicates:
+            notes.append("no bootstrap replicates were run: only apparent performance is available, "
+                         "and it is optimistic; the validated estimates are left empty (NaN).")
         tasks = [
             _Task(b, 0, idx, None, True, seed, tuple(nm for nm in models if b < n_rep[nm]))
             for b, (idx, seed) in enumerate(plan)
@@ -849,7 +852,7 @@ def validate(
                        arms, conf_level, max_failure_rate, unit)
     total = max(n_rep.values())
     for nm, r in n_rep.items():
-        if r < total:
+        if 0 < r < total:
             notes.append(f"model {nm!r} was validated on the first {r} of {total} {unit.split()[0]} "
                          f"{'replicates' if method == 'bootstrap' else 'repeats'} (model_replicates).")
     for nm, c in parts["failures"].items():

@@ -256,3 +256,11 @@ def test_tqdm_progress_bar_counts_to_total():
     out = run_tasks(abs, [-1, -2, -3], backend="serial", progress=tqdm_progress("reps", file=buf))
     assert out == [1, 2, 3]
     assert "3/3" in buf.getvalue()
+
+
+def test_zero_replicates_gives_apparent_only(gbsg2):
+    m = ColumnsCox(("pnodes",), name="m")
+    res = validate({"m": m}, gbsg2, H, replicates=0, backend="serial", calibration=False)
+    e = res.estimates["m"]["harrell_c"]
+    assert e.apparent == res.apparent["m"].harrell_c and np.isnan(e.estimate) and e.n_used == 0
+    assert any("apparent performance" in s for s in res.notes)
