@@ -444,7 +444,7 @@ def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, me
     for r in rows:
         if r.kind == "pad":
             continue
-        lift = 0.12 if r.kind == "term" and r.term.bands and "\n" in _wrap(_row_label(r, scales)) else 0.0
+        lift = 0.3 if r.kind == "term" and r.term.bands and "\n" in _wrap(_row_label(r, scales)) else 0.0
         painter.label(_row_label(r, scales), r.line, lift)
         if r.kind == "points":
             painter.points_row(r.line)
@@ -555,19 +555,23 @@ def plot_nomogram(
         n = len(items)
         frac_w = (1.0 / n - 0.02) if layout == "columns" else 0.98
         geo = _geometry(frac_w * w * 72.0, fs, right_pt, label_pt)
-        block = max(_term_block(s, geo, measure) for s in items)
+        # side by side, pad the shorter term block so total-points and survival axes line up
+        block = max(_term_block(s, geo, measure) for s in items) if layout == "columns" else 0.0
         layouts = [_layout(s, block, geo, measure) for s in items]
-        n_rows = max(sum(r.height for r in rows) for rows in layouts) + 0.3
+        heights = [(sum(r.height for r in rows) + 0.3) * ROW_INCHES for rows in layouts]
         head, foot = 0.22, 0.3
-        panel_h = n_rows * ROW_INCHES
-        h = (panel_h + head) * (n if layout == "rows" else 1) + foot
+        if layout == "columns":
+            h = max(heights) + head + foot
+        else:
+            h = sum(heights) + n * head + foot
         fig = Figure(figsize=(w, h))
+        top = h
         for i, (s, rows, title, pp) in enumerate(zip(items, layouts, titles, pats, strict=True)):
             if layout == "columns":
-                rect = (i / n + 0.01, foot / h, frac_w, panel_h / h)
+                rect = (i / n + 0.01, (h - head - heights[i]) / h, frac_w, heights[i] / h)
             else:
-                bottom = foot + (n - 1 - i) * (panel_h + head)
-                rect = (0.01, bottom / h, frac_w, panel_h / h)
+                top -= head + heights[i]
+                rect = (0.01, top / h, frac_w, heights[i] / h)
             _draw_panel(fig.add_axes(rect), s, rows, geo, measure, title, pp)
         if caution:
             fig.text(0.01, 0.1 * foot / h, caution, ha="left", va="bottom", fontsize=small_print_size(width),
