@@ -20,6 +20,7 @@ from workbench.app import state
 from workbench.study import read_study, write_study
 
 REPLICATES = 3
+pytestmark = pytest.mark.slow  # one study run in the app and one on the command line: about a minute
 
 
 def _light_spec():
@@ -54,6 +55,14 @@ def cli_results(tmp_path_factory):
     return json.loads((out / "results.json").read_text())
 
 
+def _frame_with(at, *columns):
+    """The first table on the page that has all these columns."""
+    for d in at.dataframe:
+        if all(c in d.value.columns for c in columns):
+            return d.value
+    raise AssertionError(f"no table with columns {columns}")
+
+
 def _cell(df, model_label: str, measure: str, column: str) -> str:
     row = df[(df["Model"] == model_label) & (df["Measure"] == measure)]
     assert len(row) == 1, (model_label, measure, df[["Model", "Measure"]].to_string())
@@ -63,18 +72,21 @@ def _cell(df, model_label: str, measure: str, column: str) -> str:
 def test_results_page_runs_and_shows_harrell_c_of_the_command_line(ran, cli_results):
     assert_clean(ran)
     assert any("Finished in" in s.value for s in ran.success)
-    disc = ran.dataframe[0].value
+    disc = _frame_with(ran, "Model", "Measure", "Validated", "Apparent")
+    wide = _frame_with(ran, "Measure", "Clinical Cox", "Clinical + imaging signature")
     # Reference: the command line's results.json for the same study file and seed.
     for name, label in (("clinical", "Clinical Cox"), ("combined", "Clinical + imaging signature")):
         perf = cli_results["models"][name]["performance"]["harrell_c"]
         assert _cell(disc, label, "Harrell C", "Validated") == f"{perf['estimate']:.3f}"
         assert _cell(disc, label, "Harrell C", "Apparent") == f"{perf['apparent']:.3f}"
+        shown = wide.loc[wide["Measure"] == "Harrell C", label].iloc[0]
+        assert shown == f"{perf['estimate']:.3f} ({perf['ci_lower']:.3f} to {perf['ci_upper']:.3f})"
 
 
 def test_results_page_shows_the_comparison(ran, cli_results):
     texts = " ".join(page_texts(ran))
     assert "Clinical + imaging signature minus Clinical Cox" in texts
-    diff = ran.dataframe[3].value
+    diff = _frame_with(ran, "Measure", "Difference (validated)")
     ref = cli_results["comparison"]["combined"]["differences"]["harrell_c"]
     row = diff[diff["Measure"] == "Harrell C"].iloc[0]
     assert row["Difference (validated)"] == f"{ref['estimate']:.3f}"

@@ -326,3 +326,10 @@ def quick_spec(spec: StudySpec, replicates: int, workers: int) -> StudySpec:
     return replace(spec, validation=replace(
         v, replicates=int(replicates), workers=int(workers),
         forest_replicates=min(v.forest_replicates, int(replicates))))
+
+
+def table(df, *, max_rows: int = 40, where=None) -> None:
+    """A read-only table tall enough to show its rows without an inner scroll bar (up to ``max_rows``)."""
+    target = where if where is not None else st
+    height = min(max(len(df), 1), max_rows) * 35 + 38
+    target.dataframe(df, hide_index=True, width="stretch", height=height)

@@ -127,3 +127,25 @@ def steps_table(steps) -> pd.DataFrame:
          "Dropped": int(s.n_in) - int(s.n_out)}
         for s in steps
     ])
+
+
+def wide_metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
+    """One row per measure, one column per model: validated estimate with its interval."""
+    models = list(validation.models)
+    names: list[str] = []
+    for m in models:
+        for n in _ordered(list(validation.estimates.get(m, {})), families):
+            if n not in names:
+                names.append(n)
+    rows = []
+    for n in names:
+        row = {"Measure": metric_label(n, time_unit)}
+        for m in models:
+            e = validation.estimates.get(m, {}).get(n)
+            if e is None:
+                row[label(m)] = "-"
+                continue
+            ci = interval(e.ci_lower, e.ci_upper)
+            row[label(m)] = num(e.estimate) + ("" if ci == "-" else f" ({ci})")
+        rows.append(row)
+    return pd.DataFrame(rows)

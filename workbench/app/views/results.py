@@ -92,17 +92,20 @@ def _show(result, job) -> None:
             for cat, msg in result.warnings:
                 st.write(f"**{cat}**: {state.friendly(msg)}")
 
-    st.subheader("Discrimination")
-    st.caption("Validated = corrected for optimism (bootstrap) or held out (cross-validation, centres). "
-               "Higher is better; 0.5 is chance.")
-    st.dataframe(tables.metric_table(v, tables.DISCRIMINATION, time_unit=u), hide_index=True, width="stretch")
-    st.subheader("Calibration")
-    st.caption("Slope 1 and observed/expected 1 are ideal; ICI, E50 and E90 are absolute differences between "
-               "predicted and observed risk (0 is ideal).")
-    st.dataframe(tables.metric_table(v, tables.CALIBRATION, time_unit=u), hide_index=True, width="stretch")
-    st.subheader("Overall accuracy (Brier score)")
-    st.caption("Lower Brier score is better; IPA compares with the no-information model (higher is better).")
-    st.dataframe(tables.metric_table(v, tables.OVERALL, time_unit=u), hide_index=True, width="stretch")
+    pct = round(100 * v.conf_level)
+    for title, families, note in (
+        ("Discrimination", tables.DISCRIMINATION, "Higher is better; 0.5 is chance."),
+        ("Calibration", tables.CALIBRATION, "Slope 1 and observed/expected 1 are ideal; ICI, E50 and E90 are "
+         "absolute differences between predicted and observed risk (0 is ideal)."),
+        ("Overall accuracy (Brier score)", tables.OVERALL, "Lower Brier score is better; IPA compares with the "
+         "no-information model (higher is better)."),
+    ):
+        st.subheader(title)
+        st.caption(f"Validated estimate ({pct}% interval): corrected for optimism (bootstrap) or held out "
+                   f"(cross-validation, centres). {note}")
+        state.table(tables.wide_metric_table(v, families, time_unit=u))
+        with st.expander(f"{title}: apparent values and optimism"):
+            state.table(tables.metric_table(v, families, time_unit=u), max_rows=20)
 
     st.subheader(f"Against the baseline: {tables.label(spec.models.baseline)}")
     try:
@@ -112,7 +115,7 @@ def _show(result, job) -> None:
         comps = []
     for comp in comps:
         st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}**")
-        st.dataframe(tables.difference_table(comp, time_unit=u), hide_index=True, width="stretch")
+        state.table(tables.difference_table(comp, time_unit=u))
         lr = comp.lr_test
         if lr.nested and np.isfinite(lr.statistic):
             st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
@@ -120,7 +123,7 @@ def _show(result, job) -> None:
         elif lr.note:
             st.caption(f"Likelihood-ratio test: {lr.note}")
         with st.expander("Reclassification (NRI, IDI)"):
-            st.dataframe(tables.reclassification_table(comp, time_unit=u), hide_index=True, width="stretch")
+            state.table(tables.reclassification_table(comp, time_unit=u))
             if comp.reclassification:
                 st.caption(comp.reclassification[0].nri_caution)
                 st.caption(comp.reclassification[0].idi_caution)
@@ -137,11 +140,11 @@ def _show(result, job) -> None:
     if result.external is not None:
         st.subheader("External validation")
         st.caption("The models fitted on all training patients, applied unchanged to the external cohort.")
-        st.dataframe(tables.metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
-                                         + tables.OVERALL, time_unit=u), hide_index=True, width="stretch")
+        state.table(tables.metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
+                                         + tables.OVERALL, time_unit=u))
         for comp in (getattr(result, "external_comparisons", None) or {}).values():
             st.markdown(f"**External: {tables.label(comp.model)} minus {tables.label(comp.baseline)}**")
-            st.dataframe(tables.difference_table(comp, time_unit=u), hide_index=True, width="stretch")
+            state.table(tables.difference_table(comp, time_unit=u))
 
 
 def render() -> None:

@@ -1,0 +1,221 @@
+"""End to end in headless Chromium: the app served by ``streamlit run`` on a free localhost port.
+
+Goes through Data -> Design -> Results -> Signature -> Nomogram -> Patient -> Export on the demo
+cohort, asserts on what the page shows, and saves a screenshot of every view to docs/screenshots/.
+The browser is Debian's chromium (tests/app/install_browser.sh installs it and the driver).
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.request
+from pathlib import Path
+
+import pytest
+from conftest import REPO
+
+from workbench.app import launch
+
+pytestmark = pytest.mark.slow
+
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = [
+    "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+    "--disable-background-networking", "--disable-component-update", "--disable-sync",
+]
+SHOTS = REPO / "docs" / "screenshots"
+REPLICATES = "2"
+RUN_TIMEOUT_MS = 600_000
+
+
+@pytest.fixture(scope="module")
+def app_url():
+    port = launch.free_port(8611)
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    log = tempfile.TemporaryFile()
+    proc = subprocess.Popen(launch.command(port, sys.executable), cwd=REPO, env=env, stdout=log, stderr=log)
+    url = f"http://127.0.0.1:{port}"
+    try:
+        deadline = time.monotonic() + 90
+        while True:
+            try:
+                with urllib.request.urlopen(f"{url}/_stcore/health", timeout=2) as r:
+                    if r.read().strip() == b"ok":
+                        break
+            except OSError:
+                pass
+            if proc.poll() is not None or time.monotonic() > deadline:
+                log.seek(0)
+                raise RuntimeError(f"the app did not start: {log.read().decode(errors='replace')[-2000:]}")
+            time.sleep(0.5)
+        yield url
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(20)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(10)
+        log.close()
+
+
+@pytest.fixture(scope="module")
+def page(app_url):
+    from playwright.sync_api import sync_playwright
+
+    assert Path(CHROMIUM).exists(), "run tests/app/install_browser.sh first"
+    with tempfile.TemporaryDirectory(prefix="workbench-chromium-") as profile, sync_playwright() as pw:
+        ctx = pw.chromium.launch_persistent_context(
+            profile, executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS,
+            viewport={"width": 1440, "height": 1000}, accept_downloads=True,
+        )
+        pg = ctx.new_page()
+        pg.set_default_timeout(60_000)
+        pg.goto(app_url)
+        yield pg
+        ctx.close()
+
+
+def _main(page):
+    return page.locator("section.stMain, [data-testid='stMain']").first
+
+
+def _goto(page, title: str):
+    page.locator("[data-testid='stSidebarNav'] a").filter(has_text=title).first.click()
+    page.get_by_role("heading", name=title, exact=True).first.wait_for()
+    _settle(page)
+
+
+def _settle(page, quiet_ms: int = 800):
+    """Wait until the script run has finished (the running indicator is gone)."""
+    page.wait_for_timeout(300)
+    page.locator("[data-testid='stStatusWidget']").wait_for(state="hidden", timeout=RUN_TIMEOUT_MS)
+    page.wait_for_timeout(quiet_ms)
+
+
+CONTENT_HEIGHT = """() => {
+  const c = document.querySelector('[data-testid="stMainBlockContainer"]')
+         || document.querySelector('[data-testid="stMain"]') || document.body;
+  return c.scrollHeight;
+}"""
+
+
+def _shot(page, name: str):
+    """Screenshot of the whole view: the app scrolls inside its main pane, so grow the window to fit it."""
+    SHOTS.mkdir(parents=True, exist_ok=True)
+    height = int(page.evaluate(CONTENT_HEIGHT))
+    page.set_viewport_size({"width": 1440, "height": max(1000, min(height + 160, 8000))})
+    page.wait_for_timeout(800)
+    page.screenshot(path=str(SHOTS / f"{name}.png"))
+    page.set_viewport_size({"width": 1440, "height": 1000})
+
+
+def _no_traceback(page):
+    text = _main(page).inner_text()
+    assert "Traceback" not in text and "Error details" not in text, text[:2000]
+
+
+def test_data_view(page):
+    page.get_by_text("Cohort summary").wait_for()
+    _settle(page)
+    main = _main(page)
+    assert "Read 500 patients with 240 imaging features" in main.inner_text()
+    metric = page.locator("[data-testid='stMetric']").filter(has_text="Events").first
+    assert "311" in metric.inner_text()  # from summarise_cohort on the demo (see test_app_data.py)
+    assert "Research use only" in main.inner_text()
+    _no_traceback(page)
+    _shot(page, "1_data")
+
+
+def test_wrong_column_mapping_is_explained(page):
+    box = page.get_by_label("Follow-up time", exact=False).first
+    box.click()
+    page.get_by_role("option", name="sex", exact=True).click()
+    _settle(page)
+    err = page.locator("[data-testid='stAlertContentError']").first
+    err.wait_for()
+    assert "'sex'" in err.inner_text()
+    _no_traceback(page)
+    _shot(page, "1b_data_wrong_mapping")
+    box = page.get_by_label("Follow-up time", exact=False).first
+    box.click()
+    page.get_by_role("option", name="os_months", exact=True).click()
+    page.get_by_text("Cohort summary").wait_for()
+    _settle(page)
+
+
+def test_design_view(page):
+    _goto(page, "Design")
+    page.get_by_text("The study is complete").wait_for()
+    text = _main(page).inner_text()
+    assert "Clinical predictors" in text and "Imaging signature" in text
+    assert "240 of 240 imaging features in the pool" in text
+    _no_traceback(page)
+    _shot(page, "2_design")
+
+
+def test_results_view_runs_with_progress(page):
+    _goto(page, "Results")
+    reps = page.get_by_role("spinbutton", name="Bootstrap replicates for this run")
+    reps.fill(REPLICATES)
+    reps.press("Enter")
+    _settle(page)
+    assert "Quick mode" in _main(page).inner_text()
+    page.get_by_role("button", name="Run the study").click()
+    page.get_by_role("button", name="Cancel the run").wait_for()
+    page.get_by_role("progressbar").first.wait_for()
+    page.get_by_text("Finished in").wait_for(timeout=RUN_TIMEOUT_MS)
+    _settle(page, 1500)
+    text = _main(page).inner_text()
+    assert "Discrimination" in text and "Against the baseline" in text
+    assert "minus Clinical Cox" in text
+    _no_traceback(page)
+    _shot(page, "3_results")
+
+
+def test_signature_view(page):
+    _goto(page, "Signature")
+    page.get_by_text("Reduction steps").wait_for()
+    assert "Stability across resamples" in _main(page).inner_text()
+    _no_traceback(page)
+    _shot(page, "4_signature")
+
+
+def test_nomogram_view(page):
+    _goto(page, "Nomogram")
+    page.get_by_role("button", name="Download PNG").wait_for()
+    assert page.locator("[data-testid='stImage'] img").count() >= 1
+    _no_traceback(page)
+    _shot(page, "5_nomogram")
+
+
+def test_patient_view(page):
+    _goto(page, "Patient")
+    page.get_by_role("button", name="Estimate").click()
+    page.get_by_text("Survival at 12 months").first.wait_for()
+    _settle(page, 1500)
+    text = _main(page).inner_text()
+    assert "95% CI" in text and "Research use only" in text
+    _no_traceback(page)
+    _shot(page, "6_patient")
+    age = page.get_by_role("textbox", name="Age (years)")
+    age.fill("120")
+    page.get_by_role("button", name="Estimate").click()
+    page.get_by_text("above the training range").first.wait_for()
+    _settle(page)
+    _shot(page, "6b_patient_out_of_range")
+
+
+def test_export_view(page):
+    _goto(page, "Export")
+    page.get_by_role("button", name="Download results.json").wait_for()
+    with page.expect_download() as dl:
+        page.get_by_role("button", name="Download results.json").click()
+    path = dl.value.path()
+    assert Path(path).read_text().lstrip().startswith("{")
+    _no_traceback(page)
+    _shot(page, "7_export")
