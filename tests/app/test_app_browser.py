@@ -108,7 +108,7 @@ def _shot(page, name: str):
     """Screenshot of the whole view: the app scrolls inside its main pane, so grow the window to fit it."""
     SHOTS.mkdir(parents=True, exist_ok=True)
     height = int(page.evaluate(CONTENT_HEIGHT))
-    page.set_viewport_size({"width": 1440, "height": max(1000, min(height + 160, 8000))})
+    page.set_viewport_size({"width": 1440, "height": max(1000, min(height + 400, 9000))})
     page.wait_for_timeout(800)
     page.screenshot(path=str(SHOTS / f"{name}.png"))
     page.set_viewport_size({"width": 1440, "height": 1000})
@@ -187,7 +187,8 @@ def test_signature_view(page):
 
 def test_nomogram_view(page):
     _goto(page, "Nomogram")
-    page.get_by_role("button", name="Download PNG").wait_for()
+    page.get_by_role("button", name="Download PDF").wait_for()
+    page.get_by_role("button", name="Download the points tables (CSV files, zip)").wait_for()
     assert page.locator("[data-testid='stImage'] img").count() >= 1
     _no_traceback(page)
     _shot(page, "5_nomogram")

@@ -65,7 +65,9 @@ def test_baseline_not_fitted_is_explained(new_app):
 def test_load_study_file_applies_its_settings(new_app):
     at = _design(new_app)
     spec = read_study(DEMO / "study.toml")
-    text = dumps_study(spec, base=DEMO).replace("replicates = 200", "replicates = 77")
+    from dataclasses import replace
+
+    text = dumps_study(replace(spec, validation=replace(spec.validation, replicates=77)), base=DEMO)
     at.file_uploader(key="design_load").set_value(("other.toml", text.encode(), "application/toml")).run()
     assert_clean(at)
     loaded = at.session_state[state.K_STUDY]

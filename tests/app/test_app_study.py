@@ -80,7 +80,8 @@ def test_results_page_runs_and_shows_harrell_c_of_the_command_line(ran, cli_resu
         assert _cell(disc, label, "Harrell C", "Validated") == f"{perf['estimate']:.3f}"
         assert _cell(disc, label, "Harrell C", "Apparent") == f"{perf['apparent']:.3f}"
         shown = wide.loc[wide["Measure"] == "Harrell C", label].iloc[0]
-        assert shown == f"{perf['estimate']:.3f} ({perf['ci_lower']:.3f} to {perf['ci_upper']:.3f})"
+        # With fewer than MIN_CI_REPLICATES replicates the page shows the estimate without an interval.
+        assert shown == f"{perf['estimate']:.3f}"
 
 
 def test_results_page_shows_the_comparison(ran, cli_results):

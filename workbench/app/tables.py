@@ -55,6 +55,12 @@ def interval(lo, hi, digits: int = 3) -> str:
     return "-" if a == "-" or b == "-" else f"{a} to {b}"
 
 
+def _ci(e) -> str:
+    if int(getattr(e, "n_used", MIN_CI_REPLICATES)) < MIN_CI_REPLICATES:
+        return "-"
+    return interval(e.ci_lower, e.ci_upper)
+
+
 def _ordered(names, families) -> list[str]:
     out = []
     for fam in families:
@@ -73,7 +79,7 @@ def metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
                 "Model": label(m),
                 "Measure": metric_label(name, time_unit),
                 "Validated": num(e.estimate),
-                f"{round(100 * validation.conf_level)}% CI": interval(e.ci_lower, e.ci_upper),
+                f"{round(100 * validation.conf_level)}% CI": _ci(e),
                 "Apparent": num(e.apparent),
                 "Optimism": num(e.optimism),
                 "Replicates": int(e.n_used),
@@ -81,16 +87,22 @@ def metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def difference_table(comparison, *, time_unit: str = "") -> pd.DataFrame:
-    """Model minus baseline for the headline measures, with intervals and which direction is better."""
+HEADLINE = ("harrell_c", "uno_c", "auc", "ibs", "ipa_integrated")
+MIN_CI_REPLICATES = 10
+"""Fewer replicates than this give no meaningful percentile interval; the tables then show none."""
+
+
+def difference_table(comparison, *, time_unit: str = "", headline: bool = False) -> pd.DataFrame:
+    """Model minus baseline with intervals and which direction is better (headline measures, or all)."""
     rows = []
-    names = _ordered(list(comparison.differences), DISCRIMINATION + OVERALL + ("ici",))
+    fams = HEADLINE if headline else DISCRIMINATION + OVERALL + CALIBRATION
+    names = _ordered(list(comparison.differences), fams)
     for name in names:
         d = comparison.differences[name]
         rows.append({
             "Measure": metric_label(name, time_unit),
             "Difference (validated)": num(d.estimate),
-            f"{round(100 * comparison.conf_level)}% CI": interval(d.ci_lower, d.ci_upper),
+            f"{round(100 * comparison.conf_level)}% CI": _ci(d),
             "Apparent difference": num(d.apparent),
             "Better when": d.better,
             "Paired replicates": int(d.n_used),
@@ -109,7 +121,7 @@ def reclassification_table(comparison, *, time_unit: str = "") -> pd.DataFrame:
                 "Horizon": f"{r.horizon:g} {time_unit}".strip(),
                 "Measure": text,
                 "Validated": num(e.estimate),
-                "CI": interval(e.ci_lower, e.ci_upper),
+                "CI": _ci(e),
                 "Apparent": num(e.apparent),
             })
     return pd.DataFrame(rows)
@@ -117,8 +129,8 @@ def reclassification_table(comparison, *, time_unit: str = "") -> pd.DataFrame:
 
 def selection_table(selection, top: int = 30) -> pd.DataFrame:
     df = selection.to_frame().head(top)
-    return df.rename(columns={"feature": "Feature", "frequency": "Share of refits keeping it",
-                              "in_apparent_fit": "In the fit on all patients"})
+    return df.rename(columns={"feature": "Feature", "frequency": "Share kept",
+                              "in_apparent_fit": "In final fit"})
 
 
 def steps_table(steps) -> pd.DataFrame:
@@ -145,7 +157,7 @@ def wide_metric_table(validation, families, *, time_unit: str = "") -> pd.DataFr
             if e is None:
                 row[label(m)] = "-"
                 continue
-            ci = interval(e.ci_lower, e.ci_upper)
+            ci = _ci(e)
             row[label(m)] = num(e.estimate) + ("" if ci == "-" else f" ({ci})")
         rows.append(row)
     return pd.DataFrame(rows)

@@ -167,8 +167,8 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
     a, b = st.columns(2)
     with a:
         inc = st.text_area("Imaging pool: name patterns to include (one per line)", "\n".join(tpl.include),
-                           key=_key("include"), help="Shell-style patterns such as cm_* (all co-occurrence features).")
-        exc = st.text_area("Patterns to exclude", "\n".join(tpl.exclude), key=_key("exclude"))
+                           key=_key("include"), height=190, help="Shell-style patterns such as cm_* (all co-occurrence features).")
+        exc = st.text_area("Patterns to exclude", "\n".join(tpl.exclude), key=_key("exclude"), height=90)
         include, exclude = _lines(inc) or ("*",), _lines(exc)
         try:
             pooled, _ = select_pool(cohort, include, exclude)
@@ -206,7 +206,7 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
         c1, c2, c3 = st.columns(3)
         l1 = c1.number_input("L1 ratio (1 = LASSO)", 0.05, 1.0, float(p.l1_ratio), 0.05, key=_key("l1"))
         rule = c2.selectbox("Penalty choice", ["1se", "min"], index=["1se", "min"].index(p.rule),
-                            format_func={"1se": "within 1 SE of best", "min": "best"}.get, key=_key("rule"))
+                            format_func={"1se": "1-SE rule", "min": "best"}.get, key=_key("rule"))
         folds = c3.number_input("Inner folds", 3, 20, int(p.folds), key=_key("pfolds"))
     return replace(
         tpl, include=include, exclude=exclude, volume_feature=None if vol == "(none)" else vol,
@@ -218,10 +218,10 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
 
 def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tuple[ModelsSpec, ValidationSpec]:
     st.subheader("Models and validation")
+    fit = st.multiselect("Models to fit", list(MODEL_NAMES), default=list(tpl_m.fit),
+                         format_func=MODEL_LABELS.get, key=_key("models"))
     a, b = st.columns(2)
     with a:
-        fit = st.multiselect("Models to fit", list(MODEL_NAMES), default=list(tpl_m.fit),
-                             format_func=MODEL_LABELS.get, key=_key("models"))
         base_opts = fit or ["clinical"]
         baseline = st.selectbox("Baseline every model is compared with", base_opts,
                                 index=base_opts.index(tpl_m.baseline) if tpl_m.baseline in base_opts else 0,
@@ -291,15 +291,15 @@ def render() -> None:
         _predictor_table(cohort, tpl, data), key=_key("predictors"), hide_index=True, width="stretch",
         disabled=["column"],
         column_config={
-            "use": st.column_config.CheckboxColumn("Use", width="small"),
+            "use": st.column_config.CheckboxColumn("Use", width=50),
             "column": st.column_config.TextColumn("Column"),
-            "kind": st.column_config.SelectboxColumn("Kind", options=list(KINDS), required=True),
-            "transform": st.column_config.SelectboxColumn("Transform", options=list(TRANSFORMS)),
+            "kind": st.column_config.SelectboxColumn("Kind", options=list(KINDS), required=True, width=100),
+            "transform": st.column_config.SelectboxColumn("Transform", options=list(TRANSFORMS), width=80),
             "missing": st.column_config.SelectboxColumn("Missing values", options=list(MISSING), required=True),
             "reference": st.column_config.TextColumn("Reference level"),
             "levels": st.column_config.TextColumn("Levels (in order)"),
             "detection_limit": st.column_config.TextColumn("Detection limit"),
-            "knots": st.column_config.NumberColumn("Spline knots", min_value=3, max_value=7, step=1),
+            "knots": st.column_config.NumberColumn("Knots", min_value=3, max_value=7, step=1, width=60),
             "label": st.column_config.TextColumn("Label"),
             "unit": st.column_config.TextColumn("Unit"),
         },

@@ -9,6 +9,14 @@ from workbench.app import nomo, state, tables
 FORMATS = (("png", "PNG", "image/png"), ("svg", "SVG", "image/svg+xml"), ("pdf", "PDF", "application/pdf"))
 
 
+@st.cache_data(show_spinner="Drawing the nomogram...", max_entries=8)
+def _files(run_key: tuple, models: tuple, horizons: tuple, layout: str, _scales) -> dict:
+    """The drawing as PNG, SVG and PDF bytes (cached on the run, models, horizons and layout)."""
+    draw = state.load_module("workbench.figures.nomogram")
+    fig = draw.plot_nomogram(_scales, titles=[tables.label(m) for m in models], layout=layout)
+    return {fmt: nomo.save_figure(fig, fmt) for fmt, _, _ in FORMATS}
+
+
 def render() -> None:
     st.title("Nomogram")
     st.write("Read each predictor's points off its axis, add them up on the total-points axis, and read the "
@@ -42,22 +50,21 @@ def render() -> None:
     except Exception as exc:  # noqa: BLE001
         state.show_error("Building the nomogram", exc)
         return
-    draw = state.load_module("workbench.figures.nomogram")
-    if draw is None or not hasattr(draw, "plot_nomogram"):
+    if not state.module_available("workbench.figures.nomogram"):
         state.not_available("The nomogram drawing")
-        fig = None
+        files = None
     else:
         try:
-            fig = draw.plot_nomogram(scales, titles=[tables.label(m) for m in chosen], layout=layout)
+            files = _files(key, tuple(chosen), hz, layout, scales)
         except Exception as exc:  # noqa: BLE001
             state.show_error("Drawing the nomogram", exc)
-            fig = None
-    if fig is not None:
-        st.image(nomo.save_figure(fig, "png"), width="stretch")
+            files = None
+    if files is not None:
+        st.image(files["png"], width="stretch")
         cols = st.columns(len(FORMATS) + 1)
         for col, (fmt, text, mime) in zip(cols, FORMATS, strict=False):
-            col.download_button(f"Download {text}", nomo.save_figure(fig, fmt), file_name=f"nomogram.{fmt}",
-                                mime=mime, key=f"nomo_dl_{fmt}")
+            col.download_button(f"Download {text}", files[fmt], file_name=f"nomogram.{fmt}", mime=mime,
+                                key=f"nomo_dl_{fmt}")
     points = state.load_module("workbench.figures.nomogram_points")
     try:
         tabs = {m: points.points_table(s) for m, s in zip(chosen, scales, strict=True)}

@@ -7,7 +7,7 @@ import os
 import numpy as np
 import streamlit as st
 
-from workbench.app import charts, state, tables
+from workbench.app import charts, nomo, state, tables
 from workbench.validation.compare import LR_CAUTION
 
 POLL_SECONDS = 0.5
@@ -65,13 +65,105 @@ def _watch(job) -> None:
 
 def _decision_figure(dc, model: str, baseline: str):
     x = np.asarray(dc.thresholds, float)
-    return charts.line_figure(
+    fig = charts.line_figure(
         x,
         {tables.label(model): dc.model_validated, tables.label(baseline): dc.baseline_validated,
          "Treat all": dc.treat_all, "Treat none": dc.treat_none},
         xlabel="Threshold probability of death by the horizon", ylabel="Net benefit (validated)",
         hline=0.0,
     )
+    # Treat-all falls far below zero at high thresholds; keep the range where decisions differ.
+    top = float(np.nanmax([np.nanmax(dc.model_validated), np.nanmax(dc.baseline_validated), np.nanmax(dc.treat_all)]))
+    ax = fig.axes[0]
+    ax.set_ylim(-0.15 * top, 1.1 * top)
+    useful = x[(np.asarray(dc.model_validated) > 0) | (np.asarray(dc.baseline_validated) > 0)]
+    ax.set_xlim(0, float(min(1.0, (useful.max() if useful.size else 1.0) + 0.05)))
+    return fig
+
+
+@st.cache_resource(show_spinner="Drawing the figures of the run...", max_entries=2)
+def _run_figures(run_key: tuple, _result) -> dict:
+    """Every standard figure of the run from the report layer (empty when it has none yet)."""
+    mod = state.load_module("workbench.report.figureset")
+    if mod is None or not hasattr(mod, "study_figures"):
+        return {}
+    return mod.study_figures(_result)
+
+
+FIGURE_TITLES = {
+    "km_risk_groups": "Kaplan-Meier curves by risk group",
+    "td_auc": "Time-dependent AUC",
+    "calibration": "Calibration at each horizon",
+    "decision_curve": "Decision curves",
+    "selection_frequency": "Signature: selection frequency",
+    "coefficient_path": "Signature: coefficient path",
+}
+
+
+def _figure_title(name: str) -> str:
+    if name in FIGURE_TITLES:
+        return FIGURE_TITLES[name]
+    for prefix, text in (("hazard_ratios_", "Hazard ratios"), ("ph_", "Proportional hazards")):
+        if name.startswith(prefix):
+            return f"{text}: {tables.label(name[len(prefix):])}"
+    return name.replace("_", " ").capitalize()
+
+
+def _figures(result, key) -> None:
+    st.subheader("Figures")
+    try:
+        figs = _run_figures(key, result)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Drawing the figures", exc)
+        return
+    figs = {k: v for k, v in figs.items() if k != "nomogram"}  # the Nomogram page has it
+    if not figs:
+        state.not_available("The figures of a run")
+        return
+    names = list(figs)
+    pick = st.selectbox("Figure", names, format_func=_figure_title, key="results_figure")
+    fig = figs[pick]
+    left, right = st.columns([3, 1])
+    left.image(nomo.save_figure(fig, "png"))
+    with right:
+        for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
+            st.download_button(f"Download {fmt.upper()}", nomo.save_figure(fig, fmt), file_name=f"{pick}.{fmt}",
+                               mime=mime, key=f"results_fig_{fmt}")
+        if result.external_prepared is not None:
+            st.caption("Curves, calibration and decision curves are drawn on the external cohort.")
+        else:
+            st.caption("Curves, calibration and decision curves are drawn on the development cohort (apparent).")
+
+
+def _comparison(comp, u: str) -> None:
+    st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
+                f"{comp.n_paired} paired replicates)")
+    state.table(tables.difference_table(comp, time_unit=u, headline=True))
+    with st.expander("Every measure"):
+        state.table(tables.difference_table(comp, time_unit=u), max_rows=20)
+    lr = comp.lr_test
+    if lr.nested and np.isfinite(lr.statistic):
+        st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
+        st.caption(LR_CAUTION)
+    elif lr.note:
+        st.caption(f"Likelihood-ratio test: {lr.note}")
+    with st.expander("Reclassification (NRI, IDI)"):
+        state.table(tables.reclassification_table(comp, time_unit=u), max_rows=20)
+        if comp.reclassification:
+            st.caption(comp.reclassification[0].nri_caution)
+            st.caption(comp.reclassification[0].idi_caution)
+    if comp.decision:
+        hz = [f"{d.horizon:g}" for d in comp.decision]
+        left, right = st.columns([3, 2])
+        pick = right.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
+                               format_func=lambda h: f"{h} {u}")
+        dc = comp.decision[hz.index(pick)]
+        left.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline)),
+                   caption=f"Decision curves at {pick} {u}, corrected like the other measures")
+        right.caption("Net benefit of acting on the model's predicted risk at each threshold, against "
+                      "treating everyone or no one.")
+    for note in comp.notes:
+        st.caption(note)
 
 
 def _show(result, job) -> None:
@@ -93,6 +185,10 @@ def _show(result, job) -> None:
                 st.write(f"**{cat}**: {state.friendly(msg)}")
 
     pct = round(100 * v.conf_level)
+    fewest = min(reps.values()) if reps else 0
+    if fewest < tables.MIN_CI_REPLICATES:
+        st.info(f"Intervals are left out: they need at least {tables.MIN_CI_REPLICATES} replicates, and this run "
+                f"has {fewest}. Increase the replicates above for intervals.")
     for title, families, note in (
         ("Discrimination", tables.DISCRIMINATION, "Higher is better; 0.5 is chance."),
         ("Calibration", tables.CALIBRATION, "Slope 1 and observed/expected 1 are ideal; ICI, E50 and E90 are "
@@ -113,38 +209,22 @@ def _show(result, job) -> None:
     except Exception as exc:  # noqa: BLE001
         state.show_error("Comparing the models", exc)
         comps = []
-    for comp in comps:
-        st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}**")
-        state.table(tables.difference_table(comp, time_unit=u))
-        lr = comp.lr_test
-        if lr.nested and np.isfinite(lr.statistic):
-            st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
-            st.caption(LR_CAUTION)
-        elif lr.note:
-            st.caption(f"Likelihood-ratio test: {lr.note}")
-        with st.expander("Reclassification (NRI, IDI)"):
-            state.table(tables.reclassification_table(comp, time_unit=u))
-            if comp.reclassification:
-                st.caption(comp.reclassification[0].nri_caution)
-                st.caption(comp.reclassification[0].idi_caution)
-        if comp.decision:
-            hz = [f"{d.horizon:g}" for d in comp.decision]
-            pick = st.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
-                                format_func=lambda h: f"{h} {u}")
-            dc = comp.decision[hz.index(pick)]
-            st.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline)),
-                     caption=f"Decision curves at {pick} {u}")
-        for note in comp.notes:
-            st.caption(note)
+    if comps:
+        tabs = st.tabs([f"{tables.label(c.model)} minus {tables.label(c.baseline)}" for c in comps])
+    for tab, comp in zip(tabs if comps else [], comps, strict=False):
+        with tab:
+            _comparison(comp, u)
+    _figures(result, job.key)
 
     if result.external is not None:
         st.subheader("External validation")
-        st.caption("The models fitted on all training patients, applied unchanged to the external cohort.")
-        state.table(tables.metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
-                                         + tables.OVERALL, time_unit=u))
+        st.caption("The models fitted on all training patients, applied unchanged to the external cohort "
+                   f"({result.external.n} patients, {result.external.n_events} events).")
+        state.table(tables.wide_metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
+                                             + tables.OVERALL, time_unit=u))
         for comp in (getattr(result, "external_comparisons", None) or {}).values():
-            st.markdown(f"**External: {tables.label(comp.model)} minus {tables.label(comp.baseline)}**")
-            state.table(tables.difference_table(comp, time_unit=u))
+            with st.expander(f"External: {tables.label(comp.model)} minus {tables.label(comp.baseline)}"):
+                state.table(tables.difference_table(comp, time_unit=u, headline=True))
 
 
 def render() -> None:

@@ -8,6 +8,8 @@ import streamlit as st
 
 from workbench.app import charts, state, tables
 
+RULES = {"1se": "one-standard-error rule", "min": "smallest deviance"}
+
 
 def _figure(name: str, *args, **kwargs):
     """A figure from the figures layer when it offers ``name``, else None."""
@@ -39,7 +41,7 @@ def _path(sig) -> None:
         fig.axes[0].invert_xaxis()
     st.image(charts.figure_bytes(fig))
     st.caption(
-        f"Penalty chosen by {path.rule} rule of {len(path.cv_folds)}-fold cross-validation split by patient: "
+        f"Penalty chosen by the {RULES.get(path.rule, path.rule)} of {len(path.cv_folds)}-fold cross-validation split by patient: "
         f"{int(path.n_nonzero[path.index])} features with non-zero coefficients."
     )
 
@@ -59,15 +61,15 @@ def render() -> None:
         st.info("This study fits no clinical + imaging signature model; add 'combined' on the Design page.")
         return
     sig = model.signature_
-    a, b = st.columns([2, 3])
+    a, b = st.columns([1, 1])
     with a:
         st.markdown("**Reduction steps** (fitted on all patients)")
-        st.dataframe(tables.steps_table(sig.steps_), hide_index=True, width="stretch")
+        state.table(tables.steps_table(sig.steps_))
         coef = getattr(sig, "coef_", None)
         if coef is not None and len(coef):
             st.markdown("**Selected features** (coefficient per training SD)")
             df = pd.DataFrame({"Feature": list(coef.index), "Coefficient": [f"{c:+.3f}" for c in coef.to_numpy()]})
-            st.dataframe(df, hide_index=True, width="stretch")
+            state.table(df)
         vol = result.volume.get("combined") if isinstance(getattr(result, "volume", None), dict) else None
         if vol is not None and hasattr(vol, "correlation"):
             st.caption(f"Correlation of the signature with tumour volume: {float(vol.correlation):.2f}.")
@@ -81,7 +83,7 @@ def render() -> None:
     top = tables.selection_table(sel, top=25)
     fig = _figure("plot_selection_frequency", sel.frequency, n_replicates=sel.n_fits)
     if fig is None:
-        fig = charts.bar_figure(top["Feature"], top["Share of refits keeping it"],
+        fig = charts.bar_figure(top["Feature"], top["Share kept"],
                                 xlabel=f"Share of {sel.n_fits} refits that kept the feature")
     left, right = st.columns([3, 2])
     left.image(charts.figure_bytes(fig))
@@ -89,7 +91,7 @@ def render() -> None:
         n_sel = np.asarray(sel.n_selected)
         st.write(f"{sel.n_fits} refits kept between {int(n_sel.min())} and {int(n_sel.max())} features "
                  f"(median {float(np.median(n_sel)):.0f}).")
-        st.dataframe(top, hide_index=True, width="stretch")
+        state.table(top, max_rows=25)
 
 
 if __name__ == "__main__":
