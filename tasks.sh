@@ -30,7 +30,12 @@ case "$cmd" in
     ;;
   test)
     setup
+    tests/app/install_browser.sh "$VENV"
     "$VENV/bin/python" -m pytest -q "$@"
+    ;;
+  app)
+    setup
+    "$VENV/bin/python" -m workbench.app.launch "$@"
     ;;
   *)
     echo "usage: ./tasks.sh demo | test" >&2
