@@ -102,12 +102,101 @@ def _cmd_run(args) -> int:
     result = run_study(spec, progress=None if args.quiet else progress, replicates=args.replicates, workers=args.workers)
     out = Path(args.out)
     path = write_results(result, out)
+    extras = []
+    if not args.no_figures:
+        from workbench.report.figureset import write_figures
+
+        write_figures(result, out / "figures")
+        extras.append("figures/")
+    from workbench.report.bundle import save_bundle, summarise_training
+
+    training = summarise_training(result.cohort, result.models, spec.horizons)
+    save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
+    extras.append("bundle/")
+    extras += _write_report(result, out, args)
     print()
     print(format_summary(result.summary))
     print()
     print(format_results(result))
-    print(f"\nResults written to {path.parent}/ (results.json, CSV tables, run.log)")
+    print(f"\nResults written to {path.parent}/ (results.json, CSV tables, run.log, {', '.join(extras)})")
     return 0
+
+
+def _write_report(result, out: Path, args) -> list[str]:
+    if args.no_report:
+        return []
+    try:
+        from workbench.report.html import write_report
+    except ImportError:  # the report module is optional while it is being built
+        return []
+    files = write_report(result, out, pdf=not args.no_pdf)
+    return [Path(f).name for f in (files.html, files.pdf) if f]
+
+
+def _cmd_apply(args) -> int:
+    from workbench.external import apply_bundle, write_external
+    from workbench.report.bundle import load_bundle
+    from workbench.report.results import fmt_estimate
+
+    bundle = load_bundle(args.bundle)
+    res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
+    path = write_external(res, args.out)
+    c = res.prepared.cohort
+    print(f"Applied {', '.join(bundle.models)} to {c.n} patients ({c.n_events} events).")
+    if res.prepared.incomplete_ids:
+        print(f"{len(res.prepared.incomplete_ids)} patient(s) left out for a missing complete-case predictor.")
+    print(f"\n{'model':<16s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}")
+    for name, est in res.validation.estimates.items():
+        print(f"{name:<16s}{fmt_estimate(est.get('harrell_c')):>24s}{fmt_estimate(est.get('uno_c')):>24s}{fmt_estimate(est.get('ibs')):>24s}")
+    if not res.recalibration.empty:
+        print("\nCalibration (ICI) after recalibration on this cohort (apparent):")
+        print(res.recalibration.pivot_table(index=["model", "recalibration"], columns="horizon", values="ici").round(3).to_string())
+    for cat, msg in res.warnings:
+        print(f"warning ({cat}): {msg}", file=sys.stderr)
+    from workbench.cohort.summary import CAUTION
+
+    print(f"\nPredictions and tables written to {path.parent}/\nCaution: {CAUTION}")
+    return 0
+
+
+def _parse_values(items) -> dict:
+    out = {}
+    for item in items or ():
+        if "=" not in item:
+            raise WorkbenchError(f"--value takes FIELD=VALUE, such as age=67 or stage=III; got {item!r}.")
+        k, v = item.split("=", 1)
+        out[k.strip()] = v.strip()
+    return out
+
+
+def _cmd_estimate(args) -> int:
+    from workbench.estimate import (
+        estimate_patient,
+        format_estimate,
+        ranges_from_bundle,
+        read_patient_file,
+    )
+    from workbench.report.bundle import load_bundle
+
+    bundle = load_bundle(args.bundle)
+    if args.model not in bundle.models:
+        raise WorkbenchError(f"the bundle has no model {args.model!r}; it has {', '.join(bundle.models)}.")
+    patient = read_patient_file(args.patient) if args.patient else {}
+    patient.update(_parse_values(args.value))
+    if not patient:
+        raise WorkbenchError("give the patient's values with --patient FILE or --value FIELD=VALUE (repeatable).")
+    d = bundle.spec.data
+    ignore = tuple(k for k in (d.id, d.time, d.event, d.centre) if k and k in patient)
+    est = estimate_patient(bundle.models[args.model], patient, bundle.spec.horizons,
+                           training_ranges=ranges_from_bundle(bundle, args.model), ignore=ignore)
+    print(format_estimate(est))
+    return 0
+
+
+def _cmd_app(args) -> int:
+    from workbench.app.launch import main as launch
+
+    return launch(args.app_args)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -131,7 +220,29 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--replicates", type=int, metavar="N", help="override the number of resampling replicates")
     p.add_argument("--workers", type=int, metavar="N", help="override the number of parallel workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--no-figures", action="store_true", help="skip the figures")
+    p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
+    p.add_argument("--no-pdf", action="store_true", help="write the HTML report only")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("apply", help="apply a saved model bundle to a new cohort and validate it there")
+    p.add_argument("bundle", metavar="BUNDLE", help="bundle folder or .zip written by 'workbench run'")
+    p.add_argument("--features", required=True, metavar="FILE", help="the new cohort's imaging features table")
+    p.add_argument("--clinical", required=True, metavar="FILE", help="the new cohort's clinical table")
+    p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
+    p.add_argument("--replicates", type=int, default=200, metavar="N", help="bootstrap resamples for the intervals")
+    p.set_defaults(func=_cmd_apply)
+
+    p = sub.add_parser("estimate", help="survival estimate for one patient from a saved model bundle")
+    p.add_argument("bundle", metavar="BUNDLE")
+    p.add_argument("--model", default="combined", help="which model of the bundle (default: combined)")
+    p.add_argument("--patient", metavar="FILE", help="one-row CSV or Excel file with the patient's values")
+    p.add_argument("--value", action="append", metavar="FIELD=VALUE", help="a value, e.g. --value age=67 (repeatable)")
+    p.set_defaults(func=_cmd_estimate)
+
+    p = sub.add_parser("app", help="start the browser front end on this computer")
+    p.add_argument("app_args", nargs=argparse.REMAINDER, help="--port N, --open")
+    p.set_defaults(func=_cmd_app)
     return parser
 
 

@@ -151,8 +151,10 @@ def plot_calibration_panels(
         handles = [
             Line2D([], [], color=NEUTRAL, lw=0.8, linestyle=(0, (3, 2)), label="Ideal"),
             *(Line2D([], [], color=series_style(i).color, linestyle=series_style(i).linestyle,
-                     marker=series_style(i).marker, mfc="white", ms=3.5, label=f"{n}: smoothed, grouped (95% CI)")
+                     marker=series_style(i).marker, mfc="white", ms=3.5, label=n)
               for i, n in enumerate(names)),
         ]
-        fig.legend(handles=handles, loc="outside lower center", ncols=len(handles))
+        fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 3),
+                   title="smoothed curve with 95% band; grouped Kaplan-Meier points with 95% CI",
+                   title_fontsize="small")
         return fig

@@ -109,6 +109,9 @@ def _parse_cell(cell: object) -> tuple[float, bool, bool, bool]:
     return f, match["below"] is not None, False, False
 
 
+_WHOLE_DECIMAL = re.compile(r"^[+-]?\d+\.0+$")
+
+
 def _canonical(cell: object) -> str:
     # Grades typed as 2, 2.0 and "2" in different files must be the same level.
     if isinstance(cell, (bool, np.bool_)):
@@ -118,7 +121,11 @@ def _canonical(cell: object) -> str:
     if isinstance(cell, (float, np.floating)):
         f = float(cell)
         return str(int(f)) if np.isfinite(f) and f.is_integer() else repr(f)
-    return str(cell).strip()
+    text = str(cell).strip()
+    # "2.0" typed as text (a spreadsheet export of a numeric column) is the level "2" too.
+    if _WHOLE_DECIMAL.match(text):
+        return text.split(".", 1)[0].lstrip("+")
+    return text
 
 
 def level_keys(values: ArrayLike) -> tuple[np.ndarray, np.ndarray]:

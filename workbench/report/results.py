@@ -211,7 +211,7 @@ def write_results(result, out_dir) -> Path:
     return path
 
 
-def _fmt(e, digits: int = 3) -> str:
+def fmt_estimate(e, digits: int = 3) -> str:
     if e is None or not np.isfinite(e.estimate):
         return "n/a"
     ci = ""
@@ -237,28 +237,28 @@ def format_results(result) -> str:
     for name in result.models:
         est = v.estimates[name]
         lines.append(
-            f"{MODEL_LABELS.get(name, name):<40s}{_fmt(est.get('harrell_c')):>24s}"
-            f"{_fmt(est.get('uno_c')):>24s}{_fmt(est.get('ibs')):>24s}"
+            f"{MODEL_LABELS.get(name, name):<40s}{fmt_estimate(est.get('harrell_c')):>24s}"
+            f"{fmt_estimate(est.get('uno_c')):>24s}{fmt_estimate(est.get('ibs')):>24s}"
         )
     lines.append("")
     lines.append(f"AUC and calibration (ICI) at {', '.join(horizons)} {u}:")
     for name in result.models:
         est = v.estimates[name]
-        aucs = "  ".join(_fmt(est.get(f"auc@{h}"), 2) for h in horizons)
-        icis = "  ".join(_fmt(est.get(f"ici@{h}"), 3).split(" ")[0] for h in horizons)
+        aucs = "  ".join(fmt_estimate(est.get(f"auc@{h}"), 2) for h in horizons)
+        icis = "  ".join(fmt_estimate(est.get(f"ici@{h}"), 3).split(" ")[0] for h in horizons)
         lines.append(f"  {name:<16s} AUC {aucs}   ICI {icis}")
     for name, comp in result.comparisons.items():
         d = comp.differences.get("harrell_c")
         lr = comp.lr_test
         lines.append("")
         lines.append(f"{MODEL_LABELS.get(name, name)} vs {MODEL_LABELS.get(comp.baseline, comp.baseline)}:")
-        lines.append(f"  difference in Harrell C {_fmt(d)}")
+        lines.append(f"  difference in Harrell C {fmt_estimate(d)}")
         if lr.nested and np.isfinite(lr.statistic):
             lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g}")
     if result.external is not None:
         lines.append("")
         lines.append(f"External cohort ({result.external_prepared.cohort.n} patients):")
         for name in result.models:
-            lines.append(f"  {name:<16s} Harrell C {_fmt(result.external.estimates[name].get('harrell_c'))}")
+            lines.append(f"  {name:<16s} Harrell C {fmt_estimate(result.external.estimates[name].get('harrell_c'))}")
     lines += ["", f"Caution: {CAUTION}"]
     return "\n".join(lines)

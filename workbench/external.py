@@ -1,0 +1,153 @@
+"""Apply a saved model bundle to a new cohort: predictions, validation, recalibration.
+
+The new cohort is read and checked exactly like the training cohort (same
+column mapping, same imaging pool, same complete-case rules, from the bundle's
+study). The fitted models are applied unchanged. Censoring weights and the
+Kaplan-Meier null model of the Brier score come from the new cohort itself
+(the bundle carries no patient-level training data); this is the usual choice
+when a model is validated at another hospital.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from workbench.cohort.io import read_cohort
+from workbench.errors import WorkbenchError
+from workbench.metrics.calibration import calibration_at
+from workbench.prepare import PreparedCohort, drop_incomplete, select_pool
+from workbench.report.bundle import Bundle
+from workbench.validation.compare import compare_models
+from workbench.validation.recalibrate import recalibrate
+from workbench.validation.resample import ValidationResult, validate_external
+
+COX_KINDS = ("clinical", "combined", "penalised_all")
+
+
+@dataclass(frozen=True)
+class ExternalResult:
+    """A bundle applied to a new cohort."""
+
+    prepared: PreparedCohort
+    predictions: pd.DataFrame
+    validation: ValidationResult
+    comparisons: dict
+    recalibration: pd.DataFrame
+    warnings: tuple
+
+
+def read_new_cohort(bundle: Bundle, features, clinical) -> PreparedCohort:
+    """Read a new cohort with the bundle's column mapping, imaging pool and missing-value rules."""
+    spec = bundle.spec
+    d = spec.data
+    cohort = read_cohort(features, clinical, d.column_map(), on_unmatched=d.on_unmatched,
+                         drop_unusable_features=False)
+    n_read = cohort.n
+    expected = list(bundle.manifest["inputs"]["imaging_features"])
+    missing = [c for c in expected if c not in cohort.feature_names]
+    if missing:
+        raise WorkbenchError(
+            f"{features}: {len(missing)} imaging feature(s) the models need are not in the table "
+            f"(first: {', '.join(missing[:5])}). The new table must have the training feature columns."
+        )
+    cohort, excluded = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)
+    cohort, incomplete, by_col = drop_incomplete(cohort, spec.predictors)
+    return PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded)
+
+
+def _risk_group(values: np.ndarray, cuts) -> np.ndarray:
+    if not cuts:
+        return np.full(values.size, "", dtype=object)
+    lo, hi = cuts
+    return np.where(values <= lo, "low", np.where(values <= hi, "intermediate", "high")).astype(object)
+
+
+def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, recalibration=("intercept", "slope"),
+                 random_state=None) -> ExternalResult:
+    """Apply every model of ``bundle`` to a new cohort and validate it there.
+
+    Parameters
+    ----------
+    bundle : Bundle
+        From :func:`workbench.report.bundle.load_bundle`.
+    features, clinical : path-like
+        The new cohort's tables (same columns as the training tables).
+    replicates : int
+        Bootstrap resamples of the new patients for the intervals (predictions fixed).
+    recalibration : tuple of {"intercept", "slope"}
+        Recalibrations of the Cox-type models to report (apparent on the new cohort).
+    """
+    spec = bundle.spec
+    horizons = tuple(spec.horizons)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        prepared = read_new_cohort(bundle, features, clinical)
+        cohort = prepared.cohort
+        cut = bundle.training.risk_cutpoints
+        cols = {"patient_id": cohort.ids}
+        for name, m in bundle.models.items():
+            risk = m.predict_risk(cohort).values
+            surv = m.predict_survival(cohort, horizons)
+            cols[f"{name}_risk_score"] = risk
+            cols[f"{name}_risk_group"] = _risk_group(risk, cut.get(name))
+            for j, h in enumerate(horizons):
+                cols[f"{name}_survival_{h:g}"] = surv.probs[:, j]
+        predictions = pd.DataFrame(cols)
+        validation = validate_external(bundle.models, cohort.y, cohort, horizons, replicates=replicates,
+                                       random_state=spec.seed if random_state is None else random_state)
+        baseline = spec.models.baseline
+        comparisons = {m: compare_models(validation, m, baseline) for m in bundle.models if m != baseline}
+        rows = []
+        for name, m in bundle.models.items():
+            if name not in COX_KINDS:
+                continue
+            risk = m.predict_risk(cohort)
+            for method in recalibration:
+                rec = recalibrate(risk, cohort.y, horizons, method)
+                for h in horizons:
+                    cal = calibration_at(cohort.y, rec.curves, h)
+                    rows.append({
+                        "model": name, "recalibration": method, "horizon": h, "slope_applied": rec.slope,
+                        "ici": cal.smoothed.ici, "e50": cal.smoothed.e50, "e90": cal.smoothed.e90,
+                        "oe_ratio": cal.observed_expected.ratio, "note": rec.note,
+                    })
+    seen, msgs = set(), []
+    for w in caught:
+        key = (w.category.__name__, str(w.message))
+        if key not in seen:
+            seen.add(key)
+            msgs.append(key)
+    return ExternalResult(prepared, predictions, validation, comparisons, pd.DataFrame(rows), tuple(msgs))
+
+
+def write_external(result: ExternalResult, out_dir) -> Path:
+    """Write predictions, performance, comparison and recalibration tables."""
+    from workbench.report.results import comparison_table, jsonable
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    result.predictions.to_csv(out / "predictions.csv", index=False)
+    result.validation.summary_frame().to_csv(out / "performance.csv", index=False)
+    comparison_table(result.comparisons).to_csv(out / "comparison.csv", index=False)
+    result.recalibration.to_csv(out / "recalibration.csv", index=False)
+    import json
+
+    from workbench.cohort.summary import CAUTION
+
+    data = {
+        "caution": CAUTION,
+        "n": result.prepared.cohort.n,
+        "n_events": result.prepared.cohort.n_events,
+        "n_incomplete_dropped": len(result.prepared.incomplete_ids),
+        "performance": {m: jsonable(e) for m, e in result.validation.estimates.items()},
+        "recalibration": jsonable(result.recalibration),
+        "warnings": [{"category": c, "message": m} for c, m in result.warnings],
+    }
+    path = out / "external_results.json"
+    path.write_text(json.dumps(data, indent=2, allow_nan=False))
+    return path

@@ -1,0 +1,132 @@
+"""Every figure of a study run, built from a :class:`~workbench.workflow.StudyResult`.
+
+One place decides what the standard figures of a study are, so the command
+line, the report and the app show the same pictures:
+
+* nomograms of the clinical-only and the clinical + signature models, side by side;
+* Kaplan-Meier curves by risk tertile (cut-points fixed on the training rows),
+  on the external cohort when there is one, else on the training cohort;
+* time-dependent AUC over time, calibration at each horizon and decision curves,
+  on the external cohort when there is one (honest), else on the training cohort
+  (labelled "apparent");
+* hazard ratios of each Cox model, selection frequency of the signature's
+  features across the validation refits, the penalised coefficient path, and the
+  proportional-hazards diagnostics.
+"""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from workbench.errors import WorkbenchError, WorkbenchWarning
+from workbench.figures import (
+    decision_curves,
+    forest_table,
+    km_by_group,
+    nomogram_scales,
+    plot_calibration_panels,
+    plot_coefficient_path,
+    plot_decision_curve,
+    plot_forest,
+    plot_km_by_group,
+    plot_nomogram,
+    plot_schoenfeld,
+    plot_selection_frequency,
+    plot_td_auc,
+    risk_groups,
+    save_figure,
+    td_auc_by_model,
+)
+from workbench.metrics.calibration import calibration_at
+from workbench.models.registry import MODEL_LABELS
+
+COX_MODELS = ("clinical", "combined")
+
+
+def _evaluation(result):
+    if result.external_prepared is not None:
+        return result.external_prepared.cohort, "external cohort"
+    return result.cohort, "development cohort, apparent"
+
+
+def nomogram_figure(result, *, patient=None, layout="columns"):
+    """Nomograms of the Cox models of the study (clinical-only and clinical + signature)."""
+    train, unit = result.cohort, result.cohort.time_unit
+    scales = []
+    for name in COX_MODELS:
+        m = result.models.get(name)
+        if m is None:
+            continue
+        sig = m.signature_score(train) if hasattr(m, "signature_score") else None
+        scales.append(
+            nomogram_scales(m, tuple(result.spec.horizons), signature_scores=sig, time_unit=unit,
+                            median_axis=True, name=MODEL_LABELS[name])
+        )
+    if not scales:
+        raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
+    return plot_nomogram(scales, patient=patient, layout=layout)
+
+
+def study_figures(result) -> dict:
+    """All standard figures of a run, by file-friendly name (matplotlib Figures)."""
+    figs = {}
+    train = result.cohort
+    unit = train.time_unit
+    horizons = tuple(result.spec.horizons)
+    evalc, where = _evaluation(result)
+    models = result.models
+    labels = {k: MODEL_LABELS.get(k, k) for k in models}
+    with warnings.catch_warnings():
+        # scoring an unseen scanner (documented fallback) warns once per call; the run log has it
+        warnings.simplefilter("ignore", WorkbenchWarning)
+        if any(n in models for n in COX_MODELS):
+            figs["nomogram"] = nomogram_figure(result)
+        top = "combined" if "combined" in models else next(iter(models))
+        m = models[top]
+        groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, "tertiles")
+        figs["km_risk_groups"] = plot_km_by_group(
+            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: risk tertiles ({where})"
+        )
+        last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
+        grid = np.linspace(min(horizons) / 2, last, 15)
+        risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}
+        figs["td_auc"] = plot_td_auc(td_auc_by_model(train.y, evalc.y, risks, grid), time_unit=unit,
+                                     horizons=horizons, title=where.capitalize())
+        curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
+        cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}
+        figs["calibration"] = plot_calibration_panels(cal, predicted=curves, time_unit=unit)
+        h = horizons[len(horizons) // 2]
+        figs["decision_curve"] = plot_decision_curve(decision_curves(evalc.y, curves, h), time_unit=unit,
+                                                     title=where.capitalize())
+    for name in COX_MODELS:
+        if name in models:
+            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(models[name]), title=labels[name])
+    sig_model = models.get("combined")
+    sel = result.validation.selection.get("combined")
+    if sel is not None and sel.n_fits:
+        figs["selection_frequency"] = plot_selection_frequency(
+            sel.frequency, n_replicates=sel.n_fits, selected=sel.apparent,
+            title="Imaging features kept across bootstrap refits",
+        )
+    if sig_model is not None and sig_model.signature_.path_ is not None:
+        figs["coefficient_path"] = plot_coefficient_path(sig_model.signature_.path_,
+                                                         title="Imaging signature: penalised path")
+    for name, ph in result.ph_tests.items():
+        figs[f"ph_{name}"] = plot_schoenfeld(ph)
+    return figs
+
+
+def write_figures(result, out_dir, *, formats=("png", "svg", "pdf"), widths=("double",)) -> list[Path]:
+    """Save every figure of the run (PNG 300 dpi, SVG and PDF with editable text)."""
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name, fig in study_figures(result).items():
+        for p in save_figure(fig, out / name, widths=widths, formats=formats):
+            final = p.with_name(f"{name}{p.suffix}") if len(widths) == 1 else p
+            p.replace(final)
+            written.append(final)
+    return written
