@@ -129,3 +129,44 @@ def test_cli_run_and_bad_study(study_file, tmp_path, capsys):
     bad.write_text(STUDY.replace("replicates = 3", "replicate = 3"))
     assert main(["run", str(bad)]) == 2
     assert "Did you mean 'replicates'" in capsys.readouterr().err
+
+
+@pytest.fixture(scope="module")
+def run_folder(study_file, tmp_path_factory):
+    out = tmp_path_factory.mktemp("run")
+    assert main(["run", str(study_file), "--out", str(out), "--quiet", "--no-report"]) == 0
+    return out
+
+
+def test_run_writes_figures_and_bundle(run_folder):
+    assert (run_folder / "bundle" / "manifest.json").exists()
+    for name in ("nomogram", "km_risk_groups", "calibration", "decision_curve", "td_auc"):
+        for ext in ("png", "svg", "pdf"):
+            assert (run_folder / "figures" / f"{name}.{ext}").exists(), (name, ext)
+
+
+def test_bundle_applied_to_training_cohort_reproduces_apparent_metrics(run_folder, study_file, tmp_path, capsys):
+    d = study_file.parent
+    code = main(["apply", str(run_folder / "bundle"), "--features", str(d / "imaging.csv"),
+                 "--clinical", str(d / "clinical.csv"), "--out", str(tmp_path / "ext"), "--replicates", "5"])
+    assert code == 0
+    ext = json.loads((tmp_path / "ext" / "external_results.json").read_text())
+    res = json.loads((run_folder / "results.json").read_text())
+    for model in ("clinical", "combined"):
+        for metric in ("harrell_c", "uno_c", "auc@12", "brier@24", "ibs"):
+            assert ext["performance"][model][metric]["estimate"] == pytest.approx(
+                res["models"][model]["performance"][metric]["apparent"], abs=1e-10
+            ), (model, metric)
+    assert "Caution:" in capsys.readouterr().out
+
+
+def test_estimate_from_the_command_line(run_folder, capsys):
+    code = main(["estimate", str(run_folder / "bundle"), "--model", "clinical",
+                 "--value", "age=120", "--value", "stage=III", "--value", "ecog=1"])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "Survival at 12 months" in out and "95% CI" in out
+    assert "age" in out and "outside" in out.lower()
+    assert "Caution:" in out
+    assert main(["estimate", str(run_folder / "bundle"), "--value", "age"]) == 2
+    assert "FIELD=VALUE" in capsys.readouterr().err
