@@ -1,0 +1,423 @@
+"""The study report: one self-contained HTML file (and a PDF of it), arranged by reporting topics.
+
+The sections follow the topics of the TRIPOD and TRIPOD+AI reporting
+guidelines: data and participants, outcome, predictors, sample size, missing
+data, the full model, internal validation, performance, calibration, what
+imaging adds, decision curves, external validation, figures, limitations,
+software. Every number comes from :func:`workbench.report.results.results_dict`;
+only the figures are drawn here, from the fitted models, with the plot
+functions of :mod:`workbench.figures`. Figures are embedded as SVG data, the
+style sheet is inline, and nothing is fetched from anywhere, so the file works
+offline and can be archived as it is. Patient identifiers are left out unless
+asked for.
+
+References
+----------
+.. [1] Collins GS, Reitsma JB, Altman DG, Moons KGM. Transparent reporting of a
+   multivariable prediction model for individual prognosis or diagnosis
+   (TRIPOD): the TRIPOD statement. BMJ 2015;350:g7594.
+.. [2] Collins GS, Moons KGM, Dhiman P, et al. TRIPOD+AI statement: updated
+   guidance for reporting clinical prediction models that use regression or
+   machine learning methods. BMJ 2024;385:e078378.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import math
+import re
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import jinja2
+import matplotlib
+import numpy as np
+from markupsafe import Markup
+
+from workbench.cohort.summary import CAUTION, feature_family
+from workbench.errors import WorkbenchError, WorkbenchWarning
+from workbench.metrics.decision import DecisionCurveResult
+from workbench.models.registry import MODEL_LABELS
+from workbench.report.checklist import FILLED, reporting_checklist
+from workbench.report.methods import (
+    limitations,
+    methods_paragraph,
+    predictor_handling,
+    unseen_batches,
+    validation_text,
+)
+from workbench.report.pdf import print_pdf
+from workbench.report.results import results_dict
+
+TEMPLATES = Path(__file__).with_name("templates")
+
+SECTIONS = (
+    ("methods-summary", "Methods in brief"),
+    ("data", "Source of data and participants"),
+    ("outcome", "Outcome"),
+    ("predictors", "Predictors and their handling"),
+    ("sample-size", "Sample size"),
+    ("missing", "Missing data"),
+    ("model", "Model specification"),
+    ("validation-method", "Internal validation"),
+    ("performance", "Model performance"),
+    ("calibration", "Calibration"),
+    ("incremental", "Incremental value of imaging"),
+    ("decision", "Decision curves"),
+    ("external", "External validation"),
+    ("figures", "Figures"),
+    ("limitations", "Limitations"),
+    ("software", "Software and reproducibility"),
+    ("checklist", "Reporting checklist"),
+)
+"""Section ids and headings, in report order (the title block comes first, id ``title``)."""
+
+_GLOBAL = ("harrell_c", "uno_c", "mean_auc", "ibs", "null_ibs", "ipa_integrated")
+_LABELS = {
+    "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC", "ibs": "Integrated Brier score",
+    "null_ibs": "Integrated Brier, Kaplan-Meier null", "ipa_integrated": "IPA, integrated",
+    "auc": "AUC", "brier": "Brier score", "ipa": "IPA", "ici": "ICI", "e50": "E50", "e90": "E90",
+    "cal_slope": "Calibration slope", "oe_ratio": "Observed / expected",
+}
+_CALIBRATION = ("ici", "e50", "e90", "cal_slope", "oe_ratio")
+
+
+@dataclass(frozen=True)
+class ReportFiles:
+    """Paths of a written report (``pdf`` is None when no PDF was asked for)."""
+
+    html: Path
+    pdf: Path | None
+
+
+# ------------------------------------------------------------------ formatting
+
+
+def _finite(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def fmt_num(x, digits: int = 3) -> str:
+    """A number with fixed decimals, or "n/a"."""
+    return f"{x:.{digits}f}".replace("-", "\u2212") if _finite(x) else "n/a"
+
+
+def fmt_p(p) -> str:
+    """A p-value as usually printed."""
+    if not _finite(p):
+        return "n/a"
+    return "<0.001" if p < 0.001 else f"{p:.3f}"
+
+
+def _label(name: str) -> str:
+    return MODEL_LABELS.get(name, name)
+
+
+def metric_label(name: str, unit: str) -> str:
+    """"auc@12" -> "AUC at 12 months"."""
+    base, _, h = name.partition("@")
+    text = _LABELS.get(base, base)
+    return f"{text} at {float(h):g} {unit}" if h else text
+
+
+def _metric_order(names, horizons) -> list[str]:
+    hs = [f"{h:g}" for h in horizons]
+    order = ["harrell_c", "uno_c", *[f"auc@{h}" for h in hs], "mean_auc", *[f"brier@{h}" for h in hs], "ibs",
+             "null_ibs", *[f"ipa@{h}" for h in hs], "ipa_integrated"]
+    return [n for n in order if n in names]
+
+
+def _short_paths(text: str, spec) -> str:
+    """The study file as run, with data file locations cut to their names (no machine paths in a report)."""
+    paths = [spec.data.features, spec.data.clinical]
+    if spec.external is not None:
+        paths += [spec.external.features, spec.external.clinical]
+    for p in paths:
+        text = text.replace(f'"{p}"', f'"{Path(p).name}"')
+    return text
+
+
+# ------------------------------------------------------------------ figures
+
+
+def _embed(fig) -> str:
+    """A matplotlib Figure as an SVG data URI (text as paths, so no font is needed to show it)."""
+    buf = io.BytesIO()
+    with matplotlib.rc_context({"svg.hashsalt": "workbench-report", "svg.fonttype": "path"}):
+        fig.savefig(buf, format="svg", metadata={"Date": None})
+    return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _figure(items: list, key: str, title: str, caption: str, draw, half: bool = False) -> None:
+    """Draw one figure into ``items``; a figure that cannot be drawn leaves a note, not a broken report."""
+    item = {"id": f"fig-{key}", "title": title, "caption": caption, "src": "", "error": "", "half": half}
+    try:
+        with warnings.catch_warnings():
+            # the run already recorded its statistical warnings; redrawing must not repeat them
+            warnings.simplefilter("ignore", WorkbenchWarning)
+            item["src"] = _embed(draw())
+    except (WorkbenchError, ValueError, KeyError, IndexError) as exc:
+        item["error"] = f"This figure could not be drawn: {exc}"
+    items.append(item)
+
+
+def _calibration_fig(models, cohort, horizons, unit):
+    from workbench.figures import plot_calibration_panels
+    from workbench.metrics.calibration import calibration_at
+
+    curves = {_label(k): m.predict_survival(cohort, horizons) for k, m in models.items()}
+    cal = {name: [calibration_at(cohort.y, c, h) for h in horizons] for name, c in curves.items()}
+    return plot_calibration_panels(cal, predicted=curves, time_unit=unit)
+
+
+def _eval_horizons(horizons, cohort) -> tuple[float, ...]:
+    return tuple(h for h in horizons if h < float(np.max(cohort.time[cohort.event])) if np.any(cohort.event))
+
+
+def _km_fig(model, train, cohort, unit, title):
+    from workbench.figures import km_by_group, plot_km_by_group, risk_groups
+
+    groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, "tertiles")
+    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
+
+
+def _auc_fig(models, train, cohort, horizons, unit, title):
+    from workbench.figures import plot_td_auc, td_auc_by_model
+
+    t = cohort.time[cohort.event]
+    hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
+    grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
+    risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
+    return plot_td_auc(td_auc_by_model(train.y, cohort.y, risks, grid), time_unit=unit, horizons=horizons,
+                       title=title)
+
+
+def _decision_fig(d: dict, unit: str, j: int):
+    """Validated decision curves of every model at the j-th horizon, from the comparison blocks."""
+    from workbench.figures import plot_decision_curve
+
+    comps = list(d["comparison"].values())
+    surv = {h["horizon"]: h["survival"] for h in d["cohort"]["summary"]["horizons"]}
+    first = comps[0]["decision_curves"][j]
+    h, pt = first["horizon"], np.asarray(first["thresholds"], float)
+
+    def curve(values, name):
+        v = np.asarray([np.nan if x is None else x for x in values], float)
+        return DecisionCurveResult(h, pt, v, np.asarray(first["treat_all"], float), np.zeros_like(pt),
+                                   np.full_like(pt, np.nan), 1.0 - surv.get(h, np.nan), name)
+
+    res = {_label(comps[0]["baseline"]): curve(first["baseline_validated"], comps[0]["baseline"])}
+    for c in comps:
+        res[_label(c["model"])] = curve(c["decision_curves"][j]["model_validated"], c["model"])
+    return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}")
+
+
+def _figures(result, d: dict) -> dict:
+    from workbench.figures import (
+        forest_table,
+        nomogram_scales,
+        plot_coefficient_path,
+        plot_forest,
+        plot_nomogram,
+        plot_schoenfeld,
+        plot_selection_frequency,
+    )
+
+    unit, horizons, train = result.spec.data.time_unit, tuple(result.spec.horizons), result.cohort
+    models = result.models
+    cox = {k: m for k, m in models.items() if hasattr(m, "fit_") and hasattr(m, "transformer_")}
+    lead = models.get("combined") or next(iter(models.values()))
+    out = {k: [] for k in ("calibration", "decision", "external", "main")}
+    _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
+            "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
+            "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
+            lambda: _calibration_fig(models, train, horizons, unit))
+    for j, h in enumerate(horizons if d["comparison"] else ()):
+        _figure(out["decision"], f"decision-{j}", f"Decision curves at {h:g} {unit} (optimism-corrected)",
+                "Net benefit against the threshold risk, corrected for optimism like the other metrics, with "
+                "treat-all and treat-none.", lambda j=j: _decision_fig(d, unit, j), half=True)
+    if result.external is not None:
+        ext = result.external_prepared.cohort
+        eh = _eval_horizons(horizons, ext)
+        _figure(out["external"], "external-calibration", "Calibration on the external cohort",
+                "Smoothed calibration of the unchanged models on the external patients.",
+                lambda: _calibration_fig(models, ext, eh, unit))
+        _figure(out["external"], "external-km", "Risk groups on the external cohort",
+                f"Kaplan-Meier curves by tertile of the {_label(lead.name)} risk, cut-points fixed on the "
+                "development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort"))
+        _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
+                "Cumulative/dynamic AUC over follow-up time.",
+                lambda: _auc_fig(models, train, ext, eh, unit, "External cohort"))
+    if cox:
+        def nomo():
+            scales = [nomogram_scales(m, horizons, time_unit=unit, median_axis=True, name=_label(k),
+                                      signature_scores=m.signature_score(train) if hasattr(m, "signature_score")
+                                      else None) for k, m in cox.items()]
+            return plot_nomogram(scales, layout="rows")
+        _figure(out["main"], "nomogram", "Nomograms", "Points per predictor, total points, and survival "
+                "probability at each horizon and predicted median survival, for each Cox model.", nomo)
+    _figure(out["main"], "km", "Kaplan-Meier curves by risk group (development cohort)",
+            f"Tertiles of the {_label(lead.name)} risk on all development patients (apparent).",
+            lambda: _km_fig(lead, train, train, unit, _label(lead.name)))
+    _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
+            "Cumulative/dynamic AUC over follow-up time.",
+            lambda: _auc_fig(models, train, train, horizons, unit, "Development cohort"))
+    for k, m in cox.items():
+        _figure(out["main"], f"forest-{k}", f"Hazard ratios: {_label(k)}", "Hazard ratios with 95% CI per "
+                "clinically meaningful contrast (reference levels marked).",
+                lambda m=m, k=k: plot_forest(forest_table(m), title=_label(k)))
+    for k, sel in result.validation.selection.items():
+        if sel.n_fits:
+            _figure(out["main"], f"selection-{k}", f"Selection frequency: {_label(k)}",
+                    f"Share of the {sel.n_fits} bootstrap refits that kept each imaging feature; features of "
+                    "the fit on all patients are highlighted.",
+                    lambda sel=sel, k=k: plot_selection_frequency(sel.frequency, n_replicates=sel.n_fits,
+                                                                  selected=sel.apparent, title=_label(k)))
+    sig = getattr(models.get("combined"), "signature_", None)
+    if sig is not None and sig.path_ is not None:
+        _figure(out["main"], "path", "Penalised path of the imaging signature",
+                "Coefficients along the penalty path and the cross-validated deviance that chose the penalty.",
+                lambda: plot_coefficient_path(sig.path_, title="Imaging signature", width="double"))
+    for k, ph in result.ph_tests.items():
+        _figure(out["main"], f"ph-{k}", f"Proportional-hazards diagnostics: {_label(k)}",
+                "Scaled Schoenfeld residuals against transformed time with a smooth; a flat line supports "
+                "proportional hazards.", lambda ph=ph: plot_schoenfeld(ph))
+    return out
+
+
+# ------------------------------------------------------------------ context
+
+
+def _perf_rows(estimates: dict, names, unit) -> list[dict]:
+    return [{"label": metric_label(n, unit), "cells": [estimates[m].get(n) for m in estimates]} for n in names]
+
+
+def report_context(result, *, include_ids: bool = False, figures: bool = True) -> dict:
+    """Everything the report template shows, as plain data (numbers from ``results_dict``)."""
+    d = results_dict(result)
+    spec, s = result.spec, d["cohort"]["summary"]
+    unit, horizons = s["time_unit"], list(spec.horizons)
+    perf = {k: m["performance"] for k, m in d["models"].items()}
+    names = _metric_order(next(iter(perf.values())).keys(), horizons)
+    cal_rows = [{"model": _label(k), "horizon": f"{h:g}", "cells": [perf[k].get(f"{c}@{h:g}") for c in _CALIBRATION]}
+                for k in perf for h in horizons]
+    models = []
+    for k, m in d["models"].items():
+        bs = m.get("baseline_survival")
+        xm = bs["x_mean"] if bs else {}
+        coefs = [{**r, "x_mean": xm.get(r["column"])} for r in m["coefficients"]]
+        sig = None
+        if "signature" in m:
+            freq = m.get("selection_frequency", {}).get("frequency", {})
+            sig = {**m["signature"], "rows": [{"feature": f, "family": feature_family(f), "coef": c,
+                                               "freq": freq.get(f, 0.0) if freq else None}
+                                              for f, c in m["signature"]["coefficients_per_sd"].items()]}
+        epp = m["n_events"] / len(m["coefficients"]) if m["coefficients"] and m["kind"] == "cox" else None
+        models.append({"name": k, **m, "coefs": coefs, "sig": sig, "epp": epp,
+                       "baseline": list(zip(bs["horizons"], bs["survival"], strict=True)) if bs else []})
+    comps = []
+    for k, c in d["comparison"].items():
+        diffs = [{"label": metric_label(n, unit), **c["differences"][n]}
+                 for n in _metric_order(c["differences"], horizons) + [f"{x}@{h:g}" for h in horizons for x in ("ici",)]
+                 if n in c["differences"]]
+        comps.append({**c, "label": _label(k), "base_label": _label(c["baseline"]), "diffs": diffs})
+    ext = None
+    if d["external"] is not None:
+        e = d["external"]
+        eperf = {k: m["external_performance"] for k, m in d["models"].items() if "external_performance" in m}
+        seen = set(s["batches"])
+        ext = {**e, "perf_rows": _perf_rows(eperf, names, unit), "models": [_label(k) for k in eperf],
+               "unseen": unseen_batches(result), "policy": spec.imaging.harmonise.unseen_batch,
+               "batch_rows": [(b, n, b in seen) for b, n in e["batches"].items()],
+               "comps": [{**c, "label": _label(k), "diffs": [{"label": metric_label(n, unit), **c["differences"][n]}
+                                                             for n in _metric_order(c["differences"], horizons)]}
+                         for k, c in e["comparison"].items()]}
+    prep = result.prepared
+    ids = None
+    if include_ids:
+        ids = {"incomplete": list(prep.incomplete_ids), "one_table": list(prep.cohort.source.dropped_ids)}
+    checklist = reporting_checklist(result)
+    return {
+        "d": d, "caution": CAUTION, "title": spec.name, "unit": unit, "horizons": horizons,
+        "sections": SECTIONS, "summary": s, "spec": spec,
+        "methods": methods_paragraph(result, d).split("\n\n"),
+        "validation_text": validation_text(result, d),
+        "handling": predictor_handling(result),
+        "families": sorted(s["feature_families"].items()),
+        "imaging_missing": [m for m in s["missing"] if m["table"] == "imaging"],
+        "model_names": [_label(k) for k in perf], "perf_rows": _perf_rows(perf, names, unit),
+        "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
+        "models": models, "comps": comps, "ext": ext, "ids": ids,
+        "limitations": limitations(result, d),
+        "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
+        "study_text": _short_paths(result.study_text, spec),
+        "figures": _figures(result, d) if figures else {k: [] for k in ("calibration", "decision", "external", "main")},
+        "version": d["provenance"]["versions"].get("survival-workbench", ""),
+        "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["term"] == "GLOBAL"), None)
+                      for k, m in d["models"].items()},
+    }
+
+
+def _css_string(text: str) -> Markup:
+    """Text as a quoted CSS string; '<' is escaped so that it cannot close the style element."""
+    body = re.sub(r'(["\\])', r"\\\1", str(text)).replace("\n", " ").replace("<", "\\3C ")
+    return Markup(f'"{body}"')
+
+
+def _environment() -> jinja2.Environment:
+    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
+                             autoescape=jinja2.select_autoescape(["html", "j2"]), undefined=jinja2.StrictUndefined,
+                             trim_blocks=True, lstrip_blocks=True)
+    env.filters.update(num=fmt_num, p=fmt_p, css_string=_css_string, label=_label)
+    return env
+
+
+def render_report(result, *, include_ids: bool = False, figures: bool = True) -> str:
+    """The report of a study run as one self-contained HTML document.
+
+    Parameters
+    ----------
+    result : StudyResult
+    include_ids : bool
+        List the identifiers of patients set aside (complete-case drops, ids
+        found in only one table). Off by default: the report can then leave the
+        hospital without identifiers.
+    figures : bool
+        Draw the figures (turn off for a quick text-only look).
+    """
+    ctx = report_context(result, include_ids=include_ids, figures=figures)
+    env = _environment()
+    ctx["css"] = Markup(env.get_template("report.css.j2").render(caution=CAUTION, title=ctx["title"]))
+    return env.get_template("report.html.j2").render(**ctx)
+
+
+def write_report(result, out_dir, *, pdf: bool = True, include_ids: bool = False) -> ReportFiles:
+    """Write ``report.html`` (and ``report.pdf``) for a study run into ``out_dir``.
+
+    Parameters
+    ----------
+    result : StudyResult
+        From :func:`workbench.workflow.run_study`.
+    out_dir : path
+        Folder to write into (created if needed).
+    pdf : bool
+        Also print the HTML to PDF with headless Chromium (see :mod:`workbench.report.pdf`).
+    include_ids : bool
+        Print identifiers of patients set aside (off by default).
+
+    Returns
+    -------
+    ReportFiles
+
+    Raises
+    ------
+    ReportError
+        When a PDF is asked for and no Chromium is installed (pass ``pdf=False``).
+    """
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    html = out / "report.html"
+    html.write_text(render_report(result, include_ids=include_ids), encoding="utf-8")
+    return ReportFiles(html=html, pdf=print_pdf(html, out / "report.pdf") if pdf else None)

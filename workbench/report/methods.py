@@ -1,0 +1,320 @@
+"""Generated prose of the study report: the methods paragraph, predictor handling, limitations.
+
+Every sentence is built from what the run recorded -- the numbers of
+:func:`workbench.report.results.results_dict` and the frozen records of the
+apparent fits -- so the text cannot drift from the analysis. Where the run does
+not know something (study dates, how patients were recruited), the text says so
+instead of guessing.
+
+References
+----------
+.. [1] Collins GS, Reitsma JB, Altman DG, Moons KGM. Transparent reporting of a
+   multivariable prediction model for individual prognosis or diagnosis
+   (TRIPOD): the TRIPOD statement. BMJ 2015;350:g7594.
+.. [2] Collins GS, Moons KGM, Dhiman P, et al. TRIPOD+AI statement: updated
+   guidance for reporting clinical prediction models that use regression or
+   machine learning methods. BMJ 2024;385:e078378.
+.. [3] Harrell FE Jr, Lee KL, Mark DB. Multivariable prognostic models. Stat Med
+   1996;15:361-87 (bootstrap optimism correction).
+.. [4] Riley RD, Snell KIE, Ensor J, et al. Minimum sample size for developing a
+   multivariable prediction model: Part II - binary and time-to-event outcomes.
+   Stat Med 2019;38:1276-96.
+.. [5] Johnson WE, Li C, Rabinovic A. Adjusting batch effects in microarray
+   expression data using empirical Bayes methods. Biostatistics 2007;8:118-27 (ComBat).
+.. [6] Verweij PJM, van Houwelingen HC. Cross-validation in survival analysis.
+   Stat Med 1993;12:2305-14.
+.. [7] Austin PC, Harrell FE Jr, van Klaveren D. Graphical calibration curves and
+   the integrated calibration index (ICI) for survival models. Stat Med 2020;39:2714-42.
+"""
+
+from __future__ import annotations
+
+from workbench.models.registry import MODEL_LABELS
+from workbench.report.results import results_dict
+
+REPLICATES_COMMON = 200
+"""Bootstrap replicates usually asked of a final analysis (common practice)."""
+
+EPP_COMMON = 10
+"""Events per candidate parameter below which a Cox model is unstable (common practice)."""
+
+
+def _n(x: float, digits: int = 1) -> str:
+    return "not reached" if x is None else f"{x:.{digits}f}"
+
+
+def _join(items) -> str:
+    items = [str(i) for i in items]
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def _label(name: str) -> str:
+    return MODEL_LABELS.get(name, name)
+
+
+def _cox_with_terms(result):
+    """The first apparent fit that carries the clinical transformer (its learned term records)."""
+    for m in result.models.values():
+        if hasattr(m, "transformer_"):
+            return m
+    return None
+
+
+def predictor_handling(result) -> list[dict]:
+    """One record per clinical predictor: kind, transform, detection limit and missing-value handling.
+
+    Values learned from data (reference level, detection limit, imputation
+    value) come from the apparent fit on all analysis rows; inside every
+    validation replicate they are learned again on the resampled rows.
+    """
+    fitted = _cox_with_terms(result)
+    infos = {t.column: t for t in fitted.transformer_.terms_} if fitted is not None else {}
+    by_col = result.prepared.incomplete_by_column
+    rows = []
+    for p in result.spec.predictors:
+        t = infos.get(p.column)
+        unit = f" {p.unit}" if p.unit else ""
+        kind = {"linear": "continuous, linear", "spline": "continuous, restricted cubic spline",
+                "categorical": "categorical", "ordinal": "ordinal, one score per step"}[p.kind]
+        if p.kind == "spline" and t is not None and t.knots_raw:
+            kind += f" with {len(t.knots_raw)} knots at " + ", ".join(f"{k:.3g}" for k in t.knots_raw)
+        if p.kind in ("categorical", "ordinal") and t is not None:
+            kind += f"; levels {', '.join(map(str, t.levels))}; reference {t.reference}"
+        transform = {None: "none", "log": "natural log", "log2": "log2 (hazard ratio per doubling)"}[p.transform]
+        if p.detection_limit is None:
+            limit = "not applicable" if p.kind in ("categorical", "ordinal") else "none declared"
+        elif t is not None and t.detection_limit is not None:
+            how = "read from the '<x' cells" if p.detection_limit == "auto" else "as declared"
+            limit = (f"limit {t.detection_limit:g}{unit} ({how}); {t.n_below_limit_train} patients below it "
+                     "enter at the limit with a below-limit indicator term")
+        else:
+            limit = "declared, but no value below a limit was found"
+        if p.missing == "impute":
+            what = "training median" if p.kind in ("linear", "spline") else "most frequent training level"
+            val = f" (all rows: {t.impute_value})" if t is not None and t.impute_value is not None else ""
+            n_miss = t.n_missing_train if t is not None else 0
+            missing = f"{n_miss} missing, imputed with the {what}{val}, relearned in every replicate"
+        else:
+            k = by_col.get(p.column, 0)
+            missing = f"complete cases only; {k} patients excluded" if k else "complete cases only (none missing)"
+        rows.append({"column": p.column, "label": p.label or p.column, "unit": p.unit, "kind": kind,
+                     "transform": transform if p.kind in ("linear", "spline") else "not applicable",
+                     "detection_limit": limit, "missing": missing})
+    return rows
+
+
+def _steps_text(steps: list[dict]) -> str:
+    names = {"ComBat harmonisation": "ComBat harmonisation",
+             "near-zero variance": "removal of near-zero-variance features",
+             "redundancy": "removal of redundant features (one of each highly correlated pair)",
+             "penalised Cox": "the penalised Cox model"}
+    return "; ".join(f"{names.get(s['step'], s['step'])} {s['n_in']} -> {s['n_out']}" for s in steps)
+
+
+def validation_text(result, data: dict | None = None) -> str:
+    """How the run was validated and what was refitted inside each replicate."""
+    d = data if data is not None else results_dict(result)
+    v = d["validation"]
+    reps = v["n_replicates"]
+    seed = result.spec.seed
+    folds = result.spec.imaging.penalty.folds
+    refit = ("In every replicate the whole modelling process was repeated on the resampled rows: the "
+             "clinical transformations, category levels, detection limits and imputation values; the "
+             "ComBat harmonisation; the feature filters; the choice of the penalty by inner "
+             f"{folds}-fold cross-validation with folds split by original patient identifier (so copies "
+             "of one patient never sit on both sides of a fold); and the model fits.")
+    if v["method"] == "bootstrap":
+        if all(r == 0 for r in reps.values()):
+            return "No resampling was run; only apparent performance is reported, which is optimistic."
+        if len(set(reps.values())) == 1:
+            per = f"{next(iter(reps.values()))} replicates per model"
+        else:
+            per = "replicates per model: " + ", ".join(f"{_label(m)} {r}" for m, r in reps.items())
+        return (f"Internal validation used bootstrap optimism correction (Harrell et al. 1996) with {per} "
+                f"(seed {seed}). {refit} Optimism was the mean difference between performance "
+                "on the bootstrap sample and on the original patients; corrected estimate = apparent - "
+                f"optimism; {100 * v['conf_level']:.0f}% intervals are bootstrap percentile intervals shifted by "
+                "the optimism.")
+    if v["method"] == "cv":
+        s = v["settings"]
+        return (f"Internal validation used {s.get('folds')}-fold cross-validation repeated {s.get('repeats')} "
+                f"times with folds split by patient (seed {seed}). {refit}")
+    return (f"Internal validation held out one centre at a time ({len(result.summary.centres)} centres; seed "
+            f"{seed}). {refit}")
+
+
+def methods_paragraph(result, data: dict | None = None) -> str:
+    """A methods description of the run in plain scientific English, with its real numbers.
+
+    Parameters
+    ----------
+    result : StudyResult
+    data : dict, optional
+        ``results_dict(result)`` if already computed.
+
+    Returns
+    -------
+    str
+        Paragraphs separated by blank lines.
+    """
+    d = data if data is not None else results_dict(result)
+    spec, s, c = result.spec, d["cohort"]["summary"], d["cohort"]
+    u = s["time_unit"]
+    paras = []
+    drop = (f" {c['n_incomplete_dropped']} patients missing a predictor handled by complete-case analysis "
+            "were excluded." if c["n_incomplete_dropped"] else "")
+    where = ""
+    if s["centres"]:
+        where += f" from {len(s['centres'])} centres"
+    if s["batches"]:
+        where += f" imaged on {len(s['batches'])} scanners or protocols"
+    codes = spec.data.event_codes
+    event = f"coded {_join(repr(e) for e in codes)}" if codes else "as recorded in the event column"
+    paras.append(
+        f"Of {c['n_read']} patients read{where}, {c['n_analysed']} entered the analysis.{drop} The outcome was "
+        f"time to event in {u}, with the event {event} and all other patients censored at their last "
+        f"follow-up; {s['n_events']} events were observed and {s['n_censored']} patients were censored. Median "
+        f"follow-up by the reverse Kaplan-Meier method was {_n(s['median_followup'])} {u} (95% CI "
+        f"{_n(s['median_followup_ci'][0])} to {_n(s['median_followup_ci'][1])}). Predictions were made at "
+        f"{_join(f'{h:g}' for h in spec.horizons)} {u}."
+    )
+    handling = []
+    for r in predictor_handling(result):
+        bits = [r["kind"]]
+        if r["transform"] not in ("none", "not applicable"):
+            bits.append(r["transform"])
+        if r["detection_limit"].startswith("limit"):
+            bits.append("detection " + r["detection_limit"])
+        bits.append(r["missing"])
+        handling.append(f"{r['label']} ({'; '.join(bits)})")
+    ss = s["sample_size"]
+    paras.append(
+        f"The clinical predictors were {'; '.join(handling)}. The cohort had {s['events_per_clinical_parameter']:.1f} "
+        f"events per candidate clinical parameter ({s['n_events']} events, {s['n_clinical_parameters']} "
+        f"parameters). By the criteria of Riley et al. (2019), with an anticipated Cox-Snell R-squared of "
+        f"{ss['r2_cs']:.3f} ({ss['r2_cs_source'].replace(' (', ', ').replace(')', '')}), at least {ss['n_required']} patients "
+        f"({ss['events_required']} events) were required; {ss['n_available']} were available."
+    )
+    im = spec.imaging
+    fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
+    text = f"The imaging pool held {c['n_imaging_pool']} features ({fam})."
+    combined = d["models"].get("combined")
+    if combined and "signature" in combined:
+        sig = combined["signature"]
+        harm = ""
+        if im.harmonise.method == "combat":
+            prot = f", preserving the effects of {_join(im.harmonise.protect)}" if im.harmonise.protect else ""
+            harm = (f" Features were harmonised across scanners by ComBat ({im.harmonise.empirical_bayes} "
+                    f"empirical Bayes{prot}; Johnson et al. 2007) inside each fit.")
+        pen = sig["penalty"]
+        pen_txt = ""
+        if pen is not None:
+            rule = ("the one-standard-error rule (the largest penalty within one standard error of the "
+                    "minimum)") if pen["rule"] == "1se" else "the minimum"
+            pen_txt = (f" The penalty (l1 ratio {im.penalty.l1_ratio:g}) was chosen by {im.penalty.folds}-fold "
+                       "cross-validation with folds split by patient, on the cross-validated partial-likelihood "
+                       f"deviance (Verweij and van Houwelingen 1993) with {rule}: alpha {pen['alpha']:.4g} "
+                       f"({pen['alpha_over_max']:.3f} x alpha_max, the smallest penalty that keeps every feature out).")
+        text += (f"{harm} On all analysis rows the number of features at each step was: "
+                 f"{_steps_text(sig['steps'])}.{pen_txt} The {len(sig['selected'])} kept features "
+                 "formed a signature score (their standardised values weighted by the penalised coefficients), "
+                 "which entered a Cox model beside the clinical terms.")
+        if "volume_correlation" in combined:
+            vc = combined["volume_correlation"]
+            text += (f" The signature's correlation with {vc['feature']} was Pearson {vc['pearson']:.2f}, "
+                     f"Spearman {vc['spearman']:.2f}.")
+    paras.append(text)
+    models = []
+    for m in d["models"].values():
+        if m["kind"] == "cox":
+            models.append(f"{m['label']} (Cox, {m['details'].get('ties', 'efron')} ties, "
+                          f"{len(m['coefficients'])} parameters)")
+        elif m["kind"] == "penalised cox":
+            models.append(f"{m['label']} (clinical terms unpenalised, {m['details']['n_imaging_selected']} "
+                          "imaging features kept, penalty chosen as above)")
+        else:
+            det = m["details"]
+            models.append(f"{m['label']} ({det.get('trees')} trees, minimum leaf {det.get('min_leaf')}, "
+                          f"{det.get('max_features')} features per split)")
+    paras.append(
+        f"Models fitted: {'; '.join(models)}. {validation_text(result, d)} Discrimination was measured by "
+        f"Harrell's and Uno's C (truncated at {spec.horizons[-1]:g} {u}) and the cumulative/dynamic AUC at each "
+        "horizon; overall accuracy by the Brier score, its integral and the index of prediction accuracy; "
+        "calibration by smoothed calibration curves (ICI, E50, E90; Austin et al. 2020), the calibration slope "
+        f"and the observed/expected ratio. Each model was compared with the {_label(d['baseline'])} model "
+        "by paired differences within the same replicates, the likelihood-ratio test for nested Cox models, "
+        "the category-free net reclassification index and integrated discrimination improvement by component, "
+        "and decision curves."
+    )
+    if d["external"] is not None:
+        e = d["external"]
+        paras.append(
+            f"The fitted models were applied unchanged to an external cohort of {e['n']} patients "
+            f"({e['n_events']} events); intervals come from bootstrap resamples of that cohort."
+        )
+    v = d["provenance"]["versions"]
+    libs = _join(f"{k} {v[k]}" for k in ("numpy", "scipy", "pandas", "scikit-learn", "scikit-survival",
+                                         "lifelines") if k in v)
+    paras.append(f"Analyses used survival-workbench {v.get('survival-workbench', '')} on Python "
+                 f"{v.get('python', '')} with {libs}; random seed {spec.seed}.")
+    return "\n\n".join(paras)
+
+
+def limitations(result, data: dict | None = None) -> tuple[str, ...]:
+    """Limitations that follow from what the run shows, most general first."""
+    d = data if data is not None else results_dict(result)
+    s = d["cohort"]["summary"]
+    out = ["The data are existing (retrospective) records: the way patients were selected, measured and "
+           "followed was not designed for this model, and the authors must describe it."]
+    if s["events_per_clinical_parameter"] < EPP_COMMON:
+        out.append(f"Only {s['events_per_clinical_parameter']:.1f} events per candidate clinical parameter "
+                   f"(fewer than {EPP_COMMON}, common practice): the clinical model may be unstable.")
+    if not s["sample_size"]["adequate"]:
+        ss = s["sample_size"]
+        out.append(f"The cohort ({ss['n_available']} patients) is smaller than the {ss['n_required']} the Riley "
+                   "criteria ask for: expect overfitting and read the optimism-corrected numbers.")
+    out.append(f"With {s['events_per_feature']:.2f} events per imaging feature the signature had to be "
+               "selected by penalisation; which features are kept varies between resamples (see the selection "
+               "frequencies).")
+    for w in d["warnings"]:
+        if w["category"] == "VolumeDominanceWarning":
+            out.append("Volume dominance: " + w["message"])
+        elif w["category"] == "ProportionalHazardsWarning":
+            out.append("Proportional hazards: " + w["message"])
+    v = d["validation"]
+    for name, k in v["failures"].items():
+        if k:
+            out.append(f"The model {_label(name)} failed in {k} of {v['n_replicates'][name]} replicates; its "
+                       "estimates use the remaining ones.")
+    reps = v["n_replicates"]
+    if v["method"] == "bootstrap" and reps:
+        top = max(reps.values())
+        for name, r in reps.items():
+            if r < top:
+                out.append(f"The model {_label(name)} was validated with fewer replicates ({r} of {top}) to "
+                           "keep the run time in budget; its intervals are less precise.")
+        if 0 < top < REPLICATES_COMMON:
+            out.append(f"Only {top} bootstrap replicates were run ({REPLICATES_COMMON} is common practice for a "
+                       "final analysis); intervals and optimism estimates are rough.")
+    for n in v["notes"]:
+        out.append("Validation note: " + n)
+    if d["external"] is None:
+        out.append("There was no external validation; the estimates describe patients like the development "
+                   "cohort only.")
+    elif unseen_batches(result):
+        out.append(f"External patients imaged on scanners absent from the development data "
+                   f"({', '.join(unseen_batches(result))}) were standardised without a batch adjustment; "
+                   "imaging-based predictions for them are the least reliable.")
+    out.append("The likelihood-ratio test for the signature ignores that it was selected on the same patients "
+               "and is optimistic.")
+    return tuple(out)
+
+
+def unseen_batches(result) -> tuple[str, ...]:
+    """External scanners (batches) that the development cohort did not have."""
+    if result.external_prepared is None or result.external_prepared.cohort.batch is None:
+        return ()
+    seen = set(result.summary.batches)
+    return tuple(sorted({str(b) for b in result.external_prepared.cohort.batch} - seen))
