@@ -66,7 +66,7 @@ def setup():
 
 def _run(setup, **kw):
     cohort, models = setup
-    return validate(models, cohort, H, replicates=6, random_state=123, **kw)
+    return validate(models, cohort, H, replicates=4, random_state=123, **kw)
 
 
 def _assert_identical(a, b):
@@ -104,7 +104,7 @@ def test_threads_equal_serial(setup, serial):
 def test_same_seed_same_result_different_seed_different(setup, serial):
     _assert_identical(serial, _run(setup, backend="serial"))
     cohort, models = setup
-    other = validate(models, cohort, H, replicates=6, random_state=124, backend="serial")
+    other = validate(models, cohort, H, replicates=4, random_state=124, backend="serial")
     assert not np.array_equal(other.replicates["clinical"].train, serial.replicates["clinical"].train,
                               equal_nan=True)
 
