@@ -36,6 +36,18 @@ from workbench.stats.schoenfeld import proportional_hazards_test
 SIGNATURE_TERM = "imaging_signature"
 
 
+def fill_missing(features: pd.DataFrame, medians: dict) -> pd.DataFrame:
+    """Missing imaging values replaced by training medians (a copy only when something is missing)."""
+    features = features.reset_index(drop=True)
+    values = features.to_numpy(dtype=float)
+    holes = np.isnan(values)
+    if not holes.any():
+        return features
+    fill = np.array([medians[c] for c in features.columns], dtype=float)
+    values = np.where(holes, fill[None, :], values)
+    return pd.DataFrame(values, columns=features.columns)
+
+
 def _complete_rows(design, cohort: Cohort, model: str) -> None:
     if design.n_dropped:
         bad = cohort.ids[~design.rows_used]
@@ -222,8 +234,7 @@ class CombinedCox(_CoxBase):
 
     def _features(self, cohort: Cohort) -> pd.DataFrame:
         # Missing imaging values get the training medians learned in fit, never evaluation-row values.
-        feats = cohort.features.reset_index(drop=True)
-        return feats.fillna(pd.Series(self.feature_medians_))
+        return fill_missing(cohort.features, self.feature_medians_)
 
     def signature_score(self, cohort: Cohort) -> np.ndarray:
         check_fitted(self, "signature_")

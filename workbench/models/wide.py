@@ -17,7 +17,7 @@ import pandas as pd
 
 from workbench.cohort.core import Cohort
 from workbench.models.base import ModelDescription, TermRow, as_times, check_fitted
-from workbench.models.cox import _complete_rows
+from workbench.models.cox import _complete_rows, fill_missing
 from workbench.models.forest import SurvivalForest
 from workbench.models.signature import ClinicalPlusImagingCox
 from workbench.predictions import RiskScores, SurvivalCurves
@@ -41,8 +41,7 @@ class _WideInputs:
 
     def _filled(self, cohort: Cohort) -> pd.DataFrame:
         # Missing imaging values get training medians (learned in fit), never evaluation-row values.
-        feats = cohort.features[list(self.feature_names_in_)].reset_index(drop=True)
-        return feats.fillna(pd.Series(self.feature_medians_))
+        return fill_missing(cohort.features[list(self.feature_names_in_)], self.feature_medians_)
 
     def _protected(self, cohort: Cohort):
         if not self.protect:
