@@ -1,0 +1,122 @@
+"""The study report in headless Chromium: opens offline without console errors, prints to PDF.
+
+Small simulated study (invented data from the demo generator). The browser is Debian's
+chromium, driven by Playwright (tests/app/install_browser.sh installs both).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from workbench.report.html import SECTIONS, write_report
+from workbench.report.pdf import count_pdf_pages
+
+CHROMIUM = "/usr/bin/chromium"
+ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
+        "--disable-component-update", "--disable-sync"]
+
+STUDY = """
+[study]
+name = "small simulated study"
+horizons = [12, 24]
+seed = 5
+
+[data]
+features = "imaging.csv"
+clinical = "clinical.csv"
+time = "os_months"
+event = "status"
+event_codes = ["dead"]
+censor_codes = ["alive"]
+centre = "hospital"
+batch = "scanner"
+
+[[predictor]]
+column = "age"
+
+[[predictor]]
+column = "stage"
+kind = "categorical"
+reference = "I"
+
+[[predictor]]
+column = "ecog"
+kind = "ordinal"
+levels = ["0", "1", "2"]
+missing = "impute"
+
+[imaging]
+include = ["*"]
+volume_feature = "morph_volume_cc"
+
+[imaging.harmonise]
+method = "combat"
+protect = ["age"]
+
+[imaging.penalty]
+n_alphas = 25
+
+[models]
+fit = ["clinical", "combined"]
+
+[validation]
+method = "bootstrap"
+replicates = 3
+backend = "serial"
+"""
+
+pytestmark = pytest.mark.skipif(not Path(CHROMIUM).exists(), reason="chromium not installed "
+                                "(run tests/app/install_browser.sh)")
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory):
+    from workbench.simulate import simulate_cohort
+    from workbench.study import read_study
+    from workbench.workflow import run_study
+
+    sim = simulate_cohort(260, random_state=3, n_features=50)
+    d = tmp_path_factory.mktemp("study")
+    sim.imaging.to_csv(d / "imaging.csv", index=False)
+    sim.clinical.to_csv(d / "clinical.csv", index=False)
+    (d / "study.toml").write_text(STUDY)
+    result = run_study(read_study(d / "study.toml"))
+    return result, write_report(result, tmp_path_factory.mktemp("report"), pdf=True)
+
+
+def test_pdf_has_several_a4_pages(report):
+    _, files = report
+    assert files.pdf is not None and files.pdf.exists()
+    assert files.pdf.read_bytes().startswith(b"%PDF")
+    assert count_pdf_pages(files.pdf) > 1
+
+
+def test_html_opens_without_console_errors_or_requests(report):
+    playwright = pytest.importorskip("playwright.sync_api")
+    result, files = report
+    errors, requests = [], []
+    with playwright.sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=CHROMIUM, args=ARGS, headless=True)
+        try:
+            page = browser.new_page()
+            page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.on("request", lambda r: requests.append(r.url))
+            page.goto(files.html.as_uri(), wait_until="load")
+            assert page.title().startswith(result.spec.name)
+            assert page.locator("#caution").is_visible()
+            for sid, heading in SECTIONS:
+                assert page.locator(f"section#{sid} h2").inner_text() == heading
+            # every embedded figure decodes to a picture
+            sizes = page.eval_on_selector_all("figure img", "els => els.map(e => [e.complete, e.naturalWidth])")
+            assert len(sizes) >= 8
+            assert all(ok and w > 0 for ok, w in sizes), sizes
+            shown = page.locator("section#performance").inner_text()
+            c = result.validation.estimates["combined"]["harrell_c"].estimate
+            assert f"{c:.3f}" in shown
+        finally:
+            browser.close()
+    assert errors == []
+    assert all(u.startswith(("file://", "data:")) for u in requests), requests

@@ -1,0 +1,238 @@
+"""The study report on a small simulated study (invented data from the demo generator).
+
+Numbers in the report are checked against ``results_dict`` (what the run measured) and,
+where a general-purpose library can recompute them, against that library (named beside
+each check).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from html import unescape
+
+import pytest
+
+from workbench.errors import WorkbenchError
+from workbench.report.checklist import AUTHORS, FILLED, reporting_checklist
+from workbench.report.html import SECTIONS, _css_string, fmt_num, render_report, write_report
+from workbench.report.pdf import ReportError, find_chromium
+from workbench.report.results import results_dict
+
+STUDY = """
+[study]
+name = "small simulated study"
+horizons = [12, 24]
+seed = 5
+
+[data]
+features = "imaging.csv"
+clinical = "clinical.csv"
+time = "os_months"
+event = "status"
+event_codes = ["dead"]
+censor_codes = ["alive"]
+centre = "hospital"
+batch = "scanner"
+
+[[predictor]]
+column = "age"
+
+[[predictor]]
+column = "stage"
+kind = "categorical"
+reference = "I"
+
+[[predictor]]
+column = "ecog"
+kind = "ordinal"
+levels = ["0", "1", "2"]
+missing = "impute"
+
+[imaging]
+include = ["*"]
+volume_feature = "morph_volume_cc"
+
+[imaging.harmonise]
+method = "combat"
+protect = ["age"]
+
+[imaging.penalty]
+n_alphas = 25
+
+[models]
+fit = ["clinical", "combined"]
+
+[validation]
+method = "bootstrap"
+replicates = 3
+backend = "serial"
+"""
+
+
+@pytest.fixture(scope="module")
+def result(tmp_path_factory):
+    from workbench.simulate import simulate_cohort
+    from workbench.study import read_study
+    from workbench.workflow import run_study
+
+    sim = simulate_cohort(260, random_state=3, n_features=50)
+    d = tmp_path_factory.mktemp("study")
+    sim.imaging.to_csv(d / "imaging.csv", index=False)
+    sim.clinical.to_csv(d / "clinical.csv", index=False)
+    (d / "study.toml").write_text(STUDY)
+    return run_study(read_study(d / "study.toml"))
+
+
+@pytest.fixture(scope="module")
+def files(result, tmp_path_factory):
+    return write_report(result, tmp_path_factory.mktemp("report"), pdf=False)
+
+
+@pytest.fixture(scope="module")
+def html(files):
+    return files.html.read_text(encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def data(result):
+    return results_dict(result)
+
+
+def section(html: str, sid: str) -> str:
+    start = html.index(f'<section id="{sid}"')
+    end = html.find("<section id=", start + 10)
+    return html[start:] if end < 0 else html[start:end]
+
+
+def text_of(fragment: str) -> str:
+    return re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", fragment))
+
+
+def test_every_section_is_there_with_its_heading(html):
+    assert '<section id="title">' in html
+    for sid, heading in SECTIONS:
+        part = section(html, sid)
+        assert f"<h2>{heading}</h2>" in part, sid
+
+
+def test_caution_at_the_top_and_on_every_printed_page(html, data):
+    body = html[html.index("<body>"):]
+    assert body.index(data["caution"]) < body.index('<section id="methods-summary"')
+    # the print style sheet carries it in the page margin, so Chromium prints it on every page
+    css = html[html.index("<style>"):html.index("</style>")]
+    assert "@bottom-left" in css and data["caution"] in css
+
+
+def test_corrected_harrell_c_and_key_numbers_equal_the_results(html, data):
+    perf = text_of(section(html, "performance"))
+    for name in ("clinical", "combined"):
+        c = data["models"][name]["performance"]["harrell_c"]
+        assert f"{c['estimate']:.3f}" in perf
+        assert f"{c['ci_lower']:.3f} to {c['ci_upper']:.3f}" in perf
+        assert f"apparent {c['apparent']:.3f}" in perf
+    cal = text_of(section(html, "calibration"))
+    ici = data["models"]["combined"]["performance"]["ici@24"]["estimate"]
+    assert fmt_num(ici) in cal
+    inc = text_of(section(html, "incremental"))
+    lr = data["comparison"]["combined"]["likelihood_ratio_test"]
+    assert f"{lr['statistic']:.1f} on {lr['df']} df" in inc
+    diff = data["comparison"]["combined"]["differences"]["harrell_c"]["estimate"]
+    assert fmt_num(diff) in inc
+    ss = text_of(section(html, "sample-size"))
+    assert str(data["cohort"]["summary"]["sample_size"]["n_required"]) in ss
+
+
+def test_full_model_with_baseline_survival_and_centring(html, data):
+    model = text_of(section(html, "model"))
+    block = data["models"]["combined"]
+    for row in block["coefficients"]:
+        assert fmt_num(row["coef"], 4) in model, row["column"]
+    for s0 in block["baseline_survival"]["survival"]:
+        assert f"{s0:.4f}" in model
+    for name, xm in block["baseline_survival"]["x_mean"].items():
+        assert fmt_num(xm, 4) in model, name
+    for feat in block["signature"]["selected"]:
+        assert feat in model
+
+
+def test_printed_survival_matches_lifelines(html, result):
+    # reference: lifelines' Kaplan-Meier estimator on the same times and events
+    from lifelines import KaplanMeierFitter
+
+    km = KaplanMeierFitter().fit(result.cohort.time, result.cohort.event)
+    outcome = text_of(section(html, "outcome"))
+    for h in result.spec.horizons:
+        s = float(km.survival_function_at_times(h).iloc[0])
+        assert f"{100 * s:.1f}%" in outcome, h
+
+
+def test_riley_criterion_one_printed_as_the_formula_gives(html, data):
+    # reference: Riley et al., Stat Med 2019;38:1276-96, criterion (i) n = p / ((S - 1) ln(1 - R2cs / S))
+    ss = data["cohort"]["summary"]["sample_size"]
+    n = math.ceil(ss["n_parameters"] / ((0.9 - 1) * math.log(1 - ss["r2_cs"] / 0.9)))
+    row = re.search(r"\(i\) expected shrinkage at least 0\.9</td><td class=\"n\">(\d+)<", section(html, "sample-size"))
+    assert row is not None and int(row.group(1)) == n
+
+
+def test_self_contained_no_external_urls(html):
+    refs = re.findall(r"""(?:src|href)\s*=\s*["']([^"']*)["']""", html)
+    assert refs, "the report should embed figures and link its sections"
+    for r in refs:
+        assert r.startswith("#") or r.startswith("data:"), r[:80]
+    assert "@import" not in html and "url(" not in html
+    assert "<script" not in html.lower()
+    n_figures = len(re.findall(r'<img src="data:image/svg\+xml;base64,', html))
+    assert n_figures >= 8
+
+
+def test_no_patient_identifier_in_the_report(html, result):
+    ids = [str(i) for i in result.cohort.ids]
+    assert ids and ids[0] in result.cohort.ids
+    found = [i for i in ids if re.search(rf"(?<![\w-]){re.escape(i)}(?![\w-])", html)]
+    assert found == []
+
+
+def test_no_machine_paths_in_the_study_file_text(html, result):
+    text = unescape(section(html, "software"))
+    assert result.spec.data.features not in text
+    assert '"imaging.csv"' in text
+
+
+def test_identifiers_only_when_asked(result):
+    with_ids = render_report(result, include_ids=True, figures=False)
+    assert 'id="ids"' in with_ids
+    assert 'id="ids"' not in render_report(result, figures=False)
+
+
+def test_checklist_items_point_at_real_sections(result, html):
+    items = reporting_checklist(result)
+    ids = {sid for sid, _ in SECTIONS} | {"title"}
+    assert {i.status for i in items} == {FILLED, AUTHORS}
+    for i in items:
+        assert i.section is None or i.section in ids, i
+    must = {i.topic for i in items if i.status == AUTHORS}
+    assert {"Funding", "Ethics", "Patient and public involvement", "Source of data"} <= must
+    assert "External validation" in must  # no external cohort in this run
+    assert "This run has no external cohort" in text_of(section(html, "external"))
+
+
+def test_limitations_follow_the_run(html, result):
+    lim = text_of(section(html, "limitations"))
+    assert "Only 3 bootstrap replicates" in lim
+    if any(c == "VolumeDominanceWarning" for c, _ in result.warnings):
+        assert "Volume dominance" in lim
+
+
+def test_css_strings_cannot_break_out():
+    s = str(_css_string('a "quoted" </style> name'))
+    assert s.startswith('"') and s.endswith('"')
+    assert "</style>" not in s and '\\"quoted\\"' in s
+
+
+def test_missing_browser_is_a_clear_error():
+    with pytest.raises(ReportError, match="apt-get install chromium") as err:
+        find_chromium("no-such-browser-here")
+    assert isinstance(err.value, WorkbenchError)
+    assert "pdf=False" in str(err.value)
+
