@@ -33,7 +33,6 @@ import numpy as np
 import pandas as pd
 from sklearn.base import BaseEstimator
 from sklearn.exceptions import ConvergenceWarning as _SkConvergenceWarning
-from sklearn.model_selection import StratifiedGroupKFold
 from sksurv.linear_model import CoxnetSurvivalAnalysis
 
 from workbench.cohort.outcome import check_outcome, split_outcome
@@ -154,17 +153,26 @@ def patient_folds(groups, event, n_folds: int = 5, random_state=None) -> np.ndar
             f"cross-validation needs at least {n_folds} distinct patients for {n_folds} folds, "
             f"but only {n_groups} were given. Lower n_folds or check the patient ids."
         )
-    if isinstance(random_state, (int, np.integer)):
-        seed = int(random_state)
-    else:  # None or a Generator: draw the splitter's seed from it
-        seed = int(np.random.default_rng(random_state).integers(2**31 - 1))
-    splitter = StratifiedGroupKFold(n_splits=n_folds, shuffle=True, random_state=seed)
-    fold = np.empty(groups.size, dtype=int)
-    codes = pd.factorize(groups)[0]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)  # fewer events than folds per class
-        for k, (_, test) in enumerate(splitter.split(np.zeros(groups.size), event, codes)):
-            fold[test] = k
+    rng = np.random.default_rng(random_state)
+    codes, _ = pd.factorize(groups)
+    n_ev = np.bincount(codes, weights=event.astype(float), minlength=n_groups)
+    n_rows = np.bincount(codes, minlength=n_groups)
+    # Greedy balancing (a few hundred patients: a plain loop is far cheaper than a generic
+    # splitter): patients in random order, those with most events first, each to the fold
+    # with the fewest events so far (ties: fewest rows); patients without an event go to
+    # the fold with the fewest rows.
+    order = rng.permutation(n_groups)
+    order = order[np.argsort(-n_ev[order], kind="stable")]
+    fold_events = np.zeros(n_folds)
+    fold_rows = np.zeros(n_folds)
+    group_fold = np.empty(n_groups, dtype=int)
+    for g in order:
+        keys = (rng.random(n_folds), fold_rows, fold_events) if n_ev[g] > 0 else (rng.random(n_folds), fold_rows)
+        k = int(np.lexsort(keys)[0])
+        group_fold[g] = k
+        fold_events[k] += n_ev[g]
+        fold_rows[k] += n_rows[g]
+    fold = group_fold[codes]
     return fold
 
 
