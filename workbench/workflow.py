@@ -165,6 +165,7 @@ def run_study(
             scheduler=v.scheduler,
             progress=_progress(progress, cancel, "internal validation"),
             model_replicates=model_reps,
+            apparent_models=fitted,
         )
 
         external = ext_prepared = None
@@ -175,7 +176,7 @@ def run_study(
                 cohort.y,
                 ext_prepared.cohort,
                 spec.horizons,
-                replicates=max(v.replicates, 50) if v.method != "none" else 0,
+                replicates=v.replicates if v.method != "none" else 0,
                 random_state=spec.seed,
                 progress=_progress(progress, cancel, "external validation"),
             )

@@ -441,14 +441,17 @@ def _chunks(tasks: list, workers: int, backend: str) -> list[list]:
     return [tasks[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]
 
 
-def _apparent(cohort: Cohort, models: Mapping, horizons, grid, kw, seed_ss):
+def _apparent(cohort: Cohort, models: Mapping, horizons, grid, kw, seed_ss, prefitted=None):
     perf, fits, preds = {}, {}, {}
     times = prediction_times(horizons, grid)
     for name, model in models.items():
         seed = _seed_int(seed_ss) if _has_unset_random_state(model) else None
         try:
-            fitted = _reseeded(model, seed)
-            fitted = fitted.fit(cohort) or fitted
+            if prefitted is not None and name in prefitted:
+                fitted = prefitted[name]
+            else:
+                fitted = _reseeded(model, seed)
+                fitted = fitted.fit(cohort) or fitted
         except Exception as exc:
             raise ModelError(
                 f"model {name!r} could not be fitted on all {cohort.n} patients of the cohort "
@@ -733,6 +736,7 @@ def validate(
     conf_level: float = 0.95,
     max_failure_rate: float = 0.10,
     reseed_models: bool = True,
+    apparent_models: Mapping[str, object] | None = None,
 ) -> ValidationResult:
     """Internally validate unfitted models by refitting them in every resample.
 
@@ -771,6 +775,10 @@ def validate(
         replicates is an error; below it failures are counted and reported.
     reseed_models : bool, default True
         Give every replicate's model copy its own ``random_state`` (see module notes).
+    apparent_models : dict of name to fitted model, optional
+        Models already fitted on all rows of ``cohort`` with the same settings (the
+        caller's apparent fits); they are used as they are instead of being fitted
+        again. Passing models fitted on other rows makes the apparent values wrong.
 
     Returns
     -------
@@ -798,7 +806,7 @@ def validate(
     h = np.unique(np.asarray(horizons, dtype=float))
     grid = ibs_grid(cohort.y, h)
     kw = {"tau": tau, "calibration": calibration, "thresholds": thresholds, "time_unit": cohort.time_unit}
-    apparent, fits, apparent_pairs = _apparent(cohort, models, h, grid, kw, app_ss)
+    apparent, fits, apparent_pairs = _apparent(cohort, models, h, grid, kw, app_ss, apparent_models)
 
     notes, centres = [], ()
     if method == "bootstrap":
