@@ -151,6 +151,7 @@ def test_wrong_column_mapping_is_explained(page):
 def test_design_view(page):
     _goto(page, "Design")
     page.get_by_text("The study is complete").wait_for()
+    page.get_by_role("button", name="Download the study file (TOML)").wait_for()
     text = _main(page).inner_text()
     assert "Clinical predictors" in text and "Imaging signature" in text
     assert "240 of 240 imaging features in the pool" in text
@@ -169,6 +170,8 @@ def test_results_view_runs_with_progress(page):
     page.get_by_role("button", name="Cancel the run").wait_for()
     page.get_by_role("progressbar").first.wait_for()
     page.get_by_text("Finished in").wait_for(timeout=RUN_TIMEOUT_MS)
+    page.get_by_text("Figures", exact=True).wait_for()
+    page.get_by_role("button", name="Download PDF").wait_for()
     _settle(page, 1500)
     text = _main(page).inner_text()
     assert "Discrimination" in text and "Against the baseline" in text
@@ -180,7 +183,9 @@ def test_results_view_runs_with_progress(page):
 def test_signature_view(page):
     _goto(page, "Signature")
     page.get_by_text("Reduction steps").wait_for()
-    assert "Stability across resamples" in _main(page).inner_text()
+    page.get_by_text("Stability across resamples").wait_for()
+    page.get_by_text("refits kept between").wait_for()
+    _settle(page)
     _no_traceback(page)
     _shot(page, "4_signature")
 
@@ -198,6 +203,8 @@ def test_patient_view(page):
     _goto(page, "Patient")
     page.get_by_role("button", name="Estimate").click()
     page.get_by_text("Survival at 12 months").first.wait_for()
+    page.get_by_text("On the nomogram").wait_for()
+    page.get_by_text("Survival read off the nomogram").wait_for()
     _settle(page, 1500)
     text = _main(page).inner_text()
     assert "95% CI" in text and "Research use only" in text
@@ -207,6 +214,7 @@ def test_patient_view(page):
     age.fill("120")
     page.get_by_role("button", name="Estimate").click()
     page.get_by_text("above the training range").first.wait_for()
+    page.get_by_text("Survival read off the nomogram").wait_for()
     _settle(page)
     _shot(page, "6b_patient_out_of_range")
 
@@ -214,6 +222,7 @@ def test_patient_view(page):
 def test_export_view(page):
     _goto(page, "Export")
     page.get_by_role("button", name="Download results.json").wait_for()
+    page.get_by_role("button", name="Download the model bundle (zip)").wait_for()
     with page.expect_download() as dl:
         page.get_by_role("button", name="Download results.json").click()
     path = dl.value.path()

@@ -163,6 +163,7 @@ def test_export_page_offers_results_and_bundle(ran, cli_results):
     labels = [b.label for b in ran.get("download_button")]
     assert "Download results.json" in labels
     assert "Download the model bundle (zip)" in labels
+    assert "Download the report (HTML)" in labels
 
 
 @pytest.mark.slow

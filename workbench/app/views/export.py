@@ -61,6 +61,11 @@ def _report():
     return None
 
 
+@st.cache_data(show_spinner="Writing the report...", max_entries=4)
+def _report_html(run_key: tuple, _result) -> str:
+    return _report()(_result)
+
+
 def render() -> None:
     st.title("Export")
     st.write("Download what the run produced, to archive it, share it or apply the models to new patients.")
@@ -78,12 +83,13 @@ def render() -> None:
                        mime="application/toml", key="export_study")
 
     st.subheader("Report")
-    fn = _report()
-    if fn is None:
+    if _report() is None:
         state.not_available("The HTML report")
     else:
+        st.caption("One self-contained HTML file with the methods, every table and figure, and the caution; "
+                   "it lists no patient identifiers.")
         try:
-            html = fn(result)
+            html = _report_html(key, result)
             st.download_button("Download the report (HTML)", html, file_name="report.html", mime="text/html",
                                key="export_report")
         except Exception as exc:  # noqa: BLE001
