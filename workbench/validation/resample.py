@@ -24,17 +24,23 @@ For a metric with apparent value A (fit and evaluate on all rows), replicate b
 gives B_b (fit and evaluate on the bootstrap sample) and O_b (the same fit
 evaluated on the original rows). optimism = mean_b(B_b - O_b) and the corrected
 estimate is A - optimism (Harrell, Lee & Mark 1996). The 95% interval is the
-percentile interval of B_b shifted by the mean optimism,
-[q_2.5(B) - optimism, q_97.5(B) - optimism], the location-shifted bootstrap
-interval studied by Noma et al. (2021, from memory). Why B and not O: B_b is the
-apparent performance of the whole modelling process re-run on a new sample of
-the same size, so its spread is the bootstrap estimate of the sampling
-variability of A; O_b is evaluated on rows about 63% of which the model was
-trained on, a mixture that understates the variability. The shift moves the
-interval to the corrected estimate. It ignores the variability of the optimism
-itself (small next to that of A), which only a double bootstrap would capture.
-Where B has no spread (the calibration slope of an unpenalised Cox model on its
-own training rows is always 1) the interval is NaN rather than of zero width.
+percentile interval of B_b moved so that the mean of B maps to the corrected
+estimate, [est + q_2.5(B) - mean(B), est + q_97.5(B) - mean(B)], a location-shifted
+bootstrap interval (Noma et al. 2021, from memory). When the bootstrap-sample
+performance is centred on the apparent value (mean(B) = A, as for Cox models)
+this is the percentile interval of B shifted by the optimism. For flexible
+models it is not: a forest fitted to a bootstrap sample, with its repeated
+patients, fits that sample better than the original fit fits the original rows
+(mean(B) > A), and shifting by the optimism alone would place the interval
+above the corrected estimate. Why B and not O: B_b is the apparent performance
+of the whole modelling process re-run on a new sample of the same size, so its
+spread is the bootstrap estimate of the sampling variability of A; O_b is
+evaluated on rows about 63% of which the model was trained on, a mixture that
+understates the variability. The interval ignores the variability of the
+optimism itself (small next to that of A), which only a double bootstrap would
+capture. Where B has no spread (the calibration slope of an unpenalised Cox
+model on its own training rows is always 1) the interval is NaN rather than of
+zero width.
 
 Cross-validation
 ----------------
@@ -178,7 +184,7 @@ class MetricEstimate:
         Bootstrap/external: SD of B; cv: SD of the repeat means; by_centre:
         event-weighted SD across centres.
     ci_lower, ci_upper : float
-        Bootstrap: percentile interval of B shifted by the optimism (NaN where B
+        Bootstrap: percentile interval of B re-centred on the estimate (NaN where B
         has no spread); external: percentile interval; NaN for cv and by_centre.
     n_used : int
         Replicates (folds, centres) that contributed.
@@ -570,7 +576,9 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
                 est, sd = a - opt, _sd(b)
                 tiny = 1e-9 * max(1.0, abs(a))
                 if sd > tiny:
-                    lo, hi = (x - opt for x in _percentiles(b, conf_level))
+                    # percentile interval of B, moved so that it is centred where B's mean
+                    # maps to the corrected estimate (see the module notes)
+                    lo, hi = (x - float(np.mean(b)) + est for x in _percentiles(b, conf_level))
                 elif not _sd(o) > tiny:
                     lo = hi = est  # nothing varies at all (e.g. a model compared with itself)
                 # else B has no spread but O does (an unpenalised Cox model's slope on its own
