@@ -243,6 +243,10 @@ class CombinedCox(_CoxBase):
     def _design(self, cohort: Cohort) -> np.ndarray:
         design = self.transformer_.transform(cohort)
         _complete_rows(design, cohort, self.name)
+        if not self.selected_features_:
+            # The signature kept no feature: its score is 0 for everyone and carries no
+            # information, so the model is the clinical model (the honest answer on noise).
+            return design.X
         return np.column_stack([design.X, self.signature_score(cohort)])
 
     def fit(self, cohort: Cohort) -> CombinedCox:
@@ -259,7 +263,8 @@ class CombinedCox(_CoxBase):
         )
         self.selected_features_ = tuple(self.signature_.selected_features_)
         X = self._design(cohort)
-        self._fit_cox(X, cohort, (*self.transformer_.columns_, SIGNATURE_TERM))
+        names = (*self.transformer_.columns_, SIGNATURE_TERM) if self.selected_features_ else self.transformer_.columns_
+        self._fit_cox(X, cohort, names)
         return self
 
     def _term_of(self, column: str) -> str:

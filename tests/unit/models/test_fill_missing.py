@@ -32,3 +32,19 @@ def test_combined_model_imputes_held_out_gaps_with_training_medians(simulated_co
     a = m.predict_risk(replace(held, features=gappy)).values
     b = m.predict_risk(replace(held, features=filled)).values
     np.testing.assert_allclose(a, b, rtol=0, atol=1e-12)
+
+
+def test_combined_model_without_any_kept_feature_is_the_clinical_model(simulated_cohort, demo_predictors):
+    from workbench.models.cox import ClinicalCox
+
+    cohort, _ = simulated_cohort
+    # imaging columns of pure noise (seeded), screened at a false discovery rate of 1%
+    rng = np.random.default_rng(0)
+    noise = pd.DataFrame(rng.normal(size=(cohort.n, 30)), columns=[f"stat_noise_{i}" for i in range(30)])
+    cohort = replace(cohort, features=noise)
+    sig = ImagingSignature(n_alphas=20, screen_fdr=0.01, random_state=0)
+    m = CombinedCox(demo_predictors, signature=sig).fit(cohort)
+    assert m.selected_features_ == ()
+    c = ClinicalCox(demo_predictors).fit(cohort)
+    np.testing.assert_allclose(m.predict_risk(cohort).values, c.predict_risk(cohort).values, atol=1e-12)
+    assert m.n_params_ == c.n_params_
