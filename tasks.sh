@@ -38,7 +38,7 @@ case "$cmd" in
     "$VENV/bin/python" -m workbench.app.launch "$@"
     ;;
   *)
-    echo "usage: ./tasks.sh demo | test" >&2
+    echo "usage: ./tasks.sh demo | test | app" >&2
     exit 2
     ;;
 esac
