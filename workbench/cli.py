@@ -125,11 +125,17 @@ def _cmd_run(args) -> int:
 def _write_report(result, out: Path, args) -> list[str]:
     if args.no_report:
         return []
-    try:
-        from workbench.report.html import write_report
-    except ImportError:  # the report module is optional while it is being built
-        return []
-    files = write_report(result, out, pdf=not args.no_pdf)
+    from workbench.report.html import write_report
+    from workbench.report.pdf import ReportError, find_chromium
+
+    pdf = not args.no_pdf
+    if pdf:
+        try:
+            find_chromium()
+        except ReportError as exc:
+            print(f"note: the HTML report is written but not the PDF: {exc}", file=sys.stderr)
+            pdf = False
+    files = write_report(result, out, pdf=pdf)
     return [Path(f).name for f in (files.html, files.pdf) if f]
 
 
