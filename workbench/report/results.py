@@ -220,6 +220,15 @@ def fmt_estimate(e, digits: int = 3) -> str:
     return f"{e.estimate:.{digits}f}{ci}"
 
 
+def _replicate_text(n_replicates: dict) -> str:
+    counts = sorted(set(n_replicates.values()), reverse=True)
+    if len(counts) == 1:
+        return f"{counts[0]} replicates"
+    main = counts[0]
+    fewer = ", ".join(f"{k} {n}" for k, n in n_replicates.items() if n != main)
+    return f"{main} replicates ({fewer}: budgeted separately, slower to refit)"
+
+
 def format_results(result) -> str:
     """A short plain-text digest of a run for the terminal."""
     v = result.validation
@@ -230,7 +239,7 @@ def format_results(result) -> str:
     lines = [
         f"Study: {result.spec.name}",
         f"{result.prepared.cohort.n} patients, {result.prepared.cohort.n_events} events; "
-        f"validation {method}, replicates {jsonable(v.n_replicates)}",
+        f"validation {method}, {_replicate_text(v.n_replicates)}",
         "",
         f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",
     ]
@@ -254,7 +263,8 @@ def format_results(result) -> str:
         lines.append(f"{MODEL_LABELS.get(name, name)} vs {MODEL_LABELS.get(comp.baseline, comp.baseline)}:")
         lines.append(f"  difference in Harrell C {fmt_estimate(d)}")
         if lr.nested and np.isfinite(lr.statistic):
-            lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g}")
+            lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
+                         "(apparent: the signature was built on the same patients)")
     if result.external is not None:
         lines.append("")
         lines.append(f"External cohort ({result.external_prepared.cohort.n} patients):")
