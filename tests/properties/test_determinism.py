@@ -111,7 +111,7 @@ def test_same_seed_same_result_different_seed_different(setup, serial):
 
 @pytest.mark.slow
 def test_local_dask_cluster_equals_serial(setup, serial):
-    distributed = pytest.importorskip("distributed")
+    import distributed
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster:
         res = _run(setup, backend="dask", scheduler=cluster.scheduler_address, workers=2)

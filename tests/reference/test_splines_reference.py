@@ -20,6 +20,7 @@ import pytest
 from lifelines import CoxPHFitter
 from sksurv.datasets import load_gbsg2
 
+from workbench.errors import WorkbenchError
 from workbench.preprocess.clinical import ClinicalTransformer, PredictorSpec, hazard_ratio_rows
 from workbench.preprocess.splines import harrell_knots, rcs_basis
 
@@ -88,7 +89,10 @@ def test_knots_are_numpy_percentiles_at_harrell_quantiles(gbsg2, column, k):
     x = gbsg2[column].to_numpy(dtype=float)
     expected = np.percentile(x, np.array(BOOK_QUANTILES[k]) * 100.0)
     if np.any(np.diff(expected) <= 0):
-        pytest.skip(f"{column} has tied percentiles for {k} knots")
+        # tied percentiles cannot be knots: the workbench refuses them with a clear error
+        with pytest.raises(WorkbenchError):
+            harrell_knots(x, k)
+        return
     np.testing.assert_allclose(harrell_knots(x, k), expected, rtol=1e-12)
 
 
