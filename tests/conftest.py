@@ -119,3 +119,78 @@ def demo_predictors():
     from workbench.study import read_study
 
     return read_study(Path(__file__).parents[1] / "demo_cohort" / "study.toml").predictors
+
+
+
+# A small study on the demo generator (invented data): 260 patients, 50 imaging features,
+# clinical + combined models, 3 bootstrap replicates run serially. Shared by the workflow,
+# report and browser tests so that it runs once per test session.
+SMALL_STUDY = """
+[study]
+name = "small simulated study"
+horizons = [12, 24]
+seed = 5
+
+[data]
+features = "imaging.csv"
+clinical = "clinical.csv"
+time = "os_months"
+event = "status"
+event_codes = ["dead"]
+censor_codes = ["alive"]
+centre = "hospital"
+batch = "scanner"
+
+[[predictor]]
+column = "age"
+
+[[predictor]]
+column = "stage"
+kind = "categorical"
+reference = "I"
+
+[[predictor]]
+column = "ecog"
+kind = "ordinal"
+levels = ["0", "1", "2"]
+missing = "impute"
+
+[imaging]
+include = ["*"]
+volume_feature = "morph_volume_cc"
+
+[imaging.harmonise]
+method = "combat"
+protect = ["age"]
+
+[imaging.penalty]
+n_alphas = 25
+
+[models]
+fit = ["clinical", "combined"]
+
+[validation]
+method = "bootstrap"
+replicates = 3
+backend = "serial"
+"""
+
+
+@pytest.fixture(scope="session")
+def small_study_file(tmp_path_factory):
+    from workbench.simulate import simulate_cohort
+
+    sim = simulate_cohort(260, random_state=3, n_features=50)
+    d = tmp_path_factory.mktemp("small_study")
+    sim.imaging.to_csv(d / "imaging.csv", index=False)
+    sim.clinical.to_csv(d / "clinical.csv", index=False)
+    (d / "study.toml").write_text(SMALL_STUDY)
+    return d / "study.toml"
+
+
+@pytest.fixture(scope="session")
+def small_study_result(small_study_file):
+    from workbench.study import read_study
+    from workbench.workflow import run_study
+
+    return run_study(read_study(small_study_file))

@@ -15,71 +15,14 @@ CHROMIUM = "/usr/bin/chromium"
 ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
         "--disable-component-update", "--disable-sync"]
 
-STUDY = """
-[study]
-name = "small simulated study"
-horizons = [12, 24]
-seed = 5
 
-[data]
-features = "imaging.csv"
-clinical = "clinical.csv"
-time = "os_months"
-event = "status"
-event_codes = ["dead"]
-censor_codes = ["alive"]
-centre = "hospital"
-batch = "scanner"
-
-[[predictor]]
-column = "age"
-
-[[predictor]]
-column = "stage"
-kind = "categorical"
-reference = "I"
-
-[[predictor]]
-column = "ecog"
-kind = "ordinal"
-levels = ["0", "1", "2"]
-missing = "impute"
-
-[imaging]
-include = ["*"]
-volume_feature = "morph_volume_cc"
-
-[imaging.harmonise]
-method = "combat"
-protect = ["age"]
-
-[imaging.penalty]
-n_alphas = 25
-
-[models]
-fit = ["clinical", "combined"]
-
-[validation]
-method = "bootstrap"
-replicates = 3
-backend = "serial"
-"""
 
 # No skip: the test command installs Chromium (tests/app/install_browser.sh) before the suite.
 
 
 @pytest.fixture(scope="module")
-def report(tmp_path_factory):
-    from workbench.simulate import simulate_cohort
-    from workbench.study import read_study
-    from workbench.workflow import run_study
-
-    sim = simulate_cohort(260, random_state=3, n_features=50)
-    d = tmp_path_factory.mktemp("study")
-    sim.imaging.to_csv(d / "imaging.csv", index=False)
-    sim.clinical.to_csv(d / "clinical.csv", index=False)
-    (d / "study.toml").write_text(STUDY)
-    result = run_study(read_study(d / "study.toml"))
+def report(small_study_result, tmp_path_factory):
+    result = small_study_result
     return result, write_report(result, tmp_path_factory.mktemp("report"), pdf=True)
 
 

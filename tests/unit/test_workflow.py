@@ -11,72 +11,15 @@ from workbench.report.results import results_dict, write_results
 from workbench.study import read_study
 from workbench.workflow import RunCancelled, run_study
 
-STUDY = """
-[study]
-name = "small simulated study"
-horizons = [12, 24]
-seed = 5
 
-[data]
-features = "imaging.csv"
-clinical = "clinical.csv"
-time = "os_months"
-event = "status"
-event_codes = ["dead"]
-censor_codes = ["alive"]
-centre = "hospital"
-batch = "scanner"
-
-[[predictor]]
-column = "age"
-
-[[predictor]]
-column = "stage"
-kind = "categorical"
-reference = "I"
-
-[[predictor]]
-column = "ecog"
-kind = "ordinal"
-levels = ["0", "1", "2"]
-missing = "impute"
-
-[imaging]
-include = ["*"]
-volume_feature = "morph_volume_cc"
-
-[imaging.harmonise]
-method = "combat"
-protect = ["age"]
-
-[imaging.penalty]
-n_alphas = 25
-
-[models]
-fit = ["clinical", "combined"]
-
-[validation]
-method = "bootstrap"
-replicates = 3
-backend = "serial"
-"""
+@pytest.fixture(scope="module")
+def study_file(small_study_file):
+    return small_study_file
 
 
 @pytest.fixture(scope="module")
-def study_file(tmp_path_factory):
-    from workbench.simulate import simulate_cohort
-
-    sim = simulate_cohort(260, random_state=3, n_features=50)
-    d = tmp_path_factory.mktemp("study")
-    sim.imaging.to_csv(d / "imaging.csv", index=False)
-    sim.clinical.to_csv(d / "clinical.csv", index=False)
-    (d / "study.toml").write_text(STUDY)
-    return d / "study.toml"
-
-
-@pytest.fixture(scope="module")
-def result(study_file):
-    return run_study(read_study(study_file))
+def result(small_study_result):
+    return small_study_result
 
 
 def test_result_holds_every_block(result, tmp_path):
@@ -126,7 +69,7 @@ def test_cli_run_and_bad_study(study_file, tmp_path, capsys):
     assert "Harrell C" in out and "Caution:" in out
     assert (tmp_path / "r" / "results.json").exists()
     bad = tmp_path / "bad.toml"
-    bad.write_text(STUDY.replace("replicates = 3", "replicate = 3"))
+    bad.write_text(study_file.read_text().replace("replicates = 3", "replicate = 3"))
     assert main(["run", str(bad)]) == 2
     assert "Did you mean 'replicates'" in capsys.readouterr().err
 
