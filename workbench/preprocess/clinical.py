@@ -817,6 +817,8 @@ def hazard_ratio_rows(
             rows.append(_row(t, (names[j],), f"{lv} vs {t.reference}", b[j], np.sqrt(v[j, j]), level))
         return tuple(rows)
     unit = f" {t.unit}" if t.unit else ""
+    if per == 1.0 and unit.endswith("s") and unit.strip() in ("years", "months", "weeks", "days"):
+        unit = unit[:-1]  # "per 1 year", not "per 1 years"
     if t.kind == "linear":
         se = np.sqrt(v[0, 0])
         scales = {None: [(per, f"per {per:g}{unit}")], "log2": [(1.0, "per doubling")],
