@@ -11,14 +11,17 @@ from __future__ import annotations
 import fnmatch
 import hashlib
 import platform
+import warnings
 from dataclasses import dataclass, replace
 from importlib import metadata
 
 import numpy as np
+import pandas as pd
+from scipy.stats import rankdata
 
 from workbench.cohort.core import Cohort
 from workbench.cohort.io import read_cohort
-from workbench.errors import CohortError, SpecError
+from workbench.errors import CohortError, PostOutcomeWarning, SpecError
 from workbench.study import StudySpec
 
 PROVENANCE_PACKAGES = (
@@ -83,6 +86,70 @@ def drop_incomplete(cohort: Cohort, predictors) -> tuple[Cohort, tuple[str, ...]
     return (cohort.mask(~drop) if drop.any() else cohort), ids, by_col
 
 
+POST_OUTCOME_AUC = 0.95
+"""A column that separates patients with and without the event this well (AUC of the
+column for the event flag, either direction) is suspicious (common practice threshold)."""
+
+
+def check_post_outcome(cohort: Cohort, predictors=(), *, min_missing: int = 5) -> tuple[str, ...]:
+    """Warn about predictors that look as if they were recorded after the outcome.
+
+    Two patterns, each a :class:`PostOutcomeWarning` naming the column:
+
+    * missing only for patients who had the event (at least ``min_missing`` of them),
+      as when a value is recorded at a follow-up visit the patient did not live to;
+    * a column that separates patients with and without the event almost perfectly
+      (AUC >= 0.95 in either direction for numeric columns; a level of at least 10
+      patients in which everyone, or no one, had the event for categorical columns).
+
+    Only flags, never changes the data. Returns the messages.
+    """
+    event = cohort.event
+    n1, n0 = int(event.sum()), int((~event).sum())
+    msgs = []
+    clinical_cols = [p.column for p in predictors if p.column in cohort.clinical.columns]
+    for col in clinical_cols:
+        v = cohort.clinical[col]
+        miss = v.isna().to_numpy() | (v.astype(str).str.strip() == "").to_numpy()
+        if miss.sum() >= min_missing and event[miss].all():
+            msgs.append(
+                f"clinical column {col!r} is missing for {int(miss.sum())} patients, all of whom had the event: "
+                "it may have been recorded after the outcome (e.g. at a later visit). Check how it was collected."
+            )
+        num = pd.to_numeric(v.astype(str).str.replace("<", "", regex=False), errors="coerce")
+        if num.notna().mean() < 0.9:
+            keys = v[~miss].astype(str).str.strip()
+            ev = pd.Series(event[~miss], index=keys.index)
+            for level, grp in ev.groupby(keys):
+                if grp.size >= 10 and grp.mean() in (0.0, 1.0):
+                    word = "every" if grp.mean() == 1.0 else "no"
+                    msgs.append(
+                        f"clinical column {col!r}: {word} patient with value {level!r} ({grp.size} patients) had the "
+                        "event; a value that predicts the outcome perfectly may have been recorded after it."
+                    )
+    X = cohort.features
+    if n1 and n0 and X.shape[1]:
+        A = X.to_numpy(dtype=float)
+        A = np.where(np.isnan(A), np.nanmedian(A, axis=0), A)
+        ranks = rankdata(A, axis=0)
+        auc = (ranks[event].sum(axis=0) - n1 * (n1 + 1) / 2.0) / (n1 * n0)
+        for j in np.flatnonzero(np.maximum(auc, 1 - auc) >= POST_OUTCOME_AUC):
+            msgs.append(
+                f"imaging feature {X.columns[j]!r} separates patients with and without the event almost perfectly "
+                f"(AUC {max(auc[j], 1 - auc[j]):.2f}); a measurement taken after the outcome, or one derived from it, "
+                "would look like this. Check its source before using it."
+            )
+        holes = X.isna().to_numpy()
+        for j in np.flatnonzero((holes.sum(axis=0) >= min_missing) & ~(holes & ~event[:, None]).any(axis=0)):
+            msgs.append(
+                f"imaging feature {X.columns[j]!r} is missing only for patients who had the event "
+                f"({int(holes[:, j].sum())}); it may have been recorded after the outcome."
+            )
+    for m in msgs:
+        warnings.warn(m, PostOutcomeWarning, stacklevel=2)
+    return tuple(msgs)
+
+
 def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort:
     """Read the study's (training or external) cohort and make it ready for modelling."""
     d = spec.data
@@ -97,6 +164,8 @@ def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort
     )
     n_read = cohort.n
     cohort, excluded = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)
+    if not external:
+        check_post_outcome(cohort, spec.predictors)
     cohort, incomplete, by_col = drop_incomplete(cohort, spec.predictors)
     return PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded)
 

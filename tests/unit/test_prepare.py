@@ -45,3 +45,28 @@ def test_unknown_predictor_column(cohort):
 def test_versions_recorded():
     v = package_versions()
     assert v["numpy"] == np.__version__ and "scikit-survival" in v
+
+
+def test_post_outcome_patterns_warn_and_clean_data_does_not(cohort):
+    import warnings
+
+    from workbench.errors import PostOutcomeWarning
+    from workbench.prepare import check_post_outcome
+
+    preds = (PredictorSpec("horTh", kind="categorical"), PredictorSpec("tgrade", kind="categorical"))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", PostOutcomeWarning)
+        assert check_post_outcome(cohort, preds) == ()  # GBSG2 as shipped raises nothing
+    ev = cohort.event
+    clin = cohort.clinical.copy()
+    clin["late_marker"] = np.where(ev & (np.arange(cohort.n) % 7 == 0), None, "x")
+    feats = cohort.features.assign(after=ev + np.random.default_rng(0).normal(0, 0.05, cohort.n))
+    from dataclasses import replace
+
+    bad = replace(cohort, clinical=clin, features=feats)
+    with pytest.warns(PostOutcomeWarning) as rec:
+        msgs = check_post_outcome(bad, (*preds, PredictorSpec("late_marker", kind="categorical")))
+    text = " ".join(msgs)
+    assert "'late_marker' is missing for" in text and "all of whom had the event" in text
+    assert "'after' separates patients with and without the event almost perfectly" in text
+    assert len(rec) == len(msgs)
