@@ -440,8 +440,10 @@ def _run_chunk(payload) -> list:
 
 
 def _chunks(tasks: list, workers: int, backend: str) -> list[list]:
-    # Ship the cohort once per chunk rather than once per replicate.
-    n_chunks = 1 if backend == "serial" or workers == 1 else min(len(tasks), 4 * int(workers))
+    # Ship the cohort once per chunk rather than once per replicate, but keep at least ten
+    # chunks so that progress and cancellation are seen during the run. Serial runs ship
+    # nothing, so every replicate is its own chunk.
+    n_chunks = len(tasks) if backend == "serial" else min(len(tasks), max(10, 4 * int(workers)))
     n_chunks = max(1, n_chunks)
     bounds = np.linspace(0, len(tasks), n_chunks + 1).round().astype(int)
     return [tasks[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]
