@@ -63,6 +63,7 @@ def build_models(spec: StudySpec) -> dict:
             min_samples_leaf=spec.models.forest.min_leaf,
             max_features=spec.models.forest.max_features,
             time_grid=spec.models.forest.time_grid,
+            extra_times=tuple(spec.horizons),
             random_state=seed,
         ),
     }

@@ -164,6 +164,8 @@ class ForestModel(_WideInputs):
     predictors : tuple of PredictorSpec
     harmonise, protect, combat_prior, unseen_batch : as in :class:`PenalisedAllCox`
     n_estimators, min_samples_leaf, max_features, time_grid : forest settings
+    extra_times : tuple of float
+        Times added to the forest's time grid (the study horizons).
     random_state : int
     name : str
     """
@@ -179,6 +181,7 @@ class ForestModel(_WideInputs):
         min_samples_leaf: int = 15,
         max_features="sqrt",
         time_grid: int = 100,
+        extra_times: tuple[float, ...] = (),
         random_state: int | None = None,
         name: str = "forest",
     ):
@@ -191,8 +194,19 @@ class ForestModel(_WideInputs):
         self.min_samples_leaf = min_samples_leaf
         self.max_features = max_features
         self.time_grid = time_grid
+        self.extra_times = extra_times
         self.random_state = random_state
         self.name = name
+
+    def _grid(self, cohort: Cohort) -> np.ndarray:
+        # Leaf curves are stored at event-time quantiles plus the study horizons, so that
+        # survival at each horizon is read exactly rather than from the nearest earlier
+        # grid time (which can be far off in the sparse tail of follow-up).
+        ev = np.sort(cohort.time[cohort.event])
+        q = np.quantile(ev, np.linspace(0.0, 1.0, int(self.time_grid)), method="inverted_cdf")
+        extra = np.asarray(self.extra_times, dtype=float)
+        extra = extra[(extra >= ev[0]) & (extra <= ev[-1])]
+        return np.unique(np.concatenate([q, extra]))
 
     def fit(self, cohort: Cohort) -> ForestModel:
         self._learn_inputs(cohort)
@@ -202,7 +216,7 @@ class ForestModel(_WideInputs):
             self.n_estimators,
             min_samples_leaf=self.min_samples_leaf,
             max_features=self.max_features,
-            time_grid=self.time_grid,
+            time_grid=self._grid(cohort),
             random_state=self.random_state,
         ).fit(X.to_numpy(), cohort.y)
         self.n_train_, self.n_events_ = cohort.n, cohort.n_events
