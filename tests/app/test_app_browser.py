@@ -189,6 +189,7 @@ def test_signature_view(page):
     page.get_by_text("Stability across resamples").wait_for()
     page.get_by_text("refits kept between").wait_for()
     _settle(page)
+    assert page.get_by_text("Reduction steps").count() >= 1
     _no_traceback(page)
     _shot(page, "4_signature")
 

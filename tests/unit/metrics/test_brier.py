@@ -94,4 +94,5 @@ def test_follow_up_warning_is_not_raised_for_the_multi_time_brier():
 
     with warnings.catch_warnings():
         warnings.simplefilter("error", FollowUpWarning)
-        brier_score(y, y, curves, [0.5, 1.0])
+        res = brier_score(y, y, curves, [0.5, 1.0])
+    assert np.all(np.isfinite(res.brier))

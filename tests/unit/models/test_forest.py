@@ -39,7 +39,7 @@ def train():
 
 
 @pytest.fixture(scope="module")
-def test_rows():
+def held_out_rows():
     return _cohort(400, seed=12)
 
 
@@ -73,10 +73,10 @@ def test_fit_returns_self_and_keeps_no_training_rows(train):
                 assert arr.ndim == 1 or not np.array_equal(arr, Xa), name
 
 
-def test_pickled_forest_predicts_the_same(fitted, test_rows):
+def test_pickled_forest_predicts_the_same(fitted, held_out_rows):
     import pickle
 
-    Xt, _ = test_rows
+    Xt, _ = held_out_rows
     again = pickle.loads(pickle.dumps(fitted))
     np.testing.assert_array_equal(again.predict_survival(Xt), fitted.predict_survival(Xt))
     np.testing.assert_array_equal(again.predict_risk(Xt), fitted.predict_risk(Xt))
@@ -88,9 +88,9 @@ def test_predict_before_fit_raises():
 
 
 @few_trees
-def test_same_seed_same_forest_other_seed_other_forest(train, test_rows):
+def test_same_seed_same_forest_other_seed_other_forest(train, held_out_rows):
     X, y = train
-    Xt, _ = test_rows
+    Xt, _ = held_out_rows
     small = {**SETTINGS, "n_estimators": 8}
     a = SurvivalForest(**small).fit(X, y).predict_survival(Xt)
     b = SurvivalForest(**small).fit(X, y).predict_survival(Xt)
@@ -130,8 +130,8 @@ def test_bad_grids_are_refused(train, grid):
         SurvivalForest(n_estimators=2, time_grid=grid).fit(X, y)
 
 
-def test_step_lookup_is_right_continuous(fitted, test_rows):
-    Xt, _ = test_rows
+def test_step_lookup_is_right_continuous(fitted, held_out_rows):
+    Xt, _ = held_out_rows
     g = fitted.time_grid_
     on_grid = fitted.predict_survival(Xt)
     between = fitted.predict_survival(Xt, 0.5 * (g[:-1] + g[1:]))
@@ -139,15 +139,15 @@ def test_step_lookup_is_right_continuous(fitted, test_rows):
     np.testing.assert_array_equal(fitted.predict_survival(Xt, g), on_grid)
 
 
-def test_before_first_event_is_one_and_after_last_is_last_value(fitted, test_rows):
-    Xt, _ = test_rows
+def test_before_first_event_is_one_and_after_last_is_last_value(fitted, held_out_rows):
+    Xt, _ = held_out_rows
     probs = fitted.predict_survival(Xt, [0.0, 0.5 * fitted.first_event_time_, 10 * fitted.last_event_time_])
     np.testing.assert_array_equal(probs[:, :2], 1.0)
     np.testing.assert_array_equal(probs[:, 2], fitted.predict_survival(Xt)[:, -1])
 
 
-def test_curves_are_probabilities_and_non_increasing(fitted, test_rows):
-    Xt, _ = test_rows
+def test_curves_are_probabilities_and_non_increasing(fitted, held_out_rows):
+    Xt, _ = held_out_rows
     p = fitted.predict_survival(Xt)
     assert p.shape == (len(Xt), fitted.time_grid_.size)
     assert np.all((p >= 0) & (p <= 1))
@@ -155,9 +155,9 @@ def test_curves_are_probabilities_and_non_increasing(fitted, test_rows):
 
 
 @few_trees
-def test_times_outside_a_user_grid_are_refused(train, test_rows):
+def test_times_outside_a_user_grid_are_refused(train, held_out_rows):
     X, y = train
-    Xt, _ = test_rows
+    Xt, _ = held_out_rows
     ev = np.unique(y["time"][y["event"]])
     f = SurvivalForest(**{**SETTINGS, "n_estimators": 3, "time_grid": ev[5:20]}).fit(X, y)
     with pytest.raises(ModelError, match="beyond the forest's last grid time"):
@@ -167,16 +167,16 @@ def test_times_outside_a_user_grid_are_refused(train, test_rows):
     assert f.predict_survival(Xt, [ev[10]]).shape == (len(Xt), 1)
 
 
-def test_negative_prediction_time_is_refused(fitted, test_rows):
+def test_negative_prediction_time_is_refused(fitted, held_out_rows):
     with pytest.raises(ModelError, match="non-negative"):
-        fitted.predict_survival(test_rows[0], [-1.0])
+        fitted.predict_survival(held_out_rows[0], [-1.0])
 
 
 # ------------------------------------------------------------ input checks
 
 
-def test_columns_are_matched_by_name(fitted, test_rows):
-    Xt, _ = test_rows
+def test_columns_are_matched_by_name(fitted, held_out_rows):
+    Xt, _ = held_out_rows
     np.testing.assert_array_equal(
         fitted.predict_risk(Xt[Xt.columns[::-1]]), fitted.predict_risk(Xt)
     )
@@ -216,8 +216,8 @@ def test_rows_without_out_of_bag_trees_are_left_out_with_a_warning(train):
     assert 0.0 <= f.oob_score_ <= 1.0
 
 
-def test_typed_predictions(fitted, test_rows):
-    Xt, _ = test_rows
+def test_typed_predictions(fitted, held_out_rows):
+    Xt, _ = held_out_rows
     r = fitted.predict_risk_scores(Xt)
     assert isinstance(r, RiskScores)
     np.testing.assert_array_equal(r.values, fitted.predict_risk(Xt))
@@ -226,8 +226,8 @@ def test_typed_predictions(fitted, test_rows):
     np.testing.assert_array_equal(c.probs, fitted.predict_survival(Xt))
 
 
-def test_risk_is_higher_for_the_strong_predictor(fitted, test_rows):
-    Xt, yt = test_rows
+def test_risk_is_higher_for_the_strong_predictor(fitted, held_out_rows):
+    Xt, yt = held_out_rows
     from sksurv.metrics import concordance_index_censored
 
     # synthetic truth: hazard exp(1.5 * strong), so a working forest ranks well
@@ -239,8 +239,8 @@ def test_risk_is_higher_for_the_strong_predictor(fitted, test_rows):
 # ------------------------------------------------------ permutation importance
 
 
-def test_importance_separates_planted_signal_from_noise(fitted, test_rows):
-    Xt, yt = test_rows
+def test_importance_separates_planted_signal_from_noise(fitted, held_out_rows):
+    Xt, yt = held_out_rows
     res = permutation_importance(fitted, Xt, yt, n_repeats=5, random_state=0)
     assert res.features[0] == "strong"
     imp = dict(zip(res.features, res.mean_drop, strict=True))
@@ -252,18 +252,18 @@ def test_importance_separates_planted_signal_from_noise(fitted, test_rows):
     np.testing.assert_allclose(res.sd_drop, res.drops.std(axis=1, ddof=1))
 
 
-def test_out_of_bag_importance_on_training_rows(fitted, train, test_rows):
+def test_out_of_bag_importance_on_training_rows(fitted, train, held_out_rows):
     X, y = train
     res = permutation_importance(fitted, X, y, n_repeats=3, random_state=0, rows="out-of-bag")
     assert res.features[0] == "strong" and res.mean_drop[0] > 0.1
     assert res.baseline == pytest.approx(fitted.oob_score_, abs=1e-12)
     with pytest.raises(ModelError, match="training"):
-        permutation_importance(fitted, *test_rows, random_state=0, rows="out-of-bag")
+        permutation_importance(fitted, *held_out_rows, random_state=0, rows="out-of-bag")
 
 
-def test_importance_is_reproducible_and_frozen(fitted, test_rows):
-    a = permutation_importance(fitted, *test_rows, n_repeats=2, random_state=5)
-    b = permutation_importance(fitted, *test_rows, n_repeats=2, random_state=5)
+def test_importance_is_reproducible_and_frozen(fitted, held_out_rows):
+    a = permutation_importance(fitted, *held_out_rows, n_repeats=2, random_state=5)
+    b = permutation_importance(fitted, *held_out_rows, n_repeats=2, random_state=5)
     np.testing.assert_array_equal(a.drops, b.drops)
     with pytest.raises(dataclasses.FrozenInstanceError):
         a.baseline = 0.0
@@ -272,18 +272,18 @@ def test_importance_is_reproducible_and_frozen(fitted, test_rows):
     assert list(a.to_frame()["feature"]) == list(a.features)
 
 
-def test_unused_predictor_has_exactly_zero_importance(train, test_rows):
+def test_unused_predictor_has_exactly_zero_importance(train, held_out_rows):
     X, y = train
     Xc = X.assign(constant=1.0)
     f = SurvivalForest(**SETTINGS).fit(Xc, y)
-    Xt = test_rows[0].assign(constant=1.0)
-    res = permutation_importance(f, Xt, test_rows[1], n_repeats=2, random_state=0)
+    Xt = held_out_rows[0].assign(constant=1.0)
+    res = permutation_importance(f, Xt, held_out_rows[1], n_repeats=2, random_state=0)
     i = res.features.index("constant")
     np.testing.assert_array_equal(res.drops[i], 0.0)
 
 
-def test_importance_argument_checks(fitted, test_rows):
-    Xt, yt = test_rows
+def test_importance_argument_checks(fitted, held_out_rows):
+    Xt, yt = held_out_rows
     with pytest.raises(MetricError, match="not available"):
         permutation_importance(fitted, Xt, yt, random_state=0, metric="brier")
     with pytest.raises(ModelError, match="rows="):
@@ -294,8 +294,8 @@ def test_importance_argument_checks(fitted, test_rows):
         permutation_importance(object(), Xt, yt, random_state=0)
 
 
-def test_custom_metric_is_used(fitted, test_rows):
-    Xt, yt = test_rows
+def test_custom_metric_is_used(fitted, held_out_rows):
+    Xt, yt = held_out_rows
 
     def mean_risk_of_events(y, risk):
         return float(risk[y["event"]].mean())

@@ -521,4 +521,5 @@ def test_spline_hazard_ratio_is_a_quartile_contrast(frame):
 def test_no_warnings_on_a_clean_table(frame):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        ClinicalTransformer(SPECS).fit_transform(frame)
+        design = ClinicalTransformer(SPECS).fit_transform(frame)
+    assert design.X.shape[0] == len(frame) - design.n_dropped

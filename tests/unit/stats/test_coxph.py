@@ -196,7 +196,8 @@ def test_warn_if_nonproportional(rfit, rossi):
 def test_ph_test_itself_does_not_warn(rfit, rossi):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        proportional_hazards_test(rfit, rossi[COLS], rossi["week"], rossi["arrest"])
+        res = proportional_hazards_test(rfit, rossi[COLS], rossi["week"], rossi["arrest"])
+    assert np.isfinite(res.to_frame().to_numpy(dtype=float, na_value=np.nan)[:, 0]).all()
 
 
 # ------------------------------------------------------- results and shapes
