@@ -242,7 +242,7 @@ def _take(table: dict, cls, where: str, nested: dict | None = None, base: Path |
             value = tuple(value)
         if key in paths and base is not None and isinstance(value, str):
             p = Path(value)
-            value = str(p if p.is_absolute() else (base / p))
+            value = os.path.normpath(p if p.is_absolute() else (base / p))
         kwargs[key] = value
     try:
         return cls(**kwargs)

@@ -41,6 +41,8 @@ def test_result_holds_every_block(result, tmp_path):
     for f in ("performance.csv", "comparison.csv", "hazard_ratios_clinical.csv", "run.log", "study.toml"):
         assert (tmp_path / "out" / f).exists(), f
     assert "HB-" not in path.read_text(), "patient identifiers must not be written"
+    # the copied study file runs from the results folder and gives the same study
+    assert read_study(tmp_path / "out" / "study.toml") == result.spec
 
 
 def test_same_seed_same_numbers(study_file, result):

@@ -203,7 +203,10 @@ def write_results(result, out_dir) -> Path:
         sel = result.validation.selection.get(name)
         if sel is not None:
             sel.to_frame().to_csv(out / f"selection_{name}.csv", index=False)
-    (out / "study.toml").write_text(result.study_text)
+    from workbench.study import dumps_study
+
+    # paths relative to the results folder, so the copy runs from there and names no machine path
+    (out / "study.toml").write_text(dumps_study(result.spec, base=out))
     log = [format_summary(result.summary), "", "Warnings during the run:"]
     log += [f"  {c}: {m}" for c, m in result.warnings] or ["  none"]
     log += ["", f"Provenance: {json.dumps(data['provenance'])}"]
