@@ -24,12 +24,8 @@ from scipy.stats import chi2
 
 from workbench.errors import SpecError
 from workbench.metrics.reclassification import IDI_CAUTION, NRI_CAUTION
-from workbench.validation.resample import (
-    MetricEstimate,
-    ReplicateMetrics,
-    ValidationResult,
-    _estimates,
-)
+from workbench.validation.estimators import _estimates
+from workbench.validation.results import MetricEstimate, ReplicateMetrics, ValidationResult
 
 __all__ = [
     "ComparisonResult",
