@@ -8,12 +8,20 @@ that reading and validation are exercised on real public data, not invented data
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import settings
+
+# Property tests draw the same examples on every run, so a CI result can be repeated; set
+# HYPOTHESIS_PROFILE=explore to search new examples locally.
+settings.register_profile("repeatable", derandomize=True, database=None)
+settings.register_profile("explore", derandomize=False)
+settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
 
 
 @dataclass

@@ -267,3 +267,18 @@ def test_auc_se_independent_samples_matches_monte_carlo():
         b, xb = _simulate(rng, 300)
         reps.append(time_dependent_auc(a, b, RiskScores(xb), HORIZONS).auc)
     np.testing.assert_allclose(se, np.std(reps, axis=0, ddof=1), rtol=0.25)
+
+
+def test_auc_stays_in_range_on_a_rounding_case():
+    # Found by hypothesis: many tied scores and one lower score gave 1.0000000000000002.
+    time = np.array([1.0] * 11 + [2.0] + [1.0] * 6 + [2.0, 3.0])
+    event = np.zeros(20, dtype=bool)
+    event[[0, 11]] = True
+    score = np.zeros(20)
+    score[-1] = -1.0
+    y = make_outcome(time, event)
+    t = _inner_horizon(time, event)
+    g = fit_censoring(y).survival_at(time, left_limit=True, check_positive=False)
+    res = time_dependent_auc(y, y, RiskScores(score), t)
+    assert res.auc[0] == pytest.approx(_brute_auc(time, event, score, t, g), abs=1e-12)
+    assert 0.0 <= res.auc[0] <= 1.0

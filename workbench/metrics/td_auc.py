@@ -229,6 +229,9 @@ def time_dependent_auc(
             var = np.sum(if0**2) / n**2 + np.sum(ifg**2) / n_tr**2
         se[h] = np.sqrt(var)
 
+    # A weighted sum of pair indicators divided by its own total is a proportion; floating
+    # point rounding can still land it a few ulp outside [0, 1].
+    auc = np.clip(auc, 0.0, 1.0)
     z = norm.ppf(0.5 + conf_level / 2.0)
     if horizons.size == 1:
         mean_auc = float(auc[0])
