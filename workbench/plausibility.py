@@ -32,8 +32,9 @@ FOLLOWUP_RATIO = 4.0
 MATCH_FACTOR = 2.0
 """A ratio within this factor of a known unit ratio is named as that unit change (rule of thumb)."""
 
-VALUE_RATIO = 5.0
-"""A median this many times beyond the training range's largest magnitude is flagged (rule of thumb)."""
+VALUE_RATIO = 2.5
+"""A median (or a patient's value) beyond this multiple of the training 99th percentile or maximum, or below
+the training 1st percentile or minimum divided by it, is flagged (rule of thumb)."""
 
 TIME_RATIOS = {
     365.25: "days read as years", 52.18: "weeks read as years", 30.44: "days read as months",
@@ -136,19 +137,19 @@ def _number(text: str) -> float:
 
 
 def _value_ratio(values: np.ndarray, lo, hi) -> float | None:
-    """Median over the training scale when the median lies far outside [lo, hi]; else None."""
+    """Median over the centre of the training range when the median lies far outside [lo, hi]; else None.
+
+    The centre is the geometric mid-point of a positive range (the arithmetic one otherwise), so that
+    the ratio estimates the factor of a unit change.
+    """
     if lo is None or hi is None or values.size == 0 or np.all(np.isnan(values)):
         return None
     med = float(np.nanmedian(values))
-    scale = max(abs(lo), abs(hi))
-    if scale == 0 or lo <= med <= hi:
+    centre = float(np.sqrt(lo * hi)) if lo > 0 else (lo + hi) / 2.0
+    if centre <= 0 or lo <= med <= hi:
         return None
-    r = abs(med) / scale
-    if med > hi and r >= VALUE_RATIO:
-        return r
-    # far below: a value shrunk by a unit change sits near zero within a range away from zero
-    if med < lo and lo > 0 and med > 0 and lo / med >= VALUE_RATIO:
-        return med / lo
+    if (med > hi and hi > 0 and med / hi >= VALUE_RATIO) or (0 < med < lo and lo / med >= VALUE_RATIO):
+        return med / centre
     return None
 
 

@@ -168,7 +168,7 @@ def _read_text(p: Path) -> pd.DataFrame:
         notes.append(f"read as {DELIMITERS[delim]}-separated")
     if encoding != "utf-8":
         notes.append("read with the Windows-1252 character set (the file is not UTF-8)")
-    raw = pd.read_csv(io.StringIO(text), sep=delim, dtype=str, header=None, skipinitialspace=delim == ",")
+    raw = pd.read_csv(io.StringIO(text), sep=delim, dtype=str, header=None)
     if delim != ",":
         raw, converted = _decimal_commas(raw)
         if converted:
