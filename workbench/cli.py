@@ -209,7 +209,11 @@ def _cmd_apply(args) -> int:
     out = check_out_folder(args.out, [("bundle", args.bundle), ("features table", args.features),
                                       ("clinical table", args.clinical)], markers=("external_results.json",))
     bundle = load_bundle(args.bundle)
-    res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
+    try:
+        res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
+    except WorkbenchError:
+        _explain_scale(bundle, args)
+        raise
     with atomic_folder(out) as tmp:
         write_external(res, tmp)
     c = res.prepared.cohort
@@ -228,6 +232,21 @@ def _cmd_apply(args) -> int:
 
     print(f"\nPredictions and tables written to {out}/\nCaution: {CAUTION}")
     return 0
+
+
+def _explain_scale(bundle, args) -> None:
+    """After a failed apply, show the unit warnings that may explain it (they were recorded, not shown)."""
+    from workbench.errors import UnitWarning
+    from workbench.external import read_new_cohort
+    from workbench.plausibility import check_bundle_cohort
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            check_bundle_cohort(bundle, read_new_cohort(bundle, args.features, args.clinical).cohort, args.clinical)
+        except WorkbenchError:
+            return
+    args.console.show_all((w.category.__name__, str(w.message)) for w in caught if issubclass(w.category, UnitWarning))
 
 
 def _parse_values(items) -> dict:

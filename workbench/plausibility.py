@@ -86,6 +86,8 @@ def check_cohort_scale(cohort, training, clinical_inputs=(), *, source: str = "t
     """
     msgs = []
     unit = training.time_unit
+    clin_file = getattr(cohort.source, "clinical_file", "") or source
+    feat_file = getattr(cohort.source, "feature_file", "") or source
     new_median = float(reverse_kaplan_meier_median_followup(cohort.time, cohort.event).median)
     if not np.isfinite(new_median):
         new_median = float(np.median(cohort.time))
@@ -95,7 +97,7 @@ def check_cohort_scale(cohort, training, clinical_inputs=(), *, source: str = "t
         likely = (f" The ratio matches {cause}: convert the times to {unit} before applying the bundle."
                   if cause else " Check that the times are in " + unit + " and counted from the same start point.")
         msgs.append(
-            f"{source}: median follow-up {new_median:.4g} {unit} against {training.median_followup:.4g} {unit} in "
+            f"{clin_file}: median follow-up {new_median:.4g} {unit} against {training.median_followup:.4g} {unit} in "
             f"the training cohort ({ratio:.3g} times).{likely}"
         )
     flagged = []
@@ -104,6 +106,8 @@ def check_cohort_scale(cohort, training, clinical_inputs=(), *, source: str = "t
         r = _value_ratio(values.to_numpy(dtype=float), lo, hi)
         if r is not None:
             flagged.append((name, r, lo, hi))
+    msgs += _scale_messages(flagged, feat_file, "1st-99th percentile")
+    flagged = []
     for c in clinical_inputs:
         if c.kind not in ("linear", "spline") or c.column not in cohort.clinical.columns or c.train_min is None:
             continue
@@ -112,21 +116,26 @@ def check_cohort_scale(cohort, training, clinical_inputs=(), *, source: str = "t
         r = _value_ratio(num, c.train_min, c.train_max)
         if r is not None:
             flagged.append((c.column, r, c.train_min, c.train_max))
-    if flagged:
-        flagged.sort(key=lambda f: -max(f[1], 1 / f[1]))
-        parts = []
-        for name, r, lo, hi in flagged[:5]:
-            cause = scale_cause(r, VALUE_RATIOS)
-            parts.append(f"{name!r} (median {r:.3g} times the training scale, training range {lo:.4g} to {hi:.4g}"
-                         + (f"; {cause}?" if cause else "") + ")")
-        msgs.append(
-            f"{source}: {len(flagged)} column(s) have a median far outside the training range: {'; '.join(parts)}"
-            f"{' ...' if len(flagged) > 5 else ''}. A different unit or a different extraction setting looks like "
-            "this; convert the values to the training units before applying the bundle."
-        )
+    msgs += _scale_messages(flagged, clin_file, "range")
     for m in msgs:
         _warn(m)
     return msgs
+
+
+def _scale_messages(flagged, source, what: str) -> list[str]:
+    if not flagged:
+        return []
+    flagged.sort(key=lambda f: -max(f[1], 1 / f[1]))
+    parts = []
+    for name, r, lo, hi in flagged[:5]:
+        cause = scale_cause(r, VALUE_RATIOS)
+        parts.append(f"{name!r} (median {r:.3g} times the training scale, training {what} {lo:.4g} to {hi:.4g}"
+                     + (f"; {cause}?" if cause else "") + ")")
+    return [
+        f"{source}: {len(flagged)} column(s) have a median far outside the training range: {'; '.join(parts)}"
+        f"{' ...' if len(flagged) > 5 else ''}. A different unit or a different extraction setting looks like "
+        "this; convert the values to the training units before applying the bundle."
+    ]
 
 
 def _number(text: str) -> float:
