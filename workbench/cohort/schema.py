@@ -41,6 +41,11 @@ def check_required_columns(df: pd.DataFrame, source, roles: dict[str, str], pool
             close = [c for c in pool if col.lower() in c.lower() or c.lower() in col.lower()][:3]
         hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else ""
         shown = ", ".join(repr(c) for c in pool[:12]) + (" ..." if len(pool) > 12 else "")
+        glued = [c for c in pool if any(d in str(c) for d in (";", "\t", "|"))]
+        if glued:
+            hint += (" The header looks like several names run together: the file's delimiter could not be "
+                     "told from its first lines (rows with different numbers of fields?). Save it as a "
+                     "comma-separated file.")
         raise CohortError(
             f"{source}: the {role} column {col!r} is not in the table.{hint} Columns found: {shown}."
         )

@@ -197,3 +197,13 @@ def test_plain_gbsg2_reads_without_any_input_warning(gbsg2_tables, gbsg2_columns
         warnings.simplefilter("error", InputFormatWarning)
         warnings.simplefilter("error", UnitWarning)
         assert read_cohort(gbsg2_tables.features, gbsg2_tables.clinical, gbsg2_columns).n == 686
+
+
+def test_undetectable_delimiter_is_explained(tmp_path, gbsg2_tables, capsys):
+    lines = gbsg2_tables.clinical.read_text().replace(",", ";").splitlines()
+    lines[3] += ";extra"  # one row with a field too many: no delimiter splits every line alike
+    gbsg2_tables.clinical.write_text("\n".join(lines) + "\n")
+    code, err = _inspect(gbsg2_tables, capsys)
+    assert code == 2
+    assert "clinical.csv: the patient id column 'patient_id' is not in the table." in err
+    assert "several names run together" in err and "Save it as a comma-separated file" in err
