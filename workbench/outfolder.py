@@ -88,18 +88,17 @@ def atomic_folder(out) -> Iterator[Path]:
     and ``out`` is left as it was. An existing ``out`` is replaced only after
     everything was written.
     """
-    out = Path(out)
-    parent = out.resolve().parent
+    final = Path(out).resolve()  # a symbolic link is followed: its target is replaced
+    parent = final.parent
     parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=parent))
+    tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.partial-", dir=parent))
     try:
         yield tmp
         umask = os.umask(0)
         os.umask(umask)
         os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes a private folder; results are ordinary files
-        final = parent / out.name
         if final.exists():
-            old = parent / f".{out.name}.old-{uuid.uuid4().hex[:8]}"
+            old = parent / f".{final.name}.old-{uuid.uuid4().hex[:8]}"
             os.replace(final, old)
             try:
                 os.replace(tmp, final)

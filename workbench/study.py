@@ -296,6 +296,9 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             close = difflib.get_close_matches(key, sorted(known), n=1)
             hint = f" Did you mean [{close[0]}]?" if close else ""
             raise SpecError(f"{source}: unknown section [{key}].{hint}")
+    for key in ("study", "data", "imaging", "models", "validation", "external"):
+        if key in doc and not isinstance(doc[key], dict):
+            raise SpecError(f"{source}: [{key}] must be a section of keys (a table), not {doc[key]!r}.")
     study = dict(doc.get("study", {}))
     for key in ("name", "horizons"):
         if key not in study:
