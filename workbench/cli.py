@@ -110,6 +110,8 @@ def _cmd_inspect(args) -> int:
     print(format_summary(summary))
     if args.json:
         out = Path(args.json)
+        if out.resolve() in (Path(args.features).resolve(), Path(args.clinical).resolve()):
+            raise WorkbenchError(f"--json {out} is one of the input tables; give a new file name for the summary.")
         out.parent.mkdir(parents=True, exist_ok=True)
         out.write_text(json.dumps(asdict(summary), indent=2, default=str))
         print(f"\nSummary written to {out}")

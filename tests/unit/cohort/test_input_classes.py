@@ -207,3 +207,9 @@ def test_undetectable_delimiter_is_explained(tmp_path, gbsg2_tables, capsys):
     assert code == 2
     assert "clinical.csv: the patient id column 'patient_id' is not in the table." in err
     assert "several names run together" in err and "Save it as a comma-separated file" in err
+
+
+def test_summary_file_never_overwrites_an_input_table(gbsg2_tables, capsys):
+    code, err = _inspect(gbsg2_tables, capsys, "--json", str(gbsg2_tables.clinical))
+    assert code == 2
+    assert f"--json {gbsg2_tables.clinical} is one of the input tables" in err
