@@ -36,6 +36,31 @@ def _floats(text: str | None, option: str) -> tuple[float, ...]:
         raise WorkbenchError(f"{option} takes numbers separated by commas, such as 12,24,36; got {text!r}.") from None
 
 
+def _count(minimum: int):
+    """argparse type: a whole number of at least ``minimum`` (argparse prints the message and exits 2)."""
+
+    def parse(text: str) -> int:
+        try:
+            n = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"takes a whole number of at least {minimum}; got {text!r}") from None
+        if n < minimum:
+            raise argparse.ArgumentTypeError(f"takes a whole number of at least {minimum}; got {n}")
+        return n
+
+    return parse
+
+
+def _pairs(items, option: str) -> dict:
+    out = {}
+    for item in items or ():
+        if "=" not in item:
+            raise WorkbenchError(f"{option} takes COLUMN=TABLE, such as age=clinical; got {item!r}.")
+        k, v = item.split("=", 1)
+        out[k.strip()] = v.strip()
+    return out
+
+
 def _add_cohort_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("input tables")
     g.add_argument("--features", required=True, metavar="FILE", help="imaging features table (CSV, TSV, Parquet or Excel)")
@@ -50,6 +75,10 @@ def _add_cohort_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--batch", metavar="COLUMN", help="scanner / batch column for harmonisation (optional)")
     g.add_argument("--keep-matched", action="store_true", help="keep only patients found in both tables instead of stopping")
     g.add_argument("--drop-unusable-features", action="store_true", help="drop constant or empty feature columns instead of stopping")
+    g.add_argument("--features-sheet", metavar="SHEET", help="Excel: the sheet of the features workbook to read")
+    g.add_argument("--clinical-sheet", metavar="SHEET", help="Excel: the sheet of the clinical workbook to read")
+    g.add_argument("--take-from", action="append", metavar="COLUMN=TABLE",
+                   help="a column found in both tables: use the copy of this table (clinical or features); repeatable")
 
 
 def _cmd_inspect(args) -> int:
@@ -65,6 +94,7 @@ def _cmd_inspect(args) -> int:
         censor_codes=_split_list(args.censor_codes),
         centre=args.centre,
         batch=args.batch,
+        take_from=_pairs(args.take_from, "--take-from"),
     )
     cohort = read_cohort(
         args.features,
@@ -72,26 +102,41 @@ def _cmd_inspect(args) -> int:
         cols,
         on_unmatched="intersect" if args.keep_matched else "error",
         drop_unusable_features=args.drop_unusable_features,
+        features_sheet=args.features_sheet,
+        clinical_sheet=args.clinical_sheet,
     )
     horizons = _floats(args.horizons, "--horizons")
     summary = summarise_cohort(cohort, horizons, anticipated_r2=args.anticipated_r2)
     print(format_summary(summary))
     if args.json:
         out = Path(args.json)
+        if out.resolve() in (Path(args.features).resolve(), Path(args.clinical).resolve()):
+            raise WorkbenchError(f"--json {out} is one of the input tables; give a new file name for the summary.")
         out.parent.mkdir(parents=True, exist_ok=True)
         out.write_text(json.dumps(asdict(summary), indent=2, default=str))
         print(f"\nSummary written to {out}")
     return 0
 
 
+def _protected_inputs(study_path, spec) -> list[tuple[str, object]]:
+    items = [("study file", study_path), ("features table", spec.data.features), ("clinical table", spec.data.clinical)]
+    if spec.external is not None:
+        items += [("external features table", spec.external.features),
+                  ("external clinical table", spec.external.clinical)]
+    return items
+
+
 def _cmd_run(args) -> int:
     from workbench.cohort.summary import format_summary
-    from workbench.report.results import format_results, write_results
+    from workbench.outfolder import atomic_folder, check_out_folder
+    from workbench.report.results import format_results
     from workbench.study import read_study
     from workbench.validation.backends import tqdm_progress
     from workbench.workflow import run_study
 
     spec = read_study(args.study)
+    out = check_out_folder(args.out, _protected_inputs(args.study, spec))
+    replacing = out.is_dir() and any(out.iterdir())
     bars: dict = {}
 
     def progress(done, total, stage):
@@ -100,26 +145,44 @@ def _cmd_run(args) -> int:
         bars[stage](done, total)
 
     result = run_study(spec, progress=None if args.quiet else progress, replicates=args.replicates, workers=args.workers)
-    out = Path(args.out)
-    path = write_results(result, out)
-    extras = []
-    if not args.no_figures:
-        from workbench.report.figureset import write_figures
-
-        write_figures(result, out / "figures")
-        extras.append("figures/")
-    from workbench.report.bundle import save_bundle, summarise_training
-
-    training = summarise_training(result.cohort, result.models, spec.horizons)
-    save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
-    extras.append("bundle/")
-    extras += _write_report(result, out, args)
+    args.console.show_all(result.warnings)
+    with atomic_folder(out) as tmp:
+        extras = _write_run_folder(result, tmp, args)
     print()
     print(format_summary(result.summary))
     print()
     print(format_results(result))
-    print(f"\nResults written to {path.parent}/ (results.json, CSV tables, run.log, {', '.join(extras)})")
+    print(f"\nResults written to {out}/ (results.json, CSV tables, run.log, {', '.join(extras)})"
+          + ("; the earlier results there were replaced" if replacing else ""))
+    args.console.note_hidden("run.log")
     return 0
+
+
+def _write_run_folder(result, out: Path, args) -> list[str]:
+    """Everything of a run into ``out`` (a temporary folder renamed into place afterwards)."""
+    from workbench.report.bundle import save_bundle, summarise_training
+    from workbench.report.results import write_results
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        write_results(result, out)
+        extras = []
+        if not args.no_figures:
+            from workbench.report.figureset import write_figures
+
+            write_figures(result, out / "figures")
+            extras.append("figures/")
+        training = summarise_training(result.cohort, result.models, result.spec.horizons)
+        save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
+        extras.append("bundle/")
+        extras += _write_report(result, out, args)
+    late = list(dict.fromkeys((w.category.__name__, str(w.message)) for w in caught))
+    args.console.show_all(late)
+    if late:
+        with open(out / "run.log", "a") as log:
+            log.write("\nWarnings while writing figures, bundle and report:\n")
+            log.writelines(f"  {c}: {m}\n" for c, m in late)
+    return extras
 
 
 def _write_report(result, out: Path, args) -> list[str]:
@@ -141,12 +204,20 @@ def _write_report(result, out: Path, args) -> list[str]:
 
 def _cmd_apply(args) -> int:
     from workbench.external import apply_bundle, write_external
+    from workbench.outfolder import atomic_folder, check_out_folder
     from workbench.report.bundle import load_bundle
     from workbench.report.results import fmt_estimate
 
+    out = check_out_folder(args.out, [("bundle", args.bundle), ("features table", args.features),
+                                      ("clinical table", args.clinical)], markers=("external_results.json",))
     bundle = load_bundle(args.bundle)
-    res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
-    path = write_external(res, args.out)
+    try:
+        res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
+    except WorkbenchError:
+        _explain_scale(bundle, args)
+        raise
+    with atomic_folder(out) as tmp:
+        write_external(res, tmp)
     c = res.prepared.cohort
     print(f"Applied {', '.join(bundle.models)} to {c.n} patients ({c.n_events} events).")
     if res.prepared.incomplete_ids:
@@ -157,12 +228,27 @@ def _cmd_apply(args) -> int:
     if not res.recalibration.empty:
         print("\nCalibration (ICI) after recalibration on this cohort (apparent):")
         print(res.recalibration.pivot_table(index=["model", "recalibration"], columns="horizon", values="ici").round(3).to_string())
-    for cat, msg in res.warnings:
-        print(f"warning ({cat}): {msg}", file=sys.stderr)
+    args.console.show_all(res.warnings)
+    args.console.note_hidden("external_results.json")
     from workbench.cohort.summary import CAUTION
 
-    print(f"\nPredictions and tables written to {path.parent}/\nCaution: {CAUTION}")
+    print(f"\nPredictions and tables written to {out}/\nCaution: {CAUTION}")
     return 0
+
+
+def _explain_scale(bundle, args) -> None:
+    """After a failed apply, show the unit warnings that may explain it (they were recorded, not shown)."""
+    from workbench.errors import UnitWarning
+    from workbench.external import read_new_cohort
+    from workbench.plausibility import check_bundle_cohort
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            check_bundle_cohort(bundle, read_new_cohort(bundle, args.features, args.clinical).cohort, args.clinical)
+        except WorkbenchError:
+            return
+    args.console.show_all((w.category.__name__, str(w.message)) for w in caught if issubclass(w.category, UnitWarning))
 
 
 def _parse_values(items) -> dict:
@@ -195,6 +281,9 @@ def _cmd_estimate(args) -> int:
     ignore = tuple(k for k in (d.id, d.time, d.event, d.centre) if k and k in patient)
     est = estimate_patient(bundle.models[args.model], patient, bundle.spec.horizons,
                            training_ranges=ranges_from_bundle(bundle, args.model), ignore=ignore)
+    from workbench.plausibility import check_patient_scale
+
+    check_patient_scale(est.checks, source=str(args.patient) if args.patient else "the patient's values")
     print(format_estimate(est))
     return 0
 
@@ -223,8 +312,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("run", help="run a study file end to end and write a results folder")
     p.add_argument("study", metavar="STUDY.toml", help="study file (see docs/study-file.md)")
     p.add_argument("--out", default="results", metavar="FOLDER", help="results folder (default: results)")
-    p.add_argument("--replicates", type=int, metavar="N", help="override the number of resampling replicates")
-    p.add_argument("--workers", type=int, metavar="N", help="override the number of parallel workers")
+    p.add_argument("--replicates", type=_count(1), metavar="N", help="override the number of resampling replicates")
+    p.add_argument("--workers", type=_count(1), metavar="N", help="override the number of parallel workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-figures", action="store_true", help="skip the figures")
     p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
@@ -236,7 +325,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--features", required=True, metavar="FILE", help="the new cohort's imaging features table")
     p.add_argument("--clinical", required=True, metavar="FILE", help="the new cohort's clinical table")
     p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
-    p.add_argument("--replicates", type=int, default=200, metavar="N", help="bootstrap resamples for the intervals")
+    p.add_argument("--replicates", type=_count(0), default=200, metavar="N",
+                   help="bootstrap resamples for the intervals (0: no intervals)")
     p.set_defaults(func=_cmd_apply)
 
     p = sub.add_parser("estimate", help="survival estimate for one patient from a saved model bundle")
@@ -252,31 +342,43 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-class _WarningPrinter:
-    """Show statistical warnings as one plain line each on stderr."""
-
-    def __call__(self, message, category, filename, lineno, file=None, line=None):
-        print(f"warning ({category.__name__}): {message}", file=sys.stderr)
+def _terminate(signum, frame):
+    # a polite stop (kill, Ctrl-Break) unwinds like Ctrl-C, so a half-written results folder is removed
+    raise KeyboardInterrupt
 
 
 def main(argv=None) -> int:
+    import signal
+
+    from workbench.cli_console import ConsoleWarnings
+
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()
         return EXIT_USER_ERROR
+    args.console = ConsoleWarnings()
     old = warnings.showwarning
-    warnings.showwarning = _WarningPrinter()
+    warnings.showwarning = args.console
+    old_term = signal.signal(signal.SIGTERM, _terminate) if _main_thread() else None
     try:
         return int(args.func(args) or 0)
     except WorkbenchError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
     except KeyboardInterrupt:
-        print("interrupted", file=sys.stderr)
+        print("interrupted (an unfinished results folder is not kept)", file=sys.stderr)
         return 130
     finally:
         warnings.showwarning = old
+        if old_term is not None:
+            signal.signal(signal.SIGTERM, old_term)
+
+
+def _main_thread() -> bool:
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
 
 
 if __name__ == "__main__":

@@ -76,3 +76,11 @@ class FollowUpWarning(WorkbenchWarning):
 
 class DataQualityWarning(WorkbenchWarning):
     """Something in the input tables deserves a look but does not stop the run."""
+
+
+class InputFormatWarning(DataQualityWarning):
+    """A table was read in its one reasonable way (delimiter, decimal comma, sheet, spaces): said, not hidden."""
+
+
+class UnitWarning(DataQualityWarning):
+    """Follow-up times or measured values look as if they were in another unit than declared or trained on."""

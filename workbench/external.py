@@ -20,6 +20,7 @@ import pandas as pd
 from workbench.cohort.io import read_cohort
 from workbench.errors import WorkbenchError
 from workbench.metrics.calibration import calibration_at
+from workbench.plausibility import check_bundle_cohort
 from workbench.prepare import PreparedCohort, drop_incomplete, select_pool
 from workbench.report.bundle import Bundle
 from workbench.validation.compare import compare_models
@@ -88,6 +89,7 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, r
         warnings.simplefilter("always")
         prepared = read_new_cohort(bundle, features, clinical)
         cohort = prepared.cohort
+        check_bundle_cohort(bundle, cohort, clinical)  # unit / scale plausibility against the training data
         cut = bundle.training.risk_cutpoints
         cols = {"patient_id": cohort.ids}
         for name, m in bundle.models.items():

@@ -156,11 +156,13 @@ def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort
     if external:
         if spec.external is None:
             raise SpecError("the study has no [external] section.")
-        fpath, cpath = spec.external.features, spec.external.clinical
+        src = spec.external
     else:
-        fpath, cpath = d.features, d.clinical
+        src = d
     cohort = read_cohort(
-        fpath, cpath, d.column_map(), on_unmatched=d.on_unmatched, drop_unusable_features=d.drop_unusable_features
+        src.features, src.clinical, d.column_map(), on_unmatched=d.on_unmatched,
+        drop_unusable_features=d.drop_unusable_features,
+        features_sheet=src.features_sheet, clinical_sheet=src.clinical_sheet,
     )
     n_read = cohort.n
     cohort, excluded = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)

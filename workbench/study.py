@@ -22,8 +22,9 @@ import tomli_w
 
 from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import ColumnMap
-from workbench.errors import SpecError
+from workbench.errors import SpecError, WorkbenchError
 from workbench.preprocess.clinical import PredictorSpec
+from workbench.study_types import check_value, field_types
 
 MODEL_NAMES = ("clinical", "combined", "penalised_all", "forest")
 """Models a study can fit: clinical-only Cox, clinical + signature Cox, penalised
@@ -49,6 +50,12 @@ class DataSpec:
     batch: str | None = None
     on_unmatched: str = "error"
     drop_unusable_features: bool = False
+    features_sheet: str | None = None  # Excel: the sheet to read
+    clinical_sheet: str | None = None
+    take_from: tuple[tuple[str, str], ...] = ()  # column in both tables -> "clinical" or "features"
+
+    def __post_init__(self):
+        object.__setattr__(self, "take_from", ColumnMap(take_from=dict(self.take_from or ())).take_from)
 
     def column_map(self) -> ColumnMap:
         return ColumnMap(
@@ -60,6 +67,7 @@ class DataSpec:
             censor_codes=self.censor_codes,
             centre=self.centre,
             batch=self.batch,
+            take_from=self.take_from,
         )
 
 
@@ -69,6 +77,8 @@ class ExternalSpec:
 
     features: str
     clinical: str
+    features_sheet: str | None = None
+    clinical_sheet: str | None = None
 
 
 @dataclass(frozen=True)
@@ -229,12 +239,17 @@ def _take(table: dict, cls, where: str, nested: dict | None = None, base: Path |
     if not isinstance(table, dict):
         raise SpecError(f"{where} must be a table of keys, not {type(table).__name__}.")
     names = [f.name for f in fields(cls)]
+    types = field_types(cls)
     kwargs = {}
     for key, value in table.items():
         if key not in names:
             close = difflib.get_close_matches(key, names, n=1)
             hint = f" Did you mean {close[0]!r}?" if close else f" Known keys: {', '.join(names)}."
             raise SpecError(f"{where}: unknown key {key!r}.{hint}")
+        if key == "take_from":
+            value = _take_from(value, where)
+        elif not (nested and key in nested):
+            check_value(where, key, value, types[key])
         if nested and key in nested:
             sub_cls, sub_where = nested[key]
             value = _take(value, sub_cls, sub_where)
@@ -247,6 +262,18 @@ def _take(table: dict, cls, where: str, nested: dict | None = None, base: Path |
     try:
         return cls(**kwargs)
     except TypeError as exc:
+        raise SpecError(f"{where}: {exc}") from None
+
+
+def _take_from(value, where: str) -> tuple[tuple[str, str], ...]:
+    if not isinstance(value, dict) or not all(isinstance(v, str) for v in value.values()):
+        raise SpecError(
+            f"{where}: take_from must be a table such as [data.take_from] with lines like age = \"clinical\" "
+            f"(or \"features\"); found {value!r}."
+        )
+    try:
+        return ColumnMap(take_from=value).take_from
+    except WorkbenchError as exc:
         raise SpecError(f"{where}: {exc}") from None
 
 
@@ -269,6 +296,9 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             close = difflib.get_close_matches(key, sorted(known), n=1)
             hint = f" Did you mean [{close[0]}]?" if close else ""
             raise SpecError(f"{source}: unknown section [{key}].{hint}")
+    for key in ("study", "data", "imaging", "models", "validation", "external"):
+        if key in doc and not isinstance(doc[key], dict):
+            raise SpecError(f"{source}: [{key}] must be a section of keys (a table), not {doc[key]!r}.")
     study = dict(doc.get("study", {}))
     for key in ("name", "horizons"):
         if key not in study:
@@ -300,10 +330,10 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
     extra = set(study) - {"name", "horizons", "seed", "anticipated_r2"}
     if extra:
         raise SpecError(f"{source} [study]: unknown key(s) {', '.join(sorted(extra))}.")
-    try:
-        horizons = tuple(float(h) for h in study["horizons"])
-    except (TypeError, ValueError):
-        raise SpecError(f"{source} [study] horizons must be a list of numbers, e.g. [12, 24, 36].") from None
+    study_types = {"name": str, "horizons": tuple[float, ...], "seed": int, "anticipated_r2": float | None}
+    for key, value in study.items():
+        check_value(f"{source} [study]", key, value, study_types[key])
+    horizons = tuple(float(h) for h in study["horizons"])
     return StudySpec(
         name=str(study["name"]),
         data=data,
@@ -352,12 +382,17 @@ def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
     data = _plain(spec.data)
     data["features"] = _rel(spec.data.features, base)
     data["clinical"] = _rel(spec.data.clinical, base)
+    if spec.data.take_from:
+        data["take_from"] = dict(spec.data.take_from)
+    else:
+        data.pop("take_from", None)
     doc = {"study": study, "data": data, "predictor": [_plain(p) for p in spec.predictors]}
     doc["imaging"] = _plain(spec.imaging)
     doc["models"] = _plain(spec.models)
     doc["validation"] = _plain(spec.validation)
     if spec.external is not None:
         doc["external"] = {
+            **_plain(spec.external),
             "features": _rel(spec.external.features, base),
             "clinical": _rel(spec.external.clinical, base),
         }

@@ -10,13 +10,14 @@ from __future__ import annotations
 
 import hashlib
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
-import pandas as pd
-
 from workbench.cohort.core import TIME_UNITS, Cohort, CohortSource
+from workbench.cohort.followup import check_followup
 from workbench.cohort.outcome import make_outcome
+from workbench.cohort.overlap import check_role_agreement, split_shared_columns, strip_ids
+from workbench.cohort.readers import READERS, file_digest, read_table  # noqa: F401  (re-exported)
 from workbench.cohort.schema import (
     check_events,
     check_ids,
@@ -27,18 +28,6 @@ from workbench.cohort.schema import (
     rows_text,
 )
 from workbench.errors import CohortError, DataQualityWarning
-
-READERS = {
-    ".csv": "csv",
-    ".tsv": "tsv",
-    ".tab": "tsv",
-    ".txt": "tsv",
-    ".parquet": "parquet",
-    ".pq": "parquet",
-    ".xlsx": "excel",
-    ".xlsm": "excel",
-    ".xls": "excel",
-}
 
 
 @dataclass(frozen=True)
@@ -63,6 +52,11 @@ class ColumnMap:
         Hospital or centre (either table), for leave-one-centre-out validation.
     batch : str, optional
         Scanner or acquisition batch (either table), for harmonisation.
+    take_from : dict (or pairs) of column name to {"clinical", "features"}, optional
+        For a column name found in both tables (other than the id), which
+        table's column to use; the other copy is left aside. Without an entry
+        such a column is an error, because it would be read twice (once as a
+        clinical field, once as an imaging feature).
     """
 
     id: str = "patient_id"
@@ -73,6 +67,7 @@ class ColumnMap:
     censor_codes: tuple[str, ...] | None = None
     centre: str | None = None
     batch: str | None = None
+    take_from: tuple[tuple[str, str], ...] = field(default=(), repr=False)
 
     def __post_init__(self):
         if self.time_unit not in TIME_UNITS:
@@ -84,61 +79,14 @@ class ColumnMap:
             v = getattr(self, name)
             if v is not None:
                 object.__setattr__(self, name, tuple(str(c).strip() for c in v))
-
-
-def read_table(path) -> pd.DataFrame:
-    """Read one table (CSV, TSV, Parquet or Excel) with every cell as text.
-
-    Text cells keep their exact spelling ("<0.5", "0042"); blank cells become
-    missing. Parquet columns keep their stored types.
-
-    Raises
-    ------
-    CohortError
-        If the file does not exist, has an unknown extension, cannot be parsed,
-        or holds no rows.
-    """
-    p = Path(path)
-    if not p.exists():
-        raise CohortError(f"{p}: file not found. Check the path (it is read relative to the current folder).")
-    if p.is_dir():
-        raise CohortError(f"{p}: is a folder, not a table file.")
-    kind = READERS.get(p.suffix.lower())
-    if kind is None:
-        raise CohortError(
-            f"{p}: unknown table format {p.suffix!r}; expected one of "
-            f"{', '.join(sorted(set(READERS)))}."
-        )
-    try:
-        if kind == "csv":
-            df = pd.read_csv(p, dtype=str, skipinitialspace=True)
-        elif kind == "tsv":
-            df = pd.read_csv(p, dtype=str, sep="\t")
-        elif kind == "parquet":
-            df = pd.read_parquet(p)
-        else:
-            df = pd.read_excel(p, dtype=str)
-    except pd.errors.EmptyDataError:
-        raise CohortError(f"{p}: the file is empty.") from None
-    except Exception as exc:  # the parsers raise many types; all mean "cannot read"
-        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise CohortError(f"{p}: cannot be read as {kind.upper()} ({first}).") from None
-    if df.shape[0] == 0:
-        raise CohortError(f"{p}: the table has a header but no rows.")
-    df.columns = [str(c).strip() for c in df.columns]
-    dup = df.columns[df.columns.duplicated()].tolist()
-    if dup:
-        raise CohortError(f"{p}: column names appear more than once: {', '.join(dup)}.")
-    return df
-
-
-def file_digest(path) -> str:
-    """SHA-256 of a file's bytes (read in chunks; the file is not modified)."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
+        pairs = dict(self.take_from or ())
+        for col, table in pairs.items():
+            if table not in ("clinical", "features"):
+                raise CohortError(
+                    f"take_from[{col!r}] is {table!r}; it says which table's {col!r} column to use: "
+                    "'clinical' or 'features'."
+                )
+        object.__setattr__(self, "take_from", tuple(sorted((str(k), str(v)) for k, v in pairs.items())))
 
 
 def read_cohort(
@@ -149,6 +97,8 @@ def read_cohort(
     on_unmatched: str = "error",
     drop_unusable_features: bool = False,
     min_events: int = 10,
+    features_sheet: str | None = None,
+    clinical_sheet: str | None = None,
 ) -> Cohort:
     """Read, validate and join the imaging-feature and clinical tables.
 
@@ -169,6 +119,8 @@ def read_cohort(
     min_events : int
         Fewer events than this is an error (default 10, common practice: no
         survival model can be fitted or checked honestly below it).
+    features_sheet, clinical_sheet : str, optional
+        Excel workbooks: the sheet to read (needed when several sheets hold data).
 
     Returns
     -------
@@ -177,8 +129,8 @@ def read_cohort(
     if on_unmatched not in ("error", "intersect"):
         raise CohortError(f"on_unmatched must be 'error' or 'intersect', not {on_unmatched!r}.")
     fpath, cpath = Path(features_path), Path(clinical_path)
-    feats = read_table(fpath)
-    clin = read_table(cpath)
+    feats = read_table(fpath, sheet=features_sheet)
+    clin = read_table(cpath, sheet=clinical_sheet)
 
     check_required_columns(clin, cpath, {"patient id": columns.id, "time": columns.time, "event": columns.event})
     check_required_columns(feats, fpath, {"patient id": columns.id})
@@ -187,10 +139,11 @@ def read_cohort(
         if col is not None and col not in clin.columns and col not in feats.columns:
             check_required_columns(clin, f"{cpath} or {fpath}", {role: col}, pool=list(clin.columns) + list(feats.columns))
 
+    feats, clin, both_roles = split_shared_columns(feats, clin, fpath, cpath, columns)
     check_ids(clin, cpath, columns.id)
     check_ids(feats, fpath, columns.id)
-    clin = clin.assign(**{columns.id: clin[columns.id].astype(str).str.strip()})
-    feats = feats.assign(**{columns.id: feats[columns.id].astype(str).str.strip()})
+    clin = strip_ids(clin, cpath, columns.id)
+    feats = strip_ids(feats, fpath, columns.id)
 
     dropped = _match_ids(feats, clin, fpath, cpath, columns.id, on_unmatched)
     if dropped:
@@ -210,6 +163,9 @@ def read_cohort(
         clin[columns.event], cpath, columns.event, clin_rows, columns.event_codes, columns.censor_codes
     )
     check_events(event, cpath, columns.event, min_events)
+    check_followup(time, event, columns.time_unit, cpath, columns.time, clin_rows)
+    for col in both_roles:
+        check_role_agreement(col, clin[col], feats[col], cpath, fpath, clin_rows)
 
     def pick(col):
         if col is None:
@@ -249,7 +205,11 @@ def read_cohort(
         )
 
     digest = hashlib.sha256()
-    for part in (file_digest(fpath), file_digest(cpath), repr(columns), on_unmatched, str(drop_unusable_features)):
+    parts = [file_digest(fpath), file_digest(cpath), repr(columns), on_unmatched, str(drop_unusable_features)]
+    # settings added later enter only when used, so earlier hashes of the same study stay valid
+    parts += [f"{k}={v}" for k, v in (("take_from", columns.take_from), ("features_sheet", features_sheet),
+                                      ("clinical_sheet", clinical_sheet)) if v]
+    for part in parts:
         digest.update(part.encode())
     source = CohortSource(
         feature_file=str(fpath),

@@ -41,6 +41,11 @@ def check_required_columns(df: pd.DataFrame, source, roles: dict[str, str], pool
             close = [c for c in pool if col.lower() in c.lower() or c.lower() in col.lower()][:3]
         hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else ""
         shown = ", ".join(repr(c) for c in pool[:12]) + (" ..." if len(pool) > 12 else "")
+        glued = [c for c in pool if any(d in str(c) for d in (";", "\t", "|"))]
+        if glued:
+            hint += (" The header looks like several names run together: the file's delimiter could not be "
+                     "told from its first lines (rows with different numbers of fields?). Save it as a "
+                     "comma-separated file.")
         raise CohortError(
             f"{source}: the {role} column {col!r} is not in the table.{hint} Columns found: {shown}."
         )
@@ -77,6 +82,19 @@ def _to_float(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return num.to_numpy(dtype=float), bad
 
 
+def _comma_hint(values) -> str:
+    if values.astype(str).str.contains(r"\d,\d", regex=True).any():
+        return (" Some cells use a decimal comma while others in the column use a point, or the file is "
+                "comma-separated: write all numbers with a decimal point.")
+    return ""
+
+
+MAX_ABS_VALUE = 1e15
+"""Largest magnitude accepted in an imaging feature. Far beyond any measured quantity in its usual
+unit (even first-order energy of a large volume stays near 1e12); values such as 1e308 or 9.9e37 are
+export errors or missing-value codes, and squaring them overflows (common sense, not a published limit)."""
+
+
 def parse_time(values: pd.Series, source, col: str, rows) -> np.ndarray:
     """Follow-up times: numeric, present, finite and not negative."""
     t, bad = _to_float(values)
@@ -84,7 +102,7 @@ def parse_time(values: pd.Series, source, col: str, rows) -> np.ndarray:
         examples = ", ".join(repr(v) for v in values[bad].astype(str).unique()[:3])
         raise CohortError(
             f"{source}, column {col!r}: follow-up time is not a number in {rows_text(rows[bad])} "
-            f"(values such as {examples}). Times must be numbers in one unit."
+            f"(values such as {examples}). Times must be numbers in one unit.{_comma_hint(values[bad])}"
         )
     miss = np.isnan(t)
     if miss.any():
@@ -92,14 +110,18 @@ def parse_time(values: pd.Series, source, col: str, rows) -> np.ndarray:
             f"{source}, column {col!r}: follow-up time is missing in {rows_text(rows[miss])}. "
             "Every patient needs a time of last follow-up or of the event."
         )
+    inf = np.isinf(t)
+    if inf.any():
+        raise CohortError(
+            f"{source}, column {col!r}: infinite follow-up time in {rows_text(rows[inf])}. Give the time of "
+            "last follow-up or of the event as a number."
+        )
     neg = t < 0
     if neg.any():
         raise CohortError(
             f"{source}, column {col!r}: negative follow-up time in {rows_text(rows[neg])}. "
             "Time must be counted from a start point such as diagnosis or start of treatment."
         )
-    if not np.all(np.isfinite(t)):
-        raise CohortError(f"{source}, column {col!r}: infinite follow-up time in {rows_text(rows[~np.isfinite(t)])}.")
     return t
 
 
@@ -177,7 +199,7 @@ def parse_features(frame: pd.DataFrame, source, rows, drop_unusable: bool) -> pd
         vals, bad = _to_float(frame[c])
         if bad.any():
             examples = ", ".join(repr(v) for v in frame[c][bad].astype(str).unique()[:3])
-            non_numeric.append(f"{c!r} ({rows_text(rows[bad], 4)}: {examples})")
+            non_numeric.append(f"{c!r} ({rows_text(rows[bad], 4)}: {examples}){_comma_hint(frame[c][bad])}")
         out[c] = vals
     if non_numeric:
         raise CohortError(
@@ -186,6 +208,7 @@ def parse_features(frame: pd.DataFrame, source, rows, drop_unusable: bool) -> pd
             f"{' ...' if len(non_numeric) > 5 else ''}. Remove or fix these cells, or move "
             "non-feature columns to the clinical table."
         )
+    _check_magnitudes(out, source, rows)
     X = pd.DataFrame(out)
     all_missing = [c for c in X.columns if X[c].isna().all()]
     constant = [c for c in X.columns if c not in all_missing and X[c].nunique(dropna=True) <= 1]
@@ -206,3 +229,19 @@ def parse_features(frame: pd.DataFrame, source, rows, drop_unusable: bool) -> pd
         if X.shape[1] == 0:
             raise CohortError(f"{source}: no usable imaging feature is left.")
     return X
+
+
+def _check_magnitudes(columns: dict, source, rows) -> None:
+    """Infinite values and magnitudes beyond :data:`MAX_ABS_VALUE` are errors, per column with rows."""
+    found = []
+    for c, v in columns.items():
+        bad = np.isinf(v) | (np.abs(np.nan_to_num(v)) > MAX_ABS_VALUE)
+        if bad.any():
+            found.append(f"{c!r} ({rows_text(rows[bad], 4)}: {', '.join(f'{x:g}' for x in v[bad][:3])})")
+    if found:
+        raise CohortError(
+            f"{source}: infinite or absurdly large values (beyond {MAX_ABS_VALUE:g} in size) in "
+            f"{len(found)} imaging feature column(s): {'; '.join(found[:5])}{' ...' if len(found) > 5 else ''}. "
+            "These are export errors or missing-value codes, not measurements: leave the cells empty if the "
+            "value is unknown, or correct them."
+        )
