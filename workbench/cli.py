@@ -236,7 +236,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--features", required=True, metavar="FILE", help="the new cohort's imaging features table")
     p.add_argument("--clinical", required=True, metavar="FILE", help="the new cohort's clinical table")
     p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
-    p.add_argument("--replicates", type=int, default=200, metavar="N", help="bootstrap resamples for the intervals")
+    p.add_argument("--replicates", type=int, default=None, metavar="N",
+                   help="bootstrap resamples for the intervals (default: the study's number, as in run)")
     p.set_defaults(func=_cmd_apply)
 
     p = sub.add_parser("estimate", help="survival estimate for one patient from a saved model bundle")

@@ -25,6 +25,7 @@ from workbench.report.bundle import Bundle
 from workbench.validation.compare import compare_models
 from workbench.validation.recalibrate import recalibrate
 from workbench.validation.resample import ValidationResult, validate_external
+from workbench.workflow import external_settings
 
 COX_KINDS = ("clinical", "combined", "penalised_all")
 
@@ -67,7 +68,8 @@ def _risk_group(values: np.ndarray, cuts) -> np.ndarray:
     return np.where(values <= lo, "low", np.where(values <= hi, "intermediate", "high")).astype(object)
 
 
-def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, recalibration=("intercept", "slope"),
+def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None = None,
+                 recalibration=("intercept", "slope"),
                  random_state=None) -> ExternalResult:
     """Apply every model of ``bundle`` to a new cohort and validate it there.
 
@@ -77,8 +79,10 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, r
         From :func:`workbench.report.bundle.load_bundle`.
     features, clinical : path-like
         The new cohort's tables (same columns as the training tables).
-    replicates : int
-        Bootstrap resamples of the new patients for the intervals (predictions fixed).
+    replicates : int, optional
+        Bootstrap resamples of the new patients for the intervals (predictions
+        fixed); the study's number by default, so that ``apply`` repeats the
+        numbers of ``run`` with the same external tables.
     recalibration : tuple of {"intercept", "slope"}
         Recalibrations of the Cox-type models to report (apparent on the new cohort).
     """
@@ -98,8 +102,10 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, r
             for j, h in enumerate(horizons):
                 cols[f"{name}_survival_{h:g}"] = surv.probs[:, j]
         predictions = pd.DataFrame(cols)
-        validation = validate_external(bundle.models, cohort.y, cohort, horizons, replicates=replicates,
-                                       random_state=spec.seed if random_state is None else random_state)
+        settings = external_settings(spec, replicates)
+        if random_state is not None:
+            settings["random_state"] = random_state
+        validation = validate_external(bundle.models, cohort, horizons, **settings)
         baseline = spec.models.baseline
         comparisons = {m: compare_models(validation, m, baseline) for m in bundle.models if m != baseline}
         rows = []
@@ -138,6 +144,10 @@ def write_external(result: ExternalResult, out_dir) -> Path:
     import json
 
     from workbench.cohort.summary import CAUTION
+    from workbench.report.heterogeneity import censoring_dict, group_table, groups_dict
+
+    if result.validation.groups:
+        group_table(result.validation.groups).to_csv(out / "by_group.csv", index=False)
 
     data = {
         "caution": CAUTION,
@@ -146,6 +156,8 @@ def write_external(result: ExternalResult, out_dir) -> Path:
         "n_incomplete_dropped": len(result.prepared.incomplete_ids),
         "performance": {m: jsonable(e) for m, e in result.validation.estimates.items()},
         "recalibration": jsonable(result.recalibration),
+        "censoring": censoring_dict(result.validation.censoring),
+        "by_group": groups_dict(result.validation.groups),
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
     }
     path = out / "external_results.json"

@@ -139,6 +139,8 @@ class ValidationSpec:
     workers: int = 1
     backend: str = "processes"
     scheduler: str | None = None
+    censoring: str = "auto"  # IPCW weights of external / held-out rows: auto, km, km_by_centre, cox
+    pooling: str = "dl"  # random-effects pooling across centres/scanners: dl or reml
 
 
 @dataclass(frozen=True)
@@ -210,6 +212,10 @@ def check_spec(spec: StudySpec) -> None:
     v = spec.validation
     _choice("[validation] method", v.method, VALIDATION_METHODS)
     _choice("[validation] backend", v.backend, BACKENDS)
+    _choice("[validation] censoring", v.censoring, ("auto", "km", "km_by_centre", "cox"))
+    _choice("[validation] pooling", v.pooling, ("dl", "reml"))
+    if v.censoring == "km_by_centre" and not d.centre:
+        raise SpecError("[validation] censoring 'km_by_centre' needs a centre column in [data] (centre = '...').")
     if v.method == "by_centre" and not d.centre:
         raise SpecError("[validation] method 'by_centre' needs a centre column in [data] (centre = '...').")
     if v.backend == "dask" and not v.scheduler:

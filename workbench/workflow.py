@@ -25,7 +25,23 @@ from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, 
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.compare import ComparisonResult, compare_models
+from workbench.validation.groups import loco_groups
 from workbench.validation.resample import ValidationResult, validate, validate_external
+
+
+GROUP_REPLICATES = 50
+"""Bootstrap resamples per held-out centre in leave-one-centre-out (per-centre intervals)."""
+
+
+def external_settings(spec: StudySpec, replicates: int | None = None) -> dict:
+    """Settings of :func:`validate_external` for a study: the same for ``run`` and ``apply``.
+
+    ``run`` (an [external] block) and ``apply`` (a saved bundle) call
+    ``validate_external`` with exactly these, so they give identical numbers.
+    """
+    v = spec.validation
+    reps = (v.replicates if v.method != "none" else 0) if replicates is None else int(replicates)
+    return {"replicates": reps, "random_state": spec.seed, "censoring": v.censoring, "pooling": v.pooling}
 
 
 class RunCancelled(WorkbenchError):
@@ -173,13 +189,15 @@ def run_study(
             ext_prepared = prepare_cohort(spec, external=True)
             external = validate_external(
                 fitted,
-                cohort.y,
                 ext_prepared.cohort,
                 spec.horizons,
-                replicates=v.replicates if v.method != "none" else 0,
-                random_state=spec.seed,
+                **external_settings(spec),
                 progress=_progress(progress, cancel, "external validation"),
             )
+        if v.method == "by_centre":
+            validation = replace(validation, groups={"centre": loco_groups(
+                unfitted, cohort, spec.horizons, replicates=min(v.replicates, GROUP_REPLICATES),
+                entropy=validation.seed_entropy, pooling=v.pooling)})
 
         baseline = spec.models.baseline
         comparisons = {m: compare_models(validation, m, baseline) for m in unfitted if m != baseline}

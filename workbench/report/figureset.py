@@ -93,7 +93,8 @@ def study_figures(result) -> dict:
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
         risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}
-        figs["td_auc"] = plot_td_auc(td_auc_by_model(train.y, evalc.y, risks, grid), time_unit=unit,
+        cens_y = evalc.y if result.external_prepared is not None else train.y  # the evaluated cohort's own weights
+        figs["td_auc"] = plot_td_auc(td_auc_by_model(cens_y, evalc.y, risks, grid), time_unit=unit,
                                      horizons=horizons, title=where.capitalize())
         curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
         cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}

@@ -183,14 +183,15 @@ def _km_fig(model, train, cohort, unit, title):
     return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
 
 
-def _auc_fig(models, train, cohort, horizons, unit, title):
+def _auc_fig(models, weights_from, cohort, horizons, unit, title):
+    """AUC over time; censoring weights from ``weights_from`` (the evaluated cohort itself when external)."""
     from workbench.figures import plot_td_auc, td_auc_by_model
 
     t = cohort.time[cohort.event]
     hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
     grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
     risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
-    return plot_td_auc(td_auc_by_model(train.y, cohort.y, risks, grid), time_unit=unit, horizons=horizons,
+    return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid), time_unit=unit, horizons=horizons,
                        title=title)
 
 
@@ -249,7 +250,7 @@ def _figures(result, d: dict) -> dict:
                 "development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort"))
         _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
                 "Cumulative/dynamic AUC over follow-up time.",
-                lambda: _auc_fig(models, train, ext, eh, unit, "External cohort"))
+                lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort"))
     if cox:
         def nomo():
             scales = [nomogram_scales(m, horizons, time_unit=unit, median_axis=True, name=_label(k),

@@ -120,6 +120,22 @@ def _model_block(result, name: str) -> dict:
     return block
 
 
+def _group_digest(result) -> list[str]:
+    from workbench.report.heterogeneity import digest_lines
+
+    lead = "combined" if "combined" in result.models else next(iter(result.models))
+    h = result.spec.horizons[-1]
+    lines = []
+    for v, title in ((result.validation, "Leave-one-centre-out"), (result.external, "External cohort")):
+        block = getattr(v, "groups", None) if v is not None else None
+        if block:
+            lines += [""] + digest_lines(block, lead, h, title)
+    ch = getattr(result.external, "censoring", None) if result.external is not None else None
+    if ch is not None:
+        lines.append(f"External censoring weights: {ch.method} ({ch.reason}).")
+    return lines
+
+
 def results_dict(result) -> dict:
     """Everything of a :class:`~workbench.workflow.StudyResult` as plain JSON data."""
     v = result.validation
@@ -168,7 +184,23 @@ def results_dict(result) -> dict:
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
         }
+    _heterogeneity_blocks(result, out)
     return out
+
+
+def _heterogeneity_blocks(result, out: dict) -> None:
+    """Censoring model, per-centre/per-scanner blocks and their pooling (see report/heterogeneity.py)."""
+    from workbench.report.heterogeneity import censoring_dict, groups_dict
+
+    v = result.validation
+    if getattr(v, "groups", None):
+        out["validation"]["by_group"] = groups_dict(v.groups)
+    if getattr(v, "censoring", None) is not None:
+        out["validation"]["censoring"] = censoring_dict(v.censoring)
+    ext = result.external
+    if ext is not None and out.get("external") is not None:
+        out["external"]["censoring"] = censoring_dict(getattr(ext, "censoring", None))
+        out["external"]["by_group"] = groups_dict(getattr(ext, "groups", None))
 
 
 def performance_table(result, which: str = "internal") -> pd.DataFrame:
@@ -197,6 +229,11 @@ def write_results(result, out_dir) -> Path:
     if result.external is not None:
         performance_table(result, "external").to_csv(out / "external_performance.csv", index=False)
         comparison_table(result.external_comparisons).to_csv(out / "external_comparison.csv", index=False)
+    from workbench.report.heterogeneity import group_table
+
+    for which, v in (("external", result.external), ("internal", result.validation)):
+        if v is not None and getattr(v, "groups", None):
+            group_table(v.groups).to_csv(out / f"{which}_by_group.csv", index=False)
     for name, m in result.models.items():
         if hasattr(m, "hazard_ratio_table"):
             m.hazard_ratio_table().to_csv(out / f"hazard_ratios_{name}.csv", index=False)
@@ -273,5 +310,6 @@ def format_results(result) -> str:
         lines.append(f"External cohort ({result.external_prepared.cohort.n} patients):")
         for name in result.models:
             lines.append(f"  {name:<16s} Harrell C {fmt_estimate(result.external.estimates[name].get('harrell_c'))}")
+    lines += _group_digest(result)
     lines += ["", f"Caution: {CAUTION}"]
     return "\n".join(lines)
