@@ -295,6 +295,21 @@ def _perf_rows(estimates: dict, names, unit) -> list[dict]:
     return [{"label": metric_label(n, unit), "cells": [estimates[m].get(n) for m in estimates]} for n in names]
 
 
+def _group_context(d: dict, horizons) -> dict:
+    """Per-centre / per-scanner tables (report/heterogeneity.py); empty when the run has none."""
+    from workbench.report.heterogeneity import heterogeneity_context
+
+    lead = [k for k in ("combined", "clinical") if k in d.get("models", {})]
+    labels = {k: _label(k) for k in d.get("models", {})}
+
+    def rows(block):
+        out = heterogeneity_context(block, horizons, labels)
+        return [r for r in out if not lead or r["model"] in {labels[k] for k in lead}]
+
+    ext = (d.get("external") or {}).get("by_group")
+    return {"ext_groups": rows(ext), "loco_groups": rows((d.get("validation") or {}).get("by_group"))}
+
+
 def report_context(result, *, include_ids: bool = False, figures: bool = True) -> dict:
     """Everything the report template shows, as plain data (numbers from ``results_dict``)."""
     d = results_dict(result)
@@ -351,6 +366,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "model_names": [_label(k) for k in perf], "perf_rows": _perf_rows(perf, names, unit),
         "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
         "models": models, "comps": comps, "ext": ext, "ids": ids,
+        **_group_context(d, horizons),
         "limitations": limitations(result, d),
         "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
         "study_text": _short_paths(result.study_text, spec),
