@@ -110,7 +110,8 @@ def _cmd_run(args) -> int:
         extras.append("figures/")
     from workbench.report.bundle import save_bundle, summarise_training
 
-    training = summarise_training(result.cohort, result.models, spec.horizons)
+    training = summarise_training(result.cohort, result.models, spec.horizons,
+                                  groups=result.spec.models.risk_groups)
     save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
     extras.append("bundle/")
     extras += _write_report(result, out, args)

@@ -22,6 +22,7 @@ from workbench.errors import WorkbenchError
 from workbench.metrics.calibration import calibration_at
 from workbench.prepare import PreparedCohort, drop_incomplete, select_pool
 from workbench.report.bundle import Bundle
+from workbench.stats.riskgroups import assign_groups, group_labels
 from workbench.validation.compare import compare_models
 from workbench.validation.recalibrate import recalibrate
 from workbench.validation.resample import ValidationResult, validate_external
@@ -62,10 +63,10 @@ def read_new_cohort(bundle: Bundle, features, clinical) -> PreparedCohort:
 
 
 def _risk_group(values: np.ndarray, cuts) -> np.ndarray:
+    """Group names by the bundle's training cut-points, with the one rule of :mod:`workbench.stats.riskgroups`."""
     if not cuts:
         return np.full(values.size, "", dtype=object)
-    lo, hi = cuts
-    return np.where(values <= lo, "low", np.where(values <= hi, "intermediate", "high")).astype(object)
+    return np.asarray(group_labels(len(cuts) + 1), dtype=object)[assign_groups(values, cuts)]
 
 
 def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None = None,

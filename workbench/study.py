@@ -127,6 +127,7 @@ class ModelsSpec:
     fit: tuple[str, ...] = ("clinical", "combined")
     baseline: str = "clinical"
     forest: ForestSpec = field(default_factory=ForestSpec)
+    risk_groups: int = 3  # quantile groups of the training risk scores (figures, bundle, apply, estimate)
 
 
 @dataclass(frozen=True)
@@ -209,6 +210,8 @@ def check_spec(spec: StudySpec) -> None:
         _choice("[models] fit entry", m, MODEL_NAMES)
     if spec.models.baseline not in spec.models.fit:
         raise SpecError(f"[models] baseline {spec.models.baseline!r} is not among the fitted models {list(spec.models.fit)}.")
+    if not isinstance(spec.models.risk_groups, int) or spec.models.risk_groups < 2:
+        raise SpecError(f"[models] risk_groups must be a whole number of at least 2; got {spec.models.risk_groups!r}.")
     v = spec.validation
     _choice("[validation] method", v.method, VALIDATION_METHODS)
     _choice("[validation] backend", v.backend, BACKENDS)

@@ -86,9 +86,10 @@ def study_figures(result) -> dict:
             figs["nomogram"] = nomogram_figure(result)
         top = "combined" if "combined" in models else next(iter(models))
         m = models[top]
-        groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, "tertiles")
+        k = result.spec.models.risk_groups
+        groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, k)
         figs["km_risk_groups"] = plot_km_by_group(
-            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: risk tertiles ({where})"
+            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})"
         )
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)

@@ -176,10 +176,10 @@ def _eval_horizons(horizons, cohort) -> tuple[float, ...]:
     return tuple(h for h in horizons if h < float(np.max(cohort.time[cohort.event])) if np.any(cohort.event))
 
 
-def _km_fig(model, train, cohort, unit, title):
+def _km_fig(model, train, cohort, unit, title, k=3):
     from workbench.figures import km_by_group, plot_km_by_group, risk_groups
 
-    groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, "tertiles")
+    groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, k)
     return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
 
 
@@ -230,6 +230,7 @@ def _figures(result, d: dict) -> dict:
     models = result.models
     cox = {k: m for k, m in models.items() if hasattr(m, "fit_") and hasattr(m, "transformer_")}
     lead = models.get("combined") or next(iter(models.values()))
+    k_groups = getattr(result.spec.models, "risk_groups", 3)
     out = {k: [] for k in ("calibration", "decision", "external", "main")}
     _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
             "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
@@ -246,8 +247,9 @@ def _figures(result, d: dict) -> dict:
                 "Smoothed calibration of the unchanged models on the external patients.",
                 lambda: _calibration_fig(models, ext, eh, unit))
         _figure(out["external"], "external-km", "Risk groups on the external cohort",
-                f"Kaplan-Meier curves by tertile of the {_label(lead.name)} risk, cut-points fixed on the "
-                "development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort"))
+                f"Kaplan-Meier curves by {k_groups} quantile groups of the {_label(lead.name)} risk, cut-points "
+                "fixed on the development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
+                                                                       k_groups))
         _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
                 "Cumulative/dynamic AUC over follow-up time.",
                 lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort"))
@@ -260,8 +262,8 @@ def _figures(result, d: dict) -> dict:
         _figure(out["main"], "nomogram", "Nomograms", "Points per predictor, total points, and survival "
                 "probability at each horizon and predicted median survival, for each Cox model.", nomo)
     _figure(out["main"], "km", "Kaplan-Meier curves by risk group (development cohort)",
-            f"Tertiles of the {_label(lead.name)} risk on all development patients (apparent).",
-            lambda: _km_fig(lead, train, train, unit, _label(lead.name)))
+            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent).",
+            lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups))
     _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
             "Cumulative/dynamic AUC over follow-up time.",
             lambda: _auc_fig(models, train, train, horizons, unit, "Development cohort"))

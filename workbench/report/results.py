@@ -114,10 +114,25 @@ def _model_block(result, name: str) -> dict:
     if name in result.validation.selection:
         sel = result.validation.selection[name]
         block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency)}
+    block["risk_groups"] = _risk_group_block(result, name)
     block["performance"] = _metric_block(result.validation.estimates[name])
     if result.external is not None and name in result.external.estimates:
         block["external_performance"] = _metric_block(result.external.estimates[name])
     return block
+
+
+def _risk_group_block(result, name: str) -> dict | None:
+    """Cut-points learned on the training rows, with the one assignment rule (stats/riskgroups.py)."""
+    from workbench.stats.riskgroups import group_labels, learn_cutpoints
+
+    k = getattr(result.spec.models, "risk_groups", 3)
+    try:
+        cuts = learn_cutpoints(result.models[name].predict_risk(result.cohort), k)
+    except Exception:  # noqa: BLE001 - e.g. too many tied scores: no groups rather than no results
+        return None
+    return {"n_groups": int(k), "cutpoints": jsonable(cuts), "labels": list(group_labels(k)),
+            "learned_on": "training rows (quantiles of the risk score)",
+            "rule": "a score exactly on a cut-point joins the lower group"}
 
 
 def _group_digest(result) -> list[str]:
