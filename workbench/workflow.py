@@ -28,7 +28,6 @@ from workbench.validation.compare import ComparisonResult, compare_models
 from workbench.validation.groups import loco_groups
 from workbench.validation.resample import ValidationResult, validate, validate_external
 
-
 GROUP_REPLICATES = 50
 """Bootstrap resamples per held-out centre in leave-one-centre-out (per-centre intervals)."""
 

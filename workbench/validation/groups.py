@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from workbench.errors import MetricError, WorkbenchError
-from workbench.validation.meta import POOLING_SCALES, MetaResult, random_effects, transform
+from workbench.validation.meta import POOLING_SCALES, random_effects, transform
 
 __all__ = ["GROUP_METRICS", "GroupBlock", "LevelEstimate", "evaluate_groups", "group_metric_names", "loco_groups"]
 
