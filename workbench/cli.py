@@ -148,6 +148,12 @@ def _cmd_apply(args) -> int:
     bundle = load_bundle(args.bundle)
     res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
     path = write_external(res, args.out)
+    if args.save_recalibrated:
+        from workbench.external import save_recalibrated_bundle
+
+        target = Path(args.out) / f"bundle_recalibrated_{args.save_recalibrated}"
+        save_recalibrated_bundle(bundle, res, args.save_recalibrated, target, overwrite=True)
+        print(f"Recalibrated models ({args.save_recalibrated}) saved as a bundle in {target}")
     c = res.prepared.cohort
     print(f"Applied {', '.join(bundle.models)} to {c.n} patients ({c.n_events} events).")
     if res.prepared.incomplete_ids:
@@ -239,6 +245,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
     p.add_argument("--replicates", type=int, default=None, metavar="N",
                    help="bootstrap resamples for the intervals (default: the study's number, as in run)")
+    p.add_argument("--save-recalibrated", choices=("intercept", "slope"), default=None, metavar="METHOD",
+                   help="also save the Cox-type models recalibrated on this cohort as a bundle "
+                        "(intercept: baseline hazard only; slope: baseline and calibration slope)")
     p.set_defaults(func=_cmd_apply)
 
     p = sub.add_parser("estimate", help="survival estimate for one patient from a saved model bundle")

@@ -132,6 +132,30 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None =
     return ExternalResult(prepared, predictions, validation, comparisons, pd.DataFrame(rows), tuple(msgs))
 
 
+def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str, path, *,
+                             overwrite: bool = False) -> Path:
+    """Save the Cox-type models of ``bundle`` recalibrated on the new cohort as a new bundle.
+
+    ``method`` is ``"intercept"`` (baseline hazard updated, slope 1) or ``"slope"``
+    (baseline hazard and calibration slope). The new bundle's training summary
+    (risk-group cut-points, ranges) describes the new site's patients, on which
+    the recalibration was fitted.
+    """
+    from workbench.models.recalibrated import RecalibratedModel
+    from workbench.report.bundle import save_bundle, summarise_training
+
+    cohort = result.prepared.cohort
+    models = {name: RecalibratedModel(m, method, name=name).fit(cohort)
+              for name, m in bundle.models.items() if name in COX_KINDS}
+    if not models:
+        raise WorkbenchError("the bundle has no Cox-type model (clinical, combined, penalised_all) to recalibrate.")
+    training = summarise_training(cohort, models, bundle.spec.horizons, groups=bundle.spec.models.risk_groups)
+    extra = {"recalibrated": {"method": method, "n": cohort.n, "n_events": cohort.n_events,
+                              "data_hash": cohort.source.data_hash if cohort.source is not None else None,
+                              "slopes": {k: m.slope_ for k, m in models.items()}}}
+    return save_bundle(models, bundle.spec, training, path, extra=extra, overwrite=overwrite)
+
+
 def write_external(result: ExternalResult, out_dir) -> Path:
     """Write predictions, performance, comparison and recalibration tables."""
     from workbench.report.results import comparison_table, jsonable

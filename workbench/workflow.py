@@ -43,6 +43,27 @@ def external_settings(spec: StudySpec, replicates: int | None = None) -> dict:
     return {"replicates": reps, "random_state": spec.seed, "censoring": v.censoring, "pooling": v.pooling}
 
 
+def new_site_sizes(fitted: dict, cohort, horizons, seed) -> dict:
+    """Sample size to validate each Cox-type model at a new site, per horizon (from its own predictions)."""
+    import numpy as np
+
+    from workbench.validation.newsite import new_site_sample_size
+
+    grid = np.unique(np.r_[cohort.time[cohort.event], np.asarray(horizons, dtype=float)])
+    out = {}
+    for name, m in fitted.items():
+        if name not in ("clinical", "combined", "penalised_all"):
+            continue
+        try:
+            curves = m.predict_survival(cohort, grid)
+            lp = m.predict_risk(cohort).values
+            out[name] = [new_site_sample_size(curves, lp, cohort.y, h, random_state=[int(seed), i])
+                         for i, h in enumerate(horizons)]
+        except WorkbenchError as exc:
+            warnings.warn(f"new-site sample size for {name} could not be computed: {exc}", stacklevel=2)
+    return out
+
+
 class RunCancelled(WorkbenchError):
     """The user stopped a run before it finished."""
 
@@ -76,6 +97,9 @@ class StudyResult:
         Seed, input data hash, study-file hash, package versions, time stamps.
     warnings : tuple of (category, message)
         Statistical warnings raised during the run (each once).
+    new_site : dict of str to list of NewSiteSampleSize
+        Per Cox-type model and horizon, the patients needed to validate it at a
+        new site (:mod:`workbench.validation.newsite`).
     """
 
     spec: StudySpec
@@ -92,6 +116,7 @@ class StudyResult:
     volume: dict
     provenance: dict
     warnings: tuple = field(default_factory=tuple)
+    new_site: dict = field(default_factory=dict)
 
     @property
     def cohort(self):
@@ -198,6 +223,8 @@ def run_study(
                 unfitted, cohort, spec.horizons, replicates=min(v.replicates, GROUP_REPLICATES),
                 entropy=validation.seed_entropy, pooling=v.pooling)})
 
+        new_site = new_site_sizes(fitted, cohort, spec.horizons, spec.seed)
+
         baseline = spec.models.baseline
         comparisons = {m: compare_models(validation, m, baseline) for m in unfitted if m != baseline}
         external_comparisons = (
@@ -235,5 +262,6 @@ def run_study(
         volume=volume,
         provenance=provenance,
         warnings=tuple(messages),
+        new_site=new_site,
     )
 

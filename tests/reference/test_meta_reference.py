@@ -1,7 +1,9 @@
 """Random-effects pooling against statsmodels' meta-analysis functions and scipy.
 
 Source: statsmodels.stats.meta_analysis.combine_effects(method_re="chi2") is the
-DerSimonian-Laird estimator (statsmodels 0.14+ documentation); the REML value is
+DerSimonian-Laird estimator (statsmodels 0.14+ documentation), and its
+"random effect wls" row with use_t=True the Hartung-Knapp-Sidik-Jonkman interval;
+the REML value is
 checked against a direct numerical maximisation of the restricted likelihood
 with scipy.optimize. Data: log risk ratios and their variances computed from the
 2x2 counts of the 13 BCG-vaccine trials (Colditz et al. 1994), counts recalled
@@ -38,7 +40,7 @@ def test_dersimonian_laird_matches_statsmodels():
 
     y, v = _log_rr()
     ref = combine_effects(y, v, method_re="chi2")
-    res = random_effects(y, np.sqrt(v), transformed=True, method="dl")
+    res = random_effects(y, np.sqrt(v), transformed=True, method="dl", ci="normal")
     assert res.tau2 == pytest.approx(ref.tau2, abs=1e-6)
     assert res.mu == pytest.approx(ref.mean_effect_re, abs=1e-6)
     assert res.se_mu == pytest.approx(ref.sd_eff_w_re, abs=1e-6)
@@ -51,6 +53,17 @@ def test_dersimonian_laird_matches_statsmodels():
     half = stats.t.ppf(0.975, y.size - 2) * np.sqrt(ref.tau2 + ref.sd_eff_w_re**2)
     assert res.pi_lower == pytest.approx(ref.mean_effect_re - half, abs=1e-6)
     assert res.pi_upper == pytest.approx(ref.mean_effect_re + half, abs=1e-6)
+
+
+def test_hartung_knapp_interval_matches_statsmodels():
+    from statsmodels.stats.meta_analysis import combine_effects
+
+    y, v = _log_rr()
+    ref = combine_effects(y, v, method_re="chi2", use_t=True).summary_frame().loc["random effect wls"]
+    res = random_effects(y, np.sqrt(v), transformed=True, method="dl")  # ci="hksj" is the default
+    assert res.ci == "hksj"
+    assert res.ci_lower == pytest.approx(ref["ci_low"], abs=1e-6)
+    assert res.ci_upper == pytest.approx(ref["ci_upp"], abs=1e-6)
 
 
 def test_reml_maximises_the_restricted_likelihood():

@@ -41,6 +41,7 @@ from workbench.cohort.core import Cohort
 from workbench.cohort.summary import CAUTION, CohortSummary, HorizonSurvival, summarise_cohort
 from workbench.errors import BundleError, WorkbenchWarning
 from workbench.models.cox import ClinicalCox, CombinedCox
+from workbench.models.recalibrated import RecalibratedModel
 from workbench.models.registry import MODEL_LABELS
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.prepare import package_versions
@@ -224,6 +225,8 @@ class ModelInputs:
 
 def describe_inputs(model) -> ModelInputs:
     """Clinical fields (with kinds, levels, units, training ranges), imaging features and batches."""
+    if isinstance(model, RecalibratedModel):
+        return describe_inputs(model.base)
     if isinstance(model, CombinedCox):
         tr, feats, combat = model.transformer_, model.signature_.feature_names_in_, model.signature_.combat_
     elif isinstance(model, ClinicalCox):

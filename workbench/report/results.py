@@ -145,6 +145,11 @@ def _group_digest(result) -> list[str]:
         block = getattr(v, "groups", None) if v is not None else None
         if block:
             lines += [""] + digest_lines(block, lead, h, title)
+    for name, rows in (getattr(result, "new_site", None) or {}).items():
+        if rows:
+            r = rows[-1]
+            lines.append(f"To validate {name} at a new site (horizon {r.horizon:g}): {r.n_required} patients "
+                         f"(O/E {r.n_oe}, slope {r.n_slope}, C {r.n_c}; about {r.events_expected:.0f} events).")
     ch = getattr(result.external, "censoring", None) if result.external is not None else None
     if ch is not None:
         lines.append(f"External censoring weights: {ch.method} ({ch.reason}).")
@@ -200,6 +205,8 @@ def results_dict(result) -> dict:
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
         }
     _heterogeneity_blocks(result, out)
+    if getattr(result, "new_site", None):
+        out["new_site_sample_size"] = jsonable(result.new_site)
     return out
 
 

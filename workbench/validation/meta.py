@@ -7,12 +7,18 @@ slope and the Brier score as they are (Debray et al. 2017; Snell et al. 2018).
 The random-effects model y_i ~ N(mu, s_i^2 + tau^2) is fitted by
 DerSimonian-Laird (method of moments, the default) or REML (Fisher scoring).
 
-Reported: the pooled mean mu with its confidence interval (normal), tau^2, the
+Reported: the pooled mean mu with its confidence interval, tau^2, the
 I^2 share of variation due to heterogeneity (Higgins & Thompson 2002), the
 Q statistic, and the approximate 95% prediction interval for the performance
 in a new hospital, mu +- t_{k-2} sqrt(tau^2 + SE(mu)^2) (Higgins, Thompson &
 Spiegelhalter 2009; Riley, Higgins & Deeks 2011), which needs k >= 3.
 Everything is back-transformed to the natural scale for reporting.
+
+The confidence interval of mu is by default the Hartung-Knapp-Sidik-Jonkman
+interval, mu +- t_{k-1} sqrt(q / sum w*), q = sum w* (y - mu)^2 / (k - 1)
+(Hartung & Knapp 2001; IntHout et al. 2014), as Debray et al. (2017) advise for
+few hospitals: the normal interval under-covers there
+(bench/bench_meta_coverage.py). ``ci="normal"`` gives mu +- z SE(mu).
 """
 
 from __future__ import annotations
@@ -42,6 +48,7 @@ class MetaResult:
     ----------
     scale : {"identity", "log", "logit"}
     method : {"dl", "reml"}
+    ci : {"hksj", "normal"}
     k : int
     estimate, ci_lower, ci_upper : float
         Pooled mean and its confidence interval.
@@ -59,6 +66,7 @@ class MetaResult:
 
     scale: str
     method: str
+    ci: str
     k: int
     estimate: float
     ci_lower: float
@@ -87,7 +95,7 @@ def _reml_tau2(y, v, start: float, max_iter: int = 200, tol: float = 1e-12) -> f
     return tau2
 
 
-def random_effects(values, std_errors, *, scale: str = "identity", method: str = "dl",
+def random_effects(values, std_errors, *, scale: str = "identity", method: str = "dl", ci: str = "hksj",
                    conf_level: float = 0.95, transformed: bool = False) -> MetaResult:
     """Pool per-hospital estimates by a random-effects meta-analysis.
 
@@ -101,6 +109,9 @@ def random_effects(values, std_errors, *, scale: str = "identity", method: str =
     scale : {"identity", "log", "logit"}
     method : {"dl", "reml"}
         DerSimonian-Laird or restricted maximum likelihood for tau^2.
+    ci : {"hksj", "normal"}
+        Confidence interval of the pooled mean: Hartung-Knapp-Sidik-Jonkman
+        (t on k - 1 df, default) or normal.
     conf_level : float
     transformed : bool
         ``values`` are already on the pooling scale.
@@ -122,11 +133,16 @@ def random_effects(values, std_errors, *, scale: str = "identity", method: str =
     .. [5] Riley RD et al. External validation of clinical prediction models
            using big datasets from e-health records or IPD meta-analysis:
            opportunities and challenges. BMJ 2016;353:i3140.
+    .. [6] Hartung J, Knapp G. A refined method for the meta-analysis of
+           controlled clinical trials with binary outcome. Stat Med
+           2001;20:3875-89.
     """
     if scale not in _FWD:
         raise MetricError(f"unknown pooling scale {scale!r}; choose identity, log or logit.")
     if method not in ("dl", "reml"):
         raise MetricError(f"unknown random-effects method {method!r}; choose 'dl' or 'reml'.")
+    if ci not in ("hksj", "normal"):
+        raise MetricError(f"unknown interval {ci!r} for the pooled mean; choose 'hksj' or 'normal'.")
     y = np.asarray(values, dtype=float)
     s = np.asarray(std_errors, dtype=float)
     if y.shape != s.shape or y.ndim != 1:
@@ -148,7 +164,11 @@ def random_effects(values, std_errors, *, scale: str = "identity", method: str =
     ws = 1.0 / (v + tau2)
     mu = float(np.sum(ws * y) / np.sum(ws))
     se_mu = float(np.sqrt(1.0 / np.sum(ws)))
-    z = stats.norm.ppf(0.5 + conf_level / 2.0)
+    if ci == "hksj":
+        q_hk = float(np.sum(ws * (y - mu) ** 2) / (k - 1))
+        half_ci = stats.t.ppf(0.5 + conf_level / 2.0, k - 1) * np.sqrt(q_hk / np.sum(ws))
+    else:
+        half_ci = stats.norm.ppf(0.5 + conf_level / 2.0) * se_mu
     if k >= 3:
         t = stats.t.ppf(0.5 + conf_level / 2.0, k - 2)
         half = t * np.sqrt(tau2 + se_mu**2)
@@ -157,8 +177,8 @@ def random_effects(values, std_errors, *, scale: str = "identity", method: str =
         pi = (np.nan, np.nan)
     back = _BACK[scale]
     return MetaResult(
-        scale=scale, method=method, k=k, estimate=float(back(mu)),
-        ci_lower=float(back(mu - z * se_mu)), ci_upper=float(back(mu + z * se_mu)),
+        scale=scale, method=method, ci=ci, k=k, estimate=float(back(mu)),
+        ci_lower=float(back(mu - half_ci)), ci_upper=float(back(mu + half_ci)),
         pi_lower=float(back(pi[0])), pi_upper=float(back(pi[1])), tau2=float(tau2),
         i2=float(max(0.0, (q - (k - 1)) / q)) if q > 0 else 0.0,
         q=q, q_p=float(stats.chi2.sf(q, k - 1)), mu=mu, se_mu=se_mu,
