@@ -71,3 +71,29 @@ def test_pooling_reproduces_the_meta_analysis_of_the_per_centre_values(block):
     assert got.pi_lower <= got.ci_lower < got.estimate < got.ci_upper <= got.pi_upper
     assert 0.55 < got.estimate < 0.8
     assert "oe_ratio@1095" in block.pooled["cox"] and block.pooled["cox"]["oe_ratio@1095"].scale == "log"
+
+
+def test_external_validation_records_the_censoring_model_and_groups(cohort):
+    from dataclasses import replace
+
+    from workbench.validation.external import validate_external
+
+    dev = cohort.take(np.arange(0, 400))
+    ext = cohort.take(np.arange(400, cohort.n))
+    fitted = {"cox": ClinicalCox(SPECS, name="cox").fit(dev)}
+    # centres with very different follow-up: administrative censoring at 800 days in c1
+    t = ext.y["time"].copy()
+    e = ext.y["event"].copy()
+    short = ext.centre == "c1"
+    e = np.where(short & (t > 800), False, e)
+    t = np.where(short, np.minimum(t, 800.0), t)
+    ext2 = replace(ext, y=make_outcome(t, e))
+    res = validate_external(fitted, ext2, [365.0, 730.0], replicates=4, random_state=1, calibration=False)
+    assert res.censoring.method == "km_by_centre" and res.censoring.p_value < 0.05
+    assert res.settings["censoring"] == "km_by_centre"
+    assert set(res.groups) == {"centre"} and res.groups["centre"].levels == ("c1", "c2", "c3", "c4")
+    cox = validate_external(fitted, ext2, [365.0, 730.0], replicates=4, random_state=1, calibration=False,
+                            censoring="cox", by_group=False)
+    assert cox.censoring.method == "cox" and cox.groups == {}
+    b1, b2 = res.apparent["cox"].brier, cox.apparent["cox"].brier
+    assert np.all(np.isfinite(b2)) and np.all(np.abs(b1 - b2) < 0.02)  # two consistent weightings agree roughly
