@@ -55,6 +55,7 @@ def test_dersimonian_laird_matches_statsmodels():
     assert res.pi_upper == pytest.approx(ref.mean_effect_re + half, abs=1e-6)
 
 
+@pytest.mark.filterwarnings("ignore::statsmodels.tools.sm_exceptions.InvalidTestWarning")
 def test_hartung_knapp_interval_matches_statsmodels():
     from statsmodels.stats.meta_analysis import combine_effects
 
