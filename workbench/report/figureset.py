@@ -46,6 +46,17 @@ from workbench.models.registry import MODEL_LABELS
 COX_MODELS = ("clinical", "combined")
 
 
+def external_censoring(result, cohort, risks: dict) -> dict | None:
+    """Per-model censoring weights of the external cohort, the model the validation table used."""
+    from workbench.validation.external import censoring_for
+
+    choice = getattr(result.external, "censoring", None)
+    if choice is None or choice.method == "km":
+        return None
+    strata = None if cohort.centre is None else np.asarray(cohort.centre).astype(str)
+    return {name: censoring_for(cohort.y, strata, choice.method, r) for name, r in risks.items()}
+
+
 def _evaluation(result):
     if result.external_prepared is not None:
         return result.external_prepared.cohort, "external cohort"
@@ -94,8 +105,10 @@ def study_figures(result) -> dict:
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
         risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}
-        cens_y = evalc.y if result.external_prepared is not None else train.y  # the evaluated cohort's own weights
-        figs["td_auc"] = plot_td_auc(td_auc_by_model(cens_y, evalc.y, risks, grid), time_unit=unit,
+        cens_y, row_cens = train.y, None
+        if result.external_prepared is not None:  # the evaluated cohort's own weights, as in the table
+            cens_y, row_cens = evalc.y, external_censoring(result, evalc, risks)
+        figs["td_auc"] = plot_td_auc(td_auc_by_model(cens_y, evalc.y, risks, grid, censoring=row_cens), time_unit=unit,
                                      horizons=horizons, title=where.capitalize())
         curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
         cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}

@@ -183,7 +183,14 @@ def _km_fig(model, train, cohort, unit, title, k=3):
     return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
 
 
-def _auc_fig(models, weights_from, cohort, horizons, unit, title):
+def _external_row_censoring(result, cohort, models):
+    from workbench.report.figureset import external_censoring
+
+    risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
+    return external_censoring(result, cohort, risks)
+
+
+def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=None):
     """AUC over time; censoring weights from ``weights_from`` (the evaluated cohort itself when external)."""
     from workbench.figures import plot_td_auc, td_auc_by_model
 
@@ -191,7 +198,8 @@ def _auc_fig(models, weights_from, cohort, horizons, unit, title):
     hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
     grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
     risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
-    return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid), time_unit=unit, horizons=horizons,
+    return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid, censoring=row_censoring),
+                       time_unit=unit, horizons=horizons,
                        title=title)
 
 
@@ -252,7 +260,8 @@ def _figures(result, d: dict) -> dict:
                                                                        k_groups))
         _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
                 "Cumulative/dynamic AUC over follow-up time.",
-                lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort"))
+                lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort",
+                                 _external_row_censoring(result, ext, models)))
     if cox:
         def nomo():
             scales = [nomogram_scales(m, horizons, time_unit=unit, median_axis=True, name=_label(k),

@@ -34,7 +34,7 @@ from workbench.validation.evaluate import (
 from workbench.validation.plans import _copy_seed, _root
 from workbench.validation.results import ValidationResult
 
-__all__ = ["evaluate_cohort", "predict_cohort", "validate_external"]
+__all__ = ["censoring_for", "evaluate_cohort", "predict_cohort", "validate_external"]
 
 
 def predict_cohort(fitted_models: Mapping, cohort: Cohort, horizons) -> tuple[dict, np.ndarray, np.ndarray]:
@@ -44,6 +44,15 @@ def predict_cohort(fitted_models: Mapping, cohort: Cohort, horizons) -> tuple[di
     times = prediction_times(h, grid)
     preds = {nm: (m.predict_risk(cohort), m.predict_survival(cohort, times)) for nm, m in fitted_models.items()}
     return preds, h, grid
+
+
+def censoring_for(y, strata, method: str, risk=None):
+    """The per-row censoring weights of :func:`evaluate_cohort` (None: one KM curve of ``y``)."""
+    if method == "km_by_centre":
+        return row_censoring(y, method, strata=strata)
+    if method == "cox":
+        return row_censoring(y, "cox", strata=strata, covariates=np.asarray(risk.values)[:, None])
+    return None
 
 
 def evaluate_cohort(preds: Mapping, y, strata, method: str, horizons, grid, kw: Mapping, *,
@@ -60,14 +69,10 @@ def evaluate_cohort(preds: Mapping, y, strata, method: str, horizons, grid, kw: 
     method : {"km", "km_by_centre", "cox"}
         Resolved censoring model.
     """
-    shared = None
-    if method == "km_by_centre":
-        shared = row_censoring(y, method, strata=strata)
+    shared = censoring_for(y, strata, method) if method == "km_by_centre" else None
     out = {}
     for name, (risk, curv) in preds.items():
-        cens = shared
-        if method == "cox":
-            cens = row_censoring(y, "cox", strata=strata, covariates=risk.values[:, None])
+        cens = censoring_for(y, strata, method, risk) if method == "cox" else shared
         out[name] = evaluate_predictions(risk, curv, y, y, horizons, ibs_times=grid, on_error=on_error,
                                          model=name, censoring=cens, **kw)
     return out

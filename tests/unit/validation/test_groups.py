@@ -97,3 +97,13 @@ def test_external_validation_records_the_censoring_model_and_groups(cohort):
     assert cox.censoring.method == "cox" and cox.groups == {}
     b1, b2 = res.apparent["cox"].brier, cox.apparent["cox"].brier
     assert np.all(np.isfinite(b2)) and np.all(np.abs(b1 - b2) < 0.02)  # two consistent weightings agree roughly
+    # the external AUC figure uses the weights of the table
+    from types import SimpleNamespace
+
+    from workbench.figures import td_auc_by_model
+    from workbench.report.figureset import external_censoring
+
+    risks = {"cox": fitted["cox"].predict_risk(ext2)}
+    cens = external_censoring(SimpleNamespace(external=res), ext2, risks)
+    fig_auc = td_auc_by_model(ext2.y, ext2.y, risks, [365.0, 730.0], censoring=cens)["cox"].auc
+    np.testing.assert_allclose(fig_auc, res.apparent["cox"].auc, rtol=0, atol=1e-12)
