@@ -257,8 +257,9 @@ def methods_paragraph(result, data: dict | None = None) -> str:
             "on the external cohort itself and re-estimated in every resample"
             + _censoring_clause(e.get("censoring"))
             + (". Performance was also estimated in each centre and scanner of the external cohort and pooled by "
-               "random-effects meta-analysis (C on the logit scale, O/E on the log scale; DerSimonian-Laird with "
-               "the Hartung-Knapp interval and the 95% prediction interval for a new site; Debray et al. 2017)"
+               "random-effects meta-analysis (C on the logit scale, O/E on the log scale; "
+               + ("REML" if any(g.get("pooling_method") == "reml" for g in e["by_group"].values())
+                  else "DerSimonian-Laird") + " with the Hartung-Knapp interval and the 95% prediction interval for a new site; Debray et al. 2017)"
                if e.get("by_group") else "") + "."
         )
     v = d["provenance"]["versions"]
