@@ -20,7 +20,12 @@ papers, recalled from memory): 0.2 for O/E (on the ratio scale, around 1),
 * O/E: SE of ln(O/E) = Greenwood SE of the Kaplan-Meier risk / observed risk
   (the expected risk is fixed by the model);
 * slope: SE of the coefficient of a Cox model of the outcome on the linear
-  predictor;
+  predictor (the calibration slope over the whole follow-up). The paper targets
+  the slope at the horizon on the log cumulative hazard scale, estimated from
+  pseudo-observations; that estimator is not implemented here, so this
+  criterion is a simplification of the paper's, not a reproduction of it, and
+  the paper's worked example (a model for recurrent venous thromboembolism) is
+  not reproduced;
 * C: the asymptotic SE of Harrell's C.
 """
 
