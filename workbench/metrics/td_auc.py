@@ -108,7 +108,7 @@ def _auc_rowweights(censoring, time, is_case, is_ctrl, ranks, t) -> float:
     ctrl_w = np.bincount(ranks, weights=b, minlength=n_rank)
     below = (np.cumsum(ctrl_w) - ctrl_w)[ranks]
     num = np.sum(a * (below + 0.5 * ctrl_w[ranks]))
-    return float(num / (a.sum() * b.sum()))
+    return float(min(1.0, max(0.0, num / (a.sum() * b.sum()))))
 
 
 def time_dependent_auc(
@@ -241,7 +241,7 @@ def time_dependent_auc(
 
         f_hat, s_hat = a.sum() / n, b.sum() / n
         phi = np.sum(a * k_case) / n
-        auc[h] = phi / (f_hat * s_hat)
+        auc[h] = min(1.0, max(0.0, phi / (f_hat * s_hat)))  # rounding can exceed 1 by an ulp
         if0 = (a * k_case + b * k_ctrl - auc[h] * (a * s_hat + b * f_hat)) / (f_hat * s_hat)
         c = np.where(is_case, a * (k_case - auc[h] * s_hat) / (n * f_hat * s_hat), 0.0)
         ifg = _censoring_influence(cens, tr_idx, tr_event, time[is_case], c[is_case])
