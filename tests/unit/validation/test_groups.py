@@ -107,3 +107,24 @@ def test_external_validation_records_the_censoring_model_and_groups(cohort):
     cens = external_censoring(SimpleNamespace(external=res), ext2, risks)
     fig_auc = td_auc_by_model(ext2.y, ext2.y, risks, [365.0, 730.0], censoring=cens)["cox"].auc
     np.testing.assert_allclose(fig_auc, res.apparent["cox"].auc, rtol=0, atol=1e-12)
+
+
+@pytest.mark.slow  # one small study run with leave-one-centre-out: about 15 s
+def test_by_centre_study_writes_per_centre_block_with_pooling(small_study_file, tmp_path):
+    import json
+
+    from workbench.cli import main
+
+    study = tmp_path / "study.toml"
+    text = small_study_file.read_text().replace('method = "bootstrap"', 'method = "by_centre"')
+    text = text.replace('features = "imaging.csv"', f'features = "{small_study_file.parent / "imaging.csv"}"')
+    text = text.replace('clinical = "clinical.csv"', f'clinical = "{small_study_file.parent / "clinical.csv"}"')
+    study.write_text(text)
+    assert main(["run", str(study), "--out", str(tmp_path / "out"), "--quiet", "--no-report", "--no-figures"]) == 0
+    d = json.loads((tmp_path / "out" / "results.json").read_text())
+    block = d["validation"]["by_group"]["centre"]
+    assert len(block["levels"]) >= 3 and block["censoring"] == "km"
+    pooled = block["pooled"]["combined"]["harrell_c"]
+    assert pooled["k"] == len(block["levels"]) and pooled["pi_lower"] is not None
+    assert pooled["ci_lower"] < pooled["estimate"] < pooled["ci_upper"]
+    assert (tmp_path / "out" / "internal_by_group.csv").exists()
