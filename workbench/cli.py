@@ -172,7 +172,8 @@ def _write_run_folder(result, out: Path, args) -> list[str]:
 
             write_figures(result, out / "figures")
             extras.append("figures/")
-        training = summarise_training(result.cohort, result.models, result.spec.horizons)
+        training = summarise_training(result.cohort, result.models, result.spec.horizons,
+                                      groups=result.spec.models.risk_groups)
         save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
         extras.append("bundle/")
         extras += _write_report(result, out, args)
@@ -218,6 +219,13 @@ def _cmd_apply(args) -> int:
         raise
     with atomic_folder(out) as tmp:
         write_external(res, tmp)
+        if args.save_recalibrated:
+            from workbench.external import save_recalibrated_bundle
+
+            name = f"bundle_recalibrated_{args.save_recalibrated}"
+            save_recalibrated_bundle(bundle, res, args.save_recalibrated, tmp / name, overwrite=True)
+    if args.save_recalibrated:
+        print(f"Recalibrated models ({args.save_recalibrated}) saved as a bundle in {out / name}")
     c = res.prepared.cohort
     print(f"Applied {', '.join(bundle.models)} to {c.n} patients ({c.n_events} events).")
     if res.prepared.incomplete_ids:
@@ -325,8 +333,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--features", required=True, metavar="FILE", help="the new cohort's imaging features table")
     p.add_argument("--clinical", required=True, metavar="FILE", help="the new cohort's clinical table")
     p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
-    p.add_argument("--replicates", type=_count(0), default=200, metavar="N",
-                   help="bootstrap resamples for the intervals (0: no intervals)")
+    p.add_argument("--replicates", type=_count(0), default=None, metavar="N",
+                   help="bootstrap resamples for the intervals (default: the study's number, as in run; 0: no intervals)")
+    p.add_argument("--save-recalibrated", choices=("intercept", "slope"), default=None, metavar="METHOD",
+                   help="also save the Cox-type models recalibrated on this cohort as a bundle "
+                        "(intercept: baseline hazard only; slope: baseline and calibration slope)")
     p.set_defaults(func=_cmd_apply)
 
     p = sub.add_parser("estimate", help="survival estimate for one patient from a saved model bundle")

@@ -31,12 +31,12 @@ from workbench.models.base import as_times, clone_model
 from workbench.models.cox import ClinicalCox, CombinedCox
 from workbench.preprocess.values import MISSING_TOKENS, canonical_level, parse_measurements
 from workbench.report.bundle import (
-    RISK_GROUPS,
     Bundle,
     ClinicalInput,
     TrainingSummary,
     describe_inputs,
 )
+from workbench.stats.riskgroups import assign_groups, group_labels
 
 METHODS = ("delta", "bootstrap")
 MIN_BOOTSTRAP = 20  # fewer refits give unstable 2.5th / 97.5th percentiles (common practice)
@@ -444,7 +444,7 @@ def _predict(model, cohort, grid, h, conf_level, method, bootstrap_models, range
     lp = float(model.linear_predictor(cohort)[0]) if hasattr(model, "linear_predictor") else float("nan")
     risk = float(model.predict_risk(cohort).values[0])
     cuts = tuple(ranges.risk_cutpoints) if ranges.risk_cutpoints else None
-    group = None if cuts is None else RISK_GROUPS[int(np.searchsorted(np.asarray(cuts), risk, side="left"))]
+    group = None if cuts is None else group_labels(len(cuts) + 1)[int(assign_groups([risk], cuts)[0])]
     return PatientEstimate(
         model=str(getattr(model, "name", type(model).__name__)), time_unit=ranges.time_unit, times=grid,
         survival=surv, lower=np.asarray(lo, dtype=float), upper=np.asarray(hi, dtype=float), horizons=hz,
@@ -509,7 +509,8 @@ def format_estimate(est: PatientEstimate) -> str:
         lines.append(f"Risk score: {est.risk_score:.4g}")
     if est.risk_group is not None:
         cuts = " / ".join(f"{c:.3g}" for c in est.risk_cutpoints)
-        lines.append(f"Risk group: {est.risk_group} (training tertiles, cut-points {cuts})")
+        lines.append(f"Risk group: {est.risk_group} of {len(est.risk_cutpoints) + 1} (training quantile groups, "
+                     f"cut-points {cuts}; a score on a cut-point joins the lower group)")
     ch = est.checks
     if ch.out_of_range:
         lines += ["", "Values outside the training data:"]

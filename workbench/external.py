@@ -23,9 +23,11 @@ from workbench.metrics.calibration import calibration_at
 from workbench.plausibility import check_bundle_cohort
 from workbench.prepare import PreparedCohort, drop_incomplete, select_pool
 from workbench.report.bundle import Bundle
+from workbench.stats.riskgroups import assign_groups, group_labels
 from workbench.validation.compare import compare_models
 from workbench.validation.recalibrate import recalibrate
 from workbench.validation.resample import ValidationResult, validate_external
+from workbench.workflow import external_settings
 
 COX_KINDS = ("clinical", "combined", "penalised_all")
 
@@ -62,13 +64,14 @@ def read_new_cohort(bundle: Bundle, features, clinical) -> PreparedCohort:
 
 
 def _risk_group(values: np.ndarray, cuts) -> np.ndarray:
+    """Group names by the bundle's training cut-points, with the one rule of :mod:`workbench.stats.riskgroups`."""
     if not cuts:
         return np.full(values.size, "", dtype=object)
-    lo, hi = cuts
-    return np.where(values <= lo, "low", np.where(values <= hi, "intermediate", "high")).astype(object)
+    return np.asarray(group_labels(len(cuts) + 1), dtype=object)[assign_groups(values, cuts)]
 
 
-def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, recalibration=("intercept", "slope"),
+def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None = None,
+                 recalibration=("intercept", "slope"),
                  random_state=None) -> ExternalResult:
     """Apply every model of ``bundle`` to a new cohort and validate it there.
 
@@ -78,8 +81,10 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, r
         From :func:`workbench.report.bundle.load_bundle`.
     features, clinical : path-like
         The new cohort's tables (same columns as the training tables).
-    replicates : int
-        Bootstrap resamples of the new patients for the intervals (predictions fixed).
+    replicates : int, optional
+        Bootstrap resamples of the new patients for the intervals (predictions
+        fixed); the study's number by default, so that ``apply`` repeats the
+        numbers of ``run`` with the same external tables.
     recalibration : tuple of {"intercept", "slope"}
         Recalibrations of the Cox-type models to report (apparent on the new cohort).
     """
@@ -100,8 +105,10 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, r
             for j, h in enumerate(horizons):
                 cols[f"{name}_survival_{h:g}"] = surv.probs[:, j]
         predictions = pd.DataFrame(cols)
-        validation = validate_external(bundle.models, cohort.y, cohort, horizons, replicates=replicates,
-                                       random_state=spec.seed if random_state is None else random_state)
+        settings = external_settings(spec, replicates)
+        if random_state is not None:
+            settings["random_state"] = random_state
+        validation = validate_external(bundle.models, cohort, horizons, **settings)
         baseline = spec.models.baseline
         comparisons = {m: compare_models(validation, m, baseline) for m in bundle.models if m != baseline}
         rows = []
@@ -127,6 +134,30 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int = 200, r
     return ExternalResult(prepared, predictions, validation, comparisons, pd.DataFrame(rows), tuple(msgs))
 
 
+def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str, path, *,
+                             overwrite: bool = False) -> Path:
+    """Save the Cox-type models of ``bundle`` recalibrated on the new cohort as a new bundle.
+
+    ``method`` is ``"intercept"`` (baseline hazard updated, slope 1) or ``"slope"``
+    (baseline hazard and calibration slope). The new bundle's training summary
+    (risk-group cut-points, ranges) describes the new site's patients, on which
+    the recalibration was fitted.
+    """
+    from workbench.models.recalibrated import RecalibratedModel
+    from workbench.report.bundle import save_bundle, summarise_training
+
+    cohort = result.prepared.cohort
+    models = {name: RecalibratedModel(m, method, name=name).fit(cohort)
+              for name, m in bundle.models.items() if name in COX_KINDS}
+    if not models:
+        raise WorkbenchError("the bundle has no Cox-type model (clinical, combined, penalised_all) to recalibrate.")
+    training = summarise_training(cohort, models, bundle.spec.horizons, groups=bundle.spec.models.risk_groups)
+    extra = {"recalibrated": {"method": method, "n": cohort.n, "n_events": cohort.n_events,
+                              "data_hash": cohort.source.data_hash if cohort.source is not None else None,
+                              "slopes": {k: m.slope_ for k, m in models.items()}}}
+    return save_bundle(models, bundle.spec, training, path, extra=extra, overwrite=overwrite)
+
+
 def write_external(result: ExternalResult, out_dir) -> Path:
     """Write predictions, performance, comparison and recalibration tables."""
     from workbench.report.results import comparison_table, jsonable
@@ -140,6 +171,10 @@ def write_external(result: ExternalResult, out_dir) -> Path:
     import json
 
     from workbench.cohort.summary import CAUTION
+    from workbench.report.heterogeneity import censoring_dict, group_table, groups_dict
+
+    if result.validation.groups:
+        group_table(result.validation.groups).to_csv(out / "by_group.csv", index=False)
 
     data = {
         "caution": CAUTION,
@@ -148,6 +183,8 @@ def write_external(result: ExternalResult, out_dir) -> Path:
         "n_incomplete_dropped": len(result.prepared.incomplete_ids),
         "performance": {m: jsonable(e) for m, e in result.validation.estimates.items()},
         "recalibration": jsonable(result.recalibration),
+        "censoring": censoring_dict(result.validation.censoring),
+        "by_group": groups_dict(result.validation.groups),
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
     }
     path = out / "external_results.json"

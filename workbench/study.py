@@ -137,6 +137,7 @@ class ModelsSpec:
     fit: tuple[str, ...] = ("clinical", "combined")
     baseline: str = "clinical"
     forest: ForestSpec = field(default_factory=ForestSpec)
+    risk_groups: int = 3  # quantile groups of the training risk scores (figures, bundle, apply, estimate)
 
 
 @dataclass(frozen=True)
@@ -149,6 +150,8 @@ class ValidationSpec:
     workers: int = 1
     backend: str = "processes"
     scheduler: str | None = None
+    censoring: str = "auto"  # IPCW weights of external / held-out rows: auto, km, km_by_centre, cox
+    pooling: str = "dl"  # random-effects pooling across centres/scanners: dl or reml
 
 
 @dataclass(frozen=True)
@@ -217,9 +220,15 @@ def check_spec(spec: StudySpec) -> None:
         _choice("[models] fit entry", m, MODEL_NAMES)
     if spec.models.baseline not in spec.models.fit:
         raise SpecError(f"[models] baseline {spec.models.baseline!r} is not among the fitted models {list(spec.models.fit)}.")
+    if not isinstance(spec.models.risk_groups, int) or spec.models.risk_groups < 2:
+        raise SpecError(f"[models] risk_groups must be a whole number of at least 2; got {spec.models.risk_groups!r}.")
     v = spec.validation
     _choice("[validation] method", v.method, VALIDATION_METHODS)
     _choice("[validation] backend", v.backend, BACKENDS)
+    _choice("[validation] censoring", v.censoring, ("auto", "km", "km_by_centre", "cox"))
+    _choice("[validation] pooling", v.pooling, ("dl", "reml"))
+    if v.censoring == "km_by_centre" and not d.centre:
+        raise SpecError("[validation] censoring 'km_by_centre' needs a centre column in [data] (centre = '...').")
     if v.method == "by_centre" and not d.centre:
         raise SpecError("[validation] method 'by_centre' needs a centre column in [data] (centre = '...').")
     if v.backend == "dask" and not v.scheduler:

@@ -25,7 +25,43 @@ from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, 
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.compare import ComparisonResult, compare_models
+from workbench.validation.groups import loco_groups
 from workbench.validation.resample import ValidationResult, validate, validate_external
+
+GROUP_REPLICATES = 50
+"""Bootstrap resamples per held-out centre in leave-one-centre-out (per-centre intervals)."""
+
+
+def external_settings(spec: StudySpec, replicates: int | None = None) -> dict:
+    """Settings of :func:`validate_external` for a study: the same for ``run`` and ``apply``.
+
+    ``run`` (an [external] block) and ``apply`` (a saved bundle) call
+    ``validate_external`` with exactly these, so they give identical numbers.
+    """
+    v = spec.validation
+    reps = (v.replicates if v.method != "none" else 0) if replicates is None else int(replicates)
+    return {"replicates": reps, "random_state": spec.seed, "censoring": v.censoring, "pooling": v.pooling}
+
+
+def new_site_sizes(fitted: dict, cohort, horizons, seed) -> dict:
+    """Sample size to validate each Cox-type model at a new site, per horizon (from its own predictions)."""
+    import numpy as np
+
+    from workbench.validation.newsite import new_site_sample_size
+
+    grid = np.unique(np.r_[cohort.time[cohort.event], np.asarray(horizons, dtype=float)])
+    out = {}
+    for name, m in fitted.items():
+        if name not in ("clinical", "combined", "penalised_all"):
+            continue
+        try:
+            curves = m.predict_survival(cohort, grid)
+            lp = m.predict_risk(cohort).values
+            out[name] = [new_site_sample_size(curves, lp, cohort.y, h, random_state=[int(seed), i])
+                         for i, h in enumerate(horizons)]
+        except WorkbenchError as exc:
+            warnings.warn(f"new-site sample size for {name} could not be computed: {exc}", stacklevel=2)
+    return out
 
 
 class RunCancelled(WorkbenchError):
@@ -61,6 +97,9 @@ class StudyResult:
         Seed, input data hash, study-file hash, package versions, time stamps.
     warnings : tuple of (category, message)
         Statistical warnings raised during the run (each once).
+    new_site : dict of str to list of NewSiteSampleSize
+        Per Cox-type model and horizon, the patients needed to validate it at a
+        new site (:mod:`workbench.validation.newsite`).
     """
 
     spec: StudySpec
@@ -77,6 +116,7 @@ class StudyResult:
     volume: dict
     provenance: dict
     warnings: tuple = field(default_factory=tuple)
+    new_site: dict = field(default_factory=dict)
 
     @property
     def cohort(self):
@@ -173,13 +213,17 @@ def run_study(
             ext_prepared = prepare_cohort(spec, external=True)
             external = validate_external(
                 fitted,
-                cohort.y,
                 ext_prepared.cohort,
                 spec.horizons,
-                replicates=v.replicates if v.method != "none" else 0,
-                random_state=spec.seed,
+                **external_settings(spec),
                 progress=_progress(progress, cancel, "external validation"),
             )
+        if v.method == "by_centre":
+            validation = replace(validation, groups={"centre": loco_groups(
+                unfitted, cohort, spec.horizons, replicates=min(v.replicates, GROUP_REPLICATES),
+                entropy=validation.seed_entropy, pooling=v.pooling)})
+
+        new_site = new_site_sizes(fitted, cohort, spec.horizons, spec.seed)
 
         baseline = spec.models.baseline
         comparisons = {m: compare_models(validation, m, baseline) for m in unfitted if m != baseline}
@@ -218,5 +262,6 @@ def run_study(
         volume=volume,
         provenance=provenance,
         warnings=tuple(messages),
+        new_site=new_site,
     )
 

@@ -115,3 +115,30 @@ def test_estimate_from_the_command_line(run_folder, capsys):
     assert "Caution:" in out
     assert main(["estimate", str(run_folder / "bundle"), "--value", "age"]) == 2
     assert "FIELD=VALUE" in capsys.readouterr().err
+
+
+def test_recalibrated_models_saved_as_a_bundle_predict_as_recalibrated(run_folder, study_file, tmp_path, capsys):
+    # Reference: validation.recalibrate.recalibrate, itself checked against lifelines
+    # (tests/reference/test_recalibrate_reference.py).
+    import numpy as np
+
+    from workbench.external import read_new_cohort
+    from workbench.report.bundle import load_bundle
+    from workbench.validation.recalibrate import recalibrate
+
+    d = study_file.parent
+    out = tmp_path / "ext"
+    assert main(["apply", str(run_folder / "bundle"), "--features", str(d / "imaging.csv"),
+                 "--clinical", str(d / "clinical.csv"), "--out", str(out), "--replicates", "2",
+                 "--save-recalibrated", "slope"]) == 0
+    assert "saved as a bundle" in capsys.readouterr().out
+    original = load_bundle(run_folder / "bundle")
+    rec = load_bundle(out / "bundle_recalibrated_slope")
+    assert set(rec.models) == {"clinical", "combined"}
+    assert rec.manifest["extra"]["recalibrated"]["method"] == "slope"
+    cohort = read_new_cohort(original, d / "imaging.csv", d / "clinical.csv").cohort
+    for name in ("clinical", "combined"):
+        want = recalibrate(original.models[name].predict_risk(cohort), cohort.y, [12, 24], "slope")
+        got = rec.models[name].predict_survival(cohort, [12, 24])
+        np.testing.assert_allclose(got.probs, want.curves.probs, rtol=0, atol=1e-10)
+        assert rec.models[name].slope_ == pytest.approx(want.slope, abs=1e-12)

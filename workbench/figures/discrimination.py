@@ -29,7 +29,8 @@ from workbench.figures.style import (
 from workbench.metrics.td_auc import TimeDependentAUCResult, time_dependent_auc
 
 
-def td_auc_by_model(y_train, y_test, risks: Mapping, times) -> dict[str, TimeDependentAUCResult]:
+def td_auc_by_model(y_train, y_test, risks: Mapping, times, *,
+                    censoring: Mapping | None = None) -> dict[str, TimeDependentAUCResult]:
     """Call the AUC(t) metric for every model on the same grid of times.
 
     Parameters
@@ -38,8 +39,12 @@ def td_auc_by_model(y_train, y_test, risks: Mapping, times) -> dict[str, TimeDep
     risks : mapping of model name to RiskScores (evaluation rows)
     times : array-like
         Grid of horizons strictly inside the evaluation follow-up.
+    censoring : mapping of model name to RowCensoring or None, optional
+        Per-row censoring weights (external cohorts: those of the validation table).
     """
-    return {name: time_dependent_auc(y_train, y_test, r, times) for name, r in risks.items()}
+    cens = censoring or {}
+    return {name: time_dependent_auc(y_train, y_test, r, times, censoring=cens.get(name))
+            for name, r in risks.items()}
 
 
 def plot_td_auc(

@@ -22,18 +22,10 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from workbench.errors import SpecError
+from workbench.stats.riskgroups import GROUP_NAMES, assign_groups, group_labels, learn_cutpoints  # noqa: F401 (re-exported)
 
-METHODS = {
-    "median": (0.5,),
-    "tertiles": (1 / 3, 2 / 3),
-    "quartiles": (0.25, 0.5, 0.75),
-}
-GROUP_NAMES = {
-    2: ("low", "high"),
-    3: ("low", "intermediate", "high"),
-    4: ("low", "low-intermediate", "high-intermediate", "high"),
-}
-
+METHODS = {"median": (0.5,), "tertiles": (1 / 3, 2 / 3), "quartiles": (0.25, 0.5, 0.75)}
+"""Named quantile groups (any number of groups: pass an int to :func:`risk_cutpoints`)."""
 
 @dataclass(frozen=True)
 class RiskGroups:
@@ -43,7 +35,8 @@ class RiskGroups:
     ----------
     cutpoints : ndarray of shape (k - 1,)
         Risk-score boundaries learned on the training rows; a patient exactly on
-        a boundary joins the higher group.
+        a boundary joins the lower group (:mod:`workbench.stats.riskgroups`, the
+        rule the bundle, ``apply`` and the patient estimate use too).
     labels : tuple of str
         Group names, lowest risk first.
     groups : ndarray of int, shape (n_eval,)
@@ -72,37 +65,13 @@ def _scores(x: ArrayLike, what: str) -> np.ndarray:
     return a
 
 
-def risk_cutpoints(train_risk: ArrayLike, method: str | Sequence[float] = "median") -> np.ndarray:
-    """Cut-points from the training risk scores: quantiles, or the values given.
+def risk_cutpoints(train_risk: ArrayLike, method: str | int | Sequence[float] = "median") -> np.ndarray:
+    """Cut-points from the training risk scores: quantiles, k equal groups, or the values given.
 
-    Parameters
-    ----------
-    train_risk : array-like or RiskScores
-        Risk scores of the training patients (higher = worse).
-    method : {"median", "tertiles", "quartiles"} or sequence of float
-        Training quantiles to cut at, or increasing cut-points on the risk-score scale.
+    See :func:`workbench.stats.riskgroups.learn_cutpoints` (the one rule).
     """
-    train = _scores(train_risk, "risk_cutpoints")
-    if isinstance(method, str):
-        if method not in METHODS:
-            raise SpecError(
-                f"risk groups: method {method!r} is not known; choose 'median', 'tertiles', 'quartiles' "
-                "or give the cut-points as a list of risk-score values. (A search for the cut-point with "
-                "the smallest p-value is not offered: it exaggerates the separation.)"
-            )
-        cuts = np.quantile(train, METHODS[method])
-        if np.any(np.diff(cuts) <= 0):
-            raise SpecError(
-                f"risk groups: the training risk scores have too many ties for {method} "
-                f"(cut-points {np.round(cuts, 4).tolist()}); use fewer groups or give cut-points."
-            )
-        return cuts
-    cuts = np.asarray(method, dtype=float).ravel()
-    if cuts.size == 0 or not np.all(np.isfinite(cuts)) or np.any(np.diff(cuts) <= 0):
-        raise SpecError(
-            f"risk groups: given cut-points must be increasing finite numbers, for example [-0.5, 0.5]; got {list(cuts)}."
-        )
-    return cuts
+    _scores(train_risk, "risk_cutpoints")
+    return learn_cutpoints(train_risk, method)
 
 
 def risk_groups(
@@ -117,7 +86,7 @@ def risk_groups(
     eval_risk : array-like or RiskScores
         Evaluation patients' risk scores (may be the same patients for an
         apparent analysis).
-    method : {"median", "tertiles", "quartiles"} or sequence of float
+    method : {"median", "tertiles", "quartiles"}, int or sequence of float
         See :func:`risk_cutpoints`.
 
     Returns
@@ -127,12 +96,10 @@ def risk_groups(
     cuts = risk_cutpoints(train_risk, method)
     train = _scores(train_risk, "risk_groups")
     ev = _scores(eval_risk, "risk_groups")
-    k = cuts.size + 1
-    labels = GROUP_NAMES.get(k, tuple(f"group {i + 1}" for i in range(k)))
     return RiskGroups(
         cutpoints=cuts,
-        labels=labels,
-        groups=np.searchsorted(cuts, ev, side="right"),
-        train_groups=np.searchsorted(cuts, train, side="right"),
-        method=method if isinstance(method, str) else "given",
+        labels=group_labels(cuts.size + 1),
+        groups=assign_groups(ev, cuts),
+        train_groups=assign_groups(train, cuts),
+        method=method if isinstance(method, str) else (f"{method} groups" if isinstance(method, int) else "given"),
     )

@@ -142,7 +142,7 @@ class IntegratedBrierResult:
 
 
 def brier_score(
-    y_train: np.ndarray, y_test: np.ndarray, curves: SurvivalCurves, times
+    y_train: np.ndarray, y_test: np.ndarray, curves: SurvivalCurves, times, *, censoring=None
 ) -> BrierResult:
     """IPCW Brier score of predicted survival curves at given times.
 
@@ -167,6 +167,10 @@ def brier_score(
         Predicted survival of the evaluation rows; looked up at ``times`` as a step function.
     times : array-like of shape (k,)
         Strictly increasing times inside the follow-up range of ``y_test``.
+    censoring : RowCensoring, optional
+        Per-row censoring weights G(t | x_i) of the evaluation rows
+        (:func:`workbench.metrics.censoring.row_censoring`); replaces the
+        Kaplan-Meier curve of ``y_train`` (which still gives the null model).
 
     Returns
     -------
@@ -195,16 +199,20 @@ def brier_score(
     times = _check_horizons(time, times, where)
     surv = _curves_at(curves, times, where)
 
-    cens = fit_censoring(y_train)
-    g_t = np.asarray(cens.survival_at(times, left_limit=False), dtype=float)
     # Only events up to the last horizon carry a weight; asking G elsewhere could
     # wrongly fail where G has dropped to zero after the horizons.
     needed = event & (time <= times[-1])
-    g_y = np.ones_like(time)
-    if np.any(needed):
-        g_y[needed] = cens.survival_at(time[needed], left_limit=True)
+    if censoring is None:
+        cens = fit_censoring(y_train)
+        g_t = np.asarray(cens.survival_at(times, left_limit=False), dtype=float)[None, :]
+        g_y = np.ones_like(time)
+        if np.any(needed):
+            g_y[needed] = cens.survival_at(time[needed], left_limit=True)
+    else:
+        g_t = censoring.at(times)
+        g_y = censoring.own(needed)
     case_w = np.where((time[:, None] <= times[None, :]) & needed[:, None], 1.0 / g_y[:, None], 0.0)
-    ctrl_w = (time[:, None] > times[None, :]) / g_t[None, :]
+    ctrl_w = (time[:, None] > times[None, :]) / g_t
 
     n = time.size
     brier = np.mean(surv**2 * case_w + (1.0 - surv) ** 2 * ctrl_w, axis=0)

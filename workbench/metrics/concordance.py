@@ -307,7 +307,8 @@ def harrell_c(
 
 
 def uno_c(
-    y_train, y_test, risk: RiskScores, *, tau: float | None = None, tied_tol: float = 1e-8
+    y_train, y_test, risk: RiskScores, *, tau: float | None = None, tied_tol: float = 1e-8,
+    censoring=None,
 ) -> ConcordanceResult:
     """Uno's inverse-probability-of-censoring weighted concordance index.
 
@@ -325,6 +326,10 @@ def uno_c(
         truncation; a tau where few patients remain in follow-up gives very
         large weights, so choose one with G(tau) well above 0.
     tied_tol : float, default 1e-8
+    censoring : RowCensoring, optional
+        Per-row censoring weights of the evaluation rows
+        (:func:`workbench.metrics.censoring.row_censoring`) instead of the
+        Kaplan-Meier curve of ``y_train``.
 
     Returns
     -------
@@ -350,10 +355,12 @@ def uno_c(
     values = _check_risk(risk, time.size, "Uno's C")
     if tau is not None and not (np.isfinite(tau) and tau > 0):
         raise MetricError(f"tau must be a positive follow-up time, got {tau!r}.")
-    cens = fit_censoring(y_train)
     use = event & (time < tau) if tau is not None else event.copy()
     w = np.zeros(time.size)
-    w[use] = cens.inverse_at(time[use], left_limit=True) ** 2
+    if censoring is None:
+        w[use] = fit_censoring(y_train).inverse_at(time[use], left_limit=True) ** 2
+    else:
+        w[use] = 1.0 / censoring.own(use)[use] ** 2
     ranks = _risk_ranks(values, tied_tol)
     row = _pair_counts(time, event, ranks, both_roles=False)
     uf = use.astype(float)

@@ -100,6 +100,17 @@ def _censoring_influence(
     return np.where(censored, jump[m_idx], 0.0) - q_k
 
 
+def _auc_rowweights(censoring, time, is_case, is_ctrl, ranks, t) -> float:
+    """AUC(t) with case weights 1/G(T_i- | x_i) and control weights 1/G(t | x_j)."""
+    a = np.where(is_case, 1.0 / censoring.own(is_case), 0.0)
+    b = np.where(is_ctrl, 1.0 / censoring.at([t])[:, 0], 0.0)
+    n_rank = int(ranks.max()) + 1
+    ctrl_w = np.bincount(ranks, weights=b, minlength=n_rank)
+    below = (np.cumsum(ctrl_w) - ctrl_w)[ranks]
+    num = np.sum(a * (below + 0.5 * ctrl_w[ranks]))
+    return float(min(1.0, max(0.0, num / (a.sum() * b.sum()))))
+
+
 def time_dependent_auc(
     y_train,
     y_test,
@@ -108,6 +119,7 @@ def time_dependent_auc(
     *,
     tied_tol: float = 1e-8,
     conf_level: float = 0.95,
+    censoring=None,
 ) -> TimeDependentAUCResult:
     """Cumulative/dynamic AUC at one or more horizons.
 
@@ -126,6 +138,12 @@ def time_dependent_auc(
     tied_tol : float, default 1e-8
         Scores closer than this (after sorting, chained) are tied and count 1/2.
     conf_level : float, default 0.95
+    censoring : RowCensoring, optional
+        Per-row censoring weights of the evaluation rows
+        (:func:`workbench.metrics.censoring.row_censoring`) instead of the
+        Kaplan-Meier curve of ``y_train``. Controls are then weighted by
+        1/G(t | x_j) (the weight no longer cancels) and the standard error is
+        NaN (use resampling).
 
     Returns
     -------
@@ -203,6 +221,10 @@ def time_dependent_auc(
             raise MetricError(
                 f"no evaluation patient has an event by horizon {t:g}; choose a later horizon."
             )
+        if censoring is not None:
+            auc[h] = _auc_rowweights(censoring, time, is_case, is_ctrl, ranks, t)
+            se[h] = np.nan
+            continue
         g_t = float(cens.survival_at(t, left_limit=False))
         a = np.zeros(n)
         a[is_case] = cens.inverse_at(time[is_case], left_limit=True)
@@ -219,7 +241,7 @@ def time_dependent_auc(
 
         f_hat, s_hat = a.sum() / n, b.sum() / n
         phi = np.sum(a * k_case) / n
-        auc[h] = phi / (f_hat * s_hat)
+        auc[h] = min(1.0, max(0.0, phi / (f_hat * s_hat)))  # rounding can exceed 1 by an ulp
         if0 = (a * k_case + b * k_ctrl - auc[h] * (a * s_hat + b * f_hat)) / (f_hat * s_hat)
         c = np.where(is_case, a * (k_case - auc[h] * s_hat) / (n * f_hat * s_hat), 0.0)
         ifg = _censoring_influence(cens, tr_idx, tr_event, time[is_case], c[is_case])

@@ -39,6 +39,7 @@ from workbench.errors import BundleError
 from workbench.models.cox import ClinicalCox, CombinedCox
 from workbench.models.forest import SurvivalForest
 from workbench.models.penalized import PenalizedPathResult
+from workbench.models.recalibrated import RecalibratedModel
 from workbench.models.signature import ClinicalPlusImagingCox, ImagingSignature
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.preprocess.clinical import ClinicalTransformer, PredictorSpec, TermInfo
@@ -409,6 +410,7 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     "RedundancyFilter": _estimator_codec(RedundancyFilter, (*_STEP_STATE, "association_")),
     "CoxScreen": _estimator_codec(CoxScreen, (*_STEP_STATE, "z_", "p_value_", "q_value_")),
     "SurvivalForest": Codec(SurvivalForest, _encode_forest, _decode_forest),
+    "RecalibratedModel": _estimator_codec(RecalibratedModel, ("centre_", "fit_", "slope_", "slope_se_")),
     # frozen records
     "PredictorSpec": _dataclass_codec(PredictorSpec),
     "TermInfo": _dataclass_codec(TermInfo),

@@ -41,18 +41,20 @@ from workbench.cohort.core import Cohort
 from workbench.cohort.summary import CAUTION, CohortSummary, HorizonSurvival, summarise_cohort
 from workbench.errors import BundleError, WorkbenchWarning
 from workbench.models.cox import ClinicalCox, CombinedCox
+from workbench.models.recalibrated import RecalibratedModel
 from workbench.models.registry import MODEL_LABELS
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.prepare import package_versions
 from workbench.report._codec import CODECS, classes_in, decode_model, encode_model
+from workbench.stats.riskgroups import group_labels, learn_cutpoints
 from workbench.study import StudySpec, study_from_dict, study_to_dict
 
 FORMAT_NAME = "survival-workbench model bundle"
 FORMAT_VERSION = 1
 KNOWN_FORMAT_VERSIONS = (1,)
 MANIFEST = "manifest.json"
-RISK_GROUPS = ("low", "intermediate", "high")
-"""Risk groups by training tertiles of each model's risk score."""
+RISK_GROUPS = group_labels(3)
+"""Names of the default three risk groups (training tertiles); see :mod:`workbench.stats.riskgroups`."""
 
 
 class BundleVersionWarning(WorkbenchWarning):
@@ -83,8 +85,9 @@ class TrainingSummary:
         1st and 99th training percentiles of each imaging feature (raw values,
         before harmonisation), for out-of-range flags on new patients.
     risk_cutpoints : dict of str to tuple of float
-        Per model, the tertile cut-points of the training risk scores (higher =
-        worse); a new patient is "low" at or below the first, "high" above the second.
+        Per model, the cut-points of the training risk scores (higher = worse;
+        tertiles by default); a patient exactly on a cut-point joins the lower
+        group (:mod:`workbench.stats.riskgroups`).
     caution : str
     """
 
@@ -141,7 +144,7 @@ class TrainingSummary:
         )
 
 
-def summarise_training(cohort: Cohort, models: dict | None = None, horizons=()) -> TrainingSummary:
+def summarise_training(cohort: Cohort, models: dict | None = None, horizons=(), groups=3) -> TrainingSummary:
     """Summarise the training cohort for a bundle, including what new-patient checks need.
 
     Parameters
@@ -149,7 +152,10 @@ def summarise_training(cohort: Cohort, models: dict | None = None, horizons=()) 
     cohort : Cohort
         The rows the models were fitted on.
     models : dict of str to fitted model, optional
-        Their training risk scores give the tertile cut-points of the risk groups.
+        Their training risk scores give the cut-points of the risk groups
+        (:func:`workbench.stats.riskgroups.learn_cutpoints`, the rule every route uses).
+    groups : int, str or sequence of float, default 3
+        Number of quantile groups (or a named method, or given cut-points).
     horizons : sequence of float
         Times for Kaplan-Meier survival (the study's horizons).
     """
@@ -164,7 +170,7 @@ def summarise_training(cohort: Cohort, models: dict | None = None, horizons=()) 
     cuts = {}
     for name, model in (models or {}).items():
         risk = model.predict_risk(cohort).values
-        cuts[str(name)] = tuple(float(v) for v in np.quantile(risk, [1 / 3, 2 / 3]))
+        cuts[str(name)] = tuple(float(v) for v in learn_cutpoints(risk, groups))
     ev = cohort.time[cohort.event]
     return replace(
         TrainingSummary.from_cohort_summary(s),
@@ -219,6 +225,8 @@ class ModelInputs:
 
 def describe_inputs(model) -> ModelInputs:
     """Clinical fields (with kinds, levels, units, training ranges), imaging features and batches."""
+    if isinstance(model, RecalibratedModel):
+        return describe_inputs(model.base)
     if isinstance(model, CombinedCox):
         tr, feats, combat = model.transformer_, model.signature_.feature_names_in_, model.signature_.combat_
     elif isinstance(model, ClinicalCox):

@@ -46,6 +46,17 @@ from workbench.models.registry import MODEL_LABELS
 COX_MODELS = ("clinical", "combined")
 
 
+def external_censoring(result, cohort, risks: dict) -> dict | None:
+    """Per-model censoring weights of the external cohort, the model the validation table used."""
+    from workbench.validation.external import censoring_for
+
+    choice = getattr(result.external, "censoring", None)
+    if choice is None or choice.method == "km":
+        return None
+    strata = None if cohort.centre is None else np.asarray(cohort.centre).astype(str)
+    return {name: censoring_for(cohort.y, strata, choice.method, r) for name, r in risks.items()}
+
+
 def _evaluation(result):
     if result.external_prepared is not None:
         return result.external_prepared.cohort, "external cohort"
@@ -86,14 +97,18 @@ def study_figures(result) -> dict:
             figs["nomogram"] = nomogram_figure(result)
         top = "combined" if "combined" in models else next(iter(models))
         m = models[top]
-        groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, "tertiles")
+        k = result.spec.models.risk_groups
+        groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, k)
         figs["km_risk_groups"] = plot_km_by_group(
-            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: risk tertiles ({where})"
+            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})"
         )
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
         risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}
-        figs["td_auc"] = plot_td_auc(td_auc_by_model(train.y, evalc.y, risks, grid), time_unit=unit,
+        cens_y, row_cens = train.y, None
+        if result.external_prepared is not None:  # the evaluated cohort's own weights, as in the table
+            cens_y, row_cens = evalc.y, external_censoring(result, evalc, risks)
+        figs["td_auc"] = plot_td_auc(td_auc_by_model(cens_y, evalc.y, risks, grid, censoring=row_cens), time_unit=unit,
                                      horizons=horizons, title=where.capitalize())
         curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
         cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}

@@ -176,21 +176,30 @@ def _eval_horizons(horizons, cohort) -> tuple[float, ...]:
     return tuple(h for h in horizons if h < float(np.max(cohort.time[cohort.event])) if np.any(cohort.event))
 
 
-def _km_fig(model, train, cohort, unit, title):
+def _km_fig(model, train, cohort, unit, title, k=3):
     from workbench.figures import km_by_group, plot_km_by_group, risk_groups
 
-    groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, "tertiles")
+    groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, k)
     return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
 
 
-def _auc_fig(models, train, cohort, horizons, unit, title):
+def _external_row_censoring(result, cohort, models):
+    from workbench.report.figureset import external_censoring
+
+    risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
+    return external_censoring(result, cohort, risks)
+
+
+def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=None):
+    """AUC over time; censoring weights from ``weights_from`` (the evaluated cohort itself when external)."""
     from workbench.figures import plot_td_auc, td_auc_by_model
 
     t = cohort.time[cohort.event]
     hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
     grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
     risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
-    return plot_td_auc(td_auc_by_model(train.y, cohort.y, risks, grid), time_unit=unit, horizons=horizons,
+    return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid, censoring=row_censoring),
+                       time_unit=unit, horizons=horizons,
                        title=title)
 
 
@@ -229,6 +238,7 @@ def _figures(result, d: dict) -> dict:
     models = result.models
     cox = {k: m for k, m in models.items() if hasattr(m, "fit_") and hasattr(m, "transformer_")}
     lead = models.get("combined") or next(iter(models.values()))
+    k_groups = getattr(result.spec.models, "risk_groups", 3)
     out = {k: [] for k in ("calibration", "decision", "external", "main")}
     _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
             "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
@@ -245,11 +255,13 @@ def _figures(result, d: dict) -> dict:
                 "Smoothed calibration of the unchanged models on the external patients.",
                 lambda: _calibration_fig(models, ext, eh, unit))
         _figure(out["external"], "external-km", "Risk groups on the external cohort",
-                f"Kaplan-Meier curves by tertile of the {_label(lead.name)} risk, cut-points fixed on the "
-                "development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort"))
+                f"Kaplan-Meier curves by {k_groups} quantile groups of the {_label(lead.name)} risk, cut-points "
+                "fixed on the development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
+                                                                       k_groups))
         _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
                 "Cumulative/dynamic AUC over follow-up time.",
-                lambda: _auc_fig(models, train, ext, eh, unit, "External cohort"))
+                lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort",
+                                 _external_row_censoring(result, ext, models)))
     if cox:
         def nomo():
             scales = [nomogram_scales(m, horizons, time_unit=unit, median_axis=True, name=_label(k),
@@ -259,8 +271,8 @@ def _figures(result, d: dict) -> dict:
         _figure(out["main"], "nomogram", "Nomograms", "Points per predictor, total points, and survival "
                 "probability at each horizon and predicted median survival, for each Cox model.", nomo)
     _figure(out["main"], "km", "Kaplan-Meier curves by risk group (development cohort)",
-            f"Tertiles of the {_label(lead.name)} risk on all development patients (apparent).",
-            lambda: _km_fig(lead, train, train, unit, _label(lead.name)))
+            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent).",
+            lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups))
     _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
             "Cumulative/dynamic AUC over follow-up time.",
             lambda: _auc_fig(models, train, train, horizons, unit, "Development cohort"))
@@ -292,6 +304,21 @@ def _figures(result, d: dict) -> dict:
 
 def _perf_rows(estimates: dict, names, unit) -> list[dict]:
     return [{"label": metric_label(n, unit), "cells": [estimates[m].get(n) for m in estimates]} for n in names]
+
+
+def _group_context(d: dict, horizons) -> dict:
+    """Per-centre / per-scanner tables (report/heterogeneity.py); empty when the run has none."""
+    from workbench.report.heterogeneity import heterogeneity_context
+
+    lead = [k for k in ("combined", "clinical") if k in d.get("models", {})]
+    labels = {k: _label(k) for k in d.get("models", {})}
+
+    def rows(block):
+        out = heterogeneity_context(block, horizons, labels)
+        return [r for r in out if not lead or r["model"] in {labels[k] for k in lead}]
+
+    ext = (d.get("external") or {}).get("by_group")
+    return {"ext_groups": rows(ext), "loco_groups": rows((d.get("validation") or {}).get("by_group"))}
 
 
 def report_context(result, *, include_ids: bool = False, figures: bool = True) -> dict:
@@ -350,6 +377,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "model_names": [_label(k) for k in perf], "perf_rows": _perf_rows(perf, names, unit),
         "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
         "models": models, "comps": comps, "ext": ext, "ids": ids,
+        **_group_context(d, horizons),
         "limitations": limitations(result, d),
         "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
         "study_text": _short_paths(result.study_text, spec),

@@ -252,7 +252,15 @@ def methods_paragraph(result, data: dict | None = None) -> str:
         e = d["external"]
         paras.append(
             f"The fitted models were applied unchanged to an external cohort of {e['n']} patients "
-            f"({e['n_events']} events); intervals come from bootstrap resamples of that cohort."
+            f"({e['n_events']} events); intervals come from bootstrap resamples of that cohort. Inverse "
+            "probability of censoring weights and the Kaplan-Meier reference of the Brier score were estimated "
+            "on the external cohort itself and re-estimated in every resample"
+            + _censoring_clause(e.get("censoring"))
+            + (". Performance was also estimated in each centre and scanner of the external cohort and pooled by "
+               "random-effects meta-analysis (C on the logit scale, O/E on the log scale; "
+               + ("REML" if any(g.get("pooling_method") == "reml" for g in e["by_group"].values())
+                  else "DerSimonian-Laird") + " with the Hartung-Knapp interval and the 95% prediction interval for a new site; Debray et al. 2017)"
+               if e.get("by_group") else "") + "."
         )
     v = d["provenance"]["versions"]
     libs = _join(f"{k} {v[k]}" for k in ("numpy", "scipy", "pandas", "scikit-learn", "scikit-survival",
@@ -310,6 +318,15 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
     out.append("The likelihood-ratio test for the signature ignores that it was selected on the same patients "
                "and is optimistic.")
     return tuple(out)
+
+
+def _censoring_clause(c) -> str:
+    if not c:
+        return ""
+    names = {"km": "one Kaplan-Meier curve of the censoring times",
+             "km_by_centre": "Kaplan-Meier curves of the censoring times stratified by centre",
+             "cox": "a Cox model of the censoring hazard (Gerds & Schumacher 2006)"}
+    return f", using {names.get(c.get('method'), c.get('method'))} ({c.get('reason', '')})"
 
 
 def unseen_batches(result) -> tuple[str, ...]:

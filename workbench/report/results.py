@@ -114,10 +114,46 @@ def _model_block(result, name: str) -> dict:
     if name in result.validation.selection:
         sel = result.validation.selection[name]
         block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency)}
+    block["risk_groups"] = _risk_group_block(result, name)
     block["performance"] = _metric_block(result.validation.estimates[name])
     if result.external is not None and name in result.external.estimates:
         block["external_performance"] = _metric_block(result.external.estimates[name])
     return block
+
+
+def _risk_group_block(result, name: str) -> dict | None:
+    """Cut-points learned on the training rows, with the one assignment rule (stats/riskgroups.py)."""
+    from workbench.stats.riskgroups import group_labels, learn_cutpoints
+
+    k = getattr(result.spec.models, "risk_groups", 3)
+    try:
+        cuts = learn_cutpoints(result.models[name].predict_risk(result.cohort), k)
+    except Exception:  # noqa: BLE001 - e.g. too many tied scores: no groups rather than no results
+        return None
+    return {"n_groups": int(k), "cutpoints": jsonable(cuts), "labels": list(group_labels(k)),
+            "learned_on": "training rows (quantiles of the risk score)",
+            "rule": "a score exactly on a cut-point joins the lower group"}
+
+
+def _group_digest(result) -> list[str]:
+    from workbench.report.heterogeneity import digest_lines
+
+    lead = "combined" if "combined" in result.models else next(iter(result.models))
+    h = result.spec.horizons[-1]
+    lines = []
+    for v, title in ((result.validation, "Leave-one-centre-out"), (result.external, "External cohort")):
+        block = getattr(v, "groups", None) if v is not None else None
+        if block:
+            lines += [""] + digest_lines(block, lead, h, title)
+    for name, rows in (getattr(result, "new_site", None) or {}).items():
+        if rows:
+            r = rows[-1]
+            lines.append(f"To validate {name} at a new site (horizon {r.horizon:g}): {r.n_required} patients "
+                         f"(O/E {r.n_oe}, slope {r.n_slope}, C {r.n_c}; about {r.events_expected:.0f} events).")
+    ch = getattr(result.external, "censoring", None) if result.external is not None else None
+    if ch is not None:
+        lines.append(f"External censoring weights: {ch.method} ({ch.reason}).")
+    return lines
 
 
 def results_dict(result) -> dict:
@@ -168,7 +204,25 @@ def results_dict(result) -> dict:
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
         }
+    _heterogeneity_blocks(result, out)
+    if getattr(result, "new_site", None):
+        out["new_site_sample_size"] = jsonable(result.new_site)
     return out
+
+
+def _heterogeneity_blocks(result, out: dict) -> None:
+    """Censoring model, per-centre/per-scanner blocks and their pooling (see report/heterogeneity.py)."""
+    from workbench.report.heterogeneity import censoring_dict, groups_dict
+
+    v = result.validation
+    if getattr(v, "groups", None):
+        out["validation"]["by_group"] = groups_dict(v.groups)
+    if getattr(v, "censoring", None) is not None:
+        out["validation"]["censoring"] = censoring_dict(v.censoring)
+    ext = result.external
+    if ext is not None and out.get("external") is not None:
+        out["external"]["censoring"] = censoring_dict(getattr(ext, "censoring", None))
+        out["external"]["by_group"] = groups_dict(getattr(ext, "groups", None))
 
 
 def performance_table(result, which: str = "internal") -> pd.DataFrame:
@@ -197,6 +251,11 @@ def write_results(result, out_dir) -> Path:
     if result.external is not None:
         performance_table(result, "external").to_csv(out / "external_performance.csv", index=False)
         comparison_table(result.external_comparisons).to_csv(out / "external_comparison.csv", index=False)
+    from workbench.report.heterogeneity import group_table
+
+    for which, v in (("external", result.external), ("internal", result.validation)):
+        if v is not None and getattr(v, "groups", None):
+            group_table(v.groups).to_csv(out / f"{which}_by_group.csv", index=False)
     for name, m in result.models.items():
         if hasattr(m, "hazard_ratio_table"):
             m.hazard_ratio_table().to_csv(out / f"hazard_ratios_{name}.csv", index=False)
@@ -273,5 +332,6 @@ def format_results(result) -> str:
         lines.append(f"External cohort ({result.external_prepared.cohort.n} patients):")
         for name in result.models:
             lines.append(f"  {name:<16s} Harrell C {fmt_estimate(result.external.estimates[name].get('harrell_c'))}")
+    lines += _group_digest(result)
     lines += ["", f"Caution: {CAUTION}"]
     return "\n".join(lines)

@@ -56,6 +56,7 @@ class _Job:
     grid: np.ndarray
     kw: dict
     reseed: bool
+    own_censoring: bool = False  # by_centre: weights and null model from the held-out rows
 
 
 @dataclass(frozen=True)
@@ -94,8 +95,9 @@ def _run_task(job: _Job, task: _Task) -> dict:
                 rec["selected"] = getattr(fitted, "selected_features_", None)
                 rec["stage"] = "evaluate"
                 for arm, (risk, curv) in preds.items():
+                    y_cens = evals[arm].y if job.own_censoring and arm == "test" else train.y
                     perf = evaluate_predictions(
-                        risk, curv, train.y, evals[arm].y, job.horizons, ibs_times=job.grid,
+                        risk, curv, y_cens, evals[arm].y, job.horizons, ibs_times=job.grid,
                         on_error="nan", model=name, **job.kw)
                     rec[arm] = (perf.vector(), perf.net_benefit, perf.dropped)
                 rec["ok"] = True

@@ -4,8 +4,10 @@ One call gives, per model: Harrell's and Uno's C, the cumulative/dynamic AUC at
 each horizon and its mean, the Brier score and index of prediction accuracy at
 each horizon, the integrated Brier score, and calibration (ICI, E50, E90,
 calibration slope, observed/expected) at each horizon, plus decision-curve net
-benefit. Inverse-probability-of-censoring weights always come from the TRAINING
-rows (``y_train``), never from the evaluation rows.
+benefit. Inverse-probability-of-censoring weights come from ``y_train``: the
+training rows in internal validation; the evaluation rows themselves in
+external and leave-one-centre-out validation (see
+:mod:`workbench.validation.external`), optionally per row (``censoring``).
 
 This runs hundreds of times in a validation (every replicate, every model, on
 two sets of rows), so it avoids repeated work: one prediction call per model on
@@ -334,6 +336,7 @@ def evaluate_predictions(
     on_error: str = "raise",
     time_unit: str = "",
     model: str = "",
+    censoring=None,
 ) -> ModelPerformance:
     """All metrics of one model's predictions for the evaluation rows.
 
@@ -366,6 +369,10 @@ def evaluate_predictions(
         module notes).
     time_unit, model : str
         For messages and labels.
+    censoring : RowCensoring, optional
+        Per-row censoring weights of the evaluation rows
+        (:func:`workbench.metrics.censoring.row_censoring`); ``y_train`` then
+        gives only the Kaplan-Meier null model of the Brier score.
 
     Returns
     -------
@@ -406,11 +413,11 @@ def evaluate_predictions(
             return default
 
     hc = guarded("Harrell's C", lambda: harrell_c(y_eval, risk), None)
-    uc = guarded("Uno's C", lambda: uno_c(y_train, y_eval, risk, tau=tau).c_index, np.nan)
+    uc = guarded("Uno's C", lambda: uno_c(y_train, y_eval, risk, tau=tau, censoring=censoring).c_index, np.nan)
 
     auc, mean_auc = _nan(k), np.nan
     if hv.size:
-        res = guarded("AUC", lambda: time_dependent_auc(y_train, y_eval, risk, hv), None)
+        res = guarded("AUC", lambda: time_dependent_auc(y_train, y_eval, risk, hv, censoring=censoring), None)
         if res is not None:
             auc[ok] = res.auc
             mean_auc = res.mean_auc if ok.all() else np.nan
@@ -422,7 +429,7 @@ def evaluate_predictions(
     rng = (float(grid[0]), float(grid[-1])) if grid.size else (np.nan, np.nan)
     if hv.size:
         both = np.unique(np.r_[hv, grid if ok.all() else []])
-        res = guarded("Brier score", lambda: brier_score(y_train, y_eval, curves, both), None)
+        res = guarded("Brier score", lambda: brier_score(y_train, y_eval, curves, both, censoring=censoring), None)
         if res is not None:
             pos = np.searchsorted(both, hv)
             brier[ok], null_brier[ok], ipa[ok] = res.brier[pos], res.null_brier[pos], res.ipa[pos]

@@ -54,7 +54,11 @@ Internal-external validation (Royston, Parmar & Sylvester 2004): each centre in
 turn is held out. The pooled estimate is the mean of the per-centre values
 weighted by the number of events in each held-out centre; ``sd`` is the
 event-weighted standard deviation across centres (heterogeneity, not a standard
-error). Per-centre values are kept in ``replicates``.
+error). Per-centre values are kept in ``replicates``. Each held-out centre is
+weighted by its own censoring distribution and scored against its own
+Kaplan-Meier null model. Per-centre intervals and random-effects pooling (tau^2,
+I^2, prediction interval for a new hospital) are in
+:func:`workbench.validation.groups.loco_groups`.
 
 References
 ----------
@@ -275,7 +279,7 @@ def validate(
         ]
         arms, unit = ("test",), "held-out centres"
 
-    job = _Job(cohort, models, h, grid, kw, bool(reseed_models))
+    job = _Job(cohort, models, h, grid, kw, bool(reseed_models), own_censoring=method == "by_centre")
     chunks = _chunks(tasks, workers, backend)
     outputs = [
         o for chunk in run_tasks(

@@ -191,6 +191,11 @@ class ValidationResult:
     settings : dict
         Method settings (replicates, folds, repeats, backend, workers).
     notes : tuple of str
+    censoring : CensoringChoice or None
+        Censoring model of the IPCW weights and why (external, by_centre).
+    groups : dict of str to GroupBlock
+        Per-centre / per-scanner performance with random-effects pooling
+        (external; by_centre as "centre"); see :mod:`workbench.validation.groups`.
     """
 
     method: str
@@ -219,6 +224,8 @@ class ValidationResult:
     seed_entropy: int = 0
     settings: dict = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    censoring: object = None
+    groups: dict = field(default_factory=dict)
 
     def summary_frame(self) -> pd.DataFrame:
         """One row per model and metric with apparent, optimism, estimate, SD and interval."""

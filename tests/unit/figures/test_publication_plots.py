@@ -107,11 +107,11 @@ def test_risk_groups_use_training_cutpoints_only():
     train, ev = rng.normal(size=300), rng.normal(1.0, 1.0, size=120)
     g = risk_groups(train, ev, "tertiles")
     np.testing.assert_allclose(g.cutpoints, np.quantile(train, [1 / 3, 2 / 3]))
-    np.testing.assert_array_equal(g.groups, np.searchsorted(g.cutpoints, ev, side="right"))
+    np.testing.assert_array_equal(g.groups, np.searchsorted(g.cutpoints, ev, side="left"))
     shifted = risk_groups(train, ev + 5.0, "tertiles")
     np.testing.assert_allclose(shifted.cutpoints, g.cutpoints)  # evaluation rows never move the cut-points
     on_cut = risk_groups(train, [g.cutpoints[0]], "tertiles")
-    assert on_cut.groups[0] == 1  # a patient on a boundary joins the higher group
+    assert on_cut.groups[0] == 0  # one rule everywhere (stats/riskgroups.py): on a boundary -> lower group
     with pytest.raises(SpecError, match="smallest p-value"):
         risk_groups(train, ev, "optimal")
 

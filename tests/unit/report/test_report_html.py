@@ -178,3 +178,12 @@ def test_missing_browser_is_a_clear_error():
     assert isinstance(err.value, WorkbenchError)
     assert "pdf=False" in str(err.value)
 
+
+
+def test_new_site_sample_size_table_equals_the_results(html, data):
+    ns = data["new_site_sample_size"]
+    assert set(ns) == {"clinical", "combined"}
+    assert "Patients needed to validate the model at a new site" in html
+    for rows in ns.values():
+        for r in rows:
+            assert f"<b>{r['n_required']}</b>" in html

@@ -243,7 +243,7 @@ def test_external_validation_percentile_intervals(gbsg2):
 
     dev, ext = gbsg2.take(np.arange(0, 450)), gbsg2.take(np.arange(450, gbsg2.n))
     fitted = {"m": ColumnsCox(("pnodes", "tgrade"), name="m").fit(dev)}
-    res = validate_external(fitted, dev.y, ext, H, replicates=10, random_state=0, calibration=False)
+    res = validate_external(fitted, ext, H, replicates=10, random_state=0, calibration=False)
     e = res.estimates["m"]["harrell_c"]
     assert res.method == "external" and np.isnan(e.optimism)
     assert e.estimate == res.apparent["m"].harrell_c

@@ -45,7 +45,8 @@ def _results_folder_zip(run_key: tuple, _result) -> bytes | None:
 @st.cache_data(show_spinner="Saving the model bundle...", max_entries=4)
 def _bundle_zip(run_key: tuple, _result) -> bytes:
     bundle = state.load_module("workbench.report.bundle")
-    summary = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons)
+    summary = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons,
+                                        groups=_result.spec.models.risk_groups)
     with tempfile.TemporaryDirectory(prefix="workbench-bundle-") as tmp:
         path = bundle.save_bundle(_result.models, _result.spec, summary, Path(tmp) / "model_bundle.zip")
         return Path(path).read_bytes()

@@ -15,7 +15,8 @@ def _ranges(run_key: tuple, name: str, _result):
     """Training ranges of one model (cut-points of its risk groups, imaging percentiles)."""
     bundle = state.load_module("workbench.report.bundle")
     estimate = state.load_module("workbench.estimate")
-    training = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons)
+    training = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons,
+                                         groups=_result.spec.models.risk_groups)
     return estimate.ranges_from_model(_result.models[name], training, name=name,
                                       batch_column=_result.spec.data.batch or "batch",
                                       time_unit=_result.validation.time_unit)

@@ -225,6 +225,22 @@ def _show(result, job) -> None:
         for comp in (getattr(result, "external_comparisons", None) or {}).values():
             with st.expander(f"External: {tables.label(comp.model)} minus {tables.label(comp.baseline)}"):
                 state.table(tables.difference_table(comp, time_unit=u, headline=True))
+        _by_group(getattr(result.external, "groups", None), "External cohort")
+    _by_group(getattr(result.validation, "groups", None), "Leave-one-centre-out")
+
+
+def _by_group(groups, title: str) -> None:
+    """Per-centre / per-scanner performance with its random-effects pooling (report/heterogeneity.py)."""
+    if not groups:
+        return
+    from workbench.report.heterogeneity import group_table
+
+    df = group_table(groups)
+    keep = df["metric"].str.split("@").str[0].isin(["harrell_c", "oe_ratio", "cal_slope"])
+    with st.expander(f"{title}: performance by centre and scanner"):
+        st.caption("Each level weighted by its own censoring distribution; pooled rows: random-effects "
+                   "meta-analysis with the 95% prediction interval for a new site (pi_lower, pi_upper).")
+        state.table(df[keep].round(3), max_rows=60)
 
 
 def render() -> None:
