@@ -24,6 +24,7 @@ from workbench.models.signature import check_volume_dominance, volume_correlatio
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
+from workbench.validation.added_value import run_added_value
 from workbench.validation.compare import ComparisonResult, compare_models
 from workbench.validation.resample import ValidationResult, validate, validate_external
 
@@ -61,6 +62,9 @@ class StudyResult:
         Seed, input data hash, study-file hash, package versions, time stamps.
     warnings : tuple of (category, message)
         Statistical warnings raised during the run (each once).
+    added_value : dict of str to AddedValueTest
+        Permutation test of each imaging model against the baseline given the
+        clinical predictors (empty when ``[added_value] permutations = 0``).
     """
 
     spec: StudySpec
@@ -77,6 +81,7 @@ class StudyResult:
     volume: dict
     provenance: dict
     warnings: tuple = field(default_factory=tuple)
+    added_value: dict = field(default_factory=dict)
 
     @property
     def cohort(self):
@@ -168,6 +173,8 @@ def run_study(
             apparent_models=fitted,
         )
 
+        added_value = run_added_value(spec, unfitted, cohort, progress=_progress(progress, cancel, "added-value test"))
+
         external = ext_prepared = None
         if spec.external is not None:
             ext_prepared = prepare_cohort(spec, external=True)
@@ -218,5 +225,6 @@ def run_study(
         volume=volume,
         provenance=provenance,
         warnings=tuple(messages),
+        added_value=added_value,
     )
 

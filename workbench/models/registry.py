@@ -39,7 +39,12 @@ def build_models(spec: StudySpec) -> dict:
     seed = int(spec.seed)
     table = {
         "clinical": lambda: ClinicalCox(preds),
-        "combined": lambda: CombinedCox(preds, signature=build_signature(spec, seed), protect=tuple(h.protect)),
+        "combined": lambda: CombinedCox(
+            preds, signature=build_signature(spec, seed), protect=tuple(h.protect),
+            coefficient=spec.models.combined.coefficient,
+            prevalidation_folds=spec.models.combined.prevalidation_folds,
+            shrinkage=spec.models.combined.shrinkage,
+        ),
         "penalised_all": lambda: PenalisedAllCox(
             preds,
             harmonise=h.method == "combat",

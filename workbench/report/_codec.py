@@ -386,7 +386,8 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     # models behind the protocol
     "ClinicalCox": _estimator_codec(ClinicalCox, _COX_STATE),
     "CombinedCox": _estimator_codec(
-        CombinedCox, (*_COX_STATE, "feature_medians_", "signature_", "selected_features_")),
+        CombinedCox, (*_COX_STATE, "feature_medians_", "signature_", "selected_features_",
+                      "coefficient_source_", "signature_coef_in_sample_", "shrinkage_factor_")),
     "PenalisedAllCox": _estimator_codec(
         PenalisedAllCox, (*_WIDE_STATE, "model_", "selected_features_", "lp_mean_", "baseline_")),
     "ForestModel": _estimator_codec(ForestModel, (*_WIDE_STATE, "columns_", "forest_")),
