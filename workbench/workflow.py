@@ -105,6 +105,7 @@ def run_study(
     cancel: Callable[[], bool] | None = None,
     replicates: int | None = None,
     workers: int | None = None,
+    permutations: int | None = None,
 ) -> StudyResult:
     """Run a study end to end.
 
@@ -119,6 +120,8 @@ def run_study(
     replicates, workers : int, optional
         Override the study's validation settings (e.g. a quick look with fewer
         replicates); the override is recorded in the results.
+    permutations : int, optional
+        Override ``[added_value] permutations`` (0 skips the test); recorded too.
     """
     started = time.time()
     v = spec.validation
@@ -131,6 +134,9 @@ def run_study(
     if changes:
         spec = replace(spec, validation=replace(v, **changes))
         v = spec.validation
+    if permutations is not None:
+        changes["permutations"] = int(permutations)
+        spec = replace(spec, added_value=replace(spec.added_value, permutations=int(permutations)))
     text = dumps_study(spec)
 
     with warnings.catch_warnings(record=True) as caught:

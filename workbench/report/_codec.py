@@ -407,7 +407,7 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     "Standardizer": _estimator_codec(Standardizer, (*_STEP_STATE, "mean_", "scale_")),
     "NearZeroVarianceFilter": _estimator_codec(
         NearZeroVarianceFilter, (*_STEP_STATE, "freq_ratio_", "percent_unique_")),
-    "RedundancyFilter": _estimator_codec(RedundancyFilter, (*_STEP_STATE, "association_")),
+    "RedundancyFilter": _estimator_codec(RedundancyFilter, (*_STEP_STATE, "representativeness_", "association_")),
     "CoxScreen": _estimator_codec(CoxScreen, (*_STEP_STATE, "z_", "p_value_", "q_value_")),
     "SurvivalForest": Codec(SurvivalForest, _encode_forest, _decode_forest),
     # frozen records
