@@ -19,7 +19,7 @@ from datetime import UTC, datetime
 from workbench.cohort.summary import CohortSummary, summarise_cohort
 from workbench.errors import WorkbenchError
 from workbench.models.base import clone_model
-from workbench.models.registry import build_models
+from workbench.models.registry import build_models, candidate_parameters
 from workbench.models.signature import check_volume_dominance, volume_correlation
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
@@ -143,7 +143,8 @@ def run_study(
         warnings.simplefilter("always")
         prepared = prepare_cohort(spec)
         cohort = prepared.cohort
-        summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2)
+        summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2,
+                                   **candidate_parameters(spec, cohort))
 
         unfitted = build_models(spec)
         fitted = {name: clone_model(m).fit(cohort) for name, m in unfitted.items()}

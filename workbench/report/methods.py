@@ -195,7 +195,8 @@ def methods_paragraph(result, data: dict | None = None) -> str:
         f"events per candidate clinical parameter ({s['n_events']} events, {s['n_clinical_parameters']} "
         f"parameters). By the criteria of Riley et al. (2019), with an anticipated Cox-Snell R-squared of "
         f"{ss['r2_cs']:.3f} ({ss['r2_cs_source'].replace(' (', ', ').replace(')', '')}), at least {ss['n_required']} patients "
-        f"({ss['events_required']} events) were required; {ss['n_available']} were available."
+        f"({ss['events_required']} events) were required for the clinical model; {ss['n_available']} were available."
+        + _imaging_sample_size(s)
     )
     im = spec.imaging
     fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
@@ -314,6 +315,16 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         out.append("No added-value permutation test was run ([added_value] permutations = 0): there is no "
                    "test of whether imaging adds to the clinical model, only the validated differences.")
     return tuple(out)
+
+
+def _imaging_sample_size(s: dict) -> str:
+    si = s.get("sample_size_imaging")
+    if not si:
+        return ""
+    return (f" Counting the {s['n_imaging_candidates']} candidate imaging features as parameters "
+            f"({si['n_parameters']} in all, {s['events_per_candidate_parameter']:.2f} events per parameter), "
+            f"{si['n_required']} patients would be required for an unpenalised imaging model; the imaging "
+            "models therefore rest on penalisation and resampling validation.")
 
 
 def added_value_text(d: dict) -> str:

@@ -67,6 +67,7 @@ def _comparison_block(comp) -> dict:
 def _added_value_block(t) -> dict:
     block = jsonable(t)
     block.pop("null")  # the K permutation statistics: summarised, not listed
+    block.pop("seconds")  # run time is not a result (same seed, same results.json)
     null = np.asarray(t.null, float)
     block["null_quantiles"] = {q: jsonable(float(np.quantile(null, float(q)))) for q in ("0.5", "0.95", "0.99")} \
         if null.size else {}

@@ -31,7 +31,9 @@ Scheme (residual permutation of the imaging block)
    patient-grouped folds. Every signature step (ComBat, filters, screen, the
    penalty choice by inner cross-validation) is refitted in every training fold
    of every permutation. Folds and model seeds are reused across permutations
-   (common random numbers): only the imaging residuals change.
+   (common random numbers): only the imaging residuals change, so the clinical
+   terms of each training fold are learned once and reused (they do not depend
+   on imaging).
 4. ``p = (1 + #{T_perm >= T_obs}) / (1 + K)`` (Phipson & Smyth 2010), an exact
    level-alpha test when the permutations are exchangeable with the observed
    data; its Monte Carlo standard error ``sqrt(p (1 - p) / K)`` is reported.
@@ -67,12 +69,15 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
+from sklearn.base import clone
 
 from workbench.cohort.core import Cohort
 from workbench.errors import ModelError, SpecError
 from workbench.models.base import get_params
+from workbench.models.cox import SIGNATURE_TERM, CombinedCox
 from workbench.models.penalized import breslow_loglik, patient_folds
 from workbench.preprocess.clinical import ClinicalTransformer
+from workbench.stats.coxph import fit_coxph, linear_predictor
 from workbench.validation.backends import run_tasks
 
 SCHEME = "imaging residuals permuted (within batch) after least-squares regression on the clinical terms and batch"
@@ -214,6 +219,66 @@ def _lean(model):
 
 
 @dataclass(frozen=True)
+class _FoldDesign:
+    """What a combined model's fit on one training fold learns from clinical data alone.
+
+    It does not change between permutations (only imaging does), so it is learned
+    once per fold: the clinical terms fitted on the fold's training rows, applied
+    to all rows, and the columns the harmonisation protects.
+    """
+
+    train: np.ndarray
+    X_clin: np.ndarray
+    protected: np.ndarray | None
+    names: tuple
+
+
+def _fold_designs(model, cohort: Cohort, fold: np.ndarray) -> list[_FoldDesign] | None:
+    """Per-fold clinical designs for a :class:`CombinedCox`; None for other models (refitted whole)."""
+    if not isinstance(model, CombinedCox):
+        return None
+    out = []
+    for k in np.unique(fold):
+        train = np.flatnonzero(fold != k)
+        tr = ClinicalTransformer(tuple(model.predictors)).fit(cohort.take(train))
+        design = tr.transform(cohort)
+        if design.n_dropped:
+            return None
+        cols = [j for t in tr.terms_ if t.column in model.protect for j in range(t.start, t.stop)]
+        out.append(_FoldDesign(train, design.X, design.X[:, cols] if model.protect else None, tuple(tr.columns_)))
+    return out
+
+
+def _cvpl_cached(model: CombinedCox, cohort: Cohort, designs: list[_FoldDesign]) -> float:
+    """:func:`cv_partial_loglik` of a CombinedCox (in-sample coefficient) with cached clinical designs.
+
+    The same steps as ``CombinedCox.fit`` on each training fold (signature on the
+    imaging features, then a Cox fit of clinical terms plus score), without
+    relearning the clinical terms for every permutation. The imaging table has
+    no missing values here (filled before the permutation split).
+    """
+    time_, event = cohort.time, cohort.event
+    F = cohort.features
+    total = 0.0
+    for d in designs:
+        tr = d.train
+        sub_batch = None if cohort.batch is None else cohort.batch[tr]
+        sig = clone(model.signature).fit(
+            F.iloc[tr].reset_index(drop=True), cohort.y[tr], groups=cohort.ids[tr], batch=sub_batch,
+            covariates=None if d.protected is None else d.protected[tr])
+        if sig.selected_features_:
+            score = sig.score(F, batch=cohort.batch, covariates=d.protected)
+            X = np.column_stack([d.X_clin, score])
+            names = (*d.names, SIGNATURE_TERM)
+        else:
+            X, names = d.X_clin, d.names
+        fit = fit_coxph(X[tr], time_[tr], event[tr], ties=model.ties, names=names)
+        lp = linear_predictor(fit, X)
+        total += float(breslow_loglik(lp, time_, event) - breslow_loglik(lp[tr], time_[tr], event[tr]))
+    return total
+
+
+@dataclass(frozen=True)
 class _Job:
     cohort: Cohort
     model: object
@@ -223,13 +288,17 @@ class _Job:
     strata: np.ndarray
     columns: tuple
     baseline_cvpl: float
+    designs: list | None
 
 
 def _statistic(job: _Job, features: np.ndarray) -> tuple[float, float]:
     cohort = replace(job.cohort, features=pd.DataFrame(features, columns=list(job.columns)))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # refits on permuted data repeat the observed run's warnings
-        cvpl = cv_partial_loglik(job.model, cohort, job.fold)
+        if job.designs is not None:
+            cvpl = _cvpl_cached(job.model, cohort, job.designs)
+        else:
+            cvpl = cv_partial_loglik(job.model, cohort, job.fold)
     return cvpl - job.baseline_cvpl, cvpl
 
 
@@ -306,7 +375,9 @@ def added_value_test(
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         base_cvpl = cv_partial_loglik(baseline, cohort, fold)
-    job = _Job(cohort, _lean(model), fold, fitted, resid, np.asarray(strata), tuple(cohort.feature_names), base_cvpl)
+    lean = _lean(model)
+    job = _Job(cohort, lean, fold, fitted, resid, np.asarray(strata), tuple(cohort.feature_names), base_cvpl,
+               _fold_designs(lean, cohort, fold))
     observed, model_cvpl = _statistic(job, X)
     seeds = [int(s.generate_state(1)[0]) for s in perm_ss.spawn(int(permutations))]
     size = max(1, min(10, int(np.ceil(len(seeds) / max(2 * int(workers), 1)))))
