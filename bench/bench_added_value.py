@@ -109,12 +109,16 @@ def main(argv=None):
     print()
     print(f"{'scenario':<28s}{'test':<34s}{'rejection at 0.05':>20s}{'MC SE':>8s}")
     for label, (ps, lrs, ks, sec) in out.items():
+        if not ps:
+            continue
         r, se = rate(ps, a.alpha)
         r2, se2 = rate(lrs, a.alpha)
         print(f"{label:<28s}{f'permutation (K = {a.K})':<34s}{r:>20.3f}{se:>8.3f}")
         print(f"{'':<28s}{'naive in-sample LR (replaced)':<34s}{r2:>20.3f}{se2:>8.3f}")
         print(f"{'':<28s}mean signature size {np.mean(ks):.1f}; {len(ps)} cohorts in {sec:.0f} s "
               f"({sec / max(len(ps), 1):.1f} s per cohort)")
+    if not out["null (imaging_effect 0)"][0]:
+        return
     r, se = rate(out["null (imaging_effect 0)"][0], a.alpha)
     verdict = "MET" if r <= 0.07 else "NOT MET"
     print()
