@@ -115,3 +115,18 @@ def test_estimate_from_the_command_line(run_folder, capsys):
     assert "Caution:" in out
     assert main(["estimate", str(run_folder / "bundle"), "--value", "age"]) == 2
     assert "FIELD=VALUE" in capsys.readouterr().err
+
+
+def test_added_value_test_replaces_the_in_sample_likelihood_ratio_p_value(result):
+    data = results_dict(result)
+    av = data["added_value"]["combined"]
+    k = result.spec.added_value.permutations
+    assert av["permutations"] == k and av["baseline"] == "clinical"
+    # (1 + b) / (1 + K) with b in 0..K, and its Monte Carlo SE
+    b = round(av["p_value"] * (k + 1)) - 1
+    assert 0 <= b <= k and av["p_value"] == pytest.approx((1 + b) / (1 + k))
+    assert av["mc_se"] == pytest.approx((av["p_value"] * (1 - av["p_value"]) / k) ** 0.5)
+    assert av["observed"] == pytest.approx(av["model_cvpl"] - av["baseline_cvpl"])
+    assert data["comparison"]["combined"]["likelihood_ratio_test"]["p_value"] is None
+    assert data["models"]["combined"]["details"]["lr_p_value"] is None
+    assert data["models"]["combined"]["details"]["signature_coefficient"] == "prevalidated"
