@@ -102,7 +102,8 @@ def test_added_value_and_combined_keys_read_check_and_round_trip(tmp_path):
 
     from workbench.errors import SpecError as _SpecError
     from workbench.models.registry import build_models
-    from workbench.study import read_study as _read, write_study as _write
+    from workbench.study import read_study as _read
+    from workbench.study import write_study as _write
 
     spec = _read(_Path(__file__).parents[2] / "demo_cohort" / "study.toml")
     assert spec.added_value.permutations == 99 and spec.models.combined.coefficient == "prevalidated"
