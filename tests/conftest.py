@@ -181,6 +181,10 @@ fit = ["clinical", "combined"]
 method = "bootstrap"
 replicates = 3
 backend = "serial"
+
+[added_value]
+permutations = 9
+folds = 3
 """
 
 

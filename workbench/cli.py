@@ -144,7 +144,8 @@ def _cmd_run(args) -> int:
             bars[stage] = tqdm_progress(stage, file=sys.stderr)
         bars[stage](done, total)
 
-    result = run_study(spec, progress=None if args.quiet else progress, replicates=args.replicates, workers=args.workers)
+    result = run_study(spec, progress=None if args.quiet else progress, replicates=args.replicates, workers=args.workers,
+                       permutations=args.permutations)
     args.console.show_all(result.warnings)
     with atomic_folder(out) as tmp:
         extras = _write_run_folder(result, tmp, args)
@@ -321,6 +322,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("study", metavar="STUDY.toml", help="study file (see docs/study-file.md)")
     p.add_argument("--out", default="results", metavar="FOLDER", help="results folder (default: results)")
     p.add_argument("--replicates", type=_count(1), metavar="N", help="override the number of resampling replicates")
+    p.add_argument("--permutations", type=_count(0), metavar="K",
+                   help="override [added_value] permutations (0 skips the added-value test)")
     p.add_argument("--workers", type=_count(1), metavar="N", help="override the number of parallel workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-figures", action="store_true", help="skip the figures")

@@ -133,11 +133,29 @@ class ForestSpec:
 
 
 @dataclass(frozen=True)
+class CombinedSpec:
+    """[models.combined]: how the signature term of the combined model is estimated."""
+
+    coefficient: str = "prevalidated"  # "prevalidated" (out-of-fold scores) or "in_sample"
+    prevalidation_folds: int = 5
+    shrinkage: str = "none"  # "none" or "cross_validated_slope"
+
+
+@dataclass(frozen=True)
 class ModelsSpec:
     fit: tuple[str, ...] = ("clinical", "combined")
     baseline: str = "clinical"
     forest: ForestSpec = field(default_factory=ForestSpec)
     risk_groups: int = 3  # quantile groups of the training risk scores (figures, bundle, apply, estimate)
+    combined: CombinedSpec = field(default_factory=CombinedSpec)
+
+
+@dataclass(frozen=True)
+class AddedValueSpec:
+    """[added_value]: the permutation test of imaging given the clinical model (0 = not run)."""
+
+    permutations: int = 199
+    folds: int = 5
 
 
 @dataclass(frozen=True)
@@ -168,6 +186,7 @@ class StudySpec:
     validation: ValidationSpec = field(default_factory=ValidationSpec)
     external: ExternalSpec | None = None
     anticipated_r2: float | None = None
+    added_value: AddedValueSpec = field(default_factory=AddedValueSpec)
 
     def __post_init__(self):
         check_spec(self)
@@ -236,6 +255,16 @@ def check_spec(spec: StudySpec) -> None:
     for name in ("replicates", "folds", "repeats", "workers"):
         if getattr(v, name) < 1:
             raise SpecError(f"[validation] {name} must be at least 1; got {getattr(v, name)}.")
+    cm = spec.models.combined
+    _choice("[models.combined] coefficient", cm.coefficient, ("prevalidated", "in_sample"))
+    _choice("[models.combined] shrinkage", cm.shrinkage, ("none", "cross_validated_slope"))
+    if cm.prevalidation_folds < 3:
+        raise SpecError(f"[models.combined] prevalidation_folds must be at least 3; got {cm.prevalidation_folds}.")
+    av = spec.added_value
+    if av.permutations < 0:
+        raise SpecError(f"[added_value] permutations must be 0 (test not run) or more; got {av.permutations}.")
+    if av.folds < 2:
+        raise SpecError(f"[added_value] folds must be at least 2; got {av.folds}.")
     if spec.anticipated_r2 is not None and not 0 < spec.anticipated_r2 < 1:
         raise SpecError(f"[study] anticipated_r2 must lie in (0, 1); got {spec.anticipated_r2}.")
 
@@ -299,7 +328,7 @@ def read_study(path) -> StudySpec:
 
 
 def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study") -> StudySpec:
-    known = {"study", "data", "predictor", "imaging", "models", "validation", "external"}
+    known = {"study", "data", "predictor", "imaging", "models", "validation", "external", "added_value"}
     for key in doc:
         if key not in known:
             close = difflib.get_close_matches(key, sorted(known), n=1)
@@ -331,8 +360,10 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             "penalty": (PenaltySpec, f"{source} [imaging.penalty]"),
         },
     )
-    models = _take(doc.get("models", {}), ModelsSpec, f"{source} [models]", nested={"forest": (ForestSpec, f"{source} [models.forest]")})
+    models = _take(doc.get("models", {}), ModelsSpec, f"{source} [models]", nested={"forest": (ForestSpec, f"{source} [models.forest]"),
+                                                                                "combined": (CombinedSpec, f"{source} [models.combined]")})
     validation = _take(doc.get("validation", {}), ValidationSpec, f"{source} [validation]")
+    added_value = _take(doc.get("added_value", {}), AddedValueSpec, f"{source} [added_value]")
     external = None
     if "external" in doc:
         external = _take(doc["external"], ExternalSpec, f"{source} [external]", base=base, paths=("features", "clinical"))
@@ -354,6 +385,7 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
         validation=validation,
         external=external,
         anticipated_r2=study.get("anticipated_r2"),
+        added_value=added_value,
     )
 
 
@@ -399,6 +431,7 @@ def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
     doc["imaging"] = _plain(spec.imaging)
     doc["models"] = _plain(spec.models)
     doc["validation"] = _plain(spec.validation)
+    doc["added_value"] = _plain(spec.added_value)
     if spec.external is not None:
         doc["external"] = {
             **_plain(spec.external),

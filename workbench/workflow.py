@@ -19,11 +19,12 @@ from datetime import UTC, datetime
 from workbench.cohort.summary import CohortSummary, summarise_cohort
 from workbench.errors import WorkbenchError
 from workbench.models.base import clone_model
-from workbench.models.registry import build_models
+from workbench.models.registry import build_models, candidate_parameters
 from workbench.models.signature import check_volume_dominance, volume_correlation
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
+from workbench.validation.added_value import run_added_value
 from workbench.validation.compare import ComparisonResult, compare_models
 from workbench.validation.groups import loco_groups
 from workbench.validation.resample import ValidationResult, validate, validate_external
@@ -100,6 +101,9 @@ class StudyResult:
     new_site : dict of str to list of NewSiteSampleSize
         Per Cox-type model and horizon, the patients needed to validate it at a
         new site (:mod:`workbench.validation.newsite`).
+    added_value : dict of str to AddedValueTest
+        Permutation test of each imaging model against the baseline given the
+        clinical predictors (empty when ``[added_value] permutations = 0``).
     """
 
     spec: StudySpec
@@ -117,6 +121,7 @@ class StudyResult:
     provenance: dict
     warnings: tuple = field(default_factory=tuple)
     new_site: dict = field(default_factory=dict)
+    added_value: dict = field(default_factory=dict)
 
     @property
     def cohort(self):
@@ -140,6 +145,7 @@ def run_study(
     cancel: Callable[[], bool] | None = None,
     replicates: int | None = None,
     workers: int | None = None,
+    permutations: int | None = None,
 ) -> StudyResult:
     """Run a study end to end.
 
@@ -154,6 +160,8 @@ def run_study(
     replicates, workers : int, optional
         Override the study's validation settings (e.g. a quick look with fewer
         replicates); the override is recorded in the results.
+    permutations : int, optional
+        Override ``[added_value] permutations`` (0 skips the test); recorded too.
     """
     started = time.time()
     v = spec.validation
@@ -166,13 +174,17 @@ def run_study(
     if changes:
         spec = replace(spec, validation=replace(v, **changes))
         v = spec.validation
+    if permutations is not None:
+        changes["permutations"] = int(permutations)
+        spec = replace(spec, added_value=replace(spec.added_value, permutations=int(permutations)))
     text = dumps_study(spec)
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         prepared = prepare_cohort(spec)
         cohort = prepared.cohort
-        summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2)
+        summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2,
+                                   **candidate_parameters(spec, cohort))
 
         unfitted = build_models(spec)
         fitted = {name: clone_model(m).fit(cohort) for name, m in unfitted.items()}
@@ -207,6 +219,8 @@ def run_study(
             model_replicates=model_reps,
             apparent_models=fitted,
         )
+
+        added_value = run_added_value(spec, unfitted, cohort, progress=_progress(progress, cancel, "added-value test"))
 
         external = ext_prepared = None
         if spec.external is not None:
@@ -263,5 +277,6 @@ def run_study(
         provenance=provenance,
         warnings=tuple(messages),
         new_site=new_site,
+        added_value=added_value,
     )
 

@@ -25,7 +25,8 @@ pytestmark = pytest.mark.slow  # one study run in the app and one on the command
 
 def _light_spec():
     spec = read_study(DEMO / "study.toml")
-    return replace(spec, models=replace(spec.models, fit=("clinical", "combined")), external=None)
+    return replace(spec, models=replace(spec.models, fit=("clinical", "combined")), external=None,
+                   added_value=replace(spec.added_value, permutations=9))
 
 
 @pytest.fixture(scope="module")

@@ -34,7 +34,9 @@ DEMO = Path(__file__).parents[2] / "demo_cohort"
 @pytest.fixture(scope="module")
 def demo_spec():
     spec = read_study(DEMO / "study.toml")
-    return replace(spec, models=replace(spec.models, fit=("clinical", "combined")))
+    # the added-value test has its own property test (test_added_value_properties.py)
+    return replace(spec, models=replace(spec.models, fit=("clinical", "combined")),
+                   added_value=replace(spec.added_value, permutations=0))
 
 
 def test_signature_recovers_most_planted_features(demo_spec):

@@ -94,3 +94,25 @@ def test_bad_study_files_say_what_is_wrong(study_path, edit, message):
 def test_missing_study_file(tmp_path):
     with pytest.raises(SpecError, match="study file not found"):
         read_study(tmp_path / "none.toml")
+
+
+def test_added_value_and_combined_keys_read_check_and_round_trip(tmp_path):
+    from dataclasses import replace as _replace
+    from pathlib import Path as _Path
+
+    from workbench.errors import SpecError as _SpecError
+    from workbench.models.registry import build_models
+    from workbench.study import read_study as _read
+    from workbench.study import write_study as _write
+
+    spec = _read(_Path(__file__).parents[2] / "demo_cohort" / "study.toml")
+    assert spec.added_value.permutations == 99 and spec.models.combined.coefficient == "prevalidated"
+    spec2 = _replace(spec, models=_replace(spec.models, combined=_replace(spec.models.combined,
+                                                                          shrinkage="cross_validated_slope")))
+    back = _read(_write(spec2, tmp_path / "s.toml"))
+    assert back.models.combined.shrinkage == "cross_validated_slope" and back.added_value == spec.added_value
+    assert build_models(back)["combined"].shrinkage == "cross_validated_slope"
+    with pytest.raises(_SpecError, match=r"\[models.combined\] shrinkage"):
+        _replace(spec, models=_replace(spec.models, combined=_replace(spec.models.combined, shrinkage="half")))
+    with pytest.raises(_SpecError, match=r"\[added_value\] permutations"):
+        _replace(spec, added_value=_replace(spec.added_value, permutations=-1))

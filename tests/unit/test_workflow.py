@@ -142,3 +142,18 @@ def test_recalibrated_models_saved_as_a_bundle_predict_as_recalibrated(run_folde
         got = rec.models[name].predict_survival(cohort, [12, 24])
         np.testing.assert_allclose(got.probs, want.curves.probs, rtol=0, atol=1e-10)
         assert rec.models[name].slope_ == pytest.approx(want.slope, abs=1e-12)
+
+
+def test_added_value_test_replaces_the_in_sample_likelihood_ratio_p_value(result):
+    data = results_dict(result)
+    av = data["added_value"]["combined"]
+    k = result.spec.added_value.permutations
+    assert av["permutations"] == k and av["baseline"] == "clinical"
+    # (1 + b) / (1 + K) with b in 0..K, and its Monte Carlo SE
+    b = round(av["p_value"] * (k + 1)) - 1
+    assert 0 <= b <= k and av["p_value"] == pytest.approx((1 + b) / (1 + k))
+    assert av["mc_se"] == pytest.approx((av["p_value"] * (1 - av["p_value"]) / k) ** 0.5)
+    assert av["observed"] == pytest.approx(av["model_cvpl"] - av["baseline_cvpl"])
+    assert data["comparison"]["combined"]["likelihood_ratio_test"]["p_value"] is None
+    assert data["models"]["combined"]["details"]["lr_p_value"] is None
+    assert data["models"]["combined"]["details"]["signature_coefficient"] == "prevalidated"

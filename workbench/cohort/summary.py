@@ -75,6 +75,10 @@ class CohortSummary:
     sample_size: SampleSizeResult
     dropped_ids: tuple[str, ...]
     caution: str = CAUTION
+    clinical_parameters_source: str = "counted from the clinical columns"
+    n_imaging_candidates: int = 0
+    events_per_candidate_parameter: float | None = None
+    sample_size_imaging: SampleSizeResult | None = None
 
 
 def feature_family(name: str) -> str:
@@ -107,6 +111,7 @@ def summarise_cohort(
     anticipated_r2: float | None = None,
     n_candidate_parameters: int | None = None,
     sample_size_horizon: float | None = None,
+    n_imaging_candidates: int = 0,
 ) -> CohortSummary:
     """Summarise a cohort.
 
@@ -119,8 +124,15 @@ def summarise_cohort(
         Anticipated Cox-Snell R-squared for the sample-size criteria; when not
         given, 15% of the maximum (the conservative default of Riley et al.).
     n_candidate_parameters : int, optional
-        Candidate clinical parameters; by default counted from the clinical
-        columns (levels - 1 for categorical fields).
+        Candidate clinical parameters: the degrees of freedom of the study's
+        clinical predictors (``workbench run`` passes the clinical model's design
+        columns). By default counted from all clinical columns (levels - 1 for
+        categorical fields), which overcounts when not every column is a predictor.
+    n_imaging_candidates : int, optional
+        Candidate imaging features behind the imaging models. When positive, a
+        second Riley verdict is given for clinical parameters plus these
+        candidates (``sample_size_imaging``): a selected signature spends the
+        degrees of freedom of every feature it was chosen from.
     sample_size_horizon : float, optional
         Horizon for the overall-risk criterion; default the first horizon.
 
@@ -168,6 +180,8 @@ def summarise_cohort(
     src = cohort.source
     exclude = {x for x in (src.centre_column, src.batch_column) if x}
     p_clin = n_candidate_parameters or clinical_parameter_count(cohort.clinical, exclude)
+    p_source = ("degrees of freedom of the study's clinical predictors" if n_candidate_parameters
+                else "counted from the clinical columns")
     n_ev = cohort.n_events
     epv = n_ev / max(p_clin, 1)
     if epv < 10:
@@ -177,14 +191,16 @@ def summarise_cohort(
             LowEventsWarning,
             stacklevel=2,
         )
-    ss = minimum_sample_size(
-        n_parameters=max(p_clin, 1),
+    ss_kw = dict(
         n=cohort.n,
         n_events=n_ev,
         person_time=float(t.sum()),
         r2_cs=anticipated_r2,
         horizon=sample_size_horizon if sample_size_horizon is not None else (float(horizons[0]) if len(horizons) else None),
     )
+    ss = minimum_sample_size(n_parameters=max(p_clin, 1), **ss_kw)
+    p_img = int(n_imaging_candidates or 0)
+    ss_img = minimum_sample_size(n_parameters=max(p_clin, 1) + p_img, **ss_kw) if p_img > 0 else None
     return CohortSummary(
         n_patients=cohort.n,
         n_events=n_ev,
@@ -206,6 +222,10 @@ def summarise_cohort(
         events_per_feature=n_ev / max(len(cohort.feature_names), 1),
         sample_size=ss,
         dropped_ids=src.dropped_ids,
+        clinical_parameters_source=p_source,
+        n_imaging_candidates=p_img,
+        events_per_candidate_parameter=n_ev / (max(p_clin, 1) + p_img) if p_img > 0 else None,
+        sample_size_imaging=ss_img,
     )
 
 
@@ -258,7 +278,7 @@ def format_summary(s: CohortSummary) -> str:
     lines += [
         "",
         f"Events per candidate clinical parameter: {s.events_per_clinical_parameter:.1f} "
-        f"({s.n_events} events / {s.n_clinical_parameters} parameters)",
+        f"({s.n_events} events / {s.n_clinical_parameters} parameters, {s.clinical_parameters_source})",
         f"Events per imaging feature: {s.events_per_feature:.2f} (why the signature needs penalisation and honest validation)",
         "",
         f"Minimum sample size for a Cox model with {ss.n_parameters} parameters (Riley et al. 2019/2020),",
@@ -272,6 +292,15 @@ def format_summary(s: CohortSummary) -> str:
     lines.append(
         f"  required {ss.n_required} patients ({ss.events_required} events); this cohort ({ss.n_available}) {verdict} it."
     )
+    si = s.sample_size_imaging
+    if si is not None:
+        v2 = "meets" if si.adequate else "falls short of"
+        lines += [
+            f"With the {s.n_imaging_candidates} candidate imaging features as well ({si.n_parameters} candidate "
+            f"parameters, {s.events_per_candidate_parameter:.2f} events per parameter):",
+            f"  required {si.n_required} patients ({si.events_required} events); this cohort {v2} it"
+            + ("" if si.adequate else ": an imaging model needs penalisation and honest validation"),
+        ]
     if s.dropped_ids:
         lines.append("")
         lines.append(f"Patients left out because they were in only one table: {len(s.dropped_ids)}")

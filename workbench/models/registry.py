@@ -5,6 +5,7 @@ from __future__ import annotations
 from workbench.models.cox import ClinicalCox, CombinedCox
 from workbench.models.signature import ImagingSignature
 from workbench.models.wide import ForestModel, PenalisedAllCox
+from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.study import StudySpec
 
 MODEL_LABELS = {
@@ -39,7 +40,12 @@ def build_models(spec: StudySpec) -> dict:
     seed = int(spec.seed)
     table = {
         "clinical": lambda: ClinicalCox(preds),
-        "combined": lambda: CombinedCox(preds, signature=build_signature(spec, seed), protect=tuple(h.protect)),
+        "combined": lambda: CombinedCox(
+            preds, signature=build_signature(spec, seed), protect=tuple(h.protect),
+            coefficient=spec.models.combined.coefficient,
+            prevalidation_folds=spec.models.combined.prevalidation_folds,
+            shrinkage=spec.models.combined.shrinkage,
+        ),
         "penalised_all": lambda: PenalisedAllCox(
             preds,
             harmonise=h.method == "combat",
@@ -68,3 +74,18 @@ def build_models(spec: StudySpec) -> dict:
         ),
     }
     return {name: table[name]() for name in spec.models.fit}
+
+
+def candidate_parameters(spec: StudySpec, cohort) -> dict:
+    """Candidate parameters the study considers, for the sample-size criteria.
+
+    ``n_candidate_parameters``: the degrees of freedom of the study's clinical
+    predictors (the clinical model's design columns: dummies, spline and
+    detection-limit columns each count), not every clinical column of the table.
+    ``n_imaging_candidates``: the imaging features the imaging models select from
+    (0 when the study fits no imaging model).
+    """
+    df = len(ClinicalTransformer(tuple(spec.predictors)).fit(cohort).columns_)
+    imaging = any(m != "clinical" for m in spec.models.fit)
+    return {"n_candidate_parameters": max(df, 1),
+            "n_imaging_candidates": len(cohort.feature_names) if imaging else 0}

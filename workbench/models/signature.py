@@ -5,9 +5,10 @@
 1. optional ComBat by batch, protecting given clinical covariates;
 2. standardisation with the training mean and SD;
 3. near-zero-variance filter;
-4. redundancy filter (|r| above a threshold, keeping the member more related to
-   outcome);
-5. optional univariate Cox screening at a false discovery rate;
+4. redundancy filter (|r| above a threshold, keeping the member that represents
+   the others best: an unsupervised choice);
+5. optional univariate Cox screening at a false discovery rate, each original
+   patient counted once;
 6. penalised Cox with the penalty chosen by patient-grouped cross-validation.
 
 Its score (the linear predictor) is the signature. :class:`ClinicalPlusImagingCox`
@@ -153,7 +154,8 @@ class ImagingSignature(BaseEstimator):
         if self.screen_fdr is not None:
             self.filters_.append(CoxScreen(fdr=self.screen_fdr))
         for f in self.filters_:
-            Z = f.fit(Z, y).transform(Z)
+            # the screen counts each original patient once (bootstrap copies are not new patients)
+            Z = (f.fit(Z, y, groups=groups) if isinstance(f, CoxScreen) else f.fit(Z, y)).transform(Z)
             records.append(f.record_)
         self.path_: PenalizedPathResult | None = None
         beta = np.zeros(Z.shape[1])

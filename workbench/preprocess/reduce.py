@@ -6,9 +6,9 @@ records which features it kept and why it dropped the others
 radiomic features down to the handful in the signature.
 
 Steps: :class:`Standardizer`, :class:`NearZeroVarianceFilter`,
-:class:`RedundancyFilter` (correlated pairs, keeping the member more associated
-with the outcome) and :class:`CoxScreen` (univariate Cox tests with
-Benjamini-Hochberg false discovery rate control). :func:`univariate_cox` fits all
+:class:`RedundancyFilter` (correlated pairs, keeping the more representative
+member: unsupervised) and :class:`CoxScreen` (univariate Cox tests with
+Benjamini-Hochberg false discovery rate control, each original patient once). :func:`univariate_cox` fits all
 univariate Cox models at once with vectorised Newton steps.
 """
 
@@ -304,19 +304,31 @@ def benjamini_hochberg(p_values) -> np.ndarray:
 
 
 class RedundancyFilter(_Step):
-    """Among features correlated above ``threshold``, keep the one most related to outcome.
+    """Among features correlated above ``threshold``, keep the most representative one.
 
-    Features are visited in decreasing order of association with the outcome in
-    the training rows, measured as the absolute univariate Cox score statistic
-    ``|z|``. A visited feature that is still available is kept, and every
-    available feature whose ``|Pearson r|`` with it exceeds ``threshold`` is
-    dropped. One vectorised comparison per kept feature; the correlation matrix
-    is computed once (O(n p^2) in BLAS).
+    The choice is unsupervised, so the filter can run outside the inner
+    cross-validation that chooses the penalty without leaking outcome
+    information into it. Features are visited in decreasing order of
+    *representativeness*: the sum of their squared Pearson correlations with all
+    other features in the training rows (the feature that stands in best for the
+    others; ties keep the table's column order). A visited feature that is still
+    available is kept, and every available feature whose ``|r|`` with it exceeds
+    ``threshold`` is dropped. The outcome is not used (``y`` is accepted and
+    ignored): shuffling the outcomes leaves the kept features unchanged.
+
+    Keeping the member most associated with the outcome, as is sometimes done,
+    makes the filter a supervised step fitted on all training rows before the
+    penalty is chosen by cross-validation, which pushes the chosen penalty down.
 
     Parameters
     ----------
     threshold : float, default 0.90
         |r| above which two features count as redundant (common practice).
+
+    Attributes
+    ----------
+    representativeness_ : ndarray of shape (n_features,)
+        Sum of squared correlations with the other features.
     """
 
     _name = "redundancy"
@@ -324,18 +336,20 @@ class RedundancyFilter(_Step):
     def __init__(self, threshold: float = 0.90):
         self.threshold = threshold
 
-    def fit(self, X, y) -> RedundancyFilter:
+    def fit(self, X, y=None) -> RedundancyFilter:
         A, names = _as_matrix(X, "RedundancyFilter.fit")
-        assoc = np.abs(univariate_cox(A, y, test="score").z)
         Z = A - A.mean(axis=0)
         sd = np.sqrt((Z * Z).sum(axis=0))
         Z = Z / np.where(sd > 0, sd, 1.0)
         R = np.abs(Z.T @ Z)
         np.fill_diagonal(R, 0.0)
+        rep = (R * R).sum(axis=0)
+        # rounding keeps the order stable against last-digit BLAS differences between machines
+        order = np.argsort(-np.round(rep, 10), kind="stable")
         available = np.ones(A.shape[1], bool)
         keep = np.zeros(A.shape[1], bool)
         reasons = {}
-        for j in np.argsort(-assoc, kind="stable"):
+        for j in order:
             if not available[j]:
                 continue
             keep[j] = True
@@ -343,9 +357,9 @@ class RedundancyFilter(_Step):
             hit = np.flatnonzero(available & (R[j] > self.threshold))
             available[hit] = False
             for h in hit:
-                reasons[h] = (f"|r| = {R[j, h]:.2f} with {names[j]}, which is more associated "
-                              f"with the outcome (|z| {assoc[j]:.2f} vs {assoc[h]:.2f})")
-        self.association_ = assoc
+                reasons[h] = (f"|r| = {R[j, h]:.2f} with {names[j]}, which represents the other features "
+                              f"better (sum of r^2 {rep[j]:.1f} vs {rep[h]:.1f})")
+        self.representativeness_ = rep
         return self._finish(names, keep, reasons)
 
 
@@ -369,9 +383,24 @@ class CoxScreen(_Step):
         self.test = test
         self.min_keep = min_keep
 
-    def fit(self, X, y) -> CoxScreen:
+    def fit(self, X, y, groups=None) -> CoxScreen:
+        """Screen on the training rows, each original patient counted once.
+
+        ``groups`` are the original patient ids. In a bootstrap sample a patient's
+        copies are identical rows; treating them as independent patients inflates
+        every test statistic (many more features pass the FDR). With ``groups``
+        the tests use one row per patient (the copies carry no new information).
+        """
         A, names = _as_matrix(X, "CoxScreen.fit")
-        res = univariate_cox(A, y, test=self.test)
+        y_ = y
+        if groups is not None:
+            g = np.asarray(groups)
+            if g.shape[0] != A.shape[0]:
+                raise CohortError(f"CoxScreen.fit: {g.shape[0]} patient ids for {A.shape[0]} rows.")
+            _, first = np.unique(g, return_index=True)
+            first = np.sort(first)
+            A, y_ = A[first], y[first]
+        res = univariate_cox(A, y_, test=self.test)
         q = benjamini_hochberg(res.p_value)
         keep = q <= self.fdr
         if keep.sum() < self.min_keep:

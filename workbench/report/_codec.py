@@ -387,7 +387,8 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     # models behind the protocol
     "ClinicalCox": _estimator_codec(ClinicalCox, _COX_STATE),
     "CombinedCox": _estimator_codec(
-        CombinedCox, (*_COX_STATE, "feature_medians_", "signature_", "selected_features_")),
+        CombinedCox, (*_COX_STATE, "feature_medians_", "signature_", "selected_features_",
+                      "coefficient_source_", "signature_coef_in_sample_", "shrinkage_factor_")),
     "PenalisedAllCox": _estimator_codec(
         PenalisedAllCox, (*_WIDE_STATE, "model_", "selected_features_", "lp_mean_", "baseline_")),
     "ForestModel": _estimator_codec(ForestModel, (*_WIDE_STATE, "columns_", "forest_")),
@@ -407,7 +408,7 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     "Standardizer": _estimator_codec(Standardizer, (*_STEP_STATE, "mean_", "scale_")),
     "NearZeroVarianceFilter": _estimator_codec(
         NearZeroVarianceFilter, (*_STEP_STATE, "freq_ratio_", "percent_unique_")),
-    "RedundancyFilter": _estimator_codec(RedundancyFilter, (*_STEP_STATE, "association_")),
+    "RedundancyFilter": _estimator_codec(RedundancyFilter, (*_STEP_STATE, "representativeness_", "association_")),
     "CoxScreen": _estimator_codec(CoxScreen, (*_STEP_STATE, "z_", "p_value_", "q_value_")),
     "SurvivalForest": Codec(SurvivalForest, _encode_forest, _decode_forest),
     "RecalibratedModel": _estimator_codec(RecalibratedModel, ("centre_", "fit_", "slope_", "slope_se_")),

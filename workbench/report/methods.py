@@ -195,7 +195,8 @@ def methods_paragraph(result, data: dict | None = None) -> str:
         f"events per candidate clinical parameter ({s['n_events']} events, {s['n_clinical_parameters']} "
         f"parameters). By the criteria of Riley et al. (2019), with an anticipated Cox-Snell R-squared of "
         f"{ss['r2_cs']:.3f} ({ss['r2_cs_source'].replace(' (', ', ').replace(')', '')}), at least {ss['n_required']} patients "
-        f"({ss['events_required']} events) were required; {ss['n_available']} were available."
+        f"({ss['events_required']} events) were required for the clinical model; {ss['n_available']} were available."
+        + _imaging_sample_size(s)
     )
     im = spec.imaging
     fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
@@ -244,10 +245,13 @@ def methods_paragraph(result, data: dict | None = None) -> str:
         "horizon; overall accuracy by the Brier score, its integral and the index of prediction accuracy; "
         "calibration by smoothed calibration curves (ICI, E50, E90; Austin et al. 2020), the calibration slope "
         f"and the observed/expected ratio. Each model was compared with the {_label(d['baseline'])} model "
-        "by paired differences within the same replicates, the likelihood-ratio test for nested Cox models, "
+        "by paired differences within the same replicates, "
         "the category-free net reclassification index and integrated discrimination improvement by component, "
         "and decision curves."
     )
+    av_text = added_value_text(d)
+    if av_text:
+        paras.append(av_text)
     if d["external"] is not None:
         e = d["external"]
         paras.append(
@@ -315,8 +319,9 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         out.append(f"External patients imaged on scanners absent from the development data "
                    f"({', '.join(unseen_batches(result))}) were standardised without a batch adjustment; "
                    "imaging-based predictions for them are the least reliable.")
-    out.append("The likelihood-ratio test for the signature ignores that it was selected on the same patients "
-               "and is optimistic.")
+    if not d.get("added_value"):
+        out.append("No added-value permutation test was run ([added_value] permutations = 0): there is no "
+                   "test of whether imaging adds to the clinical model, only the validated differences.")
     return tuple(out)
 
 
@@ -327,6 +332,45 @@ def _censoring_clause(c) -> str:
              "km_by_centre": "Kaplan-Meier curves of the censoring times stratified by centre",
              "cox": "a Cox model of the censoring hazard (Gerds & Schumacher 2006)"}
     return f", using {names.get(c.get('method'), c.get('method'))} ({c.get('reason', '')})"
+def _imaging_sample_size(s: dict) -> str:
+    si = s.get("sample_size_imaging")
+    if not si:
+        return ""
+    return (f" Counting the {s['n_imaging_candidates']} candidate imaging features as parameters "
+            f"({si['n_parameters']} in all, {s['events_per_candidate_parameter']:.2f} events per parameter), "
+            f"{si['n_required']} patients would be required for an unpenalised imaging model; the imaging "
+            "models therefore rest on penalisation and resampling validation.")
+
+
+def added_value_text(d: dict) -> str:
+    """Methods sentences for the added-value permutation test and the signature coefficient ('' if not run)."""
+    parts = []
+    for name, av in (d.get("added_value") or {}).items():
+        within = " within scanner batch" if av["within"] else ""
+        parts.append(
+            f"Whether imaging adds prognostic information given the clinical predictors ({_label(name)} against "
+            f"{_label(av['baseline'])}) was tested by permutation: each imaging feature was regressed on the "
+            f"clinical terms{' and scanner batch' if av['within'] else ''} by least squares, and the residuals "
+            f"(whole rows) were permuted among patients{within} and added back to the fitted values, which keeps "
+            "the correlation of imaging with the clinical predictors and breaks any further link with outcome "
+            "(residual permutation, Freedman and Lane 1983). The statistic was the cross-validated partial "
+            f"log-likelihood (Verweij and van Houwelingen 1993; {av['folds']} folds split by patient, the same in "
+            "every permutation) of the combined model minus that of the clinical model, with every signature step "
+            f"refitted in every training fold. With {av['permutations']} permutations the p-value was "
+            "(1 + number of permuted statistics at least as large as the observed) / (1 + permutations) "
+            "(Phipson and Smyth 2010), reported with its Monte Carlo standard error. The likelihood-ratio "
+            "statistic of the combined against the clinical model is reported as descriptive only, because the "
+            "signature was selected on the same patients.")
+    comb = d["models"].get("combined")
+    if comb and comb.get("details", {}).get("signature_coefficient") == "prevalidated":
+        parts.append("The coefficient of the signature in the combined model was estimated on pre-validated "
+                     "signature scores (each patient scored by a signature refitted without the patient's fold; "
+                     "Tibshirani and Efron 2002), so its hazard ratio is not the in-sample one.")
+    shrink = (comb or {}).get("details", {}).get("shrinkage_factor")
+    if shrink is not None and shrink < 1:
+        parts.append(f"All coefficients of the combined model were multiplied by the cross-validated calibration "
+                     f"slope {shrink:.3f} and the baseline hazard re-estimated (van Houwelingen and le Cessie 1990).")
+    return " ".join(parts)
 
 
 def unseen_batches(result) -> tuple[str, ...]:

@@ -64,6 +64,16 @@ def _comparison_block(comp) -> dict:
     }
 
 
+def _added_value_block(t) -> dict:
+    block = jsonable(t)
+    block.pop("null")  # the K permutation statistics: summarised, not listed
+    block.pop("seconds")  # run time is not a result (same seed, same results.json)
+    null = np.asarray(t.null, float)
+    block["null_quantiles"] = {q: jsonable(float(np.quantile(null, float(q)))) for q in ("0.5", "0.95", "0.99")} \
+        if null.size else {}
+    return block
+
+
 def _model_block(result, name: str) -> dict:
     m = result.models[name]
     desc = m.describe()
@@ -190,6 +200,7 @@ def results_dict(result) -> dict:
         "models": {name: _model_block(result, name) for name in result.models},
         "baseline": result.spec.models.baseline,
         "comparison": {name: _comparison_block(c) for name, c in result.comparisons.items()},
+        "added_value": {name: _added_value_block(t) for name, t in getattr(result, "added_value", {}).items()},
         "external": None,
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
     }
@@ -324,9 +335,13 @@ def format_results(result) -> str:
         lines.append("")
         lines.append(f"{MODEL_LABELS.get(name, name)} vs {MODEL_LABELS.get(comp.baseline, comp.baseline)}:")
         lines.append(f"  difference in Harrell C {fmt_estimate(d)}")
-        if lr.nested and np.isfinite(lr.statistic):
+        av = getattr(result, "added_value", {}).get(name)
+        if av is not None:
+            lines.append(f"  added value of imaging given clinical (permutation test): CV log-likelihood gain "
+                         f"{av.observed:.1f}, p = {av.p_value:.3g} (MC SE {av.mc_se:.3f}, {av.permutations} permutations)")
+        if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value):
             lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
-                         "(apparent: the signature was built on the same patients)")
+                         "(prespecified terms)")
     if result.external is not None:
         lines.append("")
         lines.append(f"External cohort ({result.external_prepared.cohort.n} patients):")

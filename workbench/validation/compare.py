@@ -9,7 +9,9 @@ and its interval the location-shifted percentile interval of ``B_m - B_b`` (see
 fitted count. A difference is model minus baseline; for the integrated Brier
 score lower is better, so a negative difference favours the model.
 
-Beside the differences: the likelihood-ratio test of nested Cox models, the
+Beside the differences: the likelihood-ratio statistic of nested Cox models
+(a test only for prespecified terms; descriptive for a data-built signature, whose
+evidence is :mod:`workbench.validation.added_value`), the
 category-free NRI and the IDI by component (with the caution that they are not
 measures of improvement on their own, Kerr et al. 2014), and decision curves of
 both models with treat-all and treat-none.
@@ -39,11 +41,21 @@ __all__ = [
 LOWER_IS_BETTER = ("ibs", "brier", "ici", "e50", "e90", "null_ibs")
 
 LR_CAUTION = (
-    "The likelihood-ratio test treats the imaging signature as if it had been fixed "
-    "in advance. It was built on the same patients (feature selection and penalty "
-    "choice), so the test is too optimistic; judge the added value by the validated "
-    "differences in discrimination, calibration and net benefit."
+    "Apparent (descriptive) statistic only, not a test: the imaging signature was built "
+    "on the same patients (feature selection and penalty choice), so a likelihood-ratio "
+    "p-value would be far too optimistic and none is given. The evidence on added value "
+    "is the added-value permutation test and the validated differences in discrimination, "
+    "calibration and net benefit."
 )
+LR_PRESPECIFIED_CAUTION = (
+    "Both models have prespecified terms, so the likelihood-ratio test is valid on the "
+    "development data; it is not too optimistic the way a test of a data-built signature is."
+)
+LR_EXTERNAL_NOTE = (
+    "not computed on the external cohort: the development log-likelihoods do not describe "
+    "these patients, and a test would reuse the development fit."
+)
+SIGNATURE_TERM = "imaging_signature"  # the combined model's data-built term (models.cox)
 
 
 @dataclass(frozen=True)
@@ -81,11 +93,14 @@ class Difference:
 
 @dataclass(frozen=True)
 class LikelihoodRatioTest:
-    """Likelihood-ratio test of a baseline Cox model nested in the model.
+    """Likelihood-ratio statistic of a baseline Cox model nested in the model.
 
     ``nested`` is True only when the baseline's terms are a subset of the model's
     (e.g. the combined model adds the signature to the clinical terms); otherwise
-    the statistic is NaN and ``note`` says why.
+    the statistic is NaN and ``note`` says why. ``p_value`` is given only when the
+    extra terms are prespecified; for a data-built imaging signature the statistic
+    is apparent and descriptive (``p_value`` NaN), and on an external cohort
+    nothing is computed.
     """
 
     statistic: float
@@ -179,6 +194,8 @@ def _negated(e: MetricEstimate) -> MetricEstimate:
 
 
 def _lr_test(result: ValidationResult, model: str, baseline: str) -> LikelihoodRatioTest:
+    if result.method == "external":
+        return LikelihoodRatioTest(np.nan, 0, np.nan, False, LR_EXTERNAL_NOTE)
     fm, fb = result.fits[model], result.fits[baseline]
     if fm.loglik is None or fb.loglik is None or fm.n_params is None or fb.n_params is None:
         return LikelihoodRatioTest(np.nan, 0, np.nan, False,
@@ -192,9 +209,15 @@ def _lr_test(result: ValidationResult, model: str, baseline: str) -> LikelihoodR
     if df < 0:
         return LikelihoodRatioTest(np.nan, df, np.nan, False,
                                    f"not nested: {model!r} has fewer parameters than {baseline!r}.")
-    p = float(chi2.sf(stat, df)) if df > 0 else np.nan
-    note = LR_CAUTION if df > 0 else "the two models have the same terms; there is nothing to test."
-    return LikelihoodRatioTest(float(stat), int(df), p, True, note)
+    data_built = SIGNATURE_TERM in set(fm.terms) - set(fb.terms) or bool(fm.selected)
+    if df == 0:
+        return LikelihoodRatioTest(float(stat), 0, np.nan, True,
+                                   "the two models have the same terms; there is nothing to test.")
+    if data_built:
+        # The extra term was selected and fitted on these patients: the statistic is
+        # descriptive only; the added-value permutation test is the evidence.
+        return LikelihoodRatioTest(float(stat), int(df), np.nan, True, LR_CAUTION)
+    return LikelihoodRatioTest(float(stat), int(df), float(chi2.sf(stat, df)), True, LR_PRESPECIFIED_CAUTION)
 
 
 def _nb_validated(result: ValidationResult, name: str) -> np.ndarray:

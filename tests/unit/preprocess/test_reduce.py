@@ -97,17 +97,32 @@ def test_near_zero_variance_drops_constant_and_rare_features():
     assert list(f.transform(X).columns) == ["binary", "texture"]
 
 
-def test_redundancy_keeps_the_member_more_associated_with_outcome(cohort):
+def test_redundancy_keeps_the_more_representative_member_without_looking_at_outcome(cohort):
     X, y = cohort
-    X = X[["f2", "f0", "f1", "f3"]]  # put the weaker copy first so order cannot decide
+    X = X[["f2", "f0", "f1", "f3"]]
     f = RedundancyFilter(0.9).fit(X, y)
-    z = np.abs(univariate_cox(X, y).z)
-    stronger, weaker = ("f0", "f2") if z[1] > z[0] else ("f2", "f0")
-    assert stronger in f.record_.kept and weaker not in f.record_.kept
-    assert stronger in f.record_.reasons[weaker]
+    R = np.abs(np.corrcoef(X.to_numpy(), rowvar=False))
+    np.fill_diagonal(R, 0)
+    rep = (R * R).sum(axis=0)  # sum of squared correlations, computed independently with numpy
+    a, b = ("f2", "f0") if rep[0] >= rep[1] else ("f0", "f2")
+    assert a in f.record_.kept and b not in f.record_.kept
+    assert a in f.record_.reasons[b] and "represents" in f.record_.reasons[b]
     kept = f.transform(X).to_numpy()
     r = np.corrcoef(kept, rowvar=False)
     assert np.abs(r[np.triu_indices_from(r, 1)]).max() <= 0.9
+
+
+def test_redundancy_choice_does_not_change_when_outcomes_are_shuffled():
+    rng = np.random.default_rng(11)
+    F = rng.standard_normal((200, 8))
+    X = F[:, rng.integers(0, 8, 60)] + 0.3 * rng.standard_normal((200, 60))
+    t = rng.exponential(np.exp(-X[:, 0]), 200)
+    y = make_outcome(t, rng.random(200) < 0.7)
+    kept = RedundancyFilter(0.85).fit(X, y).record_.kept
+    for seed in range(5):
+        perm = np.random.default_rng(seed).permutation(200)
+        assert RedundancyFilter(0.85).fit(X, y[perm]).record_.kept == kept
+    assert RedundancyFilter(0.85).fit(X).record_.kept == kept  # no outcome needed at all
 
 
 def test_redundancy_on_many_correlated_features_leaves_no_pair_above_threshold():
@@ -154,3 +169,19 @@ def test_errors_are_clear(cohort):
         f.transform(X[X.columns[::-1]])
     with pytest.raises(ModelError, match="unknown"):
         univariate_cox(X, y, test="lrt")
+
+
+def test_cox_screen_counts_each_patient_once_with_bootstrap_duplicates():
+    rng = np.random.default_rng(3)
+    n, p = 150, 40
+    X = rng.standard_normal((n, p))
+    y = make_outcome(rng.exponential(np.exp(-0.35 * X[:, 0]), n), rng.random(n) < 0.7)
+    ids = np.array([f"p{i}" for i in range(n)])
+    once = CoxScreen(fdr=0.10).fit(X, y)
+    idx = rng.integers(0, n, 3 * n)  # heavy duplication, as a bootstrap sample of size 3n
+    idx = np.concatenate([np.arange(n), idx])  # every patient at least once
+    dup = CoxScreen(fdr=0.10).fit(X[idx], y[idx], groups=ids[idx])
+    assert dup.record_.kept == once.record_.kept
+    np.testing.assert_allclose(dup.z_, once.z_, rtol=1e-12)
+    naive = CoxScreen(fdr=0.10).fit(X[idx], y[idx])  # rows as if independent patients
+    assert np.abs(naive.z_).sum() > 1.5 * np.abs(once.z_).sum()

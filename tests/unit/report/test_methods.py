@@ -105,7 +105,11 @@ def test_no_invented_numbers(text, result):
              *[s.n_out for s in result.models["combined"].signature_.steps_],
              *result.summary.feature_families.values(), len(result.models["combined"].coefficient_rows()),
              len(result.models["clinical"].coefficient_rows()), round(100 * result.validation.conf_level),
-             *[int(x) for x in re.findall(r"\d+", result.summary.sample_size.r2_cs_source)], 4, 1, 0, 2, 3}
+             *[int(x) for x in re.findall(r"\d+", result.summary.sample_size.r2_cs_source)], 4, 1, 0, 2, 3,
+             # added-value test, pre-validation and the imaging sample size (publication years and settings)
+             1983, 1990, 2002, 2010, result.spec.added_value.permutations, result.spec.added_value.folds,
+             *([result.summary.sample_size_imaging.n_required, result.summary.sample_size_imaging.n_parameters,
+                result.summary.n_imaging_candidates] if result.summary.sample_size_imaging else [])}
     ints = {int(x) for x in re.findall(r"(?<![\w.])(\d+)(?![\w.])", text)}
     versions = " ".join(metadata.version(p) for p in ("numpy", "scipy", "pandas", "scikit-learn", "scikit-survival",
                                                       "lifelines"))

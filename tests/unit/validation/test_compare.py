@@ -95,7 +95,11 @@ def test_likelihood_ratio_test_matches_lifelines(gbsg2, nested):
         lls.append(CoxPHFitter().fit(df, "T", "E").log_likelihood_)
     assert lr.nested and lr.df == 2
     assert lr.statistic == pytest.approx(2 * (lls[1] - lls[0]), abs=1e-4)  # lifelines, Efron ties
-    assert "too optimistic" in lr.note
+    from scipy.stats import chi2
+
+    # prespecified terms: a valid test, p from the chi-square distribution on 2 df
+    assert lr.p_value == pytest.approx(chi2.sf(2 * (lls[1] - lls[0]), 2), rel=1e-4)
+    assert "prespecified" in lr.note
     rev = compare_models(nested, "clinical", "bigger").lr_test
     assert not rev.nested and np.isnan(rev.statistic) and "not nested" in rev.note
 
@@ -124,3 +128,20 @@ def test_decision_curves_with_treat_all_and_none(gbsg2, nested):
         assert np.all(dc.treat_none == 0.0)
         assert dc.model_apparent.shape == dc.model_validated.shape == pt.shape
         assert np.all(np.isfinite(dc.model_validated))
+
+
+def test_a_data_built_signature_gets_no_likelihood_ratio_p_value_and_external_none(nested):
+    from dataclasses import replace
+
+    from workbench.validation.compare import _lr_test
+
+    fits = dict(nested.fits)
+    big = fits["bigger"]
+    fits["bigger"] = replace(big, terms=(*big.terms, "imaging_signature"), n_params=big.n_params + 1,
+                             selected=("f1", "f2"))
+    lr = _lr_test(replace(nested, fits=fits), "bigger", "clinical")
+    assert lr.nested and np.isfinite(lr.statistic) and np.isnan(lr.p_value)
+    assert "descriptive" in lr.note
+    ext = _lr_test(replace(nested, method="external"), "bigger", "clinical")
+    assert not ext.nested and np.isnan(ext.statistic) and np.isnan(ext.p_value)
+    assert "external cohort" in ext.note

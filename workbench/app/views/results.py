@@ -135,15 +135,24 @@ def _figures(result, key) -> None:
             st.caption("Curves, calibration and decision curves are drawn on the development cohort (apparent).")
 
 
-def _comparison(comp, u: str) -> None:
+def _comparison(comp, u: str, added_value=None) -> None:
     st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
                 f"{comp.n_paired} paired replicates)")
     state.table(tables.difference_table(comp, time_unit=u, headline=True))
     with st.expander("Every measure"):
         state.table(tables.difference_table(comp, time_unit=u), max_rows=20)
+    if added_value is not None:
+        st.write(f"Added value of imaging given the clinical model (permutation test): cross-validated "
+                 f"log-likelihood gain {added_value.observed:.1f}, p = {added_value.p_value:.3g} "
+                 f"(Monte Carlo SE {added_value.mc_se:.3f}, {added_value.permutations} permutations).")
+        st.caption("Imaging residuals given the clinical terms (and scanner) permuted; the whole signature "
+                   "refitted in every fold of every permutation.")
     lr = comp.lr_test
-    if lr.nested and np.isfinite(lr.statistic):
+    if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value):
         st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
+        st.caption(lr.note)
+    elif lr.nested and np.isfinite(lr.statistic):
+        st.write(f"Apparent likelihood-ratio statistic (descriptive, not a test): {lr.statistic:.2f} on {lr.df} df.")
         st.caption(LR_CAUTION)
     elif lr.note:
         st.caption(f"Likelihood-ratio test: {lr.note}")
@@ -213,7 +222,7 @@ def _show(result, job) -> None:
         tabs = st.tabs([f"{tables.label(c.model)} minus {tables.label(c.baseline)}" for c in comps])
     for tab, comp in zip(tabs if comps else [], comps, strict=False):
         with tab:
-            _comparison(comp, u)
+            _comparison(comp, u, getattr(result, "added_value", {}).get(comp.model))
     _figures(result, job.key)
 
     if result.external is not None:
