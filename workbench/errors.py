@@ -76,3 +76,7 @@ class FollowUpWarning(WorkbenchWarning):
 
 class DataQualityWarning(WorkbenchWarning):
     """Something in the input tables deserves a look but does not stop the run."""
+
+
+class EmptySignatureWarning(WorkbenchWarning):
+    """The imaging signature kept no feature: the combined model equals the clinical model."""

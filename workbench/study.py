@@ -292,6 +292,9 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             "penalty": (PenaltySpec, f"{source} [imaging.penalty]"),
         },
     )
+    if not data.batch and "method" not in doc.get("imaging", {}).get("harmonise", {}):
+        # ComBat needs a batch column; without one the default is no harmonisation (the run log says so)
+        imaging = replace(imaging, harmonise=replace(imaging.harmonise, method="none"))
     models = _take(doc.get("models", {}), ModelsSpec, f"{source} [models]", nested={"forest": (ForestSpec, f"{source} [models.forest]")})
     validation = _take(doc.get("validation", {}), ValidationSpec, f"{source} [validation]")
     external = None

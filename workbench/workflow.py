@@ -19,6 +19,7 @@ from datetime import UTC, datetime
 from workbench.cohort.summary import CohortSummary, summarise_cohort
 from workbench.errors import WorkbenchError
 from workbench.models.base import clone_model
+from workbench.models.labels import warn_empty_signatures
 from workbench.models.registry import build_models
 from workbench.models.signature import check_volume_dominance, volume_correlation
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
@@ -141,10 +142,12 @@ def run_study(
             if hasattr(m, "ph_test"):
                 ph_tests[name] = m.ph_test(cohort)
                 warn_if_nonproportional(ph_tests[name])
+        warn_empty_signatures(fitted)
         volume = {}
         if spec.imaging.volume_feature and spec.imaging.volume_feature in cohort.feature_names:
             for name, m in fitted.items():
-                if hasattr(m, "signature_score"):
+                # an empty signature has a constant score: its volume correlation is not applicable
+                if hasattr(m, "signature_score") and tuple(getattr(m, "selected_features_", ())):
                     volume[name] = volume_correlation(m.signature_score(cohort), cohort.features, spec.imaging.volume_feature)
                     check_volume_dominance(volume[name])
 
@@ -176,7 +179,7 @@ def run_study(
                 cohort.y,
                 ext_prepared.cohort,
                 spec.horizons,
-                replicates=v.replicates if v.method != "none" else 0,
+                replicates=v.replicates,  # intervals on the external patients even without internal validation
                 random_state=spec.seed,
                 progress=_progress(progress, cancel, "external validation"),
             )
@@ -187,6 +190,12 @@ def run_study(
             {m: compare_models(external, m, baseline) for m in unfitted if m != baseline} if external else {}
         )
 
+    if v.method == "none":
+        # apparent performance only: recorded as such, not as a bootstrap with no replicates
+        note = ("No internal validation (method 'none'): every value is the apparent performance of the "
+                "fits on all patients, which is optimistic.")
+        validation = replace(validation, method="none", notes=(*validation.notes, note))
+        comparisons = {k: replace(c, method="none") for k, c in comparisons.items()}
     seen, messages = set(), []
     for w in caught:
         key = (w.category.__name__, str(w.message))

@@ -28,6 +28,7 @@ import io
 import math
 import re
 import warnings
+from contextvars import ContextVar
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,6 +40,7 @@ from markupsafe import Markup
 from workbench.cohort.summary import CAUTION, feature_family
 from workbench.errors import WorkbenchError, WorkbenchWarning
 from workbench.metrics.decision import DecisionCurveResult
+from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.checklist import FILLED, reporting_checklist
 from workbench.report.methods import (
@@ -111,8 +113,12 @@ def fmt_p(p) -> str:
     return "<0.001" if p < 0.001 else f"{p:.3f}"
 
 
+# Labels of the run being rendered (a model equal to another says so); set by render_report only.
+_RUN_LABELS: ContextVar[dict | None] = ContextVar("run_labels", default=None)
+
+
 def _label(name: str) -> str:
-    return MODEL_LABELS.get(name, name)
+    return (_RUN_LABELS.get() or {}).get(name) or MODEL_LABELS.get(name, name)
 
 
 def metric_label(name: str, unit: str) -> str:
@@ -350,6 +356,9 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "model_names": [_label(k) for k in perf], "perf_rows": _perf_rows(perf, names, unit),
         "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
         "models": models, "comps": comps, "ext": ext, "ids": ids,
+        "equal": {MODEL_LABELS.get(k, k): MODEL_LABELS.get(v, v) for k, v in equal_models(result.models).items()},
+        "equal_note": EQUAL_NOTE,
+        "apparent_only": d["validation"]["method"] == "none",
         "limitations": limitations(result, d),
         "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
         "study_text": _short_paths(result.study_text, spec),
@@ -387,10 +396,14 @@ def render_report(result, *, include_ids: bool = False, figures: bool = True) ->
     figures : bool
         Draw the figures (turn off for a quick text-only look).
     """
-    ctx = report_context(result, include_ids=include_ids, figures=figures)
-    env = _environment()
-    ctx["css"] = Markup(env.get_template("report.css.j2").render(caution=CAUTION, title=ctx["title"]))
-    return env.get_template("report.html.j2").render(**ctx)
+    token = _RUN_LABELS.set(model_labels(result.models))
+    try:
+        ctx = report_context(result, include_ids=include_ids, figures=figures)
+        env = _environment()
+        ctx["css"] = Markup(env.get_template("report.css.j2").render(caution=CAUTION, title=ctx["title"]))
+        return env.get_template("report.html.j2").render(**ctx)
+    finally:
+        _RUN_LABELS.reset(token)
 
 
 def write_report(result, out_dir, *, pdf: bool = True, include_ids: bool = False) -> ReportFiles:

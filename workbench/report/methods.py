@@ -125,6 +125,9 @@ def validation_text(result, data: dict | None = None) -> str:
              "ComBat harmonisation; the feature filters; the choice of the penalty by inner "
              f"{folds}-fold cross-validation with folds split by original patient identifier (so copies "
              "of one patient never sit on both sides of a fold); and the model fits.")
+    if v["method"] == "none":
+        return ("No internal validation was run (method 'none'); every value shown is the apparent performance "
+                "of the models fitted and evaluated on the same patients, which is optimistic.")
     if v["method"] == "bootstrap":
         if all(r == 0 for r in reps.values()):
             return "No resampling was run; only apparent performance is reported, which is optimistic."
@@ -221,10 +224,13 @@ def methods_paragraph(result, data: dict | None = None) -> str:
                  f"{_steps_text(sig['steps'])}.{pen_txt} The {len(sig['selected'])} kept features "
                  "formed a signature score (their standardised values weighted by the penalised coefficients), "
                  "which entered a Cox model beside the clinical terms.")
-        if "volume_correlation" in combined:
-            vc = combined["volume_correlation"]
+        vc = combined.get("volume_correlation")
+        if vc:
             text += (f" The signature's correlation with {vc['feature']} was Pearson {vc['pearson']:.2f}, "
                      f"Spearman {vc['spearman']:.2f}.")
+        if not sig["selected"]:
+            text += (" The signature kept no feature, so the combined model had no signature term and was "
+                     "equal to the clinical model.")
     paras.append(text)
     models = []
     for m in d["models"].values():

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from workbench.cohort.summary import CAUTION, format_summary
-from workbench.models.registry import MODEL_LABELS
+from workbench.models.labels import equal_models, model_labels
 
 FORMAT = "workbench-results/1"
 
@@ -68,7 +68,8 @@ def _model_block(result, name: str) -> dict:
     m = result.models[name]
     desc = m.describe()
     block = {
-        "label": MODEL_LABELS.get(name, name),
+        "label": model_labels(result.models)[name],
+        "equal_to": equal_models(result.models).get(name),
         "kind": desc.kind,
         "n_train": desc.n_train,
         "n_events": desc.n_events,
@@ -109,8 +110,9 @@ def _model_block(result, name: str) -> dict:
                 "extensions": int(sig.path_.n_extensions),
             },
         }
-    if name in result.volume:
-        block["volume_correlation"] = jsonable(result.volume[name])
+    if sig is not None or name in result.volume:
+        # null: not applicable (no volume feature named, or a signature that kept no feature)
+        block["volume_correlation"] = jsonable(result.volume.get(name))
     if name in result.validation.selection:
         sel = result.validation.selection[name]
         block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency)}
@@ -214,7 +216,10 @@ def write_results(result, out_dir) -> Path:
     return path
 
 
-def fmt_estimate(e, digits: int = 3) -> str:
+def fmt_estimate(e, digits: int = 3, *, apparent_only: bool = False) -> str:
+    """A validated estimate with its interval; with ``apparent_only`` the apparent value, marked so."""
+    if apparent_only and e is not None and np.isfinite(getattr(e, "apparent", np.nan)):
+        return f"{e.apparent:.{digits}f} (apparent)"
     if e is None or not np.isfinite(e.estimate):
         return "n/a"
     ci = ""
@@ -236,35 +241,38 @@ def format_results(result) -> str:
     """A short plain-text digest of a run for the terminal."""
     v = result.validation
     u = result.spec.data.time_unit
+    labels = model_labels(result.models)
     horizons = [f"{h:g}" for h in result.spec.horizons]
     method = {"bootstrap": "optimism-corrected (bootstrap)", "cv": "cross-validated",
-              "by_centre": "leave-one-centre-out"}.get(v.method, v.method)
+              "by_centre": "leave-one-centre-out",
+              "none": "not validated: apparent performance only, optimistic"}.get(v.method, v.method)
+    app = v.method == "none"
     lines = [
         f"Study: {result.spec.name}",
         f"{result.prepared.cohort.n} patients, {result.prepared.cohort.n_events} events; "
-        f"validation {method}, {_replicate_text(v.n_replicates)}",
+        f"validation {method}" + ("" if app else f", {_replicate_text(v.n_replicates)}"),
         "",
         f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",
     ]
     for name in result.models:
         est = v.estimates[name]
         lines.append(
-            f"{MODEL_LABELS.get(name, name):<40s}{fmt_estimate(est.get('harrell_c')):>24s}"
-            f"{fmt_estimate(est.get('uno_c')):>24s}{fmt_estimate(est.get('ibs')):>24s}"
+            f"{labels[name]:<40s}{fmt_estimate(est.get('harrell_c'), apparent_only=app):>24s}"
+            f"{fmt_estimate(est.get('uno_c'), apparent_only=app):>24s}{fmt_estimate(est.get('ibs'), apparent_only=app):>24s}"
         )
     lines.append("")
     lines.append(f"AUC and calibration (ICI) at {', '.join(horizons)} {u}:")
     for name in result.models:
         est = v.estimates[name]
-        aucs = "  ".join(fmt_estimate(est.get(f"auc@{h}"), 2) for h in horizons)
-        icis = "  ".join(fmt_estimate(est.get(f"ici@{h}"), 3).split(" ")[0] for h in horizons)
+        aucs = "  ".join(fmt_estimate(est.get(f"auc@{h}"), 2, apparent_only=app) for h in horizons)
+        icis = "  ".join(fmt_estimate(est.get(f"ici@{h}"), 3, apparent_only=app).split(" ")[0] for h in horizons)
         lines.append(f"  {name:<16s} AUC {aucs}   ICI {icis}")
     for name, comp in result.comparisons.items():
         d = comp.differences.get("harrell_c")
         lr = comp.lr_test
         lines.append("")
-        lines.append(f"{MODEL_LABELS.get(name, name)} vs {MODEL_LABELS.get(comp.baseline, comp.baseline)}:")
-        lines.append(f"  difference in Harrell C {fmt_estimate(d)}")
+        lines.append(f"{labels.get(name, name)} vs {labels.get(comp.baseline, comp.baseline)}:")
+        lines.append(f"  difference in Harrell C {fmt_estimate(d, apparent_only=app)}")
         if lr.nested and np.isfinite(lr.statistic):
             lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
                          "(apparent: the signature was built on the same patients)")
