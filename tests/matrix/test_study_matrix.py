@@ -18,6 +18,7 @@ StrictUndefined, so a template that reads a key absent for some study fails here
 
 from __future__ import annotations
 
+import fnmatch
 import json
 
 import numpy as np
@@ -62,8 +63,15 @@ def _doc(name, settings, **over) -> dict:
     return doc
 
 
-def _run_case(tmp_path, feats, clin, doc, *, external=None):
-    """Write the tables and the study, run the CLI faces, and check what they wrote."""
+def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypatch=None):
+    """Write the tables and the study, run it, and check what every face wrote.
+
+    With ``cli`` the run goes through ``workbench run`` with every output (figure files
+    in three formats, the HTML report). Otherwise the same steps are called in-process
+    and the figures are drawn but not encoded (encoding is most of the time and is
+    covered by the ``cli`` case): the report's figure encoder is replaced by a stub
+    that closes the figure, and the figure set is drawn without saving.
+    """
     if feats is not None:
         feats.to_csv(tmp_path / "features.csv", index=False)
     else:
@@ -76,13 +84,35 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None):
     study = tmp_path / "study.toml"
     study.write_text(tomli_w.dumps(doc))
     out = tmp_path / "results"
-    assert main(["run", str(study), "--out", str(out), "--quiet", "--no-pdf"]) == 0
+    if cli:
+        assert main(["run", str(study), "--out", str(out), "--quiet", "--no-pdf"]) == 0
+        html = (out / "report.html").read_text()
+        assert any((out / "figures").glob("*.png")), "no figure written"
+    else:
+        import matplotlib.pyplot as plt
+
+        from workbench.report import html as report_html
+        from workbench.report.bundle import save_bundle, summarise_training
+        from workbench.report.figureset import study_figures
+        from workbench.report.results import format_results, write_results
+        from workbench.study import read_study
+        from workbench.workflow import run_study
+
+        result = run_study(read_study(study))
+        write_results(result, out)
+        assert "Research use only" in format_results(result)
+        figs = study_figures(result)
+        assert figs, "no figure drawn"
+        for f in figs.values():
+            plt.close(f)
+        monkeypatch.setattr(report_html, "_embed", lambda fig: plt.close(fig) or "data:,")
+        html = report_html.render_report(result)
+        training = summarise_training(result.cohort, result.models, result.spec.horizons)
+        save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
     data = json.loads((out / "results.json").read_text())
     assert set(data["models"]) == set(doc["models"]["fit"])
-    html = (out / "report.html").read_text()
     assert "Research use only" in html
-    assert "UndefinedError" not in html
-    assert any((out / "figures").glob("*.png")), "no figure written"
+    assert "could not be drawn" not in html, "a report figure failed"
     assert (out / "bundle").is_dir()
 
     # apply the bundle to the same tables (only the pipeline is checked, not the numbers)
@@ -95,10 +125,14 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None):
     assert len(pred) > 0
 
     # one patient through every model of the bundle
-    row = clin.iloc[[0]].drop(columns=[doc["data"]["time"], doc["data"]["event"]])
+    # the fields a model of the study can use: its predictors, the imaging pool, the batch
+    keep = [p["column"] for p in doc["predictor"]] + [c for c in (doc["data"].get("batch"),) if c]
+    row = clin.iloc[[0]]
     if feats is not None:
         row = row.merge(feats.iloc[[0]], on="patient_id")
-    row = row.dropna(axis=1)
+        excl = doc.get("imaging", {}).get("exclude", [])
+        keep += [c for c in feats.columns[1:] if not any(fnmatch.fnmatch(c, x) for x in excl)]
+    row = row[[c for c in dict.fromkeys(keep) if c in row]].dropna(axis=1)
     row.to_csv(tmp_path / "patient.csv", index=False)
     for model in doc["models"]["fit"]:
         assert main(["estimate", str(out / "bundle"), "--model", model, "--patient", str(tmp_path / "patient.csv")]) == 0
@@ -126,14 +160,23 @@ def rossi(public_tables):
 # ------------------------------------------------------------------ cases
 
 
-def test_no_volume_no_batch_no_centre_bootstrap(tmp_path, gbsg2):
+def test_no_volume_no_batch_no_centre_bootstrap(tmp_path, monkeypatch, gbsg2):
     feats, clin, s = gbsg2
-    data, html = _run_case(tmp_path, feats, clin, _doc("gbsg2 plain", s))
+    data, html = _run_case(tmp_path, feats, clin, _doc("gbsg2 plain", s), cli=True)
     assert data["models"]["combined"]["volume_correlation"] is None
     assert "not applicable" in html
+    # one naming scheme: term (the study's predictor) and design_column(s), no tuple text in CSVs
+    clinical = data["models"]["clinical"]
+    assert {r["term"] for r in clinical["coefficients"]} == {p["column"] for p in s["predictors"]}
+    assert {r["design_column"] for r in clinical["coefficients"]} == set(clinical["baseline_survival"]["x_mean"])
+    assert {r["term"] for r in clinical["hazard_ratios"]} <= {p["column"] for p in s["predictors"]}
+    assert all(isinstance(r["design_columns"], list) for r in clinical["hazard_ratios"])
+    assert {r["design_column"] for r in clinical["proportional_hazards"]} >= {"GLOBAL", "age"}
+    csv_text = (tmp_path / "results" / "hazard_ratios_clinical.csv").read_text()
+    assert "('" not in csv_text and csv_text.startswith("term,")
 
 
-def test_volume_screen_cv_every_kind(tmp_path, gbsg2):
+def test_volume_screen_cv_every_kind(tmp_path, monkeypatch, gbsg2):
     feats, clin, s = gbsg2
     preds = [
         {"column": "age", "kind": "spline", "knots": 3, "label": "Age"},
@@ -143,11 +186,11 @@ def test_volume_screen_cv_every_kind(tmp_path, gbsg2):
     ]
     doc = _doc("gbsg2 cv", s, predictor=preds, imaging={"volume_feature": "tumour_volume_cc", "reduce": {"screen": True}},
                validation={"method": "cv", "folds": 3, "repeats": 1})
-    data, html = _run_case(tmp_path, feats, clin, doc)
+    data, html = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     assert data["models"]["combined"]["volume_correlation"]["feature"] == "tumour_volume_cc"
 
 
-def test_log_transform_and_missing_values(tmp_path, veterans):
+def test_log_transform_and_missing_values(tmp_path, monkeypatch, veterans):
     feats, clin, s = veterans
     feats, clin = feats.copy(), clin.copy()
     feats["karnofsky_raw"] = feats["karnofsky"]
@@ -162,11 +205,11 @@ def test_log_transform_and_missing_values(tmp_path, veterans):
         {"column": "celltype", "kind": "categorical", "reference": "squamous", "missing": "impute"},
     ]
     doc = _doc("veterans missing", s, predictor=preds, imaging={"exclude": ["*karnofsky*"]})
-    data, _ = _run_case(tmp_path, feats, clin, doc)
+    data, _ = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     assert data["cohort"]["n_incomplete_dropped"] == int(clin["age"].isna().sum())
 
 
-def test_centre_codes_by_centre_and_batch(tmp_path, gbsg2):
+def test_centre_codes_by_centre_and_batch(tmp_path, monkeypatch, gbsg2):
     feats, clin, s = gbsg2
     feats, clin = feats.copy(), clin.copy()
     # grade as the "centre" (codes 1, 2, 10 written as whole numbers), menopausal status as the "scanner"
@@ -175,18 +218,18 @@ def test_centre_codes_by_centre_and_batch(tmp_path, gbsg2):
     preds = [p for p in s["predictors"] if p["column"] != "tgrade"]
     doc = _doc("gbsg2 centres", s, predictor=preds, data={"centre": "centre", "batch": "scanner"},
                imaging={"harmonise": {"method": "combat"}}, validation={"method": "by_centre"})
-    data, html = _run_case(tmp_path, feats, clin, doc)
+    data, html = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     centres = data["cohort"]["summary"]["centres"]
     assert list(centres) == ["1", "2", "10"], centres
     assert "1.0" not in json.dumps(centres)
 
 
-def test_external_cohort_and_validation_none(tmp_path, public_tables):
+def test_external_cohort_and_validation_none(tmp_path, monkeypatch, public_tables):
     feats, clin, s = public_tables.load_public("gbsg2")
     dev = _cut(feats, clin, 200)
     ext = (feats.iloc[400:560].reset_index(drop=True), clin.iloc[400:560].reset_index(drop=True))
     doc = _doc("gbsg2 external", s, validation={"method": "none"})
-    data, html = _run_case(tmp_path, *dev, doc, external=ext)
+    data, html = _run_case(tmp_path, *dev, doc, external=ext, monkeypatch=monkeypatch)
     assert data["validation"]["method"] == "none"
     c = data["models"]["clinical"]["performance"]["harrell_c"]
     assert c["apparent"] is not None
@@ -194,29 +237,29 @@ def test_external_cohort_and_validation_none(tmp_path, public_tables):
     assert data["external"] is not None
 
 
-def test_clinical_only_study(tmp_path, rossi):
+def test_clinical_only_study(tmp_path, monkeypatch, rossi):
     _, clin, s = rossi
     doc = _doc("rossi clinical only", s, models={"fit": ["clinical"]})
     doc["imaging"] = {}
     doc.pop("imaging")
-    data, _ = _run_case(tmp_path, None, clin, doc)
+    data, _ = _run_case(tmp_path, None, clin, doc, monkeypatch=monkeypatch)
     assert list(data["models"]) == ["clinical"]
 
 
 @pytest.mark.parametrize("model", ["combined", "penalised_all", "forest"])
-def test_each_model_alone(tmp_path, rossi, model):
+def test_each_model_alone(tmp_path, monkeypatch, rossi, model):
     feats, clin, s = rossi
     doc = _doc(f"rossi {model}", s, models={"fit": [model], "baseline": model})
-    data, _ = _run_case(tmp_path, feats, clin, doc)
+    data, _ = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     assert list(data["models"]) == [model]
 
 
-def test_empty_signature(tmp_path, rossi):
+def test_empty_signature(tmp_path, monkeypatch, rossi):
     """Screening at a tiny false discovery rate keeps no feature: the combined model equals the clinical one."""
     feats, clin, s = rossi
     doc = _doc("rossi empty", s, imaging={"reduce": {"screen": True, "screen_fdr": 1e-9}},
                models={"fit": ["clinical", "combined", "penalised_all"]})
-    data, html = _run_case(tmp_path, feats, clin, doc)
+    data, html = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     comb = data["models"]["combined"]
     assert comb["signature"]["selected"] == []
     assert comb["equal_to"] == "clinical"

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from workbench.cohort.codes import code_text
 from workbench.cohort.core import TIME_UNITS, Cohort, CohortSource
 from workbench.cohort.outcome import make_outcome
 from workbench.cohort.schema import (
@@ -222,7 +223,7 @@ def read_cohort(
         if v.isna().any():
             bad = rows[v.isna().to_numpy()]
             raise CohortError(f"{src}, column {col!r}: missing values in {rows_text(bad)}; every patient needs one.")
-        return v.astype(str).str.strip().to_numpy()
+        return code_text(v)
 
     centre = pick(columns.centre)
     batch = pick(columns.batch)

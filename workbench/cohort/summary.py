@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from workbench.cohort.codes import code_order
 from workbench.cohort.core import Cohort
 from workbench.cohort.samplesize import SampleSizeResult, minimum_sample_size
 from workbench.errors import CohortError, LowEventsWarning
@@ -162,8 +163,8 @@ def summarise_cohort(
     def counts(labels):
         if labels is None:
             return {}
-        u, k = np.unique(labels, return_counts=True)
-        return {str(a): int(b) for a, b in zip(u, k, strict=True)}
+        labels = np.asarray(labels).astype(str)
+        return {c: int(np.sum(labels == c)) for c in code_order(labels)}
 
     src = cohort.source
     exclude = {x for x in (src.centre_column, src.batch_column) if x}

@@ -313,7 +313,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
     for k, m in d["models"].items():
         bs = m.get("baseline_survival")
         xm = bs["x_mean"] if bs else {}
-        coefs = [{**r, "x_mean": xm.get(r["column"])} for r in m["coefficients"]]
+        coefs = [{**r, "x_mean": xm.get(r["design_column"])} for r in m["coefficients"]]
         sig = None
         if "signature" in m:
             freq = m.get("selection_frequency", {}).get("frequency", {})
@@ -364,7 +364,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "study_text": _short_paths(result.study_text, spec),
         "figures": _figures(result, d) if figures else {k: [] for k in ("calibration", "decision", "external", "main")},
         "version": d["provenance"]["versions"].get("survival-workbench", ""),
-        "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["term"] == "GLOBAL"), None)
+        "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["design_column"] == "GLOBAL"), None)
                       for k, m in d["models"].items()},
     }
 

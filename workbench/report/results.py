@@ -16,8 +16,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from workbench.cohort.codes import code_order
 from workbench.cohort.summary import CAUTION, format_summary
 from workbench.models.labels import equal_models, model_labels
+from workbench.report.naming import coefficient_rows, hazard_ratio_frame, ph_frame
 
 FORMAT = "workbench-results/1"
 
@@ -74,10 +76,10 @@ def _model_block(result, name: str) -> dict:
         "n_train": desc.n_train,
         "n_events": desc.n_events,
         "details": jsonable(desc.details),
-        "coefficients": jsonable(desc.terms),
+        "coefficients": coefficient_rows(jsonable(desc.terms)),
     }
     if hasattr(m, "hazard_ratio_table"):
-        block["hazard_ratios"] = jsonable(m.hazard_ratio_table())
+        block["hazard_ratios"] = jsonable(hazard_ratio_frame(m.hazard_ratio_table()))
     if hasattr(m, "fit_") and hasattr(m.fit_, "baseline_times"):
         horizons = np.asarray(result.spec.horizons, float)
         from workbench.stats.coxph import baseline_survival_at
@@ -91,7 +93,7 @@ def _model_block(result, name: str) -> dict:
         }
     if name in result.ph_tests:
         ph = result.ph_tests[name]
-        block["proportional_hazards"] = jsonable(ph.to_frame().reset_index())
+        block["proportional_hazards"] = jsonable(ph_frame(ph.to_frame().reset_index()))
     sig = getattr(m, "signature_", None)
     if sig is not None:
         block["signature"] = {
@@ -165,7 +167,8 @@ def results_dict(result) -> dict:
             "n": ext.cohort.n,
             "n_events": ext.cohort.n_events,
             "n_incomplete_dropped": len(ext.incomplete_ids),
-            "batches": jsonable(dict(zip(*np.unique(ext.cohort.batch, return_counts=True), strict=True)))
+            "batches": {c: int(np.sum(np.asarray(ext.cohort.batch).astype(str) == c))
+                        for c in code_order(ext.cohort.batch)}
             if ext.cohort.batch is not None
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
@@ -201,7 +204,7 @@ def write_results(result, out_dir) -> Path:
         comparison_table(result.external_comparisons).to_csv(out / "external_comparison.csv", index=False)
     for name, m in result.models.items():
         if hasattr(m, "hazard_ratio_table"):
-            m.hazard_ratio_table().to_csv(out / f"hazard_ratios_{name}.csv", index=False)
+            hazard_ratio_frame(m.hazard_ratio_table(), for_csv=True).to_csv(out / f"hazard_ratios_{name}.csv", index=False)
         sel = result.validation.selection.get(name)
         if sel is not None:
             sel.to_frame().to_csv(out / f"selection_{name}.csv", index=False)
