@@ -17,7 +17,7 @@ from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 
 from workbench.cohort.summary import CohortSummary, summarise_cohort
-from workbench.errors import WorkbenchError
+from workbench.errors import SpecError, WorkbenchError
 from workbench.models.base import clone_model
 from workbench.models.labels import warn_empty_signatures
 from workbench.models.registry import build_models
@@ -82,6 +82,18 @@ class StudyResult:
     @property
     def cohort(self):
         return self.prepared.cohort
+
+
+def check_uno_tau(tau, cohort, horizons) -> None:
+    """Uno's C truncation time must lie inside follow-up (before the last observed time)."""
+    if tau is None:
+        return
+    last = float(cohort.time.max())
+    if not 0 < float(tau) < last:
+        raise SpecError(
+            f"[validation] uno_tau = {tau:g} {cohort.time_unit} lies outside the follow-up of the "
+            f"{cohort.n} patients (follow-up up to {last:g} {cohort.time_unit}); choose a time inside it, "
+            f"for example the last horizon ({max(horizons):g}), or leave uno_tau out.")
 
 
 def _progress(progress, cancel, stage: str):
@@ -151,6 +163,7 @@ def run_study(
                     volume[name] = volume_correlation(m.signature_score(cohort), cohort.features, spec.imaging.volume_feature)
                     check_volume_dominance(volume[name])
 
+        check_uno_tau(v.uno_tau, cohort, spec.horizons)
         model_reps = {"forest": v.forest_replicates} if "forest" in unfitted else None
         method = v.method if v.method != "none" else "bootstrap"
         reps = v.replicates if v.method != "none" else 0
@@ -169,6 +182,7 @@ def run_study(
             progress=_progress(progress, cancel, "internal validation"),
             model_replicates=model_reps,
             apparent_models=fitted,
+            tau=v.tau,
         )
 
         external = ext_prepared = None
@@ -181,6 +195,7 @@ def run_study(
                 spec.horizons,
                 replicates=v.replicates,  # intervals on the external patients even without internal validation
                 random_state=spec.seed,
+                tau=v.tau,
                 progress=_progress(progress, cancel, "external validation"),
             )
 

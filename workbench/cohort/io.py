@@ -158,6 +158,7 @@ def read_cohort(
     features_path, clinical_path : path-like
         The two tables. Every column of the features table other than the id,
         centre and batch columns is an imaging feature and must be numeric.
+        ``features_path`` None reads a clinical-only cohort (no imaging features).
     columns : ColumnMap
         Column roles and the time unit.
     on_unmatched : {"error", "intersect"}
@@ -177,9 +178,12 @@ def read_cohort(
     """
     if on_unmatched not in ("error", "intersect"):
         raise CohortError(f"on_unmatched must be 'error' or 'intersect', not {on_unmatched!r}.")
-    fpath, cpath = Path(features_path), Path(clinical_path)
-    feats = read_table(fpath)
+    # a clinical-only study has no features table: the join is the clinical table with itself
+    clinical_only = features_path is None
+    cpath = Path(clinical_path)
+    fpath = cpath if clinical_only else Path(features_path)
     clin = read_table(cpath)
+    feats = clin[[columns.id]].copy() if clinical_only and columns.id in clin else read_table(fpath)
 
     check_required_columns(clin, cpath, {"patient id": columns.id, "time": columns.time, "event": columns.event})
     check_required_columns(feats, fpath, {"patient id": columns.id})
@@ -230,9 +234,13 @@ def read_cohort(
 
     skip = {columns.id, "_row", columns.centre, columns.batch}
     feature_cols = [c for c in feats.columns if c not in skip]
-    if not feature_cols:
+    if clinical_only:
+        feature_cols = []
+    elif not feature_cols:
         raise CohortError(f"{fpath}: no imaging feature columns found besides the id/centre/batch columns.")
     X = parse_features(feats[feature_cols], fpath, feats["_row"].to_numpy(), drop_unusable_features)
+    if clinical_only:
+        X = pd.DataFrame(index=pd.RangeIndex(len(feats)))
 
     clin_cols = [c for c in clin.columns if c not in {"_row", columns.time, columns.event}]
     clinical = clin[clin_cols].reset_index(drop=True)
@@ -250,10 +258,10 @@ def read_cohort(
         )
 
     digest = hashlib.sha256()
-    for part in (file_digest(fpath), file_digest(cpath), repr(columns), on_unmatched, str(drop_unusable_features)):
+    for part in ("" if clinical_only else file_digest(fpath), file_digest(cpath), repr(columns), on_unmatched, str(drop_unusable_features)):
         digest.update(part.encode())
     source = CohortSource(
-        feature_file=str(fpath),
+        feature_file="" if clinical_only else str(fpath),
         clinical_file=str(cpath),
         id_column=columns.id,
         time_column=columns.time,

@@ -140,7 +140,7 @@ def _short_paths(text: str, spec) -> str:
     paths = [spec.data.features, spec.data.clinical]
     if spec.external is not None:
         paths += [spec.external.features, spec.external.clinical]
-    for p in paths:
+    for p in (p for p in paths if p):
         text = text.replace(f'"{p}"', f'"{Path(p).name}"')
     return text
 

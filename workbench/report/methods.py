@@ -202,7 +202,8 @@ def methods_paragraph(result, data: dict | None = None) -> str:
     )
     im = spec.imaging
     fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
-    text = f"The imaging pool held {c['n_imaging_pool']} features ({fam})."
+    text = (f"The imaging pool held {c['n_imaging_pool']} features ({fam})." if c["n_imaging_pool"]
+            else "The study used clinical predictors only (no imaging table).")
     combined = d["models"].get("combined")
     if combined and "signature" in combined:
         sig = combined["signature"]
@@ -246,7 +247,7 @@ def methods_paragraph(result, data: dict | None = None) -> str:
                           f"{det.get('max_features')} features per split)")
     paras.append(
         f"Models fitted: {'; '.join(models)}. {validation_text(result, d)} Discrimination was measured by "
-        f"Harrell's and Uno's C (truncated at {spec.horizons[-1]:g} {u}) and the cumulative/dynamic AUC at each "
+        f"Harrell's and Uno's C (truncated at {spec.validation.tau or spec.horizons[-1]:g} {u}) and the cumulative/dynamic AUC at each "
         "horizon; overall accuracy by the Brier score, its integral and the index of prediction accuracy; "
         "calibration by smoothed calibration curves (ICI, E50, E90; Austin et al. 2020), the calibration slope "
         f"and the observed/expected ratio. Each model was compared with the {_label(d['baseline'])} model "
@@ -281,9 +282,10 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         ss = s["sample_size"]
         out.append(f"The cohort ({ss['n_available']} patients) is smaller than the {ss['n_required']} the Riley "
                    "criteria ask for: expect overfitting and read the optimism-corrected numbers.")
-    out.append(f"With {s['events_per_feature']:.2f} events per imaging feature the signature had to be "
-               "selected by penalisation; which features are kept varies between resamples (see the selection "
-               "frequencies).")
+    if s["events_per_feature"] is not None and any("signature" in m for m in d["models"].values()):
+        out.append(f"With {s['events_per_feature']:.2f} events per imaging feature the signature had to be "
+                   "selected by penalisation; which features are kept varies between resamples (see the selection "
+                   "frequencies).")
     for w in d["warnings"]:
         if w["category"] == "VolumeDominanceWarning":
             out.append("Volume dominance: " + w["message"])

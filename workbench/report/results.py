@@ -212,11 +212,25 @@ def write_results(result, out_dir) -> Path:
 
     # paths relative to the results folder, so the copy runs from there and names no machine path
     (out / "study.toml").write_text(dumps_study(result.spec, base=out))
-    log = [format_summary(result.summary), "", "Warnings during the run:"]
+    log = [format_summary(result.summary), "", "Settings taken by default:"]
+    log += run_notes(result.spec) or ["  none"]
+    log += ["", "Warnings during the run:"]
     log += [f"  {c}: {m}" for c, m in result.warnings] or ["  none"]
     log += ["", f"Provenance: {json.dumps(data['provenance'])}"]
     (out / "run.log").write_text("\n".join(log) + "\n")
     return path
+
+
+def run_notes(spec) -> list[str]:
+    """Lines for the run log about settings the study left to a default that depends on the data."""
+    notes = []
+    if not spec.data.batch and spec.imaging.harmonise.method == "none":
+        notes.append("  harmonisation: none, because the study names no batch column ([data] batch); "
+                     "name one and set [imaging.harmonise] method = 'combat' to harmonise by scanner.")
+    if spec.validation.uno_tau is None:
+        notes.append(f"  Uno's C truncated at the last horizon ({spec.horizons[-1]:g} {spec.data.time_unit}); "
+                     "set [validation] uno_tau to choose another time.")
+    return notes
 
 
 def fmt_estimate(e, digits: int = 3, *, apparent_only: bool = False) -> str:
