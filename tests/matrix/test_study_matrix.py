@@ -172,6 +172,8 @@ def test_no_volume_no_batch_no_centre_bootstrap(tmp_path, monkeypatch, gbsg2):
     assert {r["term"] for r in clinical["hazard_ratios"]} <= {p["column"] for p in s["predictors"]}
     assert all(isinstance(r["design_columns"], list) for r in clinical["hazard_ratios"])
     assert {r["design_column"] for r in clinical["proportional_hazards"]} >= {"GLOBAL", "age"}
+    log = (tmp_path / "results" / "run.log").read_text()
+    assert "harmonisation: none, because the study names no batch column" in log
     csv_text = (tmp_path / "results" / "hazard_ratios_clinical.csv").read_text()
     assert "('" not in csv_text and csv_text.startswith("term,")
 
@@ -185,9 +187,10 @@ def test_volume_screen_cv_every_kind(tmp_path, monkeypatch, gbsg2):
         {"column": "tgrade", "kind": "ordinal", "levels": ["I", "II", "III"]},
     ]
     doc = _doc("gbsg2 cv", s, predictor=preds, imaging={"volume_feature": "tumour_volume_cc", "reduce": {"screen": True}},
-               validation={"method": "cv", "folds": 3, "repeats": 1})
+               validation={"method": "cv", "folds": 3, "repeats": 1, "uno_tau": 1000})
     data, html = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     assert data["models"]["combined"]["volume_correlation"]["feature"] == "tumour_volume_cc"
+    assert "truncated at 1000 days" in html
 
 
 def test_log_transform_and_missing_values(tmp_path, monkeypatch, veterans):
