@@ -269,3 +269,5 @@ def test_empty_signature(tmp_path, monkeypatch, rossi):
     assert comb["volume_correlation"] is None
     assert any(w["category"] == "EmptySignatureWarning" for w in data["warnings"])
     assert "equal to the clinical model" in html
+    assert "the two models are the same model" in html
+    assert data["models"]["combined"]["label"].endswith("(equal to the clinical model)")

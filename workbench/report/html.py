@@ -328,7 +328,8 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         diffs = [{"label": metric_label(n, unit), **c["differences"][n]}
                  for n in _metric_order(c["differences"], horizons) + [f"{x}@{h:g}" for h in horizons for x in ("ici",)]
                  if n in c["differences"]]
-        comps.append({**c, "label": _label(k), "base_label": _label(c["baseline"]), "diffs": diffs})
+        comps.append({**c, "label": _label(k), "base_label": _label(c["baseline"]), "diffs": diffs,
+                      "equal": k in equal_models(result.models)})
     ext = None
     if d["external"] is not None:
         e = d["external"]

@@ -259,6 +259,7 @@ def format_results(result) -> str:
     v = result.validation
     u = result.spec.data.time_unit
     labels = model_labels(result.models)
+    same = equal_models(result.models)
     horizons = [f"{h:g}" for h in result.spec.horizons]
     method = {"bootstrap": "optimism-corrected (bootstrap)", "cv": "cross-validated",
               "by_centre": "leave-one-centre-out",
@@ -290,7 +291,10 @@ def format_results(result) -> str:
         lines.append("")
         lines.append(f"{labels.get(name, name)} vs {labels.get(comp.baseline, comp.baseline)}:")
         lines.append(f"  difference in Harrell C {fmt_estimate(d, apparent_only=app)}")
-        if lr.nested and np.isfinite(lr.statistic):
+        if name in same:
+            lines.append("  the signature kept no feature: this model is the clinical model, so the comparison "
+                         "says nothing about imaging")
+        elif lr.nested and np.isfinite(lr.statistic) and lr.df > 0:
             lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
                          "(apparent: the signature was built on the same patients)")
     if result.external is not None:
