@@ -1,9 +1,10 @@
 """Studies not shaped like the demo, through the app under AppTest.
 
 Public datasets split into a features and a clinical table by examples/public_tables.py
-(Rossi recidivism data from lifelines; German Breast Cancer Study Group 2 from
-scikit-survival): a clinical-only study, a study whose signature keeps no feature with
-method "none", and a study without volume feature, batch or centre. Each is run on the
+(Rossi recidivism data from lifelines; German Breast Cancer Study Group 2 and the
+Veterans' Administration lung cancer trial from scikit-survival): a clinical-only study, a
+study whose signature keeps no feature with method "none", a study without volume feature,
+batch or centre, and cross-validation on a small cohort. Each is run on the
 Results page and every later view is opened; none may show an exception or a traceback.
 """
 
@@ -17,7 +18,7 @@ from conftest import APP_MAIN, REPO, assert_clean, page_texts
 from workbench.app import state
 from workbench.study import study_from_dict
 
-pytestmark = pytest.mark.slow  # three small study runs in the app: about a minute
+pytestmark = pytest.mark.slow  # four small study runs in the app: about a minute
 
 
 def _tables(name: str, tmp_path, n: int = 200):
@@ -47,6 +48,8 @@ CASES = {
         p, "rossi", imaging={"reduce": {"screen": True, "screen_fdr": 1e-9}},
         validation={"method": "none", "backend": "serial"}),
     "no_volume_batch_centre": lambda p: _spec(p, "gbsg2"),
+    "cross_validation_small_cohort": lambda p: _spec(
+        p, "veterans", validation={"method": "cv", "folds": 3, "repeats": 1, "backend": "serial"}),
 }
 
 
