@@ -209,7 +209,8 @@ def run_study(
         # apparent performance only: recorded as such, not as a bootstrap with no replicates
         note = ("No internal validation (method 'none'): every value is the apparent performance of the "
                 "fits on all patients, which is optimistic.")
-        validation = replace(validation, method="none", notes=(*validation.notes, note))
+        kept = tuple(n for n in validation.notes if not n.startswith("no bootstrap replicates were run"))
+        validation = replace(validation, method="none", notes=(*kept, note))
         comparisons = {k: replace(c, method="none") for k, c in comparisons.items()}
     seen, messages = set(), []
     for w in caught:

@@ -236,7 +236,9 @@ def test_external_cohort_and_validation_none(tmp_path, monkeypatch, public_table
     assert data["validation"]["method"] == "none"
     c = data["models"]["clinical"]["performance"]["harrell_c"]
     assert c["apparent"] is not None
-    assert "apparent" in html.lower()
+    assert "Apparent performance only" in html and "apparent, not validated" in html
+    assert "no bootstrap replicates were run" not in html and "0 replicates" not in html
+    assert data["validation"]["notes"][-1].startswith("No internal validation (method 'none')")
     assert data["external"] is not None
 
 

@@ -201,7 +201,10 @@ def _auc_fig(models, train, cohort, horizons, unit, title):
 
 
 def _decision_fig(d: dict, unit: str, j: int):
-    """Validated decision curves of every model at the j-th horizon, from the comparison blocks."""
+    """Validated decision curves of every model at the j-th horizon, from the comparison blocks.
+
+    Apparent curves when the study ran no internal validation (method "none")."""
+    arm = "apparent" if d["validation"]["method"] == "none" else "validated"
     from workbench.figures import plot_decision_curve
 
     comps = list(d["comparison"].values())
@@ -214,9 +217,9 @@ def _decision_fig(d: dict, unit: str, j: int):
         return DecisionCurveResult(h, pt, v, np.asarray(first["treat_all"], float), np.zeros_like(pt),
                                    np.full_like(pt, np.nan), 1.0 - surv.get(h, np.nan), name)
 
-    res = {_label(comps[0]["baseline"]): curve(first["baseline_validated"], comps[0]["baseline"])}
+    res = {_label(comps[0]["baseline"]): curve(first[f"baseline_{arm}"], comps[0]["baseline"])}
     for c in comps:
-        res[_label(c["model"])] = curve(c["decision_curves"][j]["model_validated"], c["model"])
+        res[_label(c["model"])] = curve(c["decision_curves"][j][f"model_{arm}"], c["model"])
     return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}")
 
 
@@ -241,9 +244,12 @@ def _figures(result, d: dict) -> dict:
             "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
             lambda: _calibration_fig(models, train, horizons, unit))
     for j, h in enumerate(horizons if d["comparison"] else ()):
-        _figure(out["decision"], f"decision-{j}", f"Decision curves at {h:g} {unit} (optimism-corrected)",
-                "Net benefit against the threshold risk, corrected for optimism like the other metrics, with "
-                "treat-all and treat-none.", lambda j=j: _decision_fig(d, unit, j), half=True)
+        app = d["validation"]["method"] == "none"
+        _figure(out["decision"], f"decision-{j}",
+                f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else 'optimism-corrected'})",
+                "Net benefit against the threshold risk, " + ("measured on the development patients (optimistic)"
+                if app else "corrected for optimism like the other metrics") + ", with treat-all and treat-none.",
+                lambda j=j: _decision_fig(d, unit, j), half=True)
     if result.external is not None:
         ext = result.external_prepared.cohort
         eh = _eval_horizons(horizons, ext)

@@ -263,7 +263,7 @@ def format_results(result) -> str:
     horizons = [f"{h:g}" for h in result.spec.horizons]
     method = {"bootstrap": "optimism-corrected (bootstrap)", "cv": "cross-validated",
               "by_centre": "leave-one-centre-out",
-              "none": "not validated: apparent performance only, optimistic"}.get(v.method, v.method)
+              "none": "none (apparent performance only, optimistic)"}.get(v.method, v.method)
     app = v.method == "none"
     lines = [
         f"Study: {result.spec.name}",
