@@ -78,9 +78,11 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         doc["data"].pop("features", None)
     clin.to_csv(tmp_path / "clinical.csv", index=False)
     if external is not None:
-        external[0].to_csv(tmp_path / "ext_features.csv", index=False)
         external[1].to_csv(tmp_path / "ext_clinical.csv", index=False)
-        doc["external"] = {"features": "ext_features.csv", "clinical": "ext_clinical.csv"}
+        doc["external"] = {"clinical": "ext_clinical.csv"}
+        if external[0] is not None:
+            external[0].to_csv(tmp_path / "ext_features.csv", index=False)
+            doc["external"]["features"] = "ext_features.csv"
     study = tmp_path / "study.toml"
     study.write_text(tomli_w.dumps(doc))
     out = tmp_path / "results"
@@ -110,7 +112,7 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         training = summarise_training(result.cohort, result.models, result.spec.horizons)
         save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
     data = json.loads((out / "results.json").read_text())
-    assert set(data["models"]) == set(doc["models"]["fit"])
+    assert set(data["models"]) == set(doc.get("models", {}).get("fit", ["clinical"]))
     assert "Research use only" in html
     assert "could not be drawn" not in html, "a report figure failed"
     assert (out / "bundle").is_dir()
@@ -134,7 +136,7 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         keep += [c for c in feats.columns[1:] if not any(fnmatch.fnmatch(c, x) for x in excl)]
     row = row[[c for c in dict.fromkeys(keep) if c in row]].dropna(axis=1)
     row.to_csv(tmp_path / "patient.csv", index=False)
-    for model in doc["models"]["fit"]:
+    for model in data["models"]:
         assert main(["estimate", str(out / "bundle"), "--model", model, "--patient", str(tmp_path / "patient.csv")]) == 0
     return data, html
 
@@ -242,13 +244,17 @@ def test_external_cohort_and_validation_none(tmp_path, monkeypatch, public_table
     assert data["external"] is not None
 
 
-def test_clinical_only_study(tmp_path, monkeypatch, rossi):
-    _, clin, s = rossi
-    doc = _doc("rossi clinical only", s, models={"fit": ["clinical"]})
-    doc["imaging"] = {}
+def test_clinical_only_study_with_external_cohort(tmp_path, monkeypatch, public_tables):
+    _, clin, s = public_tables.load_public("rossi")
+    doc = _doc("rossi clinical only", s)
     doc.pop("imaging")
-    data, _ = _run_case(tmp_path, None, clin, doc, monkeypatch=monkeypatch)
+    doc.pop("models")  # a clinical-only study fits the clinical model by default
+    ext = (None, clin.iloc[250:].reset_index(drop=True))
+    data, html = _run_case(tmp_path, None, clin.iloc[:250].reset_index(drop=True), doc, external=ext,
+                           monkeypatch=monkeypatch)
     assert list(data["models"]) == ["clinical"]
+    assert data["external"]["n"] == len(clin) - 250
+    assert "a clinical-only study" in html
 
 
 @pytest.mark.parametrize("model", ["combined", "penalised_all", "forest"])
