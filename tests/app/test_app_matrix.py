@@ -65,6 +65,9 @@ def test_study_runs_and_every_view_opens(case, tmp_path):
     at.button(key="results_run").click().run()
     assert_clean(at)
     assert any("Finished in" in s.value for s in at.success), page_texts(at)[:20]
+    if case == "empty_signature_apparent_only":
+        done = next(s.value for s in at.success if "Finished in" in s.value)
+        assert "apparent performance only" in done and "0 replicates" not in done
     for view in ("signature", "nomogram", "patient", "export"):
         at.switch_page(f"views/{view}.py").run()
         assert_clean(at)

@@ -162,6 +162,7 @@ def rossi(public_tables):
 # ------------------------------------------------------------------ cases
 
 
+@pytest.mark.slow  # the one case through `workbench run` with every figure file: about 45 s
 def test_no_volume_no_batch_no_centre_bootstrap(tmp_path, monkeypatch, gbsg2):
     feats, clin, s = gbsg2
     data, html = _run_case(tmp_path, feats, clin, _doc("gbsg2 plain", s), cli=True)
