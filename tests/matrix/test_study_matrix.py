@@ -205,6 +205,7 @@ def test_log_transform_and_missing_values(tmp_path, monkeypatch, veterans):
     # blank every 11th shipped value of two predictors: one imputed, one complete-case
     clin.loc[::11, "karnofsky_raw"] = np.nan
     clin.loc[5::13, "age"] = np.nan
+    feats.loc[3::17, "months_from_diagnosis"] = np.nan  # imaging values: training medians inside each fit
     preds = [
         {"column": "age", "kind": "linear", "missing": "complete_case"},
         {"column": "karnofsky_raw", "kind": "linear", "transform": "log2", "missing": "impute"},
@@ -213,6 +214,8 @@ def test_log_transform_and_missing_values(tmp_path, monkeypatch, veterans):
     doc = _doc("veterans missing", s, predictor=preds, imaging={"exclude": ["*karnofsky*"]})
     data, _ = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     assert data["cohort"]["n_incomplete_dropped"] == int(clin["age"].isna().sum())
+    assert any(w["category"] == "DataQualityWarning" and "missing imaging values" in w["message"]
+               for w in data["warnings"])
 
 
 def test_centre_codes_by_centre_and_batch(tmp_path, monkeypatch, gbsg2):
