@@ -333,7 +333,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("apply", help="apply a saved model bundle to a new cohort and validate it there")
     p.add_argument("bundle", metavar="BUNDLE", help="bundle folder or .zip written by 'workbench run'")
-    p.add_argument("--features", required=True, metavar="FILE", help="the new cohort's imaging features table")
+    p.add_argument("--features", metavar="FILE",
+                   help="the new cohort's imaging features table (leave out for a clinical-only bundle)")
     p.add_argument("--clinical", required=True, metavar="FILE", help="the new cohort's clinical table")
     p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
     p.add_argument("--replicates", type=_count(0), default=None, metavar="N",

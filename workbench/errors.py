@@ -84,3 +84,5 @@ class InputFormatWarning(DataQualityWarning):
 
 class UnitWarning(DataQualityWarning):
     """Follow-up times or measured values look as if they were in another unit than declared or trained on."""
+class EmptySignatureWarning(WorkbenchWarning):
+    """The imaging signature kept no feature: the combined model equals the clinical model."""

@@ -48,6 +48,9 @@ def read_new_cohort(bundle: Bundle, features, clinical) -> PreparedCohort:
     """Read a new cohort with the bundle's column mapping, imaging pool and missing-value rules."""
     spec = bundle.spec
     d = spec.data
+    if features is None and bundle.manifest["inputs"]["imaging_features"]:
+        raise WorkbenchError("the bundle's models need imaging features; give the new cohort's features table "
+                             "(--features FILE).")
     cohort = read_cohort(features, clinical, d.column_map(), on_unmatched=d.on_unmatched,
                          drop_unusable_features=False)
     n_read = cohort.n

@@ -49,6 +49,8 @@ def _matches(name: str, patterns) -> bool:
 def select_pool(cohort: Cohort, include=("*",), exclude=()) -> tuple[Cohort, tuple[str, ...]]:
     """Keep the imaging features whose names match ``include`` and not ``exclude``."""
     names = cohort.feature_names
+    if not names:  # a clinical-only study: no pool to select from
+        return cohort, ()
     keep = [c for c in names if _matches(c, include) and not _matches(c, exclude)]
     if not keep:
         raise SpecError(

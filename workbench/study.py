@@ -36,10 +36,10 @@ BACKENDS = ("processes", "threads", "serial", "dask")
 
 @dataclass(frozen=True)
 class DataSpec:
-    """The two input tables and what their columns mean."""
+    """The input tables and what their columns mean (``features`` None: a clinical-only study)."""
 
-    features: str
-    clinical: str
+    features: str | None = None
+    clinical: str = ""
     id: str = "patient_id"
     time: str = "time"
     event: str = "event"
@@ -75,8 +75,8 @@ class DataSpec:
 class ExternalSpec:
     """An external validation cohort with the same columns as the training data."""
 
-    features: str
-    clinical: str
+    features: str | None = None
+    clinical: str = ""
     features_sheet: str | None = None
     clinical_sheet: str | None = None
 
@@ -170,6 +170,11 @@ class ValidationSpec:
     scheduler: str | None = None
     censoring: str = "auto"  # IPCW weights of external / held-out rows: auto, km, km_by_centre, cox
     pooling: str = "dl"  # random-effects pooling across centres/scanners: dl or reml
+    uno_tau: float | None = None  # Uno's C truncation time; None: the last horizon
+
+    @property
+    def tau(self) -> float | None:
+        return None if self.uno_tau is None else float(self.uno_tau)
 
 
 @dataclass(frozen=True)
@@ -202,6 +207,10 @@ def _choice(where: str, value, allowed) -> None:
 
 def check_spec(spec: StudySpec) -> None:
     d = spec.data
+    if not d.clinical:
+        raise SpecError("[data] needs 'clinical', the table with follow-up time and event.")
+    if d.features is None:
+        check_clinical_only(spec)
     _choice("[data] time_unit", d.time_unit, tuple(TIME_UNITS))
     _choice("[data] on_unmatched", d.on_unmatched, ("error", "intersect"))
     if not spec.predictors:
@@ -265,8 +274,28 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[added_value] permutations must be 0 (test not run) or more; got {av.permutations}.")
     if av.folds < 2:
         raise SpecError(f"[added_value] folds must be at least 2; got {av.folds}.")
+    if v.uno_tau is not None and (isinstance(v.uno_tau, bool) or not isinstance(v.uno_tau, (int, float)) or v.uno_tau <= 0):
+        raise SpecError(f"[validation] uno_tau must be a positive number of {d.time_unit} (Uno's C truncation time); "
+                        f"got {v.uno_tau!r}. Leave it out to truncate at the last horizon.")
     if spec.anticipated_r2 is not None and not 0 < spec.anticipated_r2 < 1:
         raise SpecError(f"[study] anticipated_r2 must lie in (0, 1); got {spec.anticipated_r2}.")
+
+
+def check_clinical_only(spec: StudySpec) -> None:
+    """A study without a features table can fit the clinical model only."""
+    imaging = [m for m in spec.models.fit if m != "clinical"]
+    if imaging:
+        raise SpecError(
+            f"the study has no imaging table ([data] features is not given) but [models] fit lists "
+            f"{', '.join(repr(m) for m in imaging)}, which need imaging features; use fit = ['clinical'] "
+            "or add features = 'your_features.csv' to [data].")
+    if spec.imaging.volume_feature:
+        raise SpecError("[imaging] volume_feature is set but the study has no imaging table ([data] features); remove it.")
+    if spec.data.batch and spec.imaging.harmonise.method == "combat":
+        raise SpecError("[imaging.harmonise] method is 'combat' but the study has no imaging table to harmonise; "
+                        "set method = 'none' or add [data] features.")
+    if spec.external is not None and spec.external.features:
+        raise SpecError("[external] names a features table but the study has none ([data] features); remove it.")
 
 
 # ------------------------------------------------------------------ reading
@@ -360,10 +389,15 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             "penalty": (PenaltySpec, f"{source} [imaging.penalty]"),
         },
     )
+    if not data.batch and "method" not in doc.get("imaging", {}).get("harmonise", {}):
+        # ComBat needs a batch column; without one the default is no harmonisation (the run log says so)
+        imaging = replace(imaging, harmonise=replace(imaging.harmonise, method="none"))
     models = _take(doc.get("models", {}), ModelsSpec, f"{source} [models]", nested={"forest": (ForestSpec, f"{source} [models.forest]"),
                                                                                 "combined": (CombinedSpec, f"{source} [models.combined]")})
     validation = _take(doc.get("validation", {}), ValidationSpec, f"{source} [validation]")
     added_value = _take(doc.get("added_value", {}), AddedValueSpec, f"{source} [added_value]")
+    if data.features is None and "fit" not in doc.get("models", {}):
+        models = replace(models, fit=("clinical",))  # a clinical-only study fits the clinical model
     external = None
     if "external" in doc:
         external = _take(doc["external"], ExternalSpec, f"{source} [external]", base=base, paths=("features", "clinical"))
@@ -421,7 +455,8 @@ def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
     if spec.anticipated_r2 is not None:
         study["anticipated_r2"] = spec.anticipated_r2
     data = _plain(spec.data)
-    data["features"] = _rel(spec.data.features, base)
+    if spec.data.features is not None:
+        data["features"] = _rel(spec.data.features, base)
     data["clinical"] = _rel(spec.data.clinical, base)
     if spec.data.take_from:
         data["take_from"] = dict(spec.data.take_from)
@@ -433,11 +468,11 @@ def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
     doc["validation"] = _plain(spec.validation)
     doc["added_value"] = _plain(spec.added_value)
     if spec.external is not None:
-        doc["external"] = {
-            **_plain(spec.external),
-            "features": _rel(spec.external.features, base),
-            "clinical": _rel(spec.external.clinical, base),
-        }
+        doc["external"] = {**_plain(spec.external), "clinical": _rel(spec.external.clinical, base)}
+        if spec.external.features is not None:
+            doc["external"]["features"] = _rel(spec.external.features, base)
+        else:
+            doc["external"].pop("features", None)
     return doc
 
 

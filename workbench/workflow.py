@@ -17,8 +17,9 @@ from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 
 from workbench.cohort.summary import CohortSummary, summarise_cohort
-from workbench.errors import WorkbenchError
+from workbench.errors import SpecError, WorkbenchError
 from workbench.models.base import clone_model
+from workbench.models.labels import warn_empty_signatures
 from workbench.models.registry import build_models, candidate_parameters
 from workbench.models.signature import check_volume_dominance, volume_correlation
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
@@ -40,8 +41,10 @@ def external_settings(spec: StudySpec, replicates: int | None = None) -> dict:
     ``validate_external`` with exactly these, so they give identical numbers.
     """
     v = spec.validation
-    reps = (v.replicates if v.method != "none" else 0) if replicates is None else int(replicates)
-    return {"replicates": reps, "random_state": spec.seed, "censoring": v.censoring, "pooling": v.pooling}
+    # intervals on the external patients even without internal validation (method "none")
+    reps = v.replicates if replicates is None else int(replicates)
+    return {"replicates": reps, "random_state": spec.seed, "censoring": v.censoring, "pooling": v.pooling,
+            "tau": v.tau}
 
 
 def new_site_sizes(fitted: dict, cohort, horizons, seed) -> dict:
@@ -128,6 +131,18 @@ class StudyResult:
         return self.prepared.cohort
 
 
+def check_uno_tau(tau, cohort, horizons) -> None:
+    """Uno's C truncation time must lie inside follow-up (before the last observed time)."""
+    if tau is None:
+        return
+    last = float(cohort.time.max())
+    if not 0 < float(tau) < last:
+        raise SpecError(
+            f"[validation] uno_tau = {tau:g} {cohort.time_unit} lies outside the follow-up of the "
+            f"{cohort.n} patients (follow-up up to {last:g} {cohort.time_unit}); choose a time inside it, "
+            f"for example the last horizon ({max(horizons):g}), or leave uno_tau out.")
+
+
 def _progress(progress, cancel, stage: str):
     def report(done: int, total: int) -> None:
         if cancel is not None and cancel():
@@ -193,13 +208,16 @@ def run_study(
             if hasattr(m, "ph_test"):
                 ph_tests[name] = m.ph_test(cohort)
                 warn_if_nonproportional(ph_tests[name])
+        warn_empty_signatures(fitted)
         volume = {}
         if spec.imaging.volume_feature and spec.imaging.volume_feature in cohort.feature_names:
             for name, m in fitted.items():
-                if hasattr(m, "signature_score"):
+                # an empty signature has a constant score: its volume correlation is not applicable
+                if hasattr(m, "signature_score") and tuple(getattr(m, "selected_features_", ())):
                     volume[name] = volume_correlation(m.signature_score(cohort), cohort.features, spec.imaging.volume_feature)
                     check_volume_dominance(volume[name])
 
+        check_uno_tau(v.uno_tau, cohort, spec.horizons)
         model_reps = {"forest": v.forest_replicates} if "forest" in unfitted else None
         method = v.method if v.method != "none" else "bootstrap"
         reps = v.replicates if v.method != "none" else 0
@@ -218,6 +236,7 @@ def run_study(
             progress=_progress(progress, cancel, "internal validation"),
             model_replicates=model_reps,
             apparent_models=fitted,
+            tau=v.tau,
         )
 
         added_value = run_added_value(spec, unfitted, cohort, progress=_progress(progress, cancel, "added-value test"))
@@ -245,6 +264,13 @@ def run_study(
             {m: compare_models(external, m, baseline) for m in unfitted if m != baseline} if external else {}
         )
 
+    if v.method == "none":
+        # apparent performance only: recorded as such, not as a bootstrap with no replicates
+        note = ("No internal validation (method 'none'): every value is the apparent performance of the "
+                "fits on all patients, which is optimistic.")
+        kept = tuple(n for n in validation.notes if not n.startswith("no bootstrap replicates were run"))
+        validation = replace(validation, method="none", notes=(*kept, note))
+        comparisons = {k: replace(c, method="none") for k, c in comparisons.items()}
     seen, messages = set(), []
     for w in caught:
         key = (w.category.__name__, str(w.message))

@@ -4,6 +4,11 @@ Goes through Data -> Design -> Results -> Signature -> Nomogram -> Patient -> Ex
 cohort, asserts on what the page shows, and saves a screenshot of every view (to docs/screenshots/
 when WORKBENCH_SCREENSHOTS=docs/screenshots is set).
 The browser is Debian's chromium (tests/app/install_browser.sh installs it and the driver).
+
+Every wait is on page state, never on a fixed time, so the tests pass on a busy machine: a
+counter in the page counts script runs (the ``data-test-script-state`` attribute Streamlit puts
+on the app root), and an action that makes the app rerun waits until a new run has started and
+finished, with no stale element left and every image loaded.
 """
 
 from __future__ import annotations
@@ -78,6 +83,7 @@ def page(app_url):
         )
         pg = ctx.new_page()
         pg.set_default_timeout(60_000)
+        pg.add_init_script(COUNT_RUNS)
         pg.goto(app_url)
         yield pg
         ctx.close()
@@ -87,17 +93,50 @@ def _main(page):
     return page.locator("section.stMain, [data-testid='stMain']").first
 
 
+# Counts every script run the page sees: the app root's data-test-script-state attribute
+# leaves "notRunning" whenever a run is requested or starts.
+COUNT_RUNS = """
+window.__wbRuns = 0;
+new MutationObserver((records) => {
+  for (const r of records) {
+    const s = r.target.getAttribute('data-test-script-state');
+    if (r.oldValue === 'notRunning' && s !== 'notRunning') window.__wbRuns += 1;
+  }
+}).observe(document, {subtree: true, attributes: true, attributeOldValue: true,
+                      attributeFilter: ['data-test-script-state']});
+"""
+
+# The page is idle: no script run under way, no element left stale from the previous run,
+# every image decoded, and (when `since` is given) at least one run after that count.
+IDLE = """(since) => {
+  const app = document.querySelector('[data-testid="stApp"]');
+  if (!app || app.getAttribute('data-test-script-state') !== 'notRunning') return false;
+  if (since !== null && window.__wbRuns <= since) return false;
+  if (document.querySelector('[data-stale="true"]')) return false;
+  return Array.from(document.images).every((i) => i.complete);
+}"""
+
+
+def _runs(page) -> int:
+    return int(page.evaluate("() => window.__wbRuns"))
+
+
+def _settle(page, since: int | None = None):
+    """Wait until the app is idle (and, with ``since``, has run again since that count)."""
+    page.wait_for_function(IDLE, arg=since, timeout=RUN_TIMEOUT_MS)
+
+
+def _act(page, action):
+    """Do something that makes the app rerun, then wait for that rerun to finish."""
+    before = _runs(page)
+    action()
+    _settle(page, since=before)
+
+
 def _goto(page, title: str):
-    page.locator("[data-testid='stSidebarNav'] a").filter(has_text=title).first.click()
+    _act(page, lambda: page.locator("[data-testid='stSidebarNav'] a").filter(has_text=title).first.click())
     page.get_by_role("heading", name=title, exact=True).first.wait_for()
     _settle(page)
-
-
-def _settle(page, quiet_ms: int = 800):
-    """Wait until the script run has finished (the running indicator is gone)."""
-    page.wait_for_timeout(300)
-    page.locator("[data-testid='stStatusWidget']").wait_for(state="hidden", timeout=RUN_TIMEOUT_MS)
-    page.wait_for_timeout(quiet_ms)
 
 
 CONTENT_HEIGHT = """() => {
@@ -112,7 +151,9 @@ def _shot(page, name: str):
     SHOTS.mkdir(parents=True, exist_ok=True)
     height = int(page.evaluate(CONTENT_HEIGHT))
     page.set_viewport_size({"width": 1440, "height": max(1000, min(height + 400, 9000))})
-    page.wait_for_timeout(800)
+    # two animation frames: the browser has laid out the new size before the picture is taken
+    page.evaluate("() => new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r)))")
+    _settle(page)
     page.screenshot(path=str(SHOTS / f"{name}.png"))
     page.set_viewport_size({"width": 1440, "height": 1000})
 
@@ -137,8 +178,7 @@ def test_data_view(page):
 def test_wrong_column_mapping_is_explained(page):
     box = page.get_by_label("Follow-up time", exact=False).first
     box.click()
-    page.get_by_role("option", name="sex", exact=True).click()
-    _settle(page)
+    _act(page, lambda: page.get_by_role("option", name="sex", exact=True).click())
     err = page.locator("[data-testid='stAlertContentError']").first
     err.wait_for()
     assert "'sex'" in err.inner_text()
@@ -146,7 +186,7 @@ def test_wrong_column_mapping_is_explained(page):
     _shot(page, "1b_data_wrong_mapping")
     box = page.get_by_label("Follow-up time", exact=False).first
     box.click()
-    page.get_by_role("option", name="os_months", exact=True).click()
+    _act(page, lambda: page.get_by_role("option", name="os_months", exact=True).click())
     page.get_by_text("Cohort summary").wait_for()
     _settle(page)
 
@@ -166,8 +206,7 @@ def test_results_view_runs_with_progress(page):
     _goto(page, "Results")
     reps = page.get_by_role("spinbutton", name="Bootstrap replicates for this run")
     reps.fill(REPLICATES)
-    reps.press("Enter")
-    _settle(page)
+    _act(page, lambda: reps.press("Enter"))
     assert "Quick mode" in _main(page).inner_text()
     page.get_by_role("button", name="Run the study").click()
     page.get_by_role("button", name="Cancel the run").wait_for()
@@ -175,7 +214,7 @@ def test_results_view_runs_with_progress(page):
     page.get_by_text("Finished in").wait_for(timeout=RUN_TIMEOUT_MS)
     page.get_by_text("Figures", exact=True).wait_for()
     page.get_by_role("button", name="Download PDF").wait_for()
-    _settle(page, 1500)
+    _settle(page)
     text = _main(page).inner_text()
     assert "Discrimination" in text and "Against the baseline" in text
     assert "minus Clinical Cox" in text
@@ -209,14 +248,14 @@ def test_patient_view(page):
     page.get_by_text("Survival at 12 months").first.wait_for()
     page.get_by_text("On the nomogram").wait_for()
     page.get_by_text("Survival read off the nomogram").wait_for()
-    _settle(page, 1500)
+    _settle(page)
     text = _main(page).inner_text()
     assert "95% CI" in text and "Research use only" in text
     _no_traceback(page)
     _shot(page, "6_patient")
     age = page.get_by_role("textbox", name="Age (years)")
     age.fill("120")
-    page.get_by_role("button", name="Estimate").click()
+    _act(page, lambda: page.get_by_role("button", name="Estimate").click())
     page.get_by_text("above the training range").first.wait_for()
     page.get_by_text("Survival read off the nomogram").wait_for()
     _settle(page)

@@ -146,7 +146,7 @@ def cohort_summary(data_hash: str, horizons: tuple[float, ...], _cohort):
 
 
 def digests(data: DataSpec) -> tuple[str, str]:
-    return file_digest(data.features), file_digest(data.clinical)
+    return file_digest(data.features) if data.features else "", file_digest(data.clinical)
 
 
 # ------------------------------------------------------------------ session
@@ -298,7 +298,7 @@ def run_key(spec: StudySpec, replicates: int, workers: int) -> tuple:
     if spec.external is not None:
         paths += [spec.external.features, spec.external.clinical]
     for p in paths:
-        h.update(file_digest(p).encode())
+        h.update((file_digest(p) if p else "").encode())  # no features table: a clinical-only study
     return (h.hexdigest(), dumps_study(spec), int(replicates), int(workers))
 
 

@@ -13,6 +13,9 @@ import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import pandas as pd
+
+from workbench.cohort.codes import code_text
 from workbench.cohort.core import TIME_UNITS, Cohort, CohortSource
 from workbench.cohort.followup import check_followup
 from workbench.cohort.outcome import make_outcome
@@ -107,6 +110,7 @@ def read_cohort(
     features_path, clinical_path : path-like
         The two tables. Every column of the features table other than the id,
         centre and batch columns is an imaging feature and must be numeric.
+        ``features_path`` None reads a clinical-only cohort (no imaging features).
     columns : ColumnMap
         Column roles and the time unit.
     on_unmatched : {"error", "intersect"}
@@ -128,9 +132,13 @@ def read_cohort(
     """
     if on_unmatched not in ("error", "intersect"):
         raise CohortError(f"on_unmatched must be 'error' or 'intersect', not {on_unmatched!r}.")
-    fpath, cpath = Path(features_path), Path(clinical_path)
-    feats = read_table(fpath, sheet=features_sheet)
+    # a clinical-only study has no features table: the join is the clinical table with itself
+    clinical_only = features_path is None
+    cpath = Path(clinical_path)
+    fpath = cpath if clinical_only else Path(features_path)
     clin = read_table(cpath, sheet=clinical_sheet)
+    feats = (clin[[columns.id]].copy() if clinical_only and columns.id in clin
+             else read_table(fpath, sheet=features_sheet))
 
     check_required_columns(clin, cpath, {"patient id": columns.id, "time": columns.time, "event": columns.event})
     check_required_columns(feats, fpath, {"patient id": columns.id})
@@ -178,16 +186,20 @@ def read_cohort(
         if v.isna().any():
             bad = rows[v.isna().to_numpy()]
             raise CohortError(f"{src}, column {col!r}: missing values in {rows_text(bad)}; every patient needs one.")
-        return v.astype(str).str.strip().to_numpy()
+        return code_text(v)
 
     centre = pick(columns.centre)
     batch = pick(columns.batch)
 
     skip = {columns.id, "_row", columns.centre, columns.batch}
     feature_cols = [c for c in feats.columns if c not in skip]
-    if not feature_cols:
+    if clinical_only:
+        feature_cols = []
+    elif not feature_cols:
         raise CohortError(f"{fpath}: no imaging feature columns found besides the id/centre/batch columns.")
     X = parse_features(feats[feature_cols], fpath, feats["_row"].to_numpy(), drop_unusable_features)
+    if clinical_only:
+        X = pd.DataFrame(index=pd.RangeIndex(len(feats)))
 
     clin_cols = [c for c in clin.columns if c not in {"_row", columns.time, columns.event}]
     clinical = clin[clin_cols].reset_index(drop=True)
@@ -205,14 +217,15 @@ def read_cohort(
         )
 
     digest = hashlib.sha256()
-    parts = [file_digest(fpath), file_digest(cpath), repr(columns), on_unmatched, str(drop_unusable_features)]
+    parts = ["" if clinical_only else file_digest(fpath), file_digest(cpath), repr(columns), on_unmatched,
+             str(drop_unusable_features)]
     # settings added later enter only when used, so earlier hashes of the same study stay valid
     parts += [f"{k}={v}" for k, v in (("take_from", columns.take_from), ("features_sheet", features_sheet),
                                       ("clinical_sheet", clinical_sheet)) if v]
     for part in parts:
         digest.update(part.encode())
     source = CohortSource(
-        feature_file=str(fpath),
+        feature_file="" if clinical_only else str(fpath),
         clinical_file=str(cpath),
         id_column=columns.id,
         time_column=columns.time,

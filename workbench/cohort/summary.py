@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from workbench.cohort.codes import code_order
 from workbench.cohort.core import Cohort
 from workbench.cohort.samplesize import SampleSizeResult, minimum_sample_size
 from workbench.errors import CohortError, LowEventsWarning
@@ -174,8 +175,8 @@ def summarise_cohort(
     def counts(labels):
         if labels is None:
             return {}
-        u, k = np.unique(labels, return_counts=True)
-        return {str(a): int(b) for a, b in zip(u, k, strict=True)}
+        labels = np.asarray(labels).astype(str)
+        return {c: int(np.sum(labels == c)) for c in code_order(labels)}
 
     src = cohort.source
     exclude = {x for x in (src.centre_column, src.batch_column) if x}
@@ -219,7 +220,8 @@ def summarise_cohort(
         batches=counts(cohort.batch),
         n_clinical_parameters=int(p_clin),
         events_per_clinical_parameter=float(epv),
-        events_per_feature=n_ev / max(len(cohort.feature_names), 1),
+        # NaN for a clinical-only study: there is no imaging feature to count events against
+        events_per_feature=n_ev / len(cohort.feature_names) if cohort.feature_names else float("nan"),
         sample_size=ss,
         dropped_ids=src.dropped_ids,
         clinical_parameters_source=p_source,
@@ -260,11 +262,14 @@ def format_summary(s: CohortSummary) -> str:
     if s.batches:
         lines.append("Scanners/batches: " + ", ".join(f"{k} {v}" for k, v in s.batches.items()))
     lines.append("")
-    lines.append(
-        f"Imaging features: {s.n_features} in {len(s.feature_families)} families ("
-        + ", ".join(f"{k} {v}" for k, v in sorted(s.feature_families.items()))
-        + ")"
-    )
+    if s.n_features:
+        lines.append(
+            f"Imaging features: {s.n_features} in {len(s.feature_families)} families ("
+            + ", ".join(f"{k} {v}" for k, v in sorted(s.feature_families.items()))
+            + ")"
+        )
+    else:
+        lines.append("Imaging features: none (a clinical-only study)")
     lines.append("")
     if s.missing:
         lines.append("Missing values:")
@@ -279,7 +284,8 @@ def format_summary(s: CohortSummary) -> str:
         "",
         f"Events per candidate clinical parameter: {s.events_per_clinical_parameter:.1f} "
         f"({s.n_events} events / {s.n_clinical_parameters} parameters, {s.clinical_parameters_source})",
-        f"Events per imaging feature: {s.events_per_feature:.2f} (why the signature needs penalisation and honest validation)",
+        f"Events per imaging feature: {s.events_per_feature:.2f} (why the signature needs penalisation and honest validation)"
+        if s.n_features else "Events per imaging feature: not applicable (no imaging features)",
         "",
         f"Minimum sample size for a Cox model with {ss.n_parameters} parameters (Riley et al. 2019/2020),",
         f"  Cox-Snell R-squared {ss.r2_cs:.3f}, {ss.r2_cs_source}; maximum {ss.max_r2_cs:.3f}:",

@@ -61,8 +61,19 @@ def plot_selection_frequency(
     -------
     Figure, or the Axes when ``ax`` is given.
     """
-    if not frequencies:
+    if not isinstance(frequencies, Mapping):
         raise SpecError("plot_selection_frequency needs a mapping of feature names to selection frequencies.")
+    n = f" of {n_replicates} resamples" if n_replicates else " of resamples"
+    if not frequencies or not any(float(v) > 0 for v in frequencies.values()):
+        # an empty signature in every refit is a result too: say so instead of failing
+        with style_context(width):
+            fig, a = figure_and_axes(ax, width, aspect=0.35)
+            a.set_axis_off()
+            a.text(0.5, 0.5, f"No imaging feature was kept in any{n}.", ha="center", va="center",
+                   transform=a.transAxes)
+            if title:
+                a.set_title(title, loc="left")
+            return fig if ax is None else a
     vals = np.asarray(list(frequencies.values()), dtype=float)
     if np.any(~np.isfinite(vals)) or np.any(vals < 0) or np.any(vals > 1):
         raise SpecError("selection frequencies must be proportions between 0 and 1 (e.g. 0.73 for 73%).")
@@ -81,7 +92,6 @@ def plot_selection_frequency(
         a.axvline(0.5, color=NEUTRAL, lw=0.5, linestyle=(0, (2, 2)))
         a.tick_params(axis="y", length=0)
         a.set_ylim(-0.6, len(names) - 0.4)
-        n = f" of {n_replicates} resamples" if n_replicates else " of resamples"
         a.set_xlabel(f"Selected in this share{n}")
         if chosen:
             from matplotlib.patches import Patch

@@ -28,6 +28,7 @@ import io
 import math
 import re
 import warnings
+from contextvars import ContextVar
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,6 +40,7 @@ from markupsafe import Markup
 from workbench.cohort.summary import CAUTION, feature_family
 from workbench.errors import WorkbenchError, WorkbenchWarning
 from workbench.metrics.decision import DecisionCurveResult
+from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.checklist import FILLED, reporting_checklist
 from workbench.report.methods import (
@@ -111,8 +113,12 @@ def fmt_p(p) -> str:
     return "<0.001" if p < 0.001 else f"{p:.3f}"
 
 
+# Labels of the run being rendered (a model equal to another says so); set by render_report only.
+_RUN_LABELS: ContextVar[dict | None] = ContextVar("run_labels", default=None)
+
+
 def _label(name: str) -> str:
-    return MODEL_LABELS.get(name, name)
+    return (_RUN_LABELS.get() or {}).get(name) or MODEL_LABELS.get(name, name)
 
 
 def metric_label(name: str, unit: str) -> str:
@@ -134,7 +140,7 @@ def _short_paths(text: str, spec) -> str:
     paths = [spec.data.features, spec.data.clinical]
     if spec.external is not None:
         paths += [spec.external.features, spec.external.clinical]
-    for p in paths:
+    for p in (p for p in paths if p):
         text = text.replace(f'"{p}"', f'"{Path(p).name}"')
     return text
 
@@ -204,7 +210,10 @@ def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=
 
 
 def _decision_fig(d: dict, unit: str, j: int):
-    """Validated decision curves of every model at the j-th horizon, from the comparison blocks."""
+    """Validated decision curves of every model at the j-th horizon, from the comparison blocks.
+
+    Apparent curves when the study ran no internal validation (method "none")."""
+    arm = "apparent" if d["validation"]["method"] == "none" else "validated"
     from workbench.figures import plot_decision_curve
 
     comps = list(d["comparison"].values())
@@ -217,9 +226,9 @@ def _decision_fig(d: dict, unit: str, j: int):
         return DecisionCurveResult(h, pt, v, np.asarray(first["treat_all"], float), np.zeros_like(pt),
                                    np.full_like(pt, np.nan), 1.0 - surv.get(h, np.nan), name)
 
-    res = {_label(comps[0]["baseline"]): curve(first["baseline_validated"], comps[0]["baseline"])}
+    res = {_label(comps[0]["baseline"]): curve(first[f"baseline_{arm}"], comps[0]["baseline"])}
     for c in comps:
-        res[_label(c["model"])] = curve(c["decision_curves"][j]["model_validated"], c["model"])
+        res[_label(c["model"])] = curve(c["decision_curves"][j][f"model_{arm}"], c["model"])
     return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}")
 
 
@@ -245,9 +254,12 @@ def _figures(result, d: dict) -> dict:
             "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
             lambda: _calibration_fig(models, train, horizons, unit))
     for j, h in enumerate(horizons if d["comparison"] else ()):
-        _figure(out["decision"], f"decision-{j}", f"Decision curves at {h:g} {unit} (optimism-corrected)",
-                "Net benefit against the threshold risk, corrected for optimism like the other metrics, with "
-                "treat-all and treat-none.", lambda j=j: _decision_fig(d, unit, j), half=True)
+        app = d["validation"]["method"] == "none"
+        _figure(out["decision"], f"decision-{j}",
+                f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else 'optimism-corrected'})",
+                "Net benefit against the threshold risk, " + ("measured on the development patients (optimistic)"
+                if app else "corrected for optimism like the other metrics") + ", with treat-all and treat-none.",
+                lambda j=j: _decision_fig(d, unit, j), half=True)
     if result.external is not None:
         ext = result.external_prepared.cohort
         eh = _eval_horizons(horizons, ext)
@@ -334,7 +346,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
     for k, m in d["models"].items():
         bs = m.get("baseline_survival")
         xm = bs["x_mean"] if bs else {}
-        coefs = [{**r, "x_mean": xm.get(r["column"])} for r in m["coefficients"]]
+        coefs = [{**r, "x_mean": xm.get(r["design_column"])} for r in m["coefficients"]]
         sig = None
         if "signature" in m:
             freq = m.get("selection_frequency", {}).get("frequency", {})
@@ -349,7 +361,8 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         diffs = [{"label": metric_label(n, unit), **c["differences"][n]}
                  for n in _metric_order(c["differences"], horizons) + [f"{x}@{h:g}" for h in horizons for x in ("ici",)]
                  if n in c["differences"]]
-        comps.append({**c, "label": _label(k), "base_label": _label(c["baseline"]), "diffs": diffs})
+        comps.append({**c, "label": _label(k), "base_label": _label(c["baseline"]), "diffs": diffs,
+                      "equal": k in equal_models(result.models)})
     ext = None
     if d["external"] is not None:
         e = d["external"]
@@ -378,12 +391,15 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
         "models": models, "comps": comps, "ext": ext, "ids": ids,
         **_group_context(d, horizons),
+        "equal": {MODEL_LABELS.get(k, k): MODEL_LABELS.get(v, v) for k, v in equal_models(result.models).items()},
+        "equal_note": EQUAL_NOTE,
+        "apparent_only": d["validation"]["method"] == "none",
         "limitations": limitations(result, d),
         "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
         "study_text": _short_paths(result.study_text, spec),
         "figures": _figures(result, d) if figures else {k: [] for k in ("calibration", "decision", "external", "main")},
         "version": d["provenance"]["versions"].get("survival-workbench", ""),
-        "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["term"] == "GLOBAL"), None)
+        "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["design_column"] == "GLOBAL"), None)
                       for k, m in d["models"].items()},
     }
 
@@ -415,10 +431,14 @@ def render_report(result, *, include_ids: bool = False, figures: bool = True) ->
     figures : bool
         Draw the figures (turn off for a quick text-only look).
     """
-    ctx = report_context(result, include_ids=include_ids, figures=figures)
-    env = _environment()
-    ctx["css"] = Markup(env.get_template("report.css.j2").render(caution=CAUTION, title=ctx["title"]))
-    return env.get_template("report.html.j2").render(**ctx)
+    token = _RUN_LABELS.set(model_labels(result.models))
+    try:
+        ctx = report_context(result, include_ids=include_ids, figures=figures)
+        env = _environment()
+        ctx["css"] = Markup(env.get_template("report.css.j2").render(caution=CAUTION, title=ctx["title"]))
+        return env.get_template("report.html.j2").render(**ctx)
+    finally:
+        _RUN_LABELS.reset(token)
 
 
 def write_report(result, out_dir, *, pdf: bool = True, include_ids: bool = False) -> ReportFiles:

@@ -125,6 +125,9 @@ def validation_text(result, data: dict | None = None) -> str:
              "ComBat harmonisation; the feature filters; the choice of the penalty by inner "
              f"{folds}-fold cross-validation with folds split by original patient identifier (so copies "
              "of one patient never sit on both sides of a fold); and the model fits.")
+    if v["method"] == "none":
+        return ("No internal validation was run (method 'none'); every value shown is the apparent performance "
+                "of the models fitted and evaluated on the same patients, which is optimistic.")
     if v["method"] == "bootstrap":
         if all(r == 0 for r in reps.values()):
             return "No resampling was run; only apparent performance is reported, which is optimistic."
@@ -200,7 +203,8 @@ def methods_paragraph(result, data: dict | None = None) -> str:
     )
     im = spec.imaging
     fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
-    text = f"The imaging pool held {c['n_imaging_pool']} features ({fam})."
+    text = (f"The imaging pool held {c['n_imaging_pool']} features ({fam})." if c["n_imaging_pool"]
+            else "The study used clinical predictors only (no imaging table).")
     combined = d["models"].get("combined")
     if combined and "signature" in combined:
         sig = combined["signature"]
@@ -222,10 +226,13 @@ def methods_paragraph(result, data: dict | None = None) -> str:
                  f"{_steps_text(sig['steps'])}.{pen_txt} The {len(sig['selected'])} kept features "
                  "formed a signature score (their standardised values weighted by the penalised coefficients), "
                  "which entered a Cox model beside the clinical terms.")
-        if "volume_correlation" in combined:
-            vc = combined["volume_correlation"]
+        vc = combined.get("volume_correlation")
+        if vc:
             text += (f" The signature's correlation with {vc['feature']} was Pearson {vc['pearson']:.2f}, "
                      f"Spearman {vc['spearman']:.2f}.")
+        if not sig["selected"]:
+            text += (" The signature kept no feature, so the combined model had no signature term and was "
+                     "equal to the clinical model.")
     paras.append(text)
     models = []
     for m in d["models"].values():
@@ -241,7 +248,7 @@ def methods_paragraph(result, data: dict | None = None) -> str:
                           f"{det.get('max_features')} features per split)")
     paras.append(
         f"Models fitted: {'; '.join(models)}. {validation_text(result, d)} Discrimination was measured by "
-        f"Harrell's and Uno's C (truncated at {spec.horizons[-1]:g} {u}) and the cumulative/dynamic AUC at each "
+        f"Harrell's and Uno's C (truncated at {spec.validation.tau or spec.horizons[-1]:g} {u}) and the cumulative/dynamic AUC at each "
         "horizon; overall accuracy by the Brier score, its integral and the index of prediction accuracy; "
         "calibration by smoothed calibration curves (ICI, E50, E90; Austin et al. 2020), the calibration slope "
         f"and the observed/expected ratio. Each model was compared with the {_label(d['baseline'])} model "
@@ -287,9 +294,10 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         ss = s["sample_size"]
         out.append(f"The cohort ({ss['n_available']} patients) is smaller than the {ss['n_required']} the Riley "
                    "criteria ask for: expect overfitting and read the optimism-corrected numbers.")
-    out.append(f"With {s['events_per_feature']:.2f} events per imaging feature the signature had to be "
-               "selected by penalisation; which features are kept varies between resamples (see the selection "
-               "frequencies).")
+    if s["events_per_feature"] is not None and any("signature" in m for m in d["models"].values()):
+        out.append(f"With {s['events_per_feature']:.2f} events per imaging feature the signature had to be "
+                   "selected by penalisation; which features are kept varies between resamples (see the selection "
+                   "frequencies).")
     for w in d["warnings"]:
         if w["category"] == "VolumeDominanceWarning":
             out.append("Volume dominance: " + w["message"])

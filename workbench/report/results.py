@@ -16,8 +16,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from workbench.cohort.codes import code_order
 from workbench.cohort.summary import CAUTION, format_summary
-from workbench.models.registry import MODEL_LABELS
+from workbench.models.labels import equal_models, model_labels
+from workbench.report.naming import coefficient_rows, hazard_ratio_frame, ph_frame
 
 FORMAT = "workbench-results/1"
 
@@ -78,15 +80,16 @@ def _model_block(result, name: str) -> dict:
     m = result.models[name]
     desc = m.describe()
     block = {
-        "label": MODEL_LABELS.get(name, name),
+        "label": model_labels(result.models)[name],
+        "equal_to": equal_models(result.models).get(name),
         "kind": desc.kind,
         "n_train": desc.n_train,
         "n_events": desc.n_events,
         "details": jsonable(desc.details),
-        "coefficients": jsonable(desc.terms),
+        "coefficients": coefficient_rows(jsonable(desc.terms)),
     }
     if hasattr(m, "hazard_ratio_table"):
-        block["hazard_ratios"] = jsonable(m.hazard_ratio_table())
+        block["hazard_ratios"] = jsonable(hazard_ratio_frame(m.hazard_ratio_table()))
     if hasattr(m, "fit_") and hasattr(m.fit_, "baseline_times"):
         horizons = np.asarray(result.spec.horizons, float)
         from workbench.stats.coxph import baseline_survival_at
@@ -100,7 +103,7 @@ def _model_block(result, name: str) -> dict:
         }
     if name in result.ph_tests:
         ph = result.ph_tests[name]
-        block["proportional_hazards"] = jsonable(ph.to_frame().reset_index())
+        block["proportional_hazards"] = jsonable(ph_frame(ph.to_frame().reset_index()))
     sig = getattr(m, "signature_", None)
     if sig is not None:
         block["signature"] = {
@@ -119,8 +122,9 @@ def _model_block(result, name: str) -> dict:
                 "extensions": int(sig.path_.n_extensions),
             },
         }
-    if name in result.volume:
-        block["volume_correlation"] = jsonable(result.volume[name])
+    if sig is not None or name in result.volume:
+        # null: not applicable (no volume feature named, or a signature that kept no feature)
+        block["volume_correlation"] = jsonable(result.volume.get(name))
     if name in result.validation.selection:
         sel = result.validation.selection[name]
         block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency)}
@@ -210,7 +214,8 @@ def results_dict(result) -> dict:
             "n": ext.cohort.n,
             "n_events": ext.cohort.n_events,
             "n_incomplete_dropped": len(ext.incomplete_ids),
-            "batches": jsonable(dict(zip(*np.unique(ext.cohort.batch, return_counts=True), strict=True)))
+            "batches": {c: int(np.sum(np.asarray(ext.cohort.batch).astype(str) == c))
+                        for c in code_order(ext.cohort.batch)}
             if ext.cohort.batch is not None
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
@@ -269,7 +274,7 @@ def write_results(result, out_dir) -> Path:
             group_table(v.groups).to_csv(out / f"{which}_by_group.csv", index=False)
     for name, m in result.models.items():
         if hasattr(m, "hazard_ratio_table"):
-            m.hazard_ratio_table().to_csv(out / f"hazard_ratios_{name}.csv", index=False)
+            hazard_ratio_frame(m.hazard_ratio_table(), for_csv=True).to_csv(out / f"hazard_ratios_{name}.csv", index=False)
         sel = result.validation.selection.get(name)
         if sel is not None:
             sel.to_frame().to_csv(out / f"selection_{name}.csv", index=False)
@@ -277,14 +282,31 @@ def write_results(result, out_dir) -> Path:
 
     # paths relative to the results folder, so the copy runs from there and names no machine path
     (out / "study.toml").write_text(dumps_study(result.spec, base=out))
-    log = [format_summary(result.summary), "", "Warnings during the run:"]
+    log = [format_summary(result.summary), "", "Settings taken by default:"]
+    log += run_notes(result.spec) or ["  none"]
+    log += ["", "Warnings during the run:"]
     log += [f"  {c}: {m}" for c, m in result.warnings] or ["  none"]
     log += ["", f"Provenance: {json.dumps(data['provenance'])}"]
     (out / "run.log").write_text("\n".join(log) + "\n")
     return path
 
 
-def fmt_estimate(e, digits: int = 3) -> str:
+def run_notes(spec) -> list[str]:
+    """Lines for the run log about settings the study left to a default that depends on the data."""
+    notes = []
+    if not spec.data.batch and spec.imaging.harmonise.method == "none":
+        notes.append("  harmonisation: none, because the study names no batch column ([data] batch); "
+                     "name one and set [imaging.harmonise] method = 'combat' to harmonise by scanner.")
+    if spec.validation.uno_tau is None:
+        notes.append(f"  Uno's C truncated at the last horizon ({spec.horizons[-1]:g} {spec.data.time_unit}); "
+                     "set [validation] uno_tau to choose another time.")
+    return notes
+
+
+def fmt_estimate(e, digits: int = 3, *, apparent_only: bool = False) -> str:
+    """A validated estimate with its interval; with ``apparent_only`` the apparent value, marked so."""
+    if apparent_only and e is not None and np.isfinite(getattr(e, "apparent", np.nan)):
+        return f"{e.apparent:.{digits}f} (apparent)"
     if e is None or not np.isfinite(e.estimate):
         return "n/a"
     ci = ""
@@ -306,40 +328,47 @@ def format_results(result) -> str:
     """A short plain-text digest of a run for the terminal."""
     v = result.validation
     u = result.spec.data.time_unit
+    labels = model_labels(result.models)
+    same = equal_models(result.models)
     horizons = [f"{h:g}" for h in result.spec.horizons]
     method = {"bootstrap": "optimism-corrected (bootstrap)", "cv": "cross-validated",
-              "by_centre": "leave-one-centre-out"}.get(v.method, v.method)
+              "by_centre": "leave-one-centre-out",
+              "none": "none (apparent performance only, optimistic)"}.get(v.method, v.method)
+    app = v.method == "none"
     lines = [
         f"Study: {result.spec.name}",
         f"{result.prepared.cohort.n} patients, {result.prepared.cohort.n_events} events; "
-        f"validation {method}, {_replicate_text(v.n_replicates)}",
+        f"validation {method}" + ("" if app else f", {_replicate_text(v.n_replicates)}"),
         "",
         f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",
     ]
     for name in result.models:
         est = v.estimates[name]
         lines.append(
-            f"{MODEL_LABELS.get(name, name):<40s}{fmt_estimate(est.get('harrell_c')):>24s}"
-            f"{fmt_estimate(est.get('uno_c')):>24s}{fmt_estimate(est.get('ibs')):>24s}"
+            f"{labels[name]:<40s}{fmt_estimate(est.get('harrell_c'), apparent_only=app):>24s}"
+            f"{fmt_estimate(est.get('uno_c'), apparent_only=app):>24s}{fmt_estimate(est.get('ibs'), apparent_only=app):>24s}"
         )
     lines.append("")
     lines.append(f"AUC and calibration (ICI) at {', '.join(horizons)} {u}:")
     for name in result.models:
         est = v.estimates[name]
-        aucs = "  ".join(fmt_estimate(est.get(f"auc@{h}"), 2) for h in horizons)
-        icis = "  ".join(fmt_estimate(est.get(f"ici@{h}"), 3).split(" ")[0] for h in horizons)
+        aucs = "  ".join(fmt_estimate(est.get(f"auc@{h}"), 2, apparent_only=app) for h in horizons)
+        icis = "  ".join(fmt_estimate(est.get(f"ici@{h}"), 3, apparent_only=app).split(" ")[0] for h in horizons)
         lines.append(f"  {name:<16s} AUC {aucs}   ICI {icis}")
     for name, comp in result.comparisons.items():
         d = comp.differences.get("harrell_c")
         lr = comp.lr_test
         lines.append("")
-        lines.append(f"{MODEL_LABELS.get(name, name)} vs {MODEL_LABELS.get(comp.baseline, comp.baseline)}:")
-        lines.append(f"  difference in Harrell C {fmt_estimate(d)}")
+        lines.append(f"{labels.get(name, name)} vs {labels.get(comp.baseline, comp.baseline)}:")
+        lines.append(f"  difference in Harrell C {fmt_estimate(d, apparent_only=app)}")
         av = getattr(result, "added_value", {}).get(name)
-        if av is not None:
+        if name in same:
+            lines.append("  the signature kept no feature: this model is the clinical model, so the comparison "
+                         "says nothing about imaging")
+        elif av is not None:
             lines.append(f"  added value of imaging given clinical (permutation test): CV log-likelihood gain "
                          f"{av.observed:.1f}, p = {av.p_value:.3g} (MC SE {av.mc_se:.3f}, {av.permutations} permutations)")
-        if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value):
+        if name not in same and lr.nested and np.isfinite(lr.statistic) and lr.df > 0 and np.isfinite(lr.p_value):
             lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
                          "(prespecified terms)")
     if result.external is not None:

@@ -88,7 +88,7 @@ def test_full_model_with_baseline_survival_and_centring(html, data):
     model = text_of(section(html, "model"))
     block = data["models"]["combined"]
     for row in block["coefficients"]:
-        assert fmt_num(row["coef"], 4) in model, row["column"]
+        assert fmt_num(row["coef"], 4) in model, row["design_column"]
     for s0 in block["baseline_survival"]["survival"]:
         assert f"{s0:.4f}" in model
     for name, xm in block["baseline_survival"]["x_mean"].items():

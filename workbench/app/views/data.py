@@ -195,8 +195,8 @@ def _summary(cohort, horizons) -> None:
         st.write(
             f"{summary.events_per_clinical_parameter:.1f} events per candidate clinical parameter "
             f"({summary.n_events} events / {summary.n_clinical_parameters} parameters); "
-            f"{summary.events_per_feature:.2f} per imaging feature, which is why the signature needs "
-            "penalisation and honest validation."
+            + (f"{summary.events_per_feature:.2f} per imaging feature, which is why the signature needs "
+               "penalisation and honest validation." if summary.n_features else "no imaging features.")
         )
         st.markdown("**Minimum sample size** (Riley et al. 2019/2020)")
         rows = [

@@ -182,10 +182,12 @@ def _show(result, job) -> None:
     reps = v.n_replicates
     secs = job.finished - job.started
     took = f"{secs:.0f} s" if secs < 120 else f"{secs / 60:.1f} min"
-    st.success(
-        f"Finished in {took}: {v.n} patients, {v.n_events} events; {METHODS.get(v.method, v.method)} with "
-        + ", ".join(f"{r} replicates for the {tables.label(m)} model" for m, r in reps.items()) + "."
-    )
+    if v.method == "none":
+        how = "no internal validation: the values are apparent performance only, which is optimistic"
+    else:
+        how = f"{METHODS.get(v.method, v.method)} with " + ", ".join(
+            f"{r} replicates for the {tables.label(m)} model" for m, r in reps.items())
+    st.success(f"Finished in {took}: {v.n} patients, {v.n_events} events; {how}.")
     if job.key[:2] != state.run_key(state.current_study(), job.replicates, job.workers)[:2]:
         st.warning("The study has changed since this run; run it again to update these results.")
     if result.warnings:

@@ -70,9 +70,16 @@ def render() -> None:
             st.markdown("**Selected features** (coefficient per training SD)")
             df = pd.DataFrame({"Feature": list(coef.index), "Coefficient": [f"{c:+.3f}" for c in coef.to_numpy()]})
             state.table(df)
+        if not tuple(sig.selected_features_):
+            st.warning("The signature kept no feature: the clinical + imaging model has no signature term and "
+                       "is equal to the clinical model. Its numbers say nothing about imaging.")
         vol = result.volume.get("combined") if isinstance(getattr(result, "volume", None), dict) else None
-        if vol is not None and hasattr(vol, "correlation"):
-            st.caption(f"Correlation of the signature with tumour volume: {float(vol.correlation):.2f}.")
+        if vol is not None and hasattr(vol, "pearson"):
+            st.caption(f"Correlation of the signature with {vol.feature}: Pearson {float(vol.pearson):.2f}, "
+                       f"Spearman {float(vol.spearman):.2f}.")
+        else:
+            why = "the signature kept no feature" if not tuple(sig.selected_features_) else "no volume feature named"
+            st.caption(f"Correlation of the signature with tumour volume: not applicable ({why}).")
     with b:
         _path(sig)
     sel = result.validation.selection.get("combined")

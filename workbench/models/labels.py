@@ -1,0 +1,50 @@
+"""Model labels of one run, saying so when a model equals another.
+
+When the imaging signature keeps no feature, the combined model has no
+signature term: its coefficients, predictions and every metric are those of the
+clinical model. Every face of a run (results.json, the terminal digest, the
+report, the figures) then names it "equal to the clinical model", so that nobody
+reads its numbers as evidence about imaging.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+from workbench.errors import EmptySignatureWarning
+from workbench.models.registry import MODEL_LABELS
+
+EQUAL_NOTE = "equal to the clinical model"
+
+
+def equal_models(models: dict) -> dict[str, str]:
+    """Models that equal another model of the run: ``{name: name of the model it equals}``.
+
+    Only the combined model can: with an empty signature it is the clinical Cox model.
+    """
+    m = models.get("combined")
+    sig = getattr(m, "signature_", None)
+    if sig is not None and not tuple(sig.selected_features_):
+        return {"combined": "clinical"}
+    return {}
+
+
+def model_labels(models: dict) -> dict[str, str]:
+    """Display label of every model of the run (``MODEL_LABELS`` plus the equality note)."""
+    same = equal_models(models)
+    return {k: MODEL_LABELS.get(k, k) + (f" ({EQUAL_NOTE})" if k in same else "") for k in models}
+
+
+def warn_empty_signatures(models: dict) -> None:
+    """One :class:`EmptySignatureWarning` per fitted model whose imaging signature kept no feature."""
+    for name, m in models.items():
+        kept = getattr(m, "selected_features_", None)
+        if kept is None or tuple(kept):
+            continue
+        what = ("the combined model has no signature term and is equal to the clinical model"
+                if name == "combined" else f"the {MODEL_LABELS.get(name, name)} model has no imaging term")
+        warnings.warn(
+            f"{MODEL_LABELS.get(name, name)} kept no imaging feature on all patients: {what}. "
+            "Its performance and comparisons say nothing about imaging; check the feature pool, the "
+            "screening threshold and the penalty rule.",
+            EmptySignatureWarning, stacklevel=2)
