@@ -5,6 +5,7 @@ Data: the German Breast Cancer Study Group 2 tables of tests/conftest.py (scikit
 
 from __future__ import annotations
 
+import re
 import warnings
 
 import matplotlib.pyplot as plt
@@ -59,8 +60,12 @@ def test_clinical_only_study_reads_writes_and_refuses_imaging_models():
 def test_uno_tau_key_is_checked():
     assert study_from_dict(_doc(validation={"uno_tau": 500})).validation.tau == 500.0
     assert study_from_dict(_doc()).validation.tau is None
-    for bad in (-1, 0, "late", True):
+    for bad in (-1, 0):
         with pytest.raises(SpecError, match="uno_tau must be a positive number"):
+            study_from_dict(_doc(validation={"uno_tau": bad}))
+    # wrong types are caught by the study-file type check first, naming key, type and value
+    for bad, found in (("late", "found 'late' (text)"), (True, "found True (true/false)")):
+        with pytest.raises(SpecError, match="uno_tau must be a number.*" + re.escape(found)):
             study_from_dict(_doc(validation={"uno_tau": bad}))
 
 
