@@ -36,6 +36,7 @@ from matplotlib.patches import Rectangle
 
 from workbench.cohort.summary import CAUTION
 from workbench.errors import SpecError
+from workbench.figures.measure import TextMeasure as _Measure
 from workbench.figures.nomogram_points import (
     SIGNATURE_TERM,
     NomogramScales,
@@ -56,6 +57,10 @@ from workbench.figures.ticks import format_number
 
 PATIENT_COLOUR = PALETTE[3]
 ROW_INCHES = 0.25
+SCORE_AXIS = "Factor score"
+"""Name of the top ruler (each factor's contribution, 0-100 for the widest factor)."""
+SUM_AXIS = "Sum of scores"
+"""Name of the ruler the factor scores are added on."""
 _LABEL_CHARS = 18
 _CHAR_WIDTH = 0.56  # average glyph width in units of the font size (sans-serif, common practice)
 _BAND_ALPHAS = (0.10, 0.25, 0.42, 0.60)
@@ -70,28 +75,6 @@ class _Row:
     horizon: float | None = None
     top: float = 0.0
     line: float = 0.0
-
-
-class _Measure:
-    """Text widths in points, measured with the Agg renderer (no canvas or pyplot needed)."""
-
-    def __init__(self):
-        from matplotlib.backends.backend_agg import RendererAgg
-        from matplotlib.font_manager import FontProperties
-
-        self._r = RendererAgg(10, 10, 72)
-        self._prop = FontProperties
-        self._cache: dict = {}
-
-    def width(self, text: str, size: float) -> float:
-        key = (text, size)
-        if key not in self._cache:
-            lines = text.split("\n") or [""]
-            self._cache[key] = max(
-                self._r.get_text_width_height_descent(line, self._prop(size=size), ismath=False)[0]
-                for line in lines
-            )
-        return self._cache[key]
 
 
 @dataclass(frozen=True)
@@ -126,12 +109,46 @@ def _lanes(xs, labels, widths_pt, geo: _Geometry, max_lanes: int = 4, drop: bool
     return lanes
 
 
+def _label_centres(xs, widths_pt, geo: _Geometry) -> np.ndarray:
+    """Where each tick label is centred: over its tick, but moved inwards at the ends of the
+    0-100 band so no label reaches into the row names on the left or the patient column."""
+    xs = np.asarray(xs, dtype=float)
+    half = np.asarray(widths_pt, dtype=float) * geo.units_per_pt / 2
+    lo, hi = half, np.maximum(100.0 - half, half)
+    return np.minimum(np.maximum(xs, lo), hi)
+
+
+def _level_groups(seg, geo: _Geometry, measure) -> list[tuple[float, str, int]]:
+    """Labels of a categorical axis as (centre, text, lane), lane 0 above the line, 1 below.
+
+    Levels whose labels cannot be told apart in two lanes are named together in one
+    label ("II, III, IV") over the middle of their ticks, instead of stacking them in
+    further lanes with leader lines that cross other labels. Their ticks are still
+    drawn one by one, so the exact scores remain readable.
+    """
+    order = sorted(range(len(seg.ticks)), key=lambda i: seg.ticks[i].points)
+    groups = [[i] for i in order]
+    while True:
+        texts = [", ".join(seg.ticks[i].label for i in g) for g in groups]
+        widths = [measure.width(tx, geo.tick_fs) for tx in texts]
+        xs = _label_centres([float(np.mean([seg.ticks[i].points for i in g])) for g in groups], widths, geo)
+        lanes = _lanes(xs, None, widths, geo, 2, drop=True)
+        bad = [k for k, lane in enumerate(lanes) if lane < 0]
+        if not bad or len(groups) == 1:
+            return [(float(x), tx, max(lane, 0)) for x, tx, lane in zip(xs, texts, lanes, strict=True)]
+        k = bad[0]
+        j = k - 1 if k == len(groups) - 1 or (k > 0 and xs[k] - xs[k - 1] <= xs[k + 1] - xs[k]) else k + 1
+        lo, hi = sorted((j, k))
+        groups[lo:hi + 1] = [groups[lo] + groups[hi]]
+
+
 def _term_lanes(t: TermScale, seg, geo: _Geometry, measure) -> list[int]:
-    """Categorical labels may use four lanes; continuous ones two, dropping what still collides."""
-    widths = [measure.width(k.label, geo.tick_fs) for k in seg.ticks]
-    xs = [k.points for k in seg.ticks]
+    """Lanes of a term's labels: categorical groups use two (see :func:`_level_groups`);
+    continuous ones two, dropping what still collides."""
     if t.kind in ("categorical", "ordinal"):
-        return _lanes(xs, None, widths, geo, 4)
+        return [lane for _, _, lane in _level_groups(seg, geo, measure)]
+    widths = [measure.width(k.label, geo.tick_fs) for k in seg.ticks]
+    xs = _label_centres([k.points for k in seg.ticks], widths, geo)
     return _lanes(xs, None, widths, geo, 2, drop=True)
 
 
@@ -227,9 +244,9 @@ def _unit_singular(unit: str) -> str:
 
 def _row_label(r: _Row, scales: NomogramScales) -> str:
     if r.kind == "points":
-        return "Points"
+        return SCORE_AXIS
     if r.kind == "total":
-        return "Total points"
+        return SUM_AXIS
     if r.kind == "survival":
         u = _unit_singular(scales.time_unit)
         return f"{format_number(r.horizon)}-{u} survival" if u else f"Survival at {format_number(r.horizon)}"
@@ -276,7 +293,8 @@ class _Painter:
                 self._text(x, y + 0.17, lab)
 
     def level_ticks(self, xs, labels, y, lanes):
-        for x, lab, lane in zip(xs, labels, lanes, strict=True):
+        centres = _label_centres(xs, [self.m.width(lab, self.geo.tick_fs) for lab in labels], self.geo)
+        for x, cx, lab, lane in zip(xs, centres, labels, lanes, strict=True):
             if lane < 0:
                 self._tick(x, y, length=0.08)
                 continue
@@ -287,7 +305,16 @@ class _Painter:
             if far:
                 self.ax.plot([x, x], [y + (0.13 if up else -0.13), ty + (-0.03 if up else 0.03)],
                              color=NEUTRAL, lw=0.4, clip_on=False)
-            self._text(x, ty, lab, up=up)
+            self._text(cx, ty, lab, up=up)
+
+    def level_labels(self, xs, groups, y):
+        """Every level's tick on both sides of the line; one label per group of levels."""
+        for x in xs:
+            self._tick(x, y, up=True, length=0.11)
+            self._tick(x, y, up=False, length=0.11)
+        for cx, text, lane in groups:
+            up = lane == 0
+            self._text(cx, (y + 0.17) if up else (y - 0.17), text, up=up)
 
     def label(self, text: str, y: float, lift: float = 0.0):
         if text:
@@ -311,6 +338,8 @@ class _Painter:
         labels = [k.label for k in seg.ticks]
         if t.kind == "signature" or len(t.segments) > 1:
             self.scale_ticks(xs, labels, y)
+        elif t.kind in ("categorical", "ordinal"):
+            self.level_labels(xs, _level_groups(seg, self.geo, self.m), y)
         else:
             self.level_ticks(np.asarray(xs), labels, y, _term_lanes(t, seg, self.geo, self.m))
         if len(t.segments) > 1:
@@ -428,7 +457,7 @@ def _geometry(panel_width_pt: float, fs: float, right_pt: float, label_pt: float
 
 
 def _label_width(items, measure: _Measure, fs: float) -> float:
-    texts = ["Total points", "Median survival (months)", "Imaging signature (score)"]
+    texts = [SCORE_AXIS, SUM_AXIS, "Median survival (months)", "Imaging signature (score)"]
     for s in items:
         texts += [_row_label(_Row("term", 1.0, t), s) for t in s.terms]
         texts += [_row_label(_Row("survival", 1.0, horizon=h), s) for h in s.horizons]

@@ -40,6 +40,7 @@ from workbench.figures import (
     save_figure,
     td_auc_by_model,
 )
+from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import MODEL_LABELS
 
@@ -52,7 +53,7 @@ def _evaluation(result):
     return result.cohort, "development cohort, apparent"
 
 
-def nomogram_figure(result, *, patient=None, layout="columns"):
+def nomogram_figure(result, *, patient=None, layout="columns", width="double"):
     """Nomograms of the Cox models of the study (clinical-only and clinical + signature)."""
     train, unit = result.cohort, result.cohort.time_unit
     scales = []
@@ -67,11 +68,18 @@ def nomogram_figure(result, *, patient=None, layout="columns"):
         )
     if not scales:
         raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
-    return plot_nomogram(scales, patient=patient, layout=layout)
+    if width == "single" and layout == "columns" and len(scales) > 1:
+        layout = "rows"  # two panels side by side do not fit one journal column
+    return plot_nomogram(scales, patient=patient, layout=layout, width=width)
 
 
-def study_figures(result) -> dict:
-    """All standard figures of a run, by file-friendly name (matplotlib Figures)."""
+def study_figures(result, *, width="double") -> dict:
+    """All standard figures of a run, by file-friendly name (matplotlib Figures).
+
+    Each figure is drawn for ``width`` ("single" 85 mm, "double" 175 mm or millimetres):
+    text sizes and layout are chosen for that width, so draw once per width rather than
+    resizing a drawn figure.
+    """
     figs = {}
     train = result.cohort
     unit = train.time_unit
@@ -83,39 +91,47 @@ def study_figures(result) -> dict:
         # scoring an unseen scanner (documented fallback) warns once per call; the run log has it
         warnings.simplefilter("ignore", WorkbenchWarning)
         if any(n in models for n in COX_MODELS):
-            figs["nomogram"] = nomogram_figure(result)
+            figs["nomogram"] = nomogram_figure(result, width=width)
         top = "combined" if "combined" in models else next(iter(models))
         m = models[top]
         groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, "tertiles")
         figs["km_risk_groups"] = plot_km_by_group(
-            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: risk tertiles ({where})"
+            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: risk tertiles ({where})", width=width,
+            development=result.external_prepared is None,
         )
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
         risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}
+        # the legend's mean AUC is the results table's: over the study horizons, weighted by events
+        means = {k: r.mean_auc for k, r in td_auc_by_model(train.y, evalc.y, risks, horizons).items()}
+        window = ", ".join(format_number(h) for h in horizons) + f" {unit}"
         figs["td_auc"] = plot_td_auc(td_auc_by_model(train.y, evalc.y, risks, grid), time_unit=unit,
-                                     horizons=horizons, title=where.capitalize())
+                                     horizons=horizons, title=where.capitalize(), width=width,
+                                     mean_auc=means, mean_window=f"at {window}".rstrip())
         curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
         cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}
-        figs["calibration"] = plot_calibration_panels(cal, predicted=curves, time_unit=unit)
+        figs["calibration"] = plot_calibration_panels(cal, predicted=curves, time_unit=unit, width=width,
+                                                        cohort=where)
         h = horizons[len(horizons) // 2]
         figs["decision_curve"] = plot_decision_curve(decision_curves(evalc.y, curves, h), time_unit=unit,
-                                                     title=where.capitalize())
+                                                     title=where.capitalize(), width=width)
     for name in COX_MODELS:
         if name in models:
-            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(models[name]), title=labels[name])
+            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(models[name]), title=labels[name],
+                                                             width=width)
     sig_model = models.get("combined")
     sel = result.validation.selection.get("combined")
     if sel is not None and sel.n_fits:
         figs["selection_frequency"] = plot_selection_frequency(
             sel.frequency, n_replicates=sel.n_fits, selected=sel.apparent,
-            title="Imaging features kept across bootstrap refits",
+            title="Imaging features kept across bootstrap refits", width=width,
         )
     if sig_model is not None and sig_model.signature_.path_ is not None:
         figs["coefficient_path"] = plot_coefficient_path(sig_model.signature_.path_,
-                                                         title="Imaging signature: penalised path")
+                                                         title="Imaging signature: penalised path",
+                                                         width=width)
     for name, ph in result.ph_tests.items():
-        figs[f"ph_{name}"] = plot_schoenfeld(ph)
+        figs[f"ph_{name}"] = plot_schoenfeld(ph, width=width, time_unit=unit)
     return figs
 
 
@@ -124,9 +140,11 @@ def write_figures(result, out_dir, *, formats=("png", "svg", "pdf"), widths=("do
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     written = []
-    for name, fig in study_figures(result).items():
-        for p in save_figure(fig, out / name, widths=widths, formats=formats):
-            final = p.with_name(f"{name}{p.suffix}") if len(widths) == 1 else p
-            p.replace(final)
-            written.append(final)
+    for width in widths:
+        # drawn afresh at each width: fonts and layout are chosen for the column, not scaled
+        for name, fig in study_figures(result, width=width).items():
+            for p in save_figure(fig, out / name, widths=(width,), formats=formats):
+                final = p.with_name(f"{name}{p.suffix}") if len(widths) == 1 else p
+                p.replace(final)
+                written.append(final)
     return written
