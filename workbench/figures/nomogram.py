@@ -287,6 +287,9 @@ class _Painter:
         xs = np.asarray(xs, dtype=float)
         widths = [self.m.width(lab, self.geo.tick_fs) for lab in labels]
         keep = _uniform_keep(xs, widths, self.geo) if order is None else _thin(xs, widths, self.geo, order)
+        # a label may not reach into the row names on the left or the patient column on the right
+        half = np.asarray(widths) * self.geo.units_per_pt / 2
+        keep = keep & (xs - half >= -1.5) & (xs + half <= 101.5)
         for x, lab, k in zip(xs, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:

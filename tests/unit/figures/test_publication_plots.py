@@ -36,7 +36,13 @@ from workbench.figures import (
     td_auc_by_model,
 )
 from workbench.figures.decision import EVERYONE, NO_ONE
-from workbench.figures.style import CVD_MATRICES, PALETTE, model_styles, palette_report, style_context
+from workbench.figures.style import (
+    CVD_MATRICES,
+    PALETTE,
+    model_styles,
+    palette_report,
+    style_context,
+)
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
