@@ -35,6 +35,7 @@ from workbench.figures.style import (
     style_context,
 )
 from workbench.figures.ticks import format_number, time_ticks
+from workbench.figures.wording import chi_squared_text
 from workbench.stats.coxph import fit_coxph
 from workbench.stats.km import KaplanMeierResult, kaplan_meier
 from workbench.stats.logrank import LogRankResult, logrank_test
@@ -135,10 +136,6 @@ def _step(km: KaplanMeierResult, values, min_at_risk: int = 0):
     return x, np.r_[1.0, np.asarray(values)[keep]]
 
 
-def _p_text(p: float) -> str:
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
-
-
 def km_caption(result: KMByGroupResult, *, development: bool = False, min_at_risk: int = 10) -> str:
     """The sentence printed under the curves: group comparison, hazard ratios, where curves stop.
 
@@ -156,9 +153,7 @@ def km_caption(result: KMByGroupResult, *, development: bool = False, min_at_ris
                 f"Hazard ratios: {hrs}.")
     else:
         lr = result.logrank
-        df = int(getattr(lr, "df", len(result.labels) - 1))
-        head = (f"Log-rank chi-squared = {lr.statistic:.1f} with {df} degree{'s' if df != 1 else ''} of "
-                f"freedom, {_p_text(lr.p_value)}. Hazard ratios (95% CI): {hrs}.")
+        head = f"Log-rank {chi_squared_text(lr.statistic, lr.df, lr.p_value)}. Hazard ratios (95% CI): {hrs}."
     return f"{head} Curves stop when fewer than {min_at_risk} patients remain at risk."
 
 

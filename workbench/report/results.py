@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from workbench.cohort.summary import CAUTION, format_summary
+from workbench.figures.wording import chi_squared_text
 from workbench.models.registry import MODEL_LABELS
 
 FORMAT = "workbench-results/1"
@@ -266,7 +267,7 @@ def format_results(result) -> str:
         lines.append(f"{MODEL_LABELS.get(name, name)} vs {MODEL_LABELS.get(comp.baseline, comp.baseline)}:")
         lines.append(f"  difference in Harrell C {fmt_estimate(d)}")
         if lr.nested and np.isfinite(lr.statistic):
-            lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
+            lines.append(f"  likelihood-ratio {chi_squared_text(lr.statistic, lr.df, lr.p_value)} "
                          "(apparent: the signature was built on the same patients)")
     if result.external is not None:
         lines.append("")

@@ -77,7 +77,8 @@ def test_corrected_harrell_c_and_key_numbers_equal_the_results(html, data):
     assert fmt_num(ici) in cal
     inc = text_of(section(html, "incremental"))
     lr = data["comparison"]["combined"]["likelihood_ratio_test"]
-    assert f"{lr['statistic']:.1f} on {lr['df']} df" in inc
+    deg = "degree" if lr["df"] == 1 else "degrees"
+    assert f"chi-squared = {lr['statistic']:.1f} with {lr['df']} {deg} of freedom" in inc
     diff = data["comparison"]["combined"]["differences"]["harrell_c"]["estimate"]
     assert fmt_num(diff) in inc
     ss = text_of(section(html, "sample-size"))
