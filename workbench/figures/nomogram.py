@@ -75,6 +75,7 @@ class _Row:
     horizon: float | None = None
     top: float = 0.0
     line: float = 0.0
+    text: str = ""
 
 
 @dataclass(frozen=True)
@@ -255,7 +256,7 @@ def _row_label(r: _Row, scales: NomogramScales) -> str:
     t = r.term
     if r.piece > 0:
         return ""
-    unit = "score" if t.kind == "signature" else t.unit
+    unit = "SD" if t.kind == "signature" else t.unit
     return f"{t.label} ({unit})" if unit else t.label
 
 
@@ -289,7 +290,7 @@ class _Painter:
         keep = _uniform_keep(xs, widths, self.geo) if order is None else _thin(xs, widths, self.geo, order)
         # a label may not reach into the row names on the left or the patient column on the right
         half = np.asarray(widths) * self.geo.units_per_pt / 2
-        keep = keep & (xs - half >= -1.5) & (xs + half <= 101.5)
+        keep = keep & (xs - half >= -2.2) & (xs + half <= 102.2)
         for x, lab, k in zip(xs, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:
@@ -318,6 +319,33 @@ class _Painter:
         for cx, text, lane in groups:
             up = lane == 0
             self._text(cx, (y + 0.17) if up else (y - 0.17), text, up=up)
+
+    def training_strip(self, t: TermScale, y: float):
+        """Where the training patients lie, just under the axis line: for continuous and
+        signature axes the 5th-95th (thin) and 25th-75th (thick) percentiles with the median;
+        for categorical axes a bar under each level, its height the level's share."""
+        if t.level_shares:
+            for k, share in zip(t.ticks, t.level_shares, strict=True):
+                h = 0.12 * share / max(t.level_shares)
+                self.ax.add_patch(Rectangle((k.points - 0.9, y - 0.03 - h), 1.8, h, facecolor=NEUTRAL, alpha=0.75,
+                                            linewidth=0, clip_on=False, gid=f"share:{t.name}:{k.label}"))
+            return
+        q = dict(t.spread)
+        if not all(k in q for k in (5.0, 25.0, 50.0, 75.0, 95.0)):
+            return
+        x5, x25, x50, x75, x95 = (float(t.points([q[k]])[0]) for k in (5.0, 25.0, 50.0, 75.0, 95.0))
+        yy = y - 0.075
+        self.ax.plot([x5, x95], [yy, yy], color=NEUTRAL, lw=0.6, alpha=0.8, solid_capstyle="butt",
+                     clip_on=False, gid=f"spread:{t.name}")
+        self.ax.plot([x25, x75], [yy, yy], color=NEUTRAL, lw=2.4, alpha=0.6, solid_capstyle="butt",
+                     clip_on=False)
+        self.ax.plot([x50], [yy], marker="|", ms=3.0, color=INK, mew=0.8, clip_on=False)
+
+    def notes(self, rows: list[_Row]):
+        for r in rows:
+            if r.kind == "note":
+                self.ax.text(-self.geo.left, r.line, r.text, ha="left", va="center", fontsize=self.geo.tick_fs,
+                             color=PATIENT_COLOUR if r.text.startswith("!") else NEUTRAL, clip_on=False)
 
     def label(self, text: str, y: float, lift: float = 0.0):
         if text:
@@ -352,6 +380,8 @@ class _Painter:
             yy = y if r.piece > 0 else y - 0.38
             self.ax.text(-2.5, yy, note, ha="right", va="center", fontsize=self.geo.tick_fs, color=NEUTRAL,
                          clip_on=False)
+        if len(t.segments) == 1:
+            self.training_strip(t, y)
         if t.extra_ticks:
             ys = y - 0.55
             for k in t.extra_ticks:
@@ -387,6 +417,21 @@ class _Painter:
         order = _roundness_order([k.value for k in ticks]) if roundness else list(range(len(ticks)))
         self.scale_ticks(xs, [k.label for k in ticks], y, order)
 
+    def open_end(self, ticks, y):
+        """Mark where the median axis stops because longer medians are not estimable from the
+        follow-up: "> 35" just left of the longest median shown."""
+        if not ticks:
+            return
+        k = max(ticks, key=lambda t: t.value)
+        x = float(self.total_x([k.points])[0])
+        text = f"> {k.label}"
+        w = self.m.width(text, self.geo.tick_fs) * self.geo.units_per_pt
+        if x - 1.5 - w < -2.2:
+            return  # no room before the row name: the axis simply starts there
+        self.ax.plot([x - 1.2], [y], marker="<", ms=2.6, color=INK, clip_on=False, gid="open_end")
+        self.ax.text(x - 2.2, y, text, ha="right", va="center", fontsize=self.geo.tick_fs, color=NEUTRAL,
+                     clip_on=False)
+
     # ---------------------------------------------------------------- patient
 
     def patient(self, pp: PatientPoints, rows: list[_Row]):
@@ -406,8 +451,9 @@ class _Painter:
             marker = "o" if inside else (">" if p > hi else "<")
             ax.plot([p if inside else float(np.clip(p, lo, hi))], [y_mark], marker=marker, ms=3.6, color=c,
                     clip_on=False, zorder=5, linestyle="none")
-            ax.text(xr, r.line, format_number(round(p, 1), 3), ha="left", va="center", fontsize=fs,
-                    color=c, clip_on=False)
+            flag = t.name in pp.outside
+            ax.text(xr, r.line, format_number(round(p, 1), 3) + (" !" if flag else ""), ha="left",
+                    va="center", fontsize=fs, color=c, clip_on=False, fontweight="bold" if flag else "normal")
             done.add(t.name)
         x_tot = float(self.total_x(pp.total))
         shown = float(np.clip(x_tot, 0, 100))
@@ -424,7 +470,11 @@ class _Painter:
                 text = f"{pp.survival[r.horizon]:.2f}"
             else:
                 m = pp.median_survival
-                text = format_number(m, 3) if m is not None and np.isfinite(m) else "not reached"
+                longest = max((k.value for k in self.s.median.ticks), default=None) if self.s.median else None
+                if m is not None and np.isfinite(m):
+                    text = format_number(m, 3)
+                else:  # beyond the follow-up: give the open end of the axis, not a long phrase
+                    text = f"> {format_number(longest, 3)}" if longest is not None else "> end"
             ax.text(xr, r.line, text, ha="left", va="center", fontsize=fs, color=c,
                     fontweight="bold" if r.kind != "median" else "normal", clip_on=False)
 
@@ -460,7 +510,7 @@ def _geometry(panel_width_pt: float, fs: float, right_pt: float, label_pt: float
 
 
 def _label_width(items, measure: _Measure, fs: float) -> float:
-    texts = [SCORE_AXIS, SUM_AXIS, "Median survival (months)", "Imaging signature (score)"]
+    texts = [SCORE_AXIS, SUM_AXIS, "Median survival (months)", "Imaging signature (SD)"]
     for s in items:
         texts += [_row_label(_Row("term", 1.0, t), s) for t in s.terms]
         texts += [_row_label(_Row("survival", 1.0, horizon=h), s) for h in s.horizons]
@@ -474,7 +524,7 @@ def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, me
     ax.set_axis_off()
     painter = _Painter(ax, scales, geo, measure)
     for r in rows:
-        if r.kind == "pad":
+        if r.kind in ("pad", "note"):
             continue
         lift = 0.3 if r.kind == "term" and r.term.bands and "\n" in _wrap(_row_label(r, scales)) else 0.0
         painter.label(_row_label(r, scales), r.line, lift)
@@ -488,13 +538,64 @@ def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, me
             painter.prob_row(scales.survival_scale(r.horizon).ticks, r.line)
         elif r.kind == "median":
             painter.prob_row(scales.median.ticks, r.line, roundness=False)
+            painter.open_end(scales.median.ticks, r.line)
     # a faint rule separates the term block from the total-points block
     y_sep = next(r.top for r in rows if r.kind == "total") + 0.02
     ax.plot([-geo.left, 100], [y_sep, y_sep], color=NEUTRAL, lw=0.4, alpha=0.5, clip_on=False)
     ax.text(-geo.left, 0.3, title, ha="left", va="bottom", fontsize=geo.fs + 0.5, fontweight="bold",
             clip_on=False)
+    painter.notes(rows)
     if patient is not None:
         painter.patient(patient, rows)
+
+
+def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str]) -> list[str]:
+    out = []
+    sig = next((t for t in sc.terms if t.kind == "signature"), None)
+    if sig is not None and sig.sd_scale is not None:
+        groups = ", ".join(b.label for b in sig.bands)
+        out.append(
+            f"Imaging signature: weighted sum of the selected harmonised, standardised features, shown in SDs "
+            f"of the training patients' scores (0 = their mean). Bands ({groups}): thirds of the training "
+            f"patients by signature alone, not by the whole model. Grey strips: training patients "
+            f"(5th-95th, 25th-75th percentile, median)."
+        )
+    else:
+        out.append("Grey strips under each axis: training patients (5th-95th, 25th-75th percentile, median; "
+                   "for categories the share at each level).")
+    if pp is not None:
+        for name in pp.outside:
+            t = sc.term(name)
+            lo, hi = t.training_range
+            v = pp.values[name]
+            unit = " SD" if t.kind == "signature" else (f" {t.unit}" if t.unit else "")
+            out.append(
+                f"! {t.label} {format_number(t.display_value(v), 3)}{unit} lies outside the training patients' "
+                f"1st-99th percentiles ({format_number(t.display_value(lo), 3)} to "
+                f"{format_number(t.display_value(hi), 3)}{unit}): the reading is an extrapolation."
+            )
+        out += [f"! {n}" for n in extra]
+    return out
+
+
+def _add_notes(rows: list[_Row], notes: list[str], geo: _Geometry, measure: _Measure) -> None:
+    """Append note rows, wrapped to the panel's width, after the last axis."""
+    limit = (100.0 + geo.left + geo.right) / geo.units_per_pt * 0.98
+    y = rows[-1].top - rows[-1].height
+    first = True
+    for note in notes:
+        lines: list[str] = []
+        for w in note.split(" "):
+            if lines and measure.width(f"{lines[-1]} {w}", geo.tick_fs) <= limit:
+                lines[-1] = f"{lines[-1]} {w}"
+            else:
+                lines.append(w)
+        for k, line in enumerate(lines):
+            h = 0.62 + (0.35 if first else 0.0) + (0.12 if k == 0 and not first else 0.0)
+            text = line if k == 0 or not note.startswith("!") else f"  {line}"
+            rows.append(_Row("note", h, top=y, line=y - h + 0.31, text=text))
+            y -= h
+            first = False
 
 
 def _as_list(scales) -> list[NomogramScales]:
@@ -537,6 +638,7 @@ def plot_nomogram(
     width: str | float = "double",
     caution: str = CAUTION,
     ax=None,
+    notes: Sequence[str] | None = None,
 ):
     """Draw one or more nomograms on a common page layout.
 
@@ -558,6 +660,17 @@ def plot_nomogram(
         Footer small print (default: the workbench's research-use caution).
     ax : matplotlib Axes, optional
         Draw a single nomogram into this Axes and return it.
+    notes : sequence of str, optional
+        Warnings about the patient that the scales cannot know, printed under each panel
+        with a "!" (e.g. "scanner_D was not in the training network: its features were
+        not harmonised"). Values outside the training range are flagged automatically.
+
+    Notes
+    -----
+    Under each axis a grey strip shows where the training patients lie (5th-95th and
+    25th-75th percentiles, median; for categories the share at each level). The imaging
+    signature axis is in SDs of the training patients' scores and its bands are thirds
+    of the training patients by signature alone; a note under the panel says so.
 
     Returns
     -------
@@ -581,6 +694,7 @@ def plot_nomogram(
             bbox = ax.get_position()
             geo = _geometry(bbox.width * ax.figure.get_figwidth() * 72.0, fs, right_pt, label_pt)
             rows = _layout(items[0], _term_block(items[0], geo, measure), geo, measure)
+            _add_notes(rows, _panel_notes(items[0], pats[0], list(notes or ())), geo, measure)
             _draw_panel(ax, items[0], rows, geo, measure, titles[0], pats[0])
             return ax
         w = column_width_inches(width)
@@ -590,6 +704,9 @@ def plot_nomogram(
         # side by side, pad the shorter term block so total-points and survival axes line up
         block = max(_term_block(s, geo, measure) for s in items) if layout == "columns" else 0.0
         layouts = [_layout(s, block, geo, measure) for s in items]
+        extra = list(notes) if notes else []
+        for sc, rows, pp in zip(items, layouts, pats, strict=True):
+            _add_notes(rows, _panel_notes(sc, pp, extra), geo, measure)
         heights = [(sum(r.height for r in rows) + 0.3) * ROW_INCHES for rows in layouts]
         head, foot = 0.22, 0.3
         if layout == "columns":

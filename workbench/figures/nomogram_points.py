@@ -121,6 +121,14 @@ class TermScale:
         The fitted clinical term (None for the signature).
     coef : ndarray
         The term's coefficients.
+    spread : tuple of (percentile, value)
+        Training percentiles of a continuous or signature axis (raw values), drawn as a
+        small distribution strip and used to flag patients outside the training range.
+    level_shares : tuple of float
+        Share of training patients at each level of a categorical axis (tick order).
+    sd_scale : (mean, SD) or None
+        Signature axis only: its labels are in SDs of the training scores,
+        ``(score - mean) / SD``; the arithmetic stays in raw scores.
     """
 
     name: str
@@ -137,6 +145,22 @@ class TermScale:
     bands: tuple[RiskBand, ...] = ()
     transform: str | None = None
     table_range: tuple[float, float] | None = None
+    spread: tuple[tuple[float, float], ...] = ()
+    level_shares: tuple[float, ...] = ()
+    sd_scale: tuple[float, float] | None = None
+
+    @property
+    def training_range(self) -> tuple[float, float] | None:
+        """1st and 99th training percentiles of a continuous or signature axis (raw values)."""
+        q = dict(self.spread)
+        return (q[1.0], q[99.0]) if 1.0 in q and 99.0 in q else None
+
+    def display_value(self, v: float) -> float:
+        """A raw value as the axis labels show it (signature: SDs from the training mean)."""
+        if self.sd_scale is None:
+            return float(v)
+        mean, sd = self.sd_scale
+        return (float(v) - mean) / sd
 
     @property
     def ticks(self) -> tuple[AxisTick, ...]:
@@ -290,6 +314,9 @@ class PatientPoints:
     median_survival : float or None
     imputed : tuple of str
         Axes whose value was missing and imputed.
+    outside : tuple of str
+        Axes whose value lies outside the 1st-99th percentiles of the training
+        patients: the reading there is an extrapolation.
     """
 
     values: Mapping
@@ -299,6 +326,11 @@ class PatientPoints:
     survival: Mapping
     median_survival: float | None = None
     imputed: tuple[str, ...] = field(default=())
+    outside: tuple[str, ...] = field(default=())
+
+
+SPREAD_PERCENTILES = (1.0, 5.0, 10.0, 25.0, 50.0, 75.0, 90.0, 95.0, 99.0)
+"""Training percentiles kept for the signature axis (as clinical terms keep them)."""
 
 
 # ------------------------------------------------------------------ helpers
@@ -517,10 +549,18 @@ def nomogram_scales(
                 lim = format_number(info.detection_limit)
                 below_pts = float((part["below"] - part["lo"]) * ppl)
                 extra = (AxisTick(f"< {lim}", f"<{info.detection_limit:.10g}", below_pts),)
+        categorical = info.kind in ("categorical", "ordinal")
+        counts = np.asarray(getattr(info, "level_counts", ()) or (), dtype=float)
+        shares = (tuple(float(c) for c in counts / counts.sum())
+                  if categorical and counts.size == len(part["levels"]) and counts.sum() > 0 else ())
+        if shares and tuple(part["levels"]) != tuple(info.levels):
+            shares = tuple(shares[list(info.levels).index(lv)] for lv in part["levels"])
         terms.append(TermScale(
             name=info.column, label=info.label, unit=info.unit, kind=info.kind, segments=segs,
             min_contribution=part["lo"], max_contribution=part["hi"], points_per_lp=ppl,
             coef=part["b"], term_info=info, extra_ticks=extra, transform=info.transform,
+            spread=() if categorical else tuple((float(q), float(v)) for q, v in info.percentiles),
+            level_shares=shares,
         ))
     if sig:
         terms.append(_signature_scale(sig, ppl, signature_groups))
@@ -557,8 +597,13 @@ def _signature_scale(sig: dict, ppl: float, method) -> TermScale:
         return (b * np.asarray(v, dtype=float) - sig["lo"]) * ppl
 
     p_lo, p_hi = (float(v) for v in pts([lo, hi]))
-    vals = nice_ticks(lo, hi, _max_ticks(p_hi - p_lo))
-    ticks = tuple(AxisTick(format_number(v), float(v), float(p)) for v, p in zip(vals, pts(vals), strict=True))
+    # labelled in SDs of the training scores, so the axis reads the same whatever the
+    # signature's internal scale; values and arithmetic stay in raw scores
+    mean, sd = float(np.mean(sig["scores"])), float(np.std(sig["scores"], ddof=1))
+    z = nice_ticks((lo - mean) / sd, (hi - mean) / sd, _max_ticks(p_hi - p_lo))
+    vals = mean + z * sd
+    ticks = tuple(AxisTick(format_number(zz), float(v), float(p))
+                  for zz, v, p in zip(z, vals, pts(vals), strict=True))
     edges = np.r_[lo, np.clip(sig["cuts"], lo, hi), hi]
     k = edges.size - 1
     names = GROUP_NAMES.get(k, tuple(f"group {i + 1}" for i in range(k)))
@@ -567,11 +612,13 @@ def _signature_scale(sig: dict, ppl: float, method) -> TermScale:
         for i in range(k)
     )
     return TermScale(
-        name=SIGNATURE_TERM, label="Imaging signature", unit="score", kind="signature",
+        name=SIGNATURE_TERM, label="Imaging signature", unit="SD", kind="signature",
         segments=(AxisSegment(ticks, p_lo, p_hi, (lo, hi)),),
         min_contribution=sig["lo"], max_contribution=sig["hi"], points_per_lp=ppl,
         coef=np.array([b]), bands=bands,
         table_range=(float(sig["scores"].min()), float(sig["scores"].max())),
+        spread=tuple((float(q), float(np.percentile(sig["scores"], q))) for q in SPREAD_PERCENTILES),
+        sd_scale=(mean, sd),
     )
 
 
@@ -620,7 +667,7 @@ def points_for_patient(scales: NomogramScales, raw_values: Mapping) -> PatientPo
             f"the patient has no value for {', '.join(map(repr, absent))}; the nomogram of "
             f"{scales.model!r} needs every one of: {', '.join(t.name for t in scales.terms)}."
         )
-    values, points, imputed = {}, {}, []
+    values, points, imputed, outside = {}, {}, [], []
     for t in scales.terms:
         vals, miss = t.fill_missing([raw_values[t.name]])
         if miss[0]:
@@ -630,13 +677,18 @@ def points_for_patient(scales: NomogramScales, raw_values: Mapping) -> PatientPo
         if not np.isfinite(p):
             raise SpecError(f"{t.label}: the value {raw_values[t.name]!r} gives no points on the nomogram.")
         points[t.name] = p
+        rng = t.training_range
+        v = vals[0]
+        if rng is not None and isinstance(v, (int, float, np.floating, np.integer)) and np.isfinite(float(v)):
+            if not rng[0] <= float(v) <= rng[1]:
+                outside.append(t.name)
     total = float(sum(points.values()))
     surv = {s.horizon: float(s.survival(total)) for s in scales.survival}
     med = scales.median_survival(total) if scales.median is not None else None
     return PatientPoints(
         values=MappingProxyType(values), points=MappingProxyType(points), total=total,
         linear_predictor=float(scales.linear_predictor(total)), survival=MappingProxyType(surv),
-        median_survival=med, imputed=tuple(imputed),
+        median_survival=med, imputed=tuple(imputed), outside=tuple(outside),
     )
 
 

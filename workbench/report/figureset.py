@@ -53,7 +53,7 @@ def _evaluation(result):
     return result.cohort, "development cohort, apparent"
 
 
-def nomogram_figure(result, *, patient=None, layout="columns", width="double"):
+def nomogram_figure(result, *, patient=None, layout="columns", width="double", notes=None):
     """Nomograms of the Cox models of the study (clinical-only and clinical + signature)."""
     train, unit = result.cohort, result.cohort.time_unit
     scales = []
@@ -70,7 +70,43 @@ def nomogram_figure(result, *, patient=None, layout="columns", width="double"):
         raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
     if width == "single" and layout == "columns" and len(scales) > 1:
         layout = "rows"  # two panels side by side do not fit one journal column
-    return plot_nomogram(scales, patient=patient, layout=layout, width=width)
+    return plot_nomogram(scales, patient=patient, layout=layout, width=width, notes=notes)
+
+
+def patient_notes(result, cohort, index: int) -> list[str]:
+    """What the nomogram cannot see about one patient: a scanner (batch) the training network never used."""
+    train_batches = set(map(str, result.cohort.batch)) if result.cohort.batch is not None else set()
+    if cohort.batch is None or not train_batches:
+        return []
+    b = str(cohort.batch[int(index)])
+    if b in train_batches:
+        return []
+    return [f"{b} was not among the training scanners ({', '.join(sorted(train_batches))}): this patient's "
+            "features were standardised without harmonisation, so the signature may be off."]
+
+
+def showcase_patients(result, cohort, signature_scores) -> dict[str, int]:
+    """Two example rows of ``cohort`` for the nomogram overlay.
+
+    ``"typical"``: the first patient from a scanner seen in training whose signature lies
+    inside the training range; ``"flagged"``: the first patient from an unseen scanner,
+    preferring one whose signature lies outside the training range (absent when every
+    patient's scanner was seen).
+    """
+    train = result.models["combined"].signature_score(result.cohort)
+    lo, hi = np.percentile(train, [1.0, 99.0])
+    s = np.asarray(signature_scores, dtype=float)
+    inside = (s >= lo) & (s <= hi)
+    unseen = np.array([bool(patient_notes(result, cohort, i)) for i in range(cohort.n)])
+    out = {}
+    ok = np.flatnonzero(~unseen & inside)
+    if ok.size:
+        out["typical"] = int(ok[0])
+    bad = np.flatnonzero(unseen & ~inside)
+    bad = bad if bad.size else np.flatnonzero(unseen)
+    if bad.size:
+        out["flagged"] = int(bad[0])
+    return out
 
 
 def study_figures(result, *, width="double") -> dict:
