@@ -20,7 +20,12 @@ from pathlib import Path
 
 from workbench.errors import WorkbenchWarning
 from workbench.figures import patient_values, save_figure
-from workbench.report.figureset import nomogram_figure, patient_notes, showcase_patients, write_figures
+from workbench.report.figureset import (
+    nomogram_figure,
+    patient_notes,
+    showcase_patients,
+    write_figures,
+)
 from workbench.study import read_study
 from workbench.workflow import run_study
 

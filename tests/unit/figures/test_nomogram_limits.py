@@ -16,7 +16,12 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
 
 from workbench.figures.nomogram import plot_nomogram
-from workbench.figures.nomogram_points import SIGNATURE_TERM, nomogram_scales, patient_values, points_for_patient
+from workbench.figures.nomogram_points import (
+    SIGNATURE_TERM,
+    nomogram_scales,
+    patient_values,
+    points_for_patient,
+)
 from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
 from workbench.study import read_study
