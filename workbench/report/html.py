@@ -180,7 +180,9 @@ def _km_fig(model, train, cohort, unit, title):
     from workbench.figures import km_by_group, plot_km_by_group, risk_groups
 
     groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, "tertiles")
-    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
+    # on the development patients the groups come from a model fitted to them: described, not tested
+    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title,
+                            development=cohort is train)
 
 
 def _auc_fig(models, train, cohort, horizons, unit, title):
@@ -190,8 +192,11 @@ def _auc_fig(models, train, cohort, horizons, unit, title):
     hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
     grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
     risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
+    # the legend's mean AUC is the results table's: over the study horizons, weighted by events
+    means = {k: r.mean_auc for k, r in td_auc_by_model(train.y, cohort.y, risks, horizons).items()}
+    window = "at " + ", ".join(f"{h:g}" for h in horizons) + (f" {unit}" if unit else "")
     return plot_td_auc(td_auc_by_model(train.y, cohort.y, risks, grid), time_unit=unit, horizons=horizons,
-                       title=title)
+                       title=title, mean_auc=means, mean_window=window)
 
 
 def _decision_fig(d: dict, unit: str, j: int):
