@@ -164,8 +164,11 @@ def plot_calibration_panels(
         w_in = fig.get_figwidth()
         fs_in = base_font_size(width) / 72.0
         # each row: square panels, a three-line panel title, the model name; then heading and legend
-        row_in = (w_in - 6 * fs_in) / n_h + 6.5 * fs_in
-        fig.set_figheight(len(names) * row_in + 9 * fs_in)
+        panel_in = (w_in - 6 * fs_in) / n_h
+        # at most a journal page high (about 230 mm): with many models the square panels shrink
+        page_in = 230.0 / 25.4
+        panel_in = min(panel_in, (page_in - 9 * fs_in) / len(names) - 6.5 * fs_in)
+        fig.set_figheight(len(names) * (panel_in + 6.5 * fs_in) + 9 * fs_in)
         rows = fig.subfigures(len(names), 1, squeeze=False)[:, 0]
         grid = np.array([row.subplots(1, n_h, squeeze=False)[0] for row in rows])
         for j in range(n_h):
