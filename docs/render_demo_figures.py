@@ -56,7 +56,8 @@ def main(argv=None) -> None:
         if kind not in picks:
             continue
         i = picks[kind]
-        fig = nomogram_figure(result, patient=patient_values(ext, i, sig), notes=patient_notes(result, ext, i))
+        fig = nomogram_figure(result, patient=patient_values(ext, i, sig), notes=patient_notes(result, ext, i),
+                              patient_row=(ext, i))
         for p in save_figure(fig, out / stem, widths=("double",), formats=("png",)):
             final = p.with_name(f"{stem}.png")
             p.replace(final)

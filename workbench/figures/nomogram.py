@@ -77,6 +77,7 @@ from workbench.figures.style import (
 from workbench.figures.ticks import format_number
 
 PATIENT_COLOUR = PALETTE[3]
+PATIENT_COLUMN = 0.2  # where the patient's numbers start, as a share of the right margin
 ROW_INCHES = 0.25
 _CHAR_WIDTH = 0.56  # average glyph width in units of the font size (sans-serif, common practice)
 _BAND_ALPHAS = (0.10, 0.25, 0.42, 0.60)
@@ -86,6 +87,7 @@ class _Painter:
 
     def __init__(self, ax, scales: NomogramScales, geo: _Geometry, measure: _Measure):
         self.ax, self.s, self.geo, self.m = ax, scales, geo, measure
+        self.right_limit = 100.0 + geo.right  # labels may use the right margin unless a patient column is there
 
     def total_x(self, total):
         return np.asarray(total, dtype=float) * 100.0 / self.s.total_axis_max
@@ -107,7 +109,7 @@ class _Painter:
         keep = _uniform_keep(xs, widths, self.geo) if order is None else _thin(xs, widths, self.geo, order)
         # a label may not reach into the row names on the left or the patient column on the right
         half = np.asarray(widths) * self.geo.units_per_pt / 2
-        keep = keep & (xs - half >= -2.2) & (xs + half <= 102.2)
+        keep = keep & (xs - half >= -2.2) & (xs + half <= self.right_limit)
         for x, lab, k in zip(xs, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:
@@ -251,9 +253,20 @@ class _Painter:
 
     # ---------------------------------------------------------------- patient
 
+    def intervals(self, interval: Mapping, rows: list[_Row]):
+        """The read-off's 95% interval as a bar along each survival axis (from ``lower`` to ``upper``)."""
+        for r in rows:
+            if r.kind != "survival" or r.horizon not in interval:
+                continue
+            lo, hi = interval[r.horizon]
+            tot = self.s.survival_scale(r.horizon).total_points_for([hi, lo])  # higher survival, fewer points
+            xs = np.clip(self.total_x(tot), 0.0, 100.0)
+            self.ax.plot(xs, [r.line, r.line], color=PATIENT_COLOUR, lw=3.2, alpha=0.35, solid_capstyle="butt",
+                         clip_on=False, gid=f"interval:{r.horizon:g}")
+
     def patient(self, pp: PatientPoints, rows: list[_Row]):
         ax, c, fs = self.ax, PATIENT_COLOUR, self.geo.tick_fs
-        xr = 100 + 0.16 * self.geo.right
+        xr = 100 + PATIENT_COLUMN * self.geo.right
         ax.text(xr, rows[0].line, "patient", ha="left", va="center", fontsize=fs, color=c, clip_on=False,
                 fontweight="bold")
         done = set()
@@ -321,11 +334,13 @@ class _Span:
 
 
 def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, measure: _Measure,
-                title: str, patient: PatientPoints | None) -> None:
+                title: str, patient: PatientPoints | None, interval: Mapping | None = None) -> None:
     ax.set_xlim(-geo.left, 100 + geo.right)
     ax.set_ylim(rows[-1].top - rows[-1].height, 0.3)
     ax.set_axis_off()
     painter = _Painter(ax, scales, geo, measure)
+    if patient is not None:
+        painter.right_limit = 100.0 + PATIENT_COLUMN * geo.right - 0.5
     for r in rows:
         if r.kind in ("pad", "note"):
             continue
@@ -350,6 +365,8 @@ def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, me
     painter.notes(rows)
     if patient is not None:
         painter.patient(patient, rows)
+        if interval:
+            painter.intervals(interval, rows)
 
 
 def _as_list(scales) -> list[NomogramScales]:
@@ -393,6 +410,7 @@ def plot_nomogram(
     caution: str = CAUTION,
     ax=None,
     notes: Sequence[str] | None = None,
+    intervals: Sequence[Mapping | None] | None = None,
 ):
     """Draw one or more nomograms on a common page layout.
 
@@ -414,6 +432,10 @@ def plot_nomogram(
         Footer small print (default: the workbench's research-use caution).
     ax : matplotlib Axes, optional
         Draw a single nomogram into this Axes and return it.
+    intervals : sequence of mappings, optional
+        One per panel: horizon -> (lower, upper) 95% limits of the patient's predicted
+        survival (e.g. from ``model.predict_survival_with_ci``), drawn as a bar on each
+        survival axis and listed under the panel.
     notes : sequence of str, optional
         Warnings about the patient that the scales cannot know, printed under each panel
         with a "!" (e.g. "scanner_D was not in the training network: its features were
@@ -432,13 +454,16 @@ def plot_nomogram(
     """
     items = _as_list(scales)
     pats = _patients(patient, items)
+    ivs = list(intervals) if intervals is not None else [None] * len(items)
+    if len(ivs) != len(items):
+        raise SpecError(f"give one interval mapping per model ({len(items)}), or none; got {len(ivs)}.")
     if layout not in ("columns", "rows"):
         raise SpecError(f"layout {layout!r} is not known; use 'columns' (side by side) or 'rows' (stacked).")
     titles = list(titles) if titles is not None else [s.model for s in items]
     if len(titles) != len(items):
         raise SpecError(f"{len(titles)} titles for {len(items)} nomograms; give one per model.")
     fs = base_font_size(width)
-    right_pt = 36.0 if any(p is not None for p in pats) else 4.0
+    right_pt = 36.0 if any(p is not None for p in pats) else 8.0
     with style_context(width):
         measure = _Measure()
         label_pt = _label_width(items, measure, fs)
@@ -448,8 +473,8 @@ def plot_nomogram(
             bbox = ax.get_position()
             geo = _geometry(bbox.width * ax.figure.get_figwidth() * 72.0, fs, right_pt, label_pt)
             rows = _layout(items[0], _term_block(items[0], geo, measure), geo, measure)
-            _add_notes(rows, _panel_notes(items[0], pats[0], list(notes or ())), geo, measure)
-            _draw_panel(ax, items[0], rows, geo, measure, titles[0], pats[0])
+            _add_notes(rows, _panel_notes(items[0], pats[0], list(notes or ()), ivs[0]), geo, measure)
+            _draw_panel(ax, items[0], rows, geo, measure, titles[0], pats[0], ivs[0])
             return ax
         w = column_width_inches(width)
         n = len(items)
@@ -459,8 +484,8 @@ def plot_nomogram(
         block = max(_term_block(s, geo, measure) for s in items) if layout == "columns" else 0.0
         layouts = [_layout(s, block, geo, measure) for s in items]
         extra = list(notes) if notes else []
-        for sc, rows, pp in zip(items, layouts, pats, strict=True):
-            _add_notes(rows, _panel_notes(sc, pp, extra), geo, measure)
+        for sc, rows, pp, iv in zip(items, layouts, pats, ivs, strict=True):
+            _add_notes(rows, _panel_notes(sc, pp, extra, iv), geo, measure)
         heights = [(sum(r.height for r in rows) + 0.3) * ROW_INCHES for rows in layouts]
         head, foot = 0.22, 0.3
         if layout == "columns":
@@ -469,13 +494,13 @@ def plot_nomogram(
             h = sum(heights) + n * head + foot
         fig = Figure(figsize=(w, h))
         top = h
-        for i, (s, rows, title, pp) in enumerate(zip(items, layouts, titles, pats, strict=True)):
+        for i, (s, rows, title, pp, iv) in enumerate(zip(items, layouts, titles, pats, ivs, strict=True)):
             if layout == "columns":
                 rect = (i / n + 0.01, (h - head - heights[i]) / h, frac_w, heights[i] / h)
             else:
                 top -= head + heights[i]
                 rect = (0.01, top / h, frac_w, heights[i] / h)
-            _draw_panel(fig.add_axes(rect), s, rows, geo, measure, title, pp)
+            _draw_panel(fig.add_axes(rect), s, rows, geo, measure, title, pp, iv)
         if caution:
             fig.text(0.01, 0.1 * foot / h, caution, ha="left", va="bottom", fontsize=small_print_size(width),
                      color=NEUTRAL, wrap=True)

@@ -235,7 +235,7 @@ def _label_width(items, measure: _Measure, fs: float) -> float:
     return max(measure.width(_wrap(t), fs) for t in texts) + 6.0
 
 
-def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str]) -> list[str]:
+def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str], interval=None) -> list[str]:
     out = []
     sig = next((t for t in sc.terms if t.kind == "signature"), None)
     if sig is not None and sig.sd_scale is not None:
@@ -260,6 +260,11 @@ def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str])
                 f"1st-99th percentiles ({format_number(t.display_value(lo), 3)} to "
                 f"{format_number(t.display_value(hi), 3)}{unit}): the reading is an extrapolation."
             )
+        if interval:
+            unit = f" {sc.time_unit}" if sc.time_unit else ""
+            parts = [f"{format_number(h)}{unit} {lo:.2f} to {hi:.2f}" for h, (lo, hi) in sorted(interval.items())]
+            out.append("Shaded bars on the survival axes: 95% interval of this patient's predicted survival "
+                       f"({'; '.join(parts)}).")
         out += [f"! {n}" for n in extra]
     return out
 

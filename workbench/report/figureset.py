@@ -53,10 +53,14 @@ def _evaluation(result):
     return result.cohort, "development cohort, apparent"
 
 
-def nomogram_figure(result, *, patient=None, layout="columns", width="double", notes=None):
-    """Nomograms of the Cox models of the study (clinical-only and clinical + signature)."""
+def nomogram_figure(result, *, patient=None, layout="columns", width="double", notes=None, patient_row=None):
+    """Nomograms of the Cox models of the study (clinical-only and clinical + signature).
+
+    ``patient_row=(cohort, index)`` (the row the ``patient`` values came from) adds the
+    95% interval of each model's predicted survival for that patient.
+    """
     train, unit = result.cohort, result.cohort.time_unit
-    scales = []
+    scales, intervals = [], []
     for name in COX_MODELS:
         m = result.models.get(name)
         if m is None:
@@ -66,11 +70,17 @@ def nomogram_figure(result, *, patient=None, layout="columns", width="double", n
             nomogram_scales(m, tuple(result.spec.horizons), signature_scores=sig, time_unit=unit,
                             median_axis=True, name=MODEL_LABELS[name])
         )
+        if patient_row is not None:
+            cohort, i = patient_row
+            ci = m.predict_survival_with_ci(cohort.take([int(i)]), tuple(result.spec.horizons))
+            intervals.append({float(h): (float(ci.lower[0, k]), float(ci.upper[0, k]))
+                              for k, h in enumerate(result.spec.horizons)})
     if not scales:
         raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
     if width == "single" and layout == "columns" and len(scales) > 1:
         layout = "rows"  # two panels side by side do not fit one journal column
-    return plot_nomogram(scales, patient=patient, layout=layout, width=width, notes=notes)
+    return plot_nomogram(scales, patient=patient, layout=layout, width=width, notes=notes,
+                         intervals=intervals if patient_row is not None else None)
 
 
 def patient_notes(result, cohort, index: int) -> list[str]:

@@ -24,7 +24,12 @@ from matplotlib.figure import Figure
 from workbench.errors import WorkbenchWarning
 from workbench.figures import patient_values
 from workbench.figures.legibility import legibility_problems
-from workbench.report.figureset import nomogram_figure, study_figures
+from workbench.report.figureset import (
+    nomogram_figure,
+    patient_notes,
+    showcase_patients,
+    study_figures,
+)
 from workbench.study import read_study
 from workbench.workflow import run_study
 
@@ -56,13 +61,38 @@ def test_every_standard_figure_is_readable(demo_result, width):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", WorkbenchWarning)
         sig = demo_result.models["combined"].signature_score(ext)
-    figs["nomogram_patient"] = nomogram_figure(demo_result, patient=patient_values(ext, 0, sig), width=width)
+    picks = showcase_patients(demo_result, ext, sig)
+    for kind, i in picks.items():
+        figs[f"nomogram_patient_{kind}"] = nomogram_figure(
+            demo_result, patient=patient_values(ext, i, sig), width=width, notes=patient_notes(demo_result, ext, i),
+            patient_row=(ext, i))
+    assert set(picks) == {"typical", "flagged"}  # the demo's external hospital has the unseen scanner
     found = {name: legibility_problems(fig) for name, fig in figs.items()}
     bad = {k: v for k, v in found.items() if v}
     assert not bad, f"at {width} width: {bad}"
     mm = 85.0 if width == "single" else 175.0
     for name, fig in figs.items():
         assert fig.get_figwidth() * 25.4 == pytest.approx(mm), name  # drawn for the column, not rescaled
+
+
+def test_showcase_patients_and_their_intervals(demo_result):
+    ext = demo_result.external_prepared.cohort
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", WorkbenchWarning)
+        sig = demo_result.models["combined"].signature_score(ext)
+        picks = showcase_patients(demo_result, ext, sig)
+        train_batches = set(map(str, demo_result.cohort.batch))
+        assert str(ext.batch[picks["typical"]]) in train_batches and not patient_notes(demo_result, ext,
+                                                                                        picks["typical"])
+        assert str(ext.batch[picks["flagged"]]) not in train_batches
+        assert "not among the training scanners" in patient_notes(demo_result, ext, picks["flagged"])[0]
+        # the interval drawn is the model's own delta-method interval, and it holds the read-off
+        m = demo_result.models["combined"]
+        i = picks["flagged"]
+        ci = m.predict_survival_with_ci(ext.take([i]), demo_result.spec.horizons)
+        point = m.predict_survival(ext.take([i]), demo_result.spec.horizons).probs[0]
+    assert np.all(ci.lower[0] <= point + 1e-12) and np.all(point <= ci.upper[0] + 1e-12)
+    np.testing.assert_allclose(ci.survival[0], point, atol=1e-10)
 
 
 # ------------------------------------------------------------------ the checker finds what it should

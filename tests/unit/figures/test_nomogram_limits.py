@@ -121,3 +121,23 @@ def test_median_axis_marks_its_open_end(demo):
     assert any(t.get_text() == f"> {max(sc.median.ticks, key=lambda k: k.value).label}" for t in ax.texts)
     assert [ln for ln in ax.get_lines() if ln.get_gid() == "open_end"]
     assert longest > 0
+
+
+def test_read_off_interval_is_drawn_where_the_limits_fall(demo):
+    cohort, sig, sc = demo
+    values = patient_values(cohort, 3, sig)
+    pp = points_for_patient(sc, values)
+    # limits around the read-off (any pair inside (0, 1) will do for the drawing check)
+    iv = {h: (max(0.01, pp.survival[h] - 0.1), min(0.99, pp.survival[h] + 0.08)) for h in sc.horizons}
+    fig = plot_nomogram(sc, patient=values, intervals=[iv])
+    ax = fig.axes[0]
+    for h, (lo, hi) in iv.items():
+        bar = next(ln for ln in ax.get_lines() if ln.get_gid() == f"interval:{h:g}")
+        x = np.sort(bar.get_xdata())
+        expected = np.sort(sc.survival_scale(h).total_points_for([hi, lo]) * 100.0 / sc.total_axis_max)
+        np.testing.assert_allclose(x, np.clip(expected, 0, 100), atol=1e-9)
+        # the read-off lies inside its interval bar
+        x_pt = pp.total * 100.0 / sc.total_axis_max
+        assert x[0] - 1e-9 <= x_pt <= x[1] + 1e-9
+    text = " ".join(t.get_text() for t in ax.texts).replace("\n", " ")
+    assert "95% interval of this patient's predicted survival" in text
