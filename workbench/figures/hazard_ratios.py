@@ -27,8 +27,16 @@ from workbench.figures.style import (
 COLUMNS = ("column", "label", "contrast", "hr", "lower", "upper", "p_value", "is_reference")
 
 
-def forest_table(model) -> pd.DataFrame:
+def forest_table(model, *, signature_sd: float | None = None) -> pd.DataFrame:
     """Hazard-ratio rows of a fitted Cox model, with reference levels and the signature.
+
+    Parameters
+    ----------
+    model : ClinicalCox or CombinedCox (fitted)
+    signature_sd : float, optional
+        SD of the training patients' signature scores: the signature's hazard ratio is then
+        given per SD, ``exp(b * SD)`` with limits ``exp((b -+ z se) * SD)``, the unit the
+        nomogram's signature axis uses. Without it, per unit of the raw score.
 
     Returns
     -------
@@ -49,9 +57,13 @@ def forest_table(model) -> pd.DataFrame:
     if SIGNATURE_TERM in model.fit_.names:
         f = model.fit_
         j = list(f.names).index(SIGNATURE_TERM)
-        rows.append({"column": SIGNATURE_TERM, "label": "Imaging signature", "contrast": "per unit of score",
-                     "hr": float(f.hazard_ratio[j]), "lower": float(np.exp(f.ci_lower[j])),
-                     "upper": float(np.exp(f.ci_upper[j])), "p_value": float(f.p_value[j]),
+        k = 1.0 if signature_sd is None else float(signature_sd)
+        if not (np.isfinite(k) and k > 0):
+            raise SpecError(f"signature_sd must be a positive SD of the training scores, not {signature_sd!r}.")
+        rows.append({"column": SIGNATURE_TERM, "label": "Imaging signature",
+                     "contrast": "per unit of score" if signature_sd is None else "per SD of training scores",
+                     "hr": float(np.exp(f.coef[j] * k)), "lower": float(np.exp(f.ci_lower[j] * k)),
+                     "upper": float(np.exp(f.ci_upper[j] * k)), "p_value": float(f.p_value[j]),
                      "is_reference": False})
     return pd.DataFrame(rows, columns=list(COLUMNS))
 

@@ -154,7 +154,9 @@ def km_caption(result: KMByGroupResult, *, development: bool = False, min_at_ris
     else:
         lr = result.logrank
         head = f"Log-rank {chi_squared_text(lr.statistic, lr.df, lr.p_value)}. Hazard ratios (95% CI): {hrs}."
-    return f"{head} Curves stop when fewer than {min_at_risk} patients remain at risk."
+    cuts = ", ".join(format_number(c, 3) for c in np.atleast_1d(result.cutpoints))
+    where = f" Groups cut at {cuts} on the risk score (fixed on the training patients)." if cuts else ""
+    return f"{head}{where} Curves stop when fewer than {min_at_risk} patients remain at risk."
 
 
 def plot_km_by_group(

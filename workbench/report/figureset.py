@@ -40,6 +40,7 @@ from workbench.figures import (
     save_figure,
     td_auc_by_model,
 )
+from workbench.figures.nomogram_points import SIGNATURE_TERM
 from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import MODEL_LABELS
@@ -163,7 +164,10 @@ def study_figures(result, *, width="double") -> dict:
                                                      title=where.capitalize(), width=width)
     for name in COX_MODELS:
         if name in models:
-            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(models[name]), title=labels[name],
+            m = models[name]
+            sd = (float(np.std(m.signature_score(train), ddof=1)) if hasattr(m, "signature_score")
+                  and SIGNATURE_TERM in m.fit_.names else None)
+            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(m, signature_sd=sd), title=labels[name],
                                                              width=width)
     sig_model = models.get("combined")
     sel = result.validation.selection.get("combined")

@@ -76,7 +76,7 @@ SECTIONS = (
 
 _GLOBAL = ("harrell_c", "uno_c", "mean_auc", "ibs", "null_ibs", "ipa_integrated")
 _LABELS = {
-    "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC", "ibs": "Integrated Brier score",
+    "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC over the horizons", "ibs": "Integrated Brier score",
     "null_ibs": "Integrated Brier, Kaplan-Meier null", "ipa_integrated": "IPA, integrated",
     "auc": "AUC", "brier": "Brier score", "ipa": "IPA", "ici": "ICI", "e50": "E50", "e90": "E90",
     "cal_slope": "Calibration slope", "oe_ratio": "Observed / expected",

@@ -182,6 +182,7 @@ def test_km_plot_draws_the_estimates_and_true_numbers_at_risk(leukemia):
     caption = fig.get_supxlabel()
     assert f"chi-squared = {res.logrank.statistic:.1f} with 1 degree of freedom" in caption.replace("\n", " ")
     assert "p < 0.001" in caption
+    assert "Groups cut at 0.5 on the risk score" in caption.replace("\n", " ")
     dev = plot_km_by_group(res, development=True).get_supxlabel().replace("\n", " ")
     assert "descriptive" in dev and "p =" not in dev and "p <" not in dev and "chi-squared" not in dev
 
@@ -274,6 +275,17 @@ def test_forest_markers_sit_at_the_hazard_ratios(demo):
     cea = table[table["column"] == "cea_ng_ml"]
     assert "per doubling" in set(cea["contrast"])
     assert ax.get_xscale() == "log"
+    # per SD of the training scores, the nomogram's unit: exp(b * SD) with limits scaled alike
+    _, train, _, _ = demo
+    sd = float(np.std(models["combined"].signature_score(train), ddof=1))
+    per_sd = forest_table(models["combined"], signature_sd=sd)
+    row = per_sd[per_sd["column"] == "imaging_signature"].iloc[0]
+    f = models["combined"].fit_
+    j = list(f.names).index("imaging_signature")
+    assert row["contrast"] == "per SD of training scores"
+    assert row["hr"] == pytest.approx(np.exp(f.coef[j] * sd), rel=1e-12)
+    assert (row["lower"], row["upper"]) == pytest.approx((np.exp(f.ci_lower[j] * sd), np.exp(f.ci_upper[j] * sd)))
+    assert row["p_value"] == pytest.approx(f.p_value[j])  # the test does not depend on the unit
 
 
 def test_selection_frequency_bars_equal_the_input():
