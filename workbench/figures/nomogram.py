@@ -107,13 +107,20 @@ class _Painter:
         xs = np.asarray(xs, dtype=float)
         widths = [self.m.width(lab, self.geo.tick_fs) for lab in labels]
         keep = _uniform_keep(xs, widths, self.geo) if order is None else _thin(xs, widths, self.geo, order)
-        # a label may not reach into the row names on the left or the patient column on the right
+        # a label may not reach into the row names on the left or the patient column on the right:
+        # at the ends it slides inwards while it still sits over its tick, otherwise it is left out
         half = np.asarray(widths) * self.geo.units_per_pt / 2
-        keep = keep & (xs - half >= -2.2) & (xs + half <= self.right_limit)
-        for x, lab, k in zip(xs, labels, keep, strict=True):
+        cx = np.minimum(np.maximum(xs, -2.2 + half), self.right_limit - half)
+        gap = 0.35 * self.geo.tick_fs * self.geo.units_per_pt
+        keep = keep & (np.abs(cx - xs) <= 0.6 * half)
+        shown = np.flatnonzero(keep)
+        for a, b in zip(shown[:-1], shown[1:], strict=True):  # a slid label must still clear its neighbour
+            if abs(cx[b] - cx[a]) < half[a] + half[b] + gap:
+                keep[a if cx[a] != xs[a] else b] = False
+        for x, c, lab, k in zip(xs, cx, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:
-                self._text(x, y + 0.17, lab)
+                self._text(c, y + 0.17, lab)
 
     def level_ticks(self, xs, labels, y, lanes):
         centres = _label_centres(xs, [self.m.width(lab, self.geo.tick_fs) for lab in labels], self.geo)

@@ -183,14 +183,30 @@ def _continuous_segments(info, part, scale_fn, ppl) -> tuple[AxisSegment, ...]:
 
 
 def _survival_ticks(scale: SurvivalScale, axis_max: float) -> tuple[AxisTick, ...]:
+    """Regular survival ticks: every tenth (0.1 ... 0.9) that falls on the axis, the same step on
+    every axis and panel; beyond the last tenth at either end, one tail value (0.95, 0.98, 0.99 or
+    0.05, 0.02, 0.01) may close the axis."""
     min_gap = 0.07 * axis_max
     kept: list[AxisTick] = []
-    for prob, _prio in sorted(_SURVIVAL_CANDIDATES, key=lambda c: c[1]):
+
+    def place(prob) -> None:
         t = float(scale.total_points_for(prob))
-        if not 0.0 <= t <= axis_max:
-            continue
-        if all(abs(t - k.points) >= min_gap for k in kept):
+        if 0.0 <= t <= axis_max and all(abs(t - k.points) >= min_gap for k in kept):
             kept.append(AxisTick(format_number(prob, 2), prob, t))
+
+    for p10 in range(1, 10):
+        place(p10 / 10)
+    if kept:
+        hi, lo = max(k.value for k in kept), min(k.value for k in kept)
+        for tail in (0.95, 0.98, 0.99):
+            if tail > hi and len([k for k in kept if k.value > hi]) == 0:
+                place(tail)
+        for tail in (0.05, 0.02, 0.01):
+            if tail < lo and len([k for k in kept if k.value < lo]) == 0:
+                place(tail)
+    else:
+        for prob, _prio in sorted(_SURVIVAL_CANDIDATES, key=lambda c: c[1]):
+            place(prob)
     return tuple(sorted(kept, key=lambda k: k.points))
 
 

@@ -141,3 +141,19 @@ def test_read_off_interval_is_drawn_where_the_limits_fall(demo):
         assert x[0] - 1e-9 <= x_pt <= x[1] + 1e-9
     text = " ".join(t.get_text() for t in ax.texts).replace("\n", " ")
     assert "95% interval of this patient's predicted survival" in text
+
+
+def test_survival_ticks_are_regular_tenths(demo):
+    _, _, sc = demo
+    tails = {0.95, 0.98, 0.99, 0.05, 0.02, 0.01}
+    for s in sc.survival:
+        vals = [k.value for k in s.ticks]
+        inner = [v for v in vals if v not in tails]
+        assert inner and all(abs(v * 10 - round(v * 10)) < 1e-12 for v in inner)  # tenths only inside
+        # a tail value only closes the axis beyond the last tenth
+        for v in vals:
+            if v in tails:
+                assert v > max(inner) or v < min(inner)
+        # every tick sits where the scale gives that survival
+        for k in s.ticks:
+            assert float(s.survival(k.points)) == pytest.approx(k.value, abs=1e-9)
