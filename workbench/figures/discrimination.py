@@ -26,7 +26,7 @@ from workbench.figures.style import (
     model_styles,
     style_context,
 )
-from workbench.figures.ticks import format_number
+from workbench.figures.ticks import format_number, time_ticks
 from workbench.metrics.td_auc import TimeDependentAUCResult, time_dependent_auc
 
 
@@ -91,6 +91,12 @@ def plot_td_auc(
         lo = min(float(np.min(r.ci_lower)) for r in results.values())
         a.set_ylim(max(0.0, min(0.45, np.floor(lo * 20) / 20)), 1.0)
         unit = f" ({time_unit})" if time_unit else ""
+        t_hi = max(float(np.max(r.times)) for r in results.values())
+        t_lo = min(float(np.min(r.times)) for r in results.values())
+        ticks = time_ticks(t_hi, time_unit, 7)
+        if time_unit and ticks.size >= 3:  # the study's own steps (12, 24, 36 months ...)
+            a.set_xticks(ticks, labels=[format_number(v) for v in ticks])
+            a.set_xlim(min(t_lo, ticks[0]) if t_lo < ticks[1] else t_lo, t_hi)
         a.set_xlabel(f"Time{unit}")
         a.set_ylabel("Time-dependent AUC")
         if mean_window is None:

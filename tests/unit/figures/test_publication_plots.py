@@ -210,6 +210,7 @@ def test_td_auc_lines_equal_the_results(demo):
         line = _line(ax, f"{name} ({r.mean_auc:.2f})")
         np.testing.assert_allclose(line.get_xdata(), r.times)
         np.testing.assert_allclose(line.get_ydata(), r.auc)
+    np.testing.assert_array_equal(ax.get_xticks(), [0, 12, 24, 36])  # the study's month steps
     # the legend states the window of the mean it shows
     assert fig.legends[0].get_title().get_text() == "Model (mean AUC, 6 to 42 months)"
     # given the study's own means, the legend shows those and their window
