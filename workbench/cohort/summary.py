@@ -18,7 +18,7 @@ import pandas as pd
 
 from workbench.cohort.codes import code_order
 from workbench.cohort.core import Cohort
-from workbench.cohort.samplesize import SampleSizeResult, minimum_sample_size
+from workbench.cohort.samplesize import SampleSizeResult, criteria_rows, minimum_sample_size
 from workbench.errors import CohortError, LowEventsWarning
 from workbench.stats.km import (
     kaplan_meier,
@@ -289,14 +289,12 @@ def format_summary(s: CohortSummary) -> str:
         "",
         f"Minimum sample size for a Cox model with {ss.n_parameters} parameters (Riley et al. 2019/2020),",
         f"  Cox-Snell R-squared {ss.r2_cs:.3f}, {ss.r2_cs_source}; maximum {ss.max_r2_cs:.3f}:",
-        f"  (i)   shrinkage >= {ss.shrinkage_target}: {ss.n_shrinkage} patients",
-        f"  (ii)  optimism in R-squared <= 0.05: {ss.n_optimism} patients",
     ]
-    if ss.n_overall_risk is not None:
-        lines.append(f"  (iii) overall risk at {ss.horizon:g} {u} within +/-0.05: {ss.n_overall_risk} patients")
+    lines += [f"  - {what}: {n} patients" for what, n in criteria_rows(ss, u)[:-1]]
     verdict = "meets" if ss.adequate else "falls short of"
     lines.append(
-        f"  required {ss.n_required} patients ({ss.events_required} events); this cohort ({ss.n_available}) {verdict} it."
+        f"  patients needed: {ss.n_required} ({ss.events_required} events), the most demanding of these; "
+        f"this cohort ({ss.n_available}) {verdict} it."
     )
     si = s.sample_size_imaging
     if si is not None:

@@ -22,7 +22,10 @@ from workbench.errors import SpecError
 from workbench.figures.style import (
     BAND_ALPHA,
     NEUTRAL,
+    SeriesStyle,
+    base_font_size,
     figure_and_axes,
+    model_styles,
     new_figure,
     series_style,
     style_context,
@@ -47,9 +50,10 @@ def plot_calibration(
     ax=None,
     width: str | float = "single",
     time_unit: str = "",
-    series: int = 0,
+    series: int | str | None = None,
     title: str | None = None,
     limit: float | None = None,
+    compact: bool = False,
 ):
     """Draw one model's calibration at one horizon.
 
@@ -61,11 +65,14 @@ def plot_calibration(
     ax : Axes, optional
     width : "single", "double" or millimetres
     time_unit : str
-    series : int
-        Colour and marker index (so a model keeps its colour across figures).
+    series : int or str, optional
+        Palette index, or the model's name; by default the result's model name, so a model
+        keeps its colour across figures whatever the order of the models.
     title : str, optional
     limit : float, optional
         Upper end of both axes (default: just above the largest risk shown).
+    compact : bool
+        Small panel of a grid: two summary numbers (ICI and slope) instead of four, and no legend.
 
     Returns
     -------
@@ -73,7 +80,7 @@ def plot_calibration(
     """
     sm, gr = result.smoothed, result.grouped
     risks = _risks(predicted, result.t0)
-    st = series_style(series)
+    st = _style(series, result.model)
     with style_context(width):
         fig, a = figure_and_axes(ax, width, aspect=1.0)
         if limit is None:
@@ -99,12 +106,26 @@ def plot_calibration(
         unit = f" {time_unit}" if time_unit else ""
         a.set_xlabel(f"Predicted risk by {format_number(result.t0)}{unit}")
         a.set_ylabel("Observed risk")
-        a.text(0.03, 0.97,
-               f"ICI {sm.ici:.3f}\nE50 {sm.e50:.3f}\nE90 {sm.e90:.3f}\nslope {result.slope.slope:.2f}",
-               transform=a.transAxes, ha="left", va="top", fontsize="small", linespacing=1.15)
-        a.legend(loc="lower right", fontsize="small", borderaxespad=0.2, bbox_to_anchor=(1.0, 0.17))
-        a.set_title(title if title is not None else (result.model or ""), loc="left", fontsize="medium")
+        if compact:
+            # above the panel, where it cannot cover a point of the curve
+            a.set_title(f"{title}\nICI {sm.ici:.3f}\nslope {result.slope.slope:.2f}".lstrip("\n"), loc="left",
+                        fontsize="small", pad=2, linespacing=1.1)
+        else:
+            a.text(0.03, 0.97,
+                   f"ICI {sm.ici:.3f}\nE50 {sm.e50:.3f}\nE90 {sm.e90:.3f}\nslope {result.slope.slope:.2f}",
+                   transform=a.transAxes, ha="left", va="top", fontsize="small", linespacing=1.15)
+            a.legend(loc="lower right", fontsize="small", borderaxespad=0.2, bbox_to_anchor=(1.0, 0.17))
+        if not compact:
+            a.set_title(title if title is not None else (result.model or ""), loc="left", fontsize="medium")
         return fig if ax is None else a
+
+
+def _style(series, model) -> SeriesStyle:
+    if isinstance(series, str):
+        return model_styles([series])[series]
+    if series is None:
+        return model_styles([model])[model] if model else series_style(0)
+    return series_style(series)
 
 
 def plot_calibration_panels(
@@ -113,8 +134,13 @@ def plot_calibration_panels(
     predicted: Mapping | None = None,
     width: str | float = "double",
     time_unit: str = "",
+    cohort: str = "",
 ):
     """One row per model, one column per horizon, on shared axes per horizon.
+
+    Each model's row is headed by its name; the panels carry the horizon and two
+    summary numbers (ICI, calibration slope). The figure title names the cohort the
+    calibration was measured in.
 
     Parameters
     ----------
@@ -123,6 +149,8 @@ def plot_calibration_panels(
         For the histograms of predicted risk.
     width : "single", "double" or millimetres
     time_unit : str
+    cohort : str
+        Where calibration was measured (e.g. "external cohort"), stated in the title.
     """
     names = list(results)
     if not names:
@@ -130,9 +158,19 @@ def plot_calibration_panels(
     n_h = len(results[names[0]])
     if any(len(results[n]) != n_h for n in names):
         raise SpecError("every model needs calibration results at the same horizons.")
+    styles = model_styles(names)
     with style_context(width):
-        fig = new_figure(width, aspect=len(names) / n_h * 1.02)
-        grid = fig.subplots(len(names), n_h, squeeze=False)
+        fig = new_figure(width)
+        w_in = fig.get_figwidth()
+        fs_in = base_font_size(width) / 72.0
+        # each row: square panels, a three-line panel title, the model name; then heading and legend
+        panel_in = (w_in - 6 * fs_in) / n_h
+        # at most a journal page high (about 230 mm): with many models the square panels shrink
+        page_in = 230.0 / 25.4
+        panel_in = min(panel_in, (page_in - 9 * fs_in) / len(names) - 6.5 * fs_in)
+        fig.set_figheight(len(names) * (panel_in + 6.5 * fs_in) + 9 * fs_in)
+        rows = fig.subfigures(len(names), 1, squeeze=False)[:, 0]
+        grid = np.array([row.subplots(1, n_h, squeeze=False)[0] for row in rows])
         for j in range(n_h):
             res = [results[n][j] for n in names]
             top = max(max(float(np.max(r.smoothed.grid_predicted)), float(np.max(r.grouped.observed_upper)))
@@ -141,20 +179,25 @@ def plot_calibration_panels(
             for i, n in enumerate(names):
                 pred = None if predicted is None else predicted.get(n)
                 horizon = f"{format_number(results[n][j].t0)} {time_unit}".rstrip()
-                plot_calibration(results[n][j], predicted=pred, ax=grid[i, j], width=width,
-                                 time_unit=time_unit, series=i, limit=limit,
-                                 title=horizon if i == 0 else "")
-                if i < len(names) - 1:
-                    grid[i, j].set_xlabel("")
-                grid[i, j].set_ylabel(f"{n}\nobserved risk" if j == 0 else "")
-                grid[i, j].get_legend().remove()
+                a = grid[i, j]
+                plot_calibration(results[n][j], predicted=pred, ax=a, width=width, time_unit=time_unit,
+                                 series=n, limit=limit, title=horizon, compact=True)
+                a.set_xlabel("Predicted" if i == len(names) - 1 else "")
+                a.set_ylabel("Observed" if j == 0 else "")
+                a.set_xticks([0, limit / 2, limit], labels=["0", format_number(limit / 2), format_number(limit)])
+                a.set_yticks([0, limit / 2, limit], labels=["0", format_number(limit / 2), format_number(limit)]
+                             if j == 0 else [])
+        for row, n in zip(rows, names, strict=True):
+            row.suptitle(n, x=0.01, ha="left", fontsize="medium", color=styles[n].color, fontweight="bold")
+        where = f"\n({cohort})" if cohort else ""
+        fig.suptitle(f"Observed against predicted risk of an event by each horizon{where}", x=0.01, ha="left",
+                     fontsize="medium", wrap=False)
         handles = [
             Line2D([], [], color=NEUTRAL, lw=0.8, linestyle=(0, (3, 2)), label="Ideal"),
-            *(Line2D([], [], color=series_style(i).color, linestyle=series_style(i).linestyle,
-                     marker=series_style(i).marker, mfc="white", ms=3.5, label=n)
-              for i, n in enumerate(names)),
+            Line2D([], [], color=NEUTRAL, label="Smoothed, 95% band"),
+            Line2D([], [], color=NEUTRAL, marker="o", linestyle="none", mfc="white", ms=3.5,
+                   label="Grouped Kaplan-Meier, 95% CI"),
         ]
-        fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 3),
-                   title="smoothed curve with 95% band; grouped Kaplan-Meier points with 95% CI",
-                   title_fontsize="small")
+        fig.legend(handles=handles, loc="outside lower center", ncols=len(handles) if width != "single" else 2,
+                   fontsize="small")
         return fig

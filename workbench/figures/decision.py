@@ -16,7 +16,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from workbench.errors import SpecError
-from workbench.figures.style import INK, NEUTRAL, figure_and_axes, series_style, style_context
+from workbench.figures.style import INK, NEUTRAL, figure_and_axes, model_styles, style_context
 from workbench.figures.ticks import format_number
 from workbench.metrics.decision import DecisionCurveResult, net_benefit
 
@@ -24,6 +24,12 @@ from workbench.metrics.decision import DecisionCurveResult, net_benefit
 def decision_curves(y, curves: Mapping, t0: float, thresholds=None) -> dict[str, DecisionCurveResult]:
     """Call the net-benefit metric for each model's SurvivalCurves at horizon ``t0``."""
     return {name: net_benefit(y, c, t0, thresholds) for name, c in curves.items()}
+
+
+EVERYONE = "Everyone acted on (no model)"
+"""Reference strategy: act on every patient, whatever the model says."""
+NO_ONE = "No one acted on"
+"""Reference strategy: act on no patient (net benefit zero)."""
 
 
 def plot_decision_curve(
@@ -35,7 +41,10 @@ def plot_decision_curve(
     max_threshold: float | None = None,
     title: str = "",
 ):
-    """Draw net benefit against threshold probability for each model, treat-all and treat-none.
+    """Draw net benefit against threshold probability for each model and the two reference strategies.
+
+    The reference strategies are acting on every patient (:data:`EVERYONE`) and on no
+    patient (:data:`NO_ONE`, net benefit zero).
 
     Parameters
     ----------
@@ -65,10 +74,11 @@ def plot_decision_curve(
     pt = first.thresholds
     with style_context(width):
         fig, a = figure_and_axes(ax, width, aspect=0.72)
-        a.plot(pt, first.treat_all, color=NEUTRAL, lw=1.0, label="Treat all")
-        a.plot(pt, first.treat_none, color=INK, lw=0.9, linestyle=(0, (1, 1.2)), label="Treat none")
-        for i, (name, r) in enumerate(items):
-            st = series_style(i)
+        a.plot(pt, first.treat_all, color=NEUTRAL, lw=1.0, label=EVERYONE)
+        a.plot(pt, first.treat_none, color=INK, lw=0.9, linestyle=(0, (1, 1.2)), label=NO_ONE)
+        styles = model_styles([n for n, _ in items])
+        for name, r in items:
+            st = styles[name]
             a.plot(pt, r.net_benefit, color=st.color, linestyle=st.linestyle, label=name)
         top = max(first.event_risk, max(float(np.max(r.net_benefit)) for _, r in items))
         a.set_ylim(-0.1 * top, 1.1 * top)
@@ -79,7 +89,11 @@ def plot_decision_curve(
         a.set_xlim(float(pt.min()), max_threshold)
         a.set_xlabel(f"Threshold risk of an event by {format_number(first.t0)} {time_unit}".rstrip())
         a.set_ylabel("Net benefit")
-        a.legend(loc="upper right")
+        if ax is None:
+            # under the panel: curves run into every corner of a decision plot
+            fig.legend(loc="outside lower center", ncols=1 if width == "single" else 3, fontsize="small")
+        else:
+            a.legend(loc="upper right")
         if title:
             a.set_title(title, loc="left")
         return fig if ax is None else a

@@ -23,9 +23,10 @@ from workbench.figures.style import (
     BAND_ALPHA,
     NEUTRAL,
     figure_and_axes,
-    series_style,
+    model_styles,
     style_context,
 )
+from workbench.figures.ticks import format_number, time_ticks
 from workbench.metrics.td_auc import TimeDependentAUCResult, time_dependent_auc
 
 
@@ -55,8 +56,15 @@ def plot_td_auc(
     time_unit: str = "",
     title: str = "",
     horizons=None,
+    mean_auc: Mapping[str, float] | None = None,
+    mean_window: str | None = None,
 ):
     """Draw AUC(t) curves with confidence bands, one per model.
+
+    The legend gives each model's mean AUC and states its time window once, in the
+    legend title. Pass ``mean_auc`` (and ``mean_window``) to show the study's own summary
+    (the one in the results tables, over the study horizons); by default the mean over
+    the drawn times is shown and the window is their first to last time.
 
     Parameters
     ----------
@@ -76,25 +84,38 @@ def plot_td_auc(
         raise SpecError("plot_td_auc needs at least one model's TimeDependentAUCResult.")
     with style_context(width):
         fig, a = figure_and_axes(ax, width, aspect=0.72)
-        for i, (name, r) in enumerate(results.items()):
-            st = series_style(i)
+        styles = model_styles(results)
+        for name, r in results.items():
+            st = styles[name]
             a.fill_between(r.times, r.ci_lower, r.ci_upper, color=st.color, alpha=BAND_ALPHA, linewidth=0)
-            a.plot(r.times, r.auc, color=st.color, linestyle=st.linestyle,
-                   label=f"{name} (mean {r.mean_auc:.2f})")
+            m = r.mean_auc if mean_auc is None else mean_auc[name]
+            a.plot(r.times, r.auc, color=st.color, linestyle=st.linestyle, label=f"{name} ({m:.2f})")
         a.axhline(0.5, color=NEUTRAL, lw=0.7, linestyle=(0, (2, 2)))
         for h in horizons or ():
             a.axvline(h, color=NEUTRAL, lw=0.4, alpha=0.5)
         lo = min(float(np.min(r.ci_lower)) for r in results.values())
         a.set_ylim(max(0.0, min(0.45, np.floor(lo * 20) / 20)), 1.0)
         unit = f" ({time_unit})" if time_unit else ""
+        t_hi = max(float(np.max(r.times)) for r in results.values())
+        t_lo = min(float(np.min(r.times)) for r in results.values())
+        ticks = time_ticks(t_hi, time_unit, 7)
+        if time_unit and ticks.size >= 3:  # the study's own steps (12, 24, 36 months ...)
+            a.set_xticks(ticks, labels=[format_number(v) for v in ticks])
+            a.set_xlim(min(t_lo, ticks[0]) if t_lo < ticks[1] else t_lo, t_hi)
         a.set_xlabel(f"Time{unit}")
         a.set_ylabel("Time-dependent AUC")
+        if mean_window is None:
+            first = next(iter(results.values()))
+            mean_window = (f"{format_number(first.times[0])} to {format_number(first.times[-1])} "
+                           f"{time_unit}").rstrip()
+        heading = f"Model (mean AUC, {mean_window})"
         if ax is None:
-            a.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=1, borderaxespad=0.2)
+            fig.legend(loc="outside lower center", ncols=1, fontsize="small", title=heading,
+                       title_fontsize="small", alignment="left")
             if title:
-                a.set_title(title, loc="left", pad=8 + 11 * len(results))
+                a.set_title(title, loc="left")
         else:
-            a.legend(loc="lower right")
+            a.legend(loc="lower right", title=heading, title_fontsize="small")
             if title:
                 a.set_title(title, loc="left")
         return fig if ax is None else a

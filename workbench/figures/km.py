@@ -1,4 +1,4 @@
-"""Kaplan-Meier curves by risk group, with numbers at risk, log-rank test and hazard ratios.
+"""Kaplan-Meier curves by risk group, with an at-risk strip and a caption giving the comparison.
 
 :func:`km_by_group` does the arithmetic by calling the statistics layer
 (:mod:`workbench.stats.km`, :mod:`workbench.stats.logrank`,
@@ -25,13 +25,22 @@ import numpy as np
 from workbench.cohort.outcome import split_outcome
 from workbench.errors import SpecError, WorkbenchWarning
 from workbench.figures.grouping import RiskGroups, risk_groups
-from workbench.figures.style import BAND_ALPHA, new_figure, series_style, style_context
-from workbench.figures.ticks import format_number, nice_ticks
+from workbench.figures.measure import TextMeasure
+from workbench.figures.style import (
+    BAND_ALPHA,
+    base_font_size,
+    column_width_inches,
+    new_figure,
+    series_style,
+    style_context,
+)
+from workbench.figures.ticks import format_number, time_ticks
+from workbench.figures.wording import chi_squared_text
 from workbench.stats.coxph import fit_coxph
 from workbench.stats.km import KaplanMeierResult, kaplan_meier
 from workbench.stats.logrank import LogRankResult, logrank_test
 
-__all__ = ["KMByGroupResult", "km_by_group", "plot_km_by_group", "risk_groups"]
+__all__ = ["KMByGroupResult", "km_by_group", "km_caption", "plot_km_by_group", "risk_groups"]
 
 
 @dataclass(frozen=True)
@@ -104,7 +113,7 @@ def km_by_group(
     labels = tuple(grouping.labels[k] for k in present)
     curves = tuple(kaplan_meier(time[g == k], event[g == k], conf_level=conf_level) for k in present)
     ticks = (np.asarray(tick_times, dtype=float) if tick_times is not None
-             else nice_ticks(0.0, float(time.max()), 7))
+             else time_ticks(float(time.max()), time_unit, 7))
     ticks = ticks[ticks <= time.max()]
     at_risk = np.array([[int(np.sum(time[g == k] >= t)) for t in ticks] for k in present])
     lr = logrank_test(time, event, g)
@@ -120,13 +129,34 @@ def km_by_group(
     )
 
 
-def _step(km: KaplanMeierResult, values):
-    x = np.r_[0.0, km.times]
-    return x, np.r_[1.0, values]
+def _step(km: KaplanMeierResult, values, min_at_risk: int = 0):
+    """Step coordinates of a curve, cut after the last time with at least ``min_at_risk`` at risk."""
+    keep = km.at_risk >= min_at_risk
+    x = np.r_[0.0, km.times[keep]]
+    return x, np.r_[1.0, np.asarray(values)[keep]]
 
 
-def _p_text(p: float) -> str:
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+def km_caption(result: KMByGroupResult, *, development: bool = False, min_at_risk: int = 10) -> str:
+    """The sentence printed under the curves: group comparison, hazard ratios, where curves stop.
+
+    On the development cohort the comparison is described, not tested: the groups were
+    formed from a model fitted to the same patients, so a p-value would overstate the
+    evidence (it is left out).
+    """
+    hrs = "; ".join(
+        f"{lab} vs {result.labels[0]} {hr:.2f} ({lo:.2f} to {hi:.2f})"
+        for lab, hr, lo, hi in zip(result.labels[1:], result.hazard_ratios, result.hr_lower,
+                                   result.hr_upper, strict=True)
+    )
+    if development:
+        head = (f"Development cohort, descriptive only (groups from a model fitted to these patients). "
+                f"Hazard ratios: {hrs}.")
+    else:
+        lr = result.logrank
+        head = f"Log-rank {chi_squared_text(lr.statistic, lr.df, lr.p_value)}. Hazard ratios (95% CI): {hrs}."
+    cuts = ", ".join(format_number(c, 3) for c in np.atleast_1d(result.cutpoints))
+    where = f" Groups cut at {cuts} on the risk score (fixed on the training patients)." if cuts else ""
+    return f"{head}{where} Curves stop when fewer than {min_at_risk} patients remain at risk."
 
 
 def plot_km_by_group(
@@ -136,28 +166,39 @@ def plot_km_by_group(
     width: str | float = "single",
     title: str = "",
     show_at_risk: bool = True,
+    min_at_risk: int = 10,
+    development: bool = False,
 ):
-    """Draw Kaplan-Meier curves by risk group with bands, numbers at risk and test results.
+    """Draw Kaplan-Meier curves by risk group with bands, an at-risk strip and a caption.
 
     Parameters
     ----------
     result : KMByGroupResult
         From :func:`km_by_group`.
     ax : matplotlib Axes, optional
-        Draw the curves into it (the at-risk table is then written under its
-        x-axis as text) and return it.
+        Draw the curves into it and return it (no strip and no caption: the caller
+        places the numbers).
     width : "single", "double" or millimetres
     title : str
     show_at_risk : bool
+    min_at_risk : int
+        Each curve stops after the last time at which at least this many of its
+        patients are still at risk (default 10): the tail of a Kaplan-Meier curve
+        resting on a handful of patients is noise.
+    development : bool
+        The groups are evaluated on the patients the model was fitted to: the caption
+        describes the comparison and prints no p-value.
 
     Returns
     -------
     Figure, or the Axes when ``ax`` is given.
     """
+    n_groups = len(result.labels)
     with style_context(width):
         if ax is None:
-            fig = new_figure(width, aspect=0.9)
-            gs = fig.add_gridspec(2, 1, height_ratios=(4.2, 0.35 + 0.3 * len(result.labels)))
+            wide = column_width_inches(width) * 25.4 > 120.0
+            fig = new_figure(width, aspect=0.62 if wide else 0.95)
+            gs = fig.add_gridspec(2, 1, height_ratios=(4.2, (0.3 + 0.22 * n_groups) * (1.5 if wide else 1.0)))
             ax_main = fig.add_subplot(gs[0])
             ax_tab = fig.add_subplot(gs[1], sharex=ax_main) if show_at_risk else None
             out = fig
@@ -165,12 +206,12 @@ def plot_km_by_group(
             ax_main, ax_tab, out = ax, None, ax
         for i, (lab, km) in enumerate(zip(result.labels, result.curves, strict=True)):
             st = series_style(i)
-            x, s = _step(km, km.survival)
+            x, s = _step(km, km.survival, min_at_risk)
             ax_main.step(x, s, where="post", color=st.color, linestyle=st.linestyle, label=lab)
-            _, lo = _step(km, km.ci_lower)
-            _, hi = _step(km, km.ci_upper)
+            _, lo = _step(km, km.ci_lower, min_at_risk)
+            _, hi = _step(km, km.ci_upper, min_at_risk)
             ax_main.fill_between(x, lo, hi, step="post", color=st.color, alpha=BAND_ALPHA, linewidth=0)
-            cens = km.censored > 0
+            cens = (km.censored > 0) & (km.at_risk >= min_at_risk)
             ax_main.plot(km.times[cens], km.survival[cens], linestyle="none", marker="|", ms=3,
                          color=st.color, mew=0.6)
         ax_main.set_ylim(0, 1.02)
@@ -178,18 +219,16 @@ def plot_km_by_group(
         ax_main.set_xticks(result.tick_times)
         ax_main.set_ylabel("Survival probability")
         unit = f" ({result.time_unit})" if result.time_unit else ""
-        lines = [f"Log-rank {_p_text(result.logrank.p_value)}"]
-        for lab, hr, lo, hi in zip(result.labels[1:], result.hazard_ratios, result.hr_lower,
-                                   result.hr_upper, strict=True):
-            lines.append(f"HR {lab} vs {result.labels[0]}: {hr:.2f} ({lo:.2f}-{hi:.2f})")
-        ax_main.text(0.98, 0.98, "\n".join(lines), transform=ax_main.transAxes, ha="right", va="top",
-                     fontsize="small", linespacing=1.15)
         if ax is None:
             # above the panel, where no curve can be hidden behind it
-            ax_main.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=len(result.labels),
-                           handlelength=2.2, columnspacing=1.2, borderaxespad=0.2)
+            ax_main.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=n_groups,
+                           handlelength=2.2, columnspacing=1.2, borderaxespad=0.2, title="Risk group",
+                           title_fontsize="small", alignment="left")
             if title:
-                ax_main.set_title(title, loc="left", pad=16)
+                fig.suptitle(title, x=0.01, ha="left", fontsize="medium")
+            caption = km_caption(result, development=development, min_at_risk=min_at_risk)
+            fig.supxlabel(_wrap_to(caption, fig, base_font_size(width) - 1.5), x=0.01, ha="left",
+                          fontsize="small", linespacing=1.2)
         else:
             ax_main.legend(loc="lower left", title="Risk group", title_fontsize="small", handlelength=2.2)
             if title:
@@ -197,19 +236,30 @@ def plot_km_by_group(
         if ax_tab is not None:
             ax_main.tick_params(labelbottom=False)
             ax_tab.set_xlabel(f"Time{unit}")
-            n = len(result.labels)
             for i, row in enumerate(result.at_risk):
-                y = n - 1 - i
+                y = n_groups - 1 - i
                 for t, v in zip(result.tick_times, row, strict=True):
-                    ax_tab.text(t, y, str(int(v)), ha="center", va="center", fontsize="small",
-                                color=series_style(i).color)
-            ax_tab.set_ylim(-0.6, n - 0.4)
-            ax_tab.set_yticks(range(n), labels=list(reversed(result.labels)), fontsize="small")
+                    ax_tab.text(t, y, str(int(v)), ha="center", va="center", fontsize="small")
+            ax_tab.set_ylim(-0.6, n_groups - 0.4)
+            ax_tab.set_yticks(range(n_groups), labels=list(reversed(result.labels)), fontsize="small")
             ax_tab.tick_params(axis="y", length=0, pad=8)
             ax_tab.spines[["left", "top", "right"]].set_visible(False)
-            ax_tab.set_title("Number at risk", loc="left", fontsize="small", pad=2)
+            ax_tab.set_title("At risk", loc="left", fontsize="small", pad=2)
         else:
             ax_main.set_xlabel(f"Time{unit}")
         if ax_tab is not None:
             ax_tab.set_xticks(result.tick_times, labels=[format_number(t) for t in result.tick_times])
         return out
+
+
+def _wrap_to(text: str, fig, size: float) -> str:
+    """Break ``text`` into lines that fit the figure's width at ``size`` points."""
+    meas = TextMeasure()
+    limit = fig.get_figwidth() * 72.0 * 0.97
+    lines: list[str] = []
+    for w in text.split(" "):
+        if lines and meas.width(f"{lines[-1]} {w}", size) <= limit:
+            lines[-1] = f"{lines[-1]} {w}"
+        else:
+            lines.append(w)
+    return "\n".join(lines)

@@ -1,32 +1,33 @@
 """Draw nomograms from :class:`~workbench.figures.nomogram_points.NomogramScales`.
 
-Design (explained for readers in ``docs/figures.md``):
+Design (explained for readers in ``docs/figures.md``; where things go is decided in
+:mod:`workbench.figures.nomogram_layout`):
 
-* a Points ruler (0-100) on top; one row per term below it, drawn on the same
-  horizontal scale, so a value is read off its row and carried straight up to
-  the ruler;
-* categorical terms are labelled ticks; labels that would collide are moved to
-  alternate lanes above and below the line;
+* a "Factor score" ruler (0-100) on top; one row per term below it, drawn on the
+  same horizontal scale, so a value is read off its row and carried straight up;
+* categorical terms are labelled ticks; labels that would collide move to the
+  other side of the line, and levels that still collide are named together;
+* under each axis a grey strip shows where the training patients lie;
 * a value below a detection limit has its own tick on a short stub under the
   continuous scale of the term, because it is a separate estimate;
 * a spline whose effect changes direction is split into monotone pieces drawn
-  as parallel lines, one under the other, each labelled with its value range
-  (no folded or doubled-back axis to puzzle over);
-* the imaging signature is drawn in signature units with its training risk
-  groups (e.g. tertiles) as shaded bands underneath;
-* the Total points axis and one survival-probability axis per horizon share a
-  second horizontal scale (total points), optionally with a median-survival axis;
-* side by side (or stacked) models get the same number of rows before the total
-  points axis, so the total-points and probability axes line up across panels;
-* a patient overlay marks each value with its points (right-hand column), the
-  total, and the survival read off each axis.
+  as parallel lines, one under the other, each labelled with its value range;
+* the imaging signature is labelled in SDs of the training scores with its
+  training groups (e.g. tertiles) as shaded bands underneath, explained in a note;
+* the "Sum of scores" axis and one survival-probability axis per horizon share a
+  second horizontal scale, optionally with a median-survival axis whose open end
+  is marked ("> 35");
+* side by side (or stacked) models get the same number of rows before the sum
+  axis, so the sum and probability axes line up across panels;
+* a patient overlay marks each value with its score (right-hand column), the
+  sum, and the survival read off each axis; values outside the training range
+  and caller-given warnings (an unseen scanner) are flagged under the panel.
 
 No pyplot: a ``matplotlib.figure.Figure`` is built directly.
 """
 
 from __future__ import annotations
 
-import textwrap
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -36,6 +37,27 @@ from matplotlib.patches import Rectangle
 
 from workbench.cohort.summary import CAUTION
 from workbench.errors import SpecError
+from workbench.figures.measure import TextMeasure as _Measure
+from workbench.figures.nomogram_layout import (  # noqa: F401  (SCORE_AXIS, SUM_AXIS re-exported)
+    SCORE_AXIS,
+    SUM_AXIS,
+    _add_notes,
+    _Geometry,
+    _geometry,
+    _label_centres,
+    _label_width,
+    _layout,
+    _level_groups,
+    _panel_notes,
+    _roundness_order,
+    _Row,
+    _row_label,
+    _term_block,
+    _term_lanes,
+    _thin,
+    _uniform_keep,
+    _wrap,
+)
 from workbench.figures.nomogram_points import (
     SIGNATURE_TERM,
     NomogramScales,
@@ -55,202 +77,17 @@ from workbench.figures.style import (
 from workbench.figures.ticks import format_number
 
 PATIENT_COLOUR = PALETTE[3]
+PATIENT_COLUMN = 0.2  # where the patient's numbers start, as a share of the right margin
 ROW_INCHES = 0.25
-_LABEL_CHARS = 18
 _CHAR_WIDTH = 0.56  # average glyph width in units of the font size (sans-serif, common practice)
 _BAND_ALPHAS = (0.10, 0.25, 0.42, 0.60)
-
-
-@dataclass
-class _Row:
-    kind: str
-    height: float
-    term: TermScale | None = None
-    piece: int = 0
-    horizon: float | None = None
-    top: float = 0.0
-    line: float = 0.0
-
-
-class _Measure:
-    """Text widths in points, measured with the Agg renderer (no canvas or pyplot needed)."""
-
-    def __init__(self):
-        from matplotlib.backends.backend_agg import RendererAgg
-        from matplotlib.font_manager import FontProperties
-
-        self._r = RendererAgg(10, 10, 72)
-        self._prop = FontProperties
-        self._cache: dict = {}
-
-    def width(self, text: str, size: float) -> float:
-        key = (text, size)
-        if key not in self._cache:
-            lines = text.split("\n") or [""]
-            self._cache[key] = max(
-                self._r.get_text_width_height_descent(line, self._prop(size=size), ismath=False)[0]
-                for line in lines
-            )
-        return self._cache[key]
-
-
-@dataclass(frozen=True)
-class _Geometry:
-    """Horizontal geometry of one panel: x runs in points, 0-100 between the margins."""
-
-    left: float
-    right: float
-    units_per_pt: float
-    fs: float
-
-    @property
-    def tick_fs(self) -> float:
-        return self.fs - 1.5
-
-
-def _lanes(xs, labels, widths_pt, geo: _Geometry, max_lanes: int = 4, drop: bool = False) -> list[int]:
-    """Lane of each label: 0 above the line, 1 below, 2 higher above, 3 lower below (-1: dropped)."""
-    gap = 0.35 * geo.tick_fs * geo.units_per_pt
-    placed: dict[int, list[tuple[float, float]]] = {k: [] for k in range(max_lanes)}
-    lanes = [0] * len(xs)
-    for i in np.argsort(xs, kind="stable"):
-        half = widths_pt[i] * geo.units_per_pt / 2
-        for cand in range(max_lanes):
-            if all(abs(xs[i] - px) >= half + ph + gap for px, ph in placed[cand]):
-                lanes[i] = cand
-                break
-        else:
-            lanes[i] = -1 if drop else max_lanes - 1
-        if lanes[i] >= 0:
-            placed[lanes[i]].append((float(xs[i]), half))
-    return lanes
-
-
-def _term_lanes(t: TermScale, seg, geo: _Geometry, measure) -> list[int]:
-    """Categorical labels may use four lanes; continuous ones two, dropping what still collides."""
-    widths = [measure.width(k.label, geo.tick_fs) for k in seg.ticks]
-    xs = [k.points for k in seg.ticks]
-    if t.kind in ("categorical", "ordinal"):
-        return _lanes(xs, None, widths, geo, 4)
-    return _lanes(xs, None, widths, geo, 2, drop=True)
-
-
-def _thin(xs, widths_pt, geo: _Geometry, order) -> np.ndarray:
-    """Which labels to show so that none overlap, taking them in the given order of preference."""
-    gap = 0.35 * geo.tick_fs * geo.units_per_pt
-    keep = np.zeros(len(xs), dtype=bool)
-    for i in order:
-        half = widths_pt[i] * geo.units_per_pt / 2
-        ok = all(abs(xs[i] - xs[j]) >= half + widths_pt[j] * geo.units_per_pt / 2 + gap
-                 for j in np.flatnonzero(keep))
-        keep[i] = ok
-    return keep
-
-
-def _uniform_keep(xs, widths_pt, geo: _Geometry) -> np.ndarray:
-    """Label every k-th tick of a regular scale, with the smallest k at which no labels overlap."""
-    n = len(xs)
-    gap = 0.35 * geo.tick_fs * geo.units_per_pt
-    for k in range(1, max(n, 1) + 1):
-        idx = np.arange(0, n, k)
-        ok = all(
-            abs(xs[b] - xs[a]) >= (widths_pt[a] + widths_pt[b]) * geo.units_per_pt / 2 + gap
-            for a, b in zip(idx[:-1], idx[1:], strict=True)
-        )
-        if ok:
-            keep = np.zeros(n, dtype=bool)
-            keep[idx] = True
-            return keep
-    keep = np.zeros(n, dtype=bool)
-    keep[0] = True
-    return keep
-
-
-def _roundness_order(values) -> list[int]:
-    """Prefer round probabilities (0.5, then tenths, twentieths, tails)."""
-    def rank(v):
-        v = float(v)
-        if np.isclose(v, 0.5):
-            return 0
-        if np.isclose(v * 10, round(v * 10)):
-            return 1
-        if np.isclose(v * 20, round(v * 20)):
-            return 2
-        return 3
-    return sorted(range(len(values)), key=lambda i: (rank(values[i]), i))
-
-
-def _term_rows(t: TermScale, geo: _Geometry, measure: _Measure) -> list[_Row]:
-    if len(t.segments) > 1:
-        return [_Row("term", 0.9, t, i) for i in range(len(t.segments))]
-    h = 1.0
-    if t.kind != "signature":
-        lanes = _term_lanes(t, t.segments[0], geo, measure)
-        h += 0.42 * (1 in lanes or 3 in lanes) + 0.34 * (2 in lanes) + 0.34 * (3 in lanes)
-    if t.extra_ticks:
-        h += 0.75
-    if t.bands:
-        h += 0.6
-    return [_Row("term", h, t, 0)]
-
-
-def _term_block(scales: NomogramScales, geo, measure) -> float:
-    return sum(r.height for t in scales.terms for r in _term_rows(t, geo, measure))
-
-
-def _layout(scales: NomogramScales, term_block: float, geo, measure) -> list[_Row]:
-    rows = [_Row("points", 1.0)]
-    for t in scales.terms:
-        rows += _term_rows(t, geo, measure)
-    used = sum(r.height for r in rows[1:])
-    if term_block > used + 1e-9:
-        rows.append(_Row("pad", term_block - used))
-    rows.append(_Row("total", 1.0))
-    rows += [_Row("survival", 1.0, horizon=s.horizon) for s in scales.survival]
-    if scales.median is not None:
-        rows.append(_Row("median", 1.0))
-    y = 0.0
-    for r in rows:
-        r.top = y
-        above = 0.62
-        if r.kind == "term" and r.term.kind != "signature" and len(r.term.segments) == 1:
-            extra = r.height - 1.0 - (0.75 if r.term.extra_ticks else 0.0)
-            above += 0.34 * (extra > 0.42 + 1e-9)  # room for a higher lane above
-        r.line = y - (above if r.kind == "term" else 0.62 * r.height)
-        y -= r.height
-    return rows
-
-
-def _unit_singular(unit: str) -> str:
-    return unit[:-1] if unit.endswith("s") else unit
-
-
-def _row_label(r: _Row, scales: NomogramScales) -> str:
-    if r.kind == "points":
-        return "Points"
-    if r.kind == "total":
-        return "Total points"
-    if r.kind == "survival":
-        u = _unit_singular(scales.time_unit)
-        return f"{format_number(r.horizon)}-{u} survival" if u else f"Survival at {format_number(r.horizon)}"
-    if r.kind == "median":
-        return f"Median survival ({scales.time_unit})" if scales.time_unit else "Median survival"
-    t = r.term
-    if r.piece > 0:
-        return ""
-    unit = "score" if t.kind == "signature" else t.unit
-    return f"{t.label} ({unit})" if unit else t.label
-
-
-def _wrap(text: str) -> str:
-    return "\n".join(textwrap.wrap(text, _LABEL_CHARS)) or text
-
 
 class _Painter:
     """Draws one nomogram panel into an Axes whose x runs in points (0-100)."""
 
     def __init__(self, ax, scales: NomogramScales, geo: _Geometry, measure: _Measure):
         self.ax, self.s, self.geo, self.m = ax, scales, geo, measure
+        self.right_limit = 100.0 + geo.right  # labels may use the right margin unless a patient column is there
 
     def total_x(self, total):
         return np.asarray(total, dtype=float) * 100.0 / self.s.total_axis_max
@@ -270,13 +107,24 @@ class _Painter:
         xs = np.asarray(xs, dtype=float)
         widths = [self.m.width(lab, self.geo.tick_fs) for lab in labels]
         keep = _uniform_keep(xs, widths, self.geo) if order is None else _thin(xs, widths, self.geo, order)
-        for x, lab, k in zip(xs, labels, keep, strict=True):
+        # a label may not reach into the row names on the left or the patient column on the right:
+        # at the ends it slides inwards while it still sits over its tick, otherwise it is left out
+        half = np.asarray(widths) * self.geo.units_per_pt / 2
+        cx = np.minimum(np.maximum(xs, -2.2 + half), self.right_limit - half)
+        gap = 0.35 * self.geo.tick_fs * self.geo.units_per_pt
+        keep = keep & (np.abs(cx - xs) <= 0.6 * half)
+        shown = np.flatnonzero(keep)
+        for a, b in zip(shown[:-1], shown[1:], strict=True):  # a slid label must still clear its neighbour
+            if abs(cx[b] - cx[a]) < half[a] + half[b] + gap:
+                keep[a if cx[a] != xs[a] else b] = False
+        for x, c, lab, k in zip(xs, cx, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:
-                self._text(x, y + 0.17, lab)
+                self._text(c, y + 0.17, lab)
 
     def level_ticks(self, xs, labels, y, lanes):
-        for x, lab, lane in zip(xs, labels, lanes, strict=True):
+        centres = _label_centres(xs, [self.m.width(lab, self.geo.tick_fs) for lab in labels], self.geo)
+        for x, cx, lab, lane in zip(xs, centres, labels, lanes, strict=True):
             if lane < 0:
                 self._tick(x, y, length=0.08)
                 continue
@@ -287,7 +135,43 @@ class _Painter:
             if far:
                 self.ax.plot([x, x], [y + (0.13 if up else -0.13), ty + (-0.03 if up else 0.03)],
                              color=NEUTRAL, lw=0.4, clip_on=False)
-            self._text(x, ty, lab, up=up)
+            self._text(cx, ty, lab, up=up)
+
+    def level_labels(self, xs, groups, y):
+        """Every level's tick on both sides of the line; one label per group of levels."""
+        for x in xs:
+            self._tick(x, y, up=True, length=0.11)
+            self._tick(x, y, up=False, length=0.11)
+        for cx, text, lane in groups:
+            up = lane == 0
+            self._text(cx, (y + 0.17) if up else (y - 0.17), text, up=up)
+
+    def training_strip(self, t: TermScale, y: float):
+        """Where the training patients lie, just under the axis line: for continuous and
+        signature axes the 5th-95th (thin) and 25th-75th (thick) percentiles with the median;
+        for categorical axes a bar under each level, its height the level's share."""
+        if t.level_shares:
+            for k, share in zip(t.ticks, t.level_shares, strict=True):
+                h = 0.12 * share / max(t.level_shares)
+                self.ax.add_patch(Rectangle((k.points - 0.9, y - 0.03 - h), 1.8, h, facecolor=NEUTRAL, alpha=0.75,
+                                            linewidth=0, clip_on=False, gid=f"share:{t.name}:{k.label}"))
+            return
+        q = dict(t.spread)
+        if not all(k in q for k in (5.0, 25.0, 50.0, 75.0, 95.0)):
+            return
+        x5, x25, x50, x75, x95 = (float(t.points([q[k]])[0]) for k in (5.0, 25.0, 50.0, 75.0, 95.0))
+        yy = y - 0.075
+        self.ax.plot([x5, x95], [yy, yy], color=NEUTRAL, lw=0.6, alpha=0.8, solid_capstyle="butt",
+                     clip_on=False, gid=f"spread:{t.name}")
+        self.ax.plot([x25, x75], [yy, yy], color=NEUTRAL, lw=2.4, alpha=0.6, solid_capstyle="butt",
+                     clip_on=False)
+        self.ax.plot([x50], [yy], marker="|", ms=3.0, color=INK, mew=0.8, clip_on=False)
+
+    def notes(self, rows: list[_Row]):
+        for r in rows:
+            if r.kind == "note":
+                self.ax.text(-self.geo.left, r.line, r.text, ha="left", va="center", fontsize=self.geo.tick_fs,
+                             color=PATIENT_COLOUR if r.text.startswith("!") else NEUTRAL, clip_on=False)
 
     def label(self, text: str, y: float, lift: float = 0.0):
         if text:
@@ -311,6 +195,8 @@ class _Painter:
         labels = [k.label for k in seg.ticks]
         if t.kind == "signature" or len(t.segments) > 1:
             self.scale_ticks(xs, labels, y)
+        elif t.kind in ("categorical", "ordinal"):
+            self.level_labels(xs, _level_groups(seg, self.geo, self.m), y)
         else:
             self.level_ticks(np.asarray(xs), labels, y, _term_lanes(t, seg, self.geo, self.m))
         if len(t.segments) > 1:
@@ -320,6 +206,8 @@ class _Painter:
             yy = y if r.piece > 0 else y - 0.38
             self.ax.text(-2.5, yy, note, ha="right", va="center", fontsize=self.geo.tick_fs, color=NEUTRAL,
                          clip_on=False)
+        if len(t.segments) == 1:
+            self.training_strip(t, y)
         if t.extra_ticks:
             ys = y - 0.55
             for k in t.extra_ticks:
@@ -355,11 +243,37 @@ class _Painter:
         order = _roundness_order([k.value for k in ticks]) if roundness else list(range(len(ticks)))
         self.scale_ticks(xs, [k.label for k in ticks], y, order)
 
+    def open_end(self, ticks, y):
+        """Mark where the median axis stops because longer medians are not estimable from the
+        follow-up: "> 35" just left of the longest median shown."""
+        if not ticks:
+            return
+        k = max(ticks, key=lambda t: t.value)
+        x = float(self.total_x([k.points])[0])
+        text = f"> {k.label}"
+        w = self.m.width(text, self.geo.tick_fs) * self.geo.units_per_pt
+        if x - 1.5 - w < -2.2:
+            return  # no room before the row name: the axis simply starts there
+        self.ax.plot([x - 1.2], [y], marker="<", ms=2.6, color=INK, clip_on=False, gid="open_end")
+        self.ax.text(x - 2.2, y, text, ha="right", va="center", fontsize=self.geo.tick_fs, color=NEUTRAL,
+                     clip_on=False)
+
     # ---------------------------------------------------------------- patient
+
+    def intervals(self, interval: Mapping, rows: list[_Row]):
+        """The read-off's 95% interval as a bar along each survival axis (from ``lower`` to ``upper``)."""
+        for r in rows:
+            if r.kind != "survival" or r.horizon not in interval:
+                continue
+            lo, hi = interval[r.horizon]
+            tot = self.s.survival_scale(r.horizon).total_points_for([hi, lo])  # higher survival, fewer points
+            xs = np.clip(self.total_x(tot), 0.0, 100.0)
+            self.ax.plot(xs, [r.line, r.line], color=PATIENT_COLOUR, lw=3.2, alpha=0.35, solid_capstyle="butt",
+                         clip_on=False, gid=f"interval:{r.horizon:g}")
 
     def patient(self, pp: PatientPoints, rows: list[_Row]):
         ax, c, fs = self.ax, PATIENT_COLOUR, self.geo.tick_fs
-        xr = 100 + 0.16 * self.geo.right
+        xr = 100 + PATIENT_COLUMN * self.geo.right
         ax.text(xr, rows[0].line, "patient", ha="left", va="center", fontsize=fs, color=c, clip_on=False,
                 fontweight="bold")
         done = set()
@@ -374,8 +288,9 @@ class _Painter:
             marker = "o" if inside else (">" if p > hi else "<")
             ax.plot([p if inside else float(np.clip(p, lo, hi))], [y_mark], marker=marker, ms=3.6, color=c,
                     clip_on=False, zorder=5, linestyle="none")
-            ax.text(xr, r.line, format_number(round(p, 1), 3), ha="left", va="center", fontsize=fs,
-                    color=c, clip_on=False)
+            flag = t.name in pp.outside
+            ax.text(xr, r.line, format_number(round(p, 1), 3) + (" !" if flag else ""), ha="left",
+                    va="center", fontsize=fs, color=c, clip_on=False, fontweight="bold" if flag else "normal")
             done.add(t.name)
         x_tot = float(self.total_x(pp.total))
         shown = float(np.clip(x_tot, 0, 100))
@@ -392,7 +307,11 @@ class _Painter:
                 text = f"{pp.survival[r.horizon]:.2f}"
             else:
                 m = pp.median_survival
-                text = format_number(m, 3) if m is not None and np.isfinite(m) else "not reached"
+                longest = max((k.value for k in self.s.median.ticks), default=None) if self.s.median else None
+                if m is not None and np.isfinite(m):
+                    text = format_number(m, 3)
+                else:  # beyond the follow-up: give the open end of the axis, not a long phrase
+                    text = f"> {format_number(longest, 3)}" if longest is not None else "> end"
             ax.text(xr, r.line, text, ha="left", va="center", fontsize=fs, color=c,
                     fontweight="bold" if r.kind != "median" else "normal", clip_on=False)
 
@@ -421,28 +340,16 @@ class _Span:
     end_points: float
 
 
-def _geometry(panel_width_pt: float, fs: float, right_pt: float, label_pt: float) -> _Geometry:
-    frac_l, frac_r = label_pt / panel_width_pt, right_pt / panel_width_pt
-    span = 100.0 / max(1.0 - frac_l - frac_r, 0.3)
-    return _Geometry(left=frac_l * span, right=frac_r * span, units_per_pt=span / panel_width_pt, fs=fs)
-
-
-def _label_width(items, measure: _Measure, fs: float) -> float:
-    texts = ["Total points", "Median survival (months)", "Imaging signature (score)"]
-    for s in items:
-        texts += [_row_label(_Row("term", 1.0, t), s) for t in s.terms]
-        texts += [_row_label(_Row("survival", 1.0, horizon=h), s) for h in s.horizons]
-    return max(measure.width(_wrap(t), fs) for t in texts) + 6.0
-
-
 def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, measure: _Measure,
-                title: str, patient: PatientPoints | None) -> None:
+                title: str, patient: PatientPoints | None, interval: Mapping | None = None) -> None:
     ax.set_xlim(-geo.left, 100 + geo.right)
     ax.set_ylim(rows[-1].top - rows[-1].height, 0.3)
     ax.set_axis_off()
     painter = _Painter(ax, scales, geo, measure)
+    if patient is not None:
+        painter.right_limit = 100.0 + PATIENT_COLUMN * geo.right - 0.5
     for r in rows:
-        if r.kind == "pad":
+        if r.kind in ("pad", "note"):
             continue
         lift = 0.3 if r.kind == "term" and r.term.bands and "\n" in _wrap(_row_label(r, scales)) else 0.0
         painter.label(_row_label(r, scales), r.line, lift)
@@ -456,13 +363,17 @@ def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, me
             painter.prob_row(scales.survival_scale(r.horizon).ticks, r.line)
         elif r.kind == "median":
             painter.prob_row(scales.median.ticks, r.line, roundness=False)
+            painter.open_end(scales.median.ticks, r.line)
     # a faint rule separates the term block from the total-points block
     y_sep = next(r.top for r in rows if r.kind == "total") + 0.02
     ax.plot([-geo.left, 100], [y_sep, y_sep], color=NEUTRAL, lw=0.4, alpha=0.5, clip_on=False)
     ax.text(-geo.left, 0.3, title, ha="left", va="bottom", fontsize=geo.fs + 0.5, fontweight="bold",
             clip_on=False)
+    painter.notes(rows)
     if patient is not None:
         painter.patient(patient, rows)
+        if interval:
+            painter.intervals(interval, rows)
 
 
 def _as_list(scales) -> list[NomogramScales]:
@@ -505,6 +416,8 @@ def plot_nomogram(
     width: str | float = "double",
     caution: str = CAUTION,
     ax=None,
+    notes: Sequence[str] | None = None,
+    intervals: Sequence[Mapping | None] | None = None,
 ):
     """Draw one or more nomograms on a common page layout.
 
@@ -526,6 +439,21 @@ def plot_nomogram(
         Footer small print (default: the workbench's research-use caution).
     ax : matplotlib Axes, optional
         Draw a single nomogram into this Axes and return it.
+    intervals : sequence of mappings, optional
+        One per panel: horizon -> (lower, upper) 95% limits of the patient's predicted
+        survival (e.g. from ``model.predict_survival_with_ci``), drawn as a bar on each
+        survival axis and listed under the panel.
+    notes : sequence of str, optional
+        Warnings about the patient that the scales cannot know, printed under each panel
+        with a "!" (e.g. "scanner_D was not in the training network: its features were
+        not harmonised"). Values outside the training range are flagged automatically.
+
+    Notes
+    -----
+    Under each axis a grey strip shows where the training patients lie (5th-95th and
+    25th-75th percentiles, median; for categories the share at each level). The imaging
+    signature axis is in SDs of the training patients' scores and its bands are thirds
+    of the training patients by signature alone; a note under the panel says so.
 
     Returns
     -------
@@ -533,13 +461,16 @@ def plot_nomogram(
     """
     items = _as_list(scales)
     pats = _patients(patient, items)
+    ivs = list(intervals) if intervals is not None else [None] * len(items)
+    if len(ivs) != len(items):
+        raise SpecError(f"give one interval mapping per model ({len(items)}), or none; got {len(ivs)}.")
     if layout not in ("columns", "rows"):
         raise SpecError(f"layout {layout!r} is not known; use 'columns' (side by side) or 'rows' (stacked).")
     titles = list(titles) if titles is not None else [s.model for s in items]
     if len(titles) != len(items):
         raise SpecError(f"{len(titles)} titles for {len(items)} nomograms; give one per model.")
     fs = base_font_size(width)
-    right_pt = 36.0 if any(p is not None for p in pats) else 4.0
+    right_pt = 36.0 if any(p is not None for p in pats) else 8.0
     with style_context(width):
         measure = _Measure()
         label_pt = _label_width(items, measure, fs)
@@ -549,7 +480,8 @@ def plot_nomogram(
             bbox = ax.get_position()
             geo = _geometry(bbox.width * ax.figure.get_figwidth() * 72.0, fs, right_pt, label_pt)
             rows = _layout(items[0], _term_block(items[0], geo, measure), geo, measure)
-            _draw_panel(ax, items[0], rows, geo, measure, titles[0], pats[0])
+            _add_notes(rows, _panel_notes(items[0], pats[0], list(notes or ()), ivs[0]), geo, measure)
+            _draw_panel(ax, items[0], rows, geo, measure, titles[0], pats[0], ivs[0])
             return ax
         w = column_width_inches(width)
         n = len(items)
@@ -558,6 +490,9 @@ def plot_nomogram(
         # side by side, pad the shorter term block so total-points and survival axes line up
         block = max(_term_block(s, geo, measure) for s in items) if layout == "columns" else 0.0
         layouts = [_layout(s, block, geo, measure) for s in items]
+        extra = list(notes) if notes else []
+        for sc, rows, pp, iv in zip(items, layouts, pats, ivs, strict=True):
+            _add_notes(rows, _panel_notes(sc, pp, extra, iv), geo, measure)
         heights = [(sum(r.height for r in rows) + 0.3) * ROW_INCHES for rows in layouts]
         head, foot = 0.22, 0.3
         if layout == "columns":
@@ -566,13 +501,13 @@ def plot_nomogram(
             h = sum(heights) + n * head + foot
         fig = Figure(figsize=(w, h))
         top = h
-        for i, (s, rows, title, pp) in enumerate(zip(items, layouts, titles, pats, strict=True)):
+        for i, (s, rows, title, pp, iv) in enumerate(zip(items, layouts, titles, pats, ivs, strict=True)):
             if layout == "columns":
                 rect = (i / n + 0.01, (h - head - heights[i]) / h, frac_w, heights[i] / h)
             else:
                 top -= head + heights[i]
                 rect = (0.01, top / h, frac_w, heights[i] / h)
-            _draw_panel(fig.add_axes(rect), s, rows, geo, measure, title, pp)
+            _draw_panel(fig.add_axes(rect), s, rows, geo, measure, title, pp, iv)
         if caution:
             fig.text(0.01, 0.1 * foot / h, caution, ha="left", va="bottom", fontsize=small_print_size(width),
                      color=NEUTRAL, wrap=True)

@@ -35,21 +35,30 @@ References
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
-import pandas as pd
 from numpy.typing import ArrayLike
 
 from workbench.errors import ModelError, NotFittedError, SpecError
 from workbench.figures.grouping import GROUP_NAMES, risk_cutpoints
+from workbench.figures.nomogram_axes import (
+    SIGNATURE_TERM,
+    SPREAD_PERCENTILES,
+    AxisSegment,
+    AxisTick,
+    MedianScale,
+    NomogramScales,
+    PatientPoints,
+    RiskBand,
+    SurvivalScale,
+    TermScale,
+    _is_missing,
+)
 from workbench.figures.ticks import format_number, nice_log_ticks, nice_ticks
 from workbench.preprocess.clinical import TermInfo, term_contribution
-from workbench.preprocess.values import MISSING_TOKENS, canonical_level
 from workbench.stats.coxph import baseline_survival_at
 
-SIGNATURE_TERM = "imaging_signature"  # the design column name CombinedCox gives the signature
 _GRID = 801
 _SURVIVAL_CANDIDATES = (
     # (probability, priority): tenths first, then twentieths, then the tails
@@ -59,260 +68,10 @@ _SURVIVAL_CANDIDATES = (
 )
 
 
-# ------------------------------------------------------------------ data objects
-
-
-@dataclass(frozen=True)
-class AxisTick:
-    """One labelled tick: the value shown and where it sits in points."""
-
-    label: str
-    value: object
-    points: float
-
-
-@dataclass(frozen=True)
-class AxisSegment:
-    """One straight piece of a term's axis; along it points are monotone in the value.
-
-    ``value_range`` is ``(lo, hi)`` on the original scale for continuous terms
-    (None for categorical); ``start_points`` / ``end_points`` are the points at
-    ``lo`` / ``hi`` (the drawn line runs between them).
-    """
-
-    ticks: tuple[AxisTick, ...]
-    start_points: float
-    end_points: float
-    value_range: tuple[float, float] | None = None
-
-
-@dataclass(frozen=True)
-class RiskBand:
-    """A stretch of the signature axis belonging to one risk group."""
-
-    label: str
-    lo_value: float
-    hi_value: float
-    lo_points: float
-    hi_points: float
-
-
-@dataclass(frozen=True)
-class TermScale:
-    """One nomogram axis and its value-to-points function.
-
-    Attributes
-    ----------
-    name, label, unit, kind : str
-        Predictor column, display name, unit and kind (``"signature"`` for the
-        imaging signature).
-    segments : tuple of AxisSegment
-        One for monotone terms; several parallel pieces for a spline whose
-        effect changes direction (one per monotone stretch, in value order).
-    extra_ticks : tuple of AxisTick
-        Ticks off the continuous scale, e.g. "< 0.5" for values below a detection limit.
-    bands : tuple of RiskBand
-        Risk groups (signature axis only).
-    min_contribution, max_contribution : float
-        Range of the term's contribution to the linear predictor over its axis.
-    points_per_lp : float
-        100 / R, shared by all terms of the model.
-    term_info : TermInfo or None
-        The fitted clinical term (None for the signature).
-    coef : ndarray
-        The term's coefficients.
-    """
-
-    name: str
-    label: str
-    unit: str
-    kind: str
-    segments: tuple[AxisSegment, ...]
-    min_contribution: float
-    max_contribution: float
-    points_per_lp: float
-    coef: np.ndarray
-    term_info: TermInfo | None = None
-    extra_ticks: tuple[AxisTick, ...] = ()
-    bands: tuple[RiskBand, ...] = ()
-    transform: str | None = None
-    table_range: tuple[float, float] | None = None
-
-    @property
-    def ticks(self) -> tuple[AxisTick, ...]:
-        """Every tick of the axis (all segments, then the extra ticks)."""
-        return tuple(t for s in self.segments for t in s.ticks) + self.extra_ticks
-
-    @property
-    def max_points(self) -> float:
-        return (self.max_contribution - self.min_contribution) * self.points_per_lp
-
-    def fill_missing(self, values) -> tuple[list, np.ndarray]:
-        """Raw values with missing cells replaced by the training imputation value, if the term has one."""
-        vals = list(np.atleast_1d(np.asarray(values, dtype=object)).ravel())
-        miss = np.array([_is_missing(v) for v in vals], dtype=bool)
-        info = self.term_info
-        if miss.any():
-            if info is None or info.missing != "impute":
-                raise SpecError(
-                    f"{self.label}: a value is missing and this model has no imputation rule for it; "
-                    "give the patient's value (the nomogram needs every predictor)."
-                )
-            vals = [info.impute_value if m else v for v, m in zip(vals, miss, strict=True)]
-        return vals, miss
-
-    def contribution(self, values) -> np.ndarray:
-        """Contribution to the uncentred linear predictor of raw values (missing ones imputed if allowed)."""
-        vals, _ = self.fill_missing(values)
-        if self.term_info is None:
-            try:
-                x = np.asarray(vals, dtype=float)
-            except (TypeError, ValueError) as exc:
-                raise SpecError(f"{self.label}: signature values must be numbers; got {vals[:3]}.") from exc
-            return x * float(self.coef[0])
-        return term_contribution(self.term_info, self.coef, vals)
-
-    def points(self, values) -> np.ndarray:
-        """Points of raw values on this axis (the same formula beyond the drawn range)."""
-        return (self.contribution(values) - self.min_contribution) * self.points_per_lp
-
-
-@dataclass(frozen=True)
-class SurvivalScale:
-    """The survival-probability axis at one horizon."""
-
-    horizon: float
-    baseline_survival: float
-    ticks: tuple[AxisTick, ...]
-    lp_intercept: float
-    points_per_lp: float
-
-    def survival(self, total_points: ArrayLike) -> np.ndarray:
-        """S(horizon | total points) = S0(horizon) ** exp(LP(total))."""
-        lp = self.lp_intercept + np.asarray(total_points, dtype=float) / self.points_per_lp
-        return np.exp(np.log(self.baseline_survival) * np.exp(lp))
-
-    def total_points_for(self, survival: ArrayLike) -> np.ndarray:
-        """Total points at which predicted survival equals the given probabilities."""
-        s = np.asarray(survival, dtype=float)
-        lp = np.log(np.log(s) / np.log(self.baseline_survival))
-        return (lp - self.lp_intercept) * self.points_per_lp
-
-
-@dataclass(frozen=True)
-class MedianScale:
-    """Median survival time axis: tick ``m`` sits where the predicted median reaches ``m``."""
-
-    ticks: tuple[AxisTick, ...]
-    event_times: np.ndarray
-    baseline_cumhaz: np.ndarray
-
-
-@dataclass(frozen=True)
-class NomogramScales:
-    """Everything needed to draw, or hand-compute, one model's nomogram.
-
-    Attributes
-    ----------
-    model : str
-    terms : tuple of TermScale
-        In design order; the imaging signature (if any) last.
-    points_per_lp : float
-        Points per unit of linear predictor (100 / widest term range).
-    lp_intercept : float
-        Centred linear predictor at 0 total points; ``LP = lp_intercept + total / points_per_lp``.
-    total_ticks : tuple of AxisTick
-        Ticks of the total-points axis (0 to ``total_axis_max``).
-    total_axis_max : float
-    survival : tuple of SurvivalScale
-        One per horizon, in the order given.
-    median : MedianScale or None
-    time_unit : str
-    """
-
-    model: str
-    terms: tuple[TermScale, ...]
-    points_per_lp: float
-    lp_intercept: float
-    total_ticks: tuple[AxisTick, ...]
-    total_axis_max: float
-    survival: tuple[SurvivalScale, ...]
-    median: MedianScale | None = None
-    time_unit: str = ""
-
-    @property
-    def horizons(self) -> tuple[float, ...]:
-        return tuple(s.horizon for s in self.survival)
-
-    def term(self, name: str) -> TermScale:
-        for t in self.terms:
-            if t.name == name:
-                return t
-        raise SpecError(f"the nomogram has no axis {name!r}; axes: {', '.join(t.name for t in self.terms)}.")
-
-    def linear_predictor(self, total_points: ArrayLike) -> np.ndarray:
-        """Centred linear predictor of a total score (the points-to-LP affine map)."""
-        return self.lp_intercept + np.asarray(total_points, dtype=float) / self.points_per_lp
-
-    def total_points_for_lp(self, lp: ArrayLike) -> np.ndarray:
-        return (np.asarray(lp, dtype=float) - self.lp_intercept) * self.points_per_lp
-
-    def survival_scale(self, horizon: float) -> SurvivalScale:
-        for s in self.survival:
-            if np.isclose(s.horizon, horizon):
-                return s
-        raise SpecError(f"the nomogram has no survival axis at {horizon:g}; horizons: {list(self.horizons)}.")
-
-    def median_survival(self, total_points: float) -> float:
-        """Predicted median survival time of a total score (inf when not reached in follow-up)."""
-        if self.median is None:
-            raise SpecError("this nomogram was built without a median-survival axis (median_axis=True).")
-        h = self.median.baseline_cumhaz * np.exp(float(self.linear_predictor(total_points)))
-        k = np.searchsorted(h, np.log(2.0), side="left")
-        return float(self.median.event_times[k]) if k < h.size else float("inf")
-
-
-@dataclass(frozen=True)
-class PatientPoints:
-    """One patient read off a nomogram.
-
-    Attributes
-    ----------
-    values : mapping
-        Value used per axis (after imputing missing values where the model allows it).
-    points : mapping of str to float
-        Points per axis.
-    total : float
-    linear_predictor : float
-        Centred linear predictor from the total.
-    survival : mapping of float to float
-        Predicted survival probability at each horizon.
-    median_survival : float or None
-    imputed : tuple of str
-        Axes whose value was missing and imputed.
-    """
-
-    values: Mapping
-    points: Mapping
-    total: float
-    linear_predictor: float
-    survival: Mapping
-    median_survival: float | None = None
-    imputed: tuple[str, ...] = field(default=())
-
 
 # ------------------------------------------------------------------ helpers
 
 
-def _is_missing(v) -> bool:
-    if v is None:
-        return True
-    if isinstance(v, str):
-        return v.strip().lower() in MISSING_TOKENS
-    try:
-        return bool(np.isnan(v))
-    except TypeError:
-        return False
 
 
 def _check_model(model):
@@ -424,14 +183,30 @@ def _continuous_segments(info, part, scale_fn, ppl) -> tuple[AxisSegment, ...]:
 
 
 def _survival_ticks(scale: SurvivalScale, axis_max: float) -> tuple[AxisTick, ...]:
+    """Regular survival ticks: every tenth (0.1 ... 0.9) that falls on the axis, the same step on
+    every axis and panel; beyond the last tenth at either end, one tail value (0.95, 0.98, 0.99 or
+    0.05, 0.02, 0.01) may close the axis."""
     min_gap = 0.07 * axis_max
     kept: list[AxisTick] = []
-    for prob, _prio in sorted(_SURVIVAL_CANDIDATES, key=lambda c: c[1]):
+
+    def place(prob) -> None:
         t = float(scale.total_points_for(prob))
-        if not 0.0 <= t <= axis_max:
-            continue
-        if all(abs(t - k.points) >= min_gap for k in kept):
+        if 0.0 <= t <= axis_max and all(abs(t - k.points) >= min_gap for k in kept):
             kept.append(AxisTick(format_number(prob, 2), prob, t))
+
+    for p10 in range(1, 10):
+        place(p10 / 10)
+    if kept:
+        hi, lo = max(k.value for k in kept), min(k.value for k in kept)
+        for tail in (0.95, 0.98, 0.99):
+            if tail > hi and len([k for k in kept if k.value > hi]) == 0:
+                place(tail)
+        for tail in (0.05, 0.02, 0.01):
+            if tail < lo and len([k for k in kept if k.value < lo]) == 0:
+                place(tail)
+    else:
+        for prob, _prio in sorted(_SURVIVAL_CANDIDATES, key=lambda c: c[1]):
+            place(prob)
     return tuple(sorted(kept, key=lambda k: k.points))
 
 
@@ -517,10 +292,18 @@ def nomogram_scales(
                 lim = format_number(info.detection_limit)
                 below_pts = float((part["below"] - part["lo"]) * ppl)
                 extra = (AxisTick(f"< {lim}", f"<{info.detection_limit:.10g}", below_pts),)
+        categorical = info.kind in ("categorical", "ordinal")
+        counts = np.asarray(getattr(info, "level_counts", ()) or (), dtype=float)
+        shares = (tuple(float(c) for c in counts / counts.sum())
+                  if categorical and counts.size == len(part["levels"]) and counts.sum() > 0 else ())
+        if shares and tuple(part["levels"]) != tuple(info.levels):
+            shares = tuple(shares[list(info.levels).index(lv)] for lv in part["levels"])
         terms.append(TermScale(
             name=info.column, label=info.label, unit=info.unit, kind=info.kind, segments=segs,
             min_contribution=part["lo"], max_contribution=part["hi"], points_per_lp=ppl,
             coef=part["b"], term_info=info, extra_ticks=extra, transform=info.transform,
+            spread=() if categorical else tuple((float(q), float(v)) for q, v in info.percentiles),
+            level_shares=shares,
         ))
     if sig:
         terms.append(_signature_scale(sig, ppl, signature_groups))
@@ -557,8 +340,13 @@ def _signature_scale(sig: dict, ppl: float, method) -> TermScale:
         return (b * np.asarray(v, dtype=float) - sig["lo"]) * ppl
 
     p_lo, p_hi = (float(v) for v in pts([lo, hi]))
-    vals = nice_ticks(lo, hi, _max_ticks(p_hi - p_lo))
-    ticks = tuple(AxisTick(format_number(v), float(v), float(p)) for v, p in zip(vals, pts(vals), strict=True))
+    # labelled in SDs of the training scores, so the axis reads the same whatever the
+    # signature's internal scale; values and arithmetic stay in raw scores
+    mean, sd = float(np.mean(sig["scores"])), float(np.std(sig["scores"], ddof=1))
+    z = nice_ticks((lo - mean) / sd, (hi - mean) / sd, _max_ticks(p_hi - p_lo))
+    vals = mean + z * sd
+    ticks = tuple(AxisTick(format_number(zz), float(v), float(p))
+                  for zz, v, p in zip(z, vals, pts(vals), strict=True))
     edges = np.r_[lo, np.clip(sig["cuts"], lo, hi), hi]
     k = edges.size - 1
     names = GROUP_NAMES.get(k, tuple(f"group {i + 1}" for i in range(k)))
@@ -567,11 +355,13 @@ def _signature_scale(sig: dict, ppl: float, method) -> TermScale:
         for i in range(k)
     )
     return TermScale(
-        name=SIGNATURE_TERM, label="Imaging signature", unit="score", kind="signature",
+        name=SIGNATURE_TERM, label="Imaging signature", unit="SD", kind="signature",
         segments=(AxisSegment(ticks, p_lo, p_hi, (lo, hi)),),
         min_contribution=sig["lo"], max_contribution=sig["hi"], points_per_lp=ppl,
         coef=np.array([b]), bands=bands,
         table_range=(float(sig["scores"].min()), float(sig["scores"].max())),
+        spread=tuple((float(q), float(np.percentile(sig["scores"], q))) for q in SPREAD_PERCENTILES),
+        sd_scale=(mean, sd),
     )
 
 
@@ -620,7 +410,7 @@ def points_for_patient(scales: NomogramScales, raw_values: Mapping) -> PatientPo
             f"the patient has no value for {', '.join(map(repr, absent))}; the nomogram of "
             f"{scales.model!r} needs every one of: {', '.join(t.name for t in scales.terms)}."
         )
-    values, points, imputed = {}, {}, []
+    values, points, imputed, outside = {}, {}, [], []
     for t in scales.terms:
         vals, miss = t.fill_missing([raw_values[t.name]])
         if miss[0]:
@@ -630,13 +420,18 @@ def points_for_patient(scales: NomogramScales, raw_values: Mapping) -> PatientPo
         if not np.isfinite(p):
             raise SpecError(f"{t.label}: the value {raw_values[t.name]!r} gives no points on the nomogram.")
         points[t.name] = p
+        rng = t.training_range
+        v = vals[0]
+        if rng is not None and isinstance(v, (int, float, np.floating, np.integer)) and np.isfinite(float(v)):
+            if not rng[0] <= float(v) <= rng[1]:
+                outside.append(t.name)
     total = float(sum(points.values()))
     surv = {s.horizon: float(s.survival(total)) for s in scales.survival}
     med = scales.median_survival(total) if scales.median is not None else None
     return PatientPoints(
         values=MappingProxyType(values), points=MappingProxyType(points), total=total,
         linear_predictor=float(scales.linear_predictor(total)), survival=MappingProxyType(surv),
-        median_survival=med, imputed=tuple(imputed),
+        median_survival=med, imputed=tuple(imputed), outside=tuple(outside),
     )
 
 
@@ -649,130 +444,16 @@ def patient_values(cohort, index: int, signature_scores: ArrayLike | None = None
     return out
 
 
-# ------------------------------------------------------------------ the points table
+# the points table lives in its own module; re-exported here for existing imports
+from workbench.figures.nomogram_table import (  # noqa: E402
+    PointsTable,
+    points_table,
+    survival_from_table,
+    write_points_table,
+)
 
-
-@dataclass(frozen=True)
-class PointsTable:
-    """Tables to compute a nomogram by hand.
-
-    Attributes
-    ----------
-    terms : DataFrame
-        Columns ``term``, ``label``, ``value``, ``points``, ``on_axis``: every level
-        of categorical terms, a fine grid of values over the whole training
-        range of continuous terms (and the below-limit value), the signature
-        over the training scores. Between two rows of a continuous term, read
-        the points by linear interpolation.
-    survival : DataFrame
-        ``total_points``, ``linear_predictor`` and one ``survival_<horizon>``
-        column per horizon, every ``total_step`` points.
-    model : str
-    horizons : tuple of float
-    """
-
-    terms: pd.DataFrame
-    survival: pd.DataFrame
-    model: str
-    horizons: tuple[float, ...]
-
-
-def _table_values(t: TermScale, n_grid: int, signature_range) -> list:
-    info = t.term_info
-    if info is None:
-        lo, hi = signature_range
-        return list(nice_ticks(lo, hi, n_grid, cover=True))
-    if info.kind in ("categorical", "ordinal"):
-        return list(info.levels)
-    lo, hi = info.train_min, info.train_max
-    if info.transform is not None:
-        raw = np.geomspace(lo, hi, n_grid)
-        vals = np.unique(np.r_[lo, [float(f"{v:.2g}") for v in raw], hi])
-        vals = vals[(vals >= lo) & (vals <= hi)]
-    else:
-        vals = nice_ticks(lo, hi, n_grid, cover=False)
-        vals = np.unique(np.r_[lo, vals, hi])
-    out = list(vals.astype(float))
-    if info.has_limit_indicator:
-        out = [f"<{info.detection_limit:.10g}", *out]
-    return out
-
-
-def points_table(
-    scales: NomogramScales, *, n_grid: int = 120, total_step: float = 1.0,
-    signature_range: tuple[float, float] | None = None,
-) -> PointsTable:
-    """The nomogram as tables: value -> points per term, total points -> survival per horizon.
-
-    Parameters
-    ----------
-    scales : NomogramScales
-    n_grid : int
-        Approximate rows per continuous term.
-    total_step : float
-        Spacing of the total-points rows.
-    signature_range : (float, float), optional
-        Signature values to tabulate (default: the signature axis range).
-    """
-    rows = []
-    for t in scales.terms:
-        seg = t.segments[0]
-        rng = signature_range or t.table_range or seg.value_range or (0.0, 1.0)
-        vals = _table_values(t, n_grid, rng)
-        pts = t.points(vals)
-        lo_ax = min(s.value_range[0] for s in t.segments) if seg.value_range else None
-        hi_ax = max(s.value_range[1] for s in t.segments) if seg.value_range else None
-        for v, p in zip(vals, pts, strict=True):
-            on_axis = True if lo_ax is None or isinstance(v, str) else bool(lo_ax - 1e-12 <= v <= hi_ax + 1e-12)
-            rows.append({"term": t.name, "label": t.label, "value": v, "points": float(p), "on_axis": on_axis})
-    terms = pd.DataFrame(rows)
-    lo_tot = float(np.floor(terms.groupby("term")["points"].min().sum()))
-    hi_tot = float(np.ceil(max(terms.groupby("term")["points"].max().sum(), scales.total_axis_max)))
-    tot = np.arange(min(lo_tot, 0.0), hi_tot + total_step / 2, total_step)
-    surv = {"total_points": tot, "linear_predictor": scales.linear_predictor(tot)}
-    for s in scales.survival:
-        surv[f"survival_{format_number(s.horizon)}"] = s.survival(tot)
-    return PointsTable(terms, pd.DataFrame(surv), scales.model, scales.horizons)
-
-
-def write_points_table(table: PointsTable, path) -> tuple:
-    """Write the points table as two CSV files: ``<path>`` (terms) and ``<stem>_survival.csv``.
-
-    Returns the two paths written.
-    """
-    from pathlib import Path
-
-    p = Path(path)
-    if p.suffix.lower() != ".csv":
-        p = p.with_suffix(".csv")
-    p.parent.mkdir(parents=True, exist_ok=True)
-    terms = table.terms.assign(points=table.terms["points"].round(2))
-    terms.to_csv(p, index=False)
-    q = p.with_name(f"{p.stem}_survival.csv")
-    table.survival.round({"total_points": 2, "linear_predictor": 4}).round(4).to_csv(q, index=False)
-    return p, q
-
-
-def survival_from_table(table: PointsTable, raw_values: Mapping, horizon: float) -> float:
-    """Predicted survival read from the points table alone, as a reader would by hand.
-
-    Continuous values are interpolated linearly between neighbouring rows,
-    levels are looked up, and the total is interpolated in the survival table.
-    Missing values must be filled in by the caller.
-    """
-    total = 0.0
-    for name, part in table.terms.groupby("term", sort=False):
-        v = raw_values[name]
-        num = part[[not isinstance(x, str) for x in part["value"]]]
-        key = canonical_level(v) if isinstance(v, str) else None
-        levels = [canonical_level(x) if isinstance(x, str) else None for x in part["value"]]
-        if key is not None and key in levels:
-            total += float(part["points"].iloc[levels.index(key)])
-            continue
-        if num.empty:
-            raise SpecError(f"{name}: value {v!r} is not a row of the points table.")
-        total += float(np.interp(float(v), num["value"].astype(float), num["points"]))
-    col = f"survival_{format_number(horizon)}"
-    if col not in table.survival:
-        raise SpecError(f"the points table has no survival column for horizon {horizon:g}.")
-    return float(np.interp(total, table.survival["total_points"], table.survival[col]))
+__all__ = [
+    "SIGNATURE_TERM", "AxisSegment", "AxisTick", "MedianScale", "NomogramScales", "PatientPoints", "PointsTable",
+    "RiskBand", "SurvivalScale", "TermScale", "nomogram_scales", "patient_values", "points_for_patient",
+    "points_table", "survival_from_table", "write_points_table",
+]

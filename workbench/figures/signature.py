@@ -21,6 +21,7 @@ from matplotlib.ticker import NullFormatter
 
 from workbench.errors import SpecError
 from workbench.figures.style import (
+    BAND_ALPHA,
     NEUTRAL,
     PALETTE,
     figure_and_axes,
@@ -99,7 +100,10 @@ def plot_selection_frequency(
             a.legend(handles=[Patch(color=PALETTE[1], label="in the final signature"),
                               Patch(color=PALETTE[0], label="not in the final signature")],
                      loc="lower right", fontsize="small")
-        if title:
+        if title and ax is None:
+            # from the figure's left edge: the feature names take the axes' left side
+            fig.suptitle(title, x=0.01, ha="left", fontsize="medium")
+        elif title:
             a.set_title(title, loc="left")
         return fig if ax is None else a
 
@@ -168,10 +172,8 @@ def plot_coefficient_path(
                    lw=1.1 if st else 0.6, alpha=1.0 if st else 0.6, gid=f"path:{path.feature_names[j]}")
         a.set_xscale("log")
         a.invert_xaxis()
-        a.axvline(path.alpha, color=PALETTE[3], lw=0.9, label=f"chosen ({path.rule})")
-        if path.index_min != path.index:
-            a.axvline(alphas[path.index_min], color=PALETTE[3], lw=0.7, linestyle=(0, (2, 2)),
-                      label="minimum CV deviance")
+        a.axvline(path.alpha, color=PALETTE[3], lw=0.8, linestyle=(0, (1, 1.5)),
+                  label=f"chosen penalty ({path.rule})")
         a.axhline(0, color=NEUTRAL, lw=0.5)
         ends = path.coefs[order[:label_top], -1]
         placed = _spread(ends, 0.06 * float(np.ptp(path.coefs[active])) if active.size else 0.0)
@@ -180,19 +182,44 @@ def plot_coefficient_path(
                        textcoords="data", fontsize="x-small", va="center", ha="left",
                        color=series_style(rank).color, annotation_clip=False)
         a.set_ylabel("Coefficient (per SD)")
-        a.legend(loc="lower left", fontsize="small")
         _log_ticks(a, alphas)
-        if title:
+        if title and b is not None:
+            fig.suptitle(title, x=0.01, ha="left", fontsize="medium")
+        elif title:
             a.set_title(title, loc="left")
         if b is not None:
-            b.errorbar(alphas, path.cv_mean, yerr=path.cv_se, fmt="o", ms=2.2, color=PALETTE[0],
-                       elinewidth=0.5, capsize=0)
-            b.axvline(path.alpha, color=PALETTE[3], lw=0.9)
-            if path.index_min != path.index:
-                b.axvline(alphas[path.index_min], color=PALETTE[3], lw=0.7, linestyle=(0, (2, 2)))
-            b.set_ylabel("CV deviance\nper event")
-            b.set_xlabel("Penalty (log scale, weaker to the right)")
-            _log_ticks(b, alphas)
+            a.tick_params(labelbottom=False)
+            _deviance_panel(b, path, alphas)
         else:
             a.set_xlabel("Penalty (log scale, weaker to the right)")
         return fig if ax is None else a
+
+
+def _deviance_panel(b, path: PenalizedPathResult, alphas: np.ndarray) -> None:
+    """Cross-validated deviance as a line with a one-SE band, the chosen penalty as one
+    annotated marker, and the number of features kept along a second axis."""
+    mean, se = np.asarray(path.cv_mean, float), np.asarray(path.cv_se, float)
+    b.fill_between(alphas, mean - se, mean + se, color=PALETTE[0], alpha=BAND_ALPHA, linewidth=0)
+    b.plot(alphas, mean, color=PALETTE[0], lw=1.1, gid="cv_deviance")
+    kept = np.sum(path.coefs != 0, axis=0)
+    (mk,) = b.plot([path.alpha], [mean[path.index]], linestyle="none", marker="D", ms=4.5, mfc="white",
+                   mec=PALETTE[3], mew=1.1, gid="chosen_penalty")
+    note = f"chosen ({path.rule}): {int(kept[path.index])} features"
+    if path.index_min != path.index:
+        note += f"\nlowest deviance: {int(kept[path.index_min])}"
+    right = path.index < alphas.size / 2  # the label goes towards the emptier side
+    b.annotate(note, (path.alpha, mean[path.index]), xytext=(6 if right else -6, 8), textcoords="offset points",
+               ha="left" if right else "right", va="bottom", fontsize="x-small", color=PALETTE[3],
+               arrowprops={"arrowstyle": "-", "color": PALETTE[3], "lw": 0.6})
+    b.set_ylabel("CV deviance\nper event")
+    b.set_xlabel("Penalty (log scale, weaker to the right)")
+    _log_ticks(b, alphas)
+    lo, hi = float(np.min(mean - se)), float(np.max(mean + se))
+    b.set_ylim(lo - 0.05 * (hi - lo), hi + 0.45 * (hi - lo))
+    top = b.secondary_xaxis("top")
+    pos = np.unique(np.linspace(0, alphas.size - 1, 5).round().astype(int))
+    top.set_xticks(alphas[pos], labels=[str(int(kept[i])) for i in pos])
+    top.xaxis.set_minor_formatter(NullFormatter())
+    top.set_xlabel("features kept", fontsize="small", labelpad=1)
+    top.tick_params(labelsize="small")
+    mk.set_label("chosen penalty")

@@ -75,6 +75,41 @@ def series_style(i: int) -> SeriesStyle:
     return SeriesStyle(PALETTE[k], LINESTYLES[k], MARKERS[k])
 
 
+MODEL_SLOTS = {"clinical": 0, "combined": 1, "penalised_all": 2, "forest": 3}
+"""Fixed palette slot of each study model, so a model keeps its look in every figure and in
+every order (a bundle lists its models alphabetically; a study lists them as written)."""
+
+
+def _model_slot(name: str) -> int | None:
+    if name in MODEL_SLOTS:
+        return MODEL_SLOTS[name]
+    from workbench.models.registry import MODEL_LABELS  # labels as drawn in legends
+
+    for key, label in MODEL_LABELS.items():
+        if name == label:
+            return MODEL_SLOTS.get(key)
+    return None
+
+
+def model_styles(names) -> dict[str, SeriesStyle]:
+    """The style of each model, keyed by model name (study key or its label), independent of order.
+
+    The four study models have fixed slots (:data:`MODEL_SLOTS`); any other names take the
+    remaining slots in alphabetical order, so reordering the names never swaps two styles.
+    """
+    names = list(dict.fromkeys(names))
+    out, used = {}, set()
+    for n in names:
+        k = _model_slot(n)
+        if k is not None:
+            out[n] = series_style(k)
+            used.add(k)
+    free = [k for k in range(len(PALETTE)) if k not in used] or list(range(len(PALETTE)))
+    for i, n in enumerate(sorted(n for n in names if n not in out)):
+        out[n] = series_style(free[i % len(free)])
+    return out
+
+
 def column_width_inches(width: str | float) -> float:
     """Figure width in inches for ``"single"``, ``"double"`` or a width in millimetres."""
     if isinstance(width, str):

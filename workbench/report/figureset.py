@@ -40,6 +40,8 @@ from workbench.figures import (
     save_figure,
     td_auc_by_model,
 )
+from workbench.figures.nomogram_points import SIGNATURE_TERM
+from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import MODEL_LABELS
 
@@ -63,10 +65,14 @@ def _evaluation(result):
     return result.cohort, "development cohort, apparent"
 
 
-def nomogram_figure(result, *, patient=None, layout="columns"):
-    """Nomograms of the Cox models of the study (clinical-only and clinical + signature)."""
+def nomogram_figure(result, *, patient=None, layout="columns", width="double", notes=None, patient_row=None):
+    """Nomograms of the Cox models of the study (clinical-only and clinical + signature).
+
+    ``patient_row=(cohort, index)`` (the row the ``patient`` values came from) adds the
+    95% interval of each model's predicted survival for that patient.
+    """
     train, unit = result.cohort, result.cohort.time_unit
-    scales = []
+    scales, intervals = [], []
     for name in COX_MODELS:
         m = result.models.get(name)
         if m is None:
@@ -76,13 +82,62 @@ def nomogram_figure(result, *, patient=None, layout="columns"):
             nomogram_scales(m, tuple(result.spec.horizons), signature_scores=sig, time_unit=unit,
                             median_axis=True, name=MODEL_LABELS[name])
         )
+        if patient_row is not None:
+            cohort, i = patient_row
+            ci = m.predict_survival_with_ci(cohort.take([int(i)]), tuple(result.spec.horizons))
+            intervals.append({float(h): (float(ci.lower[0, k]), float(ci.upper[0, k]))
+                              for k, h in enumerate(result.spec.horizons)})
     if not scales:
         raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
-    return plot_nomogram(scales, patient=patient, layout=layout)
+    if width == "single" and layout == "columns" and len(scales) > 1:
+        layout = "rows"  # two panels side by side do not fit one journal column
+    return plot_nomogram(scales, patient=patient, layout=layout, width=width, notes=notes,
+                         intervals=intervals if patient_row is not None else None)
 
 
-def study_figures(result) -> dict:
-    """All standard figures of a run, by file-friendly name (matplotlib Figures)."""
+def patient_notes(result, cohort, index: int) -> list[str]:
+    """What the nomogram cannot see about one patient: a scanner (batch) the training network never used."""
+    train_batches = set(map(str, result.cohort.batch)) if result.cohort.batch is not None else set()
+    if cohort.batch is None or not train_batches:
+        return []
+    b = str(cohort.batch[int(index)])
+    if b in train_batches:
+        return []
+    return [f"{b} was not among the training scanners ({', '.join(sorted(train_batches))}): this patient's "
+            "features were standardised without harmonisation, so the signature may be off."]
+
+
+def showcase_patients(result, cohort, signature_scores) -> dict[str, int]:
+    """Two example rows of ``cohort`` for the nomogram overlay.
+
+    ``"typical"``: the first patient from a scanner seen in training whose signature lies
+    inside the training range; ``"flagged"``: the first patient from an unseen scanner,
+    preferring one whose signature lies outside the training range (absent when every
+    patient's scanner was seen).
+    """
+    train = result.models["combined"].signature_score(result.cohort)
+    lo, hi = np.percentile(train, [1.0, 99.0])
+    s = np.asarray(signature_scores, dtype=float)
+    inside = (s >= lo) & (s <= hi)
+    unseen = np.array([bool(patient_notes(result, cohort, i)) for i in range(cohort.n)])
+    out = {}
+    ok = np.flatnonzero(~unseen & inside)
+    if ok.size:
+        out["typical"] = int(ok[0])
+    bad = np.flatnonzero(unseen & ~inside)
+    bad = bad if bad.size else np.flatnonzero(unseen)
+    if bad.size:
+        out["flagged"] = int(bad[0])
+    return out
+
+
+def study_figures(result, *, width="double") -> dict:
+    """All standard figures of a run, by file-friendly name (matplotlib Figures).
+
+    Each figure is drawn for ``width`` ("single" 85 mm, "double" 175 mm or millimetres):
+    text sizes and layout are chosen for that width, so draw once per width rather than
+    resizing a drawn figure.
+    """
     figs = {}
     train = result.cohort
     unit = train.time_unit
@@ -94,13 +149,14 @@ def study_figures(result) -> dict:
         # scoring an unseen scanner (documented fallback) warns once per call; the run log has it
         warnings.simplefilter("ignore", WorkbenchWarning)
         if any(n in models for n in COX_MODELS):
-            figs["nomogram"] = nomogram_figure(result)
+            figs["nomogram"] = nomogram_figure(result, width=width)
         top = "combined" if "combined" in models else next(iter(models))
         m = models[top]
         k = result.spec.models.risk_groups
         groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, k)
         figs["km_risk_groups"] = plot_km_by_group(
-            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})"
+            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})", width=width,
+            development=result.external_prepared is None,
         )
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
@@ -108,29 +164,40 @@ def study_figures(result) -> dict:
         cens_y, row_cens = train.y, None
         if result.external_prepared is not None:  # the evaluated cohort's own weights, as in the table
             cens_y, row_cens = evalc.y, external_censoring(result, evalc, risks)
+        # the legend's mean AUC is the results table's: over the study horizons, weighted by events
+        means = {k: r.mean_auc
+                 for k, r in td_auc_by_model(cens_y, evalc.y, risks, horizons, censoring=row_cens).items()}
+        window = ", ".join(format_number(h) for h in horizons) + f" {unit}"
         figs["td_auc"] = plot_td_auc(td_auc_by_model(cens_y, evalc.y, risks, grid, censoring=row_cens), time_unit=unit,
-                                     horizons=horizons, title=where.capitalize())
+                                     horizons=horizons, title=where.capitalize(), width=width,
+                                     mean_auc=means, mean_window=f"at {window}".rstrip())
         curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
         cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}
-        figs["calibration"] = plot_calibration_panels(cal, predicted=curves, time_unit=unit)
+        figs["calibration"] = plot_calibration_panels(cal, predicted=curves, time_unit=unit, width=width,
+                                                        cohort=where)
         h = horizons[len(horizons) // 2]
         figs["decision_curve"] = plot_decision_curve(decision_curves(evalc.y, curves, h), time_unit=unit,
-                                                     title=where.capitalize())
+                                                     title=where.capitalize(), width=width)
     for name in COX_MODELS:
         if name in models:
-            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(models[name]), title=labels[name])
+            m = models[name]
+            sd = (float(np.std(m.signature_score(train), ddof=1)) if hasattr(m, "signature_score")
+                  and SIGNATURE_TERM in m.fit_.names else None)
+            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(m, signature_sd=sd), title=labels[name],
+                                                             width=width)
     sig_model = models.get("combined")
     sel = result.validation.selection.get("combined")
     if sel is not None and sel.n_fits:
         figs["selection_frequency"] = plot_selection_frequency(
             sel.frequency, n_replicates=sel.n_fits, selected=sel.apparent,
-            title="Imaging features kept across bootstrap refits",
+            title="Imaging features kept across bootstrap refits", width=width,
         )
     if sig_model is not None and sig_model.signature_.path_ is not None:
         figs["coefficient_path"] = plot_coefficient_path(sig_model.signature_.path_,
-                                                         title="Imaging signature: penalised path")
+                                                         title="Imaging signature: penalised path",
+                                                         width=width)
     for name, ph in result.ph_tests.items():
-        figs[f"ph_{name}"] = plot_schoenfeld(ph)
+        figs[f"ph_{name}"] = plot_schoenfeld(ph, width=width, time_unit=unit)
     return figs
 
 
@@ -139,9 +206,11 @@ def write_figures(result, out_dir, *, formats=("png", "svg", "pdf"), widths=("do
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     written = []
-    for name, fig in study_figures(result).items():
-        for p in save_figure(fig, out / name, widths=widths, formats=formats):
-            final = p.with_name(f"{name}{p.suffix}") if len(widths) == 1 else p
-            p.replace(final)
-            written.append(final)
+    for width in widths:
+        # drawn afresh at each width: fonts and layout are chosen for the column, not scaled
+        for name, fig in study_figures(result, width=width).items():
+            for p in save_figure(fig, out / name, widths=(width,), formats=formats):
+                final = p.with_name(f"{name}{p.suffix}") if len(widths) == 1 else p
+                p.replace(final)
+                written.append(final)
     return written

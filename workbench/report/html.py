@@ -78,7 +78,7 @@ SECTIONS = (
 
 _GLOBAL = ("harrell_c", "uno_c", "mean_auc", "ibs", "null_ibs", "ipa_integrated")
 _LABELS = {
-    "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC", "ibs": "Integrated Brier score",
+    "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC over the horizons", "ibs": "Integrated Brier score",
     "null_ibs": "Integrated Brier, Kaplan-Meier null", "ipa_integrated": "IPA, integrated",
     "auc": "AUC", "brier": "Brier score", "ipa": "IPA", "ici": "ICI", "e50": "E50", "e90": "E90",
     "cal_slope": "Calibration slope", "oe_ratio": "Observed / expected",
@@ -186,7 +186,9 @@ def _km_fig(model, train, cohort, unit, title, k=3):
     from workbench.figures import km_by_group, plot_km_by_group, risk_groups
 
     groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, k)
-    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title)
+    # on the development patients the groups come from a model fitted to them: described, not tested
+    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title,
+                            development=cohort is train)
 
 
 def _external_row_censoring(result, cohort, models):
@@ -204,9 +206,12 @@ def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=
     hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
     grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
     risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
+    # the legend's mean AUC is the results table's: over the study horizons, weighted by events
+    means = {k: r.mean_auc
+             for k, r in td_auc_by_model(weights_from.y, cohort.y, risks, horizons, censoring=row_censoring).items()}
+    window = "at " + ", ".join(f"{h:g}" for h in horizons) + (f" {unit}" if unit else "")
     return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid, censoring=row_censoring),
-                       time_unit=unit, horizons=horizons,
-                       title=title)
+                       time_unit=unit, horizons=horizons, title=title, mean_auc=means, mean_window=window)
 
 
 def _decision_fig(d: dict, unit: str, j: int):

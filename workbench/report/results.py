@@ -18,6 +18,7 @@ import pandas as pd
 
 from workbench.cohort.codes import code_order
 from workbench.cohort.summary import CAUTION, format_summary
+from workbench.figures.wording import chi_squared_text
 from workbench.models.labels import equal_models, model_labels
 from workbench.report.naming import coefficient_rows, hazard_ratio_frame, ph_frame
 
@@ -369,7 +370,7 @@ def format_results(result) -> str:
             lines.append(f"  added value of imaging given clinical (permutation test): CV log-likelihood gain "
                          f"{av.observed:.1f}, p = {av.p_value:.3g} (MC SE {av.mc_se:.3f}, {av.permutations} permutations)")
         if name not in same and lr.nested and np.isfinite(lr.statistic) and lr.df > 0 and np.isfinite(lr.p_value):
-            lines.append(f"  likelihood-ratio test {lr.statistic:.1f} on {lr.df} df, p = {lr.p_value:.2g} "
+            lines.append(f"  likelihood-ratio {chi_squared_text(lr.statistic, lr.df, lr.p_value)} "
                          "(prespecified terms)")
     if result.external is not None:
         lines.append("")

@@ -35,7 +35,14 @@ from workbench.figures import (
     save_figure,
     td_auc_by_model,
 )
-from workbench.figures.style import CVD_MATRICES, PALETTE, palette_report, style_context
+from workbench.figures.decision import EVERYONE, NO_ONE
+from workbench.figures.style import (
+    CVD_MATRICES,
+    PALETTE,
+    model_styles,
+    palette_report,
+    style_context,
+)
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
@@ -91,6 +98,18 @@ def test_palette_is_colour_blind_safe_and_greyscale_distinct():
         np.testing.assert_allclose(m.sum(axis=1), 1.0, atol=2e-6)
 
 
+def test_model_styles_follow_the_name_not_the_order():
+    names = ["Clinical Cox", "Clinical + imaging signature", "Random survival forest"]
+    a = model_styles(names)
+    b = model_styles(sorted(names, reverse=True))  # e.g. a bundle's alphabetical order
+    assert a == b
+    assert model_styles(["clinical", "combined"]) == {"clinical": a["Clinical Cox"],
+                                                      "combined": a["Clinical + imaging signature"]}
+    other = model_styles(["zeta", "alpha", "Clinical Cox"])
+    assert other == model_styles(["alpha", "Clinical Cox", "zeta"])
+    assert len({s.color for s in other.values()}) == 3
+
+
 def test_style_does_not_touch_global_settings():
     before = dict(matplotlib.rcParams)
     with style_context("double"):
@@ -133,7 +152,7 @@ def test_km_plot_draws_the_estimates_and_true_numbers_at_risk(leukemia):
     y, rx = leukemia
     g = risk_groups(rx, rx, [0.5])
     res = km_by_group(y, g, tick_times=[0, 10, 20, 30])
-    fig = plot_km_by_group(res)
+    fig = plot_km_by_group(res, min_at_risk=0)
     ax_main, ax_tab = fig.axes[:2]
     for k, lab in enumerate(res.labels):
         line = _line(ax_main, lab)
@@ -141,6 +160,16 @@ def test_km_plot_draws_the_estimates_and_true_numbers_at_risk(leukemia):
         km = kaplan_meier(y["time"][m], y["event"][m])
         np.testing.assert_allclose(line.get_xdata(), np.r_[0.0, km.times])
         np.testing.assert_allclose(line.get_ydata(), np.r_[1.0, km.survival])
+    # the default cuts each curve after the last time with at least 10 patients at risk
+    cut = plot_km_by_group(res)
+    for k, lab in enumerate(res.labels):
+        m = g.groups == k
+        km = kaplan_meier(y["time"][m], y["event"][m])
+        keep = km.at_risk >= 10
+        line = _line(cut.axes[0], lab)
+        np.testing.assert_allclose(line.get_xdata(), np.r_[0.0, km.times[keep]])
+        np.testing.assert_allclose(line.get_ydata(), np.r_[1.0, km.survival[keep]])
+        assert np.sum(y["time"][m] >= line.get_xdata()[-1]) >= 10
     texts = [(t.get_position(), t.get_text()) for t in ax_tab.texts]
     for k in range(len(res.labels)):
         m = g.groups == k
@@ -148,6 +177,24 @@ def test_km_plot_draws_the_estimates_and_true_numbers_at_risk(leukemia):
         for t in res.tick_times:
             shown = [s for (x, yy), s in texts if x == t and yy == row]
             assert shown == [str(int(np.sum(y["time"][m] >= t)))]  # direct count still at risk
+    # the comparison is a caption under the figure, not text inside the plot area
+    assert not ax_main.texts
+    caption = fig.get_supxlabel()
+    assert f"chi-squared = {res.logrank.statistic:.1f} with 1 degree of freedom" in caption.replace("\n", " ")
+    assert "p < 0.001" in caption
+    assert "Groups cut at 0.5 on the risk score" in caption.replace("\n", " ")
+    dev = plot_km_by_group(res, development=True).get_supxlabel().replace("\n", " ")
+    assert "descriptive" in dev and "p =" not in dev and "p <" not in dev and "chi-squared" not in dev
+
+
+def test_km_ticks_follow_the_study_time_unit():
+    from workbench.figures.ticks import time_ticks
+
+    np.testing.assert_array_equal(time_ticks(64.0, "months"), [0, 12, 24, 36, 48, 60])
+    np.testing.assert_array_equal(time_ticks(30.0, "months"), [0, 6, 12, 18, 24, 30])
+    np.testing.assert_array_equal(time_ticks(1100.0, "days"), [0, 182, 364, 546, 728, 910, 1092])
+    np.testing.assert_array_equal(time_ticks(7.0, "years"), [0, 2, 4, 6])  # at most 7 ticks
+    np.testing.assert_array_equal(time_ticks(6.0, "years"), [0, 1, 2, 3, 4, 5, 6])
 
 
 # ------------------------------------------------------------------ discrimination, calibration, decision
@@ -160,9 +207,18 @@ def test_td_auc_lines_equal_the_results(demo):
     fig = plot_td_auc(res, time_unit="months")
     ax = fig.axes[0]
     for name, r in res.items():
-        line = _line(ax, f"{name} (mean {r.mean_auc:.2f})")
+        line = _line(ax, f"{name} ({r.mean_auc:.2f})")
         np.testing.assert_allclose(line.get_xdata(), r.times)
         np.testing.assert_allclose(line.get_ydata(), r.auc)
+    np.testing.assert_array_equal(ax.get_xticks(), [0, 12, 24, 36])  # the study's month steps
+    # the legend states the window of the mean it shows
+    assert fig.legends[0].get_title().get_text() == "Model (mean AUC, 6 to 42 months)"
+    # given the study's own means, the legend shows those and their window
+    means = {"clinical": 0.7012, "combined": 0.8123}
+    fig = plot_td_auc(res, time_unit="months", mean_auc=means, mean_window="at 12, 24, 36 months")
+    assert fig.legends[0].get_title().get_text() == "Model (mean AUC, at 12, 24, 36 months)"
+    _line(fig.axes[0], "clinical (0.70)")
+    _line(fig.axes[0], "combined (0.81)")
 
 
 def test_calibration_plot_draws_the_result(demo):
@@ -178,6 +234,11 @@ def test_calibration_plot_draws_the_result(demo):
     np.testing.assert_allclose(smooth.get_ydata(), res.smoothed.grid_observed)
     text = " ".join(t.get_text() for t in ax.texts)
     assert f"ICI {res.smoothed.ici:.3f}" in text and f"E90 {res.smoothed.e90:.3f}" in text
+    # in a grid of panels the numbers move above the panel, where no point can hide them
+    small = plot_calibration(res, predicted=curves, time_unit="months", compact=True, title="24 months")
+    head = small.axes[0].get_title(loc="left")
+    assert head == f"24 months\nICI {res.smoothed.ici:.3f}\nslope {res.slope.slope:.2f}"
+    assert not small.axes[0].texts
     hist = fig.axes[0].child_axes[0]
     assert sum(p.get_height() for p in hist.patches) == test.n  # every predicted risk is in the histogram
 
@@ -189,10 +250,12 @@ def test_decision_curve_reference_strategies(demo):
     fig = plot_decision_curve(res, time_unit="months")
     ax = fig.axes[0]
     pt = res["clinical"].thresholds
-    np.testing.assert_array_equal(_line(ax, "Treat none").get_ydata(), np.zeros_like(pt))
-    # treat-all: (1 - S) - S pt / (1 - pt) with S the Kaplan-Meier survival at the horizon (Vickers & Elkin 2006)
+    np.testing.assert_array_equal(_line(ax, NO_ONE).get_ydata(), np.zeros_like(pt))
+    # acting on everyone: (1 - S) - S pt / (1 - pt) with S the Kaplan-Meier survival at the horizon
+    # (Vickers & Elkin 2006)
     s = float(survival_at(kaplan_meier(test.time, test.event), 24.0))
-    np.testing.assert_allclose(_line(ax, "Treat all").get_ydata(), (1 - s) - s * pt / (1 - pt), atol=1e-12)
+    np.testing.assert_allclose(_line(ax, EVERYONE).get_ydata(), (1 - s) - s * pt / (1 - pt), atol=1e-12)
+    assert ax.get_legend() is None and fig.legends  # the legend sits under the panel, off the curves
     for name, r in res.items():
         np.testing.assert_allclose(_line(ax, name).get_ydata(), r.net_benefit)
 
@@ -213,6 +276,17 @@ def test_forest_markers_sit_at_the_hazard_ratios(demo):
     cea = table[table["column"] == "cea_ng_ml"]
     assert "per doubling" in set(cea["contrast"])
     assert ax.get_xscale() == "log"
+    # per SD of the training scores, the nomogram's unit: exp(b * SD) with limits scaled alike
+    _, train, _, _ = demo
+    sd = float(np.std(models["combined"].signature_score(train), ddof=1))
+    per_sd = forest_table(models["combined"], signature_sd=sd)
+    row = per_sd[per_sd["column"] == "imaging_signature"].iloc[0]
+    f = models["combined"].fit_
+    j = list(f.names).index("imaging_signature")
+    assert row["contrast"] == "per SD of training scores"
+    assert row["hr"] == pytest.approx(np.exp(f.coef[j] * sd), rel=1e-12)
+    assert (row["lower"], row["upper"]) == pytest.approx((np.exp(f.ci_lower[j] * sd), np.exp(f.ci_upper[j] * sd)))
+    assert row["p_value"] == pytest.approx(f.p_value[j])  # the test does not depend on the unit
 
 
 def test_selection_frequency_bars_equal_the_input():
@@ -231,8 +305,22 @@ def test_coefficient_path_marks_the_chosen_penalty(demo):
     path = models["combined"].signature_.path_
     fig = plot_coefficient_path(path)
     ax = fig.axes[0]
-    chosen = _line(ax, f"chosen ({path.rule})")
+    chosen = _line(ax, f"chosen penalty ({path.rule})")
     assert chosen.get_xdata()[0] == pytest.approx(path.alpha)
+    dev = fig.axes[1]
+    cv = next(ln for ln in dev.get_lines() if ln.get_gid() == "cv_deviance")
+    np.testing.assert_allclose(cv.get_ydata(), path.cv_mean)  # a line, not dots with error bars
+    marks = [ln for ln in dev.get_lines() if ln.get_gid() == "chosen_penalty"]
+    assert len(marks) == 1 and marks[0].get_xdata()[0] == pytest.approx(path.alpha)
+    assert marks[0].get_ydata()[0] == pytest.approx(path.cv_mean[path.index])
+    assert not [ln for ln in dev.get_lines() if len(ln.get_xdata()) == 2 and ln.get_xdata()[0] == ln.get_xdata()[1]]
+    kept = int(np.sum(path.coefs[:, path.index] != 0))
+    assert f"{kept} features" in " ".join(t.get_text() for t in dev.texts)
+    top = dev.child_axes[0]  # the feature-count axis
+    counts = np.sum(path.coefs != 0, axis=0)
+    for tick, lab in zip(top.get_xticks(), top.get_xticklabels(), strict=True):
+        i = int(np.argmin(np.abs(np.log(path.alphas) - np.log(tick))))
+        assert lab.get_text() == str(int(counts[i]))
     drawn = [ln for ln in ax.get_lines() if (ln.get_gid() or "").startswith("path:")]
     assert len(drawn) == int(np.sum(np.any(path.coefs != 0, axis=1)))
     j = path.feature_names.index(drawn[0].get_gid()[5:])
@@ -246,13 +334,18 @@ def test_schoenfeld_points_equal_the_residuals():
     covs = ["fin", "age", "prio"]
     fit = fit_coxph(df[covs].to_numpy(float), df["week"], df["arrest"], names=covs)
     res = proportional_hazards_test(fit, df[covs].to_numpy(float), df["week"], df["arrest"])
-    fig = plot_schoenfeld(res, ncols=3)
+    fig = plot_schoenfeld(res, ncols=3, time_unit="weeks")
     for j, ax in enumerate(fig.axes[:3]):
         pts = next(c for c in ax.collections if c.get_gid() == "scaled_residuals")
         off = pts.get_offsets()
-        np.testing.assert_allclose(off[:, 0], res.transformed_times)
+        np.testing.assert_allclose(off[:, 0], res.residuals.event_times)  # real follow-up time
         np.testing.assert_allclose(off[:, 1], res.residuals.scaled[:, j])
-        assert f"{res.p_value[j]:.3f}" in ax.get_title(loc="left")
+        assert ax.get_title(loc="left") == f"{covs[j]}\nconstant-effect test p = {res.p_value[j]:.3f}"
+        const = next(ln for ln in ax.get_lines() if ln.get_gid() == "constant_effect")
+        assert const.get_ydata()[0] == pytest.approx(np.mean(res.residuals.scaled[:, j]))
+        assert "constant effect" in [t.get_text() for t in ax.texts]
+        np.testing.assert_array_equal(ax.get_xticks(), [0, 13, 26, 39, 52])  # quarter years of weeks
+    assert fig.axes[0].get_xlabel() == "Follow-up (weeks)"
 
 
 # ------------------------------------------------------------------ export
