@@ -66,6 +66,43 @@ def _report_html(run_key: tuple, _result) -> str:
     return _report()(_result)
 
 
+def chromium() -> str | None:
+    """The Chromium that prints the PDF report, or None when none is installed."""
+    mod = state.load_module("workbench.report.pdf")
+    try:
+        return mod.find_chromium() if mod is not None else None
+    except Exception:  # noqa: BLE001 - no browser: the PDF is simply not offered
+        return None
+
+
+@st.cache_data(show_spinner="Printing the report to PDF...", max_entries=2)
+def _pdf_bytes(run_key: tuple, html: str) -> bytes:
+    mod = state.load_module("workbench.report.pdf")
+    with tempfile.TemporaryDirectory(prefix="workbench-pdf-") as tmp:
+        src = Path(tmp) / "report.html"
+        src.write_text(html, encoding="utf-8")
+        return Path(mod.print_pdf(src, Path(tmp) / "report.pdf")).read_bytes()
+
+
+def _pdf(key, html: str, spec) -> None:
+    """The PDF report, offered when a Chromium is installed to print it (printed once per run)."""
+    if chromium() is None:
+        st.caption("The PDF version needs the Chromium browser on this computer; the HTML report prints "
+                   "from any browser.")
+        return
+    done = st.session_state.get("export_pdf_for") == key
+    if not done and not st.button("Prepare the PDF report", key="export_pdf_make"):
+        return
+    try:
+        data = _pdf_bytes(key, html)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Printing the PDF report", exc)
+        return
+    st.session_state["export_pdf_for"] = key
+    st.download_button("Download the report (PDF)", data, file_name=state.study_filename(spec, ".pdf", "report"),
+                       mime="application/pdf", key="export_pdf")
+
+
 def render() -> None:
     st.title("Export")
     st.write("Download what the run produced, to archive it, share it or apply the models to new patients.")
@@ -76,11 +113,15 @@ def render() -> None:
     if result is None:
         st.info("Run the study on the Results page first.")
         return
-    key = state.current_job().key
+    state.show_provenance("These files")
+    job = state.result_job()
+    key = job.key
+    spec = result.spec
 
     st.subheader("Study file")
-    st.download_button("Download the study file as run (TOML)", result.study_text, file_name="study.toml",
-                       mime="application/toml", key="export_study")
+    st.download_button("Download the study file as run (TOML)", state.study_text(spec),
+                       file_name=state.study_filename(spec), mime="application/toml", key="export_study")
+    st.caption("Save it in the folder that holds the study's tables: it names them relative to its own folder.")
 
     st.subheader("Report")
     if _report() is None:
@@ -90,10 +131,12 @@ def render() -> None:
                    "it lists no patient identifiers.")
         try:
             html = _report_html(key, result)
-            st.download_button("Download the report (HTML)", html, file_name="report.html", mime="text/html",
-                               key="export_report")
+            st.download_button("Download the report (HTML)", html, file_name=state.study_filename(spec, ".html", "report"),
+                               mime="text/html", key="export_report")
         except Exception as exc:  # noqa: BLE001
             state.show_error("Writing the report", exc)
+        else:
+            _pdf(key, html, spec)
 
     st.subheader("Results file")
     st.caption("Every number of the run with the study, seed, data hash and package versions (results.json).")
@@ -107,11 +150,12 @@ def render() -> None:
         state.not_available("results.json")
     else:
         a, b = st.columns(2)
-        a.download_button("Download results.json", text, file_name="results.json", mime="application/json",
-                          key="export_json")
+        a.download_button("Download results.json", text, file_name=state.study_filename(spec, ".json", "results"),
+                          mime="application/json", key="export_json")
         if folder is not None:
             b.download_button("Download the results folder (JSON, CSV tables, run log; zip)", folder,
-                              file_name="results.zip", mime="application/zip", key="export_folder")
+                              file_name=state.study_filename(spec, ".zip", "results"), mime="application/zip",
+                              key="export_folder")
 
     st.subheader("Model bundle")
     st.caption("The fitted models in a safe format (JSON and arrays, no executable code) to estimate survival "
@@ -124,7 +168,8 @@ def render() -> None:
     except Exception as exc:  # noqa: BLE001
         state.show_error("Saving the model bundle", exc)
         return
-    st.download_button("Download the model bundle (zip)", data, file_name="model_bundle.zip",
+    st.download_button("Download the model bundle (zip)", data,
+                       file_name=state.study_filename(spec, ".zip", "model_bundle"),
                        mime="application/zip", key="export_bundle")
 
 

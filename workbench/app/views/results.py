@@ -7,7 +7,8 @@ import os
 import numpy as np
 import streamlit as st
 
-from workbench.app import charts, nomo, state, tables
+from workbench.app import charts, nomo, roles, state, tables
+from workbench.app.messages import plain
 from workbench.validation.compare import LR_CAUTION
 
 POLL_SECONDS = 0.5
@@ -47,6 +48,11 @@ def _run_controls(spec) -> None:
         st.rerun()
 
 
+def _clock(seconds: float) -> str:
+    seconds = max(0, int(round(seconds)))
+    return f"{seconds // 60}:{seconds % 60:02d}"
+
+
 def _watch(job) -> None:
     """Show progress while the background run goes on; a click on Cancel stops it between replicates."""
     st.button("Cancel the run", on_click=job.cancel, key="results_cancel")
@@ -58,18 +64,20 @@ def _watch(job) -> None:
             text = f"{job.message}: {job.done} of {job.total} replicates"
         else:
             text = "Preparing the cohort and fitting the models on all patients..."
+        left = job.remaining()
+        text += f" (elapsed {_clock(job.elapsed)}" + (f", about {_clock(left)} left)" if left is not None else ")")
         bar.progress(min(job.done / job.total, 1.0) if job.total else 0.0, text=text)
         job.wait(POLL_SECONDS)
     st.rerun()
 
 
-def _decision_figure(dc, model: str, baseline: str):
+def _decision_figure(dc, model: str, baseline: str, outcome: str = "the event"):
     x = np.asarray(dc.thresholds, float)
     fig = charts.line_figure(
         x,
         {tables.label(model): dc.model_validated, tables.label(baseline): dc.baseline_validated,
          "Treat all": dc.treat_all, "Treat none": dc.treat_none},
-        xlabel="Threshold probability of death by the horizon", ylabel="Net benefit (validated)",
+        xlabel=f"Threshold probability of {outcome} by the horizon", ylabel="Net benefit (validated)",
         hline=0.0,
     )
     # Treat-all falls far below zero at high thresholds; keep the range where decisions differ.
@@ -110,6 +118,7 @@ def _figure_title(name: str) -> str:
 
 
 def _figures(result, key) -> None:
+    spec = result.spec
     st.subheader("Figures")
     try:
         figs = _run_figures(key, result)
@@ -127,7 +136,7 @@ def _figures(result, key) -> None:
     left.image(nomo.save_figure(fig, "png"))
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
-            st.download_button(f"Download {fmt.upper()}", nomo.save_figure(fig, fmt), file_name=f"{pick}.{fmt}",
+            st.download_button(f"Download {fmt.upper()}", nomo.save_figure(fig, fmt), file_name=state.study_filename(spec, f".{fmt}", pick),
                                mime=mime, key=f"results_fig_{fmt}")
         if result.external_prepared is not None:
             st.caption("Curves, calibration and decision curves are drawn on the external cohort.")
@@ -135,7 +144,7 @@ def _figures(result, key) -> None:
             st.caption("Curves, calibration and decision curves are drawn on the development cohort (apparent).")
 
 
-def _comparison(comp, u: str) -> None:
+def _comparison(comp, u: str, outcome: str = "the event") -> None:
     st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
                 f"{comp.n_paired} paired replicates)")
     state.table(tables.difference_table(comp, time_unit=u, headline=True))
@@ -158,7 +167,7 @@ def _comparison(comp, u: str) -> None:
         pick = right.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
                                format_func=lambda h: f"{h} {u}")
         dc = comp.decision[hz.index(pick)]
-        left.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline)),
+        left.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline, outcome)),
                    caption=f"Decision curves at {pick} {u}, corrected like the other measures")
         right.caption("Net benefit of acting on the model's predicted risk at each threshold, against "
                       "treating everyone or no one.")
@@ -177,12 +186,11 @@ def _show(result, job) -> None:
         f"Finished in {took}: {v.n} patients, {v.n_events} events; {METHODS.get(v.method, v.method)} with "
         + ", ".join(f"{r} replicates for the {tables.label(m)} model" for m, r in reps.items()) + "."
     )
-    if job.key[:2] != state.run_key(state.current_study(), job.replicates, job.workers)[:2]:
-        st.warning("The study has changed since this run; run it again to update these results.")
+    state.show_provenance()
     if result.warnings:
         with st.expander(f"Statistical warnings raised during the run ({len(result.warnings)})"):
             for cat, msg in result.warnings:
-                st.write(f"**{cat}**: {state.friendly(msg)}")
+                st.write(f"**{cat}**: {plain(state.friendly(msg))}")
 
     pct = round(100 * v.conf_level)
     fewest = min(reps.values()) if reps else 0
@@ -213,7 +221,7 @@ def _show(result, job) -> None:
         tabs = st.tabs([f"{tables.label(c.model)} minus {tables.label(c.baseline)}" for c in comps])
     for tab, comp in zip(tabs if comps else [], comps, strict=False):
         with tab:
-            _comparison(comp, u)
+            _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes))
     _figures(result, job.key)
 
     if result.external is not None:
@@ -244,14 +252,18 @@ def render() -> None:
     if job.running:
         _watch(job)
         return
+    last = state.result_job()
     if job.cancelled:
-        st.warning("The run was cancelled; nothing was kept from it. Press Run the study to start again.")
-        return
-    if job.error is not None:
+        st.warning("The run was cancelled. " + ("The results below are those of the last complete run."
+                                                 if last is not None else "Press Run the study to start again."))
+    elif job.error is not None:
         state.show_error("The run stopped", job.error)
+        if last is not None:
+            st.caption("The results below are those of the last complete run.")
+    if last is None:
         return
     try:
-        _show(job.result, job)
+        _show(last.result, last)
     except Exception as exc:  # noqa: BLE001
         state.show_error("Showing the results", exc)
 
