@@ -153,7 +153,7 @@ def test_wrong_column_mapping_is_explained(page):
 
 def test_design_view(page):
     _goto(page, "Design")
-    page.get_by_text("The study is complete").wait_for()
+    page.get_by_text("Ready to run").wait_for()
     page.get_by_role("button", name="Download the study file (TOML)").wait_for()
     text = _main(page).inner_text()
     assert "Clinical predictors" in text and "Imaging signature" in text

@@ -28,7 +28,8 @@ REWRITES = (
     (re.compile(r"\bcomplete_case\b"), "complete cases only"),
 )
 
-MARKDOWN = re.compile(r"([\\`*_{}\[\]<>()#+\-.!|~$])")
+# characters that start markdown formatting; "_" only at a word's edge (snake_case stays as it is)
+MARKDOWN = re.compile(r"([\\`*\[\]<>#~$|]|(?<![A-Za-z0-9])_|_(?![A-Za-z0-9]))")
 
 
 def for_people(text: str) -> str:

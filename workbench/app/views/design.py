@@ -355,7 +355,7 @@ def render() -> None:
     hz_now = proposed if (auto is not None or tpl is None) else tpl.horizons
     hz_default = ", ".join(f"{h:g}" for h in hz_now)
     hz_text = b.text_input(f"Horizons ({data.time_unit}, comma separated)", hz_default,
-                           key=_key(f"horizons_{abs(hash(auto)) % 10**8}"), help=HELP["horizons"])
+                           key=_key("horizons" if auto is None else f"horizons_{abs(hash(auto)) % 10**8}"), help=HELP["horizons"])
     seed = c.number_input("Seed", 0, 2**31 - 1, int(tpl.seed if tpl else 20261202), key=_key("seed"),
                           help="Fixes the random draws (resamples, folds), so a run can be repeated exactly.")
 
