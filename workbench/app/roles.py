@@ -182,7 +182,8 @@ def propose_horizons(time, event, unit: str) -> tuple[float, ...]:
     """Up to three horizons inside follow-up: near the 25th, 50th and 75th percentiles of the observed times.
 
     Whole years (12/24/36 months, 365/730 days, 1/2/3 years) are preferred when
-    they fall between the quartiles; otherwise the quartiles are rounded to nice numbers.
+    they fall between the quartiles (three consecutive years around the median);
+    otherwise the quartiles are rounded to nice numbers.
     Each horizon keeps patients at risk (below the 90th percentile of follow-up).
     """
     t = np.asarray(time, float)
@@ -194,7 +195,9 @@ def propose_horizons(time, event, unit: str) -> tuple[float, ...]:
     if year is not None:
         years = [k * year for k in range(1, 21) if q25 * 0.8 <= k * year <= min(q75 * 1.2, q90)]
         if len(years) >= 2:
-            idx = np.unique(np.round(np.linspace(0, len(years) - 1, min(3, len(years)))).astype(int))
-            return tuple(float(years[i]) for i in idx)
+            # three consecutive whole years, centred as near the median follow-up as they can be
+            starts = range(max(len(years) - 2, 1))
+            i = min(starts, key=lambda j: abs(years[min(j + 1, len(years) - 1)] - q50))
+            return tuple(float(y) for y in years[i:i + 3])
     out = sorted({_nice(q) for q in (q25, q50, q75) if 0 < _nice(q) <= q90})
     return tuple(out)
