@@ -79,7 +79,7 @@ def test_demo_first_then_own_tables(page, tables):
     text = _main(page).inner_text()
     assert "Read 686 patients with 2 imaging features" in text
     assert "demo study" not in text.lower()
-    assert "730 days" in text  # proposed horizon, in days
+    assert "Horizons proposed from the follow-up (days): 730, 1095, 1460" in text
     _no_traceback(page)
     _shot(page, "1d_data_own")
 
@@ -163,7 +163,7 @@ def test_nomogram_matches_cli(page, cli):
     extra = page.get_by_role("textbox", name="Other times (days, comma separated)")
     extra.fill("500")
     extra.press("Enter")
-    page.get_by_role("button", name="Download PNG").wait_for()
+    page.get_by_text("Survival axes at 500, 730, 1095, 1460 days").wait_for()
     _settle(page)
     with page.expect_download() as dl:
         page.get_by_role("button", name="Download PNG").click()

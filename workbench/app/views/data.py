@@ -277,14 +277,15 @@ def render() -> None:
         state.show_error("Reading the tables", exc)
         return
     st.success(f"Read {cohort.n} patients with {len(cohort.feature_names)} imaging features.")
+    horizons = (state.propose_horizons(cohort) if not state.is_demo()
+                else tuple(st.session_state.get(state.K_HORIZONS, ())))
     if not state.is_demo() and st.session_state.get(state.K_HORIZONS_AUTO):
-        hz = ", ".join(f"{h:g}" for h in st.session_state.get(state.K_HORIZONS, ()))
+        hz = ", ".join(f"{h:g}" for h in horizons)
         st.caption(f"Horizons proposed from the follow-up ({cohort.time_unit}): {hz or 'none'}; "
                    "change them on the Design page.")
     state.show_warnings(warns)
     try:
-        _summary(cohort, state.propose_horizons(cohort) if not state.is_demo()
-                 else tuple(st.session_state.get(state.K_HORIZONS, ())))
+        _summary(cohort, horizons)
     except Exception as exc:  # noqa: BLE001
         state.show_error("Summarising the cohort", exc)
 

@@ -82,6 +82,7 @@ def render() -> None:
             files = None
     if files is not None:
         st.image(files["png"], width="stretch")
+        st.caption(f"Survival axes at {', '.join(f'{h:g}' for h in hz)} {u}.")
         cols = st.columns(len(FORMATS) + 1)
         for col, (fmt, text, mime) in zip(cols, FORMATS, strict=False):
             col.download_button(f"Download {text}", files[fmt], mime=mime,
