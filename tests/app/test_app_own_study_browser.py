@@ -76,7 +76,9 @@ def test_demo_first_then_own_tables(page, tables):
     page.get_by_role("button", name="Use these column roles").click()
     page.get_by_text("Cohort summary").wait_for()
     _settle(page)
+    assert page.get_by_role("button", name="Use these column roles").count() == 0
     text = _main(page).inner_text()
+    assert "suggestions" not in text
     assert "Read 686 patients with 2 imaging features" in text
     assert "demo study" not in text.lower()
     assert "Horizons proposed from the follow-up (days): 730, 1095, 1460" in text
@@ -125,10 +127,11 @@ def test_run(page):
     page.get_by_role("button", name="Cancel the run").wait_for()
     page.get_by_text("elapsed").first.wait_for()
     page.get_by_text("Finished in").wait_for(timeout=RUN_TIMEOUT_MS)
+    page.get_by_role("button", name="Download PDF").wait_for(timeout=RUN_TIMEOUT_MS)  # the figures are drawn
     _settle(page, 1500)
     text = _main(page).inner_text()
     assert "686 patients, 299 events" in text
-    assert "Threshold probability" not in text or "death" not in text
+    assert "Threshold probability of recurrence" in text or "Decision curve" in text
     _no_traceback(page)
     _shot(page, "3b_results_own")
 
@@ -247,6 +250,6 @@ def test_cancel_keeps_the_last_result(page):
     page.get_by_text("Finished in").wait_for()
     text = _main(page).inner_text()
     assert "last complete run" in text and "686 patients, 299 events" in text
+    _shot(page, "3d_results_after_cancel")
     _goto(page, "Nomogram")
     page.get_by_text("come from run 1").wait_for()
-    _shot(page, "3d_results_after_cancel")

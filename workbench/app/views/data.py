@@ -144,6 +144,7 @@ def _map_columns(features: str, clinical: str) -> DataSpec | None:
         if not st.button("Use these column roles", type="primary", key="map_confirm"):
             return None
         ss[state.K_ROLES_OK] = digests
+        st.rerun()  # draw the page again without the suggestion note and the button
     try:
         data = DataSpec(
             features=features, clinical=clinical, id=id_col, time=time_col, event=event_col,
@@ -194,9 +195,10 @@ def _summary(cohort, horizons) -> None:
     state.show_warnings(warns)
     left, right = st.columns([3, 2])
     with left:
-        fig = charts.km_figure(kaplan_meier(cohort.time, cohort.event), time_unit=u, horizons=inside)
         d = state.current_data()
         outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
+        fig = charts.km_figure(kaplan_meier(cohort.time, cohort.event), time_unit=u, horizons=inside,
+                               ylabel="Overall survival" if outcome == "death" else f"Free of {outcome}")
         st.image(charts.figure_bytes(fig), caption=f"Kaplan-Meier estimate of freedom from {outcome}, "
                  "with 95% confidence band")
     with right:

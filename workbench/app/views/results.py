@@ -31,15 +31,21 @@ def comparisons(result) -> list:
 
 
 def _run_controls(spec) -> None:
+    ss = st.session_state
     a, b, c = st.columns([1, 1, 2])
-    reps = a.number_input("Bootstrap replicates for this run", 1, 5000, state.DEMO_REPLICATES,
-                          key="results_replicates",
+    # kept under keys of their own: a widget's key is forgotten when another view is shown
+    reps = a.number_input("Bootstrap replicates for this run", 1, 5000,
+                          int(ss.get("wb_run_replicates", state.DEMO_REPLICATES)), key="results_replicates",
                           help="A quick look uses few replicates; the study file keeps its own number.")
-    workers = b.number_input("Parallel workers", 1, 64, min(2, os.cpu_count() or 1), key="results_workers")
+    workers = b.number_input("Parallel workers", 1, 64, int(ss.get("wb_run_workers", min(2, os.cpu_count() or 1))),
+                             key="results_workers",
+                             help="Replicates computed at the same time; at most the number of processor cores.")
+    ss["wb_run_replicates"], ss["wb_run_workers"] = int(reps), int(workers)
     c.caption(
-        f"Quick mode: {state.DEMO_REPLICATES} bootstrap replicates, so that a run in the browser finishes in "
-        f"about a minute. The full analysis uses the {spec.validation.replicates} replicates of the study file: "
-        "set the number here, or run the study file from the command line. Intervals from few replicates are rough."
+        f"Quick mode: {state.DEMO_REPLICATES} bootstrap replicates by default, so that a run in the browser "
+        f"finishes in about a minute. The full analysis uses the {spec.validation.replicates} replicates set on "
+        "the Design page: set that number here, or run the study file from the command line. Intervals from few "
+        "replicates are rough."
     )
     job = state.current_job()
     busy = job is not None and job.running
@@ -151,7 +157,7 @@ def _comparison(comp, u: str, outcome: str = "the event") -> None:
     with st.expander("Every measure"):
         state.table(tables.difference_table(comp, time_unit=u), max_rows=20)
     lr = comp.lr_test
-    if lr.nested and np.isfinite(lr.statistic):
+    if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value) and lr.df > 0:
         st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
         st.caption(LR_CAUTION)
     elif lr.note:
