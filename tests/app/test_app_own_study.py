@@ -158,3 +158,47 @@ def test_parser_internals_rewritten():
     # markdown is shown as typed: '*' of a pattern and '__' of a name are escaped
     assert messages.plain("cm_* and __id__") == "cm\\_\\* and \\_\\_id\\_\\_"
     assert messages.plain("demo_cohort/clinical.csv") == "demo_cohort/clinical.csv"
+
+
+@pytest.mark.slow
+def test_patient_with_typed_signature_score(new_app, frames):
+    """A new patient starts empty; with the signature score typed in, the estimate is the Cox formula.
+
+    Reference: S(t | x) = S0(t) ** exp((x - x_mean) @ coef), evaluated here with numpy from the fitted
+    model's coefficients and baseline (the form results.json documents), not through the estimate layer.
+    """
+    from dataclasses import replace
+
+    from workbench.stats.coxph import baseline_survival_at
+
+    at = _own(new_app, *frames)
+    at.switch_page("views/design.py").run()
+    spec = at.session_state[state.K_STUDY]
+    penalty = replace(spec.imaging.penalty, rule="min")  # keep the receptors in the signature
+    at.session_state[state.K_STUDY] = replace(spec, imaging=replace(spec.imaging, penalty=penalty))
+    at.switch_page("views/results.py").run()
+    at.number_input(key="results_replicates").set_value(2)
+    at.number_input(key="results_workers").set_value(1)
+    at = at.button(key="results_run").click().run()
+    assert_clean(at)
+    result = at.session_state[state.K_JOB].result
+    model = result.models["combined"]
+    at.switch_page("views/patient.py").run()
+    assert_clean(at)
+    tag = "combined_typed"
+    boxes = {t.key: t for t in at.text_input}
+    assert all(boxes[f"pt_{tag}_{c}"].value == "" for c in ("age", "tsize", "pnodes"))  # nobody's values
+    score = 0.8
+    for col, v in (("age", "45"), ("tsize", "40"), ("pnodes", "9")):
+        boxes[f"pt_{tag}_{col}"].set_value(v)
+    boxes[f"pt_{tag}_score"].set_value(str(score))
+    at = next(b for b in at.button if b.label == "Estimate").click().run()
+    assert_clean(at)
+    assert not at.error, [e.value for e in at.error]
+    fit = model.fit_
+    x = np.array([45.0, 40.0, 9.0, score][: len(fit.names)])
+    assert len(fit.names) == 4, fit.names  # three clinical terms and the signature score
+    lp = float((x - np.asarray(fit.x_mean)) @ fit.coef)
+    s = float(baseline_survival_at(fit, [730.0])[0]) ** np.exp(lp)
+    shown = _metric(at, "Survival at 730 days")
+    assert shown == f"{100 * s:.1f}%", (shown, s, fit.names)
