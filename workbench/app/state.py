@@ -349,6 +349,7 @@ class RunJob:
     error: BaseException | None = None
     cancelled: bool = False
     number: int = 1
+    exports: object = None
     started: float = field(default_factory=time.monotonic)
     finished: float | None = None
     _cancel: threading.Event = field(default_factory=threading.Event)
@@ -394,6 +395,10 @@ class RunJob:
         finally:
             if self._cancel.is_set() and self.result is None:
                 self.cancelled = True
+            if self.result is not None:  # the Export files are built while the user reads the results
+                from workbench.app import exports
+
+                self.exports = exports.prepare(self.result)
             self.finished = time.monotonic()
 
     def cancel(self) -> None:

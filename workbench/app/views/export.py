@@ -2,68 +2,27 @@
 
 from __future__ import annotations
 
-import io
-import json
 import tempfile
-import zipfile
 from pathlib import Path
 
 import streamlit as st
 
-from workbench.app import state
+from workbench.app import exports, state
 
 
-def _results_data(result) -> dict | None:
-    if hasattr(result, "to_dict"):
-        return result.to_dict()
-    mod = state.load_module("workbench.report.results")
-    return mod.results_dict(result) if mod is not None and hasattr(mod, "results_dict") else None
+def _files(job) -> exports.Exports:
+    """The run's files: built in the background after the run, or now when that has not started."""
+    ex = getattr(job, "exports", None)
+    if ex is None:
+        ex = job.exports = exports.prepare(job.result)
+    return ex
 
 
-@st.cache_data(show_spinner="Preparing results.json...", max_entries=4)
-def _results_json(run_key: tuple, _result) -> str | None:
-    data = _results_data(_result)
-    return None if data is None else json.dumps(data, indent=2, allow_nan=False)
-
-
-@st.cache_data(show_spinner="Writing the results folder...", max_entries=4)
-def _results_folder_zip(run_key: tuple, _result) -> bytes | None:
-    """results.json, the CSV tables and the run log, as the command line writes them, in one zip."""
-    mod = state.load_module("workbench.report.results")
-    if mod is None or not hasattr(mod, "write_results"):
-        return None
-    with tempfile.TemporaryDirectory(prefix="workbench-results-") as tmp:
-        folder = Path(tmp) / "results"
-        mod.write_results(_result, folder)
-        buf = io.BytesIO()
-        with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
-            for f in sorted(folder.iterdir()):
-                zf.write(f, arcname=f"results/{f.name}")
-        return buf.getvalue()
-
-
-@st.cache_data(show_spinner="Saving the model bundle...", max_entries=4)
-def _bundle_zip(run_key: tuple, _result) -> bytes:
-    bundle = state.load_module("workbench.report.bundle")
-    summary = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons)
-    with tempfile.TemporaryDirectory(prefix="workbench-bundle-") as tmp:
-        path = bundle.save_bundle(_result.models, _result.spec, summary, Path(tmp) / "model_bundle.zip")
-        return Path(path).read_bytes()
-
-
-def _report():
-    """(bytes, file name, mime) of the report from the report layer, or None when it has none yet."""
-    mod = state.load_module("workbench.report.html")
-    for name in ("render_report", "report_html", "build_report"):
-        fn = getattr(mod, name, None) if mod is not None else None
-        if fn is not None:
-            return fn
-    return None
-
-
-@st.cache_data(show_spinner="Writing the report...", max_entries=4)
-def _report_html(run_key: tuple, _result) -> str:
-    return _report()(_result)
+def _get(ex, name: str, text: str):
+    if ex.ready(name):
+        return ex.get(name)
+    with st.spinner(text):
+        return ex.get(name)
 
 
 def chromium() -> str | None:
@@ -124,13 +83,14 @@ def render() -> None:
     st.caption("Save it in the folder that holds the study's tables: it names them relative to its own folder.")
 
     st.subheader("Report")
-    if _report() is None:
+    ex = _files(job)
+    if exports.report_function() is None:
         state.not_available("The HTML report")
     else:
         st.caption("One self-contained HTML file with the methods, every table and figure, and the caution; "
                    "it lists no patient identifiers.")
         try:
-            html = _report_html(key, result)
+            html = _get(ex, "report", "Writing the report...")
             st.download_button("Download the report (HTML)", html, file_name=state.study_filename(spec, ".html", "report"),
                                mime="text/html", key="export_report")
         except Exception as exc:  # noqa: BLE001
@@ -141,8 +101,8 @@ def render() -> None:
     st.subheader("Results file")
     st.caption("Every number of the run with the study, seed, data hash and package versions (results.json).")
     try:
-        text = _results_json(key, result)
-        folder = _results_folder_zip(key, result)
+        text = _get(ex, "json", "Preparing results.json...")
+        folder = _get(ex, "folder", "Writing the results folder...")
     except Exception as exc:  # noqa: BLE001
         state.show_error("Writing the results", exc)
         text = folder = None
@@ -164,7 +124,7 @@ def render() -> None:
         state.not_available("The model bundle")
         return
     try:
-        data = _bundle_zip(key, result)
+        data = _get(ex, "bundle", "Saving the model bundle...")
     except Exception as exc:  # noqa: BLE001
         state.show_error("Saving the model bundle", exc)
         return

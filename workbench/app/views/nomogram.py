@@ -10,12 +10,25 @@ from workbench.app.messages import plain
 FORMATS = (("png", "PNG", "image/png"), ("svg", "SVG", "image/svg+xml"), ("pdf", "PDF", "application/pdf"))
 
 
-@st.cache_data(show_spinner="Drawing the nomogram...", max_entries=8)
-def _files(run_key: tuple, models: tuple, horizons: tuple, layout: str, _scales) -> dict:
-    """The drawing as PNG, SVG and PDF bytes (cached on the run, models, horizons and layout)."""
+@st.cache_resource(show_spinner="Drawing the nomogram...", max_entries=8)
+def _drawing(run_key: tuple, models: tuple, horizons: tuple, layout: str, _scales):
+    """The nomogram figure (cached on the run, models, horizons and layout)."""
     draw = state.load_module("workbench.figures.nomogram")
-    fig = draw.plot_nomogram(_scales, titles=[tables.label(m) for m in models], layout=layout)
-    return {fmt: nomo.save_figure(fig, fmt) for fmt, _, _ in FORMATS}
+    return draw.plot_nomogram(_scales, titles=[tables.label(m) for m in models], layout=layout)
+
+
+@st.cache_data(show_spinner=False, max_entries=8)
+def _png(run_key: tuple, models: tuple, horizons: tuple, layout: str, _fig) -> bytes:
+    return nomo.save_figure(_fig, "png")
+
+
+def _files(run_key: tuple, models: tuple, horizons: tuple, layout: str, scales) -> dict:
+    """PNG bytes at once; SVG and PDF written only when their button is pressed."""
+    fig = _drawing(run_key, models, horizons, layout, scales)
+    out = {"png": _png(run_key, models, horizons, layout, fig)}
+    for fmt, _, _ in FORMATS[1:]:
+        out[fmt] = lambda f=fig, x=fmt: nomo.save_figure(f, x)
+    return out
 
 
 def render() -> None:
@@ -86,7 +99,7 @@ def render() -> None:
         cols = st.columns(len(FORMATS) + 1)
         for col, (fmt, text, mime) in zip(cols, FORMATS, strict=False):
             col.download_button(f"Download {text}", files[fmt], mime=mime,
-                                file_name=state.study_filename(spec, f".{fmt}", f"nomogram_{tag}"),
+                                file_name=state.study_filename(spec, f".{fmt}", f"nomogram_{tag}"), on_click="ignore",
                                 key=f"nomo_dl_{fmt}")
     points = state.load_module("workbench.figures.nomogram_points")
     try:

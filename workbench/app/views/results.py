@@ -123,6 +123,17 @@ def _figure_title(name: str) -> str:
     return name.replace("_", " ").capitalize()
 
 
+@st.cache_data(show_spinner=False, max_entries=32)
+def _figure_png(run_key: tuple, name: str, _fig) -> bytes:
+    """A run's figure as PNG, drawn once per run and figure."""
+    return nomo.save_figure(_fig, "png")
+
+
+@st.cache_data(show_spinner=False, max_entries=32)
+def _decision_png(run_key: tuple, model: str, horizon: float, outcome: str, _dc, baseline: str) -> bytes:
+    return charts.figure_bytes(_decision_figure(_dc, model, baseline, outcome))
+
+
 def _figures(result, key) -> None:
     spec = result.spec
     st.subheader("Figures")
@@ -139,18 +150,20 @@ def _figures(result, key) -> None:
     pick = st.selectbox("Figure", names, format_func=_figure_title, key="results_figure")
     fig = figs[pick]
     left, right = st.columns([3, 1])
-    left.image(nomo.save_figure(fig, "png"))
+    left.image(_figure_png(key, pick, fig))
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
-            st.download_button(f"Download {fmt.upper()}", nomo.save_figure(fig, fmt), file_name=state.study_filename(spec, f".{fmt}", pick),
-                               mime=mime, key=f"results_fig_{fmt}")
+            # written only when the button is pressed (the view itself stays quick to redraw)
+            data = (lambda f=fig, x=fmt: nomo.save_figure(f, x)) if fmt != "png" else _figure_png(key, pick, fig)
+            st.download_button(f"Download {fmt.upper()}", data, file_name=state.study_filename(spec, f".{fmt}", pick),
+                               mime=mime, key=f"results_fig_{fmt}", on_click="ignore")
         if result.external_prepared is not None:
             st.caption("Curves, calibration and decision curves are drawn on the external cohort.")
         else:
             st.caption("Curves, calibration and decision curves are drawn on the development cohort (apparent).")
 
 
-def _comparison(comp, u: str, outcome: str = "the event") -> None:
+def _comparison(comp, u: str, outcome: str = "the event", key: tuple = ()) -> None:
     st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
                 f"{comp.n_paired} paired replicates)")
     state.table(tables.difference_table(comp, time_unit=u, headline=True))
@@ -173,7 +186,7 @@ def _comparison(comp, u: str, outcome: str = "the event") -> None:
         pick = right.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
                                format_func=lambda h: f"{h} {u}")
         dc = comp.decision[hz.index(pick)]
-        left.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline, outcome)),
+        left.image(_decision_png(key, comp.model, float(dc.horizon), outcome, dc, comp.baseline),
                    caption=f"Decision curves at {pick} {u}, corrected like the other measures")
         right.caption("Net benefit of acting on the model's predicted risk at each threshold, against "
                       "treating everyone or no one.")
@@ -227,7 +240,7 @@ def _show(result, job) -> None:
         tabs = st.tabs([f"{tables.label(c.model)} minus {tables.label(c.baseline)}" for c in comps])
     for tab, comp in zip(tabs if comps else [], comps, strict=False):
         with tab:
-            _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes))
+            _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes), job.key)
     _figures(result, job.key)
 
     if result.external is not None:
