@@ -258,7 +258,7 @@ def render() -> None:
     st.title("Results")
     spec = state.current_study()
     if spec is None:
-        st.info("Complete the study on the Design page first.")
+        st.info("Set up the study on the Design page first.")
         return
     if not state.module_available("workbench.workflow"):
         state.not_available("Running a study")
