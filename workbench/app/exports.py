@@ -1,4 +1,4 @@
-"""The files of a finished run (report HTML, results.json, results folder, model bundle), built once.
+"""The files of a finished run (figures, report HTML, results.json, results folder, model bundle), built once.
 
 :func:`prepare` builds them all in a background thread right after a run finishes, so that the
 Export view finds them ready; the view calls :func:`get`, which waits for that thread or builds
@@ -73,7 +73,14 @@ def report_html(result) -> str | None:
     return None if fn is None else fn(result)
 
 
-BUILDERS = {"report": report_html, "json": results_json, "folder": results_zip, "bundle": bundle_zip}
+def figures(result) -> dict:
+    """The run's standard figures (name -> matplotlib Figure), as the Results view shows them."""
+    mod = _module("workbench.report.figureset")
+    return mod.study_figures(result) if mod is not None and hasattr(mod, "study_figures") else {}
+
+
+BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
+            "bundle": bundle_zip}
 
 
 class Exports:
@@ -92,7 +99,7 @@ class Exports:
         return self
 
     def _all(self) -> None:
-        for name in ("json", "report", "folder", "bundle"):
+        for name in ("figures", "json", "report", "folder", "bundle"):
             self._build(name)
 
     def _build(self, name: str) -> None:

@@ -96,8 +96,15 @@ def _decision_figure(dc, model: str, baseline: str, outcome: str = "the event"):
 
 
 @st.cache_resource(show_spinner="Drawing the figures of the run...", max_entries=2)
-def _run_figures(run_key: tuple, _result) -> dict:
-    """Every standard figure of the run from the report layer (empty when it has none yet)."""
+def _run_figures(run_key: tuple, _result, _job=None) -> dict:
+    """Every standard figure of the run from the report layer (empty when it has none yet).
+
+    They are drawn in the background as soon as the run finishes (:mod:`workbench.app.exports`);
+    this waits for that rather than drawing them twice.
+    """
+    ex = getattr(_job, "exports", None)
+    if ex is not None:
+        return ex.get("figures") or {}
     mod = state.load_module("workbench.report.figureset")
     if mod is None or not hasattr(mod, "study_figures"):
         return {}
@@ -138,7 +145,7 @@ def _figures(result, key) -> None:
     spec = result.spec
     st.subheader("Figures")
     try:
-        figs = _run_figures(key, result)
+        figs = _run_figures(key, result, state.result_job())
     except Exception as exc:  # noqa: BLE001
         state.show_error("Drawing the figures", exc)
         return
