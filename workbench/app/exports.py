@@ -99,7 +99,7 @@ class Exports:
         return self
 
     def _all(self) -> None:
-        for name in ("figures", "json", "report", "folder", "bundle"):
+        for name in ("figures", "json", "bundle", "folder", "report"):  # the slowest last
             self._build(name)
 
     def _build(self, name: str) -> None:

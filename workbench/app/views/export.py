@@ -82,22 +82,7 @@ def render() -> None:
                        file_name=state.study_filename(spec), mime="application/toml", key="export_study")
     st.caption("Save it in the folder that holds the study's tables: it names them relative to its own folder.")
 
-    st.subheader("Report")
     ex = _files(job)
-    if exports.report_function() is None:
-        state.not_available("The HTML report")
-    else:
-        st.caption("One self-contained HTML file with the methods, every table and figure, and the caution; "
-                   "it lists no patient identifiers.")
-        try:
-            html = _get(ex, "report", "Writing the report...")
-            st.download_button("Download the report (HTML)", html, file_name=state.study_filename(spec, ".html", "report"),
-                               mime="text/html", key="export_report")
-        except Exception as exc:  # noqa: BLE001
-            state.show_error("Writing the report", exc)
-        else:
-            _pdf(key, html, spec)
-
     st.subheader("Results file")
     st.caption("Every number of the run with the study, seed, data hash and package versions (results.json).")
     try:
@@ -120,17 +105,35 @@ def render() -> None:
     st.subheader("Model bundle")
     st.caption("The fitted models in a safe format (JSON and arrays, no executable code) to estimate survival "
                "for new patients. It holds no patient identifiers.")
-    if not state.module_available("workbench.report.bundle"):
-        state.not_available("The model bundle")
-        return
     try:
         data = _get(ex, "bundle", "Saving the model bundle...")
     except Exception as exc:  # noqa: BLE001
         state.show_error("Saving the model bundle", exc)
-        return
-    st.download_button("Download the model bundle (zip)", data,
-                       file_name=state.study_filename(spec, ".zip", "model_bundle"),
-                       mime="application/zip", key="export_bundle")
+        data = None
+    if data is None:
+        state.not_available("The model bundle")
+    else:
+        st.download_button("Download the model bundle (zip)", data,
+                           file_name=state.study_filename(spec, ".zip", "model_bundle"),
+                           mime="application/zip", key="export_bundle")
+
+
+
+    st.subheader("Report")
+    if exports.report_function() is None:
+        state.not_available("The HTML report")
+    else:
+        st.caption("One self-contained HTML file with the methods, every table and figure, and the caution; "
+                   "it lists no patient identifiers.")
+        try:
+            html = _get(ex, "report", "Writing the report (it is written in the background after each run)...")
+            st.download_button("Download the report (HTML)", html, file_name=state.study_filename(spec, ".html", "report"),
+                               mime="text/html", key="export_report")
+        except Exception as exc:  # noqa: BLE001
+            state.show_error("Writing the report", exc)
+        else:
+            _pdf(key, html, spec)
+
 
 
 if __name__ == "__main__":
