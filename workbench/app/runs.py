@@ -93,8 +93,8 @@ class RunJob:
             else:
                 self.error = exc
         finally:
-            if self._cancel.is_set() and self.result is None:
-                self.cancelled = True
+            if self._cancel.is_set():  # a run cancelled after its last check is discarded all the same
+                self.cancelled, self.result = True, None
             if self.result is not None:  # the Export files are built while the user reads the results
                 from workbench.app import exports
 
@@ -102,11 +102,21 @@ class RunJob:
             self.finished = time.monotonic()
 
     def cancel(self) -> None:
+        """Stop the run: the page treats it as cancelled at once and shows the last complete result;
+        the thread stops at its next check between replicates and its output is discarded."""
         self._cancel.set()
+        self.cancelled = True
+        self.finished = time.monotonic()
 
     @property
     def running(self) -> bool:
-        return self._thread is not None and self._thread.is_alive()
+        """True while the run goes on and has not been cancelled."""
+        return self._thread is not None and self._thread.is_alive() and not self._cancel.is_set()
+
+    @property
+    def stopping(self) -> bool:
+        """True while a cancelled run's thread finishes the replicates under way."""
+        return self._thread is not None and self._thread.is_alive() and self._cancel.is_set()
 
     def wait(self, seconds: float) -> None:
         if self._thread is not None:

@@ -279,6 +279,9 @@ def render() -> None:
         _watch(job)
         return
     last = state.result_job()
+    if job.stopping:
+        st.caption("The cancelled run is finishing the replicates under way in the background (the "
+                   "computer may be slower meanwhile); nothing from it will be kept.")
     if job.cancelled:
         st.warning("The run was cancelled. " + ("The results below are those of the last complete run."
                                                  if last is not None else "Press Run the study to start again."))
