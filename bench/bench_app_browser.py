@@ -110,8 +110,15 @@ def one_round(page, args, times) -> None:
     record(times, "Export report ready", time.monotonic() - t0)
     goto(page, "Data", "Cohort summary")
     record(times, "Results view, cached run", goto(page, "Results", "Download PDF"))
+    select = page.get_by_label("Figure", exact=True).first
     t0 = time.monotonic()
-    page.get_by_label("Figure", exact=True).first.click()
+    for _ in range(3):  # the list sometimes closes when a redraw lands on the click: open it again
+        select.click()
+        try:
+            page.get_by_role("option").nth(1).wait_for(timeout=5000)
+            break
+        except Exception:  # noqa: BLE001
+            continue
     page.get_by_role("option").nth(1).click()
     ready(page, "Download PDF")
     record(times, "Results figure switch", time.monotonic() - t0)
