@@ -63,6 +63,17 @@ def rounded_survival(surv):
     return out
 
 
+SCREEN_DPI = 110
+"""Resolution of figures shown in the page (downloads are PNG at 300 dpi, or SVG and PDF)."""
+
+
+def screen_png(fig) -> bytes:
+    """A figure as a PNG for the page: quick to draw, sharp enough on screen."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=SCREEN_DPI, bbox_inches="tight")
+    return buf.getvalue()
+
+
 def points_table_zip(tables_by_model: dict, prefix: str = "") -> bytes:
     """The points tables of each model as CSV files in one zip (terms and total points -> survival)."""
     buf = io.BytesIO()

@@ -19,14 +19,14 @@ def _drawing(run_key: tuple, models: tuple, horizons: tuple, layout: str, _scale
 
 @st.cache_data(show_spinner=False, max_entries=8)
 def _png(run_key: tuple, models: tuple, horizons: tuple, layout: str, _fig) -> bytes:
-    return nomo.save_figure(_fig, "png")
+    return nomo.screen_png(_fig)
 
 
 def _files(run_key: tuple, models: tuple, horizons: tuple, layout: str, scales) -> dict:
-    """PNG bytes at once; SVG and PDF written only when their button is pressed."""
+    """The PNG for the page at once; the files (PNG at 300 dpi, SVG, PDF) written when their button is pressed."""
     fig = _drawing(run_key, models, horizons, layout, scales)
-    out = {"png": _png(run_key, models, horizons, layout, fig)}
-    for fmt, _, _ in FORMATS[1:]:
+    out = {"screen": _png(run_key, models, horizons, layout, fig)}
+    for fmt, _, _ in FORMATS:
         out[fmt] = lambda f=fig, x=fmt: nomo.save_figure(f, x)
     return out
 
@@ -94,7 +94,7 @@ def render() -> None:
             state.show_error("Drawing the nomogram", exc)
             files = None
     if files is not None:
-        st.image(files["png"], width="stretch")
+        st.image(files["screen"], width="stretch")
         st.caption(f"Survival axes at {', '.join(f'{h:g}' for h in hz)} {u}.")
         cols = st.columns(len(FORMATS) + 1)
         for col, (fmt, text, mime) in zip(cols, FORMATS, strict=False):

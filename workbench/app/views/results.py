@@ -132,8 +132,8 @@ def _figure_title(name: str) -> str:
 
 @st.cache_data(show_spinner=False, max_entries=32)
 def _figure_png(run_key: tuple, name: str, _fig) -> bytes:
-    """A run's figure as PNG, drawn once per run and figure."""
-    return nomo.save_figure(_fig, "png")
+    """A run's figure as PNG for the page, drawn once per run and figure."""
+    return nomo.screen_png(_fig)
 
 
 @st.cache_data(show_spinner=False, max_entries=32)
@@ -161,7 +161,7 @@ def _figures(result, key) -> None:
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
             # written only when the button is pressed (the view itself stays quick to redraw)
-            data = (lambda f=fig, x=fmt: nomo.save_figure(f, x)) if fmt != "png" else _figure_png(key, pick, fig)
+            data = lambda f=fig, x=fmt: nomo.save_figure(f, x)  # noqa: E731
             st.download_button(f"Download {fmt.upper()}", data, file_name=state.study_filename(spec, f".{fmt}", pick),
                                mime=mime, key=f"results_fig_{fmt}", on_click="ignore")
         if result.external_prepared is not None:
