@@ -219,7 +219,7 @@ def _on_nomogram(result, name: str, record: dict, score: float | None = None) ->
         state.show_error("Placing the patient on the nomogram", exc)
         return
     left, right = st.columns([3, 2])
-    left.image(nomo.screen_png(fig))
+    left.image(nomo.screen_png(fig), width="stretch")
     with right:
         rows = [(scales.term(k).label or k, f"{v:.1f}") for k, v in points.points.items()]
         rows.append(("Total points", f"{points.total:.1f}"))

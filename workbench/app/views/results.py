@@ -157,7 +157,7 @@ def _figures(result, key) -> None:
     pick = st.selectbox("Figure", names, format_func=_figure_title, key="results_figure")
     fig = figs[pick]
     left, right = st.columns([3, 1])
-    left.image(_figure_png(key, pick, fig))
+    left.image(_figure_png(key, pick, fig), width="stretch")
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
             # written only when the button is pressed (the view itself stays quick to redraw)
