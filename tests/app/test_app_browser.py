@@ -193,7 +193,7 @@ def test_wrong_column_mapping_is_explained(page):
 
 def test_design_view(page):
     _goto(page, "Design")
-    page.get_by_text("The study is complete").wait_for()
+    page.get_by_text("Ready to run").wait_for()
     page.get_by_role("button", name="Download the study file (TOML)").wait_for()
     text = _main(page).inner_text()
     assert "Clinical predictors" in text and "Imaging signature" in text
@@ -242,8 +242,25 @@ def test_nomogram_view(page):
     _shot(page, "5_nomogram")
 
 
-def test_patient_view(page):
+def test_patient_view(page, tmp_path):
+    import pandas as pd
+
     _goto(page, "Patient")
+    page.get_by_text("Read patients from a file").click()
+    button = page.get_by_role("button", name="Download a template for the patient file", exact=False)
+    button.wait_for()
+    with page.expect_download() as dl:
+        button.click()
+    columns = Path(dl.value.path()).read_text().strip().split(",")
+    # one demo patient's values, in exactly the template's columns
+    demo = pd.read_csv(REPO / "demo_cohort" / "clinical.csv").merge(
+        pd.read_csv(REPO / "demo_cohort" / "imaging.csv"), on="patient_id")
+    path = tmp_path / "one_patient.csv"
+    demo.loc[[0], columns].to_csv(path, index=False)
+    box = page.locator("[data-testid='stFileUploader']").filter(has_text="Patient file").first
+    box.locator("input[type='file']").set_input_files(str(path))
+    page.get_by_role("button", name="Estimate").wait_for()
+    _settle(page)
     page.get_by_role("button", name="Estimate").click()
     page.get_by_text("Survival at 12 months").first.wait_for()
     page.get_by_text("On the nomogram").wait_for()

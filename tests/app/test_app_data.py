@@ -72,7 +72,11 @@ def _upload(at, features: tuple, clinical: tuple):
     at.radio(key="data_source").set_value("upload").run()
     at.file_uploader(key="upload_features").set_value(features)
     at.file_uploader(key="upload_clinical").set_value(clinical)
-    return at.run()
+    at = at.run()
+    # the column roles are suggestions until the user confirms them
+    if any(getattr(b, "key", None) == "map_confirm" for b in at.button):
+        at = at.button(key="map_confirm").click().run()
+    return at
 
 
 def test_malformed_upload_is_a_plain_message(new_app):

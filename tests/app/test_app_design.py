@@ -18,7 +18,7 @@ def test_demo_study_rebuilt_unchanged(new_app):
     assert_clean(at)
     # Reference: the study file itself, read by the library's reader.
     assert at.session_state[state.K_STUDY] == read_study(DEMO / "study.toml")
-    assert any("The study is complete" in s.value for s in at.success)
+    assert any("Ready to run" in s.value for s in at.success)
 
 
 def test_download_is_the_library_study_text(new_app):

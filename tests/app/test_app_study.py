@@ -93,7 +93,7 @@ def test_results_page_shows_the_comparison(ran, cli_results):
     row = diff[diff["Measure"] == "Harrell C"].iloc[0]
     assert row["Difference (validated)"] == f"{ref['estimate']:.3f}"
     full = read_study(DEMO / "study.toml").validation.replicates
-    assert "Quick mode" in texts and f"the {full} replicates of the study file" in texts
+    assert "Quick mode" in texts and f"the {full} replicates set on the Design page" in texts
 
 
 def test_signature_page_matches_the_fitted_signature(ran):
@@ -117,11 +117,30 @@ def test_nomogram_page_draws_and_offers_downloads(ran):
     assert any("points tables" in x for x in labels)
 
 
+def _first_patient(result) -> dict:
+    """Every value of the cohort's first patient: clinical fields, imaging features and the scanner."""
+    cohort = result.cohort
+    record = {c: cohort.clinical.iloc[0][c] for c in cohort.clinical.columns if c != result.spec.data.batch}
+    record = {k: (None if isinstance(v, float) and np.isnan(v) else v) for k, v in record.items()}
+    record.update({f: float(v) for f, v in cohort.features.iloc[0].items()})
+    record[result.spec.data.batch] = str(cohort.batch[0])
+    return record
+
+
 def _estimate_page(at, **overrides):
+    """The Patient view with the first cohort patient read from a one-row patient file."""
+    import pandas as pd
+
     at.switch_page("views/patient.py").run()
+    result = at.session_state[state.K_JOB].result
+    row = {result.spec.data.id: str(result.cohort.ids[0]), **_first_patient(result)}
+    body = pd.DataFrame([row]).to_csv(index=False).encode()
+    at.radio(key="patient_source").set_value("file").run()
+    at.file_uploader(key="patient_file").set_value(("patient.csv", body, "text/csv"))
+    at = at.run()
     for col, val in overrides.items():
-        at.text_input(key=f"pt_combined_id_{at.session_state['patient_start']}_{col}").set_value(val)
-    at.button[0].click().run()
+        at.text_input(key=f"pt_combined_file_0_{col}").set_value(val)
+    next(b for b in at.button if b.label == "Estimate").click().run()
     return at
 
 
@@ -134,10 +153,7 @@ def test_patient_estimate_matches_the_library(ran):
     result = at.session_state[state.K_JOB].result
     model = result.models["combined"]
     cohort = result.cohort
-    record = {c: cohort.clinical.iloc[0][c] for c in cohort.clinical.columns if c != result.spec.data.batch}
-    record = {k: (None if isinstance(v, float) and np.isnan(v) else v) for k, v in record.items()}
-    record.update({f: float(v) for f, v in cohort.features.iloc[0].items()})
-    record[result.spec.data.batch] = str(cohort.batch[0])
+    record = _first_patient(result)
     training = summarise_training(cohort, result.models, result.spec.horizons)
     ranges = ranges_from_model(model, training, name="combined", batch_column=result.spec.data.batch)
     keep = {c.column for c in ranges.clinical} | set(ranges.imaging_features) | {result.spec.data.batch}
@@ -146,7 +162,7 @@ def test_patient_estimate_matches_the_library(ran):
     shown = {m.label: m.value for m in at.metric}
     for hz in est.horizons:
         assert shown[f"Survival at {hz.horizon:g} months"] == f"{100 * hz.survival:.1f}%"
-    assert "Research use only" in " ".join(w.value for w in at.warning)
+    assert "Research use only" in " ".join(i.value for i in at.info)  # the caution, once, above the view
 
 
 def test_patient_out_of_range_and_text_are_explained(ran):

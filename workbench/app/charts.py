@@ -15,7 +15,7 @@ INK = "#1b2a41"
 BAND = "#9fb8d9"
 
 
-def km_figure(km, *, time_unit: str, horizons=()) -> Figure:
+def km_figure(km, *, time_unit: str, horizons=(), ylabel: str = "Overall survival") -> Figure:
     """Overall Kaplan-Meier curve with its 95% band from a ``KaplanMeierResult``."""
     fig = Figure(figsize=(6.4, 3.4), layout="constrained")
     ax = fig.add_subplot()
@@ -30,7 +30,7 @@ def km_figure(km, *, time_unit: str, horizons=()) -> Figure:
     ax.set_ylim(0, 1.02)
     ax.set_xlim(left=0)
     ax.set_xlabel(f"Time ({time_unit})")
-    ax.set_ylabel("Overall survival")
+    ax.set_ylabel(ylabel)
     ax.grid(alpha=0.25)
     ax.legend(frameon=False, loc="upper right")
     return fig

@@ -25,6 +25,8 @@ SAFE_OPTIONS = {
     "browser.gatherUsageStats": "false",
     "client.showErrorDetails": "none",
     "logger.level": "error",
+    "theme.base": "light",
+    "theme.primaryColor": "#2b6f8e",  # the workbench's own blue-teal (chips, buttons, sliders)
 }
 
 

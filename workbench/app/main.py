@@ -1,7 +1,7 @@
 """Entry point of the browser front end: ``streamlit run workbench/app/main.py``.
 
 One router (``st.navigation``) over the views, in the order a study is worked
-through. The caution text is shown above every view.
+through. The caution text is shown once, above every view.
 """
 
 from __future__ import annotations
@@ -35,7 +35,6 @@ def main() -> None:
     page = st.navigation(pages)
     with st.sidebar:
         st.caption("Does an imaging signature add to clinical factors?")
-        st.caption(f"Caution: {state.CAUTION}")
     state.show_caution()
     page.run()
 

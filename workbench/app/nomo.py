@@ -44,18 +44,50 @@ def save_figure(fig, fmt: str) -> bytes:
     return buf.getvalue()
 
 
-def points_table_zip(tables_by_model: dict) -> bytes:
+def rounded_terms(terms):
+    """Points per predictor value as people read them: values to 4 significant digits, points to 0.1."""
+    out = terms.copy()
+    if "points" in out:
+        out["points"] = out["points"].astype(float).round(1)
+    if "value" in out:
+        out["value"] = [float(f"{v:.4g}") if isinstance(v, float) else v for v in out["value"]]
+    return out
+
+
+def rounded_survival(surv):
+    """Total points -> survival with points to 0.1, linear predictor to 0.001 and survival to 0.001."""
+    out = surv.copy()
+    for c in out.columns:
+        digits = 1 if c == "total_points" else 3
+        out[c] = out[c].astype(float).round(digits)
+    return out
+
+
+SCREEN_DPI = 110
+"""Resolution of figures shown in the page (downloads are PNG at 300 dpi, or SVG and PDF)."""
+
+
+def screen_png(fig) -> bytes:
+    """A figure as a PNG for the page: quick to draw, sharp enough on screen."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=SCREEN_DPI, bbox_inches="tight")
+    return buf.getvalue()
+
+
+def points_table_zip(tables_by_model: dict, prefix: str = "") -> bytes:
     """The points tables of each model as CSV files in one zip (terms and total points -> survival)."""
     buf = io.BytesIO()
     with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
         for name, t in tables_by_model.items():
-            zf.writestr(f"{name}_points.csv", t.terms.to_csv(index=False))
-            zf.writestr(f"{name}_total_points_survival.csv", t.survival.round(4).to_csv(index=False))
+            zf.writestr(f"{prefix}{name}_points.csv", rounded_terms(t.terms).to_csv(index=False))
+            zf.writestr(f"{prefix}{name}_total_points_survival.csv",
+                        rounded_survival(t.survival).to_csv(index=False))
     return buf.getvalue()
 
 
-def nomogram_values(result, name: str, record: dict) -> dict:
-    """The patient's raw values as the nomogram reads them, with the signature score of the combined model."""
+def nomogram_values(result, name: str, record: dict, score: float | None = None) -> dict:
+    """The patient's raw values as the nomogram reads them, with the signature score of the combined model
+    (``score`` when typed in, else computed from the patient's imaging features)."""
     import numpy as np
     import pandas as pd
 
@@ -65,9 +97,11 @@ def nomogram_values(result, name: str, record: dict) -> dict:
     model = result.models[name]
     clinical_cols = list(result.cohort.clinical.columns)
     values = {c: record.get(c) for c in clinical_cols}
-    if hasattr(model, "signature_score"):
+    if hasattr(model, "signature_score") and score is not None:
+        values["imaging_signature"] = float(score)
+    elif hasattr(model, "signature_score"):
         feats = list(result.cohort.feature_names)
-        row = pd.DataFrame([[float(record[f]) for f in feats]], columns=feats)
+        row = pd.DataFrame([[_number(record.get(f)) for f in feats]], columns=feats)
         batch_col = result.spec.data.batch
         batch = np.array([str(record[batch_col])]) if batch_col and batch_col in record else None
         one = Cohort(ids=np.array(["patient"]), y=make_outcome([1.0], [False]),
@@ -75,3 +109,10 @@ def nomogram_values(result, name: str, record: dict) -> dict:
                      features=row, time_unit=result.cohort.time_unit, batch=batch)
         values["imaging_signature"] = float(model.signature_score(one)[0])
     return values
+
+
+def _number(v) -> float:
+    """A feature value as a number; blank or absent is missing (the model fills in its training median)."""
+    if v is None or (isinstance(v, str) and not v.strip()):
+        return float("nan")
+    return float(v)

@@ -1,4 +1,4 @@
-"""Per-user choices, cached reads and the background study run of the browser front end.
+"""Per-user choices, cached reads and uploads of the browser front end (the background run is in runs.py).
 
 Everything a user chooses lives in ``st.session_state`` under the keys below;
 tables are cached with ``st.cache_data`` (keyed by file digest and column
@@ -16,19 +16,19 @@ from __future__ import annotations
 import hashlib
 import importlib
 import importlib.util
+import re
 import tempfile
-import threading
-import time
 import warnings
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from pathlib import Path
 
 import streamlit as st
 
+from workbench.app.messages import for_people, plain
 from workbench.cohort.io import ColumnMap, file_digest, read_cohort, read_table
 from workbench.cohort.summary import CAUTION, summarise_cohort
 from workbench.errors import WorkbenchError
-from workbench.study import DataSpec, StudySpec, dumps_study, read_study
+from workbench.study import DataSpec, ExternalSpec, StudySpec, dumps_study, read_study
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 DEMO_DIR = REPO_ROOT / "demo_cohort"
@@ -45,6 +45,11 @@ K_STUDY = "wb_study"  # StudySpec being designed (or None)
 K_STUDY_NOTE = "wb_study_note"
 K_JOB = "wb_job"  # RunJob of the last study run
 K_HORIZONS = "wb_horizons"
+K_HORIZONS_AUTO = "wb_horizons_auto"  # (unit, data hash) the horizons were proposed for, or None when typed
+K_LAST_GOOD = "wb_last_good"  # RunJob of the last run that finished with a result
+K_ROLES_OK = "wb_roles_confirmed"  # digests of the tables whose column roles the user confirmed
+K_DESIGN_GEN = "wb_design_gen"
+DEMO_NOTE = "The demo study (demo_cohort/study.toml) is loaded."
 
 UPLOAD_TYPES = ["csv", "tsv", "txt", "parquet", "pq", "xlsx", "xlsm", "xls"]
 
@@ -52,37 +57,43 @@ UPLOAD_TYPES = ["csv", "tsv", "txt", "parquet", "pq", "xlsx", "xlsm", "xls"]
 # ------------------------------------------------------------------ messages
 
 
+UPLOAD_FOLDER = re.compile(r"(?:[^\s'\"]*/)?workbench-upload-[^/\s]+/(?:features|clinical|external_features|"
+                           r"external_clinical|patient)/[0-9a-f]{12}/")
+
+
 def friendly(message: str) -> str:
-    """A message with machine folders removed, so users see file names they know."""
-    text = str(message)
+    """A message for people: machine folders removed (users see file names they know), parser
+    internals and command-line flags rewritten (:func:`workbench.app.messages.for_people`)."""
+    text = UPLOAD_FOLDER.sub("", str(message))
     roots = [str(REPO_ROOT) + "/"]
     up = st.session_state.get(K_UPLOAD_DIR)
     if up:
         roots.insert(0, str(up) + "/")
     for r in roots:
         text = text.replace(r, "")
-    return text
+    return for_people(text)
 
 
 def show_error(where: str, exc: BaseException) -> None:
-    """Show an error as readable text; unexpected errors name their kind, never a traceback."""
+    """Show an error as readable plain text; unexpected errors name their kind, never a traceback."""
     if isinstance(exc, WorkbenchError):
-        st.error(f"{where}: {friendly(str(exc))}")
+        st.error(plain(f"{where}: {friendly(str(exc))}"))
     else:
         first = str(exc).splitlines()[0] if str(exc) else ""
-        st.error(
+        st.error(plain(
             f"{where}: something unexpected went wrong ({type(exc).__name__}"
             f"{': ' + friendly(first) if first else ''}). Check the inputs on this page; "
             "if they look right, please report this message."
-        )
+        ))
 
 
 def show_warnings(messages) -> None:
     for m in messages:
-        st.warning(friendly(m))
+        st.warning(plain(friendly(m)))
 
 
 def show_caution() -> None:
+    """The caution, once per view (above the view's title)."""
     st.info(f"**Caution.** {CAUTION}")
 
 
@@ -169,7 +180,59 @@ def init_session() -> None:
     ss[K_STUDY] = study
     ss[K_DATA] = study.data if study is not None else None
     ss[K_HORIZONS] = tuple(study.horizons) if study is not None else (12.0, 24.0, 36.0)
-    ss[K_STUDY_NOTE] = "The demo study (demo_cohort/study.toml) is loaded."
+    ss[K_STUDY_NOTE] = DEMO_NOTE
+
+
+def load_demo() -> None:
+    """The demo cohort and its study, as on a first visit."""
+    ss = st.session_state
+    ss[K_SOURCE] = "demo"
+    study = demo_study()
+    ss[K_DATA] = study.data
+    ss[K_HORIZONS] = tuple(study.horizons)
+    ss[K_HORIZONS_AUTO] = None
+    set_study(study, DEMO_NOTE)
+    ss[K_DESIGN_GEN] = ss.get(K_DESIGN_GEN, 0) + 1
+    for k in [k for k in ss if str(k).startswith("map_")]:
+        del ss[k]
+
+
+def start_own_study() -> None:
+    """A clean study for the user's own tables: nothing of the demo (name, patterns, protected
+    predictors, external cohort, horizons, note) is carried over. Earlier runs stay, flagged out of date."""
+    ss = st.session_state
+    ss[K_SOURCE] = "upload"
+    ss[K_DATA] = None
+    ss[K_STUDY] = None
+    ss[K_STUDY_NOTE] = ""
+    ss[K_HORIZONS] = ()
+    ss[K_HORIZONS_AUTO] = None
+    ss[K_ROLES_OK] = None
+    ss[K_DESIGN_GEN] = ss.get(K_DESIGN_GEN, 0) + 1
+    for k in [k for k in ss if str(k).startswith("map_")]:
+        del ss[k]
+
+
+def is_demo() -> bool:
+    return st.session_state.get(K_SOURCE, "demo") == "demo"
+
+
+def propose_horizons(cohort) -> tuple[float, ...]:
+    """Horizons proposed from the cohort's follow-up in its time unit, unless the user typed their own.
+
+    Proposed again whenever the tables or the time unit change.
+    """
+    from workbench.app.roles import propose_horizons as propose
+
+    ss = st.session_state
+    tag = (cohort.time_unit, cohort.source.data_hash)
+    auto = ss.get(K_HORIZONS_AUTO)
+    if ss.get(K_HORIZONS) and (auto is None or auto == tag):
+        return tuple(ss[K_HORIZONS])
+    hz = propose(cohort.time, cohort.event, cohort.time_unit)
+    ss[K_HORIZONS] = hz
+    ss[K_HORIZONS_AUTO] = tag
+    return hz
 
 
 def upload_dir() -> Path:
@@ -180,12 +243,17 @@ def upload_dir() -> Path:
 
 
 def save_upload(uploaded, role: str) -> Path:
-    """Write an uploaded table into the session's private folder, named as the user named it."""
+    """Write an uploaded table into the session's private folder, named as the user named it.
+
+    The folder is named by the content's hash, so a replaced file (even under the same
+    name) gets a new path and every cache keyed on path or content sees the new table.
+    """
     name = Path(uploaded.name).name or f"{role}.csv"
-    target = upload_dir() / role / name
-    target.parent.mkdir(parents=True, exist_ok=True)
     data = uploaded.getvalue()
-    if not target.exists() or target.read_bytes() != data:
+    digest = hashlib.sha256(data).hexdigest()[:12]
+    target = upload_dir() / role / digest / name
+    target.parent.mkdir(parents=True, exist_ok=True)
+    if not target.exists():
         target.write_bytes(data)
     return target
 
@@ -211,8 +279,36 @@ def study_base() -> Path | None:
     return Path(data.clinical).resolve().parent
 
 
+def portable(spec: StudySpec) -> StudySpec:
+    """The study with its table paths as they should read in a downloaded study file.
+
+    Uploaded tables (in the session's private folder) are named by their file names
+    alone: the study file then goes in the folder that holds the user's tables. Other
+    paths are written relative to the clinical table's folder by :func:`study_text`.
+    """
+    up = str(upload_dir())
+    base = study_base() or Path(spec.data.clinical).resolve().parent
+
+    def name(p):  # an uploaded table sits beside the study file, under the name the user gave it
+        return str(base / Path(p).name) if str(p).startswith(up) else p
+
+    d = spec.data
+    out = replace(spec, data=replace(d, features=name(d.features), clinical=name(d.clinical)))
+    if spec.external is not None:
+        out = replace(out, external=ExternalSpec(features=name(spec.external.features),
+                                                 clinical=name(spec.external.clinical)))
+    return out
+
+
 def study_text(spec: StudySpec) -> str:
-    return dumps_study(spec, base=study_base())
+    """The study file's text with paths relative to the folder it belongs in (portable)."""
+    return dumps_study(portable(spec), base=study_base())
+
+
+def study_filename(spec: StudySpec | None, suffix: str = ".toml", extra: str = "") -> str:
+    """A download name from the study's name (``my_study.toml``, ``my_study_nomogram_24months.png``)."""
+    base = re.sub(r"[^a-z0-9]+", "_", (spec.name if spec is not None else "study").lower()).strip("_") or "study"
+    return f"{base}{'_' + extra if extra else ''}{suffix}"
 
 
 def get_cohort():
@@ -224,112 +320,23 @@ def get_cohort():
                        data.on_unmatched, data.drop_unusable_features)
 
 
-# ------------------------------------------------------------------ study runs
-
-
-@st.cache_resource(show_spinner=False, max_entries=4)
-def run_study_cached(data_hash: str, text: str, replicates: int, workers: int,
-                     _spec: StudySpec, _progress=None, _cancel=None):
-    """Fitted study result, cached on the data hash and the study text."""
-    workflow = importlib.import_module("workbench.workflow")
-    return workflow.run_study(_spec, progress=_progress, cancel=_cancel,
-                              replicates=replicates, workers=workers)
-
-
-@dataclass
-class RunJob:
-    """One study run in a background thread, so the page stays responsive and can cancel it."""
-
-    key: tuple
-    spec: StudySpec
-    replicates: int
-    workers: int
-    done: int = 0
-    total: int = 0
-    message: str = "starting"
-    result: object = None
-    error: BaseException | None = None
-    cancelled: bool = False
-    started: float = field(default_factory=time.monotonic)
-    finished: float | None = None
-    _cancel: threading.Event = field(default_factory=threading.Event)
-    _thread: threading.Thread | None = None
-
-    def start(self) -> RunJob:
-        self._thread = threading.Thread(target=self._work, name="workbench-study-run", daemon=True)
-        self._thread.start()
-        return self
-
-    def _progress(self, done, total, message="") -> None:
-        self.done, self.total, self.message = int(done), int(total), str(message or "")
-
-    def _work(self) -> None:
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")  # the result carries its warning counts
-                self.result = run_study_cached(self.key[0], self.key[1], self.replicates, self.workers,
-                                               self.spec, self._progress, self._cancel.is_set)
-        except BaseException as exc:  # noqa: BLE001 - reported in the page, never re-raised
-            if self._cancel.is_set():
-                self.cancelled = True
-            else:
-                self.error = exc
-        finally:
-            if self._cancel.is_set() and self.result is None:
-                self.cancelled = True
-            self.finished = time.monotonic()
-
-    def cancel(self) -> None:
-        self._cancel.set()
-
-    @property
-    def running(self) -> bool:
-        return self._thread is not None and self._thread.is_alive()
-
-    def wait(self, seconds: float) -> None:
-        if self._thread is not None:
-            self._thread.join(seconds)
-
-
-def run_key(spec: StudySpec, replicates: int, workers: int) -> tuple:
-    d = spec.data
-    h = hashlib.sha256()
-    paths = [d.features, d.clinical]
-    if spec.external is not None:
-        paths += [spec.external.features, spec.external.clinical]
-    for p in paths:
-        h.update((file_digest(p) if p else "").encode())  # no features table: a clinical-only study
-    return (h.hexdigest(), dumps_study(spec), int(replicates), int(workers))
-
-
-def start_run(spec: StudySpec, replicates: int, workers: int) -> RunJob:
-    job = RunJob(run_key(spec, replicates, workers), spec, int(replicates), int(workers)).start()
-    st.session_state[K_JOB] = job
-    return job
-
-
-def current_job() -> RunJob | None:
-    return st.session_state.get(K_JOB)
-
-
-def current_result():
-    """The finished study result matching the current study, or None."""
-    job = current_job()
-    if job is None or job.result is None:
-        return None
-    return job.result
-
-
-def quick_spec(spec: StudySpec, replicates: int, workers: int) -> StudySpec:
-    """The study with the replicates and workers of this run (forest replicates capped to match)."""
-    v = spec.validation
-    return replace(spec, validation=replace(
-        v, replicates=int(replicates), workers=int(workers),
-        forest_replicates=min(v.forest_replicates, int(replicates))))
-
-
 def table(df, *, max_rows: int = 40, where=None) -> None:
     """A read-only table tall enough to show its rows without an inner scroll bar (up to ``max_rows``)."""
     target = where if where is not None else st
     height = min(max(len(df), 1), max_rows) * 35 + 38
     target.dataframe(df, hide_index=True, width="stretch", height=height)
+
+
+# The background study run lives in runs.py; its names stay reachable here.
+from workbench.app.runs import (  # noqa: E402, F401
+    RunJob,
+    current_job,
+    current_result,
+    quick_spec,
+    result_is_current,
+    result_job,
+    run_key,
+    run_study_cached,
+    show_provenance,
+    start_run,
+)

@@ -8,8 +8,9 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
-from workbench.app import charts, state
+from workbench.app import charts, roles, state
 from workbench.cohort.core import TIME_UNITS
+from workbench.cohort.io import read_table
 from workbench.errors import WorkbenchError
 from workbench.stats.km import kaplan_meier
 from workbench.study import DataSpec
@@ -23,14 +24,14 @@ def _choose_tables() -> tuple[str, str] | None:
     source = st.radio(
         "Tables", list(options), format_func=options.get, horizontal=True, key="data_source",
         index=list(options).index(ss.get(state.K_SOURCE, "demo")),
-        help="The demo cohort is synthetic; no real patient is behind any value.",
+        help="The demo cohort is synthetic; no real patient is behind any value. "
+             "Choosing your own tables starts a new, empty study.",
     )
     if source != ss.get(state.K_SOURCE):
-        ss[state.K_SOURCE] = source
         if source == "demo":
-            study = state.demo_study()
-            ss[state.K_DATA] = study.data
-            state.set_study(study, "The demo study (demo_cohort/study.toml) is loaded.")
+            state.load_demo()
+        else:
+            state.start_own_study()
     if source == "demo":
         d = ss.get(state.K_DATA)
         if d is None or not str(d.clinical).startswith(str(state.DEMO_DIR)):
@@ -39,10 +40,12 @@ def _choose_tables() -> tuple[str, str] | None:
     left, right = st.columns(2)
     with left:
         f = st.file_uploader("Imaging features table", type=state.UPLOAD_TYPES, key="upload_features",
-                             help="One row per patient: the patient id, then one column per imaging feature.")
+                             help="One row per patient: the patient id, then one column per imaging feature. "
+                                  "Upload another file here to replace it.")
     with right:
         c = st.file_uploader("Clinical table", type=state.UPLOAD_TYPES, key="upload_clinical",
-                             help="One row per patient: the id, follow-up time, event and clinical fields.")
+                             help="One row per patient: the id, follow-up time, event and clinical fields. "
+                                  "Upload another file here to replace it.")
     if f is None or c is None:
         d = ss.get(state.K_DATA)
         if d is not None and str(state.upload_dir()) in str(d.clinical):
@@ -61,11 +64,19 @@ def _pick(label, options, current, key, help=None, optional=False):
     return None if v == NONE else v
 
 
+@st.cache_data(show_spinner=False, max_entries=16)
+def _guess(features: str, clinical: str, digests: tuple[str, str]):
+    """Suggested column roles of two tables (cached on their content)."""
+    return roles.guess_roles(read_table(clinical), read_table(features))
+
+
 def _map_columns(features: str, clinical: str) -> DataSpec | None:
+    ss = st.session_state
     prev = state.current_data()
+    digests = (state.file_digest(features), state.file_digest(clinical))
     try:
-        f_cols = state.table_columns(features, state.file_digest(features))
-        c_cols = state.table_columns(clinical, state.file_digest(clinical))
+        f_cols = state.table_columns(features, digests[0])
+        c_cols = state.table_columns(clinical, digests[1])
     except WorkbenchError as exc:
         state.show_error("Reading the tables", exc)
         return None
@@ -76,40 +87,69 @@ def _map_columns(features: str, clinical: str) -> DataSpec | None:
             "Both tables need the same patient id column (for example patient_id)."
         )
         return None
-    g = lambda name, default=None: getattr(prev, name, default) if prev is not None else default  # noqa: E731
+    same_tables = prev is not None and (prev.features, prev.clinical) == (features, clinical)
+    demo = state.is_demo()
+    confirmed = demo or ss.get(state.K_ROLES_OK) == digests
+    guess = None
+    if not demo:
+        try:
+            guess = _guess(features, clinical, digests)
+        except WorkbenchError:
+            guess = roles.RoleGuess()
+    # Known roles of these very tables come first; then roles of the previous tables that fit; then guesses.
+    keep = prev is not None and (same_tables or demo)
+
+    def g(name, default=None):
+        if keep:
+            return getattr(prev, name, default)
+        v = getattr(guess, name, None) if guess is not None else None
+        if v is None or v == ():
+            v = getattr(prev, name, None) if prev is not None else None
+        return v if v not in (None, ()) else default
+
     st.subheader("What the columns mean")
+    if not confirmed:
+        st.info("The roles below are suggestions read from the column names and values. Check each one, "
+                "change what is wrong, then press **Use these column roles**.")
     a, b, c = st.columns(3)
     with a:
         id_col = _pick("Patient id (in both tables)", shared, g("id"), "map_id")
         time_col = _pick("Follow-up time", c_cols, g("time"), "map_time")
         unit = st.selectbox("Time unit", list(TIME_UNITS), key="map_unit",
-                            index=list(TIME_UNITS).index(g("time_unit", "months")))
+                            index=list(TIME_UNITS).index(g("time_unit", "months")),
+                            help="The unit the follow-up times are written in; horizons use the same unit.")
     with b:
-        event_col = _pick("Event (death, progression...)", c_cols, g("event"), "map_event")
-        levels = state.column_levels(clinical, state.file_digest(clinical), event_col) if event_col else []
+        event_col = _pick("Event (the outcome: death, recurrence, progression...)", c_cols, g("event"), "map_event")
+        levels = state.column_levels(clinical, digests[1], event_col) if event_col else []
         binary = set(levels) <= {"0", "1", "0.0", "1.0", "true", "false", "True", "False"}
         ev_default = [v for v in (g("event_codes") or ()) if v in levels]
         cz_default = [v for v in (g("censor_codes") or ()) if v in levels]
         ev = st.multiselect("Values meaning the event happened", levels, default=ev_default, key="map_event_codes",
-                            help="Leave empty when the column holds 0/1 or true/false.")
+                            help="Leave empty when the column holds 0/1 or true/false (1 = the event happened).")
         cz = st.multiselect("Values meaning censored (event-free at last follow-up)", levels,
                             default=cz_default, key="map_censor_codes")
         if not binary and not ev:
             st.caption("This column is not 0/1: choose which values mean the event happened.")
     with c:
         every = list(dict.fromkeys(c_cols + f_cols))
-        centre = _pick("Hospital / centre (optional)", every, g("centre"), "map_centre", optional=True)
+        centre = _pick("Hospital / centre (optional)", every, g("centre"), "map_centre", optional=True,
+                       help="Needed to validate by leaving one centre out at a time.")
         batch = _pick("Scanner / batch (optional)", every, g("batch"), "map_batch", optional=True,
                       help="Needed for harmonisation of imaging features across scanners.")
-        keep = st.checkbox("Keep only patients found in both tables", value=g("on_unmatched") == "intersect",
-                           key="map_keep")
+        keep_both = st.checkbox("Keep only patients found in both tables", value=g("on_unmatched") == "intersect",
+                                key="map_keep")
         drop = st.checkbox("Drop constant or empty feature columns", value=bool(g("drop_unusable_features")),
                            key="map_drop")
+    if not confirmed:
+        if not st.button("Use these column roles", type="primary", key="map_confirm"):
+            return None
+        ss[state.K_ROLES_OK] = digests
+        st.rerun()  # draw the page again without the suggestion note and the button
     try:
         data = DataSpec(
             features=features, clinical=clinical, id=id_col, time=time_col, event=event_col,
             time_unit=unit, event_codes=tuple(ev) or None, censor_codes=tuple(cz) or None,
-            centre=centre, batch=batch, on_unmatched="intersect" if keep else "error",
+            centre=centre, batch=batch, on_unmatched="intersect" if keep_both else "error",
             drop_unusable_features=drop,
         )
         data.column_map()
@@ -117,11 +157,11 @@ def _map_columns(features: str, clinical: str) -> DataSpec | None:
         state.show_error("Column roles", exc)
         return None
     if data != prev:
-        st.session_state[state.K_DATA] = data
+        ss[state.K_DATA] = data
         study = state.current_study()
         if study is not None:
             try:
-                state.set_study(replace(study, data=data), st.session_state.get(state.K_STUDY_NOTE, ""))
+                state.set_study(replace(study, data=data), ss.get(state.K_STUDY_NOTE, ""))
             except WorkbenchError:
                 pass  # the Design page rebuilds the study and explains what must change
     return data
@@ -155,8 +195,12 @@ def _summary(cohort, horizons) -> None:
     state.show_warnings(warns)
     left, right = st.columns([3, 2])
     with left:
-        fig = charts.km_figure(kaplan_meier(cohort.time, cohort.event), time_unit=u, horizons=inside)
-        st.image(charts.figure_bytes(fig), caption="Overall survival with 95% confidence band")
+        d = state.current_data()
+        outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
+        fig = charts.km_figure(kaplan_meier(cohort.time, cohort.event), time_unit=u, horizons=inside,
+                               ylabel="Overall survival" if outcome == "death" else f"Free of {outcome}")
+        st.image(charts.figure_bytes(fig), caption=f"Kaplan-Meier estimate of freedom from {outcome}, "
+                 "with 95% confidence band")
     with right:
         if summary.horizons:
             st.markdown("**Survival at the horizons**")
@@ -235,9 +279,15 @@ def render() -> None:
         state.show_error("Reading the tables", exc)
         return
     st.success(f"Read {cohort.n} patients with {len(cohort.feature_names)} imaging features.")
+    horizons = (state.propose_horizons(cohort) if not state.is_demo()
+                else tuple(st.session_state.get(state.K_HORIZONS, ())))
+    if not state.is_demo() and st.session_state.get(state.K_HORIZONS_AUTO):
+        hz = ", ".join(f"{h:g}" for h in horizons)
+        st.caption(f"Horizons proposed from the follow-up ({cohort.time_unit}): {hz or 'none'}; "
+                   "change them on the Design page.")
     state.show_warnings(warns)
     try:
-        _summary(cohort, tuple(st.session_state.get(state.K_HORIZONS, ())))
+        _summary(cohort, horizons)
     except Exception as exc:  # noqa: BLE001
         state.show_error("Summarising the cohort", exc)
 

@@ -19,6 +19,8 @@ from workbench.study import (
     BACKENDS,
     MODEL_NAMES,
     VALIDATION_METHODS,
+    ExternalSpec,
+    HarmoniseSpec,
     ImagingSpec,
     ModelsSpec,
     StudySpec,
@@ -26,11 +28,39 @@ from workbench.study import (
     study_from_dict,
 )
 
-K_GEN = "wb_design_gen"
+K_GEN = state.K_DESIGN_GEN
 K_LOADED = "wb_design_loaded_file"
 KINDS = ("linear", "spline", "categorical", "ordinal")
 TRANSFORMS = ("", "log", "log2")
 MISSING = ("complete_case", "impute")
+HELP = {
+    "l1": "How the penalty mixes two kinds of shrinkage. 1 (LASSO) keeps few features and sets the others "
+          "exactly to zero; smaller values (elastic net) keep groups of correlated features together.",
+    "rule": "How strong the penalty is, chosen by cross-validation. The 1-SE rule takes the strongest penalty "
+            "whose error is within one standard error of the best: fewer features, usually more stable. "
+            "'Best' takes the penalty with the smallest error.",
+    "folds": "The penalty is chosen by splitting the training patients into this many parts (inner folds); "
+             "each part is predicted once from the others. 5 or 10 is usual.",
+    "combat": "ComBat removes systematic differences between scanners (shifts and scales of each feature) "
+              "while keeping differences that belong to the patients.",
+    "protect": "Clinical predictors whose link with the imaging features must survive harmonisation "
+               "(for example stage, if later stages truly look different on images).",
+    "missing": "Complete cases only: a patient with a missing value in this predictor is left out. "
+               "Impute: the missing value is filled in from the other patients, so nobody is left out.",
+    "corr": "Of two features that move together more closely than this, one is dropped: they carry "
+            "the same information.",
+    "screen": "Keep only features with some association with the outcome on their own, allowing for "
+              "the number of features tried (false discovery rate).",
+    "validation": "How the models are tested on patients they were not fitted on: the bootstrap refits "
+                  "everything on resampled patients and corrects the apparent performance for optimism; "
+                  "cross-validation holds out parts of the cohort; leave-one-centre-out holds out each "
+                  "hospital in turn.",
+    "baseline": "Every other model is compared with this one (differences in C-index, Brier score...).",
+    "trees": "The survival forest averages this many trees; more trees are steadier but slower.",
+    "leaf": "The smallest group of patients at the end of a tree's branch; larger leaves give smoother risks.",
+    "horizons": "Times at which survival is estimated and the models are compared; proposed from the "
+                "follow-up of your cohort, inside its range.",
+}
 METHOD_LABELS = {
     "bootstrap": "Optimism-corrected bootstrap",
     "cv": "Repeated k-fold cross-validation",
@@ -51,6 +81,7 @@ def _is_numeric(values: pd.Series) -> bool:
 
 def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
     chosen = {p.column: p for p in (template.predictors if template else ())}
+    every = template is None  # a new study: every clinical column is suggested, the user unticks
     skip = {data.centre, data.batch}
     rows = []
     for col in cohort.clinical.columns:
@@ -61,7 +92,7 @@ def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
         if p is None:
             p = PredictorSpec(column=col, kind="linear" if numeric else "categorical")
         rows.append({
-            "use": col in chosen,
+            "use": every or col in chosen,
             "column": col,
             "kind": p.kind,
             "transform": p.transform or "",
@@ -162,12 +193,14 @@ def _load_study_file(data) -> None:
     st.rerun()
 
 
-def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
+def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> ImagingSpec:
     st.subheader("Imaging signature")
     a, b = st.columns(2)
     with a:
         inc = st.text_area("Imaging pool: name patterns to include (one per line)", "\n".join(tpl.include),
-                           key=_key("include"), height=190, help="Shell-style patterns such as cm_* (all co-occurrence features).")
+                           key=_key("include"), height=190,
+                           help="Feature names to consider; * stands for any text (cm_* = every feature whose "
+                                "name starts with cm_). A single * takes every feature.")
         exc = st.text_area("Patterns to exclude", "\n".join(tpl.exclude), key=_key("exclude"), height=90)
         include, exclude = _lines(inc) or ("*",), _lines(exc)
         try:
@@ -176,6 +209,7 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
             names = pooled.feature_names
         except WorkbenchError as e:
             state.show_error("Imaging pool", e)
+            problems.append(e)
             names = cohort.feature_names
         vol_opts = ["(none)"] + list(names)
         vol = st.selectbox("Tumour-volume feature (checked for dominance of the signature)", vol_opts,
@@ -188,26 +222,31 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data) -> ImagingSpec:
                           format_func={"combat": "ComBat by scanner", "none": "None"}.get,
                           index=0 if (h.method == "combat" and can_combat) else 1, horizontal=True,
                           key=_key("harmonise"), disabled=not can_combat,
-                          help=None if can_combat else "Choose a scanner / batch column on the Data page first.")
+                          help=HELP["combat"] + ("" if can_combat else " Choose a scanner / batch column on the "
+                                                 "Data page first."))
         cols = [p.column for p in predictors]
         protect = st.multiselect("Clinical predictors whose association with the features is preserved",
-                                 cols, default=[c for c in h.protect if c in cols], key=_key("protect"))
+                                 cols, default=[c for c in h.protect if c in cols], key=_key("protect"),
+                                 help=HELP["protect"])
         unseen = st.selectbox("A scanner not seen in training", ["error", "reference"],
                               format_func={"error": "stop with a message",
                                            "reference": "standardise without batch adjustment"}.get,
                               index=["error", "reference"].index(h.unseen_batch), key=_key("unseen"))
         r = tpl.reduce
         corr = st.slider("Redundancy filter: drop one of each pair correlated above", 0.5, 1.0,
-                         float(r.correlation), 0.01, key=_key("corr"))
-        screen = st.checkbox("Univariable Cox screening (false discovery rate)", value=r.screen, key=_key("screen"))
+                         float(r.correlation), 0.01, key=_key("corr"), help=HELP["corr"])
+        screen = st.checkbox("Univariable Cox screening (false discovery rate)", value=r.screen, key=_key("screen"),
+                             help=HELP["screen"])
         fdr = st.number_input("False discovery rate", 0.01, 0.5, float(r.screen_fdr), 0.01, key=_key("fdr"),
                               disabled=not screen)
         p = tpl.penalty
         c1, c2, c3 = st.columns(3)
-        l1 = c1.number_input("L1 ratio (1 = LASSO)", 0.05, 1.0, float(p.l1_ratio), 0.05, key=_key("l1"))
+        l1 = c1.number_input("L1 ratio (1 = LASSO)", 0.05, 1.0, float(p.l1_ratio), 0.05, key=_key("l1"),
+                             help=HELP["l1"])
         rule = c2.selectbox("Penalty choice", ["1se", "min"], index=["1se", "min"].index(p.rule),
-                            format_func={"1se": "1-SE rule", "min": "best"}.get, key=_key("rule"))
-        folds = c3.number_input("Inner folds", 3, 20, int(p.folds), key=_key("pfolds"))
+                            format_func={"1se": "1-SE rule", "min": "best"}.get, key=_key("rule"),
+                            help=HELP["rule"])
+        folds = c3.number_input("Inner folds", 3, 20, int(p.folds), key=_key("pfolds"), help=HELP["folds"])
     return replace(
         tpl, include=include, exclude=exclude, volume_feature=None if vol == "(none)" else vol,
         harmonise=replace(h, method=method if can_combat else "none", protect=tuple(protect), unseen_batch=unseen),
@@ -225,16 +264,17 @@ def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tu
         base_opts = fit or ["clinical"]
         baseline = st.selectbox("Baseline every model is compared with", base_opts,
                                 index=base_opts.index(tpl_m.baseline) if tpl_m.baseline in base_opts else 0,
-                                format_func=MODEL_LABELS.get, key=_key("baseline"))
+                                format_func=MODEL_LABELS.get, key=_key("baseline"), help=HELP["baseline"])
         f = tpl_m.forest
         c1, c2 = st.columns(2)
-        trees = c1.number_input("Forest trees", 10, 2000, int(f.trees), 10, key=_key("trees"))
-        leaf = c2.number_input("Smallest leaf (patients)", 1, 200, int(f.min_leaf), key=_key("leaf"))
+        trees = c1.number_input("Forest trees", 10, 2000, int(f.trees), 10, key=_key("trees"), help=HELP["trees"])
+        leaf = c2.number_input("Smallest leaf (patients)", 1, 200, int(f.min_leaf), key=_key("leaf"),
+                               help=HELP["leaf"])
     with b:
         methods = [m for m in VALIDATION_METHODS if m != "by_centre" or data.centre]
         method = st.selectbox("Validation", methods, format_func=METHOD_LABELS.get,
                               index=methods.index(tpl_v.method) if tpl_v.method in methods else 0,
-                              key=_key("vmethod"))
+                              key=_key("vmethod"), help=HELP["validation"])
         c1, c2, c3 = st.columns(3)
         reps = c1.number_input("Bootstrap replicates", 1, 5000, int(tpl_v.replicates), key=_key("reps"))
         freps = c2.number_input("Forest replicates", 1, 5000, int(tpl_v.forest_replicates), key=_key("freps"))
@@ -258,13 +298,39 @@ def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tu
     return models, validation
 
 
+def _external(tpl: StudySpec | None, problems: list):
+    """The external validation cohort: added from two uploaded tables, or removed."""
+    st.subheader("External cohort (optional)")
+    current = tpl.external if tpl is not None else None
+    gen = st.session_state.get(K_GEN, 0)
+    if current is not None:
+        a, b = st.columns([3, 1])
+        a.write(f"External validation on {Path(current.features).name} and {Path(current.clinical).name}: the "
+                "models fitted on the study cohort are applied unchanged to these patients.")
+        if b.button("Remove the external cohort", key=f"design_external_remove{gen}"):
+            st.session_state["wb_external_removed"] = True
+            return None
+        return current
+    st.caption("Patients from another hospital or period, with the same columns as the study's two tables. "
+               "The models are fitted on the study cohort and tested on them unchanged.")
+    a, b = st.columns(2)
+    f = a.file_uploader("External imaging features table", type=state.UPLOAD_TYPES, key=f"design_ext_f{gen}")
+    c = b.file_uploader("External clinical table", type=state.UPLOAD_TYPES, key=f"design_ext_c{gen}")
+    if f is None or c is None:
+        return None
+    if not st.button("Add as external cohort", type="primary", key=f"design_external_add{gen}"):
+        return None
+    return ExternalSpec(features=str(state.save_upload(f, "external_features")),
+                        clinical=str(state.save_upload(c, "external_clinical")))
+
+
 def render() -> None:
     st.title("Design")
     st.write("Say how the clinical predictors enter the model, how the imaging signature is built, "
              "which models are compared and how they are validated.")
     data = state.current_data()
     if data is None:
-        st.info("Choose the tables on the Data page first.")
+        st.info("Choose the tables and confirm their column roles on the Data page first.")
         return
     try:
         cohort, _ = state.get_cohort()
@@ -272,16 +338,26 @@ def render() -> None:
         state.show_error("The tables on the Data page cannot be used yet", exc)
         return
     note = st.session_state.get(state.K_STUDY_NOTE)
-    if note:
+    if note and state.is_demo():
+        st.caption(note)
+    elif note:
         st.caption(note)
     _load_study_file(data)
     tpl = state.current_study()
 
     a, b, c = st.columns([3, 2, 1])
     name = a.text_input("Study name", tpl.name if tpl else "My study", key=_key("name"))
-    hz_default = ", ".join(f"{h:g}" for h in (tpl.horizons if tpl else st.session_state.get(state.K_HORIZONS, ())))
-    hz_text = b.text_input(f"Horizons ({data.time_unit}, comma separated)", hz_default, key=_key("horizons"))
-    seed = c.number_input("Seed", 0, 2**31 - 1, int(tpl.seed if tpl else 20261202), key=_key("seed"))
+    auto = st.session_state.get(state.K_HORIZONS_AUTO)
+    proposed = tuple(st.session_state.get(state.K_HORIZONS, ()))
+    if not state.is_demo() and not proposed:
+        proposed = state.propose_horizons(cohort)
+        auto = st.session_state.get(state.K_HORIZONS_AUTO)
+    hz_now = proposed if (auto is not None or tpl is None) else tpl.horizons
+    hz_default = ", ".join(f"{h:g}" for h in hz_now)
+    hz_text = b.text_input(f"Horizons ({data.time_unit}, comma separated)", hz_default,
+                           key=_key("horizons" if auto is None else f"horizons_{abs(hash(auto)) % 10**8}"), help=HELP["horizons"])
+    seed = c.number_input("Seed", 0, 2**31 - 1, int(tpl.seed if tpl else 20261202), key=_key("seed"),
+                          help="Fixes the random draws (resamples, folds), so a run can be repeated exactly.")
 
     st.subheader("Clinical predictors")
     st.caption("Tick the predictors of the clinical model. Kind: linear, spline (restricted cubic), "
@@ -295,7 +371,8 @@ def render() -> None:
             "column": st.column_config.TextColumn("Column"),
             "kind": st.column_config.SelectboxColumn("Kind", options=list(KINDS), required=True, width="small"),
             "transform": st.column_config.SelectboxColumn("Transform", options=list(TRANSFORMS), width="small"),
-            "missing": st.column_config.SelectboxColumn("Missing values", options=list(MISSING), required=True),
+            "missing": st.column_config.SelectboxColumn("Missing values", options=list(MISSING), required=True,
+                                                        help=HELP["missing"]),
             "reference": st.column_config.TextColumn("Reference level"),
             "levels": st.column_config.TextColumn("Levels (in order)"),
             "detection_limit": st.column_config.TextColumn("Detection limit"),
@@ -309,40 +386,51 @@ def render() -> None:
         predictors = _predictors_from(table, tpl)
     except WorkbenchError as exc:
         problems.append(exc)
+        state.show_error("Clinical predictors", exc)
         predictors = tpl.predictors if tpl else ()
-    base_im = tpl.imaging if tpl else ImagingSpec()
-    imaging = _imaging(cohort, base_im, predictors, data)
+    base_im = tpl.imaging if tpl else ImagingSpec(harmonise=HarmoniseSpec(method="combat" if data.batch else "none"))
+    imaging = _imaging(cohort, base_im, predictors, data, problems)
     models, validation = _models_and_validation(tpl.models if tpl else ModelsSpec(),
                                                 tpl.validation if tpl else ValidationSpec(), data)
+    external = _external(tpl, problems)
     try:
         horizons = _horizons(hz_text)
     except WorkbenchError as exc:
         problems.append(exc)
+        state.show_error("Horizons", exc)
         horizons = tpl.horizons if tpl else ()
-    for p in problems:
-        state.show_error("Design", p)
     if problems:
+        st.info("The study is not ready to run: correct the points marked above.")
         return
     try:
         spec = StudySpec(name=name.strip() or "My study", data=data, predictors=predictors, horizons=horizons,
                          seed=int(seed), imaging=imaging, models=models, validation=validation,
-                         external=tpl.external if tpl else None,
-                         anticipated_r2=tpl.anticipated_r2 if tpl else None)
+                         external=external, anticipated_r2=tpl.anticipated_r2 if tpl else None)
     except WorkbenchError as exc:
         state.show_error("The study cannot be built yet", exc)
+        st.info("The study is not ready to run: correct the point above.")
         return
     if horizons and max(horizons) > float(cohort.time.max()):
         st.warning(f"The horizon {max(horizons):g} {data.time_unit} lies beyond the longest follow-up "
                    f"({float(cohort.time.max()):.1f} {data.time_unit}); choose horizons inside follow-up.")
     if spec != tpl:
         state.set_study(spec, note or "")
+    if tuple(spec.horizons) != tuple(st.session_state.get(state.K_HORIZONS, ())):
+        st.session_state[state.K_HORIZONS_AUTO] = None  # typed by the user: no longer re-proposed
     st.session_state[state.K_HORIZONS] = tuple(spec.horizons)
+    if (external is None) != (tpl is None or tpl.external is None):
+        st.rerun()  # the external cohort was added or removed: show the section in its new state
     text = state.study_text(spec)
-    st.success(f"The study is complete: {len(spec.predictors)} clinical predictors, "
-               f"{len(spec.models.fit)} models, {METHOD_LABELS[spec.validation.method].lower()}.")
-    st.download_button("Download the study file (TOML)", text, file_name="study.toml", mime="application/toml",
-                       key="design_download")
-    st.caption("Put the study file in the folder of the two tables: the file names in [data] are relative to it.")
+    ran = state.result_job()
+    status = ("Ready to run" if ran is None or not state.result_is_current(ran)
+              else "Matches the last run")
+    st.success(f"{status}: {len(spec.predictors)} clinical predictors, {len(spec.models.fit)} models, "
+               f"{METHOD_LABELS[spec.validation.method].lower()}"
+               + (", with external validation" if spec.external is not None else "") + ".")
+    st.download_button("Download the study file (TOML)", text, file_name=state.study_filename(spec),
+                       mime="application/toml", key="design_download")
+    st.caption("Save the study file in the folder that holds the two tables: it names them by file name, "
+               "relative to its own folder, so the folder can be moved or shared as a whole.")
     with st.expander("Study file"):
         st.code(text, language="toml")
 

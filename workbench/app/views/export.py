@@ -2,69 +2,64 @@
 
 from __future__ import annotations
 
-import io
-import json
 import tempfile
-import zipfile
 from pathlib import Path
 
 import streamlit as st
 
-from workbench.app import state
+from workbench.app import exports, state
 
 
-def _results_data(result) -> dict | None:
-    if hasattr(result, "to_dict"):
-        return result.to_dict()
-    mod = state.load_module("workbench.report.results")
-    return mod.results_dict(result) if mod is not None and hasattr(mod, "results_dict") else None
+def _files(job) -> exports.Exports:
+    """The run's files: built in the background after the run, or now when that has not started."""
+    ex = getattr(job, "exports", None)
+    if ex is None:
+        ex = job.exports = exports.prepare(job.result)
+    return ex
 
 
-@st.cache_data(show_spinner="Preparing results.json...", max_entries=4)
-def _results_json(run_key: tuple, _result) -> str | None:
-    data = _results_data(_result)
-    return None if data is None else json.dumps(data, indent=2, allow_nan=False)
+def _get(ex, name: str, text: str):
+    if ex.ready(name):
+        return ex.get(name)
+    with st.spinner(text):
+        return ex.get(name)
 
 
-@st.cache_data(show_spinner="Writing the results folder...", max_entries=4)
-def _results_folder_zip(run_key: tuple, _result) -> bytes | None:
-    """results.json, the CSV tables and the run log, as the command line writes them, in one zip."""
-    mod = state.load_module("workbench.report.results")
-    if mod is None or not hasattr(mod, "write_results"):
+def chromium() -> str | None:
+    """The Chromium that prints the PDF report, or None when none is installed."""
+    mod = state.load_module("workbench.report.pdf")
+    try:
+        return mod.find_chromium() if mod is not None else None
+    except Exception:  # noqa: BLE001 - no browser: the PDF is simply not offered
         return None
-    with tempfile.TemporaryDirectory(prefix="workbench-results-") as tmp:
-        folder = Path(tmp) / "results"
-        mod.write_results(_result, folder)
-        buf = io.BytesIO()
-        with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
-            for f in sorted(folder.iterdir()):
-                zf.write(f, arcname=f"results/{f.name}")
-        return buf.getvalue()
 
 
-@st.cache_data(show_spinner="Saving the model bundle...", max_entries=4)
-def _bundle_zip(run_key: tuple, _result) -> bytes:
-    bundle = state.load_module("workbench.report.bundle")
-    summary = bundle.summarise_training(_result.cohort, _result.models, _result.spec.horizons,
-                                        groups=_result.spec.models.risk_groups)
-    with tempfile.TemporaryDirectory(prefix="workbench-bundle-") as tmp:
-        path = bundle.save_bundle(_result.models, _result.spec, summary, Path(tmp) / "model_bundle.zip")
-        return Path(path).read_bytes()
+@st.cache_data(show_spinner="Printing the report to PDF...", max_entries=2)
+def _pdf_bytes(run_key: tuple, html: str) -> bytes:
+    mod = state.load_module("workbench.report.pdf")
+    with tempfile.TemporaryDirectory(prefix="workbench-pdf-") as tmp:
+        src = Path(tmp) / "report.html"
+        src.write_text(html, encoding="utf-8")
+        return Path(mod.print_pdf(src, Path(tmp) / "report.pdf")).read_bytes()
 
 
-def _report():
-    """(bytes, file name, mime) of the report from the report layer, or None when it has none yet."""
-    mod = state.load_module("workbench.report.html")
-    for name in ("render_report", "report_html", "build_report"):
-        fn = getattr(mod, name, None) if mod is not None else None
-        if fn is not None:
-            return fn
-    return None
-
-
-@st.cache_data(show_spinner="Writing the report...", max_entries=4)
-def _report_html(run_key: tuple, _result) -> str:
-    return _report()(_result)
+def _pdf(key, html: str, spec) -> None:
+    """The PDF report, offered when a Chromium is installed to print it (printed once per run)."""
+    if chromium() is None:
+        st.caption("The PDF version needs the Chromium browser on this computer; the HTML report prints "
+                   "from any browser.")
+        return
+    done = st.session_state.get("export_pdf_for") == key
+    if not done and not st.button("Prepare the PDF report", key="export_pdf_make"):
+        return
+    try:
+        data = _pdf_bytes(key, html)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Printing the PDF report", exc)
+        return
+    st.session_state["export_pdf_for"] = key
+    st.download_button("Download the report (PDF)", data, file_name=state.study_filename(spec, ".pdf", "report"),
+                       mime="application/pdf", key="export_pdf")
 
 
 def render() -> None:
@@ -77,30 +72,22 @@ def render() -> None:
     if result is None:
         st.info("Run the study on the Results page first.")
         return
-    key = state.current_job().key
+    state.show_provenance("These files")
+    job = state.result_job()
+    key = job.key
+    spec = result.spec
 
     st.subheader("Study file")
-    st.download_button("Download the study file as run (TOML)", result.study_text, file_name="study.toml",
-                       mime="application/toml", key="export_study")
+    st.download_button("Download the study file as run (TOML)", state.study_text(spec),
+                       file_name=state.study_filename(spec), mime="application/toml", key="export_study")
+    st.caption("Save it in the folder that holds the study's tables: it names them relative to its own folder.")
 
-    st.subheader("Report")
-    if _report() is None:
-        state.not_available("The HTML report")
-    else:
-        st.caption("One self-contained HTML file with the methods, every table and figure, and the caution; "
-                   "it lists no patient identifiers.")
-        try:
-            html = _report_html(key, result)
-            st.download_button("Download the report (HTML)", html, file_name="report.html", mime="text/html",
-                               key="export_report")
-        except Exception as exc:  # noqa: BLE001
-            state.show_error("Writing the report", exc)
-
+    ex = _files(job)
     st.subheader("Results file")
     st.caption("Every number of the run with the study, seed, data hash and package versions (results.json).")
     try:
-        text = _results_json(key, result)
-        folder = _results_folder_zip(key, result)
+        text = _get(ex, "json", "Preparing results.json...")
+        folder = _get(ex, "folder", "Writing the results folder...")
     except Exception as exc:  # noqa: BLE001
         state.show_error("Writing the results", exc)
         text = folder = None
@@ -108,25 +95,45 @@ def render() -> None:
         state.not_available("results.json")
     else:
         a, b = st.columns(2)
-        a.download_button("Download results.json", text, file_name="results.json", mime="application/json",
-                          key="export_json")
+        a.download_button("Download results.json", text, file_name=state.study_filename(spec, ".json", "results"),
+                          mime="application/json", key="export_json")
         if folder is not None:
             b.download_button("Download the results folder (JSON, CSV tables, run log; zip)", folder,
-                              file_name="results.zip", mime="application/zip", key="export_folder")
+                              file_name=state.study_filename(spec, ".zip", "results"), mime="application/zip",
+                              key="export_folder")
 
     st.subheader("Model bundle")
     st.caption("The fitted models in a safe format (JSON and arrays, no executable code) to estimate survival "
                "for new patients. It holds no patient identifiers.")
-    if not state.module_available("workbench.report.bundle"):
-        state.not_available("The model bundle")
-        return
     try:
-        data = _bundle_zip(key, result)
+        data = _get(ex, "bundle", "Saving the model bundle...")
     except Exception as exc:  # noqa: BLE001
         state.show_error("Saving the model bundle", exc)
-        return
-    st.download_button("Download the model bundle (zip)", data, file_name="model_bundle.zip",
-                       mime="application/zip", key="export_bundle")
+        data = None
+    if data is None:
+        state.not_available("The model bundle")
+    else:
+        st.download_button("Download the model bundle (zip)", data,
+                           file_name=state.study_filename(spec, ".zip", "model_bundle"),
+                           mime="application/zip", key="export_bundle")
+
+
+
+    st.subheader("Report")
+    if exports.report_function() is None:
+        state.not_available("The HTML report")
+    else:
+        st.caption("One self-contained HTML file with the methods, every table and figure, and the caution; "
+                   "it lists no patient identifiers.")
+        try:
+            html = _get(ex, "report", "Writing the report (it is written in the background after each run)...")
+            st.download_button("Download the report (HTML)", html, file_name=state.study_filename(spec, ".html", "report"),
+                               mime="text/html", key="export_report")
+        except Exception as exc:  # noqa: BLE001
+            state.show_error("Writing the report", exc)
+        else:
+            _pdf(key, html, spec)
+
 
 
 if __name__ == "__main__":

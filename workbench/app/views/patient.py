@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import copy
+from dataclasses import replace
+
 import numpy as np
+import pandas as pd
 import streamlit as st
 
 from workbench.app import charts, nomo, state, tables
-from workbench.cohort.summary import CAUTION
-from workbench.errors import WorkbenchError
+from workbench.app.messages import plain
 
 
 @st.cache_resource(show_spinner=False, max_entries=4)
@@ -22,33 +25,85 @@ def _ranges(run_key: tuple, name: str, _result):
                                       time_unit=_result.validation.time_unit)
 
 
-def _cohort_record(result, index: int) -> dict:
-    """Every value of one cohort patient: clinical fields, imaging features and the scanner."""
-    c = result.cohort
-    rec = {str(k): (None if v is None or (isinstance(v, float) and np.isnan(v)) else v)
-           for k, v in c.clinical.iloc[index].items()}
-    rec.update({str(k): float(v) for k, v in c.features.iloc[index].items()})
-    b = result.spec.data.batch
-    if b and c.batch is not None:
-        rec[b] = str(c.batch[index])
-    return rec
+def needed_columns(result, ranges) -> list[str]:
+    """Exactly the columns a patient file needs for this model: id, clinical predictors, scanner, imaging."""
+    cols = [result.spec.data.id]
+    cols += [c.column for c in ranges.clinical]
+    if ranges.harmonised:
+        cols.append(result.spec.data.batch or ranges.batch_column)
+    cols += list(ranges.imaging_features)
+    return list(dict.fromkeys(cols))
 
 
-def _uploaded_record():
-    up = st.file_uploader("Or read one patient from a file (one-row CSV or Excel with the same column names)",
-                          type=["csv", "tsv", "txt", "xlsx", "xls"], key="patient_file")
+def _template(result, ranges, name: str) -> None:
+    cols = needed_columns(result, ranges)
+    st.download_button(
+        f"Download a template for the patient file ({len(cols)} columns)", ",".join(cols) + "\n",
+        file_name=state.study_filename(result.spec, ".csv", f"{name}_patient_template"), mime="text/csv",
+        key=f"patient_template_{name}",
+        help="A CSV file with exactly the columns this model needs, one row per patient. Fill it in with a "
+             "spreadsheet program and upload it here.")
+
+
+def _read_patients(up) -> pd.DataFrame | None:
+    """The rows of an uploaded patient file (text kept as written; blanks become missing)."""
+    path = state.save_upload(up, "patient")
+    try:
+        if path.suffix.lower() in (".xlsx", ".xls"):
+            df = pd.read_excel(path, dtype=object)
+        else:
+            df = pd.read_csv(path, dtype=str, keep_default_na=False,
+                             sep="\t" if path.suffix.lower() == ".tsv" else ",")
+    except Exception as exc:  # noqa: BLE001 - any reading error is explained in words
+        st.error(plain(f"{up.name}: could not be read as a table ({state.friendly(str(exc))}). Save it as CSV "
+                       "(comma separated, UTF-8) or Excel, with the column names in the first row."))
+        return None
+    df = df.dropna(how="all")
+    df.columns = [str(c).strip() for c in df.columns]
+    if df.empty:
+        st.error(plain(f"{up.name} has a header row but no patient rows."))
+        return None
+    return df
+
+
+def _file_record(result, ranges, name: str) -> dict | None:
+    """One patient's values from an uploaded file with one or more patients."""
+    _template(result, ranges, name)
+    up = st.file_uploader("Patient file (CSV or Excel, one row per patient)", type=["csv", "tsv", "txt", "xlsx", "xls"],
+                          key="patient_file")
     if up is None:
         return None
-    estimate = state.load_module("workbench.estimate")
-    try:
-        return estimate.read_patient_file(state.save_upload(up, "patient"))
-    except WorkbenchError as exc:
-        state.show_error("Reading the patient file", exc)
+    df = _read_patients(up)
+    if df is None:
         return None
+    need = needed_columns(result, ranges)[1:]
+    missing = [c for c in need if c not in df.columns]
+    if missing:
+        shown = ", ".join(missing[:8]) + (f" and {len(missing) - 8} more" if len(missing) > 8 else "")
+        st.error(plain(f"{up.name} lacks {len(missing)} column(s) this model needs: {shown}. "
+                       "Download the template above for the exact column names."))
+        return None
+    idc = result.spec.data.id
+    labels = [str(v) for v in df[idc]] if idc in df.columns else [f"row {i + 1}" for i in range(len(df))]
+    pick = 0
+    if len(df) > 1:
+        pick = st.selectbox(f"Patient ({len(df)} in the file)", range(len(df)), format_func=lambda i: labels[i],
+                            key="patient_row")
+    row = df.iloc[int(pick)]
+    return {str(k): (None if v is None or (isinstance(v, str) and not v.strip()) or
+                     (isinstance(v, float) and np.isnan(v)) else v) for k, v in row.items()}
 
 
-def _form(result, ranges, base: dict, tag: str) -> dict | None:
-    """Editable clinical values of the patient (imaging values come from the chosen record)."""
+def _score_bounds(result, name: str) -> tuple[float, float] | None:
+    scores = nomo.training_scores(result, name)
+    if scores is None or len(scores) == 0:
+        return None
+    return float(np.percentile(scores, 1)), float(np.percentile(scores, 99))
+
+
+def _form(result, ranges, base: dict, tag: str, ask_score: bool) -> tuple[dict, float | None] | None:
+    """Clinical values of the patient (blank unless read from a file), and the signature score when typed."""
+    score = None
     with st.form(f"patient_form_{tag}"):
         st.markdown("**Clinical values**")
         cols = st.columns(3)
@@ -58,15 +113,15 @@ def _form(result, ranges, base: dict, tag: str) -> dict | None:
             cur = base.get(c.column)
             with cols[i % 3]:
                 if c.kind in ("categorical", "ordinal"):
-                    opts = list(c.levels)
+                    opts = [str(x) for x in c.levels]
                     shown = str(cur) if cur is not None else None
                     if shown is not None and shown not in opts:
                         opts.append(shown)  # keep an unseen value visible so the range check can flag it
                     if c.missing == "impute":
                         opts = ["(missing)"] + opts
-                    idx = opts.index(shown) if shown in opts else 0
-                    v = st.selectbox(label, opts, index=idx, key=f"pt_{tag}_{c.column}")
-                    values[c.column] = None if v == "(missing)" else v
+                    v = st.selectbox(label, opts, index=opts.index(shown) if shown in opts else None,
+                                     placeholder="Choose...", key=f"pt_{tag}_{c.column}")
+                    values[c.column] = None if v in (None, "(missing)") else v
                 else:
                     unit = f" ({c.unit})" if c.unit else ""
                     helptext = (f"Training range {c.train_min:g} to {c.train_max:g}{unit}."
@@ -75,21 +130,41 @@ def _form(result, ranges, base: dict, tag: str) -> dict | None:
                     v = st.text_input(f"{label}{unit}", "" if cur is None else str(cur), key=f"pt_{tag}_{c.column}",
                                       help=helptext)
                     values[c.column] = v.strip() or None
-        if ranges.harmonised:
+        if ranges.harmonised and not ask_score:
             b = result.spec.data.batch or ranges.batch_column
             opts = list(ranges.batches)
-            cur = str(base.get(b, opts[0] if opts else ""))
-            if cur not in opts:
+            cur = base.get(b)
+            cur = None if cur is None else str(cur)
+            if cur is not None and cur not in opts:
                 opts.append(cur)
-            values[b] = st.selectbox("Scanner / batch", opts, index=opts.index(cur), key=f"pt_{tag}_batch")
-        n_img = len(ranges.imaging_features)
-        if n_img:
-            st.caption(f"The {n_img} imaging feature values are those of the record chosen above.")
+            values[b] = st.selectbox("Scanner / batch", opts, index=opts.index(cur) if cur in opts else None,
+                                     placeholder="Choose...", key=f"pt_{tag}_batch")
+        if ask_score:
+            bounds = _score_bounds(result, tag.split("_")[0])
+            hint = "" if bounds is None else f" Training patients: 1st to 99th percentile {bounds[0]:.2f} to {bounds[1]:.2f}."
+            text = st.text_input("Imaging signature score", "", key=f"pt_{tag}_score",
+                                 help="The score of the imaging signature of this model for the patient, as "
+                                      "computed by the model from the patient's features (for example from a "
+                                      "report of an earlier estimate)." + hint)
+            if text.strip():
+                try:
+                    score = float(text)
+                except ValueError:
+                    st.error(plain(f"The signature score must be a number; got {text.strip()!r}."))
         ok = st.form_submit_button("Estimate", type="primary")
-    return values if ok or st.session_state.get(f"pt_done_{tag}") else None
+    if not (ok or st.session_state.get(f"pt_done_{tag}")):
+        return None
+    return values, score
 
 
-def _show(result, name: str, est, record: dict) -> None:
+def _with_score(model, ranges, score: float):
+    """The combined model and its ranges, with the signature score given instead of imaging features."""
+    proxy = copy.copy(model)
+    proxy.signature_score = lambda cohort: np.full(cohort.n, float(score))
+    return proxy, replace(ranges, imaging_features=(), imaging_p01={}, imaging_p99={}, harmonised=False)
+
+
+def _show(result, name: str, est, record: dict, score: float | None = None) -> None:
     u = est.time_unit
     st.subheader(f"Estimate from the {tables.label(name).lower()} model")
     cols = st.columns(len(est.horizons) + 1)
@@ -101,15 +176,14 @@ def _show(result, name: str, est, record: dict) -> None:
         col.caption(ci)
     if est.risk_group is not None:
         cols[-1].metric("Risk group", est.risk_group, help="Tertiles of the training patients' risk.")
-    st.warning(f"**Caution.** {est.caution or CAUTION}")
     ch = est.checks
     if ch.out_of_range:
         st.markdown("**Values outside the training data** (the model extrapolates there)")
         for f in ch.flags:
-            st.warning(f.message)
+            st.warning(plain(f.message))
         if ch.imaging_outside:
             st.warning(f"{ch.imaging_outside} of {ch.imaging_checked} imaging features lie beyond the training "
-                       "1st-99th percentiles; furthest: " + "; ".join(f.message for f in ch.imaging_worst))
+                       "1st-99th percentiles; furthest: " + plain("; ".join(f.message for f in ch.imaging_worst)))
     else:
         st.success("All values lie within the range of the training patients.")
     for t in ch.imputed:
@@ -127,10 +201,10 @@ def _show(result, name: str, est, record: dict) -> None:
                     "bootstrap": f"Bootstrap percentile interval from {est.n_bootstrap} refits.",
                     }.get(est.interval_method, "This model gives no interval."))
     if name in nomo.nomogram_models(result):
-        _on_nomogram(result, name, record)
+        _on_nomogram(result, name, record, score)
 
 
-def _on_nomogram(result, name: str, record: dict) -> None:
+def _on_nomogram(result, name: str, record: dict, score: float | None = None) -> None:
     draw = state.load_module("workbench.figures.nomogram")
     if draw is None:
         state.not_available("The nomogram drawing")
@@ -138,15 +212,15 @@ def _on_nomogram(result, name: str, record: dict) -> None:
     st.subheader("On the nomogram")
     try:
         hz = tuple(float(h) for h in result.spec.horizons)
-        scales = nomo.scales_for(state.current_job().key, name, hz, result)
-        raw = nomo.nomogram_values(result, name, record)
+        scales = nomo.scales_for(state.result_job().key, name, hz, result)
+        raw = nomo.nomogram_values(result, name, record, score)
         points = state.load_module("workbench.figures.nomogram_points").points_for_patient(scales, raw)
         fig = draw.plot_nomogram([scales], patient=raw, titles=[tables.label(name)], width="single")
     except Exception as exc:  # noqa: BLE001
         state.show_error("Placing the patient on the nomogram", exc)
         return
     left, right = st.columns([3, 2])
-    left.image(nomo.save_figure(fig, "png"))
+    left.image(nomo.screen_png(fig), width="stretch")
     with right:
         rows = [(scales.term(k).label or k, f"{v:.1f}") for k, v in points.points.items()]
         rows.append(("Total points", f"{points.total:.1f}"))
@@ -168,39 +242,57 @@ def render() -> None:
     if result is None:
         st.info("Run the study on the Results page first; the estimate uses the fitted models.")
         return
+    state.show_provenance("The estimates")
     names = list(result.models)
     default = names.index("combined") if "combined" in names else 0
     a, b = st.columns([1, 2])
     name = a.selectbox("Model", names, index=default, format_func=tables.label, key="patient_model")
-    ids = list(result.cohort.ids)
-    start = b.selectbox("Start from the values of", ids, index=0, key="patient_start",
-                        help="A patient of the analysis cohort; edit the clinical values below.")
-    uploaded = _uploaded_record()
     try:
-        ranges = _ranges(state.current_job().key, name, result)
+        ranges = _ranges(state.result_job().key, name, result)
     except Exception as exc:  # noqa: BLE001
         state.show_error("Reading the model's training ranges", exc)
         return
-    if uploaded is not None:
-        base, tag = uploaded, "file"
+    model = result.models[name]
+    imaging = bool(ranges.imaging_features) or hasattr(model, "signature_score")
+    sources = {"type": "Type the clinical values", "file": "Read patients from a file"}
+    if hasattr(model, "signature_score"):
+        sources["type"] = "Type the clinical values and the signature score"
+    how = b.radio("The patient's values", list(sources), format_func=sources.get, horizontal=True,
+                  key="patient_source",
+                  help="A new patient starts empty: no value is taken from another patient. Imaging features "
+                       "(hundreds of numbers) come from a file; or type the signature score itself.")
+    if how == "file" or (imaging and not hasattr(model, "signature_score")):
+        base = _file_record(result, ranges, name)
+        if base is None:
+            st.info("Upload a file with the patient's values (the template above has the columns).")
+            return
+        tag = f"{name}_file_{st.session_state.get('patient_row', 0)}"
+        ask_score = False
     else:
-        base, tag = _cohort_record(result, ids.index(start)), f"id_{start}"
-    values = _form(result, ranges, base, f"{name}_{tag}")
-    if values is None:
+        base, tag, ask_score = {}, f"{name}_typed", hasattr(model, "signature_score")
+    got = _form(result, ranges, base, tag, ask_score)
+    if got is None:
         st.info("Check the values and press Estimate.")
         return
-    st.session_state[f"pt_done_{name}_{tag}"] = True
-    known = {c.column for c in ranges.clinical} | set(ranges.imaging_features)
-    if ranges.harmonised:
-        known.add(result.spec.data.batch or ranges.batch_column)
+    values, score = got
+    st.session_state[f"pt_done_{tag}"] = True
+    use_model, use_ranges = model, ranges
+    if ask_score:
+        if score is None:
+            st.info("Type the imaging signature score, or read the patient's imaging values from a file.")
+            return
+        use_model, use_ranges = _with_score(model, ranges, score)
+    known = {c.column for c in use_ranges.clinical} | set(use_ranges.imaging_features)
+    if use_ranges.harmonised:
+        known.add(result.spec.data.batch or use_ranges.batch_column)
     record = {k: v for k, v in values.items() if k in known}
     estimate = state.load_module("workbench.estimate")
     try:
-        est = estimate.estimate_patient(result.models[name], record, result.spec.horizons, training_ranges=ranges)
+        est = estimate.estimate_patient(use_model, record, result.spec.horizons, training_ranges=use_ranges)
     except Exception as exc:  # noqa: BLE001
         state.show_error("The estimate cannot be made", exc)
         return
-    _show(result, name, est, {**values})
+    _show(result, name, est, {**values}, score)
 
 
 if __name__ == "__main__":

@@ -7,7 +7,8 @@ import os
 import numpy as np
 import streamlit as st
 
-from workbench.app import charts, nomo, state, tables
+from workbench.app import charts, nomo, roles, state, tables
+from workbench.app.messages import plain
 from workbench.validation.compare import LR_CAUTION
 
 POLL_SECONDS = 0.5
@@ -30,21 +31,32 @@ def comparisons(result) -> list:
 
 
 def _run_controls(spec) -> None:
+    ss = st.session_state
     a, b, c = st.columns([1, 1, 2])
-    reps = a.number_input("Bootstrap replicates for this run", 1, 5000, state.DEMO_REPLICATES,
-                          key="results_replicates",
+    # kept under keys of their own: a widget's key is forgotten when another view is shown
+    reps = a.number_input("Bootstrap replicates for this run", 1, 5000,
+                          int(ss.get("wb_run_replicates", state.DEMO_REPLICATES)), key="results_replicates",
                           help="A quick look uses few replicates; the study file keeps its own number.")
-    workers = b.number_input("Parallel workers", 1, 64, min(2, os.cpu_count() or 1), key="results_workers")
+    workers = b.number_input("Parallel workers", 1, 64, int(ss.get("wb_run_workers", min(2, os.cpu_count() or 1))),
+                             key="results_workers",
+                             help="Replicates computed at the same time; at most the number of processor cores.")
+    ss["wb_run_replicates"], ss["wb_run_workers"] = int(reps), int(workers)
     c.caption(
-        f"Quick mode: {state.DEMO_REPLICATES} bootstrap replicates, so that a run in the browser finishes in "
-        f"about a minute. The full analysis uses the {spec.validation.replicates} replicates of the study file: "
-        "set the number here, or run the study file from the command line. Intervals from few replicates are rough."
+        f"Quick mode: {state.DEMO_REPLICATES} bootstrap replicates by default, so that a run in the browser "
+        f"finishes in about a minute. The full analysis uses the {spec.validation.replicates} replicates set on "
+        "the Design page: set that number here, or run the study file from the command line. Intervals from few "
+        "replicates are rough."
     )
     job = state.current_job()
     busy = job is not None and job.running
     if st.button("Run the study", type="primary", disabled=busy, key="results_run"):
         state.start_run(spec, int(reps), int(workers))
         st.rerun()
+
+
+def _clock(seconds: float) -> str:
+    seconds = max(0, int(round(seconds)))
+    return f"{seconds // 60}:{seconds % 60:02d}"
 
 
 def _watch(job) -> None:
@@ -58,18 +70,20 @@ def _watch(job) -> None:
             text = f"{job.message}: {job.done} of {job.total} replicates"
         else:
             text = "Preparing the cohort and fitting the models on all patients..."
+        left = job.remaining()
+        text += f" (elapsed {_clock(job.elapsed)}" + (f", about {_clock(left)} left)" if left is not None else ")")
         bar.progress(min(job.done / job.total, 1.0) if job.total else 0.0, text=text)
         job.wait(POLL_SECONDS)
     st.rerun()
 
 
-def _decision_figure(dc, model: str, baseline: str):
+def _decision_figure(dc, model: str, baseline: str, outcome: str = "the event"):
     x = np.asarray(dc.thresholds, float)
     fig = charts.line_figure(
         x,
         {tables.label(model): dc.model_validated, tables.label(baseline): dc.baseline_validated,
          "Treat all": dc.treat_all, "Treat none": dc.treat_none},
-        xlabel="Threshold probability of death by the horizon", ylabel="Net benefit (validated)",
+        xlabel=f"Threshold probability of {outcome} by the horizon", ylabel="Net benefit (validated)",
         hline=0.0,
     )
     # Treat-all falls far below zero at high thresholds; keep the range where decisions differ.
@@ -82,8 +96,15 @@ def _decision_figure(dc, model: str, baseline: str):
 
 
 @st.cache_resource(show_spinner="Drawing the figures of the run...", max_entries=2)
-def _run_figures(run_key: tuple, _result) -> dict:
-    """Every standard figure of the run from the report layer (empty when it has none yet)."""
+def _run_figures(run_key: tuple, _result, _job=None) -> dict:
+    """Every standard figure of the run from the report layer (empty when it has none yet).
+
+    They are drawn in the background as soon as the run finishes (:mod:`workbench.app.exports`);
+    this waits for that rather than drawing them twice.
+    """
+    ex = getattr(_job, "exports", None)
+    if ex is not None:
+        return ex.get("figures") or {}
     mod = state.load_module("workbench.report.figureset")
     if mod is None or not hasattr(mod, "study_figures"):
         return {}
@@ -109,10 +130,22 @@ def _figure_title(name: str) -> str:
     return name.replace("_", " ").capitalize()
 
 
+@st.cache_data(show_spinner=False, max_entries=32)
+def _figure_png(run_key: tuple, name: str, _fig) -> bytes:
+    """A run's figure as PNG for the page, drawn once per run and figure."""
+    return nomo.screen_png(_fig)
+
+
+@st.cache_data(show_spinner=False, max_entries=32)
+def _decision_png(run_key: tuple, model: str, horizon: float, outcome: str, _dc, baseline: str) -> bytes:
+    return charts.figure_bytes(_decision_figure(_dc, model, baseline, outcome))
+
+
 def _figures(result, key) -> None:
+    spec = result.spec
     st.subheader("Figures")
     try:
-        figs = _run_figures(key, result)
+        figs = _run_figures(key, result, state.result_job())
     except Exception as exc:  # noqa: BLE001
         state.show_error("Drawing the figures", exc)
         return
@@ -124,18 +157,20 @@ def _figures(result, key) -> None:
     pick = st.selectbox("Figure", names, format_func=_figure_title, key="results_figure")
     fig = figs[pick]
     left, right = st.columns([3, 1])
-    left.image(nomo.save_figure(fig, "png"))
+    left.image(_figure_png(key, pick, fig), width="stretch")
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
-            st.download_button(f"Download {fmt.upper()}", nomo.save_figure(fig, fmt), file_name=f"{pick}.{fmt}",
-                               mime=mime, key=f"results_fig_{fmt}")
+            # written only when the button is pressed (the view itself stays quick to redraw)
+            data = lambda f=fig, x=fmt: nomo.save_figure(f, x)  # noqa: E731
+            st.download_button(f"Download {fmt.upper()}", data, file_name=state.study_filename(spec, f".{fmt}", pick),
+                               mime=mime, key=f"results_fig_{fmt}", on_click="ignore")
         if result.external_prepared is not None:
             st.caption("Curves, calibration and decision curves are drawn on the external cohort.")
         else:
             st.caption("Curves, calibration and decision curves are drawn on the development cohort (apparent).")
 
 
-def _comparison(comp, u: str, added_value=None) -> None:
+def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added_value=None) -> None:
     st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
                 f"{comp.n_paired} paired replicates)")
     state.table(tables.difference_table(comp, time_unit=u, headline=True))
@@ -148,7 +183,7 @@ def _comparison(comp, u: str, added_value=None) -> None:
         st.caption("Imaging residuals given the clinical terms (and scanner) permuted; the whole signature "
                    "refitted in every fold of every permutation.")
     lr = comp.lr_test
-    if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value):
+    if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value) and lr.df > 0:
         st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
         st.caption(lr.note)
     elif lr.nested and np.isfinite(lr.statistic):
@@ -167,7 +202,7 @@ def _comparison(comp, u: str, added_value=None) -> None:
         pick = right.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
                                format_func=lambda h: f"{h} {u}")
         dc = comp.decision[hz.index(pick)]
-        left.image(charts.figure_bytes(_decision_figure(dc, comp.model, comp.baseline)),
+        left.image(_decision_png(key, comp.model, float(dc.horizon), outcome, dc, comp.baseline),
                    caption=f"Decision curves at {pick} {u}, corrected like the other measures")
         right.caption("Net benefit of acting on the model's predicted risk at each threshold, against "
                       "treating everyone or no one.")
@@ -188,12 +223,11 @@ def _show(result, job) -> None:
         how = f"{METHODS.get(v.method, v.method)} with " + ", ".join(
             f"{r} replicates for the {tables.label(m)} model" for m, r in reps.items())
     st.success(f"Finished in {took}: {v.n} patients, {v.n_events} events; {how}.")
-    if job.key[:2] != state.run_key(state.current_study(), job.replicates, job.workers)[:2]:
-        st.warning("The study has changed since this run; run it again to update these results.")
+    state.show_provenance()
     if result.warnings:
         with st.expander(f"Statistical warnings raised during the run ({len(result.warnings)})"):
             for cat, msg in result.warnings:
-                st.write(f"**{cat}**: {state.friendly(msg)}")
+                st.write(f"**{cat}**: {plain(state.friendly(msg))}")
 
     pct = round(100 * v.conf_level)
     fewest = min(reps.values()) if reps else 0
@@ -224,7 +258,8 @@ def _show(result, job) -> None:
         tabs = st.tabs([f"{tables.label(c.model)} minus {tables.label(c.baseline)}" for c in comps])
     for tab, comp in zip(tabs if comps else [], comps, strict=False):
         with tab:
-            _comparison(comp, u, getattr(result, "added_value", {}).get(comp.model))
+            _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes), job.key,
+                        getattr(result, "added_value", {}).get(comp.model))
     _figures(result, job.key)
 
     if result.external is not None:
@@ -258,7 +293,7 @@ def render() -> None:
     st.title("Results")
     spec = state.current_study()
     if spec is None:
-        st.info("Complete the study on the Design page first.")
+        st.info("Set up the study on the Design page first.")
         return
     if not state.module_available("workbench.workflow"):
         state.not_available("Running a study")
@@ -271,14 +306,21 @@ def render() -> None:
     if job.running:
         _watch(job)
         return
+    last = state.result_job()
+    if job.stopping:
+        st.caption("The cancelled run is finishing the replicates under way in the background (the "
+                   "computer may be slower meanwhile); nothing from it will be kept.")
     if job.cancelled:
-        st.warning("The run was cancelled; nothing was kept from it. Press Run the study to start again.")
-        return
-    if job.error is not None:
+        st.warning("The run was cancelled. " + ("The results below are those of the last complete run."
+                                                 if last is not None else "Press Run the study to start again."))
+    elif job.error is not None:
         state.show_error("The run stopped", job.error)
+        if last is not None:
+            st.caption("The results below are those of the last complete run.")
+    if last is None:
         return
     try:
-        _show(job.result, job)
+        _show(last.result, last)
     except Exception as exc:  # noqa: BLE001
         state.show_error("Showing the results", exc)
 

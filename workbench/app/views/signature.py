@@ -56,6 +56,7 @@ def render() -> None:
     if result is None:
         st.info("Run the study on the Results page first; the signature is fitted there.")
         return
+    state.show_provenance("The signature and its stability")
     model = result.models.get("combined")
     if model is None or not hasattr(model, "signature_"):
         st.info("This study fits no clinical + imaging signature model; add 'combined' on the Design page.")

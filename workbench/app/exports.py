@@ -1,0 +1,130 @@
+"""The files of a finished run (figures, report HTML, results.json, results folder, model bundle), built once.
+
+:func:`prepare` builds them all in a background thread right after a run finishes, so that the
+Export view finds them ready; the view calls :func:`get`, which waits for that thread or builds
+a file itself when it has not been built. Nothing here touches Streamlit.
+"""
+
+from __future__ import annotations
+
+import importlib
+import io
+import json
+import tempfile
+import threading
+import warnings
+import zipfile
+from pathlib import Path
+
+
+def _module(name: str):
+    try:
+        return importlib.import_module(name)
+    except ImportError:
+        return None
+
+
+def results_json(result) -> str | None:
+    if hasattr(result, "to_dict"):
+        data = result.to_dict()
+    else:
+        mod = _module("workbench.report.results")
+        data = mod.results_dict(result) if mod is not None and hasattr(mod, "results_dict") else None
+    return None if data is None else json.dumps(data, indent=2, allow_nan=False)
+
+
+def results_zip(result) -> bytes | None:
+    """results.json, the CSV tables and the run log, as the command line writes them, in one zip."""
+    mod = _module("workbench.report.results")
+    if mod is None or not hasattr(mod, "write_results"):
+        return None
+    with tempfile.TemporaryDirectory(prefix="workbench-results-") as tmp:
+        folder = Path(tmp) / "results"
+        mod.write_results(result, folder)
+        buf = io.BytesIO()
+        with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+            for f in sorted(folder.iterdir()):
+                zf.write(f, arcname=f"results/{f.name}")
+        return buf.getvalue()
+
+
+def bundle_zip(result) -> bytes | None:
+    bundle = _module("workbench.report.bundle")
+    if bundle is None:
+        return None
+    summary = bundle.summarise_training(result.cohort, result.models, result.spec.horizons,
+                                        groups=result.spec.models.risk_groups)
+    with tempfile.TemporaryDirectory(prefix="workbench-bundle-") as tmp:
+        path = bundle.save_bundle(result.models, result.spec, summary, Path(tmp) / "model_bundle.zip")
+        return Path(path).read_bytes()
+
+
+def report_function():
+    """The report layer's HTML renderer, or None when it has none yet."""
+    mod = _module("workbench.report.html")
+    for name in ("render_report", "report_html", "build_report"):
+        fn = getattr(mod, name, None) if mod is not None else None
+        if fn is not None:
+            return fn
+    return None
+
+
+def report_html(result) -> str | None:
+    fn = report_function()
+    return None if fn is None else fn(result)
+
+
+def figures(result) -> dict:
+    """The run's standard figures (name -> matplotlib Figure), as the Results view shows them."""
+    mod = _module("workbench.report.figureset")
+    return mod.study_figures(result) if mod is not None and hasattr(mod, "study_figures") else {}
+
+
+BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
+            "bundle": bundle_zip}
+
+
+class Exports:
+    """The files of one run: built in the background, or on demand; errors kept to be shown."""
+
+    def __init__(self, result) -> None:
+        self.result = result
+        self.files: dict[str, object] = {}
+        self.errors: dict[str, BaseException] = {}
+        self._lock = threading.Lock()
+        self._thread: threading.Thread | None = None
+
+    def start(self) -> Exports:
+        self._thread = threading.Thread(target=self._all, name="workbench-exports", daemon=True)
+        self._thread.start()
+        return self
+
+    def _all(self) -> None:
+        for name in ("figures", "json", "bundle", "folder", "report"):  # the slowest last
+            self._build(name)
+
+    def _build(self, name: str) -> None:
+        with self._lock:
+            if name in self.files or name in self.errors:
+                return
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    self.files[name] = BUILDERS[name](self.result)
+            except Exception as exc:  # noqa: BLE001 - shown in the Export view
+                self.errors[name] = exc
+
+    def get(self, name: str):
+        """The file's content (None when the layer offers none); raises the error met while building it."""
+        self._build(name)  # waits for the background thread while it holds the lock
+        if name in self.errors:
+            raise self.errors[name]
+        return self.files.get(name)
+
+    def ready(self, name: str) -> bool:
+        return name in self.files or name in self.errors
+
+
+def prepare(result) -> Exports:
+    """Start building every file of ``result`` in the background."""
+    return Exports(result).start()
