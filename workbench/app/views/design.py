@@ -19,6 +19,7 @@ from workbench.study import (
     BACKENDS,
     MODEL_NAMES,
     VALIDATION_METHODS,
+    AddedValueSpec,
     ExternalSpec,
     HarmoniseSpec,
     ImagingSpec,
@@ -405,7 +406,8 @@ def render() -> None:
     try:
         spec = StudySpec(name=name.strip() or "My study", data=data, predictors=predictors, horizons=horizons,
                          seed=int(seed), imaging=imaging, models=models, validation=validation,
-                         external=external, anticipated_r2=tpl.anticipated_r2 if tpl else None)
+                         external=external, anticipated_r2=tpl.anticipated_r2 if tpl else None,
+                         added_value=tpl.added_value if tpl else AddedValueSpec())
     except WorkbenchError as exc:
         state.show_error("The study cannot be built yet", exc)
         st.info("The study is not ready to run: correct the point above.")
