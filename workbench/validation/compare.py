@@ -24,7 +24,7 @@ from scipy.stats import chi2
 
 from workbench.errors import SpecError
 from workbench.metrics.reclassification import IDI_CAUTION, NRI_CAUTION
-from workbench.validation.estimators import _estimates
+from workbench.validation.estimators import difference_estimates
 from workbench.validation.results import MetricEstimate, ReplicateMetrics, ValidationResult
 
 __all__ = [
@@ -66,6 +66,8 @@ class Difference:
         Paired replicates used.
     better : {"higher", "lower"}
         Which direction favours the model.
+    estimator, interval, note : str
+        As in :class:`~workbench.validation.results.MetricEstimate`.
     """
 
     metric: str
@@ -77,6 +79,9 @@ class Difference:
     ci_upper: float
     n_used: int
     better: str
+    estimator: str = ""
+    interval: str = ""
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -248,10 +253,11 @@ def compare_models(result: ValidationResult, model: str, baseline: str) -> Compa
             raise SpecError(f"model {nm!r} is not in this validation result; it holds {list(result.models)}.")
     paired = _paired(result.replicates[model], result.replicates[baseline])
     a_diff = result.apparent[model].vector() - result.apparent[baseline].vector()
-    est = _estimates(result.method, a_diff, paired, result.conf_level)
+    est = difference_estimates(result, model, baseline, paired, a_diff)
     differences = {
         nm: Difference(nm, e.apparent, e.optimism, e.estimate, e.sd, e.ci_lower, e.ci_upper, e.n_used,
-                       "lower" if nm.split("@")[0] in LOWER_IS_BETTER else "higher")
+                       "lower" if nm.split("@")[0] in LOWER_IS_BETTER else "higher",
+                       e.estimator, e.interval, e.note)
         for nm, e in est.items()
     }
 
