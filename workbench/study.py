@@ -31,6 +31,8 @@ Cox on clinical plus every imaging feature, random survival forest."""
 
 VALIDATION_METHODS = ("bootstrap", "cv", "by_centre", "none")
 BACKENDS = ("processes", "threads", "serial", "dask")
+ESTIMATORS = ("auto", "optimism", "632plus", "oob")
+INTERVALS = ("two-stage", "shifted-percentile")
 
 
 @dataclass(frozen=True)
@@ -139,6 +141,10 @@ class ValidationSpec:
     workers: int = 1
     backend: str = "processes"
     scheduler: str | None = None
+    estimator: str = "auto"
+    interval: str = "two-stage"
+    outer_replicates: int = 100
+    inner_replicates: int = 10
 
 
 @dataclass(frozen=True)
@@ -210,6 +216,11 @@ def check_spec(spec: StudySpec) -> None:
     v = spec.validation
     _choice("[validation] method", v.method, VALIDATION_METHODS)
     _choice("[validation] backend", v.backend, BACKENDS)
+    _choice("[validation] estimator", v.estimator, ESTIMATORS)
+    _choice("[validation] interval", v.interval, INTERVALS)
+    for name in ("outer_replicates", "inner_replicates"):
+        if getattr(v, name) < 1:
+            raise SpecError(f"[validation] {name} must be at least 1; got {getattr(v, name)}.")
     if v.method == "by_centre" and not d.centre:
         raise SpecError("[validation] method 'by_centre' needs a centre column in [data] (centre = '...').")
     if v.backend == "dask" and not v.scheduler:

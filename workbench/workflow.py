@@ -166,6 +166,10 @@ def run_study(
             progress=_progress(progress, cancel, "internal validation"),
             model_replicates=model_reps,
             apparent_models=fitted,
+            estimator=v.estimator,
+            interval=v.interval,
+            outer_replicates=v.outer_replicates,
+            inner_replicates=v.inner_replicates,
         )
 
         external = ext_prepared = None

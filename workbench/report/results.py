@@ -150,6 +150,8 @@ def results_dict(result) -> dict:
             "warning_counts": jsonable(v.warning_counts),
             "notes": list(v.notes),
             "conf_level": v.conf_level,
+            "estimator": jsonable(getattr(v, "estimator", {})),
+            "interval": getattr(v, "interval", ""),
         },
         "models": {name: _model_block(result, name) for name in result.models},
         "baseline": result.spec.models.baseline,

@@ -100,6 +100,8 @@ def test_no_invented_numbers(text, result):
              result.summary.n_clinical_parameters, result.summary.sample_size.n_required,
              result.summary.sample_size.events_required, result.summary.sample_size.n_available,
              result.spec.imaging.penalty.folds, result.validation.n_replicates["combined"], 1996, 2019, 2007, 1993,
+             1981, 1983, 1997, 2021, result.spec.validation.outer_replicates,
+             result.spec.validation.inner_replicates,
              2020, *[int(h) for h in result.spec.horizons],
              *[s.n_in for s in result.models["combined"].signature_.steps_],
              *[s.n_out for s in result.models["combined"].signature_.steps_],
