@@ -206,6 +206,9 @@ def _nb_validated(result: ValidationResult, name: str) -> np.ndarray:
     app = result.apparent[name].net_benefit
     rm = result.replicates[name]
     ok = rm.ok
+    if (result.method == "bootstrap" and ok.any() and rm.nb_oob is not None
+            and getattr(result, "estimator", {}).get(name, "optimism") != "optimism"):
+        return np.nanmean(rm.nb_oob[ok], axis=0)  # out-of-bootstrap net benefit (oob / .632+ runs)
     if result.method == "bootstrap" and ok.any():
         return app - np.nanmean(rm.nb_train[ok] - rm.nb_test[ok], axis=0)
     if result.method == "cv" and ok.any():
