@@ -69,9 +69,14 @@ def main() -> None:
         for e in ests:
             err[e].append(vals[e] - truth)
             est_vals[e].append(vals[e])
-        if (i + 1) % 5 == 0:
-            print(f"  {i + 1} cohorts done", flush=True)
-    r = args.cohorts
+        if (i + 1) % 5 == 0 and i + 1 < args.cohorts:
+            print(f"\n--- interim, {i + 1} cohorts ---")
+            _report(i + 1, args, truths, apparents, err, est_vals, ests)
+    _report(args.cohorts, args, truths, apparents, err, est_vals, ests)
+    print(f"\nwall time {time.perf_counter() - t:.0f} s")
+
+
+def _report(r, args, truths, apparents, err, est_vals, ests) -> None:
     print(f"\nScale: {r} cohorts of n = {args.n}, forest {args.trees} trees, min leaf {args.min_leaf}; "
           f"{args.replicates} bootstrap replicates; truth: Harrell C of the fitted forest on n = {TRUTH_N:,} "
           "fresh patients (conditional estimand).")
@@ -81,8 +86,7 @@ def main() -> None:
         a = np.array(err[e])
         se = a.std(ddof=1) / np.sqrt(r)
         print(f"{e:<12}{np.mean(est_vals[e]):>10.4f}{a.mean():>+10.4f}{se:>9.4f}{a.std(ddof=1):>9.4f}"
-              f"{'yes' if abs(a.mean()) <= 0.01 else 'NO':>14}")
-    print(f"\nwall time {time.perf_counter() - t:.0f} s")
+              f"{'yes' if abs(a.mean()) <= 0.01 else 'NO':>14}", flush=True)
 
 
 if __name__ == "__main__":

@@ -81,13 +81,14 @@ def run(args) -> dict:
             t_method[method] += time.perf_counter() - t0
             rows[method].append((e.estimate, e.ci_lower, e.ci_upper, truth["combined"],
                                  d.estimate, d.ci_lower, d.ci_upper, truth["combined"] - truth["clinical"]))
-        if (i + 1) % 20 == 0:
-            print(f"  {i + 1} cohorts done", flush=True)
+        if (i + 1) % 25 == 0 and i + 1 < args.cohorts:
+            print(f"\n--- interim, {i + 1} cohorts ---")
+            report({m: np.array(r) for m, r in rows.items()}, t_method, args, i + 1)
     return {m: np.array(r) for m, r in rows.items()}, t_method
 
 
-def report(rows: dict, t_method: dict, args) -> None:
-    print(f"\nScale: {args.cohorts} cohorts of n = {args.n} (about 50% events); truth from n = {TRUTH_N:,}; "
+def report(rows: dict, t_method: dict, args, done: int | None = None) -> None:
+    print(f"\nScale: {done or args.cohorts} cohorts of n = {args.n} (about 50% events); truth from n = {TRUTH_N:,}; "
           f"bootstrap {args.replicates} replicates, cv {args.folds}-fold x {args.repeats}; two-stage interval "
           f"{args.outer} outer x {args.inner} inner (cv: one {args.folds}-fold split per outer sample).")
     print("Nominal 0.95, target 0.92-0.98. MC SE = sqrt(p(1-p)/R); 'missing' = interval not computable.\n")
@@ -101,7 +102,7 @@ def report(rows: dict, t_method: dict, args) -> None:
                 cov = float(np.mean((lo[ok] <= truth[ok]) & (truth[ok] <= hi[ok]))) if ok.any() else np.nan
                 print(f"{method:<10}{label:<22}{estimand:<13}{cov:>9.3f}{mc_se_prop(cov, ok.sum()):>8.3f}"
                       f"{int((~ok).sum()):>9d}{np.mean(hi[ok] - lo[ok]):>8.3f}{np.mean(est - truth):>+9.4f}"
-                      f"{t_method[method] / len(a):>10.2f}")
+                      f"{t_method[method] / len(a):>10.2f}", flush=True)
     print("\nbias = mean(estimate - truth); its MC SE is about SD/sqrt(R).")
 
 
