@@ -113,6 +113,23 @@ def _steps_text(steps: list[dict]) -> str:
     return "; ".join(f"{names.get(s['step'], s['step'])} {s['n_in']} -> {s['n_out']}" for s in steps)
 
 
+def estimate_label(d: dict) -> str:
+    """What the validated numbers of a run are, in a few words (for table captions)."""
+    v = d["validation"]
+    if v["method"] == "cv":
+        return "Cross-validated estimate"
+    if v["method"] == "by_centre":
+        return "Leave-one-centre-out estimate"
+    ests = set((v.get("estimator") or {}).values()) or {"optimism"}
+    if ests == {"optimism"}:
+        return "Optimism-corrected estimate (Harrell's bootstrap)"
+    if ests == {"632plus"}:
+        return ".632+ bootstrap estimate (calibration and NRI/IDI: out-of-bootstrap)"
+    if ests == {"oob"}:
+        return "Out-of-bootstrap estimate"
+    return "Bootstrap estimate (" + ", ".join(sorted(ests)) + ")"
+
+
 def _interval_text(v: dict) -> str:
     level = f"{100 * v['conf_level']:.0f}%"
     s = v.get("settings", {})

@@ -239,7 +239,10 @@ def format_results(result) -> str:
     v = result.validation
     u = result.spec.data.time_unit
     horizons = [f"{h:g}" for h in result.spec.horizons]
-    method = {"bootstrap": "optimism-corrected (bootstrap)", "cv": "cross-validated",
+    ests = set(getattr(v, "estimator", {}).values()) or {"optimism"}
+    boot = {frozenset({"optimism"}): "optimism-corrected (bootstrap)", frozenset({"632plus"}): ".632+ (bootstrap)",
+            frozenset({"oob"}): "out-of-bootstrap"}.get(frozenset(ests), "bootstrap")
+    method = {"bootstrap": boot, "cv": "cross-validated",
               "by_centre": "leave-one-centre-out"}.get(v.method, v.method)
     lines = [
         f"Study: {result.spec.name}",

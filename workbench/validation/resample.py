@@ -18,35 +18,40 @@ identical to the last bit for a seed whatever the backend and number of workers.
 Replicate ``b`` does not depend on the total number of replicates, so 50
 replicates are the first 50 of 200.
 
-Bootstrap estimates and intervals
----------------------------------
-For a metric with apparent value A (fit and evaluate on all rows), replicate b
-gives B_b (fit and evaluate on the bootstrap sample) and O_b (the same fit
-evaluated on the original rows). optimism = mean_b(B_b - O_b) and the corrected
-estimate is A - optimism (Harrell, Lee & Mark 1996). The 95% interval is the
-percentile interval of B_b moved so that the mean of B maps to the corrected
-estimate, [est + q_2.5(B) - mean(B), est + q_97.5(B) - mean(B)], a location-shifted
-bootstrap interval (Noma et al. 2021, from memory). When the bootstrap-sample
-performance is centred on the apparent value (mean(B) = A, as for Cox models)
-this is the percentile interval of B shifted by the optimism. For flexible
-models it is not: a forest fitted to a bootstrap sample, with its repeated
-patients, fits that sample better than the original fit fits the original rows
-(mean(B) > A), and shifting by the optimism alone would place the interval
-above the corrected estimate. Why B and not O: B_b is the apparent performance
-of the whole modelling process re-run on a new sample of the same size, so its
-spread is the bootstrap estimate of the sampling variability of A; O_b is
-evaluated on rows about 63% of which the model was trained on, a mixture that
-understates the variability. The interval ignores the variability of the
-optimism itself (small next to that of A), which only a double bootstrap would
-capture. Where B has no spread (the calibration slope of an unpenalised Cox
-model on its own training rows is always 1) the interval is NaN rather than of
-zero width.
+Bootstrap estimators
+--------------------
+Each replicate refits on a bootstrap sample and is evaluated on the sample (B),
+on all original rows (O) and, when an estimator needs it, on the rows of the
+patients not drawn (out-of-bootstrap, U; grouped by patient id). ``estimator``
+chooses Harrell's optimism correction (A - mean(B - O)), the out-of-bootstrap
+mean of U, or Efron & Tibshirani's .632+ rule; "auto" uses the optimism
+correction when every model is smooth and .632+ for every model as soon as one
+of them interpolates its training rows (a forest), so comparisons always use one
+estimator for both arms. See :mod:`.estimators_bootstrap`; every MetricEstimate
+names its estimator.
+
+Intervals
+---------
+``interval="two-stage"`` (the study-file default): the same estimator is re-run
+inside outer bootstrap samples of the patients and the interval is the
+bias-corrected percentile interval of those estimates (:mod:`.two_stage`), for
+the bootstrap estimators and for cross-validation alike; it targets the expected
+performance of the modelling process at this sample size.
+``interval="shifted-percentile"`` (this function's default, cheap): the
+percentile interval of B moved so that mean(B) maps to the optimism-corrected
+estimate, [est + q_2.5(B) - mean(B), est + q_97.5(B) - mean(B)]. It ignores the
+variability of the optimism and covered about 0.87 for a nominal 0.95 in
+simulation; it is not defined for the other estimators or for cv (NaN with a
+note). Every interval is clipped to the metric's range and withdrawn (NaN + a
+note) rather than reported with zero width or excluding its own estimate
+(:mod:`.intervals`).
 
 Cross-validation
 ----------------
 Repeated stratified k-fold (folds by patient id, balanced for events): each
 metric is averaged over the folds of a repeat; the estimate is the mean of the
-repeat means and ``sd`` their standard deviation across repeats (no interval).
+repeat means and ``sd`` their standard deviation across repeats; the interval
+comes from the two-stage bootstrap when asked for.
 
 Leave-one-centre-out
 --------------------
