@@ -62,7 +62,10 @@ def test_bias_corrected_interval_is_percentile_when_centred():
 
 def test_estimators_are_labelled_and_auto_uses_one_for_all(small):
     models = {"a": ColumnsCox(("age", "tsize")), "b": Interpolating(("age", "tsize", "pnodes"))}
-    res = validate(models, small, H, replicates=6, random_state=3, backend="serial", calibration=False)
+    auto = validate(models, small, H, replicates=2, random_state=3, backend="serial", calibration=False)
+    assert auto.estimator == {"a": "oob", "b": "oob"}
+    res = validate(models, small, H, replicates=6, random_state=3, backend="serial", calibration=False,
+                   estimator="632plus")
     assert res.estimator == {"a": "632plus", "b": "632plus"}
     e = res.estimates["a"]
     assert e["harrell_c"].estimator == "632plus" and e["oe_ratio@730"].estimator == "oob"
