@@ -64,6 +64,6 @@ def test_two_stage_intervals_hold_their_estimates_and_cover_on_a_small_run():
         e = res.estimates["combined"]["harrell_c"]
         truth = true_c(SmallCox(("x1", "x2", "x3")).fit(cohort), fresh_lin)
         hits += e.ci_lower <= truth <= e.ci_upper
-    # at nominal 0.95, 6 or fewer hits out of 8 has probability 0.057; the benchmark
-    # measures the actual coverage with its Monte Carlo SE
-    assert hits >= 7
+    # at nominal 0.95, 5 or fewer hits out of 8 has probability 0.006 (a 1%-level check of
+    # gross under-coverage); the benchmark measures the actual coverage with its MC SE
+    assert hits >= 6
