@@ -180,7 +180,7 @@ def _paired(a: ReplicateMetrics, b: ReplicateMetrics) -> ReplicateMetrics:
 
 def _negated(e: MetricEstimate) -> MetricEstimate:
     return MetricEstimate(e.name, -e.apparent, -e.optimism, -e.estimate, e.sd, -e.ci_upper,
-                          -e.ci_lower, e.n_used)
+                          -e.ci_lower, e.n_used, e.estimator, e.interval, e.note)
 
 
 def _lr_test(result: ValidationResult, model: str, baseline: str) -> LikelihoodRatioTest:
@@ -266,7 +266,8 @@ def compare_models(result: ValidationResult, model: str, baseline: str) -> Compa
 
     h = result.horizons
     if model == baseline:
-        zero = {nm: MetricEstimate(nm, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, paired.ok.size)
+        zero = {nm: MetricEstimate(nm, 0.0, 0.0, 0.0, 0.0, np.nan, np.nan, paired.ok.size,
+                                   note="interval not computable: a model compared with itself")
                 for nm in result.pair_metric_names}
         pair = zero
     elif (model, baseline) in result.pair_estimates:
