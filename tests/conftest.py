@@ -181,6 +181,9 @@ fit = ["clinical", "combined"]
 method = "bootstrap"
 replicates = 3
 backend = "serial"
+# the two-stage interval at the smallest size that still gives one (10 outer samples)
+outer_replicates = 10
+inner_replicates = 1
 
 [added_value]
 permutations = 9

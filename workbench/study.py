@@ -32,6 +32,8 @@ Cox on clinical plus every imaging feature, random survival forest."""
 
 VALIDATION_METHODS = ("bootstrap", "cv", "by_centre", "none")
 BACKENDS = ("processes", "threads", "serial", "dask")
+ESTIMATORS = ("auto", "optimism", "632plus", "oob")
+INTERVALS = ("two-stage", "shifted-percentile")
 
 
 @dataclass(frozen=True)
@@ -175,6 +177,10 @@ class ValidationSpec:
     @property
     def tau(self) -> float | None:
         return None if self.uno_tau is None else float(self.uno_tau)
+    estimator: str = "auto"
+    interval: str = "two-stage"
+    outer_replicates: int = 100
+    inner_replicates: int = 10
 
 
 @dataclass(frozen=True)
@@ -257,6 +263,11 @@ def check_spec(spec: StudySpec) -> None:
     _choice("[validation] pooling", v.pooling, ("dl", "reml"))
     if v.censoring == "km_by_centre" and not d.centre:
         raise SpecError("[validation] censoring 'km_by_centre' needs a centre column in [data] (centre = '...').")
+    _choice("[validation] estimator", v.estimator, ESTIMATORS)
+    _choice("[validation] interval", v.interval, INTERVALS)
+    for name in ("outer_replicates", "inner_replicates"):
+        if getattr(v, name) < 1:
+            raise SpecError(f"[validation] {name} must be at least 1; got {getattr(v, name)}.")
     if v.method == "by_centre" and not d.centre:
         raise SpecError("[validation] method 'by_centre' needs a centre column in [data] (centre = '...').")
     if v.backend == "dask" and not v.scheduler:

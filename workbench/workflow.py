@@ -237,6 +237,10 @@ def run_study(
             model_replicates=model_reps,
             apparent_models=fitted,
             tau=v.tau,
+            estimator=v.estimator,
+            interval=v.interval,
+            outer_replicates=v.outer_replicates,
+            inner_replicates=v.inner_replicates,
         )
 
         added_value = run_added_value(spec, unfitted, cohort, progress=_progress(progress, cancel, "added-value test"))

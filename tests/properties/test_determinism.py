@@ -66,17 +66,24 @@ def setup():
 
 def _run(setup, **kw):
     cohort, models = setup
-    return validate(models, cohort, H, replicates=4, random_state=123, **kw)
+    # the two-stage interval too: its outer and inner samples must be as reproducible
+    return validate(models, cohort, H, replicates=4, random_state=123, interval="two-stage",
+                    outer_replicates=10, inner_replicates=1, **kw)
 
 
 def _assert_identical(a, b):
     for m in a.models:
         ra, rb = a.replicates[m], b.replicates[m]
-        for arr in ("train", "test", "nb_train", "nb_test"):
+        for arr in ("train", "test", "nb_train", "nb_test", "oob"):
+            if getattr(ra, arr) is None:
+                assert getattr(rb, arr) is None, (m, arr)
+                continue
             assert np.array_equal(getattr(ra, arr), getattr(rb, arr), equal_nan=True), (m, arr)
+        assert np.array_equal(a.outer_estimates[m], b.outer_estimates[m], equal_nan=True), m
         for x, y in zip(a.estimates[m].values(), b.estimates[m].values(), strict=True):
-            vx, vy = (np.array(list(vars(e).values())[1:], dtype=float) for e in (x, y))
+            vx, vy = (np.array(list(vars(e).values())[1:8], dtype=float) for e in (x, y))
             assert x.name == y.name and np.array_equal(vx, vy, equal_nan=True), (m, x.name)
+            assert (x.estimator, x.interval, x.note) == (y.estimator, y.interval, y.note)
         if m in a.selection:
             assert a.selection[m].frequency == b.selection[m].frequency
     for key in a.pair_replicates:

@@ -58,8 +58,10 @@ def test_apparent_calibration_slope_of_a_cox_model_is_one(gbsg2):
     # Source: property of the partial-likelihood maximum (refitting a Cox model on its
     # own linear predictor returns coefficient 1; Van Houwelingen, Stat Med 2000).
     # cloglog of Cox-predicted risk at t0 is the linear predictor plus a constant.
+    # The identity holds for the fit on all follow-up (censor_at_horizon=False); the
+    # default, horizon-specific slope is checked in tests/properties/test_horizon_slope.py.
     y, full, _ = gbsg2
-    res = calibration_slope(y, full, T0)
+    res = calibration_slope(y, full, T0, censor_at_horizon=False)
     assert res.slope == pytest.approx(1.0, abs=1e-6)
     assert res.ci_lower < 1.0 < res.ci_upper
     assert 0.05 < res.std_err < 0.15

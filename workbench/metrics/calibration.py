@@ -419,9 +419,10 @@ def calibration_slope(
     t0: float,
     *,
     conf_level: float = 0.95,
-    censor_at_horizon: bool = False,
+    censor_at_horizon: bool = True,
 ) -> CalibrationSlopeResult:
-    """Calibration slope: Cox regression of the outcome on ``log(-log S(t0|x))``.
+    """Horizon-specific calibration slope: Cox regression of the outcome up to ``t0``
+    on ``log(-log S(t0|x))``.
 
     The covariate is the complementary log-log of predicted risk at ``t0``,
     i.e. the predicted log cumulative hazard at ``t0``; for a proportional
@@ -431,10 +432,20 @@ def calibration_slope(
     predictions are too extreme (overfitting), above 1 too modest. The
     interval is a Wald interval from the Cox standard error.
 
+    By default follow-up is censored at ``t0`` (the horizon-truncated fit), so the
+    slope describes the predictions at that horizon: for a Cox model the covariate
+    is the same at every horizon up to a constant, and a slope fitted on all
+    follow-up would be one number for all horizons. For a correctly specified
+    model the truncated slope is 1 in expectation at every horizon; when the
+    effects change over time (non-proportional hazards) it differs between horizons.
+
     Parameters
     ----------
-    y, curves, t0, conf_level, censor_at_horizon
+    y, curves, t0, conf_level
         As in :func:`smoothed_calibration`.
+    censor_at_horizon : bool, default True
+        Censor follow-up at ``t0`` (horizon-specific slope); False fits on all
+        follow-up (for a Cox model's own training rows this is exactly 1).
 
     Returns
     -------
@@ -521,7 +532,7 @@ def calibration_at(
         smoothed=smoothed_calibration(
             y, curves, t0, knots=knots, conf_level=conf_level, censor_at_horizon=censor_at_horizon
         ),
-        slope=calibration_slope(y, curves, t0, conf_level=conf_level, censor_at_horizon=censor_at_horizon),
+        slope=calibration_slope(y, curves, t0, conf_level=conf_level),
         observed_expected=observed_expected(y, curves, t0, conf_level=conf_level),
         model=getattr(curves, "model", ""),
     )

@@ -78,7 +78,16 @@ class PenalisedAllCox(_WideInputs):
         when the cross-validated optimum lands on its end)
     random_state : int
     name : str
+
+    Notes
+    -----
+    A forest nearly interpolates its training rows (its apparent C is close to
+    1), so Harrell's optimism bootstrap does not apply to it;
+    ``apparent_fit_interpolates`` tells the validation engine to use an
+    out-of-bootstrap estimator instead (see :mod:`workbench.validation.estimators_bootstrap`).
     """
+
+    apparent_fit_interpolates = True
 
     def __init__(
         self,

@@ -44,6 +44,7 @@ from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.checklist import FILLED, reporting_checklist
 from workbench.report.methods import (
+    estimate_label,
     limitations,
     methods_paragraph,
     predictor_handling,
@@ -389,6 +390,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "sections": SECTIONS, "summary": s, "spec": spec,
         "methods": methods_paragraph(result, d).split("\n\n"),
         "validation_text": validation_text(result, d),
+        "estimate_label": estimate_label(d),
         "handling": predictor_handling(result),
         "families": sorted(s["feature_families"].items()),
         "imaging_missing": [m for m in s["missing"] if m["table"] == "imaging"],

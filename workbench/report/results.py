@@ -201,6 +201,8 @@ def results_dict(result) -> dict:
             "warning_counts": jsonable(v.warning_counts),
             "notes": list(v.notes),
             "conf_level": v.conf_level,
+            "estimator": jsonable(getattr(v, "estimator", {})),
+            "interval": getattr(v, "interval", ""),
         },
         "models": {name: _model_block(result, name) for name in result.models},
         "baseline": result.spec.models.baseline,
@@ -332,7 +334,10 @@ def format_results(result) -> str:
     labels = model_labels(result.models)
     same = equal_models(result.models)
     horizons = [f"{h:g}" for h in result.spec.horizons]
-    method = {"bootstrap": "optimism-corrected (bootstrap)", "cv": "cross-validated",
+    ests = set(getattr(v, "estimator", {}).values()) or {"optimism"}
+    boot = {frozenset({"optimism"}): "optimism-corrected (bootstrap)", frozenset({"632plus"}): ".632+ (bootstrap)",
+            frozenset({"oob"}): "out-of-bootstrap"}.get(frozenset(ests), "bootstrap")
+    method = {"bootstrap": boot, "cv": "cross-validated",
               "by_centre": "leave-one-centre-out",
               "none": "none (apparent performance only, optimistic)"}.get(v.method, v.method)
     app = v.method == "none"

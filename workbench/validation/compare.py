@@ -26,7 +26,7 @@ from scipy.stats import chi2
 
 from workbench.errors import SpecError
 from workbench.metrics.reclassification import IDI_CAUTION, NRI_CAUTION
-from workbench.validation.estimators import _estimates
+from workbench.validation.estimators import difference_estimates
 from workbench.validation.results import MetricEstimate, ReplicateMetrics, ValidationResult
 
 __all__ = [
@@ -78,6 +78,8 @@ class Difference:
         Paired replicates used.
     better : {"higher", "lower"}
         Which direction favours the model.
+    estimator, interval, note : str
+        As in :class:`~workbench.validation.results.MetricEstimate`.
     """
 
     metric: str
@@ -89,6 +91,9 @@ class Difference:
     ci_upper: float
     n_used: int
     better: str
+    estimator: str = ""
+    interval: str = ""
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -190,7 +195,7 @@ def _paired(a: ReplicateMetrics, b: ReplicateMetrics) -> ReplicateMetrics:
 
 def _negated(e: MetricEstimate) -> MetricEstimate:
     return MetricEstimate(e.name, -e.apparent, -e.optimism, -e.estimate, e.sd, -e.ci_upper,
-                          -e.ci_lower, e.n_used)
+                          -e.ci_lower, e.n_used, e.estimator, e.interval, e.note)
 
 
 def _lr_test(result: ValidationResult, model: str, baseline: str) -> LikelihoodRatioTest:
@@ -224,6 +229,9 @@ def _nb_validated(result: ValidationResult, name: str) -> np.ndarray:
     app = result.apparent[name].net_benefit
     rm = result.replicates[name]
     ok = rm.ok
+    if (result.method == "bootstrap" and ok.any() and rm.nb_oob is not None
+            and getattr(result, "estimator", {}).get(name, "optimism") != "optimism"):
+        return np.nanmean(rm.nb_oob[ok], axis=0)  # out-of-bootstrap net benefit (oob / .632+ runs)
     if result.method == "bootstrap" and ok.any():
         return app - np.nanmean(rm.nb_train[ok] - rm.nb_test[ok], axis=0)
     if result.method == "cv" and ok.any():
@@ -271,16 +279,18 @@ def compare_models(result: ValidationResult, model: str, baseline: str) -> Compa
             raise SpecError(f"model {nm!r} is not in this validation result; it holds {list(result.models)}.")
     paired = _paired(result.replicates[model], result.replicates[baseline])
     a_diff = result.apparent[model].vector() - result.apparent[baseline].vector()
-    est = _estimates(result.method, a_diff, paired, result.conf_level)
+    est = difference_estimates(result, model, baseline, paired, a_diff)
     differences = {
         nm: Difference(nm, e.apparent, e.optimism, e.estimate, e.sd, e.ci_lower, e.ci_upper, e.n_used,
-                       "lower" if nm.split("@")[0] in LOWER_IS_BETTER else "higher")
+                       "lower" if nm.split("@")[0] in LOWER_IS_BETTER else "higher",
+                       e.estimator, e.interval, e.note)
         for nm, e in est.items()
     }
 
     h = result.horizons
     if model == baseline:
-        zero = {nm: MetricEstimate(nm, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, paired.ok.size)
+        zero = {nm: MetricEstimate(nm, 0.0, 0.0, 0.0, 0.0, np.nan, np.nan, paired.ok.size,
+                                   note="interval not computable: a model compared with itself")
                 for nm in result.pair_metric_names}
         pair = zero
     elif (model, baseline) in result.pair_estimates:

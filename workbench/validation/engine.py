@@ -68,6 +68,8 @@ class _Task:
     eval_train: bool
     model_seed: int
     active: tuple[str, ...]
+    oob_idx: np.ndarray | None = None  # bootstrap: rows of patients not drawn (out-of-bootstrap arm)
+    outer: int = -1  # two-stage bootstrap: outer sample this task belongs to (-1: none)
 
 
 def _fit_predict(job: _Job, name: str, seed: int | None, train: Cohort, evals: dict):
@@ -84,6 +86,8 @@ def _run_task(job: _Job, task: _Task) -> dict:
     evals = {"test": job.cohort if task.test_idx is None else job.cohort.take(task.test_idx)}
     if task.eval_train:
         evals["train"] = train
+    if task.oob_idx is not None:
+        evals["oob"] = job.cohort.take(task.oob_idx)
     out = {"models": {}, "pairs": {}}
     curves = {}
     for name in task.active:
@@ -96,12 +100,20 @@ def _run_task(job: _Job, task: _Task) -> dict:
                 rec["stage"] = "evaluate"
                 for arm, (risk, curv) in preds.items():
                     y_cens = evals[arm].y if job.own_censoring and arm == "test" else train.y
-                    perf = evaluate_predictions(
-                        risk, curv, y_cens, evals[arm].y, job.horizons, ibs_times=job.grid,
-                        on_error="nan", model=name, **job.kw)
+                    try:
+                        perf = evaluate_predictions(
+                            risk, curv, y_cens, evals[arm].y, job.horizons, ibs_times=job.grid,
+                            on_error="nan", model=name, **job.kw)
+                    except Exception:
+                        # the out-of-bootstrap rows are a small random set: too few of them to
+                        # evaluate leaves that arm NaN (counted as dropped), not the replicate failed
+                        if arm != "oob":
+                            raise
+                        rec[arm] = None
+                        continue
                     rec[arm] = (perf.vector(), perf.net_benefit, perf.dropped)
                 rec["ok"] = True
-                curves[name] = {arm: p[1] for arm, p in preds.items()}
+                curves[name] = {arm: p[1] for arm, p in preds.items() if rec[arm] is not None}
             except Exception as exc:  # noqa: BLE001 - every failure is counted and reported
                 rec["message"] = f"{type(exc).__name__}: {exc}"
         rec["warnings"] = Counter(w.category.__name__ for w in caught)
@@ -110,11 +122,21 @@ def _run_task(job: _Job, task: _Task) -> dict:
     for i, base in enumerate(names):
         for new in names[i + 1:]:
             out["pairs"][(new, base)] = {
-                arm: evaluate_pair(curves[new][arm], curves[base][arm], evals[arm].y, job.horizons).vector()
-                for arm in evals
+                arm: _pair_or_nan(curves[new], curves[base], evals, arm, job.horizons) for arm in evals
             }
     out["events"] = {arm: int(c.n_events) for arm, c in evals.items()}
     return out
+
+
+def _pair_or_nan(new: dict, base: dict, evals: dict, arm: str, horizons) -> np.ndarray | None:
+    if arm not in new or arm not in base:
+        return None
+    try:
+        return evaluate_pair(new[arm], base[arm], evals[arm].y, horizons).vector()
+    except Exception:
+        if arm != "oob":
+            raise
+        return None
 
 
 def _run_chunk(payload) -> list:
@@ -132,7 +154,7 @@ def _chunks(tasks: list, workers: int, backend: str) -> list[list]:
     return [tasks[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]
 
 
-def _apparent(cohort: Cohort, models: Mapping, horizons, grid, kw, seed_ss, prefitted=None):
+def _apparent(cohort: Cohort, models: Mapping, horizons, grid, kw, seed_ss, prefitted=None, curves=None):
     perf, fits, preds = {}, {}, {}
     times = prediction_times(horizons, grid)
     for name, model in models.items():
@@ -154,6 +176,8 @@ def _apparent(cohort: Cohort, models: Mapping, horizons, grid, kw, seed_ss, pref
             model=name, **kw)
         preds[name] = curv
         fits[name] = _fit_summary(name, fitted)
+    if curves is not None:
+        curves.update(preds)
     pairs = _pairs(preds, cohort.y, horizons)
     return perf, fits, pairs
 

@@ -1,4 +1,9 @@
-"""Turning replicate metrics into estimates and intervals (see :mod:`.resample` for the methods)."""
+"""Turning replicate metrics into estimates and intervals (see :mod:`.resample` for the methods).
+
+The estimator families live in their own modules (:mod:`.estimators_bootstrap`,
+:mod:`.estimators_cv`, :mod:`.two_stage` for intervals); this module dispatches
+to them and collects the replicate records of the engine.
+"""
 
 from __future__ import annotations
 
@@ -7,7 +12,10 @@ from collections import Counter
 import numpy as np
 
 from workbench.errors import ModelError
+from workbench.validation.estimators_bootstrap import bootstrap_estimate
+from workbench.validation.estimators_cv import by_centre_estimate, cv_estimate, external_estimate
 from workbench.validation.evaluate import metric_names, pair_metric_names
+from workbench.validation.intervals import bias_corrected_percentiles, guard
 from workbench.validation.results import (
     MetricEstimate,
     ReplicateFailure,
@@ -15,60 +23,57 @@ from workbench.validation.results import (
     SelectionSummary,
 )
 
+INTERVALS = ("two-stage", "shifted-percentile")
 
-def _percentiles(v: np.ndarray, conf_level: float) -> tuple[float, float]:
-    if v.size < 2:
-        return np.nan, np.nan
-    a = (1.0 - conf_level) / 2.0
-    lo, hi = np.quantile(v, [a, 1.0 - a])
-    return float(lo), float(hi)
-
-
-def _sd(v: np.ndarray) -> float:
-    return float(np.std(v, ddof=1)) if v.size >= 2 else np.nan
+_NO_INTERVAL = {
+    "bootstrap": "no interval: the out-of-bootstrap and .632+ estimates need the two-stage "
+                 "bootstrap for an interval ([validation] interval = 'two-stage')",
+    "cv": "no interval: cross-validation intervals need the two-stage bootstrap "
+          "([validation] interval = 'two-stage')",
+    "by_centre": "",
+}
 
 
-def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_level: float) -> dict:
+def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_level: float,
+               estimator: str = "optimism", gamma: np.ndarray | None = None,
+               outer: np.ndarray | None = None, difference: bool = False) -> dict:
+    """One MetricEstimate per metric of ``rm``.
+
+    ``estimator`` (bootstrap only): "optimism", "oob" or "632plus"; ``gamma``: the
+    no-information values for .632+; ``outer``: estimates of the same estimator in
+    each outer sample of the two-stage bootstrap (rows) for the interval;
+    ``difference``: the values are model-minus-baseline differences (range checks).
+    """
     out = {}
     for j, name in enumerate(rm.names):
         a = float(apparent[j])
-        opt, est, sd, lo, hi, used = np.nan, np.nan, np.nan, np.nan, np.nan, 0
+        opt, est, sd, lo, hi, used, label, note = np.nan, np.nan, np.nan, np.nan, np.nan, 0, method, ""
+        ilabel = ""
         if method == "bootstrap":
-            b, o = rm.train[rm.ok, j], rm.test[rm.ok, j]
-            keep = np.isfinite(b) & np.isfinite(o)
-            b, o, used = b[keep], o[keep], int(keep.sum())
-            if used:
-                opt = float(np.mean(b - o))
-                est, sd = a - opt, _sd(b)
-                tiny = 1e-9 * max(1.0, abs(a))
-                if sd > tiny:
-                    # percentile interval of B, moved so that it is centred where B's mean
-                    # maps to the corrected estimate (see the module notes)
-                    lo, hi = (x - float(np.mean(b)) + est for x in _percentiles(b, conf_level))
-                elif not _sd(o) > tiny:
-                    lo = hi = est  # nothing varies at all (e.g. a model compared with itself)
-                # else B has no spread but O does (an unpenalised Cox model's slope on its own
-                # training rows is always 1): a zero-width interval would mislead, leave NaN.
+            est, opt, sd, (lo, hi), used, label = bootstrap_estimate(
+                estimator, name, a, rm.train[:, j][rm.ok] if rm.train is not None else None,
+                rm.test[:, j][rm.ok] if rm.test is not None else None,
+                rm.oob[:, j][rm.ok] if rm.oob is not None else None,
+                np.nan if gamma is None else float(gamma[j]), conf_level)
+            ilabel = "shifted-percentile" if np.isfinite(lo) else ""
         elif method == "external":
-            b = rm.train[rm.ok, j]
-            b = b[np.isfinite(b)]
-            used, est, sd = b.size, a, _sd(b)
-            lo, hi = _percentiles(b, conf_level)
+            est, sd, (lo, hi), used = external_estimate(a, rm.train[rm.ok, j], conf_level)
+            ilabel = "percentile"
         elif method == "cv":
-            v, rep = rm.test[:, j], rm.replicate
-            keep = rm.ok & np.isfinite(v)
-            used = int(keep.sum())
-            means = np.array([v[keep & (rep == r)].mean() for r in np.unique(rep[keep])])
-            if means.size:
-                est, sd = float(means.mean()), _sd(means)
-        else:  # by_centre: event-weighted over held-out centres
-            v, w = rm.test[:, j], rm.events.astype(float)
-            keep = rm.ok & np.isfinite(v) & (w > 0)
-            used = int(keep.sum())
-            if used:
-                est = float(np.average(v[keep], weights=w[keep]))
-                sd = float(np.sqrt(np.average((v[keep] - est) ** 2, weights=w[keep]))) if used > 1 else np.nan
-        out[name] = MetricEstimate(name, a, opt, float(est), float(sd), float(lo), float(hi), int(used))
+            est, sd, used = cv_estimate(rm.test[:, j], rm.replicate, rm.ok)
+        else:
+            est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
+        if outer is not None and outer.shape[0]:
+            lo, hi = bias_corrected_percentiles(outer[:, j], est, conf_level)
+            ilabel = "two-stage"
+            if not np.isfinite(lo):
+                note = "interval not computable: too few usable outer bootstrap samples"
+        elif not np.isfinite(lo) and np.isfinite(est):
+            note = _NO_INTERVAL.get(method, "")
+        lo, hi, why = guard(name, est, lo, hi, difference)
+        note = why or note
+        out[name] = MetricEstimate(name, a, opt, float(est), float(sd), float(lo), float(hi), int(used),
+                                   estimator=label, interval=ilabel if np.isfinite(lo) else "", note=note)
     return out
 
 
@@ -80,11 +85,12 @@ def _model_metrics(name, tasks, outputs, arms, names, k, m, with_fold) -> Replic
     for i, (_, rec, _) in enumerate(rows):
         if rec["ok"]:
             for a in arms:
-                vals[a][i], nbs[a][i] = rec[a][0], rec[a][1]
+                if rec.get(a) is not None:
+                    vals[a][i], nbs[a][i] = rec[a][0], rec[a][1]
     ev_arm = "test" if "test" in arms else "train"
     return ReplicateMetrics(
         names=names, train=vals.get("train"), test=vals.get("test"),
-        nb_train=nbs.get("train"), nb_test=nbs.get("test"),
+        nb_train=nbs.get("train"), nb_test=nbs.get("test"), oob=vals.get("oob"), nb_oob=nbs.get("oob"),
         replicate=np.array([t.index for t, _, _ in rows], dtype=int),
         fold=np.array([t.fold for t, _, _ in rows], dtype=int) if with_fold else None,
         ok=np.array([rec["ok"] for _, rec, _ in rows], dtype=bool),
@@ -96,10 +102,13 @@ def _pair_metrics(key, tasks, outputs, arms, names, with_fold) -> ReplicateMetri
     # A pair row exists only where both models were fitted and evaluated.
     rows = [(t, o["pairs"][key], o["events"]) for t, o in zip(tasks, outputs, strict=True)
             if key in o["pairs"]]
-    vals = {a: np.array([p[a] for _, p, _ in rows]).reshape(len(rows), len(names)) for a in arms}
+    nan = np.full(len(names), np.nan)
+    vals = {a: np.array([nan if p.get(a) is None else p[a] for _, p, _ in rows]).reshape(len(rows), len(names))
+            for a in arms}
     ev_arm = "test" if "test" in arms else "train"
     return ReplicateMetrics(
         names=names, train=vals.get("train"), test=vals.get("test"), nb_train=None, nb_test=None,
+        oob=vals.get("oob"),
         replicate=np.array([t.index for t, _, _ in rows], dtype=int),
         fold=np.array([t.fold for t, _, _ in rows], dtype=int) if with_fold else None,
         ok=np.ones(len(rows), dtype=bool),
@@ -108,7 +117,7 @@ def _pair_metrics(key, tasks, outputs, arms, names, with_fold) -> ReplicateMetri
 
 
 def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, horizons,
-               arms, conf_level, max_failure_rate, unit):
+               arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None):
     names = metric_names(horizons)
     pnames = pair_metric_names(horizons)
     first = next(iter(apparent.values()))
@@ -119,14 +128,17 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
     for name in models:
         rm = _model_metrics(name, tasks, outputs, arms, names, k, m, with_fold)
         replicates[name] = rm
-        estimates[name] = _estimates(method, apparent[name].vector(), rm, conf_level)
+        est_name = (estimator or {}).get(name, "optimism")
+        estimates[name] = _estimates(method, apparent[name].vector(), rm, conf_level, est_name,
+                                     (gammas or {}).get(name), (outer or {}).get(name))
         recs = [(t, o["models"][name]) for t, o in zip(tasks, outputs, strict=True) if name in o["models"]]
         for t, rec in recs:
             if not rec["ok"]:
                 log.append(ReplicateFailure(name, t.index, t.fold, rec["stage"], rec["message"]))
         failures[name] = int((~rm.ok).sum())
         nan_counts = Counter()
-        for a in arms:
+        used_arms = ("oob",) if method == "bootstrap" and est_name != "optimism" else arms
+        for a in (x for x in used_arms if x != "oob" or "oob" in arms):
             block = getattr(rm, a)[rm.ok]
             for j, nm in enumerate(names):
                 nan_counts[nm] += int(np.sum(~np.isfinite(block[:, j])))
@@ -155,8 +167,47 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
     for key, pp in apparent_pairs.items():
         rm = _pair_metrics(key, tasks, outputs, arms, pnames, with_fold)
         pair_reps[key] = rm
-        pair_est[key] = _estimates(method, pp.vector(), rm, conf_level)
+        ests = {(estimator or {}).get(nm, "optimism") for nm in key}
+        pair_est[key] = _estimates(method, pp.vector(), rm, conf_level,
+                                   "optimism" if ests == {"optimism"} else "oob", difference=True)
     return dict(metric_names=names, pair_metric_names=pnames, replicates=replicates,
                 estimates=estimates, failures=failures, failure_log=tuple(log),
                 dropped_metrics=dropped, selection=selection, warning_counts=warn,
                 pair_replicates=pair_reps, pair_estimates=pair_est)
+
+
+def difference_estimates(result, model: str, baseline: str, paired: ReplicateMetrics,
+                         a_diff: np.ndarray) -> dict:
+    """Validated model-minus-baseline differences, one estimator for both arms.
+
+    Optimism, cv and by_centre: the estimator applied to the paired per-replicate
+    differences (for the optimism correction this equals the difference of the two
+    corrected estimates). Out-of-bootstrap and .632+: the difference of the two
+    models' estimates (the .632+ weights are not linear in the values). Two-stage
+    intervals: the bias-corrected percentile interval of the paired differences of
+    the outer-sample estimates.
+    """
+    ests = {result.estimator.get(m, "optimism") for m in (model, baseline)}
+    if len(ests) > 1:
+        raise ModelError(f"models {model!r} and {baseline!r} were validated with different estimators "
+                         f"({sorted(ests)}); a comparison needs one estimator for both.")
+    est_name = ests.pop()
+    om, ob = result.outer_estimates.get(model), result.outer_estimates.get(baseline)
+    outer = None if om is None or ob is None else om - ob
+    if result.method != "bootstrap" or est_name == "optimism":
+        return _estimates(result.method, a_diff, paired, result.conf_level, est_name,
+                          outer=outer, difference=True)
+    out = {}
+    for j, nm in enumerate(paired.names):
+        em, eb = result.estimates[model][nm], result.estimates[baseline][nm]
+        est = em.estimate - eb.estimate
+        lo, hi, note = np.nan, np.nan, _NO_INTERVAL["bootstrap"]
+        if outer is not None:
+            lo, hi = bias_corrected_percentiles(outer[:, j], est, result.conf_level)
+            note = "" if np.isfinite(lo) else "interval not computable: too few usable outer bootstrap samples"
+        lo, hi, why = guard(nm, est, lo, hi, difference=True)
+        label = em.estimator if em.estimator == eb.estimator else f"{em.estimator}/{eb.estimator}"
+        out[nm] = MetricEstimate(nm, float(a_diff[j]), float(a_diff[j]) - est, est, np.nan, lo, hi,
+                                 min(em.n_used, eb.n_used), estimator=label,
+                                 interval="two-stage" if np.isfinite(lo) else "", note=why or note)
+    return out

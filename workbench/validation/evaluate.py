@@ -295,12 +295,13 @@ def _breslow_h0(lp: np.ndarray, time: np.ndarray, event: np.ndarray, t0: float) 
 
 
 def _calibration_at(time, event, risk, t0, knots: int = 3) -> tuple[float, float, float, float]:
-    """ICI, E50, E90 and calibration slope at ``t0``.
+    """ICI, E50, E90 and horizon-specific calibration slope at ``t0``.
 
     The estimator of :func:`workbench.metrics.calibration.smoothed_calibration`
     (Cox model on a restricted cubic spline of log(-log(1 - risk)), Breslow
-    baseline at t0, all follow-up) and of ``calibration_slope``; the Cox fits
-    use :func:`workbench.stats.coxph.fit_coxph` (Efron ties) for speed.
+    baseline at t0, all follow-up) and of ``calibration_slope`` (follow-up
+    censored at t0, so the slope is specific to the horizon); the Cox fits use
+    :func:`workbench.stats.coxph.fit_coxph` (Efron ties) for speed.
     """
     x = _cloglog(risk)
     kp = _rcs_knots(x, knots)
@@ -311,7 +312,8 @@ def _calibration_at(time, event, risk, t0, knots: int = 3) -> tuple[float, float
     lp = linear_predictor(fit, B)
     observed = -np.expm1(-_breslow_h0(lp, time, event, t0) * np.exp(lp))
     diff = np.abs(observed - risk)
-    slope = fit_coxph(x[:, None], time, event, min_events_per_parameter=0).coef[0]
+    slope = fit_coxph(x[:, None], np.minimum(time, t0), event & (time <= t0),
+                      min_events_per_parameter=0).coef[0]
     return float(diff.mean()), float(np.median(diff)), float(np.quantile(diff, 0.9)), float(slope)
 
 

@@ -45,6 +45,15 @@ def _bootstrap_plan(n: int, replicates: int, rep_root) -> list[tuple[np.ndarray,
     return plan
 
 
+def _oob_rows(ids: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """Rows whose PATIENT was not drawn into the bootstrap sample ``idx``.
+
+    Grouped by patient id: a patient with several rows (or a patient repeated in
+    an outer bootstrap sample) is out of bootstrap only if none of its rows was drawn.
+    """
+    return np.flatnonzero(~np.isin(ids, np.unique(ids[idx])))
+
+
 def _cv_plan(cohort: Cohort, folds: int, repeats: int, rep_root) -> list[tuple[int, int, np.ndarray, np.ndarray, int]]:
     n_patients = np.unique(cohort.ids).size
     if n_patients < folds:

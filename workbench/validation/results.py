@@ -52,6 +52,9 @@ class ReplicateMetrics:
         False where the model could not be fitted or evaluated (row all NaN).
     events : ndarray of int
         Events among the evaluation rows of ``test`` (``train`` for external).
+    oob, nb_oob : ndarray or None
+        Bootstrap only: on the out-of-bootstrap rows (patients not drawn into the
+        sample, grouped by patient id); NaN where those rows could not be evaluated.
     """
 
     names: tuple[str, ...]
@@ -63,6 +66,8 @@ class ReplicateMetrics:
     fold: np.ndarray | None
     ok: np.ndarray
     events: np.ndarray
+    oob: np.ndarray | None = None
+    nb_oob: np.ndarray | None = None
 
     def column(self, name: str, arm: str = "test") -> np.ndarray:
         """Values of one metric across rows of one arm (``"train"`` or ``"test"``)."""
@@ -91,6 +96,16 @@ class MetricEstimate:
         has no spread); external: percentile interval; NaN for cv and by_centre.
     n_used : int
         Replicates (folds, centres) that contributed.
+    estimator : str
+        Which estimator gave ``estimate``: "optimism", "oob", "632plus" (bootstrap),
+        "cv", "by_centre" or "external".
+    interval : str
+        How the interval was formed: "two-stage" (bias-corrected percentile interval
+        of the same estimator over outer bootstrap samples), "shifted-percentile"
+        (the cheap location-shifted interval, optimism only), "percentile"
+        (external), or "" where there is none.
+    note : str
+        Why an interval is missing, if it is.
     """
 
     name: str
@@ -101,6 +116,9 @@ class MetricEstimate:
     ci_lower: float
     ci_upper: float
     n_used: int
+    estimator: str = ""
+    interval: str = ""
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -196,6 +214,14 @@ class ValidationResult:
     groups : dict of str to GroupBlock
         Per-centre / per-scanner performance with random-effects pooling
         (external; by_centre as "centre"); see :mod:`workbench.validation.groups`.
+    estimator : dict of str to str
+        Bootstrap: the estimator used for each model ("optimism", "oob", "632plus");
+        the metric-level label is in each MetricEstimate.
+    interval : str
+        "two-stage" or "shifted-percentile" (see :mod:`.two_stage`).
+    outer_estimates : dict of str to ndarray of shape (n_outer, n_metrics)
+        Two-stage intervals: each model's estimate in each outer bootstrap sample
+        (NaN where the model failed there); model differences use the same samples.
     """
 
     method: str
@@ -226,6 +252,9 @@ class ValidationResult:
     notes: tuple[str, ...] = ()
     censoring: object = None
     groups: dict = field(default_factory=dict)
+    estimator: dict = field(default_factory=dict)
+    interval: str = ""
+    outer_estimates: dict = field(default_factory=dict)
 
     def summary_frame(self) -> pd.DataFrame:
         """One row per model and metric with apparent, optimism, estimate, SD and interval."""

@@ -100,6 +100,8 @@ def test_no_invented_numbers(text, result):
              result.summary.n_clinical_parameters, result.summary.sample_size.n_required,
              result.summary.sample_size.events_required, result.summary.sample_size.n_available,
              result.spec.imaging.penalty.folds, result.validation.n_replicates["combined"], 1996, 2019, 2007, 1993,
+             1981, 1983, 1997, 2021, result.spec.validation.outer_replicates,
+             result.spec.validation.inner_replicates,
              2020, *[int(h) for h in result.spec.horizons],
              *[s.n_in for s in result.models["combined"].signature_.steps_],
              *[s.n_out for s in result.models["combined"].signature_.steps_],
@@ -107,7 +109,7 @@ def test_no_invented_numbers(text, result):
              len(result.models["clinical"].coefficient_rows()), round(100 * result.validation.conf_level),
              *[int(x) for x in re.findall(r"\d+", result.summary.sample_size.r2_cs_source)], 4, 1, 0, 2, 3,
              # added-value test, pre-validation and the imaging sample size (publication years and settings)
-             1983, 1990, 2002, 2010, result.spec.added_value.permutations, result.spec.added_value.folds,
+             1990, 2002, 2010, result.spec.added_value.permutations, result.spec.added_value.folds,
              *([result.summary.sample_size_imaging.n_required, result.summary.sample_size_imaging.n_parameters,
                 result.summary.n_imaging_candidates] if result.summary.sample_size_imaging else [])}
     ints = {int(x) for x in re.findall(r"(?<![\w.])(\d+)(?![\w.])", text)}

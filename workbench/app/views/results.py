@@ -12,7 +12,7 @@ from workbench.app.messages import plain
 from workbench.validation.compare import LR_CAUTION
 
 POLL_SECONDS = 0.5
-METHODS = {"bootstrap": "optimism-corrected bootstrap", "cv": "repeated cross-validation",
+METHODS = {"bootstrap": "bootstrap validation", "cv": "repeated cross-validation",
            "by_centre": "leave-one-centre-out validation", "external": "external validation"}
 
 
@@ -242,8 +242,11 @@ def _show(result, job) -> None:
          "no-information model (higher is better)."),
     ):
         st.subheader(title)
-        st.caption(f"Validated estimate ({pct}% interval): corrected for optimism (bootstrap) or held out "
-                   f"(cross-validation, centres). {note}")
+        ests = sorted(set(getattr(v, "estimator", {}).values()))
+        how = {"optimism": "corrected for optimism", "oob": "out-of-bootstrap", "632plus": ".632+ bootstrap"}
+        how_text = (", ".join(how.get(e, e) for e in ests) + " (bootstrap)") if ests else "held out"
+        st.caption(f"Validated estimate ({pct}% interval): {how_text}; cross-validation and centres: held "
+                   f"out. {note}")
         state.table(tables.wide_metric_table(v, families, time_unit=u))
         with st.expander(f"{title}: apparent values and optimism"):
             state.table(tables.metric_table(v, families, time_unit=u), max_rows=20)

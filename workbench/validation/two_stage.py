@@ -1,0 +1,139 @@
+"""Two-stage bootstrap intervals for validated performance (bootstrap and cross-validation).
+
+Estimand
+--------
+A validated estimate (optimism-corrected, out-of-bootstrap, .632+ or
+cross-validated) is a statistic of the data like any other: the interval here
+describes its sampling variability, i.e. it is a confidence interval for the
+*expected* performance of the modelling process at this sample size
+(Err = E[Err_XY] over training sets). The performance of the one model fitted on
+these data (the conditional Err_XY) varies around Err, and validated estimates
+are known to track Err better than Err_XY (Bates, Hastie & Tibshirani 2024), so
+coverage of Err_XY can fall short of nominal; bench/bench_intervals.py reports both.
+
+Method
+------
+Outer stage: draw ``outer`` bootstrap samples of the patients. Inner stage: in
+each outer sample run the SAME estimator as on the data: refit on the outer
+sample for the apparent value and on ``inner`` bootstrap samples of it (out-of-
+bootstrap rows grouped by patient id, so copies of a patient drawn twice in the
+outer sample are never split between training and evaluation) or on one
+patient-grouped k-fold split of it (cross-validation). The interval is the
+bias-corrected percentile interval (Efron 1981) of the outer estimates around
+the estimate from the data (the "two-stage bootstrap" of Noma et al. 2021,
+from memory; the bias correction accounts for the shift of estimates computed on
+samples whose patients are partly duplicated). Differences between models use
+the same outer samples, paired. The .632+ no-information values of the data are
+reused inside outer samples.
+
+Cost: ``outer * (inner + 1)`` refits per model for the bootstrap estimators and
+``outer * (folds + 1)`` for cross-validation, on top of the estimate itself.
+
+References
+----------
+.. [1] Noma H, Shinozaki T, Iba K, Teramukai S, Maruo K. Confidence intervals of
+       prediction accuracy measures for multivariable prediction models based on
+       the bootstrap-based optimism correction methods. Stat Med 2021;40:5691-701.
+.. [2] Efron B. Nonparametric standard errors and confidence intervals. Can J Stat
+       1981;9:139-58.
+.. [3] Bates S, Hastie T, Tibshirani R. Cross-validation: what does it estimate and
+       how well does it do it? J Am Stat Assoc 2024;119:1434-45.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+from sklearn.model_selection import StratifiedGroupKFold
+
+from workbench.cohort.core import Cohort
+from workbench.validation.engine import _Task
+from workbench.validation.estimators_bootstrap import bootstrap_estimate
+from workbench.validation.plans import _oob_rows, _seed_int
+
+__all__ = ["outer_estimates", "outer_tasks"]
+
+
+def outer_tasks(method: str, cohort: Cohort, outer: int, inner: int, folds: int, seed_ss,
+                counts: dict, estimators: dict) -> list[_Task]:
+    """Tasks of the two-stage bootstrap. ``fold = -1`` is the apparent fit on an outer sample.
+
+    Bootstrap inner tasks evaluate the refit on the outer sample (``test``, needed
+    by the optimism estimator only) and on its out-of-bootstrap rows (``oob``).
+    ``counts`` caps the outer samples per model (model_replicates).
+    """
+    n = cohort.n
+    need_o = any(e == "optimism" for e in estimators.values())
+    tasks = []
+    for s, child in enumerate(seed_ss.spawn(int(outer))):
+        idx_ss, inner_ss, model_ss = child.spawn(3)
+        idx = np.random.default_rng(idx_ss).integers(0, n, n)
+        active = tuple(m for m, r in counts.items() if s < r)
+        seeds = [_seed_int(x) for x in model_ss.spawn(max(inner, folds) + 1)]
+        tasks.append(_Task(s, -1, idx, idx, False, seeds[-1], active, outer=s))
+        if method == "bootstrap":
+            rng = np.random.default_rng(inner_ss)
+            for b in range(int(inner)):
+                pos = rng.integers(0, n, n)
+                oob = idx[_oob_rows(cohort.ids[idx], pos)]
+                tasks.append(_Task(s, b, idx[pos], idx if need_o else oob, need_o, seeds[b], active,
+                                   oob_idx=oob if need_o else None, outer=s))
+        else:
+            splitter = StratifiedGroupKFold(n_splits=int(folds), shuffle=True,
+                                            random_state=_seed_int(inner_ss))
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", UserWarning)
+                for f, (tr, te) in enumerate(splitter.split(np.zeros(n), cohort.event[idx], cohort.ids[idx])):
+                    tasks.append(_Task(s, f, idx[tr], idx[te], False, seeds[f], active, outer=s))
+    return tasks
+
+
+def _arm(rec, arm, k):
+    if not rec.get("ok") or rec.get(arm) is None:
+        return np.full(k, np.nan)
+    return rec[arm][0]
+
+
+def outer_estimates(method: str, tasks: list[_Task], outputs: list, names: tuple, estimators: dict,
+                    gammas: dict, conf_level: float) -> dict:
+    """Each model's estimate in each outer sample: dict model -> (n_outer, n_metrics) array.
+
+    A model that failed its apparent fit or more than half of its inner fits in an
+    outer sample gets a NaN row there (left out of the interval).
+    """
+    k = len(names)
+    n_outer = 1 + max((t.outer for t in tasks), default=-1)
+    models = sorted({m for o in outputs for m in o["models"]})
+    out = {m: np.full((n_outer, k), np.nan) for m in models}
+    by_outer: dict[int, list] = {}
+    for t, o in zip(tasks, outputs, strict=True):
+        by_outer.setdefault(t.outer, []).append((t, o))
+    for s, rows in by_outer.items():
+        for m in models:
+            recs = [(t, o["models"][m]) for t, o in rows if m in o["models"]]
+            app = [rec for t, rec in recs if t.fold == -1]
+            inner = [(t, rec) for t, rec in recs if t.fold != -1]
+            if not app or not app[0]["ok"] or sum(r["ok"] for _, r in inner) * 2 <= len(inner):
+                continue
+            a = app[0]["test"][0]
+            if method == "cv":
+                te = np.array([_arm(r, "test", k) for _, r in inner])
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    out[m][s] = np.nanmean(te, axis=0)
+                continue
+            est = estimators.get(m, "optimism")
+            if est == "optimism":
+                b = np.array([_arm(r, "train", k) for _, r in inner])
+                o = np.array([_arm(r, "test", k) for _, r in inner])
+                u = np.array([_arm(r, "oob", k) for _, r in inner])
+            else:
+                b = o = None
+                u = np.array([_arm(r, "test", k) for _, r in inner])
+            g = gammas.get(m)
+            for j, nm in enumerate(names):
+                out[m][s, j] = bootstrap_estimate(
+                    est, nm, float(a[j]), None if b is None else b[:, j], None if o is None else o[:, j],
+                    u[:, j], np.nan if g is None else float(g[j]), conf_level)[0]
+    return out
