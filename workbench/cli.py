@@ -214,7 +214,8 @@ def _cmd_apply(args) -> int:
                                       ("clinical table", args.clinical)], markers=("external_results.json",))
     bundle = load_bundle(args.bundle)
     try:
-        res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates)
+        res = apply_bundle(bundle, args.features, args.clinical, replicates=args.replicates,
+                           features_sheet=args.features_sheet, clinical_sheet=args.clinical_sheet)
     except WorkbenchError:
         _explain_scale(bundle, args)
         raise
@@ -254,7 +255,9 @@ def _explain_scale(bundle, args) -> None:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            check_bundle_cohort(bundle, read_new_cohort(bundle, args.features, args.clinical).cohort, args.clinical)
+            new = read_new_cohort(bundle, args.features, args.clinical, features_sheet=args.features_sheet,
+                                  clinical_sheet=args.clinical_sheet)
+            check_bundle_cohort(bundle, new.cohort, args.clinical)
         except WorkbenchError:
             return
     args.console.show_all((w.category.__name__, str(w.message)) for w in caught if issubclass(w.category, UnitWarning))
@@ -336,6 +339,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--features", metavar="FILE",
                    help="the new cohort's imaging features table (leave out for a clinical-only bundle)")
     p.add_argument("--clinical", required=True, metavar="FILE", help="the new cohort's clinical table")
+    p.add_argument("--features-sheet", metavar="SHEET", help="Excel: the sheet of the features workbook to read")
+    p.add_argument("--clinical-sheet", metavar="SHEET", help="Excel: the sheet of the clinical workbook to read")
     p.add_argument("--out", default="external", metavar="FOLDER", help="output folder (default: external)")
     p.add_argument("--replicates", type=_count(0), default=None, metavar="N",
                    help="bootstrap resamples for the intervals (default: the study's number, as in run; 0: no intervals)")

@@ -44,15 +44,20 @@ class ExternalResult:
     warnings: tuple
 
 
-def read_new_cohort(bundle: Bundle, features, clinical) -> PreparedCohort:
-    """Read a new cohort with the bundle's column mapping, imaging pool and missing-value rules."""
+def read_new_cohort(bundle: Bundle, features, clinical, *, features_sheet: str | None = None,
+                    clinical_sheet: str | None = None) -> PreparedCohort:
+    """Read a new cohort with the bundle's column mapping, imaging pool and missing-value rules.
+
+    ``features_sheet`` / ``clinical_sheet`` name the sheet of an Excel workbook to read.
+    """
     spec = bundle.spec
     d = spec.data
     if features is None and bundle.manifest["inputs"]["imaging_features"]:
         raise WorkbenchError("the bundle's models need imaging features; give the new cohort's features table "
                              "(--features FILE).")
     cohort = read_cohort(features, clinical, d.column_map(), on_unmatched=d.on_unmatched,
-                         drop_unusable_features=False)
+                         drop_unusable_features=False, features_sheet=features_sheet,
+                         clinical_sheet=clinical_sheet)
     n_read = cohort.n
     expected = list(bundle.manifest["inputs"]["imaging_features"])
     missing = [c for c in expected if c not in cohort.feature_names]
@@ -75,7 +80,8 @@ def _risk_group(values: np.ndarray, cuts) -> np.ndarray:
 
 def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None = None,
                  recalibration=("intercept", "slope"),
-                 random_state=None) -> ExternalResult:
+                 random_state=None, features_sheet: str | None = None,
+                 clinical_sheet: str | None = None) -> ExternalResult:
     """Apply every model of ``bundle`` to a new cohort and validate it there.
 
     Parameters
@@ -90,12 +96,15 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None =
         numbers of ``run`` with the same external tables.
     recalibration : tuple of {"intercept", "slope"}
         Recalibrations of the Cox-type models to report (apparent on the new cohort).
+    features_sheet, clinical_sheet : str, optional
+        Excel: the sheet of each workbook to read (needed when a workbook has several).
     """
     spec = bundle.spec
     horizons = tuple(spec.horizons)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        prepared = read_new_cohort(bundle, features, clinical)
+        prepared = read_new_cohort(bundle, features, clinical, features_sheet=features_sheet,
+                                   clinical_sheet=clinical_sheet)
         cohort = prepared.cohort
         check_bundle_cohort(bundle, cohort, clinical)  # unit / scale plausibility against the training data
         cut = bundle.training.risk_cutpoints

@@ -157,3 +157,28 @@ def test_added_value_test_replaces_the_in_sample_likelihood_ratio_p_value(result
     assert data["comparison"]["combined"]["likelihood_ratio_test"]["p_value"] is None
     assert data["models"]["combined"]["details"]["lr_p_value"] is None
     assert data["models"]["combined"]["details"]["signature_coefficient"] == "prevalidated"
+
+
+def test_apply_reads_the_named_sheet_of_a_workbook(run_folder, study_file, tmp_path, capsys):
+    import pandas as pd
+
+    d = study_file.parent
+    book = tmp_path / "clinical.xlsx"
+    clin = pd.read_csv(d / "clinical.csv", dtype=str)
+    with pd.ExcelWriter(book) as xw:  # the patients on one sheet, a data dictionary on another
+        clin.to_excel(xw, sheet_name="patients", index=False)
+        pd.DataFrame({"column": list(clin.columns)}).to_excel(xw, sheet_name="dictionary", index=False)
+    args = ["apply", str(run_folder / "bundle"), "--features", str(d / "imaging.csv"),
+            "--clinical", str(book), "--replicates", "0"]
+    assert main([*args, "--out", str(tmp_path / "a")]) == 2
+    err = capsys.readouterr().err
+    assert "clinical.xlsx: the workbook has 2 sheets holding data" in err and "apply" in err
+    assert main([*args, "--clinical-sheet", "patients", "--out", str(tmp_path / "b")]) == 0
+    capsys.readouterr()
+    # the same patients as from the CSV
+    from_csv = tmp_path / "c"
+    assert main(["apply", str(run_folder / "bundle"), "--features", str(d / "imaging.csv"),
+                 "--clinical", str(d / "clinical.csv"), "--replicates", "0", "--out", str(from_csv)]) == 0
+    a = pd.read_csv(tmp_path / "b" / "predictions.csv")
+    b = pd.read_csv(from_csv / "predictions.csv")
+    pd.testing.assert_frame_equal(a, b)

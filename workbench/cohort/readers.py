@@ -223,7 +223,7 @@ def _read_excel(p: Path, sheet: str | None) -> pd.DataFrame:
         raise CohortError(
             f"{p}: the workbook has {len(with_data)} sheets holding data: {listed}. Only one sheet is read "
             "per table: name it (study file: features_sheet = '...' or clinical_sheet = '...' under [data] "
-            "or [external]; workbench inspect: --features-sheet / --clinical-sheet), or save that sheet as a "
+            "or [external]; workbench inspect and apply: --features-sheet / --clinical-sheet), or save that sheet as a "
             "file of its own; gather the patients on one sheet if the cohort is spread over several."
         )
     if not with_data:
