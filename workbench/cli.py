@@ -324,7 +324,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("run", help="run a study file end to end and write a results folder")
     p.add_argument("study", metavar="STUDY.toml", help="study file (see docs/study-file.md)")
     p.add_argument("--out", default="results", metavar="FOLDER", help="results folder (default: results)")
-    p.add_argument("--replicates", type=_count(1), metavar="N", help="override the number of resampling replicates")
+    p.add_argument("--replicates", type=_count(1), metavar="N", help="override the number of resampling replicates (also caps the two-stage interval: outer samples at N, inner at N/10)")
     p.add_argument("--permutations", type=_count(0), metavar="K",
                    help="override [added_value] permutations (0 skips the added-value test)")
     p.add_argument("--workers", type=_count(1), metavar="N", help="override the number of parallel workers")

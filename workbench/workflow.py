@@ -174,7 +174,9 @@ def run_study(
         :class:`RunCancelled`.
     replicates, workers : int, optional
         Override the study's validation settings (e.g. a quick look with fewer
-        replicates); the override is recorded in the results.
+        replicates); the override is recorded in the results. ``replicates`` also
+        caps the two-stage interval's outer samples at the same number and its
+        inner replicates at a tenth of it (at least 1).
     permutations : int, optional
         Override ``[added_value] permutations`` (0 skips the test); recorded too.
     """
@@ -184,6 +186,10 @@ def run_study(
     if replicates is not None:
         changes["replicates"] = int(replicates)
         changes["forest_replicates"] = min(v.forest_replicates, int(replicates))
+        # a quick look with few replicates also shortens the two-stage interval, which would
+        # otherwise cost outer x (inner + 1) refits per model at the study's full strength
+        changes["outer_replicates"] = min(v.outer_replicates, int(replicates))
+        changes["inner_replicates"] = min(v.inner_replicates, max(1, int(replicates) // 10))
     if workers is not None:
         changes["workers"] = int(workers)
     if changes:
