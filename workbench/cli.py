@@ -291,6 +291,7 @@ def _cmd_estimate(args) -> int:
         raise WorkbenchError("give the patient's values with --patient FILE or --value FIELD=VALUE (repeatable).")
     d = bundle.spec.data
     ignore = tuple(k for k in (d.id, d.time, d.event, d.centre) if k and k in patient)
+    ignore += tuple(f.strip() for item in args.ignore or () for f in item.split(",") if f.strip())
     est = estimate_patient(bundle.models[args.model], patient, bundle.spec.horizons,
                            training_ranges=ranges_from_bundle(bundle, args.model), ignore=ignore)
     from workbench.plausibility import check_patient_scale
@@ -354,6 +355,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--model", default="combined", help="which model of the bundle (default: combined)")
     p.add_argument("--patient", metavar="FILE", help="one-row CSV or Excel file with the patient's values")
     p.add_argument("--value", action="append", metavar="FIELD=VALUE", help="a value, e.g. --value age=67 (repeatable)")
+    p.add_argument("--ignore", action="append", metavar="FIELD[,FIELD]",
+                   help="fields of the patient file the model does not use, to skip (repeatable)")
     p.set_defaults(func=_cmd_estimate)
 
     p = sub.add_parser("app", help="start the browser front end on this computer")
