@@ -63,7 +63,8 @@ def _pairs(items, option: str) -> dict:
 
 def _add_cohort_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("input tables")
-    g.add_argument("--features", required=True, metavar="FILE", help="imaging features table (CSV, TSV, Parquet or Excel)")
+    g.add_argument("--features", metavar="FILE",
+                   help="imaging features table (CSV, TSV, Parquet or Excel); leave out for a clinical-only look")
     g.add_argument("--clinical", required=True, metavar="FILE", help="clinical table with follow-up time and event")
     g.add_argument("--id", default="patient_id", metavar="COLUMN", help="patient id column in both tables (default patient_id)")
     g.add_argument("--time", required=True, metavar="COLUMN", help="follow-up time column")
@@ -110,7 +111,8 @@ def _cmd_inspect(args) -> int:
     print(format_summary(summary))
     if args.json:
         out = Path(args.json)
-        if out.resolve() in (Path(args.features).resolve(), Path(args.clinical).resolve()):
+        inputs = [Path(p).resolve() for p in (args.features, args.clinical) if p]
+        if out.resolve() in inputs:
             raise WorkbenchError(f"--json {out} is one of the input tables; give a new file name for the summary.")
         out.parent.mkdir(parents=True, exist_ok=True)
         out.write_text(json.dumps(asdict(summary), indent=2, default=str))
