@@ -63,7 +63,8 @@ def _pairs(items, option: str) -> dict:
 
 def _add_cohort_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("input tables")
-    g.add_argument("--features", required=True, metavar="FILE", help="imaging features table (CSV, TSV, Parquet or Excel)")
+    g.add_argument("--features", metavar="FILE",
+                   help="imaging features table (CSV, TSV, Parquet or Excel); leave out for a clinical-only look")
     g.add_argument("--clinical", required=True, metavar="FILE", help="clinical table with follow-up time and event")
     g.add_argument("--id", default="patient_id", metavar="COLUMN", help="patient id column in both tables (default patient_id)")
     g.add_argument("--time", required=True, metavar="COLUMN", help="follow-up time column")
@@ -110,7 +111,8 @@ def _cmd_inspect(args) -> int:
     print(format_summary(summary))
     if args.json:
         out = Path(args.json)
-        if out.resolve() in (Path(args.features).resolve(), Path(args.clinical).resolve()):
+        inputs = [Path(p).resolve() for p in (args.features, args.clinical) if p]
+        if out.resolve() in inputs:
             raise WorkbenchError(f"--json {out} is one of the input tables; give a new file name for the summary.")
         out.parent.mkdir(parents=True, exist_ok=True)
         out.write_text(json.dumps(asdict(summary), indent=2, default=str))
@@ -291,6 +293,7 @@ def _cmd_estimate(args) -> int:
         raise WorkbenchError("give the patient's values with --patient FILE or --value FIELD=VALUE (repeatable).")
     d = bundle.spec.data
     ignore = tuple(k for k in (d.id, d.time, d.event, d.centre) if k and k in patient)
+    ignore += tuple(f.strip() for item in args.ignore or () for f in item.split(",") if f.strip())
     est = estimate_patient(bundle.models[args.model], patient, bundle.spec.horizons,
                            training_ranges=ranges_from_bundle(bundle, args.model), ignore=ignore)
     from workbench.plausibility import check_patient_scale
@@ -354,6 +357,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--model", default="combined", help="which model of the bundle (default: combined)")
     p.add_argument("--patient", metavar="FILE", help="one-row CSV or Excel file with the patient's values")
     p.add_argument("--value", action="append", metavar="FIELD=VALUE", help="a value, e.g. --value age=67 (repeatable)")
+    p.add_argument("--ignore", action="append", metavar="FIELD[,FIELD]",
+                   help="fields of the patient file the model does not use, to skip (repeatable)")
     p.set_defaults(func=_cmd_estimate)
 
     p = sub.add_parser("app", help="start the browser front end on this computer")

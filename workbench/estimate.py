@@ -293,7 +293,8 @@ def _validate(patient, ranges: TrainingRanges, ignore) -> tuple[Cohort, PatientC
         raise CohortError(
             f"the patient's values include field(s) the model does not know: {', '.join(hints)}"
             f"{' and more' if len(unknown) > 5 else ''}. Remove or rename them (clinical fields expected: "
-            f"{', '.join(clinical_cols)}), or list them in ignore=.")
+            f"{', '.join(clinical_cols)}), or skip them (command line: --ignore "
+            f"{','.join(unknown[:5])}; Python: ignore=[...]).")
     flags, imputed = [], []
     values = {c.column: _clinical(c, row.get(c.column), flags, imputed) for c in ranges.clinical}
     batch = None

@@ -202,3 +202,30 @@ def test_patient_with_typed_signature_score(new_app, frames):
     s = float(baseline_survival_at(fit, [730.0])[0]) ** np.exp(lp)
     shown = _metric(at, "Survival at 730 days")
     assert shown == f"{100 * s:.1f}%", (shown, s, fit.names)
+
+
+def test_clinical_only_study_from_an_upload(new_app, frames):
+    # Only the clinical table of GBSG2 (scikit-survival): no features upload, a clinical-only study.
+    _, clinical = frames
+    at = new_app().run()
+    at.radio(key="data_source").set_value("upload").run()
+    at.file_uploader(key="upload_clinical").set_value(("gbsg2_clinical.csv", _csv(clinical), "text/csv"))
+    at = at.run()
+    assert any("clinical-only" in str(c.value) for c in at.caption)
+    at = at.button(key="map_confirm").click().run()
+    assert_clean(at)
+    assert not at.error
+    data = at.session_state[state.K_DATA]
+    assert data.features is None
+    assert (data.id, data.time, data.event, data.time_unit) == ("pid", "rfs_days", "status", "days")
+    # Reference: counts on the raw GBSG2 arrays of scikit-survival (686 patients, 299 recurrences).
+    assert _metric(at, "Patients") == "686" and _metric(at, "Events") == "299"
+    assert any("0 imaging features" in s.value for s in at.success)
+    assert not any(getattr(c, "key", None) in ("map_keep", "map_drop") for c in at.checkbox)
+    # Design: the clinical model is the only one offered, and the study is ready to run
+    at.switch_page("views/design.py").run()
+    assert_clean(at)
+    assert not at.error
+    spec = at.session_state[state.K_STUDY]
+    assert spec.data.features is None and spec.models.fit == ("clinical",)
+    assert any("Ready to run" in s.value for s in at.success)

@@ -31,6 +31,23 @@ def test_inspect_prints_summary(gbsg2_tables, capsys, tmp_path):
     assert out_json.exists() and '"n_events": 299' in out_json.read_text()
 
 
+def test_inspect_clinical_only_without_features_table(gbsg2_tables, capsys, tmp_path):
+    # GBSG2 (scikit-survival's load_gbsg2): 686 patients, 299 recurrences. Its clinical table here
+    # holds horTh (2 levels), menostat (2) and tgrade (3): 1 + 1 + 2 = 4 candidate parameters.
+    args = base_args(gbsg2_tables)
+    i = args.index("--features")
+    del args[i:i + 2]
+    out_json = tmp_path / "summary.json"
+    code = main(args + ["--horizons", "365", "--json", str(out_json)])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "Patients 686   events 299" in out
+    assert "Imaging features: none" in out
+    assert "74.8 (299 events / 4 parameters" in out
+    assert "Caution: Research use only" in out
+    assert '"n_features": 0' in out_json.read_text()
+
+
 def _break(pair, kind):
     feat, clin = pair.feat_df.copy(), pair.clin_df.copy()
     args = base_args(pair)

@@ -117,6 +117,20 @@ def test_estimate_from_the_command_line(run_folder, capsys):
     assert "FIELD=VALUE" in capsys.readouterr().err
 
 
+def test_estimate_patient_file_with_unused_columns_says_how_to_skip_them(run_folder, tmp_path, capsys):
+    patient = tmp_path / "one.csv"
+    patient.write_text("age,stage,ecog,ward_note\n64,III,1,seen\n")
+    bundle = str(run_folder / "bundle")
+    code = main(["estimate", bundle, "--model", "clinical", "--patient", str(patient)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "'ward_note'" in err and "--ignore ward_note" in err
+    assert "ignore=." not in err and "Traceback" not in err
+    code = main(["estimate", bundle, "--model", "clinical", "--patient", str(patient), "--ignore", "ward_note"])
+    out = capsys.readouterr().out
+    assert code == 0 and "Survival at 12 months" in out and "Caution:" in out
+
+
 def test_recalibrated_models_saved_as_a_bundle_predict_as_recalibrated(run_folder, study_file, tmp_path, capsys):
     # Reference: validation.recalibrate.recalibrate, itself checked against lifelines
     # (tests/reference/test_recalibrate_reference.py).

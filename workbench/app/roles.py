@@ -84,7 +84,8 @@ def _pick(cands: dict[str, int]) -> str | None:
 
 
 def guess_id(clinical: pd.DataFrame, features: pd.DataFrame) -> str | None:
-    shared = [c for c in clinical.columns if c in features.columns]
+    # no features table (a clinical-only study): the id is one of the clinical table's columns
+    shared = [c for c in clinical.columns if c in features.columns] if len(features.columns) else list(clinical.columns)
     scores = {}
     for c in shared:
         unique = clinical[c].notna().all() and clinical[c].is_unique

@@ -88,6 +88,7 @@ from collections.abc import Callable, Mapping
 
 import numpy as np
 
+from workbench.cohort.codes import code_order
 from workbench.cohort.core import Cohort
 from workbench.errors import SpecError
 from workbench.validation.backends import run_tasks
@@ -325,7 +326,7 @@ def validate(
                 "leave-one-centre-out validation needs the centre of every patient; give the cohort "
                 "a centre column (in the study file: [data] centre = '...')."
             )
-        centres = tuple(sorted(np.unique(cohort.centre)))
+        centres = tuple(code_order(cohort.centre))  # numeric codes in value order: 1, 2, 10
         if len(centres) < 2:
             raise SpecError(f"leave-one-centre-out validation needs at least 2 centres; found only {centres}.")
         if model_replicates:

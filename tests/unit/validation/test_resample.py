@@ -267,3 +267,16 @@ def test_zero_replicates_gives_apparent_only(gbsg2):
     e = res.estimates["m"]["harrell_c"]
     assert e.apparent == res.apparent["m"].harrell_c and np.isnan(e.estimate) and e.n_used == 0
     assert any("apparent performance" in s for s in res.notes)
+
+
+def test_by_centre_orders_numeric_centre_codes_by_value(gbsg2):
+    # Centre codes 1, 2, 10 must come in value order, not text order (1, 10, 2).
+    code = {"east": 1, "north": 2, "south": 10}
+    numbered = Cohort(gbsg2.ids, gbsg2.y, gbsg2.clinical, gbsg2.features, time_unit="days",
+                      centre=np.array([code[c] for c in gbsg2.centre]))
+    m = ColumnsCox(("pnodes", "tgrade"), name="m")
+    res = validate({"m": m}, numbered, H, method="by_centre", random_state=0, backend="serial",
+                   calibration=False)
+    assert res.centres == ("1", "2", "10")
+    events = [int(numbered.event[numbered.centre == c].sum()) for c in res.centres]
+    assert list(res.replicates["m"].events) == events

@@ -18,7 +18,7 @@ from workbench.study import DataSpec
 NONE = "(none)"
 
 
-def _choose_tables() -> tuple[str, str] | None:
+def _choose_tables() -> tuple[str | None, str] | None:
     ss = st.session_state
     options = {"demo": "Demo cohort (invented patients)", "upload": "My own tables"}
     source = st.radio(
@@ -39,20 +39,24 @@ def _choose_tables() -> tuple[str, str] | None:
         return d.features, d.clinical
     left, right = st.columns(2)
     with left:
-        f = st.file_uploader("Imaging features table", type=state.UPLOAD_TYPES, key="upload_features",
+        f = st.file_uploader("Imaging features table (optional)", type=state.UPLOAD_TYPES, key="upload_features",
                              help="One row per patient: the patient id, then one column per imaging feature. "
-                                  "Upload another file here to replace it.")
+                                  "Leave empty for a clinical-only study. Upload another file here to replace it.")
     with right:
         c = st.file_uploader("Clinical table", type=state.UPLOAD_TYPES, key="upload_clinical",
                              help="One row per patient: the id, follow-up time, event and clinical fields. "
                                   "Upload another file here to replace it.")
-    if f is None or c is None:
+    if c is None:
         d = ss.get(state.K_DATA)
         if d is not None and str(state.upload_dir()) in str(d.clinical):
             st.caption("Using the tables uploaded earlier in this session.")
             return d.features, d.clinical
-        st.info("Upload both tables (CSV, TSV, Parquet or Excel) to continue.")
+        st.info("Upload the clinical table (CSV, TSV, Parquet or Excel) to continue, and the imaging "
+                "features table unless the study is clinical-only.")
         return None
+    if f is None:
+        st.caption("No imaging features table: a clinical-only study. Upload one to add imaging features.")
+        return None, str(state.save_upload(c, "clinical"))
     return str(state.save_upload(f, "features")), str(state.save_upload(c, "clinical"))
 
 
@@ -65,22 +69,22 @@ def _pick(label, options, current, key, help=None, optional=False):
 
 
 @st.cache_data(show_spinner=False, max_entries=16)
-def _guess(features: str, clinical: str, digests: tuple[str, str]):
-    """Suggested column roles of two tables (cached on their content)."""
-    return roles.guess_roles(read_table(clinical), read_table(features))
+def _guess(features: str | None, clinical: str, digests: tuple[str, str]):
+    """Suggested column roles of the tables (cached on their content); no features table: clinical-only."""
+    return roles.guess_roles(read_table(clinical), read_table(features) if features else pd.DataFrame())
 
 
-def _map_columns(features: str, clinical: str) -> DataSpec | None:
+def _map_columns(features: str | None, clinical: str) -> DataSpec | None:
     ss = st.session_state
     prev = state.current_data()
-    digests = (state.file_digest(features), state.file_digest(clinical))
+    digests = (state.file_digest(features) if features else "", state.file_digest(clinical))
     try:
-        f_cols = state.table_columns(features, digests[0])
+        f_cols = state.table_columns(features, digests[0]) if features else []
         c_cols = state.table_columns(clinical, digests[1])
     except WorkbenchError as exc:
         state.show_error("Reading the tables", exc)
         return None
-    shared = [c for c in c_cols if c in f_cols]
+    shared = [c for c in c_cols if c in f_cols] if features else c_cols
     if not shared:
         st.error(
             "The two tables share no column name, so patients cannot be matched. "
@@ -113,7 +117,7 @@ def _map_columns(features: str, clinical: str) -> DataSpec | None:
                 "change what is wrong, then press **Use these column roles**.")
     a, b, c = st.columns(3)
     with a:
-        id_col = _pick("Patient id (in both tables)", shared, g("id"), "map_id")
+        id_col = _pick("Patient id (in both tables)" if features else "Patient id", shared, g("id"), "map_id")
         time_col = _pick("Follow-up time", c_cols, g("time"), "map_time")
         unit = st.selectbox("Time unit", list(TIME_UNITS), key="map_unit",
                             index=list(TIME_UNITS).index(g("time_unit", "months")),
@@ -136,10 +140,12 @@ def _map_columns(features: str, clinical: str) -> DataSpec | None:
                        help="Needed to validate by leaving one centre out at a time.")
         batch = _pick("Scanner / batch (optional)", every, g("batch"), "map_batch", optional=True,
                       help="Needed for harmonisation of imaging features across scanners.")
-        keep_both = st.checkbox("Keep only patients found in both tables", value=g("on_unmatched") == "intersect",
-                                key="map_keep")
-        drop = st.checkbox("Drop constant or empty feature columns", value=bool(g("drop_unusable_features")),
-                           key="map_drop")
+        keep_both = drop = False
+        if features:  # both choices concern the features table
+            keep_both = st.checkbox("Keep only patients found in both tables",
+                                    value=g("on_unmatched") == "intersect", key="map_keep")
+            drop = st.checkbox("Drop constant or empty feature columns", value=bool(g("drop_unusable_features")),
+                               key="map_drop")
     if not confirmed:
         if not st.button("Use these column roles", type="primary", key="map_confirm"):
             return None
@@ -230,9 +236,12 @@ def _summary(cohort, horizons) -> None:
                 ["Table", "Column", "Missing", "Share"]), hide_index=True, width="stretch")
         else:
             st.write("None.")
-        st.markdown(f"**Imaging features**: {summary.n_features} in {len(summary.feature_families)} families")
-        st.dataframe(_frame(sorted(summary.feature_families.items()), ["Family prefix", "Features"]),
-                     hide_index=True, width="stretch")
+        if summary.n_features:
+            st.markdown(f"**Imaging features**: {summary.n_features} in {len(summary.feature_families)} families")
+            st.dataframe(_frame(sorted(summary.feature_families.items()), ["Family prefix", "Features"]),
+                         hide_index=True, width="stretch")
+        else:
+            st.markdown("**Imaging features**: none (a clinical-only study)")
     with b:
         ss_ = summary.sample_size
         st.markdown("**Events per parameter**")
@@ -263,7 +272,8 @@ def _summary(cohort, horizons) -> None:
 
 def render() -> None:
     st.title("Data")
-    st.write("Choose the imaging-features table and the clinical table, and say what their columns mean.")
+    st.write("Choose the clinical table and the imaging-features table (none for a clinical-only study), "
+             "and say what their columns mean.")
     tables = _choose_tables()
     if tables is None:
         return

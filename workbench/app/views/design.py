@@ -258,8 +258,11 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> Imag
 
 def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tuple[ModelsSpec, ValidationSpec]:
     st.subheader("Models and validation")
-    fit = st.multiselect("Models to fit", list(MODEL_NAMES), default=list(tpl_m.fit),
+    names = list(MODEL_NAMES) if data.features else ["clinical"]  # without imaging: the clinical model only
+    fit = st.multiselect("Models to fit", names, default=[m for m in tpl_m.fit if m in names] or names[:1],
                          format_func=MODEL_LABELS.get, key=_key("models"))
+    if not data.features:
+        st.caption("No imaging features table (a clinical-only study): the clinical model is the one to fit.")
     a, b = st.columns(2)
     with a:
         base_opts = fit or ["clinical"]
