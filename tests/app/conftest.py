@@ -30,7 +30,8 @@ def assert_clean(at) -> None:
 def new_app():
     from streamlit.testing.v1 import AppTest
 
-    def make(timeout: float = 120):
+    # a limit against hangs, not a timing: a study run on a busy 2-core machine can take minutes
+    def make(timeout: float = 600):
         return AppTest.from_file(str(APP_MAIN), default_timeout=timeout)
 
     return make
