@@ -11,6 +11,7 @@ import streamlit as st
 from workbench.app import charts, roles, state
 from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import read_table
+from workbench.cohort.samplesize import criteria_rows
 from workbench.errors import WorkbenchError
 from workbench.stats.km import kaplan_meier
 from workbench.study import DataSpec
@@ -252,13 +253,7 @@ def _summary(cohort, horizons) -> None:
                "penalisation and honest validation." if summary.n_features else "no imaging features.")
         )
         st.markdown("**Minimum sample size** (Riley et al. 2019/2020)")
-        rows = [
-            (f"(i) shrinkage at least {ss_.shrinkage_target}", ss_.n_shrinkage),
-            ("(ii) optimism in R-squared at most 0.05", ss_.n_optimism),
-        ]
-        if ss_.n_overall_risk is not None:
-            rows.append((f"(iii) overall risk at {ss_.horizon:g} {u} within 0.05", ss_.n_overall_risk))
-        rows.append(("Required (largest)", ss_.n_required))
+        rows = criteria_rows(ss_, u.strip())
         st.dataframe(_frame(rows, ["Criterion", "Patients"]), hide_index=True, width="stretch")
         verdict = "meets" if ss_.adequate else "falls short of"
         st.write(

@@ -223,10 +223,11 @@ def _on_nomogram(result, name: str, record: dict, score: float | None = None) ->
     left.image(nomo.screen_png(fig), width="stretch")
     with right:
         rows = [(scales.term(k).label or k, f"{v:.1f}") for k, v in points.points.items()]
-        rows.append(("Total points", f"{points.total:.1f}"))
+        layout = state.load_module("workbench.figures.nomogram_layout")
+        rows.append((layout.SUM_AXIS, f"{points.total:.1f}"))
         import pandas as pd
 
-        st.dataframe(pd.DataFrame(rows, columns=["Axis", "Points"]), hide_index=True, width="stretch")
+        st.dataframe(pd.DataFrame(rows, columns=["Axis", layout.SCORE_AXIS]), hide_index=True, width="stretch")
         st.caption("Survival read off the nomogram: " + ", ".join(
             f"{100 * s:.1f}% at {h:g} {result.validation.time_unit}" for h, s in points.survival.items()))
 

@@ -78,11 +78,13 @@ def _watch(job) -> None:
 
 
 def _decision_figure(dc, model: str, baseline: str, outcome: str = "the event"):
+    from workbench.figures.decision import EVERYONE, NO_ONE
+
     x = np.asarray(dc.thresholds, float)
     fig = charts.line_figure(
         x,
         {tables.label(model): dc.model_validated, tables.label(baseline): dc.baseline_validated,
-         "Treat all": dc.treat_all, "Treat none": dc.treat_none},
+         EVERYONE: dc.treat_all, NO_ONE: dc.treat_none},
         xlabel=f"Threshold probability of {outcome} by the horizon", ylabel="Net benefit (validated)",
         hline=0.0,
     )
@@ -184,10 +186,15 @@ def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added
                    "refitted in every fold of every permutation.")
     lr = comp.lr_test
     if lr.nested and np.isfinite(lr.statistic) and np.isfinite(lr.p_value) and lr.df > 0:
-        st.write(f"Likelihood-ratio test: {lr.statistic:.2f} on {lr.df} df, p = {lr.p_value:.3g}.")
+        from workbench.figures.wording import chi_squared_text
+
+        st.write(f"Likelihood-ratio test (prespecified terms): {chi_squared_text(lr.statistic, lr.df, lr.p_value)}.")
         st.caption(lr.note)
     elif lr.nested and np.isfinite(lr.statistic):
-        st.write(f"Apparent likelihood-ratio statistic (descriptive, not a test): {lr.statistic:.2f} on {lr.df} df.")
+        from workbench.figures.wording import chi_squared_text
+
+        st.write("Apparent likelihood-ratio statistic (descriptive, not a test): "
+                 f"{chi_squared_text(lr.statistic, lr.df, float('nan')).split(', ')[0]}.")
         st.caption(LR_CAUTION)
     elif lr.note:
         st.caption(f"Likelihood-ratio test: {lr.note}")
