@@ -64,7 +64,7 @@ def test_demo_first_then_own_tables(page, tables):
     _settle(page)
     assert "Read 500 patients" in _main(page).inner_text()
     page.get_by_text("My own tables").click()
-    page.get_by_text("Upload both tables").wait_for()
+    page.get_by_text("Upload the clinical table", exact=False).wait_for()
     _upload(page, "Imaging features table", tables[0])
     _upload(page, "Clinical table", tables[1])
     page.get_by_role("button", name="Use these column roles").wait_for()
@@ -128,7 +128,7 @@ def test_run(page):
     page.get_by_text("elapsed").first.wait_for()
     page.get_by_text("Finished in").wait_for(timeout=RUN_TIMEOUT_MS)
     page.get_by_role("button", name="Download PDF").wait_for(timeout=RUN_TIMEOUT_MS)  # the figures are drawn
-    _settle(page, 1500)
+    _settle(page)
     text = _main(page).inner_text()
     assert "686 patients, 299 events" in text
     assert "Threshold probability of recurrence" in text or "Decision curve" in text
@@ -196,7 +196,7 @@ def test_patient_from_file_matches_cli(page, cli, folder):
     page.get_by_role("button", name="Estimate").click()
     page.get_by_text("Survival at 730 days").first.wait_for()
     page.get_by_text("Survival read off the nomogram").wait_for()
-    _settle(page, 1500)
+    _settle(page)
     _no_traceback(page)
     _shot(page, "6c_patient_own_from_file")
     # the clinical model: the page's numbers against results.json of the command line
