@@ -154,7 +154,7 @@ def test_nomogram_matches_cli(page, cli):
         expected = s0[HORIZON] ** math.exp(row["linear_predictor"])
         assert abs(row["survival_730"] - expected) < 2e-3
     # every term's points are its CLI coefficient times the value, on one common scale
-    coef = {c["column"]: c["coef"] for c in block["coefficients"]}
+    coef = {c["design_column"]: c["coef"] for c in block["coefficients"]}
     scales = []
     for term, g in terms.groupby("term"):
         g = g.sort_values("value")
@@ -210,7 +210,7 @@ def test_patient_from_file_matches_cli(page, cli, folder):
     text = _main(page).inner_text()
     block = cli["models"]["clinical"]
     mean = block["baseline_survival"]["x_mean"]
-    coef = {c["column"]: c["coef"] for c in block["coefficients"]}
+    coef = {c["design_column"]: c["coef"] for c in block["coefficients"]}
     x = {"age": 45, "tsize": 40, "pnodes": 9}
     lp = sum(coef[k] * (x[k] - mean[k]) for k in coef)
     assert f"Linear predictor {lp:.3f}" in text, text[:3000]
