@@ -40,6 +40,9 @@ class CohortSource:
     batch_column: str | None = None
     data_hash: str = ""
     dropped_ids: tuple[str, ...] = ()
+    # of dropped_ids: those with a clinical row but no imaging row, and the reverse
+    only_in_clinical: tuple[str, ...] = ()
+    only_in_features: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)

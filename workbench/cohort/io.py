@@ -154,6 +154,8 @@ def read_cohort(
     feats = strip_ids(feats, fpath, columns.id)
 
     dropped = _match_ids(feats, clin, fpath, cpath, columns.id, on_unmatched)
+    only_clin = tuple(sorted(dropped - set(feats[columns.id]))) if dropped and not clinical_only else ()
+    only_feat = tuple(sorted(dropped - set(clin[columns.id]))) if dropped else ()
     if dropped:
         keep = set(feats[columns.id]) & set(clin[columns.id])
         feats = feats[feats[columns.id].isin(keep)]
@@ -235,6 +237,8 @@ def read_cohort(
         batch_column=columns.batch,
         data_hash=digest.hexdigest(),
         dropped_ids=tuple(sorted(dropped)),
+        only_in_clinical=only_clin,
+        only_in_features=only_feat,
     )
     return Cohort(
         ids=ids,

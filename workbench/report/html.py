@@ -42,6 +42,8 @@ from workbench.errors import WorkbenchError, WorkbenchWarning
 from workbench.metrics.decision import DecisionCurveResult
 from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
 from workbench.models.registry import MODEL_LABELS
+from workbench.report.appendix import appendix_context
+from workbench.report.characteristics import characteristics_table
 from workbench.report.checklist import FILLED, reporting_checklist
 from workbench.report.methods import (
     estimate_label,
@@ -72,6 +74,7 @@ SECTIONS = (
     ("external", "External validation"),
     ("figures", "Figures"),
     ("limitations", "Limitations"),
+    ("appendix", "Appendix: baseline survival and the values that reproduce predictions"),
     ("software", "Software and reproducibility"),
     ("checklist", "Reporting checklist"),
 )
@@ -105,6 +108,11 @@ def _finite(x) -> bool:
 def fmt_num(x, digits: int = 3) -> str:
     """A number with fixed decimals, or "n/a"."""
     return f"{x:.{digits}f}".replace("-", "\u2212") if _finite(x) else "n/a"
+
+
+def fmt_sig(x, digits: int = 6) -> str:
+    """A number to ``digits`` significant digits (reproduction parameters of very different sizes), or "n/a"."""
+    return f"{x:.{digits}g}".replace("-", "\u2212") if _finite(x) else "n/a"
 
 
 def fmt_p(p) -> str:
@@ -238,6 +246,31 @@ def _decision_fig(d: dict, unit: str, j: int):
     return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}")
 
 
+FIGURE_GROUPS = ("data", "calibration", "decision", "external", "main", "appendix")
+"""Where the report places its figures (one list per group)."""
+
+
+def _data_and_appendix_figures(result, out: dict) -> None:
+    """The patient flow (data section) and the baseline survival curves (appendix)."""
+    from workbench.figures.baseline import plot_baseline_survival
+    from workbench.figures.flow import plot_patient_flow
+    from workbench.report.appendix import baseline_curves
+    from workbench.report.flow import patient_flow
+
+    ext = " and the external cohort" if result.external_prepared is not None else ""
+    _figure(out["data"], "flow", "Patient flow", f"Patients of the development cohort{ext}: read, set aside "
+            "with the reason (a patient missing several complete-case predictors counts under each), analysed.",
+            lambda: plot_patient_flow(patient_flow(result), width="double"))
+    curves = baseline_curves(result)
+    if curves:
+        unit = result.spec.data.time_unit
+        _figure(out["appendix"], "baseline", "Baseline survival of each Cox model",
+                "S0(t) for a patient at the training means of the design columns (x_mean), with a step at every "
+                "training event time; dotted lines mark the prediction horizons.",
+                lambda: plot_baseline_survival({_label(k): v for k, v in curves.items()}, horizons=result.spec.horizons,
+                                               time_unit=unit, width="double"))
+
+
 def _figures(result, d: dict) -> dict:
     from workbench.figures import (
         forest_table,
@@ -254,7 +287,8 @@ def _figures(result, d: dict) -> dict:
     cox = {k: m for k, m in models.items() if hasattr(m, "fit_") and hasattr(m, "transformer_")}
     lead = models.get("combined") or next(iter(models.values()))
     k_groups = getattr(result.spec.models, "risk_groups", 3)
-    out = {k: [] for k in ("calibration", "decision", "external", "main")}
+    out = {k: [] for k in FIGURE_GROUPS}
+    _data_and_appendix_figures(result, out)
     _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
             "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
             "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
@@ -404,7 +438,9 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "limitations": limitations(result, d),
         "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
         "study_text": _short_paths(result.study_text, spec),
-        "figures": _figures(result, d) if figures else {k: [] for k in ("calibration", "decision", "external", "main")},
+        "figures": _figures(result, d) if figures else {k: [] for k in FIGURE_GROUPS},
+        "characteristics": characteristics_table(result),
+        "appendix": appendix_context(result),
         "version": d["provenance"]["versions"].get("survival-workbench", ""),
         "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["design_column"] == "GLOBAL"), None)
                       for k, m in d["models"].items()},
@@ -421,7 +457,7 @@ def _environment() -> jinja2.Environment:
     env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
                              autoescape=jinja2.select_autoescape(["html", "j2"]), undefined=jinja2.StrictUndefined,
                              trim_blocks=True, lstrip_blocks=True)
-    env.filters.update(num=fmt_num, p=fmt_p, css_string=_css_string, label=_label)
+    env.filters.update(num=fmt_num, sig=fmt_sig, p=fmt_p, css_string=_css_string, label=_label)
     return env
 
 

@@ -150,56 +150,18 @@ def _interval_text(v: dict) -> str:
 
 
 def validation_text(result, data: dict | None = None) -> str:
-    """How the run was validated and what was refitted inside each replicate."""
+    """How the run was validated and what was refitted inside each replicate (see methods_text.py)."""
+    from workbench.report.methods_text import validation_claims
+
     d = data if data is not None else results_dict(result)
-    v = d["validation"]
-    reps = v["n_replicates"]
-    seed = result.spec.seed
-    folds = result.spec.imaging.penalty.folds
-    refit = ("In every replicate the whole modelling process was repeated on the resampled rows: the "
-             "clinical transformations, category levels, detection limits and imputation values; the "
-             "ComBat harmonisation; the feature filters; the choice of the penalty by inner "
-             f"{folds}-fold cross-validation with folds split by original patient identifier (so copies "
-             "of one patient never sit on both sides of a fold); and the model fits.")
-    if v["method"] == "none":
-        return ("No internal validation was run (method 'none'); every value shown is the apparent performance "
-                "of the models fitted and evaluated on the same patients, which is optimistic.")
-    if v["method"] == "bootstrap":
-        if all(r == 0 for r in reps.values()):
-            return "No resampling was run; only apparent performance is reported, which is optimistic."
-        if len(set(reps.values())) == 1:
-            per = f"{next(iter(reps.values()))} replicates per model"
-        else:
-            per = "replicates per model: " + ", ".join(f"{_label(m)} {r}" for m, r in reps.items())
-        ests = set((v.get("estimator") or {}).values()) or {"optimism"}
-        if ests == {"optimism"}:
-            how = ("bootstrap optimism correction (Harrell et al. 1996)", " Optimism was the mean difference "
-                   "between performance on the bootstrap sample and on the original patients; corrected "
-                   "estimate = apparent - optimism.")
-        else:
-            how = ("the .632+ bootstrap (Efron & Tibshirani 1997)" if "632plus" in ests
-                   else "the out-of-bootstrap estimate (Efron 1983)",
-                   " Each refit was evaluated on the patients not drawn into its bootstrap sample "
-                   "(grouped by patient identifier), because a model that nearly interpolates its "
-                   "training rows (the random survival forest) makes Harrell's optimism correction "
-                   "invalid; " + ("the .632+ rule weighed the apparent and out-of-bootstrap values by "
-                                  "the relative overfitting rate (no-information value 0.5 for C and "
-                                  "AUC, permutation value for the Brier score; calibration measures use "
-                                  "the out-of-bootstrap value). " if "632plus" in ests else "")
-                   + "The same estimator was used for every model, so model comparisons use one method "
-                   "for both arms.")
-        return (f"Internal validation used {how[0]} with {per} (seed {seed}). {refit}{how[1]} "
-                + _interval_text(v))
-    if v["method"] == "cv":
-        s = v["settings"]
-        return (f"Internal validation used {s.get('folds')}-fold cross-validation repeated {s.get('repeats')} "
-                f"times with folds split by patient (seed {seed}). {refit} " + _interval_text(v))
-    return (f"Internal validation held out one centre at a time ({len(result.summary.centres)} centres; seed "
-            f"{seed}). {refit}")
+    return " ".join(c.text for c in validation_claims(result, d))
 
 
 def methods_paragraph(result, data: dict | None = None) -> str:
     """A methods description of the run in plain scientific English, with its real numbers.
+
+    Built from :func:`workbench.report.methods_text.methods_claims`: every sentence is a
+    claim made from the run's records, and each claim has its own test.
 
     Parameters
     ----------
@@ -212,123 +174,9 @@ def methods_paragraph(result, data: dict | None = None) -> str:
     str
         Paragraphs separated by blank lines.
     """
-    d = data if data is not None else results_dict(result)
-    spec, s, c = result.spec, d["cohort"]["summary"], d["cohort"]
-    u = s["time_unit"]
-    paras = []
-    drop = (f" {c['n_incomplete_dropped']} patients missing a predictor handled by complete-case analysis "
-            "were excluded." if c["n_incomplete_dropped"] else "")
-    where = ""
-    if s["centres"]:
-        where += f" from {len(s['centres'])} centres"
-    if s["batches"]:
-        where += f" imaged on {len(s['batches'])} scanners or protocols"
-    codes = spec.data.event_codes
-    event = f"coded {_join(repr(e) for e in codes)}" if codes else "as recorded in the event column"
-    paras.append(
-        f"Of {c['n_read']} patients read{where}, {c['n_analysed']} entered the analysis.{drop} The outcome was "
-        f"time to event in {u}, with the event {event} and all other patients censored at their last "
-        f"follow-up; {s['n_events']} events were observed and {s['n_censored']} patients were censored. Median "
-        f"follow-up by the reverse Kaplan-Meier method was {_n(s['median_followup'])} {u} (95% CI "
-        f"{_n(s['median_followup_ci'][0])} to {_n(s['median_followup_ci'][1])}). Predictions were made at "
-        f"{_join(f'{h:g}' for h in spec.horizons)} {u}."
-    )
-    handling = []
-    for r in predictor_handling(result):
-        bits = [r["kind"]]
-        if r["transform"] not in ("none", "not applicable"):
-            bits.append(r["transform"])
-        if r["detection_limit"].startswith("limit"):
-            bits.append("detection " + r["detection_limit"])
-        bits.append(r["missing"])
-        handling.append(f"{r['label']} ({'; '.join(bits)})")
-    ss = s["sample_size"]
-    paras.append(
-        f"The clinical predictors were {'; '.join(handling)}. The cohort had {s['events_per_clinical_parameter']:.1f} "
-        f"events per candidate clinical parameter ({s['n_events']} events, {s['n_clinical_parameters']} "
-        f"parameters). By the criteria of Riley et al. (2019), with an anticipated Cox-Snell R-squared of "
-        f"{ss['r2_cs']:.3f} ({ss['r2_cs_source'].replace(' (', ', ').replace(')', '')}), at least {ss['n_required']} patients "
-        f"({ss['events_required']} events) were required for the clinical model; {ss['n_available']} were available."
-        + _imaging_sample_size(s)
-    )
-    im = spec.imaging
-    fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
-    text = (f"The imaging pool held {c['n_imaging_pool']} features ({fam})." if c["n_imaging_pool"]
-            else "The study used clinical predictors only (no imaging table).")
-    combined = d["models"].get("combined")
-    if combined and "signature" in combined:
-        sig = combined["signature"]
-        harm = ""
-        if im.harmonise.method == "combat":
-            prot = f", preserving the effects of {_join(im.harmonise.protect)}" if im.harmonise.protect else ""
-            harm = (f" Features were harmonised across scanners by ComBat ({im.harmonise.empirical_bayes} "
-                    f"empirical Bayes{prot}; Johnson et al. 2007) inside each fit.")
-        pen = sig["penalty"]
-        pen_txt = ""
-        if pen is not None:
-            rule = ("the one-standard-error rule (the largest penalty within one standard error of the "
-                    "minimum)") if pen["rule"] == "1se" else "the minimum"
-            pen_txt = (f" The penalty (l1 ratio {im.penalty.l1_ratio:g}) was chosen by {im.penalty.folds}-fold "
-                       "cross-validation with folds split by patient, on the cross-validated partial-likelihood "
-                       f"deviance (Verweij and van Houwelingen 1993) with {rule}: alpha {pen['alpha']:.4g} "
-                       f"({pen['alpha_over_max']:.3f} x alpha_max, the smallest penalty that keeps every feature out).")
-        text += (f"{harm} On all analysis rows the number of features at each step was: "
-                 f"{_steps_text(sig['steps'])}.{pen_txt} The {len(sig['selected'])} kept features "
-                 "formed a signature score (their standardised values weighted by the penalised coefficients), "
-                 "which entered a Cox model beside the clinical terms.")
-        vc = combined.get("volume_correlation")
-        if vc:
-            text += (f" The signature's correlation with {vc['feature']} was Pearson {vc['pearson']:.2f}, "
-                     f"Spearman {vc['spearman']:.2f}.")
-        if not sig["selected"]:
-            text += (" The signature kept no feature, so the combined model had no signature term and was "
-                     "equal to the clinical model.")
-    paras.append(text)
-    models = []
-    for m in d["models"].values():
-        if m["kind"] == "cox":
-            models.append(f"{m['label']} (Cox, {m['details'].get('ties', 'efron')} ties, "
-                          f"{len(m['coefficients'])} parameters)")
-        elif m["kind"] == "penalised cox":
-            models.append(f"{m['label']} (clinical terms unpenalised, {m['details']['n_imaging_selected']} "
-                          "imaging features kept, penalty chosen as above)")
-        else:
-            det = m["details"]
-            models.append(f"{m['label']} ({det.get('trees')} trees, minimum leaf {det.get('min_leaf')}, "
-                          f"{det.get('max_features')} features per split)")
-    paras.append(
-        f"Models fitted: {'; '.join(models)}. {validation_text(result, d)} Discrimination was measured by "
-        f"Harrell's and Uno's C (truncated at {spec.validation.tau or spec.horizons[-1]:g} {u}) and the cumulative/dynamic AUC at each "
-        "horizon; overall accuracy by the Brier score, its integral and the index of prediction accuracy; "
-        "calibration by smoothed calibration curves (ICI, E50, E90; Austin et al. 2020), the calibration slope "
-        f"and the observed/expected ratio. Each model was compared with the {_label(d['baseline'])} model "
-        "by paired differences within the same replicates, "
-        "the category-free net reclassification index and integrated discrimination improvement by component, "
-        "and decision curves."
-    )
-    av_text = added_value_text(d)
-    if av_text:
-        paras.append(av_text)
-    if d["external"] is not None:
-        e = d["external"]
-        paras.append(
-            f"The fitted models were applied unchanged to an external cohort of {e['n']} patients "
-            f"({e['n_events']} events); intervals come from bootstrap resamples of that cohort. Inverse "
-            "probability of censoring weights and the Kaplan-Meier reference of the Brier score were estimated "
-            "on the external cohort itself and re-estimated in every resample"
-            + _censoring_clause(e.get("censoring"))
-            + (". Performance was also estimated in each centre and scanner of the external cohort and pooled by "
-               "random-effects meta-analysis (C on the logit scale, O/E on the log scale; "
-               + ("REML" if any(g.get("pooling_method") == "reml" for g in e["by_group"].values())
-                  else "DerSimonian-Laird") + " with the Hartung-Knapp interval and the 95% prediction interval for a new site; Debray et al. 2017)"
-               if e.get("by_group") else "") + "."
-        )
-    v = d["provenance"]["versions"]
-    libs = _join(f"{k} {v[k]}" for k in ("numpy", "scipy", "pandas", "scikit-learn", "scikit-survival",
-                                         "lifelines") if k in v)
-    paras.append(f"Analyses used survival-workbench {v.get('survival-workbench', '')} on Python "
-                 f"{v.get('python', '')} with {libs}; random seed {spec.seed}.")
-    return "\n\n".join(paras)
+    from workbench.report.methods_text import methods_claims
+
+    return "\n\n".join(" ".join(c.text for c in para) for para in methods_claims(result, data))
 
 
 def limitations(result, data: dict | None = None) -> tuple[str, ...]:

@@ -101,6 +101,9 @@ def _model_block(result, name: str) -> dict:
             "horizons": jsonable(horizons),
             "survival": jsonable(baseline_survival_at(m.fit_, horizons)),
             "x_mean": dict(zip(m.fit_.names, jsonable(m.fit_.x_mean), strict=True)),
+            # the whole step function: S0 just after each training event time
+            "curve": {"times": jsonable(m.fit_.baseline_times),
+                      "survival": jsonable(baseline_survival_at(m.fit_, m.fit_.baseline_times))},
         }
     if name in result.ph_tests:
         ph = result.ph_tests[name]

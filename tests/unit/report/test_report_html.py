@@ -188,3 +188,11 @@ def test_new_site_sample_size_table_equals_the_results(html, data):
     for rows in ns.values():
         for r in rows:
             assert f"<b>{r['n_required']}</b>" in html
+
+
+def test_flow_characteristics_and_appendix_are_placed(html):
+    # drawn in the data section and the appendix; their numbers are tested in test_report_additions.py
+    assert 'id="fig-flow"' in section(html, "data") and "Patient characteristics by centre" in section(html, "data")
+    app = section(html, "appendix")
+    assert 'id="fig-baseline"' in app and "Scaling and weights of the kept features" in app
+    assert "ComBat location / scale of each training scanner" in app

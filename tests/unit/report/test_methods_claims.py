@@ -1,0 +1,362 @@
+"""One check per claim of the generated methods text, against what the run did.
+
+``methods_claims`` tags every sentence of the methods text with a key. Each key has one
+check below, run on the small simulated study of tests/conftest.py (invented data from the
+demo generator), on the same study with an external cohort applied, and with the wide
+imaging models (penalised with all features, forest) fitted beside it. A check reads the
+run's spec, its fitted objects or its results and asserts the sentence says the same; when
+a claim is absent, it asserts that the run had nothing to claim. A key without a check
+fails ``test_every_claim_has_a_check``, so a new sentence cannot enter the report untested.
+Where a general-purpose library can recompute a number (lifelines), the check names it.
+"""
+
+from __future__ import annotations
+
+import re
+import warnings
+from dataclasses import replace
+from importlib import metadata
+
+import numpy as np
+import pytest
+
+from workbench.errors import WorkbenchWarning
+from workbench.models.registry import MODEL_LABELS
+from workbench.report.methods import methods_paragraph
+from workbench.report.methods_text import _imaging_claims, harmonised_models, methods_claims
+from workbench.report.results import results_dict
+
+
+@pytest.fixture(scope="module")
+def external_result(small_study_result, tmp_path_factory):
+    """The small study's fitted models applied to a second simulated cohort (no refits)."""
+    from workbench.cohort.io import read_cohort
+    from workbench.prepare import PreparedCohort
+    from workbench.simulate import simulate_cohort
+    from workbench.validation.external import validate_external
+
+    r = small_study_result
+    sim = simulate_cohort(150, random_state=41, n_features=50)
+    d = tmp_path_factory.mktemp("claims_ext")
+    sim.imaging.to_csv(d / "imaging.csv", index=False)
+    sim.clinical.to_csv(d / "clinical.csv", index=False)
+    cohort = read_cohort(d / "imaging.csv", d / "clinical.csv", r.spec.data.column_map())
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", WorkbenchWarning)
+        ext = validate_external(r.models, cohort, r.spec.horizons, replicates=3, random_state=1)
+    prep = PreparedCohort(cohort, cohort.n, (), {}, tuple(cohort.feature_names), ())
+    return replace(r, external=ext, external_prepared=prep, external_comparisons={})
+
+
+@pytest.fixture(scope="module")
+def wide_models(small_study_result):
+    """The penalised all-features model and a small forest, fitted on the small study's rows."""
+    from workbench.models.registry import build_models
+
+    r = small_study_result
+    spec = replace(r.spec, models=replace(r.spec.models, fit=("clinical", "penalised_all", "forest"),
+                                          forest=replace(r.spec.models.forest, trees=10)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", WorkbenchWarning)
+        return {k: m.fit(r.cohort) for k, m in build_models(spec).items() if k != "clinical"}
+
+
+def _claims(result):
+    d = results_dict(result)
+    return d, {c.key: c.text for para in methods_claims(result, d) for c in para}
+
+
+# ------------------------------------------------------------------ one check per claim key
+
+
+def _cohort_patients(r, d, c):
+    t = c["cohort.patients"]
+    assert f"Of {r.prepared.n_read} patients read" in t and f"{r.cohort.n} entered the analysis" in t
+    assert f"from {len(set(r.cohort.centre))} centres" in t and f"on {len(set(r.cohort.batch))} scanners" in t
+
+
+def _cohort_excluded(r, d, c):
+    k = len(r.prepared.incomplete_ids)
+    if k:
+        assert c["cohort.excluded"].startswith(f"{k} patients missing")
+    else:
+        assert "cohort.excluded" not in c
+
+
+def _outcome_definition(r, d, c):
+    t = c["outcome.definition"]
+    assert "coded 'dead'" in t and f"time to event in {r.spec.data.time_unit}" in t
+    assert f"{r.cohort.n_events} events were observed and {r.cohort.n - r.cohort.n_events} patients" in t
+
+
+def _outcome_followup(r, d, c):
+    # reference: reverse Kaplan-Meier (Schemper & Smith 1996) with lifelines, censoring as the event
+    from lifelines import KaplanMeierFitter
+
+    km = KaplanMeierFitter().fit(r.cohort.time, ~r.cohort.event)
+    assert f"reverse Kaplan-Meier method was {km.median_survival_time_:.1f} months" in c["outcome.followup"]
+
+
+def _outcome_horizons(r, d, c):
+    assert c["outcome.horizons"] == "Predictions were made at 12 and 24 months."
+    assert tuple(r.spec.horizons) == (12.0, 24.0)
+
+
+def _predictors(r, d, c):
+    t = c["predictors"]
+    for p in r.spec.predictors:
+        assert (p.label or p.column) in t
+    ecog = next(p for p in r.spec.predictors if p.column == "ecog")
+    assert ecog.missing == "impute" and "imputed with the most frequent training level" in t
+
+
+def _sample_size_epp(r, d, c):
+    s = r.summary
+    assert f"{s.events_per_clinical_parameter:.1f} events per candidate clinical parameter" in c["sample_size.epp"]
+    assert f"({s.n_events} events, {s.n_clinical_parameters} parameters)" in c["sample_size.epp"]
+
+
+def _sample_size_riley(r, d, c):
+    ss = r.summary.sample_size
+    assert f"at least {ss.n_required} patients ({ss.events_required} events)" in c["sample_size.riley"]
+
+
+def _sample_size_imaging(r, d, c):
+    si = d["cohort"]["summary"].get("sample_size_imaging")
+    if si:
+        assert f"{si['n_required']} patients would be required" in c["sample_size.imaging"]
+    else:
+        assert "sample_size.imaging" not in c
+
+
+def _imaging_pool(r, d, c):
+    assert f"The imaging pool held {len(r.cohort.feature_names)} features" in c["imaging.pool"]
+
+
+def _imaging_harmonisation(r, d, c):
+    # which fits hold a learned ComBat step, read from the objects themselves
+    harm = [k for k, m in r.models.items()
+            if getattr(getattr(m, "signature_", None), "combat_", None) is not None or getattr(m, "combat_", None)]
+    t = c["imaging.harmonisation"]
+    assert harm == ["combined"] and "harmonised across scanners by ComBat" in t
+    assert f"each fit of the {MODEL_LABELS['combined']} model." in t and MODEL_LABELS["clinical"] not in t
+    assert r.spec.imaging.harmonise.empirical_bayes in t and "preserving the effects of age" in t
+
+
+def _imaging_steps(r, d, c):
+    sig = r.models["combined"].signature_
+    t = c["imaging.steps"]
+    pos = [t.index(f"{s.n_in} -> {s.n_out}") for s in sig.steps_]
+    assert pos == sorted(pos), "steps in the order they were applied"
+
+
+def _imaging_penalty(r, d, c):
+    path = r.models["combined"].signature_.path_
+    t = c["imaging.penalty"]
+    assert path.rule == "1se" and "one-standard-error rule" in t and f"alpha {path.alpha:.4g}" in t
+    assert f"{r.spec.imaging.penalty.folds}-fold cross-validation" in t
+
+
+def _imaging_signature(r, d, c):
+    assert f"The {len(r.models['combined'].signature_.selected_features_)} kept features" in c["imaging.signature"]
+
+
+def _imaging_volume(r, d, c):
+    v = r.volume["combined"]
+    assert f"Pearson {v.pearson:.2f}, Spearman {v.spearman:.2f}" in c["imaging.volume"]
+
+
+def _imaging_empty(r, d, c):
+    assert r.models["combined"].signature_.selected_features_ and "imaging.empty" not in c
+
+
+def _models_fitted(r, d, c):
+    t = c["models.fitted"]
+    for k, m in r.models.items():
+        assert f"{MODEL_LABELS[k]} (Cox, efron ties, {len(m.fit_.names)} parameters)" in t
+
+
+def _validation_method(r, d, c):
+    v = r.validation
+    assert set(v.estimator.values()) == {"optimism"}
+    assert c["validation.method"] == (f"Internal validation used bootstrap optimism correction (Harrell et al. "
+                                      f"1996) with {v.n_replicates['combined']} replicates per model (seed 5).")
+
+
+def _validation_refit(r, d, c):
+    t = c["validation.refit"]
+    assert ("ComBat" in t) == bool(harmonised_models(r))
+    assert f"inner {r.spec.imaging.penalty.folds}-fold cross-validation" in t
+
+
+def _validation_estimator(r, d, c):
+    assert "corrected estimate = apparent - optimism" in c["validation.estimator"]
+
+
+def _validation_interval(r, d, c):
+    v = r.validation
+    t = c["validation.interval"]
+    assert v.interval == "two-stage" and "two-stage bootstrap" in t
+    assert f"in {v.settings['outer_replicates']} bootstrap samples" in t
+    assert "bias-corrected percentile interval" in t
+    # a two-stage interval is not an optimism-shifted percentile interval
+    assert not re.search(r"shift|moved so that", t)
+
+
+def _metrics_discrimination(r, d, c):
+    # reference: lifelines' concordance_index counts every comparable pair (no truncation time)
+    from lifelines.utils import concordance_index
+
+    risk = r.models["combined"].predict_risk(r.cohort).values
+    c_ll = concordance_index(r.cohort.time, -risk, r.cohort.event)
+    assert d["models"]["combined"]["performance"]["harrell_c"]["apparent"] == pytest.approx(c_ll, abs=1e-9)
+    t = c["metrics.discrimination"]
+    assert "Harrell's C over all comparable pairs (not truncated)" in t
+    assert r.spec.validation.uno_tau is None and "Uno's C truncated at 24 months" in t
+
+
+def _metrics_censoring(r, d, c):
+    assert r.validation.method == "bootstrap"
+    assert "censoring distribution on the rows each model was fitted on" in c["metrics.censoring_weights"]
+
+
+def _metrics_accuracy(r, d, c):
+    perf = d["models"]["combined"]["performance"]
+    for k in ("brier@12", "ibs", "ipa@12", "ici@12", "e50@12", "e90@12", "cal_slope@12", "oe_ratio@12"):
+        assert k in perf
+    assert "ICI, E50, E90" in c["metrics.accuracy_calibration"]
+
+
+def _comparison(r, d, c):
+    assert set(r.comparisons) == {"combined"}
+    assert f"compared with the {MODEL_LABELS[r.spec.models.baseline]} model" in c["comparison"]
+
+
+def _added_value(r, d, c):
+    av = r.added_value["combined"]
+    t = c["added_value"]
+    assert f"With {av.permutations} permutations" in t and f"{av.folds} folds split by patient" in t
+
+
+def _external_applied(r, d, c):
+    if r.external is None:
+        assert not any(k.startswith("external") for k in c)
+        return
+    e = r.external_prepared.cohort
+    assert f"external cohort of {e.n} patients ({e.n_events} events)" in c["external.applied"]
+
+
+def _external_censoring(r, d, c):
+    if r.external is None:
+        return
+    ch = r.external.censoring
+    assert ch.reason in c["external.censoring"]
+    word = {"km": "one Kaplan-Meier curve", "km_by_centre": "stratified by centre", "cox": "a Cox model"}[ch.method]
+    assert word in c["external.censoring"]
+
+
+def _external_pooling(r, d, c):
+    groups = getattr(r.external, "groups", None) if r.external is not None else None
+    if not groups:
+        assert "external.pooling" not in c
+        return
+    t = c["external.pooling"]
+    assert all(g in t for g in groups) and "DerSimonian-Laird" in t and r.spec.validation.pooling == "dl"
+
+
+def _software(r, d, c):
+    # reference: the installed distributions, read with importlib.metadata
+    for pkg in ("numpy", "scikit-survival", "lifelines"):
+        assert f"{pkg} {metadata.version(pkg)}" in c["software"]
+    assert c["software"].endswith(f"random seed {r.spec.seed}.")
+
+
+CHECKS = {
+    "cohort.patients": _cohort_patients, "cohort.excluded": _cohort_excluded,
+    "outcome.definition": _outcome_definition, "outcome.followup": _outcome_followup,
+    "outcome.horizons": _outcome_horizons, "predictors": _predictors, "sample_size.epp": _sample_size_epp,
+    "sample_size.riley": _sample_size_riley, "sample_size.imaging": _sample_size_imaging,
+    "imaging.pool": _imaging_pool, "imaging.harmonisation": _imaging_harmonisation,
+    "imaging.steps": _imaging_steps, "imaging.penalty": _imaging_penalty, "imaging.signature": _imaging_signature,
+    "imaging.volume": _imaging_volume, "imaging.empty": _imaging_empty, "models.fitted": _models_fitted,
+    "validation.method": _validation_method, "validation.refit": _validation_refit,
+    "validation.estimator": _validation_estimator, "validation.interval": _validation_interval,
+    "metrics.discrimination": _metrics_discrimination, "metrics.censoring_weights": _metrics_censoring,
+    "metrics.accuracy_calibration": _metrics_accuracy, "comparison": _comparison, "added_value": _added_value,
+    "external.applied": _external_applied, "external.censoring": _external_censoring,
+    "external.pooling": _external_pooling, "software": _software,
+}
+
+
+@pytest.fixture(scope="module")
+def claimed(small_study_result, external_result):
+    return {"internal": (small_study_result, *_claims(small_study_result)),
+            "external": (external_result, *_claims(external_result))}
+
+
+def test_every_claim_has_a_check(claimed):
+    for _, (_, _, c) in claimed.items():
+        assert set(c) <= set(CHECKS), f"claims without a check: {sorted(set(c) - set(CHECKS))}"
+    seen = set().union(*(set(c) for _, _, c in claimed.values()))
+    # every checked key is made by at least one of the runs (the absent-claim cases are checked too)
+    assert set(CHECKS) - seen <= {"cohort.excluded", "imaging.empty"}
+
+
+@pytest.mark.parametrize("key", sorted(CHECKS))
+def test_claim(key, claimed):
+    for run, (r, d, c) in claimed.items():
+        if key.startswith("external") and run == "internal":
+            continue
+        CHECKS[key](r, d, c)
+
+
+def test_methods_paragraph_is_the_claims_in_order(small_study_result):
+    d, c = _claims(small_study_result)
+    text = methods_paragraph(small_study_result, d)
+    pos = [text.index(t) for t in c.values()]
+    assert pos == sorted(pos)
+    assert "truncated at" not in text.split("Harrell's C")[1].split(",")[0]
+
+
+def test_wide_models_are_named_as_harmonised(small_study_result, wide_models):
+    # the penalised all-features model and the forest learn their own ComBat step (workbench/models/wide.py)
+    r = replace(small_study_result, models={**small_study_result.models, **wide_models})
+    assert harmonised_models(r) == ("combined", "penalised_all", "forest")
+    assert all(m.combat_ is not None for m in wide_models.values())
+    d = results_dict(small_study_result)
+    t = next(x.text for x in _imaging_claims(r, d) if x.key == "imaging.harmonisation")
+    assert (f"each fit of the {MODEL_LABELS['combined']}, {MODEL_LABELS['penalised_all']} and "
+            f"{MODEL_LABELS['forest']} models") in t
+
+
+def test_no_harmonisation_is_said_when_none_was_learned(small_study_result):
+    spec = small_study_result.spec
+    off = replace(spec, imaging=replace(spec.imaging, harmonise=replace(spec.imaging.harmonise, method="none")))
+    m = small_study_result.models["combined"]
+    sig = replace_attr(m.signature_, combat_=None)
+    r = replace(small_study_result, spec=off, models={**small_study_result.models,
+                                                      "combined": replace_attr(m, signature_=sig)})
+    d = results_dict(small_study_result)
+    t = next(x.text for x in _imaging_claims(r, d) if x.key == "imaging.harmonisation")
+    assert t.startswith("Imaging features were not harmonised") and "method = 'none'" in t
+    assert harmonised_models(r) == ()
+
+
+def replace_attr(obj, **kw):
+    """A shallow copy of a fitted object with some learned attributes replaced."""
+    import copy
+
+    new = copy.copy(obj)
+    for k, v in kw.items():
+        setattr(new, k, v)
+    return new
+
+
+def test_interval_claims_follow_the_interval_computed(small_study_result):
+    from workbench.report.methods_text import validation_claims
+
+    d = results_dict(small_study_result)
+    d["validation"] = {**d["validation"], "interval": "shifted-percentile"}
+    t = next(x.text for x in validation_claims(small_study_result, d) if x.key == "validation.interval")
+    assert "moved so that their centre maps to the corrected estimate" in t and "two-stage" not in t
+    assert np.isfinite(small_study_result.validation.conf_level)
