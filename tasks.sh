@@ -4,6 +4,9 @@
 #                     extra options go to 'workbench run', e.g. ./tasks.sh demo --replicates 200
 #   ./tasks.sh test   create .venv, install, run the whole test suite
 #   ./tasks.sh app    create .venv, install, start the browser front end
+#   ./tasks.sh docs   re-render docs/figures, docs/report_pages and docs/screenshots from the
+#                     current code and stamp them (docs/render_stamp.json; needs Chromium and
+#                     pdftoppm); options go to docs/render_docs.py, e.g. --only figures,report_pages
 set -euo pipefail
 cd "$(dirname "$0")"
 VENV="${WORKBENCH_VENV:-.venv}"
@@ -37,8 +40,17 @@ case "$cmd" in
     setup
     "$VENV/bin/python" -m workbench.app.launch "$@"
     ;;
+  docs)
+    setup
+    tests/app/install_browser.sh "$VENV"
+    if ! command -v pdftoppm >/dev/null; then  # cuts the report PDF into page pictures
+      SUDO=""; if [ "$(id -u)" -ne 0 ]; then SUDO="sudo"; fi
+      $SUDO apt-get update -qq && $SUDO apt-get install -y -qq --no-install-recommends poppler-utils >/dev/null
+    fi
+    "$VENV/bin/python" docs/render_docs.py "$@"
+    ;;
   *)
-    echo "usage: ./tasks.sh demo | test | app" >&2
+    echo "usage: ./tasks.sh demo | test | app | docs" >&2
     exit 2
     ;;
 esac

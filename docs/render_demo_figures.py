@@ -40,10 +40,17 @@ def main(argv=None) -> None:
     args = ap.parse_args(argv)
     t0 = time.perf_counter()
     result = run_study(read_study(ROOT / "demo_cohort" / "study.toml"), replicates=args.replicates)
-    out = Path(args.out)
+    widths = tuple(w.strip() for w in args.widths.split(",") if w.strip())
+    written = render_figures(result, Path(args.out), widths)
+    for p in written:
+        print(p.relative_to(ROOT) if p.is_relative_to(ROOT) else p)
+    print(f"{len(written)} figures in {time.perf_counter() - t0:.1f} s")
+
+
+def render_figures(result, out: Path, widths=("double",)) -> list[Path]:
+    """Every standard figure of ``result`` and the two nomogram patients, as PNG files in ``out``."""
     for old in out.glob("*.png"):
         old.unlink()
-    widths = tuple(w.strip() for w in args.widths.split(",") if w.strip())
     written = write_figures(result, out, formats=("png",), widths=widths)
     # two external patients overlaid on both nomograms: one from a scanner the network used,
     # one from the scanner it never saw (flagged on the figure)
@@ -62,9 +69,7 @@ def main(argv=None) -> None:
             final = p.with_name(f"{stem}.png")
             p.replace(final)
             written.append(final)
-    for p in written:
-        print(p.relative_to(ROOT) if p.is_relative_to(ROOT) else p)
-    print(f"{len(written)} figures in {time.perf_counter() - t0:.1f} s")
+    return written
 
 
 if __name__ == "__main__":

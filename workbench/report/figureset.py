@@ -11,7 +11,9 @@ line, the report and the app show the same pictures:
   (labelled "apparent");
 * hazard ratios of each Cox model, selection frequency of the signature's
   features across the validation refits, the penalised coefficient path, and the
-  proportional-hazards diagnostics.
+  proportional-hazards diagnostics;
+* the patient flow (development and external cohorts) and the baseline survival
+  curve of each Cox model.
 """
 
 from __future__ import annotations
@@ -198,6 +200,16 @@ def study_figures(result, *, width="double") -> dict:
                                                          width=width)
     for name, ph in result.ph_tests.items():
         figs[f"ph_{name}"] = plot_schoenfeld(ph, width=width, time_unit=unit)
+    from workbench.figures.baseline import plot_baseline_survival
+    from workbench.figures.flow import plot_patient_flow
+    from workbench.report.appendix import baseline_curves
+    from workbench.report.flow import patient_flow
+
+    figs["patient_flow"] = plot_patient_flow(patient_flow(result), width=width)
+    curves = baseline_curves(result)
+    if curves:
+        figs["baseline_survival"] = plot_baseline_survival({labels[k]: v for k, v in curves.items()},
+                                                           horizons=horizons, time_unit=unit, width=width)
     return figs
 
 

@@ -36,7 +36,8 @@ from workbench.workflow import run_study
 STUDY = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 
 EXPECTED = {"nomogram", "km_risk_groups", "td_auc", "calibration", "decision_curve", "hazard_ratios_clinical",
-            "hazard_ratios_combined", "selection_frequency", "coefficient_path", "ph_clinical", "ph_combined"}
+            "hazard_ratios_combined", "selection_frequency", "coefficient_path", "ph_clinical", "ph_combined", "patient_flow",
+            "baseline_survival"}
 
 
 @pytest.fixture(scope="module")
