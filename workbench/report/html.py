@@ -165,9 +165,12 @@ def _embed(fig) -> str:
     return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def _figure(items: list, key: str, title: str, caption: str, draw, half: bool = False) -> None:
-    """Draw one figure into ``items``; a figure that cannot be drawn leaves a note, not a broken report."""
-    item = {"id": f"fig-{key}", "title": title, "caption": caption, "src": "", "error": "", "half": half}
+def _figure(items: list, key: str, title: str, caption: str, draw, half: bool = False, compact: bool = False) -> None:
+    """Draw one figure into ``items``; a figure that cannot be drawn leaves a note, not a broken report.
+
+    ``compact`` figures print at most about half a page high, so two share a page."""
+    item = {"id": f"fig-{key}", "title": title, "caption": caption, "src": "", "error": "", "half": half,
+            "compact": compact}
     try:
         with warnings.catch_warnings():
             # the run already recorded its statistical warnings; redrawing must not repeat them
@@ -343,7 +346,7 @@ def _figures(result, d: dict) -> dict:
     if sig is not None and sig.path_ is not None:
         _figure(out["main"], "path", "Penalised path of the imaging signature",
                 "Coefficients along the penalty path and the cross-validated deviance that chose the penalty.",
-                lambda: plot_coefficient_path(sig.path_, title="Imaging signature", width="double"))
+                lambda: plot_coefficient_path(sig.path_, title="Imaging signature", width="double"), compact=True)
     for k, ph in result.ph_tests.items():
         _figure(out["main"], f"ph-{k}", f"Proportional-hazards diagnostics: {_label(k)}",
                 "Scaled Schoenfeld residuals against transformed time with a smooth; a flat line supports "
