@@ -296,12 +296,15 @@ def _figures(result, d: dict) -> dict:
             "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
             "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
             lambda: _calibration_fig(models, train, horizons, unit))
+    # the estimator the run used (optimism, out-of-bootstrap, .632+, cross-validation), not a fixed word
+    how = estimate_label(d).split(" (")[0]
     for j, h in enumerate(horizons if d["comparison"] else ()):
         app = d["validation"]["method"] == "none"
         _figure(out["decision"], f"decision-{j}",
-                f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else 'optimism-corrected'})",
+                f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else how.lower()})",
                 "Net benefit against the threshold risk, " + ("measured on the development patients (optimistic)"
-                if app else "corrected for optimism like the other metrics") + ", with treat-all and treat-none.",
+                if app else f"validated like the other metrics ({how.lower()})") + ", with the two reference "
+                "strategies: everyone acted on, no one acted on.",
                 lambda j=j: _decision_fig(d, unit, j), half=True)
     if result.external is not None:
         ext = result.external_prepared.cohort

@@ -134,7 +134,8 @@ def _interval_text(v: dict) -> str:
     level = f"{100 * v['conf_level']:.0f}%"
     s = v.get("settings", {})
     if v.get("interval") == "two-stage":
-        inner = (f"{s.get('inner_replicates')} inner bootstrap replicates" if v["method"] == "bootstrap"
+        k = s.get("inner_replicates")
+        inner = (f"{k} inner bootstrap replicate{'' if k == 1 else 's'}" if v["method"] == "bootstrap"
                  else f"one {s.get('folds')}-fold split")
         return (f"{level} intervals come from a two-stage bootstrap (Noma et al. 2021): the whole "
                 f"validation was repeated in {s.get('outer_replicates')} bootstrap samples of the patients "

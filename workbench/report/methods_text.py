@@ -107,8 +107,8 @@ def validation_claims(result, d: dict) -> list[Claim]:
                 else "the out-of-bootstrap estimate (Efron 1983)")
         detail = ("Each refit was evaluated on the patients not drawn into its bootstrap sample (grouped by "
                   "patient identifier), because a model that nearly interpolates its training rows (the random "
-                  "survival forest) makes Harrell's optimism correction invalid; "
-                  + ("the .632+ rule weighed the apparent and out-of-bootstrap values by the relative "
+                  "survival forest) makes Harrell's optimism correction invalid. "
+                  + ("The .632+ rule weighed the apparent and out-of-bootstrap values by the relative "
                      "overfitting rate (no-information value 0.5 for C and AUC, permutation value for the Brier "
                      "score; calibration measures use the out-of-bootstrap value). " if "632plus" in ests else "")
                   + "The same estimator was used for every model, so model comparisons use one method for both "
@@ -184,8 +184,8 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
         prot = f", preserving the effects of {_join(im.harmonise.protect)}" if im.harmonise.protect else ""
         out.append(Claim("imaging.harmonisation", f"Imaging features were harmonised across scanners by ComBat "
                          f"({im.harmonise.empirical_bayes} empirical Bayes{prot}; Johnson et al. 2007), learned "
-                         f"inside each fit of the {_join(_label(k) for k in harm)} "
-                         f"model{'s' if len(harm) > 1 else ''}."))
+                         + (f"inside each fit of the {_label(harm[0])} model." if len(harm) == 1 else
+                            "inside each fit of these models: " + "; ".join(_label(k) for k in harm) + ".")))
     elif imaging_models:
         why = ("the study names no scanner (batch) column" if not result.spec.data.batch
                else "harmonisation was switched off ([imaging.harmonise] method = 'none')")

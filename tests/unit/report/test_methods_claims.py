@@ -325,8 +325,8 @@ def test_wide_models_are_named_as_harmonised(small_study_result, wide_models):
     assert all(m.combat_ is not None for m in wide_models.values())
     d = results_dict(small_study_result)
     t = next(x.text for x in _imaging_claims(r, d) if x.key == "imaging.harmonisation")
-    assert (f"each fit of the {MODEL_LABELS['combined']}, {MODEL_LABELS['penalised_all']} and "
-            f"{MODEL_LABELS['forest']} models") in t
+    assert t.endswith(f"inside each fit of these models: {MODEL_LABELS['combined']}; "
+                      f"{MODEL_LABELS['penalised_all']}; {MODEL_LABELS['forest']}.")
 
 
 def test_no_harmonisation_is_said_when_none_was_learned(small_study_result):

@@ -196,3 +196,15 @@ def test_flow_characteristics_and_appendix_are_placed(html):
     app = section(html, "appendix")
     assert 'id="fig-baseline"' in app and "Scaling and weights of the kept features" in app
     assert "ComBat location / scale of each training scanner" in app
+
+
+def test_validation_words_follow_the_estimator_used(html, data):
+    from workbench.report.methods import estimate_label
+
+    label = estimate_label(data)
+    assert set(data["validation"]["estimator"].values()) == {"optimism"}
+    assert label.startswith("Optimism-corrected estimate")
+    assert f"<tr><th>Method</th><td>{label.replace(chr(39), '&#39;')}</td></tr>" in section(html, "validation-method")
+    assert "Decision curves at 12 months (optimism-corrected estimate)" in section(html, "decision")
+    # the reference strategies in the project's own words
+    assert "treat-all" not in section(html, "decision") and "everyone acted on" in section(html, "decision")
