@@ -76,9 +76,12 @@ def reporting_checklist(result) -> tuple[ChecklistItem, ...]:
                       AUTHORS, "data", "centre and scanner counts are given; design and dates are not known "
                       "to the run"),
         ChecklistItem("Participants", "Eligibility criteria, setting, treatments received", AUTHORS, "data"),
-        ChecklistItem("Participants", "Numbers read, analysed and set aside", FILLED, "data"),
+        ChecklistItem("Participants", "Numbers read, analysed and set aside", FILLED, "data",
+                      "patient flow diagram with the reasons and counts"),
         ChecklistItem("Participants", "Characteristics of the participants (table of clinical factors)",
-                      AUTHORS, None),
+                      FILLED, "data", "the model's predictors by centre" + (" and for the external cohort" if ext
+                                                                             else "") + "; factors outside the model "
+                      "(e.g. treatments) are for the authors"),
         ChecklistItem("Data preparation", "Cleaning, harmonisation of imaging features across scanners, "
                       "feature filters", FILLED, "predictors"),
         ChecklistItem("Outcome", "Definition, time unit, how and when assessed; events and censoring; "
@@ -116,7 +119,8 @@ def reporting_checklist(result) -> tuple[ChecklistItem, ...]:
                       "generated from the run; the authors should review and add"),
         ChecklistItem("Interpretation", "Interpretation, implications for practice and research", AUTHORS, None),
         ChecklistItem("Model availability", "How to obtain and use the model", FILLED, "model",
-                      "full Cox formulas here; the model bundle file for software use"),
+                      "full Cox formulas here, the baseline survival curve and the values that reproduce "
+                      "predictions in the appendix; the model bundle file for software use"),
         ChecklistItem("Software and code", "Software, versions, seed, input data hash", FILLED, "software"),
         ChecklistItem("Data availability", "Whether and how the data can be shared", AUTHORS, None),
         ChecklistItem("Protocol and registration", "Where the protocol is available, registration", AUTHORS,

@@ -157,6 +157,8 @@ def test_checklist_items_point_at_real_sections(result, html):
     must = {i.topic for i in items if i.status == AUTHORS}
     assert {"Funding", "Ethics", "Patient and public involvement", "Source of data"} <= must
     assert "External validation" in must  # no external cohort in this run
+    chars = next(i for i in items if i.item.startswith("Characteristics of the participants"))
+    assert chars.status == FILLED and chars.section == "data" and "external" not in chars.note
     assert "This run has no external cohort" in text_of(section(html, "external"))
 
 
