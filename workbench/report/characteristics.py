@@ -106,4 +106,8 @@ def characteristics_table(result) -> dict:
              "median and interquartile range of the recorded values (values below a detection limit counted at "
              "the limit); percentages of the patients with a recorded value. Missing values are those left for "
              "imputation inside each fit."]
-    return {"columns": [g for g, _ in groups], "rows": rows, "notes": notes}
+    cols = [g for g, _ in groups]
+    parts = (["by centre"] if cols[0].startswith("Centre ") else []) + (["for the external cohort"]
+                                                                         if "External" in cols else [])
+    caption = "Patient characteristics" + (" " + " and ".join(parts) if parts else "")
+    return {"columns": cols, "rows": rows, "notes": notes, "caption": caption}

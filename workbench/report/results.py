@@ -194,6 +194,9 @@ def results_dict(result) -> dict:
             "n_imaging_pool": len(prep.pool),
             "n_excluded_features": len(prep.excluded_features),
             "n_ids_only_in_one_table": len(prep.cohort.source.dropped_ids),
+            # of those: a clinical row but no imaging row, and the reverse (the patient flow's reasons)
+            "n_without_imaging_row": len(prep.cohort.source.only_in_clinical),
+            "n_without_clinical_row": len(prep.cohort.source.only_in_features),
         },
         "validation": {
             "method": v.method,

@@ -37,6 +37,10 @@ def test_flow_counts_are_the_run_records(result):
     assert dev.stages[0].n == result.prepared.n_read and dev.stages[-1].n == result.cohort.n
     assert dev.exits[-1].n == len(result.prepared.incomplete_ids) == dev.stages[0].n - dev.stages[-1].n
     assert f"{result.cohort.n_events} events" in dev.stages[-1].detail[0]
+    from workbench.report.results import results_dict
+
+    c = results_dict(result)["cohort"]
+    assert c["n_without_imaging_row"] + c["n_without_clinical_row"] == c["n_ids_only_in_one_table"]
 
 
 def test_flow_names_the_table_a_patient_was_missing_from(gbsg2_tables, gbsg2_columns):
@@ -48,7 +52,8 @@ def test_flow_names_the_table_a_patient_was_missing_from(gbsg2_tables, gbsg2_col
     with pytest.warns(Warning, match="do not match"):
         c = read_cohort(pair.features, pair.clinical, gbsg2_columns, on_unmatched="intersect")
     assert len(c.source.only_in_clinical) == 5 and len(c.source.only_in_features) == 2
-    col = flow_column(PreparedCohort(c, c.n, (), {}, (), ()), "GBSG2", {}, "days")
+    prep = PreparedCohort(c, c.n, (), {}, (), ())
+    col = flow_column(prep, "GBSG2", {}, "days")
     assert col.stages[0].n == 686 and col.stages[1].n == 679
     assert col.exits[0].reasons == (("no imaging row", 5), ("no clinical row", 2))
 
@@ -85,6 +90,7 @@ def test_characteristics_by_centre(result):
     c = result.cohort
     centres = sorted(set(map(str, c.centre)))
     assert t["columns"] == [f"Centre {k}" for k in centres] + ["Development, all"]
+    assert t["caption"] == "Patient characteristics by centre"
     rows = {r["label"]: r["cells"] for r in t["rows"]}
     # reference: pandas counts per centre
     import pandas as pd
