@@ -49,7 +49,7 @@ def demo_result():
     )
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", WorkbenchWarning)
-        return run_study(spec, replicates=2)
+        return run_study(spec, replicates=2, permutations=0)  # no figure draws the added-value test
 
 
 @pytest.mark.slow
