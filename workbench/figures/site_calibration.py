@@ -16,7 +16,14 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 
 from workbench.errors import SpecError
-from workbench.figures.style import INK, NEUTRAL, base_font_size, model_styles, new_figure, style_context
+from workbench.figures.style import (
+    INK,
+    NEUTRAL,
+    base_font_size,
+    model_styles,
+    new_figure,
+    style_context,
+)
 from workbench.figures.ticks import format_number
 
 __all__ = ["plot_site_calibration", "site_rows"]
@@ -94,15 +101,20 @@ def plot_site_calibration(groups: Mapping, *, horizon: float, models: Sequence[s
     n_rows = len(rows)
     with style_context(width):
         fig = new_figure(width, aspect=1.0)
-        fig.set_figheight((n_rows * 2.6 * fs + (13.0 if width == "single" else 9.0) * fs) / 72.0)
+        fig.set_figheight(((n_rows + 0.4 * sum(r["kind"] == "pooled" for r in rows)) * 2.6 * fs
+                           + (13.0 if width == "single" else 9.0) * fs) / 72.0)
         a = fig.add_subplot()
         a.set_xscale("log")
         a.axvline(1.0, color=NEUTRAL, lw=0.8)
         step = 0.22 if len(models) > 1 else 0.0
         offsets = {m: (i - (len(models) - 1) / 2) * step for i, m in enumerate(models)}
         ylabels, xs, wide = [], [1.0], []
+        ypos, y = [], 0.0
+        for r in rows:  # the pooled row is taller: two diamonds and their prediction intervals
+            y -= 1.4 if r["kind"] == "pooled" else 1.0
+            ypos.append(y + (0.2 if r["kind"] == "pooled" else 0.0))
         for i, r in enumerate(rows):
-            y = -float(i)
+            y = ypos[i]
             if r["kind"] == "header":
                 ylabels.append((y, _GROUPING.get(r["grouping"], r["grouping"]), "header"))
                 continue
@@ -126,13 +138,13 @@ def plot_site_calibration(groups: Mapping, *, horizon: float, models: Sequence[s
             for m, (est, lo, hi, plo, phi) in r["values"].items():
                 if not _finite(est):
                     continue
-                yy = y + offsets[m]
+                yy = y + 1.6 * offsets[m]
                 if _finite(plo, phi):
                     (pi,) = a.plot([plo, phi], [yy, yy], color=styles[m].color, lw=0.8, linestyle=(0, (1, 1)))
                     pi.set_gid(f"pi:{r['grouping']}:{m}")
                     wide.append((plo, phi, yy, styles[m].color))
                 if _finite(lo, hi):
-                    h = 0.09 if step else 0.22
+                    h = 0.15 if step else 0.22
                     (dia,) = a.fill([lo, est, hi, est], [yy, yy + h, yy, yy - h], color=styles[m].color,
                                     linewidth=0)
                     dia.set_gid(f"pooled:{r['grouping']}:{m}")
@@ -161,7 +173,7 @@ def plot_site_calibration(groups: Mapping, *, horizon: float, models: Sequence[s
                 tl.set_color("#8a4b00")
         a.tick_params(axis="y", length=0)
         a.spines["left"].set_visible(False)
-        a.set_ylim(-n_rows + 0.4, 0.6)
+        a.set_ylim(min(ypos) - 0.6, max(ypos) + 0.6)
         sep = "\n" if width == "single" else " "
         a.set_xlabel(f"Observed / expected by {format_number(horizon)} {time_unit}".replace("  ", " ") + f"{sep}(log scale)")
         if title:

@@ -206,9 +206,8 @@ def _difference_and_site_figures(result, width) -> dict:
     """Combined-minus-clinical AUC and net benefit (internal beside external) and O/E per centre and scanner."""
     from workbench.figures.differences import plot_difference_curves
     from workbench.figures.site_calibration import plot_site_calibration
-    from workbench.report.external_text import worst_external_calibration
+    from workbench.report.external_text import worst_horizon
     from workbench.report.methods import unseen_batches
-    from workbench.report.results import results_dict
 
     figs = {}
     unit = result.cohort.time_unit
@@ -221,10 +220,12 @@ def _difference_and_site_figures(result, width) -> dict:
     groups = {k: g for k, g in (getattr(result.external, "groups", None) or {}).items() if len(g.levels) >= 2} \
         if result.external is not None else {}
     if groups:
-        worst = worst_external_calibration(results_dict(result))
-        hs = list(result.external.horizons)
-        h = worst["horizon"] if worst else hs[len(hs) // 2]
+        est = result.external.estimates
+        perf = {k: {"external_performance": {n: {"estimate": e.estimate} for n, e in est[k].items()}} for k in est}
         models = [k for k in COX_MODELS if k in result.models] or list(result.models)[:2]
+        hs = list(result.external.horizons)
+        h = worst_horizon({"external": {"n": result.external.n}, "models": perf,
+                           "study": {"horizons": list(result.spec.horizons)}}, models, hs[len(hs) // 2])
         figs["site_calibration"] = plot_site_calibration(
             groups, horizon=h, models=models, labels={k: MODEL_LABELS.get(k, k) for k in models},
             unseen=unseen_batches(result), width=width, time_unit=unit,

@@ -340,6 +340,7 @@ def _difference_figures(items: list, result, unit: str) -> None:
     for name, bands in (getattr(result, "difference_bands", None) or {}).items():
         nb = bands["net_benefit"]["internal"]
         ext = result.external is not None
+        names = {"model_label": _label(name), "baseline_label": _label(nb.baseline)}
         _figure(items, f"difference-{name}", f"{_label(name)} minus {_label(nb.baseline)}: AUC and net benefit",
                 "Differences from the same resamples for both models. Internal: validated AUC differences at the "
                 "study horizons with their intervals, and the optimism-corrected net-benefit difference at "
@@ -347,27 +348,25 @@ def _difference_figures(items: list, result, unit: str) -> None:
                 + (" External: the difference of the unchanged models on the external patients with pointwise "
                    "percentile bands over resamples of those patients (the resamples of the external table)."
                    if ext else "") + " Above zero favours the first model.",
-                lambda b=bands: plot_difference_curves(b, time_unit=unit, model_label=_label(name),
-                                                       baseline_label=_label(nb.baseline)))
+                lambda b=bands, kw=names: plot_difference_curves(b, time_unit=unit, **kw))
 
 
 def _site_figure(items: list, result, d: dict, unit: str) -> None:
     """Observed/expected per centre and per scanner with the random-effects pooling (external cohort)."""
     from workbench.figures.site_calibration import plot_site_calibration
-    from workbench.report.external_text import worst_external_calibration
+    from workbench.report.external_text import worst_horizon
 
     groups = {k: g for k, g in (getattr(result.external, "groups", None) or {}).items() if len(g.levels) >= 2}
     if not groups:
         return
-    worst = worst_external_calibration(d)
-    hs = list(result.external.horizons)
-    h = worst["horizon"] if worst else hs[len(hs) // 2]
     models = [k for k in ("clinical", "combined") if k in result.models] or list(result.models)[:2]
+    hs = list(result.external.horizons)
+    h = worst_horizon(d, models, hs[len(hs) // 2])
     _figure(items, "external-sites", f"Calibration by centre and scanner at {h:g} {unit} (external cohort)",
             "Observed/expected risk (Kaplan-Meier observed over mean predicted) with 95% bootstrap intervals of each "
             "site's patients; the pooled random-effects estimate (diamond: 95% confidence interval) and the 95% "
             "prediction interval for a new site (dotted) under each grouping. Open markers: a scanner the "
-            "development data did not have. The horizon is the one with the largest overall departure.",
+            "development data did not have. The horizon is the one at which these models depart most overall.",
             lambda: plot_site_calibration(groups, horizon=h, models=models, labels={k: _label(k) for k in models},
                                           unseen=unseen_batches(result), time_unit=unit))
 

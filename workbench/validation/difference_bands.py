@@ -74,9 +74,10 @@ class DifferenceBand:
         How the band was formed ("shifted-percentile", "percentile", "two-stage", or "").
     note : str
     x_max : float
-        Net benefit: 0.05 past the largest threshold at which either model's net benefit
-        (the estimate behind the curve) is above zero, where acting on the model can still
-        pay off; the natural right end of a threshold axis. NaN for AUC.
+        Net benefit: the right end of a threshold axis, 0.1 past the largest threshold at
+        which acting on everyone still has positive net benefit (about the event risk by the
+        horizon), at least 0.3; beyond it few patients are acted on and the curves are noise.
+        A display choice only: every threshold stays in ``x``. NaN for AUC.
     """
 
     quantity: str
@@ -141,14 +142,9 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
     common = dict(quantity="net_benefit", setting=setting, model=model, baseline=baseline, x=x,
                   horizon=float(result.horizons[j]), n_replicates=int(ra.size))
     est_name = {result.estimator.get(m, "optimism") for m in (model, baseline)}
-    if result.method == "external":
-        both = np.vstack([am.net_benefit[j], ab.net_benefit[j]])
-    else:
-        from workbench.validation.compare import _nb_validated
-
-        both = np.vstack([_nb_validated(result, model)[j], _nb_validated(result, baseline)[j]])
-    pos = x[np.any(np.nan_to_num(both) > 0, axis=0)]
-    common["x_max"] = float(min(x.max(), (pos.max() if pos.size else x.min()) + 0.05))
+    # display range: acting on everyone pays up to about the event risk; 0.1 past it is shown
+    pos = x[np.nan_to_num(np.asarray(am.treat_all[j], float)) > 0]
+    common["x_max"] = float(min(x.max(), max(0.3, (pos.max() if pos.size else x.min()) + 0.1)))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # thresholds no resample reaches stay NaN
         if result.method == "external":

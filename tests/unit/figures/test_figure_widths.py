@@ -107,12 +107,13 @@ def _close(a, b):
 def test_site_calibration_draws_the_pooled_numbers_of_results_json(demo_result, width):
     # Reference check: the pooled random-effects O/E, its interval and the prediction interval for a new
     # site drawn are the per-scanner validation numbers written to results.json, and so is every level.
-    from workbench.report.external_text import worst_external_calibration
+    from workbench.report.external_text import worst_horizon
     from workbench.report.results import results_dict
 
     d = results_dict(demo_result)
     fig = study_figures(demo_result, width=width)["site_calibration"]
-    h = worst_external_calibration(d)["horizon"]
+    h = worst_horizon(d, ("clinical", "combined"), 0.0)
+    assert h in demo_result.spec.horizons
     key = f"oe_ratio@{h:g}"
     block = d["external"]["by_group"]["scanner"]
     ax = fig.axes[0]

@@ -8,7 +8,10 @@ from __future__ import annotations
 
 import copy
 
-from workbench.report.external_text import external_calibration_sentences, worst_external_calibration
+from workbench.report.external_text import (
+    external_calibration_sentences,
+    worst_external_calibration,
+)
 
 
 def _e(x, lo=None, hi=None):
@@ -46,6 +49,8 @@ def test_names_the_model_horizon_and_site_that_are_furthest_off():
     assert "ICI 0.140 (95% CI 0.100 to 0.190)" in text
     assert "scanner_D (83 patients, a scanner absent from the development data): observed/expected 1.90" in text
     assert "Westmoor" not in text  # one centre is the whole cohort: not a site comparison
+    # the clinical model's 1.05 (interval 0.90 to 1.20) is within the calibrated range
+    assert "calibration in the large held for the Clinical Cox model: the largest departure was 1.05" in text
 
 
 def test_sentence_changes_when_the_numbers_change():
@@ -72,6 +77,11 @@ def test_calibrated_models_are_said_to_hold_and_no_external_gives_nothing():
         for k, e in m["external_performance"].items():
             e["estimate"] = 1.03 if k.startswith("oe") else 0.02
     text = external_calibration_sentences(d, LABELS, "months")
-    assert len(text) == 1 and "calibration in the large held" in text[0] and "1.03" in text[0]
+    assert len(text) == 1 and "held for the Clinical Cox and Clinical + imaging signature models" in text[0]
+    assert "1.03" in text[0]
+    # outside the range but with an interval that holds 1: not called miscalibrated
+    d["models"]["combined"]["external_performance"]["oe_ratio@24"] = _e(1.15, 0.95, 1.35)
+    text = external_calibration_sentences(d, LABELS, "months")
+    assert len(text) == 1 and "largest departure was 1.15 (95% CI 0.95 to 1.35) at 24 months" in text[0]
     d["external"] = None
     assert external_calibration_sentences(d, LABELS, "months") == []
