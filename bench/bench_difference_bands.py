@@ -109,12 +109,14 @@ def internal_run(cohorts: int, replicates: int, n: int, seed: int = 11, interval
 
 def summarise(name: str, cov: np.ndarray, nominal: float = 0.95) -> str:
     per_point = np.nanmean(cov, axis=0)
-    r = int(np.sum(np.isfinite(cov[:, 0]))) if cov.size else 0
+    r = int(np.min(np.sum(np.isfinite(cov), axis=0))) if cov.size else 0
     p = float(np.nanmean(per_point))
     worst = float(np.nanmin(per_point))
     pts = " ".join(f"{v:.2f}" for v in per_point)
-    return (f"{name:<42s} mean pointwise coverage {p:.3f} (MC SE {mc_se_prop(p, max(r, 1)):.3f}, {r} cohorts); "
-            f"worst point {worst:.3f}; nominal {nominal:.2f}\n    per point: {pts}")
+    withdrawn = float(np.mean(~np.isfinite(cov)))
+    return (f"{name:<42s} mean pointwise coverage {p:.3f} (MC SE of one point {mc_se_prop(p, max(r, 1)):.3f}, {r} cohorts); "
+            f"worst point {worst:.3f}; nominal {nominal:.2f}; band withdrawn (zero width or excluding its "
+            f"estimate) at {100 * withdrawn:.0f}% of cohort-points\n    per point: {pts}")
 
 
 def main(argv=None) -> None:

@@ -47,7 +47,7 @@ import numpy as np
 
 from workbench.errors import SpecError, WorkbenchError
 from workbench.metrics.td_auc import time_dependent_auc
-from workbench.validation.intervals import bias_corrected_percentiles
+from workbench.validation.intervals import bias_corrected_percentiles, guard
 
 __all__ = ["DifferenceBand", "auc_difference_external", "auc_difference_internal", "difference_grid",
            "external_auc_band", "net_benefit_difference"]
@@ -65,7 +65,8 @@ class DifferenceBand:
     x : ndarray
         Times (AUC) or threshold risks (net benefit).
     estimate, lower, upper : ndarray
-        Difference and its pointwise band (NaN where there is none).
+        Difference and its pointwise band (NaN where there is none, and where it would have
+        zero width or exclude its estimate: the rule of every workbench interval).
     horizon : float
         Horizon of the net benefit (NaN for AUC).
     n_replicates : int
@@ -104,6 +105,18 @@ def _pct(v: np.ndarray, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
         if col.size >= 2:
             lo[j], hi[j] = np.quantile(col, [a, 1.0 - a])
     return lo, hi
+
+
+def _guarded(quantity: str, est: np.ndarray, lo: np.ndarray, hi: np.ndarray):
+    """The interval rule of every workbench interval, point by point (:func:`~.intervals.guard`).
+
+    A band of zero width (the two models pick the same patients in every resample, so the
+    resampled differences do not vary) or one that excludes its estimate is withdrawn (NaN).
+    """
+    out_lo, out_hi = np.full(est.shape, np.nan), np.full(est.shape, np.nan)
+    for k in range(est.size):
+        out_lo[k], out_hi[k], _ = guard(quantity, float(est[k]), float(lo[k]), float(hi[k]), difference=True)
+    return out_lo, out_hi
 
 
 def _paired_rows(result, model: str, baseline: str):
@@ -152,7 +165,7 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
                 return DifferenceBand(**common, estimate=app, lower=nan, upper=nan, band="",
                                       note="no band: fewer than 2 resamples")
             d = rm.nb_train[ra, j] - rbm.nb_train[rb, j]
-            lo, hi = _pct(d, result.conf_level)
+            lo, hi = _guarded("net_benefit", app, *_pct(d, result.conf_level))
             return DifferenceBand(**common, estimate=app, lower=lo, upper=hi, band="percentile",
                                   note="resamples of the external patients, predictions fixed")
         from workbench.validation.compare import _nb_validated
@@ -165,6 +178,7 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
             lo, hi = nan.copy(), nan.copy()
             for k in range(x.size):
                 lo[k], hi[k] = bias_corrected_percentiles(d[:, k], est[k], result.conf_level)
+            lo, hi = _guarded("net_benefit", est, lo, hi)
             return DifferenceBand(**{**common, "n_replicates": int(np.isfinite(d[:, 0]).sum())}, estimate=est,
                                   lower=lo, upper=hi, band="two-stage",
                                   note="validated difference; band: bias-corrected percentiles of the paired "
@@ -173,7 +187,8 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
             b = rm.nb_train[ra, j] - rbm.nb_train[rb, j]
             lo, hi = _pct(b, result.conf_level)
             shift = est - np.nanmean(b, axis=0)
-            return DifferenceBand(**common, estimate=est, lower=lo + shift, upper=hi + shift,
+            lo, hi = _guarded("net_benefit", est, lo + shift, hi + shift)
+            return DifferenceBand(**common, estimate=est, lower=lo, upper=hi,
                                   band="shifted-percentile",
                                   note="optimism-corrected; band: percentiles of the paired bootstrap-sample "
                                        "differences shifted to the corrected estimate")
@@ -267,6 +282,7 @@ def external_auc_band(risk_model, risk_baseline, y, strata, censoring_method: st
             diffs.append(m - b)
     d = np.array(diffs, float).reshape(-1, grid.size)
     lo, hi = _pct(d, conf_level) if d.shape[0] >= 2 else (np.full(grid.size, np.nan),) * 2
+    lo, hi = _guarded("auc", est, lo, hi)
     return DifferenceBand("auc", "external", model, baseline, grid, est, lo, hi, np.nan, int(d.shape[0]),
                           "percentile" if d.shape[0] >= 2 else "",
                           "resamples of the external patients (those of the external table), predictions fixed")
