@@ -333,6 +333,12 @@ def _figures(result, d: dict) -> dict:
     return out
 
 
+_BAND_WORDS = {
+    "two-stage": "with a two-stage bootstrap band (bias-corrected percentiles over outer samples, paired)",
+    "shifted-percentile": "with the cheap shifted-percentile paired bootstrap band",
+}
+
+
 def _difference_figures(items: list, result, unit: str) -> None:
     """Model-minus-baseline AUC and net benefit, internal beside external (validation/difference_bands.py)."""
     from workbench.figures.differences import plot_difference_curves
@@ -343,8 +349,9 @@ def _difference_figures(items: list, result, unit: str) -> None:
         names = {"model_label": _label(name), "baseline_label": _label(nb.baseline)}
         _figure(items, f"difference-{name}", f"{_label(name)} minus {_label(nb.baseline)}: AUC and net benefit",
                 "Differences from the same resamples for both models. Internal: validated AUC differences at the "
-                "study horizons with their intervals, and the optimism-corrected net-benefit difference at "
-                f"{nb.horizon:g} {unit} with a shifted-percentile paired bootstrap band."
+                "study horizons with their intervals, and the validated net-benefit difference at "
+                f"{nb.horizon:g} {unit} " + _BAND_WORDS.get(nb.band, "without a band (see the note in results.json)")
+                + "."
                 + (" External: the difference of the unchanged models on the external patients with pointwise "
                    "percentile bands over resamples of those patients (the resamples of the external table)."
                    if ext else "") + " Above zero favours the first model.",
