@@ -188,3 +188,15 @@ def test_new_site_sample_size_table_equals_the_results(html, data):
     for rows in ns.values():
         for r in rows:
             assert f"<b>{r['n_required']}</b>" in html
+
+
+def test_difference_figure_sits_with_the_comparison(html, data):
+    inc = section(html, "incremental")
+    assert 'id="fig-difference-combined"' in inc
+    # the numbers it draws are in results.json beside the comparison they belong to
+    curves = data["comparison"]["combined"]["difference_curves"]
+    assert set(curves) == {"auc", "net_benefit"}
+    assert curves["net_benefit"]["band"] == "two-stage" and curves["net_benefit"]["setting"] == "internal"
+    assert curves["auc"]["x"] == [float(h) for h in data["study"]["horizons"]]
+    assert "This run has no external cohort" in text_of(section(html, "external"))
+    assert "fig-decision-external" not in section(html, "decision")

@@ -122,6 +122,8 @@ FIGURE_TITLES = {
     "td_auc": "Time-dependent AUC",
     "calibration": "Calibration at each horizon",
     "decision_curve": "Decision curves",
+    "difference_curves": "Combined minus clinical: AUC and net benefit",
+    "site_calibration": "Calibration by centre and scanner (external)",
     "selection_frequency": "Signature: selection frequency",
     "coefficient_path": "Signature: coefficient path",
 }
