@@ -27,6 +27,7 @@ from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.added_value import run_added_value
 from workbench.validation.compare import ComparisonResult, compare_models
+from workbench.validation.difference_bands import study_difference_bands
 from workbench.validation.groups import loco_groups
 from workbench.validation.resample import ValidationResult, validate, validate_external
 
@@ -107,6 +108,9 @@ class StudyResult:
     added_value : dict of str to AddedValueTest
         Permutation test of each imaging model against the baseline given the
         clinical predictors (empty when ``[added_value] permutations = 0``).
+    difference_bands : dict
+        Per compared model, AUC and net-benefit differences against the baseline with
+        paired bands, internal and external (:mod:`workbench.validation.difference_bands`).
     """
 
     spec: StudySpec
@@ -125,6 +129,7 @@ class StudyResult:
     warnings: tuple = field(default_factory=tuple)
     new_site: dict = field(default_factory=dict)
     added_value: dict = field(default_factory=dict)
+    difference_bands: dict = field(default_factory=dict)
 
     @property
     def cohort(self):
@@ -281,6 +286,10 @@ def run_study(
         kept = tuple(n for n in validation.notes if not n.startswith("no bootstrap replicates were run"))
         validation = replace(validation, method="none", notes=(*kept, note))
         comparisons = {k: replace(c, method="none") for k, c in comparisons.items()}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the run's warnings were recorded above; resampling repeats them
+        bands = study_difference_bands(validation, comparisons, external, external_comparisons, fitted,
+                                       ext_prepared.cohort if ext_prepared else None)
     seen, messages = set(), []
     for w in caught:
         key = (w.category.__name__, str(w.message))
@@ -314,5 +323,6 @@ def run_study(
         warnings=tuple(messages),
         new_site=new_site,
         added_value=added_value,
+        difference_bands=bands,
     )
 

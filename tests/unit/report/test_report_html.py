@@ -210,3 +210,15 @@ def test_validation_words_follow_the_estimator_used(html, data):
     assert "Decision curves at 12 months (optimism-corrected estimate)" in section(html, "decision")
     # the reference strategies in the project's own words
     assert "treat-all" not in section(html, "decision") and "everyone acted on" in section(html, "decision")
+
+
+def test_difference_figure_sits_with_the_comparison(html, data):
+    inc = section(html, "incremental")
+    assert 'id="fig-difference-combined"' in inc
+    # the numbers it draws are in results.json beside the comparison they belong to
+    curves = data["comparison"]["combined"]["difference_curves"]
+    assert set(curves) == {"auc", "net_benefit"}
+    assert curves["net_benefit"]["band"] == "two-stage" and curves["net_benefit"]["setting"] == "internal"
+    assert curves["auc"]["x"] == [float(h) for h in data["study"]["horizons"]]
+    assert "This run has no external cohort" in text_of(section(html, "external"))
+    assert "fig-decision-external" not in section(html, "decision")
