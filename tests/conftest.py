@@ -24,6 +24,16 @@ settings.register_profile("explore", derandomize=False)
 settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
 
 
+def pytest_collection_modifyitems(config, items):
+    """Files with a test marked ``slow`` first, each file's tests kept together and in order.
+
+    With parallel test processes (``-n``, one file per process at a time), the long files then
+    start at once instead of being left for the end, when the other process has run out of work.
+    """
+    slow = {item.path for item in items if item.get_closest_marker("slow")}
+    items.sort(key=lambda item: item.path not in slow)  # a stable sort keeps the collected order
+
+
 @dataclass
 class TablePair:
     features: Path

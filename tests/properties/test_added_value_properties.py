@@ -25,6 +25,8 @@ from workbench.validation.added_value import (
     within_permutation,
 )
 
+pytestmark = pytest.mark.slow  # a permutation test on 20 simulated cohorts
+
 DEMO = Path(__file__).parents[2] / "demo_cohort" / "study.toml"
 
 

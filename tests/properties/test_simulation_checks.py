@@ -28,6 +28,8 @@ from workbench.validation.compare import compare_models
 from workbench.validation.resample import validate
 from workbench.workflow import run_study
 
+pytestmark = pytest.mark.slow  # studies on simulated cohorts with a known truth
+
 DEMO = Path(__file__).parents[2] / "demo_cohort"
 
 

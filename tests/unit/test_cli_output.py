@@ -21,6 +21,8 @@ import pytest
 from workbench.cli import main
 from workbench.errors import WorkbenchError
 
+pytestmark = pytest.mark.slow  # several command-line runs of a GBSG2 study
+
 STUDY = """
 [study]
 name = "GBSG2 command-line check"

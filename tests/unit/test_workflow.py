@@ -11,6 +11,8 @@ from workbench.report.results import results_dict, write_results
 from workbench.study import read_study
 from workbench.workflow import RunCancelled, run_study
 
+pytestmark = pytest.mark.slow  # runs the small study (session fixture) and the command line on it
+
 
 @pytest.fixture(scope="module")
 def study_file(small_study_file):
@@ -66,10 +68,13 @@ def test_cancel_stops_the_run(study_file):
 
 
 def test_cli_run_and_bad_study(study_file, tmp_path, capsys):
-    assert main(["run", str(study_file), "--out", str(tmp_path / "r"), "--replicates", "2", "--quiet"]) == 0
+    # the figure files are checked on run_folder below; here the report and its PDF are written
+    assert main(["run", str(study_file), "--out", str(tmp_path / "r"), "--replicates", "2", "--quiet",
+                 "--no-figures"]) == 0
     out = capsys.readouterr().out
     assert "Harrell C" in out and "Caution:" in out
     assert (tmp_path / "r" / "results.json").exists()
+    assert (tmp_path / "r" / "report.html").exists()
     bad = tmp_path / "bad.toml"
     bad.write_text(study_file.read_text().replace("replicates = 3", "replicate = 3"))
     assert main(["run", str(bad)]) == 2

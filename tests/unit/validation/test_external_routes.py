@@ -19,7 +19,7 @@ from workbench.cli import main
 
 DEMO = Path(__file__).resolve().parents[3] / "demo_cohort"
 
-pytestmark = pytest.mark.slow  # one demo run with 2 replicates and one apply: about two minutes on 2 cores
+pytestmark = pytest.mark.slow  # one demo run (external resamples only) and one apply
 
 
 def _close(a, b, path=""):
@@ -37,10 +37,27 @@ def _close(a, b, path=""):
         assert a == b, (path, a, b)
 
 
+def _demo_study(folder: Path) -> Path:
+    """The demo study with its four models, made lighter for a test: no internal validation (only
+    the external numbers are compared), a 25-tree forest and a 30-value penalty path."""
+    from dataclasses import replace
+
+    from workbench.study import read_study, write_study
+
+    spec = read_study(DEMO / "study.toml")
+    spec = replace(
+        spec,
+        validation=replace(spec.validation, method="none"),
+        models=replace(spec.models, forest=replace(spec.models.forest, trees=25)),
+        imaging=replace(spec.imaging, penalty=replace(spec.imaging.penalty, n_alphas=30)),
+    )
+    return write_study(spec, folder / "demo_light.toml")
+
+
 def test_run_and_apply_give_identical_external_numbers(tmp_path, capsys):
     run = tmp_path / "run"
-    assert main(["run", str(DEMO / "study.toml"), "--out", str(run), "--replicates", "2", "--quiet",
-                 "--permutations", "0", "--no-report"]) == 0  # the added-value test is not compared here
+    assert main(["run", str(_demo_study(tmp_path)), "--out", str(run), "--replicates", "2", "--quiet",
+                 "--permutations", "0", "--no-report", "--no-figures"]) == 0  # the added-value test is not compared here
     assert main(["apply", str(run / "bundle"), "--features", str(DEMO / "external_imaging.csv"),
                  "--clinical", str(DEMO / "external_clinical.csv"), "--out", str(tmp_path / "ext")]) == 0
     capsys.readouterr()
