@@ -32,9 +32,9 @@ QUICK_PERMUTATIONS = 19
 
 def quick_permutations(spec: StudySpec, replicates: int) -> int | None:
     """The permutation count of a run with ``replicates`` (None: the study's own)."""
-    if int(replicates) >= spec.validation.replicates:
+    if int(replicates) >= spec.validation.replicates or spec.added_value.permutations <= QUICK_PERMUTATIONS:
         return None
-    return min(spec.added_value.permutations, QUICK_PERMUTATIONS)
+    return QUICK_PERMUTATIONS
 
 
 @st.cache_resource(show_spinner=False, max_entries=4)

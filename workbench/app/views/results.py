@@ -49,7 +49,7 @@ def _run_controls(spec) -> None:
         "replicates are rough."
         + (f" A quick run also tests the added value of imaging with only {state.QUICK_PERMUTATIONS} permutations "
            f"(instead of {spec.added_value.permutations}), so its p-value cannot go below 0.05."
-           if state.quick_permutations(spec, int(reps)) is not None and spec.added_value.permutations else "")
+           if state.quick_permutations(spec, int(reps)) is not None else "")
     )
     job = state.current_job()
     busy = job is not None and job.running
