@@ -283,7 +283,19 @@ def methods_paragraph(result, data: dict | None = None) -> str:
         if not sig["selected"]:
             text += (" The signature kept no feature, so the combined model had no signature term and was "
                      "equal to the clinical model.")
+        if combined.get("collinearity"):
+            text += (" The signature score's Pearson correlation with each clinical design column, and each "
+                     "column's variance inflation factor without and with the signature, were computed on the "
+                     "development cohort.")
     paras.append(text)
+    vm = result.models.get("clinical_volume")
+    if vm is not None:
+        scale = "on the log2 scale" if getattr(vm, "volume_transform_", None) == "log2" else "untransformed"
+        paras.append(f"To ask whether imaging adds more than tumour volume, a Cox model of the clinical terms plus "
+                     f"the volume feature {vm.volume_feature} ({scale}; missing values given the training median) "
+                     "was fitted and validated with the same resamples and estimator as the other models"
+                     + (", and the combined model was compared with it by paired differences."
+                        if d.get("volume_comparison") else "."))
     models = []
     for m in d["models"].values():
         if m["kind"] == "cox":
@@ -353,6 +365,8 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
             out.append("Volume dominance: " + w["message"])
         elif w["category"] == "ProportionalHazardsWarning":
             out.append("Proportional hazards: " + w["message"])
+        elif w["category"] == "LevelOrderWarning":
+            out.append("Order of a categorical effect: " + w["message"])
     v = d["validation"]
     for name, k in v["failures"].items():
         if k:
