@@ -104,12 +104,14 @@ def warn_level_order(models: dict, labels: dict, baseline: str = "clinical") -> 
     for name, m in models.items():
         if name == baseline or not hasattr(m, "transformer_") or not hasattr(m, "fit_"):
             continue
+        what = ("the imaging signature carries part of this predictor's information (see the collinearity "
+                "table)" if hasattr(m, "signature_score") else "the added imaging term carries part of this "
+                "predictor's information")
         for ch in level_order_changes(base, m):
             found.append(ch)
             warnings.warn(
                 f"{ch.label}: the hazard ratios follow the declared level order in the {labels.get(baseline, baseline)} "
                 f"model ({_hr_list(ch.levels, ch.before)}) but not in the {labels.get(name, name)} model "
-                f"({_hr_list(ch.levels, ch.after)}). The imaging term carries part of this predictor's information "
-                "(see the collinearity table); read that model's level effects as adjusted for imaging, not as "
-                f"the effect of {ch.label}.", LevelOrderWarning, stacklevel=2)
+                f"({_hr_list(ch.levels, ch.after)}): {what}. Read that model's level effects as adjusted for "
+                f"imaging, not as the effect of {ch.label}.", LevelOrderWarning, stacklevel=2)
     return tuple(found)
