@@ -276,7 +276,7 @@ def _figures(result, d: dict) -> dict:
                 lambda: _calibration_fig(models, ext, eh, unit))
         _figure(out["external"], "external-km", "Risk groups on the external cohort",
                 f"Kaplan-Meier curves by {k_groups} quantile groups of the {_label(lead.name)} risk, cut-points "
-                "fixed on the development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
+                f"fixed on the development patients. Curves stop when fewer than {at_risk} patients remain at risk.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
                                                                        k_groups, at_risk))
         _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
                 "Cumulative/dynamic AUC over follow-up time.",
@@ -291,7 +291,8 @@ def _figures(result, d: dict) -> dict:
         _figure(out["main"], "nomogram", "Nomograms", "Points per predictor, total points, and survival "
                 "probability at each horizon and predicted median survival, for each Cox model.", nomo)
     _figure(out["main"], "km", "Kaplan-Meier curves by risk group (development cohort)",
-            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent).",
+            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent). "
+            f"Curves stop when fewer than {at_risk} patients remain at risk.",
             lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups, at_risk))
     _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
             "Cumulative/dynamic AUC over follow-up time.",
@@ -376,8 +377,12 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
     def volume_comp(block):
         if not block:
             return None
+        vm = d["models"].get(block["baseline"]) or {}
+        last = (vm.get("coefficients") or [{}])[-1].get("design_column", "")
         return {**block, "label": _label(block["model"]), "base_label": _label(block["baseline"]),
                 "volume_feature": vcd.get("volume_feature"),
+                "volume_scale": "on the log2 scale, hazard ratio per doubling" if last.startswith("log2(")
+                else "untransformed (a training value was not positive)",
                 "diffs": [{"label": metric_label(n, unit), **block["differences"][n]}
                           for n in _metric_order(block["differences"], horizons)]}
 
