@@ -258,3 +258,15 @@ def test_risk_group_curves_stop_at_the_study_minimum_at_risk(result):
         want.append(float(km.times[km.at_risk >= 40][-1]))
     np.testing.assert_allclose(ends, sorted(want))
     assert any("fewer than 40 patients remain at risk" in " ".join(t.get_text().split()) for t in fig.texts)
+
+
+def test_level_order_warning_reaches_the_limitations(result, data):
+    import copy
+
+    from workbench.report.methods import limitations
+
+    d = copy.deepcopy(data)
+    msg = "Stage: the hazard ratios follow the declared level order in the Clinical Cox model (I 1.00, II 1.2)"
+    assert not any("Order of a categorical effect" in x for x in limitations(result, d))
+    d["warnings"].append({"category": "LevelOrderWarning", "message": msg})
+    assert "Order of a categorical effect: " + msg in limitations(result, d)
