@@ -75,6 +75,14 @@ def test_score_collinearity_table(gbsg2_design):
     assert t.score_vif == pytest.approx(with_score[-1], rel=1e-10)
     r2 = LinearRegression().fit(X, size).score(X, size)
     assert t.score_r2 == pytest.approx(r2, abs=1e-10)
+    # per term: R^2 of the score on that term's columns alone (scikit-learn LinearRegression)
+    terms = ["tgrade" if c.startswith("tgrade") else c for c in cols]
+    t2 = score_collinearity(X, cols, size, terms=terms)
+    grade = [j for j, c in enumerate(cols) if c.startswith("tgrade")]
+    assert len(grade) == 2 and dict(t2.term_r2)["tgrade"] == pytest.approx(
+        LinearRegression().fit(X[:, grade], size).score(X[:, grade], size), abs=1e-12)
+    assert dict(t2.term_r2)["pnodes"] == pytest.approx(np.corrcoef(X[:, cols.index("pnodes")], size)[0, 1] ** 2,
+                                                       abs=1e-12)
     # adding a column can only raise (or keep) the others' inflation
     assert all(r.vif_with >= r.vif_without - 1e-12 for r in t.rows)
 

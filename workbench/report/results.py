@@ -149,9 +149,11 @@ def _collinearity_block(t) -> dict:
         "rows": [{"design_column": r.column, "term": r.term, "correlation": jsonable(r.correlation),
                   "vif_without_signature": jsonable(r.vif_without), "vif_with_signature": jsonable(r.vif_with)}
                  for r in t.rows],
+        "terms": [{"term": k, "r2_of_signature": jsonable(v)} for k, v in getattr(t, "term_r2", ())],
         "note": "Pearson correlation of the signature score with each clinical design column; variance inflation "
                 "factor 1/(1 - R^2) of each column (least squares on the other columns, with intercept) without "
-                "and with the signature in the design; score_vif: the signature's own.",
+                "and with the signature in the design; score_vif: the signature's own; terms: R^2 of the signature "
+                "regressed on each term's columns alone.",
     }
 
 

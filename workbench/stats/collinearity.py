@@ -84,7 +84,10 @@ class CollinearityTable:
     """Correlations and variance inflation of a score with each design column (one cohort).
 
     ``score_vif`` is the score's own VIF given every design column (``1 / (1 - R^2)``
-    of the score on the design); ``score_r2`` is that R^2.
+    of the score on the design); ``score_r2`` is that R^2. ``term_r2`` gives, per
+    term, the R^2 of the score regressed on that term's columns alone (with
+    intercept): for a categorical term with several indicator columns, the one
+    number that says how much of the score the term explains.
     """
 
     score: str
@@ -92,6 +95,19 @@ class CollinearityTable:
     rows: tuple[CollinearityRow, ...]
     score_vif: float
     score_r2: float
+    term_r2: tuple[tuple[str, float], ...] = ()
+
+
+def _r2(X: np.ndarray, y: np.ndarray) -> float:
+    """R^2 of the least-squares regression of ``y`` on ``X`` with intercept (nan for a constant ``y``)."""
+    yc = y - y.mean()
+    tss = float(yc @ yc)
+    if tss <= 0:
+        return float("nan")
+    Xc = X - X.mean(axis=0)
+    beta, *_ = np.linalg.lstsq(Xc, yc, rcond=None)
+    res = yc - Xc @ beta
+    return float(1.0 - (res @ res) / tss)
 
 
 def score_collinearity(X, columns, score, *, terms=None, score_name: str = "score") -> CollinearityTable:
@@ -123,6 +139,8 @@ def score_collinearity(X, columns, score, *, terms=None, score_name: str = "scor
         x = A[:, j]
         r = float(np.corrcoef(x, s)[0, 1]) if np.ptp(x) > 0 and np.ptp(s) > 0 else float("nan")
         rows.append(CollinearityRow(str(name), str(terms[j]), r, float(without[j]), float(with_score[j])))
+    names = list(dict.fromkeys(terms))
+    term_r2 = tuple((t, _r2(A[:, [j for j, u in enumerate(terms) if u == t]], s)) for t in names)
     vif_s = float(with_score[-1])
     r2 = float(1.0 - 1.0 / vif_s) if np.isfinite(vif_s) and vif_s > 0 else (1.0 if vif_s == np.inf else float("nan"))
-    return CollinearityTable(score_name, int(ok.sum()), tuple(rows), vif_s, r2)
+    return CollinearityTable(score_name, int(ok.sum()), tuple(rows), vif_s, r2, term_r2)

@@ -214,6 +214,12 @@ def test_collinearity_table_equals_least_squares_and_is_printed(html, data, resu
     for r in block["rows"]:
         assert f"{r['design_column']} {fmt_num(r['correlation'], 2)} {fmt_num(r['vif_without_signature'], 2)} " \
                f"{fmt_num(r['vif_with_signature'], 2)}" in model
+    assert [t["term"] for t in block["terms"]] == ["age", "stage", "ecog"]
+    st = [j for j, c in enumerate(m.transformer_.columns_) if c.startswith("stage=")]
+    r2 = LinearRegression().fit(X[:, st], s).score(X[:, st], s)
+    assert block["terms"][1]["r2_of_signature"] == pytest.approx(r2, abs=1e-10)
+    for t in block["terms"]:
+        assert f"{t['term']} {fmt_num(t['r2_of_signature'], 2)}" in model
 
 
 def test_clinical_volume_model_validated_compared_and_reported(html, data, result):
