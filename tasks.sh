@@ -31,7 +31,9 @@ case "$cmd" in
   test)
     setup
     tests/app/install_browser.sh "$VENV"
-    "$VENV/bin/python" -m pytest -q "$@"
+    # one test process per core (pytest-xdist); a test file stays on one process, so the
+    # module-scoped fixtures (a fitted study, an app server and its browser page) are built once
+    "$VENV/bin/python" -m pytest -q -n "${WORKBENCH_TEST_WORKERS:-auto}" --dist loadfile "$@"
     ;;
   app)
     setup

@@ -25,15 +25,17 @@ HORIZONS = [1.0, 2.0, 3.0]
 TRUTH_N = 20_000
 
 
-def simulate(n: int, seed: int, beta=BETA, nonlinear: float = 0.0) -> Cohort:
-    """One cohort of ``n`` patients; ``nonlinear`` adds a term in x1**2 and x1*x2 (for the forest)."""
+def simulate(n: int, seed: int, beta=BETA, nonlinear: float = 0.0, censor: bool = True) -> Cohort:
+    """One cohort of ``n`` patients; ``nonlinear`` adds a term in x1**2 and x1*x2 (for the forest).
+
+    ``censor=False`` keeps every true event time (a truth sample)."""
     rng = np.random.default_rng(seed)
     z = rng.standard_normal((n, 3))
     x = z.copy()
     x[:, 2] = 0.4 * z[:, 0] + np.sqrt(1 - 0.16) * z[:, 2]
     eta = x @ np.asarray(beta) + nonlinear * (x[:, 0] ** 2 - 1 + x[:, 0] * x[:, 1])
     t = (rng.exponential(size=n) / (0.35 * np.exp(eta))) ** (1 / 1.2)
-    c = rng.uniform(0.5, 4.0, size=n)
+    c = rng.uniform(0.5, 4.0, size=n) if censor else np.full(n, np.inf)
     feats = pd.DataFrame(x, columns=["x1", "x2", "x3"])
     return Cohort(
         ids=np.array([f"P{seed}-{i}" for i in range(n)]),

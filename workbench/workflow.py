@@ -29,6 +29,7 @@ from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.added_value import run_added_value
 from workbench.validation.compare import ComparisonResult, compare_models
+from workbench.validation.difference_bands import study_difference_bands
 from workbench.validation.groups import loco_groups
 from workbench.validation.resample import ValidationResult, validate, validate_external
 
@@ -116,6 +117,9 @@ class StudyResult:
         The combined model against the clinical + tumour volume model
         (``"internal"``, and ``"external"`` with an external cohort); empty when
         the study names no volume feature or fits no combined model.
+    difference_bands : dict
+        Per compared model, AUC and net-benefit differences against the baseline with
+        paired bands, internal and external (:mod:`workbench.validation.difference_bands`).
     """
 
     spec: StudySpec
@@ -136,6 +140,7 @@ class StudyResult:
     added_value: dict = field(default_factory=dict)
     collinearity: dict = field(default_factory=dict)
     volume_comparisons: dict = field(default_factory=dict)
+    difference_bands: dict = field(default_factory=dict)
 
     @property
     def cohort(self):
@@ -307,6 +312,10 @@ def run_study(
         comparisons = {k: replace(c, method="none") for k, c in comparisons.items()}
         if "internal" in volume_comparisons:
             volume_comparisons["internal"] = replace(volume_comparisons["internal"], method="none")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the run's warnings were recorded above; resampling repeats them
+        bands = study_difference_bands(validation, comparisons, external, external_comparisons, fitted,
+                                       ext_prepared.cohort if ext_prepared else None)
     seen, messages = set(), []
     for w in caught:
         key = (w.category.__name__, str(w.message))
@@ -342,5 +351,6 @@ def run_study(
         added_value=added_value,
         collinearity=collinearity,
         volume_comparisons=volume_comparisons,
+        difference_bands=bands,
     )
 

@@ -42,7 +42,10 @@ RUN_TIMEOUT_MS = 600_000
 
 @pytest.fixture(scope="module")
 def app_url():
-    port = launch.free_port(8611)
+    # each parallel test worker (pytest-xdist's gw0, gw1, ...) looks in its own range of ports,
+    # so two app servers started at the same moment never take the same one
+    worker = os.environ.get("PYTEST_XDIST_WORKER", "gw0").removeprefix("gw")
+    port = launch.free_port(8611 + 100 * int(worker or 0))
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
     log = tempfile.TemporaryFile()
     proc = subprocess.Popen(launch.command(port, sys.executable), cwd=REPO, env=env, stdout=log, stderr=log)
@@ -97,6 +100,7 @@ def _main(page):
 # leaves "notRunning" whenever a run is requested or starts.
 COUNT_RUNS = """
 window.__wbRuns = 0;
+window.__wbDoc = Math.random().toString(36).slice(2);
 new MutationObserver((records) => {
   for (const r of records) {
     const s = r.target.getAttribute('data-test-script-state');
@@ -107,23 +111,61 @@ new MutationObserver((records) => {
 """
 
 # The page is idle: no script run under way, no element left stale from the previous run,
-# every image decoded, and (when `since` is given) at least one run after that count.
+# every image decoded, and (when `since` = [document, count] is given) at least one run after
+# that count. A click that reloads the whole document (a link followed as a new page load)
+# starts the counter afresh: a new document counts as a new run.
 IDLE = """(since) => {
   const app = document.querySelector('[data-testid="stApp"]');
   if (!app || app.getAttribute('data-test-script-state') !== 'notRunning') return false;
-  if (since !== null && window.__wbRuns <= since) return false;
+  if (since !== null && window.__wbDoc === since[0] && window.__wbRuns <= since[1]) return false;
   if (document.querySelector('[data-stale="true"]')) return false;
   return Array.from(document.images).every((i) => i.complete);
 }"""
 
 
-def _runs(page) -> int:
-    return int(page.evaluate("() => window.__wbRuns"))
+def _runs(page) -> list:
+    """[document id, script runs seen in it]: the mark a later settle waits past."""
+    return page.evaluate("() => [window.__wbDoc, window.__wbRuns]")
 
 
-def _settle(page, since: int | None = None):
+# What the page looks like when it is not idle: said in the failure message of a settle
+# that timed out, so a hang on a CI machine can be told apart from a slow run.
+NOT_IDLE = """(since) => {
+  const app = document.querySelector('[data-testid="stApp"]');
+  return {
+    script_state: app ? app.getAttribute('data-test-script-state') : 'no app root',
+    document: window.__wbDoc, runs: window.__wbRuns, waiting_for_more_than: since,
+    stale: Array.from(document.querySelectorAll('[data-stale="true"]')).slice(0, 5)
+      .map((e) => (e.getAttribute('data-testid') || e.tagName) + ': ' + (e.innerText || '').slice(0, 80)),
+    images_loading: Array.from(document.images).filter((i) => !i.complete).slice(0, 5)
+      .map((i) => (i.getAttribute('loading') || '') + ' ' + (i.currentSrc || i.src || '').slice(0, 80)),
+    url: location.href,
+  };
+}"""
+# A limit against hangs for a settle that does not wait for a study run: on a busy
+# 2-core machine a page rerun takes seconds, never minutes.
+SETTLE_TIMEOUT_MS = 180_000
+
+
+def _settle(page, since: list | None = None, timeout: int = SETTLE_TIMEOUT_MS):
     """Wait until the app is idle (and, with ``since``, has run again since that count)."""
-    page.wait_for_function(IDLE, arg=since, timeout=RUN_TIMEOUT_MS)
+    from playwright.sync_api import TimeoutError as PageTimeout
+
+    try:
+        page.wait_for_function(IDLE, arg=since, timeout=timeout)
+    except PageTimeout:
+        state = page.evaluate(NOT_IDLE, since)
+        _shot_now(page, "settle_timeout")
+        raise AssertionError(f"the page did not become idle within {timeout / 1000:.0f} s: {state}") from None
+
+
+def _shot_now(page, name: str):
+    """A screenshot as the page is, for a failure message (no waiting)."""
+    SHOTS.mkdir(parents=True, exist_ok=True)
+    try:
+        page.screenshot(path=str(SHOTS / f"{name}.png"), full_page=True, timeout=10_000)
+    except Exception:  # noqa: BLE001 - a failed picture must not hide the real failure
+        pass
 
 
 def _act(page, action):

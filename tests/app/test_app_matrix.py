@@ -38,7 +38,11 @@ def _spec(tmp_path, name, *, features=True, **sections):
     if features:
         data["features"] = str(tmp_path / "features.csv")
     doc = {"study": {"name": f"{name} in the app", "horizons": s["horizons"], "seed": 3}, "data": data,
-           "predictor": s["predictors"], "validation": {"replicates": 2, "backend": "serial"}, **sections}
+           "predictor": s["predictors"],
+           # the smallest settings that run every step (study defaults: a 100 x 10 two-stage
+           # interval and 199 permutations of the signature in 5 folds)
+           "validation": {"replicates": 2, "backend": "serial", "outer_replicates": 10, "inner_replicates": 1},
+           "added_value": {"permutations": 9, "folds": 3}, **sections}
     return study_from_dict(doc)
 
 
@@ -46,10 +50,11 @@ CASES = {
     "clinical_only": lambda p: _spec(p, "rossi", features=False),
     "empty_signature_apparent_only": lambda p: _spec(
         p, "rossi", imaging={"reduce": {"screen": True, "screen_fdr": 1e-9}},
-        validation={"method": "none", "backend": "serial"}),
+        validation={"method": "none", "backend": "serial"}),  # replaces the whole [validation]
     "no_volume_batch_centre": lambda p: _spec(p, "gbsg2"),
     "cross_validation_small_cohort": lambda p: _spec(
-        p, "veterans", validation={"method": "cv", "folds": 3, "repeats": 1, "backend": "serial"}),
+        p, "veterans", validation={"method": "cv", "folds": 3, "repeats": 1, "backend": "serial",
+                                   "outer_replicates": 10, "inner_replicates": 1}),
 }
 
 

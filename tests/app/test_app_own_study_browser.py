@@ -26,6 +26,8 @@ from conftest import REPO
 from public_data import write_gbsg2
 from test_app_browser import RUN_TIMEOUT_MS, _goto, _main, _no_traceback, _settle, _shot
 
+from workbench.app.runs import QUICK_PERMUTATIONS
+
 # the app and the browser page of the demo walk-through, started afresh for this module
 app_url = demo_browser.app_url
 page = demo_browser.page
@@ -104,6 +106,7 @@ def cli(folder):
     out = folder / "cli"
     subprocess.run(
         [sys.executable, "-m", "workbench.cli", "run", str(folder / "study.toml"), "--replicates", str(REPLICATES),
+         "--permutations", str(QUICK_PERMUTATIONS),  # as the app's quick run
          "--workers", "1", "--out", str(out), "--quiet", "--no-report", "--no-figures"],
         check=True, cwd=REPO, capture_output=True, timeout=900,
     )

@@ -51,7 +51,12 @@ def _doc(name, settings, **over) -> dict:
         "predictor": [dict(p) for p in settings["predictors"]],
         "imaging": {},
         "models": {"fit": ["clinical", "combined"], "forest": {"trees": 20, "min_leaf": 10}},
-        "validation": {"method": "bootstrap", "replicates": 2, "forest_replicates": 2, "backend": "serial"},
+        # the smallest settings that still run every step: a two-stage interval from 10 outer
+        # samples (the study default is 100 x 10 refits per model) and a 9-permutation
+        # added-value test in 3 folds (the default is 199 x 5 signature refits)
+        "validation": {"method": "bootstrap", "replicates": 2, "forest_replicates": 2, "backend": "serial",
+                       "outer_replicates": 10, "inner_replicates": 1},
+        "added_value": {"permutations": 9, "folds": 3},
     }
     for section, values in over.items():
         if section == "predictor":

@@ -80,6 +80,7 @@ def _assert_identical(a, b):
                 continue
             assert np.array_equal(getattr(ra, arr), getattr(rb, arr), equal_nan=True), (m, arr)
         assert np.array_equal(a.outer_estimates[m], b.outer_estimates[m], equal_nan=True), m
+        assert np.array_equal(a.outer_net_benefit[m], b.outer_net_benefit[m], equal_nan=True), m
         for x, y in zip(a.estimates[m].values(), b.estimates[m].values(), strict=True):
             vx, vy = (np.array(list(vars(e).values())[1:8], dtype=float) for e in (x, y))
             assert x.name == y.name and np.array_equal(vx, vy, equal_nan=True), (m, x.name)

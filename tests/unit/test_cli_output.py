@@ -56,6 +56,9 @@ fit = ["clinical"]
 [validation]
 replicates = 1
 backend = "serial"
+# the smallest two-stage interval (the default 100 x 10 refits would dominate every run here)
+outer_replicates = 10
+inner_replicates = 1
 """
 
 ROOT = Path(__file__).parents[2]
@@ -243,7 +246,7 @@ def test_console_shows_statistical_warnings_once_and_hides_numerical_noise(study
 
 
 @pytest.mark.parametrize("line, new, message", [
-    ("replicates = 1", 'replicates = "five"',
+    ("\nreplicates = 1", '\nreplicates = "five"',
      "[validation]: replicates must be a whole number, such as 5; found 'five' (text)."),
     ("seed = 3", 'seed = "twenty"', "[study]: seed must be a whole number, such as 5; found 'twenty' (text)."),
     ('backend = "serial"', 'backend = "serial"\nworkers = 1.5',

@@ -24,6 +24,18 @@ from workbench.cohort.io import file_digest
 from workbench.errors import WorkbenchError
 from workbench.study import StudySpec, dumps_study
 
+# A quick run (fewer replicates than the study file's) runs the added-value permutation test
+# with at most this many permutations: its p-value cannot go below 1 / 20 = 0.05, which the
+# page says; the study's own number runs when its replicates are asked for.
+QUICK_PERMUTATIONS = 19
+
+
+def quick_permutations(spec: StudySpec, replicates: int) -> int | None:
+    """The permutation count of a run with ``replicates`` (None: the study's own)."""
+    if int(replicates) >= spec.validation.replicates:
+        return None
+    return min(spec.added_value.permutations, QUICK_PERMUTATIONS)
+
 
 @st.cache_resource(show_spinner=False, max_entries=4)
 def run_study_cached(data_hash: str, text: str, replicates: int, workers: int,
@@ -31,7 +43,8 @@ def run_study_cached(data_hash: str, text: str, replicates: int, workers: int,
     """Fitted study result, cached on the data hash and the study text."""
     workflow = importlib.import_module("workbench.workflow")
     return workflow.run_study(_spec, progress=_progress, cancel=_cancel,
-                              replicates=replicates, workers=workers)
+                              replicates=replicates, workers=workers,
+                              permutations=quick_permutations(_spec, replicates))
 
 
 @dataclass

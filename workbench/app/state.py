@@ -329,9 +329,11 @@ def table(df, *, max_rows: int = 40, where=None) -> None:
 
 # The background study run lives in runs.py; its names stay reachable here.
 from workbench.app.runs import (  # noqa: E402, F401
+    QUICK_PERMUTATIONS,
     RunJob,
     current_job,
     current_result,
+    quick_permutations,
     quick_spec,
     result_is_current,
     result_job,

@@ -394,7 +394,7 @@ def _encode(term: TermInfo, series: pd.Series, where: RowContext) -> tuple[np.nd
             z = (k[:, None] == np.asarray(others, dtype=str)[None, :]).astype(float)
         else:
             score = dict(zip(term.levels, term.scores, strict=True))
-            z = pd.Series(k).map(score).to_numpy(dtype=float, na_value=np.nan)[:, None]
+            z = np.array([score.get(v, np.nan) for v in k], dtype=float)[:, None]
     else:
         parsed = read_numbers(term.column, term.label, series, where)
         missing = parsed.missing

@@ -142,18 +142,24 @@ def level_keys(values: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
         ``2``, ``2.0`` and ``"2"`` give the same key. ``None`` where missing.
     missing : ndarray of bool, shape (n,)
     """
-    s = values if isinstance(values, pd.Series) else pd.Series(np.asarray(values, dtype=object))
-    obj = s.astype(object).reset_index(drop=True)
-    missing = obj.isna().to_numpy()
-    present = obj[~missing]
-    lookup = {}
-    for u in pd.unique(present):
-        key = _canonical(u)
-        lookup[u] = None if key.lower() in MISSING_TOKENS else key
-    keys = np.full(len(obj), None, dtype=object)
-    keys[~missing] = present.map(lookup).to_numpy(dtype=object)
-    missing = pd.isna(keys)
-    keys[missing] = None
+    # plain numpy and a dict: this runs for every categorical term of every model fit and
+    # prediction in every resample, where pandas' per-call overhead dominated the run time
+    obj = values.to_numpy(dtype=object) if isinstance(values, pd.Series) else np.asarray(values, dtype=object)
+    obj = obj.ravel()
+    missing = np.asarray(pd.isna(obj), dtype=bool)
+    keys = np.full(obj.size, None, dtype=object)
+    present = np.flatnonzero(~missing)
+    if present.size:
+        lookup: dict = {}
+        out = []
+        for u in obj[present]:
+            k = (type(u), u)  # 1, 1.0 and True are equal as dict keys but not as cells
+            if k not in lookup:
+                key = _canonical(u)
+                lookup[k] = None if key.lower() in MISSING_TOKENS else key
+            out.append(lookup[k])
+        keys[present] = out
+    missing = np.fromiter((k is None for k in keys), dtype=bool, count=keys.size)
     return keys, missing
 
 

@@ -179,6 +179,7 @@ def study_figures(result, *, width="double") -> dict:
         h = horizons[len(horizons) // 2]
         figs["decision_curve"] = plot_decision_curve(decision_curves(evalc.y, curves, h), time_unit=unit,
                                                      title=where.capitalize(), width=width)
+    figs.update(_difference_and_site_figures(result, width))
     for name in (*COX_MODELS, VOLUME_MODEL):
         if name in models:
             m = models[name]
@@ -199,6 +200,37 @@ def study_figures(result, *, width="double") -> dict:
                                                          width=width)
     for name, ph in result.ph_tests.items():
         figs[f"ph_{name}"] = plot_schoenfeld(ph, width=width, time_unit=unit)
+    return figs
+
+
+def _difference_and_site_figures(result, width) -> dict:
+    """Combined-minus-clinical AUC and net benefit (internal beside external) and O/E per centre and scanner."""
+    from workbench.figures.differences import plot_difference_curves
+    from workbench.figures.site_calibration import plot_site_calibration
+    from workbench.report.external_text import worst_horizon
+    from workbench.report.methods import unseen_batches
+
+    figs = {}
+    unit = result.cohort.time_unit
+    bands = (getattr(result, "difference_bands", None) or {}).get("combined")
+    if bands is not None:
+        base = bands["net_benefit"]["internal"].baseline
+        figs["difference_curves"] = plot_difference_curves(bands, width=width, time_unit=unit,
+                                                           model_label=MODEL_LABELS["combined"],
+                                                           baseline_label=MODEL_LABELS.get(base, base))
+    groups = {k: g for k, g in (getattr(result.external, "groups", None) or {}).items() if len(g.levels) >= 2} \
+        if result.external is not None else {}
+    if groups:
+        est = result.external.estimates
+        perf = {k: {"external_performance": {n: {"estimate": e.estimate} for n, e in est[k].items()}} for k in est}
+        models = [k for k in COX_MODELS if k in result.models] or list(result.models)[:2]
+        hs = list(result.external.horizons)
+        h = worst_horizon({"external": {"n": result.external.n}, "models": perf,
+                           "study": {"horizons": list(result.spec.horizons)}}, models, hs[len(hs) // 2])
+        figs["site_calibration"] = plot_site_calibration(
+            groups, horizon=h, models=models, labels={k: MODEL_LABELS.get(k, k) for k in models},
+            unseen=unseen_batches(result), width=width, time_unit=unit,
+            title=f"External cohort, {format_number(h)} {unit}")
     return figs
 
 

@@ -85,6 +85,9 @@ _LABELS = {
     "cal_slope": "Calibration slope", "oe_ratio": "Observed / expected",
 }
 _CALIBRATION = ("ici", "e50", "e90", "cal_slope", "oe_ratio")
+_EXT_CALIBRATION = ("oe_ratio", "cal_slope", "ici")
+FIGURE_SLOTS = ("calibration", "decision", "difference", "external", "main")
+"""Places in the report that hold figures."""
 
 
 @dataclass(frozen=True)
@@ -215,27 +218,31 @@ def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=
                        time_unit=unit, horizons=horizons, title=title, mean_auc=means, mean_window=window)
 
 
-def _decision_fig(d: dict, unit: str, j: int):
-    """Validated decision curves of every model at the j-th horizon, from the comparison blocks.
+def _decision_fig(d: dict, unit: str, j: int, external: bool = False):
+    """Decision curves of every model at the j-th horizon, from the comparison blocks.
 
-    Apparent curves when the study ran no internal validation (method "none")."""
-    arm = "apparent" if d["validation"]["method"] == "none" else "validated"
+    Internal: the validated curves (apparent when the study ran no internal validation,
+    method "none"). External: the curves of the unchanged models on the external patients."""
+    arm = "apparent" if d["validation"]["method"] == "none" and not external else "validated"
     from workbench.figures import plot_decision_curve
 
-    comps = list(d["comparison"].values())
+    comps = list((d["external"]["comparison"] if external else d["comparison"]).values())
     surv = {h["horizon"]: h["survival"] for h in d["cohort"]["summary"]["horizons"]}
     first = comps[0]["decision_curves"][j]
     h, pt = first["horizon"], np.asarray(first["thresholds"], float)
+    treat_all = np.asarray([np.nan if x is None else x for x in first["treat_all"]], float)
+    # the event risk only sets the vertical scale; treat-all at the lowest threshold is close to it
+    risk = float(np.nanmax(treat_all)) if external else 1.0 - surv.get(h, np.nan)
 
     def curve(values, name):
         v = np.asarray([np.nan if x is None else x for x in values], float)
-        return DecisionCurveResult(h, pt, v, np.asarray(first["treat_all"], float), np.zeros_like(pt),
-                                   np.full_like(pt, np.nan), 1.0 - surv.get(h, np.nan), name)
+        return DecisionCurveResult(h, pt, v, treat_all, np.zeros_like(pt), np.full_like(pt, np.nan), risk, name)
 
     res = {_label(comps[0]["baseline"]): curve(first[f"baseline_{arm}"], comps[0]["baseline"])}
     for c in comps:
         res[_label(c["model"])] = curve(c["decision_curves"][j][f"model_{arm}"], c["model"])
-    return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}")
+    where = "external cohort" if external else "development cohort"
+    return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}, {where}")
 
 
 def _figures(result, d: dict) -> dict:
@@ -256,24 +263,33 @@ def _figures(result, d: dict) -> dict:
     lead = models.get("combined") or next(iter(models.values()))
     k_groups = getattr(result.spec.models, "risk_groups", 3)
     at_risk = result.spec.figures.min_at_risk
-    out = {k: [] for k in ("calibration", "decision", "external", "main")}
+    out = {k: [] for k in FIGURE_SLOTS}
     _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
             "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
             "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
             lambda: _calibration_fig(models, train, horizons, unit))
+    ext_comps = (d.get("external") or {}).get("comparison") or {}
     for j, h in enumerate(horizons if d["comparison"] else ()):
         app = d["validation"]["method"] == "none"
         _figure(out["decision"], f"decision-{j}",
                 f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else 'optimism-corrected'})",
                 "Net benefit against the threshold risk, " + ("measured on the development patients (optimistic)"
-                if app else "corrected for optimism like the other metrics") + ", with treat-all and treat-none.",
+                if app else "corrected for optimism like the other metrics") + ", with the two reference "
+                "strategies (everyone acted on, no one acted on).",
                 lambda j=j: _decision_fig(d, unit, j), half=True)
+        if ext_comps:
+            _figure(out["decision"], f"decision-external-{j}", f"Decision curves at {h:g} {unit} (external cohort)",
+                    "The same models applied unchanged to the external patients: nothing to correct, but "
+                    "judged on patients the models never saw.",
+                    lambda j=j: _decision_fig(d, unit, j, external=True), half=True)
+    _difference_figures(out["difference"], result, unit)
     if result.external is not None:
         ext = result.external_prepared.cohort
         eh = _eval_horizons(horizons, ext)
         _figure(out["external"], "external-calibration", "Calibration on the external cohort",
                 "Smoothed calibration of the unchanged models on the external patients.",
                 lambda: _calibration_fig(models, ext, eh, unit))
+        _site_figure(out["external"], result, d, unit)
         _figure(out["external"], "external-km", "Risk groups on the external cohort",
                 f"Kaplan-Meier curves by {k_groups} quantile groups of the {_label(lead.name)} risk, cut-points "
                 f"fixed on the development patients. Curves stop when fewer than {at_risk} patients remain at risk.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
@@ -318,6 +334,52 @@ def _figures(result, d: dict) -> dict:
                 "Scaled Schoenfeld residuals against transformed time with a smooth; a flat line supports "
                 "proportional hazards.", lambda ph=ph: plot_schoenfeld(ph))
     return out
+
+
+_BAND_WORDS = {
+    "two-stage": "with a two-stage bootstrap band (bias-corrected percentiles over outer samples, paired)",
+    "shifted-percentile": "with the cheap shifted-percentile paired bootstrap band",
+}
+
+
+def _difference_figures(items: list, result, unit: str) -> None:
+    """Model-minus-baseline AUC and net benefit, internal beside external (validation/difference_bands.py)."""
+    from workbench.figures.differences import plot_difference_curves
+
+    for name, bands in (getattr(result, "difference_bands", None) or {}).items():
+        nb = bands["net_benefit"]["internal"]
+        ext = result.external is not None
+        names = {"model_label": _label(name), "baseline_label": _label(nb.baseline)}
+        _figure(items, f"difference-{name}", f"{_label(name)} minus {_label(nb.baseline)}: AUC and net benefit",
+                "Differences from the same resamples for both models. Internal: validated AUC differences at the "
+                "study horizons with their intervals, and the validated net-benefit difference at "
+                f"{nb.horizon:g} {unit} " + _BAND_WORDS.get(nb.band, "without a band (see the note in results.json)")
+                + "."
+                + (" External: the difference of the unchanged models on the external patients with pointwise "
+                   "percentile bands over resamples of those patients (the resamples of the external table; in "
+                   "simulation they covered about 90%, not 95%: read them as somewhat narrow)."
+                   if ext else "") + " Above zero favours the first model.",
+                lambda b=bands, kw=names: plot_difference_curves(b, time_unit=unit, **kw))
+
+
+def _site_figure(items: list, result, d: dict, unit: str) -> None:
+    """Observed/expected per centre and per scanner with the random-effects pooling (external cohort)."""
+    from workbench.figures.site_calibration import plot_site_calibration
+    from workbench.report.external_text import worst_horizon
+
+    groups = {k: g for k, g in (getattr(result.external, "groups", None) or {}).items() if len(g.levels) >= 2}
+    if not groups:
+        return
+    models = [k for k in ("clinical", "combined") if k in result.models] or list(result.models)[:2]
+    hs = list(result.external.horizons)
+    h = worst_horizon(d, models, hs[len(hs) // 2])
+    _figure(items, "external-sites", f"Calibration by centre and scanner at {h:g} {unit} (external cohort)",
+            "Observed/expected risk (Kaplan-Meier observed over mean predicted) with 95% bootstrap intervals of each "
+            "site's patients; the pooled random-effects estimate (diamond: 95% confidence interval) and the 95% "
+            "prediction interval for a new site (dotted) under each grouping. Open markers: a scanner the "
+            "development data did not have. The horizon is the one at which these models depart most overall.",
+            lambda: plot_site_calibration(groups, horizon=h, models=models, labels={k: _label(k) for k in models},
+                                          unseen=unseen_batches(result), time_unit=unit))
 
 
 # ------------------------------------------------------------------ context
@@ -392,6 +454,10 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         eperf = {k: m["external_performance"] for k, m in d["models"].items() if "external_performance" in m}
         seen = set(s["batches"])
         ext = {**e, "perf_rows": _perf_rows(eperf, names, unit), "models": [_label(k) for k in eperf],
+               "cal_rows": [{"model": _label(k), "horizon": f"{h:g}",
+                             "cells": [eperf[k].get(f"{c}@{h:g}") for c in _EXT_CALIBRATION]}
+                            for k in eperf for h in horizons],
+               "cal_labels": [_LABELS[c] for c in _EXT_CALIBRATION],
                "unseen": unseen_batches(result), "policy": spec.imaging.harmonise.unseen_batch,
                "batch_rows": [(b, n, b in seen) for b, n in e["batches"].items()],
                "comps": [{**c, "label": _label(k), "diffs": [{"label": metric_label(n, unit), **c["differences"][n]}
@@ -422,7 +488,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "limitations": limitations(result, d),
         "checklist": checklist, "n_filled": sum(i.status == FILLED for i in checklist),
         "study_text": _short_paths(result.study_text, spec),
-        "figures": _figures(result, d) if figures else {k: [] for k in ("calibration", "decision", "external", "main")},
+        "figures": _figures(result, d) if figures else {k: [] for k in FIGURE_SLOTS},
         "version": d["provenance"]["versions"].get("survival-workbench", ""),
         "ph_global": {k: next((r for r in m.get("proportional_hazards", []) if r["design_column"] == "GLOBAL"), None)
                       for k, m in d["models"].items()},

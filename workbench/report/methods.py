@@ -391,6 +391,11 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         out.append(f"External patients imaged on scanners absent from the development data "
                    f"({', '.join(unseen_batches(result))}) were standardised without a batch adjustment; "
                    "imaging-based predictions for them are the least reliable.")
+    if d["external"] is not None:
+        from workbench.report.external_text import external_calibration_sentences
+
+        labels = {k: m.get("label") or _label(k) for k, m in d["models"].items()}
+        out += external_calibration_sentences(d, labels, s["time_unit"], unseen_batches(result))
     if not d.get("added_value"):
         out.append("No added-value permutation test was run ([added_value] permutations = 0): there is no "
                    "test of whether imaging adds to the clinical model, only the validated differences.")

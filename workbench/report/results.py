@@ -246,6 +246,7 @@ def results_dict(result) -> dict:
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
         }
     _heterogeneity_blocks(result, out)
+    _difference_blocks(result, out)
     if getattr(result, "new_site", None):
         out["new_site_sample_size"] = jsonable(result.new_site)
     return out
@@ -273,6 +274,15 @@ def _heterogeneity_blocks(result, out: dict) -> None:
     if ext is not None and out.get("external") is not None:
         out["external"]["censoring"] = censoring_dict(getattr(ext, "censoring", None))
         out["external"]["by_group"] = groups_dict(getattr(ext, "groups", None))
+
+
+def _difference_blocks(result, out: dict) -> None:
+    """Model-minus-baseline AUC and net-benefit curves with their bands (validation/difference_bands.py)."""
+    for name, block in (getattr(result, "difference_bands", None) or {}).items():
+        for setting, target in (("internal", out["comparison"]), ("external", (out.get("external") or {}).get(
+                "comparison", {}))):
+            if name in target:
+                target[name]["difference_curves"] = {q: jsonable(block[q].get(setting)) for q in block}
 
 
 def performance_table(result, which: str = "internal") -> pd.DataFrame:

@@ -34,7 +34,18 @@ from workbench.validation.evaluate import (
 from workbench.validation.plans import _copy_seed, _root
 from workbench.validation.results import ValidationResult
 
-__all__ = ["censoring_for", "evaluate_cohort", "predict_cohort", "validate_external"]
+__all__ = ["censoring_for", "evaluate_cohort", "predict_cohort", "resample_plan", "validate_external"]
+
+
+def resample_plan(random_state, n: int, replicates: int) -> list[np.ndarray]:
+    """Row indices of each bootstrap resample of an external cohort of ``n`` patients.
+
+    The one plan of :func:`validate_external`: anything else resampling the same
+    cohort with the same seed (the difference bands of
+    :mod:`workbench.validation.difference_bands`) draws exactly these resamples.
+    """
+    root = _copy_seed(_root(random_state))
+    return [np.random.default_rng(s).integers(0, n, n) for s in root.spawn(2)[1].spawn(int(replicates))]
 
 
 def predict_cohort(fitted_models: Mapping, cohort: Cohort, horizons) -> tuple[dict, np.ndarray, np.ndarray]:
@@ -176,8 +187,7 @@ def validate_external(
     fits = {nm: _fit_summary(nm, m) for nm, m in fitted_models.items()}
     root = _copy_seed(_root(random_state))
     n = external_cohort.n
-    plan = [(np.random.default_rng(s).integers(0, n, n), b)
-            for b, s in enumerate(root.spawn(2)[1].spawn(int(replicates)))]
+    plan = [(idx, b) for b, idx in enumerate(resample_plan(root, n, replicates))]
     tasks = [_Task(b, 0, idx, None, True, 0, tuple(fitted_models)) for idx, b in plan]
     chunks = _chunks(plan, workers, backend)
     outputs = [

@@ -114,7 +114,7 @@ from workbench.validation.results import (
     SelectionSummary,
     ValidationResult,
 )
-from workbench.validation.two_stage import outer_estimates, outer_tasks
+from workbench.validation.two_stage import outer_estimates, outer_net_benefit, outer_tasks
 
 __all__ = [
     "FitSummary",
@@ -360,6 +360,7 @@ def validate(
     outputs, extra_out = outputs[:len(tasks)], outputs[len(tasks):]
     outer = (outer_estimates(method, extra, extra_out, metric_names(h), estimators, gammas, conf_level)
              if two_stage else {})
+    outer_nb = outer_net_benefit(method, extra, extra_out, estimators) if two_stage else {}
     parts = _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, h,
                        arms, conf_level, max_failure_rate, unit, estimators, gammas, outer)
     if two_stage:
@@ -381,6 +382,7 @@ def validate(
         n_replicates=n_rep, centres=centres, conf_level=conf_level, seed_entropy=int(root.entropy),
         estimator=estimators, interval=interval if two_stage else (
             "shifted-percentile" if method == "bootstrap" else ""), outer_estimates=outer,
+        outer_net_benefit=outer_nb,
         settings={"estimator": estimator, "interval": interval, "outer_replicates": int(outer_replicates),
                   "inner_replicates": int(inner_replicates),
                   "replicates": int(replicates), "folds": int(folds), "repeats": int(repeats),

@@ -222,6 +222,9 @@ class ValidationResult:
     outer_estimates : dict of str to ndarray of shape (n_outer, n_metrics)
         Two-stage intervals: each model's estimate in each outer bootstrap sample
         (NaN where the model failed there); model differences use the same samples.
+    outer_net_benefit : dict of str to ndarray of shape (n_outer, n_horizons, n_thresholds)
+        Two-stage intervals: each model's validated decision curves in each outer sample
+        (the bands of :mod:`.difference_bands`).
     """
 
     method: str
@@ -255,6 +258,7 @@ class ValidationResult:
     estimator: dict = field(default_factory=dict)
     interval: str = ""
     outer_estimates: dict = field(default_factory=dict)
+    outer_net_benefit: dict = field(default_factory=dict)
 
     def summary_frame(self) -> pd.DataFrame:
         """One row per model and metric with apparent, optimism, estimate, SD and interval."""

@@ -52,7 +52,7 @@ from workbench.validation.engine import _Task
 from workbench.validation.estimators_bootstrap import bootstrap_estimate
 from workbench.validation.plans import _oob_rows, _seed_int
 
-__all__ = ["outer_estimates", "outer_tasks"]
+__all__ = ["outer_estimates", "outer_net_benefit", "outer_tasks"]
 
 
 def outer_tasks(method: str, cohort: Cohort, outer: int, inner: int, folds: int, seed_ss,
@@ -136,4 +136,49 @@ def outer_estimates(method: str, tasks: list[_Task], outputs: list, names: tuple
                 out[m][s, j] = bootstrap_estimate(
                     est, nm, float(a[j]), None if b is None else b[:, j], None if o is None else o[:, j],
                     u[:, j], np.nan if g is None else float(g[j]), conf_level)[0]
+    return out
+
+
+def _nb_arm(rec, arm):
+    if not rec.get("ok") or rec.get(arm) is None:
+        return None
+    return np.asarray(rec[arm][1], dtype=float)
+
+
+def outer_net_benefit(method: str, tasks: list[_Task], outputs: list, estimators: dict) -> dict:
+    """Each model's validated decision curves in each outer sample: model -> (n_outer, n_horizons, n_thresholds).
+
+    The same estimator as the validated curves of :func:`workbench.validation.compare.compare_models`:
+    optimism (apparent minus mean inner optimism), out-of-bootstrap (mean over inner
+    out-of-bootstrap rows; .632+ has no no-information net benefit and uses it too) or
+    cross-validation (mean over folds). NaN rows where :func:`outer_estimates` has them.
+    """
+    n_outer = 1 + max((t.outer for t in tasks), default=-1)
+    by_outer: dict[int, list] = {}
+    for t, o in zip(tasks, outputs, strict=True):
+        by_outer.setdefault(t.outer, []).append((t, o))
+    out = {}
+    for s, rows in by_outer.items():
+        for m in sorted({m for _, o in rows for m in o["models"]}):
+            recs = [(t, o["models"][m]) for t, o in rows if m in o["models"]]
+            app = [rec for t, rec in recs if t.fold == -1]
+            inner = [rec for t, rec in recs if t.fold != -1]
+            if not app or not app[0]["ok"] or sum(r["ok"] for r in inner) * 2 <= len(inner):
+                continue
+            a = _nb_arm(app[0], "test")
+            if a is None:
+                continue
+            if m not in out:
+                out[m] = np.full((n_outer, *a.shape), np.nan)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                if method == "bootstrap" and estimators.get(m, "optimism") == "optimism":
+                    pairs = [(_nb_arm(r, "train"), _nb_arm(r, "test")) for r in inner]
+                    gaps = [b - o for b, o in pairs if b is not None and o is not None]
+                    if gaps:
+                        out[m][s] = a - np.nanmean(np.array(gaps), axis=0)
+                else:
+                    te = [x for x in (_nb_arm(r, "test") for r in inner) if x is not None]
+                    if te:
+                        out[m][s] = np.nanmean(np.array(te), axis=0)
     return out

@@ -36,7 +36,8 @@ from workbench.workflow import run_study
 STUDY = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 
 EXPECTED = {"nomogram", "km_risk_groups", "td_auc", "calibration", "decision_curve", "hazard_ratios_clinical",
-            "hazard_ratios_combined", "selection_frequency", "coefficient_path", "ph_clinical", "ph_combined"}
+            "hazard_ratios_combined", "selection_frequency", "coefficient_path", "ph_clinical", "ph_combined",
+            "difference_curves", "site_calibration"}
 
 
 @pytest.fixture(scope="module")
@@ -49,7 +50,7 @@ def demo_result():
     )
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", WorkbenchWarning)
-        return run_study(spec, replicates=2)
+        return run_study(spec, replicates=2, permutations=0)  # no figure draws the added-value test
 
 
 @pytest.mark.slow
@@ -93,6 +94,64 @@ def test_showcase_patients_and_their_intervals(demo_result):
         point = m.predict_survival(ext.take([i]), demo_result.spec.horizons).probs[0]
     assert np.all(ci.lower[0] <= point + 1e-12) and np.all(point <= ci.upper[0] + 1e-12)
     np.testing.assert_allclose(ci.survival[0], point, atol=1e-10)
+
+
+# ------------------------------------------------------------------ drawn data of the new figures
+
+
+def _close(a, b):
+    np.testing.assert_allclose(np.asarray(a, float), np.asarray(b, float), rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("width", ["single", "double"])
+def test_site_calibration_draws_the_pooled_numbers_of_results_json(demo_result, width):
+    # Reference check: the pooled random-effects O/E, its interval and the prediction interval for a new
+    # site drawn are the per-scanner validation numbers written to results.json, and so is every level.
+    from workbench.report.external_text import worst_horizon
+    from workbench.report.results import results_dict
+
+    d = results_dict(demo_result)
+    fig = study_figures(demo_result, width=width)["site_calibration"]
+    h = worst_horizon(d, ("clinical", "combined"), 0.0)
+    assert h in demo_result.spec.horizons
+    key = f"oe_ratio@{h:g}"
+    block = d["external"]["by_group"]["scanner"]
+    ax = fig.axes[0]
+    arts = {a.get_gid(): a for a in [*ax.lines, *ax.patches, *ax.collections] if a.get_gid()}
+    n_checked = 0
+    for m in ("clinical", "combined"):
+        pooled = block["pooled"][m][key]
+        dia = arts[f"pooled:scanner:{m}"].get_xy()[:, 0]
+        _close(sorted(set(np.round(dia, 14))), sorted({round(pooled["ci_lower"], 14), round(pooled["estimate"], 14),
+                                                     round(pooled["ci_upper"], 14)}))
+        _close(arts[f"pi:scanner:{m}"].get_xdata(), [pooled["pi_lower"], pooled["pi_upper"]])
+        for lev in block["levels"]:
+            _close(arts[f"level:scanner:{lev}:{m}"].get_xdata(), [block["estimates"][m][lev][key]["estimate"]])
+            n_checked += 1
+    assert n_checked == 2 * len(block["levels"]) >= 6
+    # the unseen scanner is marked in its row label
+    labels = [t.get_text() for t in ax.get_yticklabels()]
+    assert any("scanner_D" in t and "unseen" in t for t in labels)
+    assert not any("scanner_A" in t and "unseen" in t for t in labels)
+
+
+def test_difference_curves_draw_the_stored_bands(demo_result):
+    bands = demo_result.difference_bands["combined"]
+    fig = study_figures(demo_result, width="double")["difference_curves"]
+    axes = np.array(fig.axes).reshape(2, 2)
+    for i, q in enumerate(("auc", "net_benefit")):
+        for k, s in enumerate(("internal", "external")):
+            b = bands[q][s]
+            line = next(ln for ln in axes[i][k].lines if ln.get_gid() == "difference")
+            ok = np.isfinite(b.estimate) if (q, s) == ("auc", "internal") else slice(None)
+            _close(line.get_xdata(), b.x[ok])
+            np.testing.assert_allclose(line.get_ydata(), b.estimate[ok], atol=1e-12, equal_nan=True)
+    ext_nb = bands["net_benefit"]["external"]
+    band = next(c for c in axes[1][1].collections if c.get_gid() == "band")
+    ys = np.concatenate([p.vertices[:, 1] for p in band.get_paths()])
+    finite = np.isfinite(ext_nb.lower)
+    assert np.all(np.isin(np.round(ext_nb.lower[finite], 12), np.round(ys, 12)))
+    assert np.all(np.isin(np.round(ext_nb.upper[finite], 12), np.round(ys, 12)))
 
 
 # ------------------------------------------------------------------ the checker finds what it should

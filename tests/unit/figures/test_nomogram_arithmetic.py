@@ -7,9 +7,6 @@ ships (Fox, appendix to "An R and S-PLUS Companion to Applied Regression").
 
 from __future__ import annotations
 
-from dataclasses import replace
-from pathlib import Path
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -29,26 +26,12 @@ from workbench.figures.nomogram_points import (
     write_points_table,
 )
 from workbench.models.cox import ClinicalCox
-from workbench.models.registry import build_models
-from workbench.prepare import prepare_cohort
 from workbench.preprocess.clinical import PredictorSpec
-from workbench.study import read_study
-
-STUDY = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 
 
 @pytest.fixture(scope="module")
-def demo():
-    spec = read_study(STUDY)
-    spec = replace(
-        spec,
-        models=replace(spec.models, fit=("clinical", "combined")),
-        imaging=replace(spec.imaging, penalty=replace(spec.imaging.penalty, n_alphas=30)),
-    )
-    cohort = prepare_cohort(spec).cohort
-    models = build_models(spec)
-    for m in models.values():
-        m.fit(cohort)
+def demo(demo_two_models):
+    spec, cohort, models = demo_two_models
     sig = models["combined"].signature_score(cohort)
     scales = {
         "clinical": nomogram_scales(models["clinical"], spec.horizons, time_unit="months", median_axis=True),

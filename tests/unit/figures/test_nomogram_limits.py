@@ -7,9 +7,6 @@ level counts), not with the nomogram's own bookkeeping.
 
 from __future__ import annotations
 
-from dataclasses import replace
-from pathlib import Path
-
 import numpy as np
 import pytest
 from matplotlib.lines import Line2D
@@ -22,25 +19,11 @@ from workbench.figures.nomogram_points import (
     patient_values,
     points_for_patient,
 )
-from workbench.models.registry import build_models
-from workbench.prepare import prepare_cohort
-from workbench.study import read_study
-
-STUDY = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 
 
 @pytest.fixture(scope="module")
-def demo():
-    spec = read_study(STUDY)
-    spec = replace(
-        spec,
-        models=replace(spec.models, fit=("clinical", "combined")),
-        imaging=replace(spec.imaging, penalty=replace(spec.imaging.penalty, n_alphas=30)),
-    )
-    cohort = prepare_cohort(spec).cohort
-    models = build_models(spec)
-    for m in models.values():
-        m.fit(cohort)
+def demo(demo_two_models):
+    spec, cohort, models = demo_two_models
     sig = models["combined"].signature_score(cohort)
     sc = nomogram_scales(models["combined"], spec.horizons, signature_scores=sig, time_unit="months",
                          median_axis=True)

@@ -9,7 +9,6 @@ lifelines for the Schoenfeld residuals.
 from __future__ import annotations
 
 import re
-from dataclasses import replace
 from pathlib import Path
 
 import matplotlib
@@ -44,30 +43,16 @@ from workbench.figures.style import (
     style_context,
 )
 from workbench.metrics.calibration import calibration_at
-from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
 from workbench.stats.coxph import fit_coxph
 from workbench.stats.km import kaplan_meier, survival_at
 from workbench.stats.schoenfeld import proportional_hazards_test
-from workbench.study import read_study
-
-STUDY = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 
 
 @pytest.fixture(scope="module")
-def demo():
-    spec = read_study(STUDY)
-    spec = replace(
-        spec,
-        models=replace(spec.models, fit=("clinical", "combined")),
-        # the two study models only (no automatic clinical + volume comparison model)
-        imaging=replace(spec.imaging, volume_feature=None, penalty=replace(spec.imaging.penalty, n_alphas=30)),
-    )
-    train = prepare_cohort(spec).cohort
+def demo(demo_two_models):
+    spec, train, models = demo_two_models
     test = prepare_cohort(spec, external=True).cohort
-    models = build_models(spec)
-    for m in models.values():
-        m.fit(train)
     return spec, train, test, models
 
 

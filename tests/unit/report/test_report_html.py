@@ -276,3 +276,13 @@ def test_level_order_warning_reaches_the_limitations(result, data):
     assert not any("Order of a categorical effect" in x for x in limitations(result, d))
     d["warnings"].append({"category": "LevelOrderWarning", "message": msg})
     assert "Order of a categorical effect: " + msg in limitations(result, d)
+def test_difference_figure_sits_with_the_comparison(html, data):
+    inc = section(html, "incremental")
+    assert 'id="fig-difference-combined"' in inc
+    # the numbers it draws are in results.json beside the comparison they belong to
+    curves = data["comparison"]["combined"]["difference_curves"]
+    assert set(curves) == {"auc", "net_benefit"}
+    assert curves["net_benefit"]["band"] == "two-stage" and curves["net_benefit"]["setting"] == "internal"
+    assert curves["auc"]["x"] == [float(h) for h in data["study"]["horizons"]]
+    assert "This run has no external cohort" in text_of(section(html, "external"))
+    assert "fig-decision-external" not in section(html, "decision")

@@ -91,6 +91,14 @@ def test_two_stage_intervals_contain_their_estimates(small, method):
                    backend="serial", calibration=False, interval="two-stage", outer_replicates=12,
                    inner_replicates=2)
     assert res.interval == "two-stage" and res.outer_estimates["a"].shape == (12, len(res.metric_names))
+    # the validated decision curves of the same outer samples (the net-benefit difference band), failing together
+    nb = res.outer_net_benefit["a"]
+    assert nb.shape == (12, len(H), res.apparent["a"].thresholds.size)
+    np.testing.assert_array_equal(np.isfinite(res.outer_estimates["a"][:, 0]), np.isfinite(nb).any(axis=(1, 2)))
+    from workbench.validation.difference_bands import net_benefit_difference
+
+    band = net_benefit_difference(res, "b", "a", 0)
+    assert band.band == "two-stage" and band.n_replicates == int(np.isfinite(nb[:, 0, 0]).sum())
     for m in models:
         for e in res.estimates[m].values():
             if np.isfinite(e.ci_lower):

@@ -34,8 +34,9 @@ def _run_controls(spec) -> None:
     ss = st.session_state
     a, b, c = st.columns([1, 1, 2])
     # kept under keys of their own: a widget's key is forgotten when another view is shown
+    quick = min(state.DEMO_REPLICATES, spec.validation.replicates)  # never more than the study asks for
     reps = a.number_input("Bootstrap replicates for this run", 1, 5000,
-                          int(ss.get("wb_run_replicates", state.DEMO_REPLICATES)), key="results_replicates",
+                          int(ss.get("wb_run_replicates", quick)), key="results_replicates",
                           help="A quick look uses few replicates; the study file keeps its own number.")
     workers = b.number_input("Parallel workers", 1, 64, int(ss.get("wb_run_workers", min(2, os.cpu_count() or 1))),
                              key="results_workers",
@@ -46,6 +47,9 @@ def _run_controls(spec) -> None:
         f"finishes in about a minute. The full analysis uses the {spec.validation.replicates} replicates set on "
         "the Design page: set that number here, or run the study file from the command line. Intervals from few "
         "replicates are rough."
+        + (f" A quick run also tests the added value of imaging with only {state.QUICK_PERMUTATIONS} permutations "
+           f"(instead of {spec.added_value.permutations}), so its p-value cannot go below 0.05."
+           if state.quick_permutations(spec, int(reps)) is not None and spec.added_value.permutations else "")
     )
     job = state.current_job()
     busy = job is not None and job.running
@@ -118,6 +122,8 @@ FIGURE_TITLES = {
     "td_auc": "Time-dependent AUC",
     "calibration": "Calibration at each horizon",
     "decision_curve": "Decision curves",
+    "difference_curves": "Combined minus clinical: AUC and net benefit",
+    "site_calibration": "Calibration by centre and scanner (external)",
     "selection_frequency": "Signature: selection frequency",
     "coefficient_path": "Signature: coefficient path",
 }
