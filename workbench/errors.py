@@ -70,6 +70,10 @@ class VolumeDominanceWarning(WorkbenchWarning):
     """The imaging signature is mostly tumour volume in disguise."""
 
 
+class LevelOrderWarning(WorkbenchWarning):
+    """An ordered categorical effect (e.g. stage) is monotone in the clinical model but not after adding imaging."""
+
+
 class FollowUpWarning(WorkbenchWarning):
     """A horizon or time grid sits near the end of follow-up."""
 

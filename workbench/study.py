@@ -153,6 +153,13 @@ class ModelsSpec:
 
 
 @dataclass(frozen=True)
+class FiguresSpec:
+    """[figures]: how the figures of a run are drawn."""
+
+    min_at_risk: int = 10  # risk-group survival curves stop below this many patients at risk
+
+
+@dataclass(frozen=True)
 class AddedValueSpec:
     """[added_value]: the permutation test of imaging given the clinical model (0 = not run)."""
 
@@ -198,6 +205,7 @@ class StudySpec:
     external: ExternalSpec | None = None
     anticipated_r2: float | None = None
     added_value: AddedValueSpec = field(default_factory=AddedValueSpec)
+    figures: FiguresSpec = field(default_factory=FiguresSpec)
 
     def __post_init__(self):
         check_spec(self)
@@ -285,6 +293,9 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[added_value] permutations must be 0 (test not run) or more; got {av.permutations}.")
     if av.folds < 2:
         raise SpecError(f"[added_value] folds must be at least 2; got {av.folds}.")
+    if spec.figures.min_at_risk < 1:
+        raise SpecError(f"[figures] min_at_risk must be at least 1 (a curve is drawn while that many patients "
+                        f"remain at risk; 10 is common practice); got {spec.figures.min_at_risk}.")
     if v.uno_tau is not None and (isinstance(v.uno_tau, bool) or not isinstance(v.uno_tau, (int, float)) or v.uno_tau <= 0):
         raise SpecError(f"[validation] uno_tau must be a positive number of {d.time_unit} (Uno's C truncation time); "
                         f"got {v.uno_tau!r}. Leave it out to truncate at the last horizon.")
@@ -368,13 +379,13 @@ def read_study(path) -> StudySpec:
 
 
 def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study") -> StudySpec:
-    known = {"study", "data", "predictor", "imaging", "models", "validation", "external", "added_value"}
+    known = {"study", "data", "predictor", "imaging", "models", "validation", "external", "added_value", "figures"}
     for key in doc:
         if key not in known:
             close = difflib.get_close_matches(key, sorted(known), n=1)
             hint = f" Did you mean [{close[0]}]?" if close else ""
             raise SpecError(f"{source}: unknown section [{key}].{hint}")
-    for key in ("study", "data", "imaging", "models", "validation", "external"):
+    for key in ("study", "data", "imaging", "models", "validation", "external", "added_value", "figures"):
         if key in doc and not isinstance(doc[key], dict):
             raise SpecError(f"{source}: [{key}] must be a section of keys (a table), not {doc[key]!r}.")
     study = dict(doc.get("study", {}))
@@ -407,6 +418,7 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
                                                                                 "combined": (CombinedSpec, f"{source} [models.combined]")})
     validation = _take(doc.get("validation", {}), ValidationSpec, f"{source} [validation]")
     added_value = _take(doc.get("added_value", {}), AddedValueSpec, f"{source} [added_value]")
+    figures = _take(doc.get("figures", {}), FiguresSpec, f"{source} [figures]")
     if data.features is None and "fit" not in doc.get("models", {}):
         models = replace(models, fit=("clinical",))  # a clinical-only study fits the clinical model
     external = None
@@ -431,6 +443,7 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
         external=external,
         anticipated_r2=study.get("anticipated_r2"),
         added_value=added_value,
+        figures=figures,
     )
 
 
@@ -478,6 +491,7 @@ def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
     doc["models"] = _plain(spec.models)
     doc["validation"] = _plain(spec.validation)
     doc["added_value"] = _plain(spec.added_value)
+    doc["figures"] = _plain(spec.figures)
     if spec.external is not None:
         doc["external"] = {**_plain(spec.external), "clinical": _rel(spec.external.clinical, base)}
         if spec.external.features is not None:

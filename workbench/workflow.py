@@ -17,11 +17,13 @@ from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 
 from workbench.cohort.summary import CohortSummary, summarise_cohort
-from workbench.errors import SpecError, WorkbenchError
+from workbench.errors import DataQualityWarning, SpecError, WorkbenchError
 from workbench.models.base import clone_model
-from workbench.models.labels import warn_empty_signatures
+from workbench.models.collinearity import signature_collinearity, warn_level_order
+from workbench.models.labels import model_labels, warn_empty_signatures
 from workbench.models.registry import build_models, candidate_parameters
 from workbench.models.signature import check_volume_dominance, volume_correlation
+from workbench.models.volume import VOLUME_MODEL
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
@@ -108,6 +110,13 @@ class StudyResult:
     added_value : dict of str to AddedValueTest
         Permutation test of each imaging model against the baseline given the
         clinical predictors (empty when ``[added_value] permutations = 0``).
+    collinearity : dict of str to CollinearityTable
+        Per model with a signature, the signature's correlation and variance
+        inflation with each clinical design column, on the development cohort.
+    volume_comparisons : dict of str to ComparisonResult
+        The combined model against the clinical + tumour volume model
+        (``"internal"``, and ``"external"`` with an external cohort); empty when
+        the study names no volume feature or fits no combined model.
     difference_bands : dict
         Per compared model, AUC and net-benefit differences against the baseline with
         paired bands, internal and external (:mod:`workbench.validation.difference_bands`).
@@ -129,6 +138,8 @@ class StudyResult:
     warnings: tuple = field(default_factory=tuple)
     new_site: dict = field(default_factory=dict)
     added_value: dict = field(default_factory=dict)
+    collinearity: dict = field(default_factory=dict)
+    volume_comparisons: dict = field(default_factory=dict)
     difference_bands: dict = field(default_factory=dict)
 
     @property
@@ -213,6 +224,11 @@ def run_study(
                                    **candidate_parameters(spec, cohort))
 
         unfitted = build_models(spec)
+        if VOLUME_MODEL in unfitted and spec.imaging.volume_feature not in cohort.feature_names:
+            del unfitted[VOLUME_MODEL]
+            warnings.warn(f"[imaging] volume_feature {spec.imaging.volume_feature!r} is not among the imaging "
+                          "features of the analysis (check the name and [imaging] include / exclude): the "
+                          "clinical + tumour volume model is not fitted.", DataQualityWarning, stacklevel=2)
         fitted = {name: clone_model(m).fit(cohort) for name, m in unfitted.items()}
         ph_tests = {}
         for name, m in fitted.items():
@@ -227,6 +243,8 @@ def run_study(
                 if hasattr(m, "signature_score") and tuple(getattr(m, "selected_features_", ())):
                     volume[name] = volume_correlation(m.signature_score(cohort), cohort.features, spec.imaging.volume_feature)
                     check_volume_dominance(volume[name])
+        collinearity = {name: t for name, m in fitted.items() if (t := signature_collinearity(m, cohort)) is not None}
+        warn_level_order(fitted, model_labels(fitted), baseline="clinical")
 
         check_uno_tau(v.uno_tau, cohort, spec.horizons)
         model_reps = {"forest": v.forest_replicates} if "forest" in unfitted else None
@@ -278,6 +296,12 @@ def run_study(
         external_comparisons = (
             {m: compare_models(external, m, baseline) for m in unfitted if m != baseline} if external else {}
         )
+        volume_comparisons = {}
+        if VOLUME_MODEL in unfitted and "combined" in unfitted:
+            # is the signature more than volume? the same replicates and estimator for both
+            volume_comparisons["internal"] = compare_models(validation, "combined", VOLUME_MODEL)
+            if external:
+                volume_comparisons["external"] = compare_models(external, "combined", VOLUME_MODEL)
 
     if v.method == "none":
         # apparent performance only: recorded as such, not as a bootstrap with no replicates
@@ -286,6 +310,8 @@ def run_study(
         kept = tuple(n for n in validation.notes if not n.startswith("no bootstrap replicates were run"))
         validation = replace(validation, method="none", notes=(*kept, note))
         comparisons = {k: replace(c, method="none") for k, c in comparisons.items()}
+        if "internal" in volume_comparisons:
+            volume_comparisons["internal"] = replace(volume_comparisons["internal"], method="none")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the run's warnings were recorded above; resampling repeats them
         bands = study_difference_bands(validation, comparisons, external, external_comparisons, fitted,
@@ -323,6 +349,8 @@ def run_study(
         warnings=tuple(messages),
         new_site=new_site,
         added_value=added_value,
+        collinearity=collinearity,
+        volume_comparisons=volume_comparisons,
         difference_bands=bands,
     )
 

@@ -117,7 +117,10 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         training = summarise_training(result.cohort, result.models, result.spec.horizons)
         save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)
     data = json.loads((out / "results.json").read_text())
-    assert set(data["models"]) == set(doc.get("models", {}).get("fit", ["clinical"]))
+    fit = list(doc.get("models", {}).get("fit", ["clinical"]))
+    # a named volume feature adds the clinical + tumour volume comparison model (not in the bundle)
+    auto = ["clinical_volume"] if feats is not None and doc.get("imaging", {}).get("volume_feature") else []
+    assert list(data["models"]) == fit + auto
     assert "Research use only" in html
     assert "could not be drawn" not in html, "a report figure failed"
     assert (out / "bundle").is_dir()
@@ -141,7 +144,7 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         keep += [c for c in feats.columns[1:] if not any(fnmatch.fnmatch(c, x) for x in excl)]
     row = row[[c for c in dict.fromkeys(keep) if c in row]].dropna(axis=1)
     row.to_csv(tmp_path / "patient.csv", index=False)
-    for model in data["models"]:
+    for model in fit:
         assert main(["estimate", str(out / "bundle"), "--model", model, "--patient", str(tmp_path / "patient.csv")]) == 0
     return data, html
 
@@ -195,10 +198,16 @@ def test_volume_screen_cv_every_kind(tmp_path, monkeypatch, gbsg2):
         {"column": "tgrade", "kind": "ordinal", "levels": ["I", "II", "III"]},
     ]
     doc = _doc("gbsg2 cv", s, predictor=preds, imaging={"volume_feature": "tumour_volume_cc", "reduce": {"screen": True}},
-               validation={"method": "cv", "folds": 3, "repeats": 1, "uno_tau": 1000})
+               validation={"method": "cv", "folds": 3, "repeats": 1, "uno_tau": 1000}, figures={"min_at_risk": 15})
     data, html = _run_case(tmp_path, feats, clin, doc, monkeypatch=monkeypatch)
     assert data["models"]["combined"]["volume_correlation"]["feature"] == "tumour_volume_cc"
     assert "truncated at 1000 days" in html
+    # the clinical + tumour volume model went through the same cross-validation
+    assert data["validation"]["n_replicates"]["clinical_volume"] == data["validation"]["n_replicates"]["combined"]
+    assert data["volume_comparison"]["internal"]["model"] == "combined"
+    assert data["volume_comparison"]["internal"]["baseline"] == "clinical_volume"
+    assert "Clinical + imaging signature against Clinical + tumour volume" in html
+    assert "fewer than 15 patients remain at risk" in " ".join(html.split())
 
 
 def test_log_transform_and_missing_values(tmp_path, monkeypatch, veterans):

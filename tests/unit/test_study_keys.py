@@ -155,3 +155,17 @@ def test_naming_scheme_translation():
     assert list(csv["design_columns"]) == ["age", "stage=II; stage=III"]
     ph = ph_frame(pd.DataFrame({"term": ["age", "GLOBAL"], "p_value": [0.1, np.nan]}))
     assert list(ph.columns) == ["design_column", "p_value"]
+
+
+def test_min_at_risk_key_default_round_trip_and_checks():
+    spec = study_from_dict(_doc())
+    assert spec.figures.min_at_risk == 10  # common practice
+    spec = study_from_dict(_doc(figures={"min_at_risk": 20}))
+    assert spec.figures.min_at_risk == 20
+    assert study_from_dict(__import__("tomllib").loads(dumps_study(spec))) == spec
+    with pytest.raises(SpecError, match=r"\[figures\] min_at_risk must be at least 1"):
+        study_from_dict(_doc(figures={"min_at_risk": 0}))
+    with pytest.raises(SpecError, match="min_at_risk must be a whole number"):
+        study_from_dict(_doc(figures={"min_at_risk": "ten"}))
+    with pytest.raises(SpecError, match="Did you mean 'min_at_risk'"):
+        study_from_dict(_doc(figures={"min_at_risks": 5}))

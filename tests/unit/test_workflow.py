@@ -29,7 +29,7 @@ def test_result_holds_every_block(result, tmp_path):
     data = json.loads(path.read_text())
     assert data["format"] == "workbench-results/1"
     assert "Research use only" in data["caution"]
-    assert set(data["models"]) == {"clinical", "combined"}
+    assert set(data["models"]) == {"clinical", "combined", "clinical_volume"}  # volume_feature is named
     perf = data["models"]["combined"]["performance"]
     for key in ("harrell_c", "uno_c", "ibs", "auc@12", "auc@24", "brier@12", "ici@24", "e50@12", "e90@12", "cal_slope@24"):
         assert key in perf, key

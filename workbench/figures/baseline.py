@@ -39,7 +39,8 @@ def plot_baseline_survival(curves: Mapping[str, tuple], *, horizons=(), time_uni
     if not curves:
         raise WorkbenchError("no Cox model with a baseline survival curve to draw.")
     with style_context(width):
-        fig, ax = figure_and_axes(ax, width, aspect=0.5)
+        own = ax is None
+        fig, ax = figure_and_axes(ax, width, aspect=0.8 if width == "single" else 0.5)
         styles = model_styles(curves)
         t_max = max(float(np.max(t)) for t, _ in curves.values())
         for name, (t, s) in curves.items():
@@ -54,5 +55,10 @@ def plot_baseline_survival(curves: Mapping[str, tuple], *, horizons=(), time_uni
         ax.set_ylim(0, 1.02)
         ax.set_xlabel(f"Time since start of follow-up ({time_unit})" if time_unit else "Time")
         ax.set_ylabel("Baseline survival S0(t)")
-        ax.legend(loc="lower left")
+        if own and (width == "single" or len(curves) > 2):
+            # below the plot: at column width, or with three or more models, a legend inside the axes
+            # covers the curves' lower tails
+            fig.legend(loc="outside lower center", ncols=1 if width == "single" else 3, fontsize="small")
+        else:
+            ax.legend(loc="lower left")
     return fig

@@ -75,7 +75,7 @@ def series_style(i: int) -> SeriesStyle:
     return SeriesStyle(PALETTE[k], LINESTYLES[k], MARKERS[k])
 
 
-MODEL_SLOTS = {"clinical": 0, "combined": 1, "penalised_all": 2, "forest": 3}
+MODEL_SLOTS = {"clinical": 0, "combined": 1, "penalised_all": 2, "forest": 3, "clinical_volume": 4}
 """Fixed palette slot of each study model, so a model keeps its look in every figure and in
 every order (a bundle lists its models alphabetically; a study lists them as written)."""
 
@@ -94,7 +94,7 @@ def _model_slot(name: str) -> int | None:
 def model_styles(names) -> dict[str, SeriesStyle]:
     """The style of each model, keyed by model name (study key or its label), independent of order.
 
-    The four study models have fixed slots (:data:`MODEL_SLOTS`); any other names take the
+    The study models (and the clinical + volume comparison model) have fixed slots (:data:`MODEL_SLOTS`); any other names take the
     remaining slots in alphabetical order, so reordering the names never swaps two styles.
     """
     names = list(dict.fromkeys(names))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from workbench.models.cox import ClinicalCox, CombinedCox
 from workbench.models.signature import ImagingSignature
+from workbench.models.volume import VOLUME_MODEL, VolumeCox
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.study import StudySpec
@@ -13,7 +14,18 @@ MODEL_LABELS = {
     "combined": "Clinical + imaging signature",
     "penalised_all": "Penalised Cox, clinical + all imaging",
     "forest": "Random survival forest",
+    VOLUME_MODEL: "Clinical + tumour volume",
 }
+
+COMPARISON_MODELS = (VOLUME_MODEL,)
+"""Models the workbench adds on its own to answer a question about the study's models
+(clinical + tumour volume when ``[imaging] volume_feature`` is named). They are validated
+like every other model but are not offered for use: no bundle, no nomogram."""
+
+
+def offered_models(models: dict) -> dict:
+    """The study's own models, without the comparison models (what bundles and nomograms carry)."""
+    return {k: m for k, m in models.items() if k not in COMPARISON_MODELS}
 
 
 def build_signature(spec: StudySpec, random_state: int) -> ImagingSignature:
@@ -34,7 +46,11 @@ def build_signature(spec: StudySpec, random_state: int) -> ImagingSignature:
 
 
 def build_models(spec: StudySpec) -> dict:
-    """Unfitted models for ``spec.models.fit``, in that order, keyed by name."""
+    """Unfitted models for ``spec.models.fit``, in that order, keyed by name.
+
+    When the study names a volume feature and has an imaging table, the clinical +
+    tumour volume Cox model (:class:`~workbench.models.volume.VolumeCox`) follows them.
+    """
     preds = tuple(spec.predictors)
     h = spec.imaging.harmonise
     seed = int(spec.seed)
@@ -73,7 +89,10 @@ def build_models(spec: StudySpec) -> dict:
             random_state=seed,
         ),
     }
-    return {name: table[name]() for name in spec.models.fit}
+    models = {name: table[name]() for name in spec.models.fit}
+    if spec.imaging.volume_feature and spec.data.features is not None:
+        models[VOLUME_MODEL] = VolumeCox(preds, volume_feature=spec.imaging.volume_feature)
+    return models
 
 
 def candidate_parameters(spec: StudySpec, cohort) -> dict:

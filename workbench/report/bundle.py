@@ -42,7 +42,7 @@ from workbench.cohort.summary import CAUTION, CohortSummary, HorizonSurvival, su
 from workbench.errors import BundleError, WorkbenchWarning
 from workbench.models.cox import ClinicalCox, CombinedCox
 from workbench.models.recalibrated import RecalibratedModel
-from workbench.models.registry import MODEL_LABELS
+from workbench.models.registry import MODEL_LABELS, offered_models
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.prepare import package_versions
 from workbench.report._codec import CODECS, classes_in, decode_model, encode_model
@@ -168,7 +168,7 @@ def summarise_training(cohort: Cohort, models: dict | None = None, horizons=(), 
         p01 = {str(c): float(v) for c, v in zip(feats.columns, lo, strict=True)}
         p99 = {str(c): float(v) for c, v in zip(feats.columns, hi, strict=True)}
     cuts = {}
-    for name, model in (models or {}).items():
+    for name, model in offered_models(models or {}).items():
         risk = model.predict_risk(cohort).values
         cuts[str(name)] = tuple(float(v) for v in learn_cutpoints(risk, groups))
     ev = cohort.time[cohort.event]
@@ -296,7 +296,8 @@ def save_bundle(models: dict, spec: StudySpec, training_summary, path, *, extra:
     Parameters
     ----------
     models : dict of str to fitted model
-        ClinicalCox, CombinedCox, PenalisedAllCox or ForestModel, fitted.
+        ClinicalCox, CombinedCox, PenalisedAllCox or ForestModel, fitted. Comparison models
+        (``registry.COMPARISON_MODELS``: clinical + tumour volume) are left out.
     spec : StudySpec
         The study the models come from.
     training_summary : TrainingSummary or CohortSummary
@@ -317,6 +318,8 @@ def save_bundle(models: dict, spec: StudySpec, training_summary, path, *, extra:
     Path
     """
     path = Path(path)
+    # comparison models (clinical + tumour volume) answer a question about the study; they are not for use
+    models = offered_models(models or {})
     if not models:
         raise BundleError("save_bundle was given no models; pass a dict such as {'clinical': fitted_model}.")
     training = _as_training(training_summary)

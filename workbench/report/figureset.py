@@ -46,6 +46,7 @@ from workbench.figures.nomogram_points import SIGNATURE_TERM
 from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import MODEL_LABELS
+from workbench.models.volume import VOLUME_MODEL
 
 COX_MODELS = ("clinical", "combined")
 
@@ -158,7 +159,7 @@ def study_figures(result, *, width="double") -> dict:
         groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, k)
         figs["km_risk_groups"] = plot_km_by_group(
             km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})", width=width,
-            development=result.external_prepared is None,
+            development=result.external_prepared is None, min_at_risk=result.spec.figures.min_at_risk,
         )
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
@@ -181,7 +182,7 @@ def study_figures(result, *, width="double") -> dict:
         figs["decision_curve"] = plot_decision_curve(decision_curves(evalc.y, curves, h), time_unit=unit,
                                                      title=where.capitalize(), width=width)
     figs.update(_difference_and_site_figures(result, width))
-    for name in COX_MODELS:
+    for name in (*COX_MODELS, VOLUME_MODEL):
         if name in models:
             m = models[name]
             sd = (float(np.std(m.signature_score(train), ddof=1)) if hasattr(m, "signature_score")

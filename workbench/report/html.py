@@ -41,7 +41,7 @@ from workbench.cohort.summary import CAUTION, feature_family
 from workbench.errors import WorkbenchError, WorkbenchWarning
 from workbench.metrics.decision import DecisionCurveResult
 from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
-from workbench.models.registry import MODEL_LABELS
+from workbench.models.registry import MODEL_LABELS, offered_models
 from workbench.report.appendix import appendix_context
 from workbench.report.characteristics import characteristics_table
 from workbench.report.checklist import FILLED, reporting_checklist
@@ -197,13 +197,13 @@ def _eval_horizons(horizons, cohort) -> tuple[float, ...]:
     return tuple(h for h in horizons if h < float(np.max(cohort.time[cohort.event])) if np.any(cohort.event))
 
 
-def _km_fig(model, train, cohort, unit, title, k=3):
+def _km_fig(model, train, cohort, unit, title, k=3, min_at_risk=10):
     from workbench.figures import km_by_group, plot_km_by_group, risk_groups
 
     groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, k)
     # on the development patients the groups come from a model fitted to them: described, not tested
     return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title,
-                            development=cohort is train)
+                            development=cohort is train, min_at_risk=min_at_risk)
 
 
 def _external_row_censoring(result, cohort, models):
@@ -291,8 +291,10 @@ def _figures(result, d: dict) -> dict:
     unit, horizons, train = result.spec.data.time_unit, tuple(result.spec.horizons), result.cohort
     models = result.models
     cox = {k: m for k, m in models.items() if hasattr(m, "fit_") and hasattr(m, "transformer_")}
+    offered = offered_models(cox)  # comparison models (clinical + volume) get no nomogram
     lead = models.get("combined") or next(iter(models.values()))
     k_groups = getattr(result.spec.models, "risk_groups", 3)
+    at_risk = result.spec.figures.min_at_risk
     out = {k: [] for k in FIGURE_SLOTS}
     _data_and_appendix_figures(result, out)
     _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
@@ -325,8 +327,8 @@ def _figures(result, d: dict) -> dict:
         _site_figure(out["external"], result, d, unit)
         _figure(out["external"], "external-km", "Risk groups on the external cohort",
                 f"Kaplan-Meier curves by {k_groups} quantile groups of the {_label(lead.name)} risk, cut-points "
-                "fixed on the development patients.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
-                                                                       k_groups))
+                f"fixed on the development patients. Curves stop when fewer than {at_risk} patients remain at risk.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
+                                                                       k_groups, at_risk))
         _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
                 "Cumulative/dynamic AUC over follow-up time.",
                 lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort",
@@ -335,13 +337,14 @@ def _figures(result, d: dict) -> dict:
         def nomo():
             scales = [nomogram_scales(m, horizons, time_unit=unit, median_axis=True, name=_label(k),
                                       signature_scores=m.signature_score(train) if hasattr(m, "signature_score")
-                                      else None) for k, m in cox.items()]
+                                      else None) for k, m in offered.items()]
             return plot_nomogram(scales, layout="rows")
         _figure(out["main"], "nomogram", "Nomograms", "Points per predictor, total points, and survival "
                 "probability at each horizon and predicted median survival, for each Cox model.", nomo)
     _figure(out["main"], "km", "Kaplan-Meier curves by risk group (development cohort)",
-            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent).",
-            lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups))
+            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent). "
+            f"Curves stop when fewer than {at_risk} patients remain at risk.",
+            lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups, at_risk))
     _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
             "Cumulative/dynamic AUC over follow-up time.",
             lambda: _auc_fig(models, train, train, horizons, unit, "Development cohort"))
@@ -466,6 +469,20 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
                  if n in c["differences"]]
         comps.append({**c, "label": _label(k), "base_label": _label(c["baseline"]), "diffs": diffs,
                       "equal": k in equal_models(result.models)})
+    vcd = d.get("volume_comparison") or {}
+
+    def volume_comp(block):
+        if not block:
+            return None
+        vm = d["models"].get(block["baseline"]) or {}
+        last = (vm.get("coefficients") or [{}])[-1].get("design_column", "")
+        return {**block, "label": _label(block["model"]), "base_label": _label(block["baseline"]),
+                "volume_feature": vcd.get("volume_feature"),
+                "volume_scale": "on the log2 scale, hazard ratio per doubling" if last.startswith("log2(")
+                else "untransformed (a training value was not positive)",
+                "diffs": [{"label": metric_label(n, unit), **block["differences"][n]}
+                          for n in _metric_order(block["differences"], horizons)]}
+
     ext = None
     if d["external"] is not None:
         e = d["external"]
@@ -480,7 +497,8 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
                "batch_rows": [(b, n, b in seen) for b, n in e["batches"].items()],
                "comps": [{**c, "label": _label(k), "diffs": [{"label": metric_label(n, unit), **c["differences"][n]}
                                                              for n in _metric_order(c["differences"], horizons)]}
-                         for k, c in e["comparison"].items()]}
+                         for k, c in e["comparison"].items()],
+               "volume_comp": volume_comp(vcd.get("external"))}
     prep = result.prepared
     ids = None
     if include_ids:
@@ -497,7 +515,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "imaging_missing": [m for m in s["missing"] if m["table"] == "imaging"],
         "model_names": [_label(k) for k in perf], "perf_rows": _perf_rows(perf, names, unit),
         "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
-        "models": models, "comps": comps, "ext": ext, "ids": ids,
+        "models": models, "comps": comps, "ext": ext, "ids": ids, "volume_comp": volume_comp(vcd.get("internal")),
         **_group_context(d, horizons),
         "equal": {MODEL_LABELS.get(k, k): MODEL_LABELS.get(v, v) for k, v in equal_models(result.models).items()},
         "equal_note": EQUAL_NOTE,

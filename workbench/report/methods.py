@@ -202,6 +202,8 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
             out.append("Volume dominance: " + w["message"])
         elif w["category"] == "ProportionalHazardsWarning":
             out.append("Proportional hazards: " + w["message"])
+        elif w["category"] == "LevelOrderWarning":
+            out.append("Order of a categorical effect: " + w["message"])
     v = d["validation"]
     for name, k in v["failures"].items():
         if k:

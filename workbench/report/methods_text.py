@@ -211,6 +211,10 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
         if vc:
             out.append(Claim("imaging.volume", f"The signature's correlation with {vc['feature']} was Pearson "
                              f"{vc['pearson']:.2f}, Spearman {vc['spearman']:.2f}."))
+        if combined.get("collinearity"):
+            out.append(Claim("imaging.collinearity", "The signature score's Pearson correlation with each clinical "
+                             "design column, and each column's variance inflation factor without and with the "
+                             "signature, were computed on the development cohort."))
         if not sig["selected"]:
             out.append(Claim("imaging.empty", "The signature kept no feature, so the combined model had no "
                              "signature term and was equal to the clinical model."))
@@ -249,6 +253,15 @@ def _models_claims(result, d: dict) -> list[Claim]:
             models.append(f"{m['label']} ({det.get('trees')} trees, minimum leaf {det.get('min_leaf')}, "
                           f"{det.get('max_features')} features per split)")
     out = [Claim("models.fitted", f"Models fitted: {'; '.join(models)}.")]
+    vm = result.models.get("clinical_volume")
+    if vm is not None:
+        scale = "on the log2 scale" if getattr(vm, "volume_transform_", None) == "log2" else "untransformed"
+        out.append(Claim("models.volume", "To ask whether imaging adds more than tumour volume, a Cox model of the "
+                         f"clinical terms plus the volume feature {vm.volume_feature} ({scale}; missing values "
+                         "given the training median) was fitted and validated with the same resamples and "
+                         "estimator as the other models"
+                         + (", and the combined model was compared with it by paired differences."
+                            if d.get("volume_comparison") else ".")))
     if d["comparison"]:
         out.append(Claim("comparison", f"Each model was compared with the {_label(d['baseline'])} model by "
                          "paired differences within the same replicates, the category-free net reclassification "

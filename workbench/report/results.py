@@ -129,6 +129,9 @@ def _model_block(result, name: str) -> dict:
     if sig is not None or name in result.volume:
         # null: not applicable (no volume feature named, or a signature that kept no feature)
         block["volume_correlation"] = jsonable(result.volume.get(name))
+    coll = (getattr(result, "collinearity", None) or {}).get(name)
+    if coll is not None:
+        block["collinearity"] = _collinearity_block(coll)
     if name in result.validation.selection:
         sel = result.validation.selection[name]
         block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency)}
@@ -137,6 +140,24 @@ def _model_block(result, name: str) -> dict:
     if result.external is not None and name in result.external.estimates:
         block["external_performance"] = _metric_block(result.external.estimates[name])
     return block
+
+
+def _collinearity_block(t) -> dict:
+    return {
+        "cohort": "development",
+        "score": t.score,
+        "n": t.n,
+        "score_vif": jsonable(t.score_vif),
+        "score_r2": jsonable(t.score_r2),
+        "rows": [{"design_column": r.column, "term": r.term, "correlation": jsonable(r.correlation),
+                  "vif_without_signature": jsonable(r.vif_without), "vif_with_signature": jsonable(r.vif_with)}
+                 for r in t.rows],
+        "terms": [{"term": k, "r2_of_signature": jsonable(v)} for k, v in getattr(t, "term_r2", ())],
+        "note": "Pearson correlation of the signature score with each clinical design column; variance inflation "
+                "factor 1/(1 - R^2) of each column (least squares on the other columns, with intercept) without "
+                "and with the signature in the design; score_vif: the signature's own; terms: R^2 of the signature "
+                "regressed on each term's columns alone.",
+    }
 
 
 def _risk_group_block(result, name: str) -> dict | None:
@@ -215,6 +236,7 @@ def results_dict(result) -> dict:
         "comparison": {name: _comparison_block(c) for name, c in result.comparisons.items()},
         "added_value": {name: _added_value_block(t) for name, t in getattr(result, "added_value", {}).items()},
         "external": None,
+        "volume_comparison": _volume_comparison_block(result),
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
     }
     if result.external is not None:
@@ -234,6 +256,15 @@ def results_dict(result) -> dict:
     if getattr(result, "new_site", None):
         out["new_site_sample_size"] = jsonable(result.new_site)
     return out
+
+
+def _volume_comparison_block(result) -> dict | None:
+    """The combined model against the clinical + tumour volume model (None when not run)."""
+    vc = getattr(result, "volume_comparisons", None) or {}
+    if not vc:
+        return None
+    return {"volume_feature": result.spec.imaging.volume_feature,
+            **{k: _comparison_block(c) for k, c in vc.items()}}
 
 
 def _heterogeneity_blocks(result, out: dict) -> None:
@@ -270,7 +301,7 @@ def comparison_table(comparisons: dict) -> pd.DataFrame:
     rows = []
     for name, c in comparisons.items():
         for d in c.differences.values():
-            rows.append({"model": name, "baseline": c.baseline, **dataclasses.asdict(d)})
+            rows.append({"model": getattr(c, "model", name), "baseline": c.baseline, **dataclasses.asdict(d)})
     return pd.DataFrame(rows)
 
 
@@ -282,10 +313,14 @@ def write_results(result, out_dir) -> Path:
     path = out / "results.json"
     path.write_text(json.dumps(data, indent=2, allow_nan=False))
     performance_table(result).to_csv(out / "performance.csv", index=False)
-    comparison_table(result.comparisons).to_csv(out / "comparison.csv", index=False)
+    vc = getattr(result, "volume_comparisons", None) or {}
+    extra = {"combined vs volume": vc["internal"]} if "internal" in vc else {}
+    comparison_table({**result.comparisons, **extra}).to_csv(out / "comparison.csv", index=False)
     if result.external is not None:
         performance_table(result, "external").to_csv(out / "external_performance.csv", index=False)
-        comparison_table(result.external_comparisons).to_csv(out / "external_comparison.csv", index=False)
+        extra = {"combined vs volume": vc["external"]} if "external" in vc else {}
+        comparison_table({**result.external_comparisons, **extra}).to_csv(out / "external_comparison.csv",
+                                                                          index=False)
     from workbench.report.heterogeneity import group_table
 
     for which, v in (("external", result.external), ("internal", result.validation)):
@@ -393,6 +428,12 @@ def format_results(result) -> str:
         if name not in same and lr.nested and np.isfinite(lr.statistic) and lr.df > 0 and np.isfinite(lr.p_value):
             lines.append(f"  likelihood-ratio {chi_squared_text(lr.statistic, lr.df, lr.p_value)} "
                          "(prespecified terms)")
+    vc = (getattr(result, "volume_comparisons", None) or {}).get("internal")
+    if vc is not None:
+        lines.append("")
+        lines.append(f"{labels.get(vc.model, vc.model)} vs {labels.get(vc.baseline, vc.baseline)} "
+                     "(is the signature more than volume?):")
+        lines.append(f"  difference in Harrell C {fmt_estimate(vc.differences.get('harrell_c'), apparent_only=app)}")
     if result.external is not None:
         lines.append("")
         lines.append(f"External cohort ({result.external_prepared.cohort.n} patients):")

@@ -25,7 +25,8 @@ def demo_two_models():
     spec = replace(
         spec,
         models=replace(spec.models, fit=("clinical", "combined")),
-        imaging=replace(spec.imaging, penalty=replace(spec.imaging.penalty, n_alphas=30)),
+        # the two study models only (no automatic clinical + volume comparison model)
+        imaging=replace(spec.imaging, volume_feature=None, penalty=replace(spec.imaging.penalty, n_alphas=30)),
     )
     cohort = prepare_cohort(spec).cohort
     models = build_models(spec)

@@ -58,7 +58,7 @@ def wide_models(small_study_result):
                                           forest=replace(r.spec.models.forest, trees=10)))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", WorkbenchWarning)
-        return {k: m.fit(r.cohort) for k, m in build_models(spec).items() if k != "clinical"}
+        return {k: m.fit(r.cohort) for k, m in build_models(spec).items() if k in ("penalised_all", "forest")}
 
 
 def _claims(result):
@@ -166,6 +166,18 @@ def _imaging_volume(r, d, c):
     assert f"Pearson {v.pearson:.2f}, Spearman {v.spearman:.2f}" in c["imaging.volume"]
 
 
+def _imaging_collinearity(r, d, c):
+    assert d["models"]["combined"]["collinearity"]["rows"] and "variance inflation factor" in c["imaging.collinearity"]
+
+
+def _models_volume(r, d, c):
+    vm = r.models["clinical_volume"]
+    t = c["models.volume"]
+    assert f"the volume feature {vm.volume_feature} (" in t and vm.volume_feature == r.spec.imaging.volume_feature
+    assert ("on the log2 scale" in t) == (vm.volume_transform_ == "log2")
+    assert t.endswith("by paired differences.") == bool(d.get("volume_comparison"))
+
+
 def _imaging_empty(r, d, c):
     assert r.models["combined"].signature_.selected_features_ and "imaging.empty" not in c
 
@@ -228,7 +240,9 @@ def _metrics_accuracy(r, d, c):
 
 
 def _comparison(r, d, c):
-    assert set(r.comparisons) == {"combined"}
+    # every fitted model but the baseline is compared with it (the clinical + volume model when the
+    # study names its volume feature)
+    assert set(r.comparisons) == set(r.models) - {r.spec.models.baseline}
     assert f"compared with the {MODEL_LABELS[r.spec.models.baseline]} model" in c["comparison"]
 
 
@@ -279,6 +293,7 @@ CHECKS = {
     "imaging.pool": _imaging_pool, "imaging.harmonisation": _imaging_harmonisation,
     "imaging.steps": _imaging_steps, "imaging.penalty": _imaging_penalty, "imaging.signature": _imaging_signature,
     "imaging.volume": _imaging_volume, "imaging.empty": _imaging_empty, "models.fitted": _models_fitted,
+    "imaging.collinearity": _imaging_collinearity, "models.volume": _models_volume,
     "validation.method": _validation_method, "validation.refit": _validation_refit,
     "validation.estimator": _validation_estimator, "validation.interval": _validation_interval,
     "metrics.discrimination": _metrics_discrimination, "metrics.censoring_weights": _metrics_censoring,

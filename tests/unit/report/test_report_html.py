@@ -212,6 +212,92 @@ def test_validation_words_follow_the_estimator_used(html, data):
     assert "treat-all" not in section(html, "decision") and "everyone acted on" in section(html, "decision")
 
 
+def test_collinearity_table_equals_least_squares_and_is_printed(html, data, result):
+    # reference: the closed form 1 / (1 - R^2) with R^2 from scikit-learn's LinearRegression
+    import numpy as np
+    from sklearn.linear_model import LinearRegression
+
+    m = result.models["combined"]
+    X = m.transformer_.transform(result.cohort).X
+    s = m.signature_score(result.cohort)
+    A = np.column_stack([X, s])
+    vif = []
+    for j in range(A.shape[1]):
+        o = np.delete(A, j, axis=1)
+        vif.append(1.0 / (1.0 - LinearRegression().fit(o, A[:, j]).score(o, A[:, j])))
+    block = data["models"]["combined"]["collinearity"]
+    assert [r["design_column"] for r in block["rows"]] == list(m.transformer_.columns_)
+    np.testing.assert_allclose([r["vif_with_signature"] for r in block["rows"]], vif[:-1], rtol=1e-8)
+    assert block["score_vif"] == pytest.approx(vif[-1], rel=1e-8)
+    np.testing.assert_allclose([r["correlation"] for r in block["rows"]],
+                               [np.corrcoef(X[:, j], s)[0, 1] for j in range(X.shape[1])], atol=1e-12)
+    model = text_of(section(html, "model"))
+    assert "Signature and clinical terms on the development cohort (260 patients)" in model
+    for r in block["rows"]:
+        assert f"{r['design_column']} {fmt_num(r['correlation'], 2)} {fmt_num(r['vif_without_signature'], 2)} " \
+               f"{fmt_num(r['vif_with_signature'], 2)}" in model
+    assert [t["term"] for t in block["terms"]] == ["age", "stage", "ecog"]
+    st = [j for j, c in enumerate(m.transformer_.columns_) if c.startswith("stage=")]
+    r2 = LinearRegression().fit(X[:, st], s).score(X[:, st], s)
+    assert block["terms"][1]["r2_of_signature"] == pytest.approx(r2, abs=1e-10)
+    for t in block["terms"]:
+        assert f"{t['term']} {fmt_num(t['r2_of_signature'], 2)}" in model
+
+
+def test_clinical_volume_model_validated_compared_and_reported(html, data, result):
+    # the study names [imaging] volume_feature: the clinical + volume model runs with the others
+    assert list(result.models) == ["clinical", "combined", "clinical_volume"]
+    assert result.validation.n_replicates["clinical_volume"] == result.validation.n_replicates["combined"]
+    vm = data["models"]["clinical_volume"]
+    assert vm["label"] == "Clinical + tumour volume"
+    assert vm["coefficients"][-1]["design_column"] == "log2(morph_volume_cc)"
+    vc = data["volume_comparison"]
+    assert vc["volume_feature"] == "morph_volume_cc" and "external" not in vc
+    d = vc["internal"]["differences"]["harrell_c"]
+    perf = data["models"]
+    assert (d["model"] if "model" in d else vc["internal"]["model"]) == "combined"
+    assert d["apparent"] == pytest.approx(perf["combined"]["performance"]["harrell_c"]["apparent"]
+                                          - perf["clinical_volume"]["performance"]["harrell_c"]["apparent"], abs=1e-12)
+    inc = text_of(section(html, "incremental"))
+    assert "Clinical + imaging signature against Clinical + tumour volume" in inc
+    assert "Clinical + tumour volume against Clinical Cox" in inc
+    assert fmt_num(d["estimate"], 3) in inc
+    assert "To ask whether imaging adds more than tumour volume" in text_of(section(html, "methods-summary"))
+    # a comparison model: a hazard-ratio figure, no nomogram, not in the bundle
+    assert 'id="fig-forest-clinical_volume"' in html
+
+
+def test_risk_group_curves_stop_at_the_study_minimum_at_risk(result):
+    import numpy as np
+
+    from workbench.report.html import _km_fig
+    from workbench.stats.km import kaplan_meier
+    from workbench.stats.riskgroups import learn_cutpoints
+
+    m, c = result.models["combined"], result.cohort
+    fig = _km_fig(m, c, c, "months", "t", 3, min_at_risk=40)
+    risk = m.predict_risk(c).values
+    groups = np.searchsorted(learn_cutpoints(risk, 3), risk, side="left")
+    ends = sorted(float(ln.get_xdata()[-1]) for ln in fig.axes[0].get_lines()
+                  if not ln.get_label().startswith("_"))  # the three group curves (markers are unlabelled)
+    want = []
+    for k in range(3):
+        km = kaplan_meier(c.time[groups == k], c.event[groups == k])
+        want.append(float(km.times[km.at_risk >= 40][-1]))
+    np.testing.assert_allclose(ends, sorted(want))
+    assert any("fewer than 40 patients remain at risk" in " ".join(t.get_text().split()) for t in fig.texts)
+
+
+def test_level_order_warning_reaches_the_limitations(result, data):
+    import copy
+
+    from workbench.report.methods import limitations
+
+    d = copy.deepcopy(data)
+    msg = "Stage: the hazard ratios follow the declared level order in the Clinical Cox model (I 1.00, II 1.2)"
+    assert not any("Order of a categorical effect" in x for x in limitations(result, d))
+    d["warnings"].append({"category": "LevelOrderWarning", "message": msg})
+    assert "Order of a categorical effect: " + msg in limitations(result, d)
 def test_difference_figure_sits_with_the_comparison(html, data):
     inc = section(html, "incremental")
     assert 'id="fig-difference-combined"' in inc

@@ -11,6 +11,7 @@ import streamlit as st
 
 from workbench.app import charts, nomo, state, tables
 from workbench.app.messages import plain
+from workbench.models.registry import offered_models
 
 
 @st.cache_resource(show_spinner=False, max_entries=4)
@@ -244,7 +245,7 @@ def render() -> None:
         st.info("Run the study on the Results page first; the estimate uses the fitted models.")
         return
     state.show_provenance("The estimates")
-    names = list(result.models)
+    names = list(offered_models(result.models))  # comparison models (clinical + volume) are not for patients
     default = names.index("combined") if "combined" in names else 0
     a, b = st.columns([1, 2])
     name = a.selectbox("Model", names, index=default, format_func=tables.label, key="patient_model")
