@@ -24,9 +24,9 @@ import pytest
 import test_app_browser as demo_browser
 from conftest import REPO
 from public_data import write_gbsg2
-from test_app_browser import RUN_TIMEOUT_MS, _goto, _main, _no_traceback, _settle, _shot
+from test_app_browser import RUN_TIMEOUT_MS, _act, _goto, _main, _no_traceback, _settle, _shot
 
-from workbench.app.runs import QUICK_PERMUTATIONS
+from workbench.app.state import QUICK_PERMUTATIONS
 
 # the app and the browser page of the demo walk-through, started afresh for this module
 app_url = demo_browser.app_url
@@ -113,14 +113,18 @@ def cli(folder):
     return json.loads((out / "results.json").read_text())
 
 
+def _set_number(page, label: str, value: int):
+    """Type a number into a number box; a changed value reruns the page, and that rerun is waited for."""
+    box = page.get_by_role("spinbutton", name=label)
+    if box.input_value() == str(value):
+        return
+    box.fill(str(value))
+    _act(page, lambda: box.press("Enter"))
+
+
 def _run(page, replicates: int):
-    reps = page.get_by_role("spinbutton", name="Bootstrap replicates for this run")
-    reps.fill(str(replicates))
-    reps.press("Enter")
-    workers = page.get_by_role("spinbutton", name="Parallel workers")
-    workers.fill("1")
-    workers.press("Enter")
-    _settle(page)
+    _set_number(page, "Bootstrap replicates for this run", replicates)
+    _set_number(page, "Parallel workers", 1)
     page.get_by_role("button", name="Run the study").click()
 
 
@@ -194,9 +198,9 @@ def test_patient_from_file_matches_cli(page, cli, folder):
     page.get_by_text("Patient (2 in the file)").wait_for()
     box = page.get_by_label("Patient (2 in the file)").first
     box.click()
-    page.get_by_role("option", name="new-2", exact=True).click()
-    _settle(page)
-    page.get_by_role("button", name="Estimate").click()
+    # a choice in a select box reruns the page: wait for that rerun, or the next click may be lost in it
+    _act(page, lambda: page.get_by_role("option", name="new-2", exact=True).click())
+    _act(page, lambda: page.get_by_role("button", name="Estimate").click())
     page.get_by_text("Survival at 730 days").first.wait_for()
     page.get_by_text("Survival read off the nomogram").wait_for()
     _settle(page)
@@ -205,9 +209,8 @@ def test_patient_from_file_matches_cli(page, cli, folder):
     # the clinical model: the page's numbers against results.json of the command line
     model = page.get_by_label("Model").first
     model.click()
-    page.get_by_role("option", name="Clinical Cox", exact=False).first.click()
-    _settle(page)
-    page.get_by_role("button", name="Estimate").click()
+    _act(page, lambda: page.get_by_role("option", name="Clinical Cox", exact=False).first.click())
+    _act(page, lambda: page.get_by_role("button", name="Estimate").click())
     page.get_by_text("Linear predictor").first.wait_for()
     _settle(page)
     text = _main(page).inner_text()
@@ -226,8 +229,7 @@ def test_out_of_date_flags(page):
     _goto(page, "Design")
     name = page.get_by_role("textbox", name="Study name")
     name.fill("Changed study")
-    name.press("Enter")
-    _settle(page)
+    _act(page, lambda: name.press("Enter"))
     for view in ("Nomogram", "Patient", "Export", "Results"):
         _goto(page, view)
         page.get_by_text("Out of date").first.wait_for()
@@ -235,8 +237,7 @@ def test_out_of_date_flags(page):
     _goto(page, "Design")
     name = page.get_by_role("textbox", name="Study name")
     name.fill("My study")
-    name.press("Enter")
-    _settle(page)
+    _act(page, lambda: name.press("Enter"))
     _goto(page, "Nomogram")
     page.get_by_text("come from run 1").wait_for()
     assert page.get_by_text("Out of date").count() == 0
