@@ -38,6 +38,15 @@ def _close(a, b, path=""):
         assert a == b, (path, a, b)
 
 
+def _without(block, names):
+    """The block with every entry keyed by one of ``names`` (models apply does not have) left out."""
+    if isinstance(block, dict):
+        return {k: _without(v, names) for k, v in block.items() if k not in names}
+    if isinstance(block, list):
+        return [_without(v, names) for v in block]
+    return block
+
+
 def _demo_study(folder: Path) -> Path:
     """The demo study with its four models, made lighter for a test: no internal validation (only
     the external numbers are compared), a 25-tree forest and a 30-value penalty path."""
@@ -82,7 +91,7 @@ def test_run_and_apply_give_identical_external_numbers(tmp_path, capsys):
         hc = ours["harrell_c"]
         assert hc["ci_lower"] is not None or "exclude its own estimate" in hc["note"]
     assert n_checked > 100
-    _close(res["external"]["by_group"], ext["by_group"], "by_group")
+    _close(_without(res["external"]["by_group"], COMPARISON_MODELS), ext["by_group"], "by_group")
     _close(res["external"]["censoring"], ext["censoring"], "censoring")
     # the unseen scanner stands out in calibration-in-the-large
     oe = {lev: v["oe_ratio@36"]["estimate"]
