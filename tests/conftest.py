@@ -89,6 +89,33 @@ def gbsg2_frames():
     return feat, clin, y
 
 
+@pytest.fixture(scope="session")
+def gbsg2_cohort():
+    """Build a Cohort from scikit-survival's GBSG2 with chosen clinical and feature columns.
+
+    ``gbsg2_cohort(clinical_columns, feature_columns)`` returns ``(cohort, y)``: categorical
+    columns as text, features as floats, ids "G0", "G1", ..., follow-up in days; ``y`` is the
+    shipped outcome array (fields ``cens``, ``time``). ``clinical_columns=None`` takes them all.
+    """
+    from sksurv.datasets import load_gbsg2
+
+    from workbench.cohort import Cohort, make_outcome
+
+    X, y = load_gbsg2()
+    X = X.reset_index(drop=True)
+
+    def build(clinical_columns=None, feature_columns=()):
+        cols = list(X.columns) if clinical_columns is None else list(clinical_columns)
+        clin = pd.DataFrame({c: X[c].astype(str) if X[c].dtype.name == "category" else X[c] for c in cols})
+        feats = (pd.DataFrame({c: X[c].astype(float) for c in feature_columns}) if feature_columns
+                 else pd.DataFrame(index=range(len(X))))
+        cohort = Cohort(ids=np.array([f"G{i}" for i in range(len(X))]), y=make_outcome(y["time"], y["cens"]),
+                        clinical=clin, features=feats, time_unit="days")
+        return cohort, y
+
+    return build
+
+
 @pytest.fixture
 def gbsg2_tables(tmp_path, gbsg2_frames):
     feat, clin, _ = gbsg2_frames

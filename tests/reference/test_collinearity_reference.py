@@ -10,13 +10,11 @@ its documentation requires) and the closed form 1 / (1 - R^2) with R^2 from scik
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 import statsmodels.api as sm
 from sklearn.linear_model import LinearRegression
 from statsmodels.stats.outliers_influence import variance_inflation_factor
 
-from workbench.cohort import Cohort, make_outcome
 from workbench.preprocess.clinical import ClinicalTransformer, PredictorSpec
 from workbench.stats.collinearity import score_collinearity, variance_inflation
 
@@ -32,16 +30,10 @@ SPECS = (
 
 
 @pytest.fixture(scope="module")
-def gbsg2_design():
-    from sksurv.datasets import load_gbsg2
-
-    X, y = load_gbsg2()
-    X = X.reset_index(drop=True)
-    clin = pd.DataFrame({c: X[c].astype(str) if X[c].dtype.name == "category" else X[c] for c in X.columns})
-    cohort = Cohort(ids=np.array([f"G{i}" for i in range(len(X))]), y=make_outcome(y["time"], y["cens"]),
-                    clinical=clin, features=pd.DataFrame(index=range(len(X))), time_unit="days")
+def gbsg2_design(gbsg2_cohort):
+    cohort, _ = gbsg2_cohort()
     tr = ClinicalTransformer(SPECS).fit(cohort)
-    return tr.transform(cohort).X, tr.columns_, X["tsize"].to_numpy(dtype=float)
+    return tr.transform(cohort).X, tr.columns_, cohort.clinical["tsize"].to_numpy(dtype=float)
 
 
 def test_vif_equals_statsmodels(gbsg2_design):

@@ -13,11 +13,9 @@ import warnings
 from dataclasses import replace
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from workbench.cli_console import ConsoleWarnings
-from workbench.cohort import Cohort, make_outcome
 from workbench.errors import LevelOrderWarning
 from workbench.models.collinearity import level_order_changes, warn_level_order
 from workbench.models.cox import ClinicalCox
@@ -29,16 +27,8 @@ SPECS = (PredictorSpec("horTh", kind="categorical", reference="no"), PredictorSp
 
 
 @pytest.fixture(scope="module")
-def gbsg2():
-    from sksurv.datasets import load_gbsg2
-
-    X, y = load_gbsg2()
-    X = X.reset_index(drop=True)
-    clin = pd.DataFrame({c: X[c].astype(str) if X[c].dtype.name == "category" else X[c]
-                         for c in ("horTh", "pnodes", "tgrade")})
-    feats = pd.DataFrame({"tsize": X["tsize"].astype(float)})
-    return Cohort(ids=np.array([f"G{i}" for i in range(len(X))]), y=make_outcome(y["time"], y["cens"]),
-                  clinical=clin, features=feats, time_unit="days")
+def gbsg2(gbsg2_cohort):
+    return gbsg2_cohort(("horTh", "pnodes", "tgrade"), ("tsize",))[0]
 
 
 def _with_grade(model, log_hr_ii: float, log_hr_iii: float):

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 from lifelines import CoxPHFitter
 
-from workbench.cohort import Cohort, make_outcome
+from workbench.cohort import Cohort
 from workbench.errors import ModelError
 from workbench.models.base import clone_model
 from workbench.models.registry import COMPARISON_MODELS, build_models, offered_models
@@ -28,16 +28,8 @@ SPECS = (
 
 
 @pytest.fixture(scope="module")
-def gbsg2():
-    from sksurv.datasets import load_gbsg2
-
-    X, y = load_gbsg2()
-    X = X.reset_index(drop=True)
-    clin = pd.DataFrame({c: X[c].astype(str) if X[c].dtype.name == "category" else X[c]
-                         for c in ("horTh", "pnodes", "tgrade")})
-    feats = pd.DataFrame({"tsize": X["tsize"].astype(float), "progrec": X["progrec"].astype(float)})
-    return Cohort(ids=np.array([f"G{i}" for i in range(len(X))]), y=make_outcome(y["time"], y["cens"]),
-                  clinical=clin, features=feats, time_unit="days"), y
+def gbsg2(gbsg2_cohort):
+    return gbsg2_cohort(("horTh", "pnodes", "tgrade"), ("tsize", "progrec"))
 
 
 def _lifelines(design: pd.DataFrame, y) -> CoxPHFitter:
