@@ -169,7 +169,13 @@ def _shot_now(page, name: str):
 
 
 def _act(page, action):
-    """Do something that makes the app rerun, then wait for that rerun to finish."""
+    """Do something that makes the app rerun, then wait for that rerun to finish.
+
+    The page is let go idle first: an action taken while a run is still under way is folded
+    into that run (the app's state never passes through "not running"), so no new run would
+    be counted and the wait after it could not end.
+    """
+    _settle(page)
     before = _runs(page)
     action()
     _settle(page, since=before)

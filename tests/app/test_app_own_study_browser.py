@@ -50,7 +50,8 @@ def tables(folder):
 
 def _upload(page, label: str, path: Path):
     box = page.locator("[data-testid='stFileUploader']").filter(has_text=label).first
-    box.locator("input[type='file']").set_input_files(str(path))
+    # an upload reruns the page: wait for that run, or the next action may be folded into it
+    _act(page, lambda: box.locator("input[type='file']").set_input_files(str(path)))
     page.get_by_text(path.name).first.wait_for()
 
 
