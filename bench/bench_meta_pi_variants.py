@@ -22,6 +22,10 @@ is checked against a new hospital's true logit C:
   spirit of the confidence-distribution interval of Nagashima, Noma &
   Furukawa (Stat Methods Med Res 2019), which uses the distribution of the
   DerSimonian-Laird Q instead - recalled from memory, not checked;
+- ``Bayes HN 0.5`` (what meta.py reports, ``prediction="bayes"``), ``Bayes HN 0.25`` and
+  ``Bayes HN 1.0``: posterior predictive interval with a flat prior on mu and a
+  half-normal prior on tau of that scale (meta.predictive_interval), the last two as
+  a sensitivity check of the prior;
 - ``oracle``: the true tau^2 with the normal V and the z quantile - not an
   estimator, it separates the loss from estimating tau^2 from any defect of
   the simulation.
@@ -43,13 +47,15 @@ from scipy import stats
 from workbench.cohort import make_outcome
 from workbench.metrics.concordance import harrell_c
 from workbench.predictions import RiskScores
-from workbench.validation.meta import random_effects
+from workbench.validation.meta import predictive_interval, random_effects
 
 _spec = importlib.util.spec_from_file_location("bench_meta_coverage", Path(__file__).with_name("bench_meta_coverage.py"))
 _sim = importlib.util.module_from_spec(_spec)
 _spec.loader.exec_module(_sim)
 BETA, TAU_BETA = _sim.BETA, _sim.TAU_BETA
-VARIANTS = ("normal V, k-2", "normal V, k-1", "HK V, k-2", "HK V, k-1", "max V, k-2", "Q-profile CD", "oracle")
+VARIANTS = ("normal V, k-2", "normal V, k-1", "HK V, k-2", "HK V, k-1", "max V, k-2", "Q-profile CD",
+            "Bayes HN 0.25", "Bayes HN 0.5", "Bayes HN 1.0", "oracle")
+BAYES = {"Bayes HN 0.25": 0.25, "Bayes HN 0.5": 0.5, "Bayes HN 1.0": 1.0}
 
 
 def cd_interval(y, v, rng, draws: int = 1000, level: float = 0.95):
@@ -79,7 +85,8 @@ def run(replicates: int, k: int, n: int, seed: int = 7):
     tau2_true = float(np.var(pop))
     rng = np.random.default_rng(seed)  # same draws, in the same order, as bench_meta_coverage.run
     rng_cd = np.random.default_rng(seed + 1000)
-    hits = {(m, v): 0 for m in ("dl", "reml") for v in VARIANTS if v != "Q-profile CD"}
+    hits = {(m, v): 0 for m in ("dl", "reml") for v in VARIANTS if v != "Q-profile CD" and v not in BAYES}
+    widths = dict.fromkeys(BAYES, 0.0)
     for _ in range(replicates):
         betas = rng.normal(BETA, TAU_BETA, k)
         cs, ses = [], []
@@ -93,6 +100,10 @@ def run(replicates: int, k: int, n: int, seed: int = 7):
         y, v = logit(np.array(cs)), np.array(ses) ** 2
         lo, hi = cd_interval(y, v, rng_cd)
         hits[("-", "Q-profile CD")] = hits.get(("-", "Q-profile CD"), 0) + int(lo <= new <= hi)
+        for name, scale in BAYES.items():  # does not depend on the tau^2 estimator
+            lo, hi = predictive_interval(y, v, scale)
+            hits[("-", name)] = hits.get(("-", name), 0) + int(lo <= new <= hi)
+            widths[name] += (hi - lo) / replicates
         for m in ("dl", "reml"):
             res = random_effects(np.array(cs), np.array(ses), scale="logit", method=m)
             ws = 1.0 / (v + res.tau2)
@@ -105,7 +116,7 @@ def run(replicates: int, k: int, n: int, seed: int = 7):
             for name, (df, tau2, var) in spec.items():
                 half = stats.t.ppf(0.975, df) * np.sqrt(tau2 + var)
                 hits[(m, name)] += int(abs(new - res.mu) <= half)
-    return {key: h / replicates for key, h in hits.items()}, tau2_true
+    return {key: h / replicates for key, h in hits.items()}, tau2_true, widths
 
 
 def main() -> None:
@@ -114,11 +125,12 @@ def main() -> None:
     n = int(sys.argv[3]) if len(sys.argv) > 3 else 200
     t0 = time.time()
     for k in ks:
-        res, tau2_true = run(replicates, k, n)
+        res, tau2_true, widths = run(replicates, k, n)
         print(f"k = {k}, {replicates} replicates, n = {n}; true tau^2 (logit C) = {tau2_true:.4f}")
         print(f"  {'tau2':<5s} {'prediction interval':<16s} {'coverage':>9s} {'MC SE':>7s} (nominal 0.95)")
         for (m, name), p in res.items():
-            print(f"  {m:<5s} {name:<16s} {p:9.3f} {np.sqrt(p * (1 - p) / replicates):7.3f}")
+            width = f"   mean width (logit) {widths[name]:.3f}" if name in widths else ""
+            print(f"  {m:<5s} {name:<16s} {p:9.3f} {np.sqrt(p * (1 - p) / replicates):7.3f}{width}")
     print(f"\nwall time {time.time() - t0:.1f} s (serial)")
 
 

@@ -284,7 +284,8 @@ def _external_claims(result, d: dict) -> list[Claim]:
         out.append(Claim("external.pooling", "Performance was also estimated in each "
                          + _join(sorted(e["by_group"])) + " of the external cohort and pooled by random-effects "
                          f"meta-analysis (C on the logit scale, O/E on the log scale; {how} with the Hartung-Knapp "
-                         "interval and the 95% prediction interval for a new site; Debray et al. 2017)."))
+                         "interval; Debray et al. 2017), with a 95% prediction interval for a new site from the "
+                         "posterior predictive distribution under a half-normal prior on the between-site SD."))
     return out
 
 

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from workbench.errors import MetricError, WorkbenchError
-from workbench.validation.meta import POOLING_SCALES, random_effects, transform
+from workbench.validation.meta import POOLING_SCALES, prior_scale_for, random_effects, transform
 
 __all__ = ["GROUP_METRICS", "GroupBlock", "LevelEstimate", "evaluate_groups", "group_metric_names", "loco_groups"]
 
@@ -136,7 +136,8 @@ def pool_levels(estimates: dict, models, names, method: str = "dl", conf_level: 
             vals = np.array([e.estimate for e in lv])
             ses = np.array([e.se_pooling_scale for e in lv])
             try:
-                pooled[m][nm] = random_effects(vals, ses, scale=_scale(nm), method=method, conf_level=conf_level)
+                pooled[m][nm] = random_effects(vals, ses, scale=_scale(nm), method=method, conf_level=conf_level,
+                                               prior_scale=prior_scale_for(nm))
             except MetricError:
                 continue
     return pooled

@@ -276,6 +276,9 @@ def _external_pooling(r, d, c):
         return
     t = c["external.pooling"]
     assert all(g in t for g in groups) and "DerSimonian-Laird" in t and r.spec.validation.pooling == "dl"
+    # the prediction interval the text names is the one every pooled result was computed with
+    methods = {p.pi_method for g in groups.values() for per_model in g.pooled.values() for p in per_model.values()}
+    assert methods == {"bayes"} and "half-normal prior" in t
 
 
 def _software(r, d, c):
