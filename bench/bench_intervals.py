@@ -27,6 +27,7 @@ Run: nice -n 10 .venv/bin/python bench/bench_intervals.py [--cohorts 200] [--n 1
 from __future__ import annotations
 
 import argparse
+import itertools
 import sys
 import time
 from pathlib import Path
@@ -40,6 +41,12 @@ import workbench.validation.engine as engine  # noqa: E402
 from workbench.metrics.concordance import harrell_c  # noqa: E402
 from workbench.validation import compare_models, validate  # noqa: E402
 from workbench.validation.evaluate import ModelPerformance, PairPerformance  # noqa: E402
+from workbench.validation.intervals import bias_corrected_normal, bias_corrected_percentiles  # noqa: E402
+
+RULES = {"BC normal": bias_corrected_normal, "BC percentile": bias_corrected_percentiles}
+"""Interval rules compared on the same outer samples (intervals.py)."""
+RAW_FIELDS = ("outer_combined", "outer_clinical", "estimate_combined", "estimate_difference", "truth_combined",
+              "truth_clinical")
 
 
 def c_only(risk, curves, y_train, y_eval, horizons, **kw) -> ModelPerformance:
@@ -68,6 +75,7 @@ def run(args) -> dict:
     models = {"clinical": SmallCox(("x1", "x2"), "clinical"), "combined": SmallCox(("x1", "x2", "x3"), "combined")}
     rows = {m: [] for m in ("bootstrap", "cv")}
     t_method = dict.fromkeys(rows, 0.0)
+    raw = {m: [] for m in rows}  # outer estimates, for trying other interval rules offline (--save)
     for i in range(args.cohorts):
         cohort = simulate(args.n, 1000 + i)
         truth = {nm: true_c(type(m)(m.columns, nm).fit(cohort), fresh) for nm, m in models.items()}
@@ -79,11 +87,21 @@ def run(args) -> dict:
             d = compare_models(res, "combined", "clinical").differences["harrell_c"]
             e = res.estimates["combined"]["harrell_c"]
             t_method[method] += time.perf_counter() - t0
-            rows[method].append((e.estimate, e.ci_lower, e.ci_upper, truth["combined"],
-                                 d.estimate, d.ci_lower, d.ci_upper, truth["combined"] - truth["clinical"]))
+            # both interval rules from the same outer samples (the engine reports one of them)
+            j = res.metric_names.index("harrell_c")
+            oc, ob = res.outer_estimates["combined"][:, j], res.outer_estimates["clinical"][:, j]
+            row = []
+            for rule in RULES.values():
+                row += [e.estimate, *rule(oc, e.estimate, 0.95), truth["combined"],
+                        d.estimate, *rule(oc - ob, d.estimate, 0.95), truth["combined"] - truth["clinical"]]
+            rows[method].append(row)
+            raw[method].append((oc, ob, e.estimate, d.estimate, truth["combined"], truth["clinical"]))
         if (i + 1) % 25 == 0 and i + 1 < args.cohorts:
             print(f"\n--- interim, {i + 1} cohorts ---")
             report({m: np.array(r) for m, r in rows.items()}, t_method, args, i + 1)
+    if args.save:
+        np.savez_compressed(args.save, **{f"{m}_{name}": np.array([r[i] for r in raw[m]])
+                                          for m in raw for i, name in enumerate(RAW_FIELDS)})
     return {m: np.array(r) for m, r in rows.items()}, t_method
 
 
@@ -92,15 +110,16 @@ def report(rows: dict, t_method: dict, args, done: int | None = None) -> None:
           f"bootstrap {args.replicates} replicates, cv {args.folds}-fold x {args.repeats}; two-stage interval "
           f"{args.outer} outer x {args.inner} inner (cv: one {args.folds}-fold split per outer sample).")
     print("Nominal 0.95, target 0.92-0.98. MC SE = sqrt(p(1-p)/R); 'missing' = interval not computable.\n")
-    print(f"{'method':<10}{'quantity':<22}{'estimand':<13}{'coverage':>9}{'MC SE':>8}{'missing':>9}"
+    print(f"{'method':<10}{'rule':<14}{'quantity':<16}{'estimand':<13}{'coverage':>9}{'MC SE':>8}{'missing':>9}"
           f"{'width':>8}{'bias':>9}{'s/cohort':>10}")
     for method, a in rows.items():
-        for label, (ci, li, hi_, ti) in (("C (combined)", (0, 1, 2, 3)), ("C difference", (4, 5, 6, 7))):
-            est, lo, hi, cond = a[:, ci], a[:, li], a[:, hi_], a[:, ti]
+        quantities = (("C (combined)", (0, 1, 2, 3)), ("C difference", (4, 5, 6, 7)))
+        for (r, rule), (label, cols) in itertools.product(enumerate(RULES), quantities):
+            est, lo, hi, cond = (a[:, 8 * r + c] for c in cols)
             ok = np.isfinite(lo) & np.isfinite(hi)
             for estimand, truth in (("conditional", cond), ("expected", np.full_like(cond, cond.mean()))):
                 cov = float(np.mean((lo[ok] <= truth[ok]) & (truth[ok] <= hi[ok]))) if ok.any() else np.nan
-                print(f"{method:<10}{label:<22}{estimand:<13}{cov:>9.3f}{mc_se_prop(cov, ok.sum()):>8.3f}"
+                print(f"{method:<10}{rule:<14}{label:<16}{estimand:<13}{cov:>9.3f}{mc_se_prop(cov, ok.sum()):>8.3f}"
                       f"{int((~ok).sum()):>9d}{np.mean(hi[ok] - lo[ok]):>8.3f}{np.mean(est - truth):>+9.4f}"
                       f"{t_method[method] / len(a):>10.2f}", flush=True)
     print("\nbias = mean(estimate - truth); its MC SE is about SD/sqrt(R).")
@@ -115,6 +134,7 @@ def main() -> None:
     ap.add_argument("--inner", type=int, default=3)
     ap.add_argument("--folds", type=int, default=5)
     ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--save", default="", help="write the outer estimates and truths to this .npz file")
     args = ap.parse_args()
     t = time.perf_counter()
     rows, t_method = run(args)

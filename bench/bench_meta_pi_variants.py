@@ -7,7 +7,7 @@ REML, and every variant of the 95% prediction interval mu +- t_df sqrt(tau^2 + V
 is checked against a new hospital's true logit C:
 
 - ``normal V, k-2``: V = 1 / sum w* (Higgins, Thompson & Spiegelhalter 2009;
-  Riley, Higgins & Deeks 2011) - what meta.py reports;
+  Riley, Higgins & Deeks 2011) - what meta.py reported before (``prediction="t"``);
 - ``normal V, k-1``;
 - ``HK V, k-2`` and ``HK V, k-1``: V = the Hartung-Knapp variance
   q / sum w* in place of 1 / sum w* (variants of the kind compared by
