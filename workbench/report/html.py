@@ -372,7 +372,7 @@ def _figures(result, d: dict) -> dict:
 
 
 _BAND_WORDS = {
-    "two-stage": "with a two-stage bootstrap band (bias-corrected percentiles over outer samples, paired)",
+    "two-stage": "with a two-stage bootstrap band (over outer bootstrap samples, paired)",
     "shifted-percentile": "with the cheap shifted-percentile paired bootstrap band",
 }
 

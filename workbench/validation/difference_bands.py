@@ -10,8 +10,8 @@ validation already holds; nothing is refitted.
 * internal: estimate = the validated decision curves of the comparison, subtracted
   (optimism: ``(A_m - A_b) - mean((B_m - B_b) - (O_m - O_b))`` at each threshold;
   out-of-bootstrap, .632+ and cv as there). Band, pointwise: with the two-stage interval,
-  the bias-corrected percentile band of the paired differences of the validated curves
-  in the outer bootstrap samples (the interval of the scalar differences, per
+  the two-stage interval (:func:`~.intervals.two_stage_interval`) of the paired
+  differences of the validated curves in the outer bootstrap samples (the interval of the scalar differences, per
   threshold); otherwise, for the optimism estimator, the cheap location-shifted
   percentile band of ``B_m - B_b``; none for the other estimators;
 * external: estimate on the whole external cohort; band: pointwise percentile band
@@ -49,7 +49,7 @@ import numpy as np
 
 from workbench.errors import SpecError, WorkbenchError
 from workbench.metrics.td_auc import time_dependent_auc
-from workbench.validation.intervals import bias_corrected_percentiles, guard
+from workbench.validation.intervals import TWO_STAGE_RULES, guard, two_stage_interval
 
 __all__ = ["DifferenceBand", "auc_difference_external", "auc_difference_internal", "difference_grid",
            "external_auc_band", "net_benefit_difference"]
@@ -180,11 +180,11 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
             d = om[:, j] - ob[:, j]
             lo, hi = nan.copy(), nan.copy()
             for k in range(x.size):
-                lo[k], hi[k] = bias_corrected_percentiles(d[:, k], est[k], result.conf_level)
+                lo[k], hi[k] = two_stage_interval(result.method, d[:, k], est[k], result.conf_level)
             lo, hi = _guarded("net_benefit", est, lo, hi)
             return DifferenceBand(**{**common, "n_replicates": int(np.isfinite(d[:, 0]).sum())}, estimate=est,
                                   lower=lo, upper=hi, band="two-stage",
-                                  note="validated difference; band: bias-corrected percentiles of the paired "
+                                  note=f"validated difference; band: {TWO_STAGE_RULES[result.method]} of the paired "
                                        "differences of the validated curves in the outer bootstrap samples")
         if result.method == "bootstrap" and est_name == {"optimism"} and ra.size >= 2:
             b = rm.nb_train[ra, j] - rbm.nb_train[rb, j]

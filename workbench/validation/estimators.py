@@ -15,7 +15,7 @@ from workbench.errors import ModelError
 from workbench.validation.estimators_bootstrap import bootstrap_estimate
 from workbench.validation.estimators_cv import by_centre_estimate, cv_estimate, external_estimate
 from workbench.validation.evaluate import metric_names, pair_metric_names
-from workbench.validation.intervals import bias_corrected_percentiles, guard
+from workbench.validation.intervals import guard, two_stage_interval
 from workbench.validation.results import (
     MetricEstimate,
     ReplicateFailure,
@@ -64,7 +64,7 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
         if outer is not None and outer.shape[0]:
-            lo, hi = bias_corrected_percentiles(outer[:, j], est, conf_level)
+            lo, hi = two_stage_interval(method, outer[:, j], est, conf_level)
             ilabel = "two-stage"
             if not np.isfinite(lo):
                 note = "interval not computable: too few usable outer bootstrap samples"
@@ -184,7 +184,7 @@ def difference_estimates(result, model: str, baseline: str, paired: ReplicateMet
     differences (for the optimism correction this equals the difference of the two
     corrected estimates). Out-of-bootstrap and .632+: the difference of the two
     models' estimates (the .632+ weights are not linear in the values). Two-stage
-    intervals: the bias-corrected percentile interval of the paired differences of
+    intervals: :func:`~.intervals.two_stage_interval` of the paired differences of
     the outer-sample estimates.
     """
     ests = {result.estimator.get(m, "optimism") for m in (model, baseline)}
@@ -203,7 +203,7 @@ def difference_estimates(result, model: str, baseline: str, paired: ReplicateMet
         est = em.estimate - eb.estimate
         lo, hi, note = np.nan, np.nan, _NO_INTERVAL["bootstrap"]
         if outer is not None:
-            lo, hi = bias_corrected_percentiles(outer[:, j], est, result.conf_level)
+            lo, hi = two_stage_interval(result.method, outer[:, j], est, result.conf_level)
             note = "" if np.isfinite(lo) else "interval not computable: too few usable outer bootstrap samples"
         lo, hi, why = guard(nm, est, lo, hi, difference=True)
         label = em.estimator if em.estimator == eb.estimator else f"{em.estimator}/{eb.estimator}"

@@ -33,9 +33,10 @@ names its estimator.
 Intervals
 ---------
 ``interval="two-stage"`` (the study-file default): the same estimator is re-run
-inside outer bootstrap samples of the patients and the interval is the
-bias-corrected percentile interval of those estimates (:mod:`.two_stage`), for
-the bootstrap estimators and for cross-validation alike; it targets the expected
+inside outer bootstrap samples of the patients and the interval is formed from
+those estimates (:func:`.intervals.two_stage_interval`: bias-corrected normal for
+the bootstrap estimators, bias-corrected percentile for cross-validation; see
+:mod:`.two_stage`); it targets the expected
 performance of the modelling process at this sample size.
 ``interval="shifted-percentile"`` (this function's default, cheap): the
 percentile interval of B moved so that mean(B) maps to the optimism-corrected
@@ -96,6 +97,7 @@ from workbench.validation.engine import _apparent, _chunks, _Job, _run_chunk, _T
 from workbench.validation.estimators import INTERVALS, _summarise
 from workbench.validation.estimators_bootstrap import ESTIMATORS, no_information
 from workbench.validation.evaluate import ibs_grid, metric_names
+from workbench.validation.intervals import TWO_STAGE_RULES
 from workbench.validation.external import validate_external
 from workbench.validation.plans import (
     _bootstrap_plan,
@@ -242,7 +244,7 @@ def validate(
         rows, and otherwise the out-of-bootstrap estimate for EVERY model, so that
         comparisons between a forest and a Cox model use one estimator for both arms.
     interval : {"two-stage", "shifted-percentile"}, default "shifted-percentile"
-        "two-stage": bias-corrected percentile interval over ``outer_replicates``
+        "two-stage": interval (:func:`.intervals.two_stage_interval`) over ``outer_replicates``
         outer bootstrap samples, in each of which the same estimator is run with
         ``inner_replicates`` inner replicates (bootstrap) or one k-fold split (cv)
         (see :mod:`.two_stage`; costs ``outer * (inner + 1)`` or ``outer * (folds + 1)``
@@ -366,7 +368,7 @@ def validate(
     if two_stage:
         notes.append(f"intervals: two-stage bootstrap, {int(outer_replicates)} outer samples x "
                      + (f"{int(inner_replicates)} inner bootstrap replicates" if method == "bootstrap"
-                        else f"one {int(folds)}-fold split") + " (bias-corrected percentile).")
+                        else f"one {int(folds)}-fold split") + f" ({TWO_STAGE_RULES[method]}).")
     total = max(n_rep.values())
     for nm, r in n_rep.items():
         if 0 < r < total:

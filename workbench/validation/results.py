@@ -100,8 +100,8 @@ class MetricEstimate:
         Which estimator gave ``estimate``: "optimism", "oob", "632plus" (bootstrap),
         "cv", "by_centre" or "external".
     interval : str
-        How the interval was formed: "two-stage" (bias-corrected percentile interval
-        of the same estimator over outer bootstrap samples), "shifted-percentile"
+        How the interval was formed: "two-stage" (interval from the same estimator
+        over outer bootstrap samples, :func:`~.intervals.two_stage_interval`), "shifted-percentile"
         (the cheap location-shifted interval, optimism only), "percentile"
         (external), or "" where there is none.
     note : str

@@ -18,11 +18,15 @@ each outer sample run the SAME estimator as on the data: refit on the outer
 sample for the apparent value and on ``inner`` bootstrap samples of it (out-of-
 bootstrap rows grouped by patient id, so copies of a patient drawn twice in the
 outer sample are never split between training and evaluation) or on one
-patient-grouped k-fold split of it (cross-validation). The interval is the
-bias-corrected percentile interval (Efron 1981) of the outer estimates around
-the estimate from the data (the "two-stage bootstrap" of Noma et al. 2021,
-from memory; the bias correction accounts for the shift of estimates computed on
-samples whose patients are partly duplicated). Differences between models use
+patient-grouped k-fold split of it (cross-validation). The interval is formed
+from the outer estimates around the estimate from the data (the "two-stage
+bootstrap" of Noma et al. 2021, from memory) by
+:func:`~workbench.validation.intervals.two_stage_interval`: bias-corrected
+normal (bootstrap standard error, t on B - 1 df) for the bootstrap estimators,
+bias-corrected percentile (Efron 1981) for cross-validation - the rules the
+simulation showed to cover with few outer samples. The bias correction
+accounts for the shift of estimates computed on samples whose patients are
+partly duplicated. Differences between models use
 the same outer samples, paired. The .632+ no-information values of the data are
 reused inside outer samples.
 
