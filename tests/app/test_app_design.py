@@ -45,6 +45,28 @@ def test_changing_models_and_replicates_reaches_the_study(new_app):
     assert spec.models.fit == ("clinical", "combined") and spec.validation.replicates == 50
 
 
+def test_interval_and_added_value_settings_reach_the_study(new_app):
+    at = _design(new_app)
+    demo = read_study(DEMO / "study.toml")
+    # the boxes start from the study file's values
+    assert at.number_input(key="design0_outer").value == demo.validation.outer_replicates
+    assert at.number_input(key="design0_inner").value == demo.validation.inner_replicates
+    assert at.number_input(key="design0_perms").value == demo.added_value.permutations
+    at.number_input(key="design0_outer").set_value(150)
+    at.number_input(key="design0_inner").set_value(4)
+    at.number_input(key="design0_perms").set_value(999)
+    at.number_input(key="design0_avfolds").set_value(10)
+    at.run()
+    assert_clean(at)
+    spec = at.session_state[state.K_STUDY]
+    assert (spec.validation.outer_replicates, spec.validation.inner_replicates) == (150, 4)
+    assert (spec.added_value.permutations, spec.added_value.folds) == (999, 10)
+    # the quick interval switches the outer and inner boxes off (they are not used)
+    at.selectbox(key="design0_interval").set_value("shifted-percentile").run()
+    assert at.session_state[state.K_STUDY].validation.interval == "shifted-percentile"
+    assert at.number_input(key="design0_outer").disabled and at.number_input(key="design0_inner").disabled
+
+
 def test_bad_horizons_are_explained(new_app):
     at = _design(new_app)
     at.text_input(key="design0_horizons").set_value("12, two years").run()

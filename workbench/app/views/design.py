@@ -59,9 +59,21 @@ HELP = {
     "baseline": "Every other model is compared with this one (differences in C-index, Brier score...).",
     "trees": "The survival forest averages this many trees; more trees are steadier but slower.",
     "leaf": "The smallest group of patients at the end of a tree's branch; larger leaves give smoother risks.",
+    "interval": "Two-stage: the whole validation is repeated in bootstrap samples of the patients, and the "
+                "interval comes from how much the validated numbers vary between them (the interval that "
+                "covered in simulation). Quick percentile: cheap, known to be too narrow; for a first look only.",
+    "outer": "Bootstrap samples in which the whole validation is repeated for the intervals. Each costs "
+             "(inner replicates + 1) refits of every model (cross-validation: folds + 1). 100 or more for a "
+             "final analysis.",
+    "inner": "Bootstrap replicates of the validation inside each outer sample (bootstrap validation only).",
+    "permutations": "Permutations of the added-value test of imaging given the clinical model. Each refits "
+                    "the whole signature; 199 give p-values down to 0.005, 999 for a final analysis; "
+                    "0 leaves the test out.",
+    "av_folds": "Folds of the cross-validated likelihood the added-value test compares.",
     "horizons": "Times at which survival is estimated and the models are compared; proposed from the "
                 "follow-up of your cohort, inside its range.",
 }
+INTERVAL_LABELS = {"two-stage": "Two-stage bootstrap", "shifted-percentile": "Quick percentile (too narrow)"}
 METHOD_LABELS = {
     "bootstrap": "Optimism-corrected bootstrap",
     "cv": "Repeated k-fold cross-validation",
@@ -290,6 +302,16 @@ def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tu
         backends = [x for x in BACKENDS]
         backend = c3.selectbox("Where replicates run", backends, index=backends.index(tpl_v.backend),
                                key=_key("backend"))
+        c1, c2, c3 = st.columns(3)
+        intervals = list(INTERVAL_LABELS)
+        interval = c1.selectbox("Intervals", intervals, format_func=INTERVAL_LABELS.get,
+                                index=intervals.index(tpl_v.interval) if tpl_v.interval in intervals else 0,
+                                key=_key("interval"), help=HELP["interval"])
+        two_stage = interval == "two-stage"
+        outer = c2.number_input("Outer samples", 1, 5000, int(tpl_v.outer_replicates), key=_key("outer"),
+                                help=HELP["outer"], disabled=not two_stage)
+        inner = c3.number_input("Inner replicates", 1, 1000, int(tpl_v.inner_replicates), key=_key("inner"),
+                                help=HELP["inner"], disabled=not two_stage or method != "bootstrap")
         scheduler = tpl_v.scheduler
         if backend == "dask":
             scheduler = st.text_input("Dask scheduler address (or 'local')", tpl_v.scheduler or "local",
@@ -298,8 +320,21 @@ def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tu
                      forest=replace(f, trees=int(trees), min_leaf=int(leaf)))
     validation = replace(tpl_v, method=method, replicates=int(reps), folds=int(vfolds), repeats=int(repeats),
                          forest_replicates=int(freps), workers=int(workers), backend=backend,
-                         scheduler=scheduler if backend == "dask" else None)
+                         scheduler=scheduler if backend == "dask" else None, interval=interval,
+                         outer_replicates=int(outer), inner_replicates=int(inner))
     return models, validation
+
+
+def _added_value(tpl_a: AddedValueSpec, data) -> AddedValueSpec:
+    """The permutation test of imaging given the clinical model ([added_value]); none without imaging."""
+    if not data.features:
+        return tpl_a
+    st.subheader("Added-value test of imaging")
+    c1, c2 = st.columns(2)
+    perms = c1.number_input("Added-value permutations", 0, 99999, int(tpl_a.permutations), key=_key("perms"),
+                            help=HELP["permutations"])
+    folds = c2.number_input("Added-value folds", 3, 20, int(tpl_a.folds), key=_key("avfolds"), help=HELP["av_folds"])
+    return replace(tpl_a, permutations=int(perms), folds=int(folds))
 
 
 def _external(tpl: StudySpec | None, problems: list):
@@ -396,6 +431,7 @@ def render() -> None:
     imaging = _imaging(cohort, base_im, predictors, data, problems)
     models, validation = _models_and_validation(tpl.models if tpl else ModelsSpec(),
                                                 tpl.validation if tpl else ValidationSpec(), data)
+    added_value = _added_value(tpl.added_value if tpl else AddedValueSpec(), data)
     external = _external(tpl, problems)
     try:
         horizons = _horizons(hz_text)
@@ -410,7 +446,7 @@ def render() -> None:
         spec = StudySpec(name=name.strip() or "My study", data=data, predictors=predictors, horizons=horizons,
                          seed=int(seed), imaging=imaging, models=models, validation=validation,
                          external=external, anticipated_r2=tpl.anticipated_r2 if tpl else None,
-                         added_value=tpl.added_value if tpl else AddedValueSpec())
+                         added_value=added_value)
     except WorkbenchError as exc:
         state.show_error("The study cannot be built yet", exc)
         st.info("The study is not ready to run: correct the point above.")
