@@ -34,8 +34,8 @@ Intervals
 ---------
 ``interval="two-stage"`` (the study-file default): the same estimator is re-run
 inside outer bootstrap samples of the patients and the interval is formed from
-those estimates (:func:`.intervals.two_stage_interval`: bias-corrected normal for
-the bootstrap estimators, bias-corrected percentile for cross-validation; see
+those estimates (:func:`.intervals.two_stage_interval`: bias-corrected normal
+interval, for the bootstrap estimators and cross-validation alike; see
 :mod:`.two_stage`); it targets the expected
 performance of the modelling process at this sample size.
 ``interval="shifted-percentile"`` (this function's default, cheap): the

@@ -21,10 +21,11 @@ outer sample are never split between training and evaluation) or on one
 patient-grouped k-fold split of it (cross-validation). The interval is formed
 from the outer estimates around the estimate from the data (the "two-stage
 bootstrap" of Noma et al. 2021, from memory) by
-:func:`~workbench.validation.intervals.two_stage_interval`: bias-corrected
-normal (bootstrap standard error, t on B - 1 df) for the bootstrap estimators,
-bias-corrected percentile (Efron 1981) for cross-validation - the rules the
-simulation showed to cover with few outer samples. The bias correction
+:func:`~workbench.validation.intervals.two_stage_interval`: the
+bias-corrected normal interval (bootstrap standard error, t on B - 1 df; Efron
+& Tibshirani 1993), the rule the simulation showed to cover with the 20 to 100
+outer samples a study can afford (percentiles of so few samples cut the tails
+short). The bias correction
 accounts for the shift of estimates computed on samples whose patients are
 partly duplicated. Differences between models use
 the same outer samples, paired. The .632+ no-information values of the data are
