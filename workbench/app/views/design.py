@@ -53,7 +53,9 @@ HELP = {
     "screen": "Keep only features with some association with the outcome on their own, allowing for "
               "the number of features tried (false discovery rate).",
     "validation": "How the models are tested on patients they were not fitted on: the bootstrap refits "
-                  "everything on resampled patients and corrects the apparent performance for optimism; "
+                  "everything on resampled patients and corrects the apparent performance for optimism "
+                  "(or, with a forest among the models, scores every model on the patients left out of "
+                  "each resample); "
                   "cross-validation holds out parts of the cohort; leave-one-centre-out holds out each "
                   "hospital in turn.",
     "baseline": "Every other model is compared with this one (differences in C-index, Brier score...).",
@@ -73,9 +75,9 @@ HELP = {
     "horizons": "Times at which survival is estimated and the models are compared; proposed from the "
                 "follow-up of your cohort, inside its range.",
 }
-INTERVAL_LABELS = {"two-stage": "Two-stage bootstrap", "shifted-percentile": "Quick percentile (too narrow)"}
+INTERVAL_LABELS = {"two-stage": "Two-stage", "shifted-percentile": "Quick (too narrow)"}
 METHOD_LABELS = {
-    "bootstrap": "Optimism-corrected bootstrap",
+    "bootstrap": "Bootstrap (refit on resampled patients)",
     "cv": "Repeated k-fold cross-validation",
     "by_centre": "Leave one centre out",
     "none": "Apparent performance only",
