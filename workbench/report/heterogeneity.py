@@ -87,15 +87,22 @@ def heterogeneity_context(block: dict | None, horizons, labels: dict | None = No
     for name, g in (block or {}).items():
         levels = g.get("levels") or []
         for model, by_level in (g.get("estimates") or {}).items():
-            cols = ["harrell_c"] + [f"{m}@{float(h):g}" for h in horizons for m in _SHOWN[1:]]
-            cols = [c for c in cols if any(c in (by_level.get(lev) or {}) for lev in levels)]
-            heads = [_LABEL.get(c.split("@")[0], c) + (f" {c.split('@')[1]}" if "@" in c else "") for c in cols]
-            rows = [{"level": lev, "n": (g.get("n") or {}).get(lev), "events": (g.get("n_events") or {}).get(lev),
-                     "cells": [(by_level.get(lev) or {}).get(c) for c in cols]} for lev in levels]
             pooled = g.get("pooled", {}).get(model) or {}
-            prow = [pooled.get(c) for c in cols]
-            out.append({"grouping": name, "model": labels.get(model, model), "heads": heads, "rows": rows,
-                        "pooled": prow if any(p for p in prow) else None,
+            # one table per horizon (C with the first), so that a table fits the width of a page
+            groups = [[f"{m}@{float(h):g}" for m in _SHOWN[1:]] for h in horizons] or [[]]
+            groups[0] = ["harrell_c"] + groups[0]
+            parts = []
+            for cols in groups:
+                cols = [c for c in cols if any(c in (by_level.get(lev) or {}) for lev in levels)]
+                if not cols and parts:
+                    continue
+                heads = [_LABEL.get(c.split("@")[0], c) + (f" {c.split('@')[1]}" if "@" in c else "") for c in cols]
+                rows = [{"level": lev, "n": (g.get("n") or {}).get(lev), "events": (g.get("n_events") or {}).get(lev),
+                         "cells": [(by_level.get(lev) or {}).get(c) for c in cols]} for lev in levels]
+                prow = [pooled.get(c) for c in cols]
+                parts.append({"heads": heads, "rows": rows, "pooled": prow if any(p for p in prow) else None})
+            out.append({"grouping": name, "model": labels.get(model, model), "parts": parts,
+                        "pooled": any(p["pooled"] for p in parts),
                         "censoring": g.get("censoring"), "method": g.get("pooling_method"),
                         "notes": g.get("notes") or []})
     return out

@@ -36,3 +36,17 @@ def test_partial_shows_each_level_and_the_pooled_row():
 def test_partial_tolerates_absent_keys():
     assert _render(None).strip() == ""
     assert "scanner_A" in _render({"scanner": {"levels": ["scanner_A"], "estimates": {"combined": {}}}})
+
+
+def test_one_table_per_horizon_so_each_fits_a_page():
+    est = {"estimate": 1.0, "ci_lower": 0.9, "ci_upper": 1.1}
+    per_level = {"harrell_c": est, **{f"{m}@{h}": est for h in (12, 24, 36)
+                                      for m in ("oe_ratio", "cal_slope", "ici", "brier")}}
+    block = {"centre": {"levels": ["A", "B"], "estimates": {"combined": {"A": per_level, "B": per_level}}}}
+    het = heterogeneity_context(block, [12, 24, 36])
+    heads = [p["heads"] for p in het[0]["parts"]]
+    assert heads[0][0] == "Harrell C" and len(heads) == 3
+    assert all(len(h) <= 5 for h in heads)  # C and the four measures of one horizon at most
+    assert [h[-1] for h in heads] == ["Brier 12", "Brier 24", "Brier 36"]
+    html = _environment().get_template("_heterogeneity.html.j2").render(het=het, het_title="External cohort")
+    assert html.count("<table") == 3 and html.count('class="note"') == 1
