@@ -405,6 +405,11 @@ def format_results(result) -> str:
             f"{labels[name]:<40s}{fmt_estimate(est.get('harrell_c'), apparent_only=app):>24s}"
             f"{fmt_estimate(est.get('uno_c'), apparent_only=app):>24s}{fmt_estimate(est.get('ibs'), apparent_only=app):>24s}"
         )
+    cs = [v.estimates[m].get("harrell_c") for m in result.models]
+    why = sorted({c.note for c in cs if c is not None and not np.isfinite(c.ci_lower) and c.note})
+    if not app and why and all(c is None or not np.isfinite(c.ci_lower) for c in cs):
+        lines.append(f"No intervals: {'; '.join(why)} (more replicates, or [validation] outer_replicates, "
+                     "give them).")
     lines.append("")
     lines.append(f"AUC and calibration (ICI) at {', '.join(horizons)} {u}:")
     for name in result.models:
