@@ -108,7 +108,7 @@ def _predictive_by_grid(y, v, scale, level=0.95):
     mu = np.linspace(y.min() - 1.5, y.max() + 1.5, 1201)
     tau = np.linspace(1e-6, 8 * scale, 801)
     m, t = np.meshgrid(mu, tau, indexing="ij")
-    logp = sum(stats.norm.logpdf(yi, m, np.sqrt(vi + t**2)) for yi, vi in zip(y, v)) \
+    logp = sum(stats.norm.logpdf(yi, m, np.sqrt(vi + t**2)) for yi, vi in zip(y, v, strict=True)) \
         + stats.halfnorm.logpdf(t, scale=scale)
     p = np.exp(logp - logp.max()).ravel()
     p /= p.sum()

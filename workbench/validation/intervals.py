@@ -9,7 +9,8 @@ rather than reported when it would have zero width or exclude its own estimate.
 from __future__ import annotations
 
 import numpy as np
-from scipy.stats import norm, t as t_dist
+from scipy.stats import norm
+from scipy.stats import t as t_dist
 
 _UNIT = ("harrell_c", "uno_c", "mean_auc", "auc", "brier", "ibs", "null_ibs", "ici", "e50", "e90")
 _AT_MOST_ONE = ("ipa", "ipa_integrated")

@@ -26,7 +26,7 @@ tau - both recalled from memory): it carries the uncertainty of tau^2 that
 the plug-in interval ignores. Prior scales (:data:`PRIOR_SCALES`) are weakly
 informative on each pooling scale: 0.5 on the logit-C and log-O/E scales (a
 prior median between-hospital SD of 0.34), the scale benchmarked for C
-(coverage 0.97 at k = 5 and 0.955 at k = 10, bench/bench_meta_pi_variants.py);
+(coverage 0.969 at k = 5 and 0.945 at k = 10, bench/bench_meta_pi_variants.py);
 0.5 for the calibration slope, 0.1 for the Brier score and 0.2 for the IPA
 (natural units; not benchmarked).
 
@@ -56,7 +56,6 @@ POOLING_SCALES = {"harrell_c": "logit", "uno_c": "logit", "auc": "logit", "oe_ra
 PRIOR_SCALES = {"logit": 0.5, "log": 0.5, "cal_slope": 0.5, "brier": 0.1, "ipa": 0.2}
 """Scale of the half-normal prior on tau for the predictive interval: by pooling scale for
 logit and log metrics, by metric family for metrics pooled as they are."""
-
 
 
 def prior_scale_for(metric: str) -> float | None:

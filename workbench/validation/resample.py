@@ -97,8 +97,8 @@ from workbench.validation.engine import _apparent, _chunks, _Job, _run_chunk, _T
 from workbench.validation.estimators import INTERVALS, _summarise
 from workbench.validation.estimators_bootstrap import ESTIMATORS, no_information
 from workbench.validation.evaluate import ibs_grid, metric_names
-from workbench.validation.intervals import TWO_STAGE_RULES
 from workbench.validation.external import validate_external
+from workbench.validation.intervals import TWO_STAGE_RULES
 from workbench.validation.plans import (
     _bootstrap_plan,
     _copy_seed,
