@@ -31,7 +31,7 @@ from __future__ import annotations
 
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.results import results_dict
-from workbench.validation.intervals import TWO_STAGE_RULES
+from workbench.validation.intervals import TWO_STAGE_RULE
 
 REPLICATES_COMMON = 200
 """Bootstrap replicates usually asked of a final analysis (common practice)."""
@@ -140,7 +140,7 @@ def _interval_text(v: dict) -> str:
                  else f"one {s.get('folds')}-fold split")
         return (f"{level} intervals come from a two-stage bootstrap (Noma et al. 2021): the whole "
                 f"validation was repeated in {s.get('outer_replicates')} bootstrap samples of the patients "
-                f"({inner} each), and the interval is the {TWO_STAGE_RULES[v['method']]} (Efron & "
+                f"({inner} each), and the interval is the {TWO_STAGE_RULE} (Efron & "
                 "Tibshirani 1993); it describes the expected performance of the modelling process "
                 "at this sample size. Intervals are limited to each measure's possible range and are "
                 "not reported where they cannot be computed.")

@@ -49,7 +49,7 @@ import numpy as np
 
 from workbench.errors import SpecError, WorkbenchError
 from workbench.metrics.td_auc import time_dependent_auc
-from workbench.validation.intervals import TWO_STAGE_RULES, guard, two_stage_interval
+from workbench.validation.intervals import TWO_STAGE_RULE, guard, two_stage_interval
 
 __all__ = ["DifferenceBand", "auc_difference_external", "auc_difference_internal", "difference_grid",
            "external_auc_band", "net_benefit_difference"]
@@ -180,11 +180,11 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
             d = om[:, j] - ob[:, j]
             lo, hi = nan.copy(), nan.copy()
             for k in range(x.size):
-                lo[k], hi[k] = two_stage_interval(result.method, d[:, k], est[k], result.conf_level)
+                lo[k], hi[k] = two_stage_interval(d[:, k], est[k], result.conf_level)
             lo, hi = _guarded("net_benefit", est, lo, hi)
             return DifferenceBand(**{**common, "n_replicates": int(np.isfinite(d[:, 0]).sum())}, estimate=est,
                                   lower=lo, upper=hi, band="two-stage",
-                                  note=f"validated difference; band: {TWO_STAGE_RULES[result.method]} of the paired "
+                                  note=f"validated difference; band: {TWO_STAGE_RULE} of the paired "
                                        "differences of the validated curves in the outer bootstrap samples")
         if result.method == "bootstrap" and est_name == {"optimism"} and ra.size >= 2:
             b = rm.nb_train[ra, j] - rbm.nb_train[rb, j]

@@ -64,7 +64,7 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
         if outer is not None and outer.shape[0]:
-            lo, hi = two_stage_interval(method, outer[:, j], est, conf_level)
+            lo, hi = two_stage_interval(outer[:, j], est, conf_level)
             ilabel = "two-stage"
             if not np.isfinite(lo):
                 note = "interval not computable: too few usable outer bootstrap samples"
@@ -203,7 +203,7 @@ def difference_estimates(result, model: str, baseline: str, paired: ReplicateMet
         est = em.estimate - eb.estimate
         lo, hi, note = np.nan, np.nan, _NO_INTERVAL["bootstrap"]
         if outer is not None:
-            lo, hi = two_stage_interval(result.method, outer[:, j], est, result.conf_level)
+            lo, hi = two_stage_interval(outer[:, j], est, result.conf_level)
             note = "" if np.isfinite(lo) else "interval not computable: too few usable outer bootstrap samples"
         lo, hi, why = guard(nm, est, lo, hi, difference=True)
         label = em.estimator if em.estimator == eb.estimator else f"{em.estimator}/{eb.estimator}"

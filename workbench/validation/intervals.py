@@ -101,24 +101,23 @@ def bias_corrected_normal(v: np.ndarray, estimate: float, conf_level: float) -> 
     return centre - half, centre + half
 
 
-_NORMAL_RULE = "bias-corrected normal interval (bootstrap standard error of the outer estimates, t on B - 1 df)"
-TWO_STAGE_RULES = {"bootstrap": _NORMAL_RULE, "cv": _NORMAL_RULE}
-"""How :func:`two_stage_interval` forms the interval for each validation method (for texts)."""
+TWO_STAGE_RULE = "bias-corrected normal interval (bootstrap standard error of the outer estimates, t on B - 1 df)"
+"""How :func:`two_stage_interval` forms the interval (for texts)."""
 
 
-def two_stage_interval(method: str, v: np.ndarray, estimate: float, conf_level: float) -> tuple[float, float]:
+def two_stage_interval(v: np.ndarray, estimate: float, conf_level: float) -> tuple[float, float]:
     """The interval of a two-stage bootstrap from the outer-sample estimates ``v``.
 
-    The bias-corrected normal interval (:func:`bias_corrected_normal`) for every
-    validation method. Measured in bench/bench_intervals.py (200 cohorts of 120 patients
-    with 30 outer samples, and 100+ cohorts of 150 with 20; target 0.92-0.98 for a
-    nominal 0.95), the bias-corrected percentile interval cut the tails short with so few
-    outer samples: bootstrap C 0.87-0.92, C difference 0.86-0.90, cross-validated C
-    0.85-0.945. The normal interval: bootstrap C 0.94-0.97, C difference 0.94-0.96,
-    cross-validated C 0.955-0.965; for a cross-validated C difference it is conservative
-    (0.985-0.995), because one k-fold split per outer sample makes the outer estimates
-    noisier than the estimate itself (outer SD 1.3-1.6 times its sampling SD).
-    ``method`` is kept so that a method-specific rule has one place to go.
+    The bias-corrected normal interval (:func:`bias_corrected_normal`), for the bootstrap
+    estimators and cross-validation alike. Measured in bench/bench_intervals.py (200
+    cohorts of 120 patients with 30 outer samples, and 200 of 150 with 20; target
+    0.92-0.98 for a nominal 0.95), the bias-corrected percentile interval cut the tails
+    short with so few outer samples: bootstrap C 0.85-0.92, C difference 0.87-0.90,
+    cross-validated C 0.845-0.945. The normal interval: bootstrap C 0.935-0.97, C
+    difference 0.955-0.965, cross-validated C 0.955-0.965; for a cross-validated C
+    difference it is conservative (0.985-0.995), because one k-fold split per outer
+    sample makes the outer estimates noisier than the estimate itself (outer SD 1.3-1.6
+    times its sampling SD).
     """
     return bias_corrected_normal(v, estimate, conf_level)
 

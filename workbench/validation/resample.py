@@ -98,7 +98,7 @@ from workbench.validation.estimators import INTERVALS, _summarise
 from workbench.validation.estimators_bootstrap import ESTIMATORS, no_information
 from workbench.validation.evaluate import ibs_grid, metric_names
 from workbench.validation.external import validate_external
-from workbench.validation.intervals import TWO_STAGE_RULES
+from workbench.validation.intervals import TWO_STAGE_RULE
 from workbench.validation.plans import (
     _bootstrap_plan,
     _copy_seed,
@@ -368,7 +368,7 @@ def validate(
     if two_stage:
         notes.append(f"intervals: two-stage bootstrap, {int(outer_replicates)} outer samples x "
                      + (f"{int(inner_replicates)} inner bootstrap replicates" if method == "bootstrap"
-                        else f"one {int(folds)}-fold split") + f" ({TWO_STAGE_RULES[method]}).")
+                        else f"one {int(folds)}-fold split") + f" ({TWO_STAGE_RULE}).")
     total = max(n_rep.values())
     for nm, r in n_rep.items():
         if 0 < r < total:
