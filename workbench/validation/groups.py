@@ -21,6 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from workbench.errors import MetricError, WorkbenchError
+from workbench.validation.intervals import guard
 from workbench.validation.meta import POOLING_SCALES, prior_scale_for, random_effects, transform
 
 __all__ = ["GROUP_METRICS", "GroupBlock", "LevelEstimate", "evaluate_groups", "group_metric_names", "loco_groups"]
@@ -116,6 +117,9 @@ def level_block(preds, y, strata, method, h, grid, kw, *, replicates: int, seed,
         for j, nm in enumerate(names):
             v = R[:, j][np.isfinite(R[:, j])]
             lo, hi = (np.quantile(v, [a, 1 - a]) if v.size >= 2 else (np.nan, np.nan))
+            # the rule of every workbench interval: within the metric's range, never zero width,
+            # never excluding its own estimate (few resamples can give either)
+            lo, hi, _ = guard(nm, float(point[m][j]), float(lo), float(hi))
             tv = transform(v, _scale(nm))
             tv = tv[np.isfinite(tv)]
             se = float(np.std(tv, ddof=1)) if tv.size >= 2 else np.nan

@@ -17,6 +17,7 @@ from workbench.models.cox import ClinicalCox
 from workbench.preprocess.clinical import PredictorSpec
 from workbench.validation.groups import loco_groups
 from workbench.validation.meta import random_effects
+from workbench.validation.intervals import metric_range
 
 H = [730.0, 1095.0]
 SPECS = (PredictorSpec("pnodes"), PredictorSpec("tgrade", kind="categorical", reference="I"))
@@ -128,3 +129,16 @@ def test_by_centre_study_writes_per_centre_block_with_pooling(small_study_file, 
     assert pooled["k"] == len(block["levels"]) and pooled["pi_lower"] is not None
     assert pooled["ci_lower"] < pooled["estimate"] < pooled["ci_upper"]
     assert (tmp_path / "out" / "internal_by_group.csv").exists()
+
+
+def test_per_centre_intervals_follow_the_interval_rule_with_few_resamples(cohort):
+    # 2 resamples: a percentile "interval" of two values may exclude the estimate; it is withdrawn
+    few = loco_groups({"cox": ClinicalCox(SPECS, name="cox")}, cohort, H, replicates=2, entropy=3)
+    n_finite = 0
+    for lev in few.levels:
+        for nm, e in few.estimates["cox"][lev].items():
+            if np.isfinite(e.ci_lower):
+                n_finite += 1
+                lo, hi = metric_range(nm)
+                assert lo <= e.ci_lower <= e.estimate <= e.ci_upper <= hi, (lev, nm, e)
+    assert n_finite < sum(len(few.estimates["cox"][lev]) for lev in few.levels)  # some were withdrawn
