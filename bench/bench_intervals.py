@@ -43,8 +43,10 @@ from workbench.validation import compare_models, validate  # noqa: E402
 from workbench.validation.evaluate import ModelPerformance, PairPerformance  # noqa: E402
 from workbench.validation.intervals import bias_corrected_normal, bias_corrected_percentiles  # noqa: E402
 
-RULES = {"BC normal": bias_corrected_normal, "BC percentile": bias_corrected_percentiles}
-"""Interval rules compared on the same outer samples (intervals.py)."""
+RULES = {"engine": None, "BC normal": bias_corrected_normal, "BC percentile": bias_corrected_percentiles}
+"""Interval rules compared on the same outer samples (intervals.py). "engine": the interval the
+engine reports (two_stage_interval: normal, outer variance less the Monte Carlo noise of the
+inner replicates, see mc_noise.py); "BC normal": the same without the noise correction."""
 RAW_FIELDS = ("outer_combined", "outer_clinical", "estimate_combined", "estimate_difference", "truth_combined",
               "truth_clinical")
 
@@ -92,8 +94,9 @@ def run(args) -> dict:
             oc, ob = res.outer_estimates["combined"][:, j], res.outer_estimates["clinical"][:, j]
             row = []
             for rule in RULES.values():
-                row += [e.estimate, *rule(oc, e.estimate, 0.95), truth["combined"],
-                        d.estimate, *rule(oc - ob, d.estimate, 0.95), truth["combined"] - truth["clinical"]]
+                ce = (e.ci_lower, e.ci_upper) if rule is None else rule(oc, e.estimate, 0.95)
+                cd = (d.ci_lower, d.ci_upper) if rule is None else rule(oc - ob, d.estimate, 0.95)
+                row += [e.estimate, *ce, truth["combined"], d.estimate, *cd, truth["combined"] - truth["clinical"]]
             rows[method].append(row)
             raw[method].append((oc, ob, e.estimate, d.estimate, truth["combined"], truth["clinical"]))
         if (i + 1) % 25 == 0 and i + 1 < args.cohorts:

@@ -225,6 +225,10 @@ class ValidationResult:
     outer_net_benefit : dict of str to ndarray of shape (n_outer, n_horizons, n_thresholds)
         Two-stage intervals: each model's validated decision curves in each outer sample
         (the bands of :mod:`.difference_bands`).
+    noise_groups : dict of str to dict of str to dict of int to float
+        Two-stage intervals: per model and metric, the estimator applied to groups of
+        the data's replicates shaped like one outer estimate (:mod:`.mc_noise`; the
+        Monte Carlo noise correction of differences between models).
     """
 
     method: str
@@ -259,6 +263,7 @@ class ValidationResult:
     interval: str = ""
     outer_estimates: dict = field(default_factory=dict)
     outer_net_benefit: dict = field(default_factory=dict)
+    noise_groups: dict = field(default_factory=dict)
 
     def summary_frame(self) -> pd.DataFrame:
         """One row per model and metric with apparent, optimism, estimate, SD and interval."""

@@ -16,8 +16,8 @@ from workbench.cohort import Cohort, make_outcome
 from workbench.models.cox import ClinicalCox
 from workbench.preprocess.clinical import PredictorSpec
 from workbench.validation.groups import loco_groups
-from workbench.validation.meta import random_effects
 from workbench.validation.intervals import metric_range
+from workbench.validation.meta import random_effects
 
 H = [730.0, 1095.0]
 SPECS = (PredictorSpec("pnodes"), PredictorSpec("tgrade", kind="categorical", reference="I"))
