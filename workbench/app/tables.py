@@ -89,7 +89,7 @@ def metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
 
 HEADLINE = ("harrell_c", "uno_c", "auc", "ibs", "ipa_integrated")
 MIN_CI_REPLICATES = 10
-"""Fewer replicates than this give no meaningful percentile interval; the tables then show none."""
+"""Fewer replicates than this give no interval (the interval rules need 10); the tables then show none."""
 
 
 def difference_table(comparison, *, time_unit: str = "", headline: bool = False) -> pd.DataFrame:

@@ -391,8 +391,8 @@ def _difference_figures(items: list, result, unit: str) -> None:
                 f"{nb.horizon:g} {unit} " + _BAND_WORDS.get(nb.band, "without a band (see the note in results.json)")
                 + "."
                 + (" External: the difference of the unchanged models on the external patients with pointwise "
-                   "percentile bands over resamples of those patients (the resamples of the external table; in "
-                   "simulation they covered about 90%, not 95%: read them as somewhat narrow)."
+                   "normal bands over resamples of those patients (the resamples of the external table; in "
+                   "simulation they covered about 95%)."
                    if ext else "") + " Above zero favours the first model.",
                 lambda b=bands, kw=names: plot_difference_curves(b, time_unit=unit, **kw))
 

@@ -36,6 +36,7 @@ from workbench.report.methods import (
     predictor_handling,
 )
 from workbench.report.results import results_dict
+from workbench.validation.intervals import RESAMPLE_RULE
 
 
 @dataclass(frozen=True)
@@ -274,7 +275,8 @@ def _external_claims(result, d: dict) -> list[Claim]:
     if e is None:
         return []
     out = [Claim("external.applied", f"The fitted models were applied unchanged to an external cohort of {e['n']} "
-                 f"patients ({e['n_events']} events); intervals come from bootstrap resamples of that cohort."),
+                 f"patients ({e['n_events']} events); intervals come from bootstrap resamples of that cohort "
+                 f"(predictions fixed), each the {RESAMPLE_RULE}."),
            Claim("external.censoring", "Inverse probability of censoring weights and the Kaplan-Meier reference "
                  "of the Brier score were estimated on the external cohort itself and re-estimated in every "
                  "resample" + _censoring_clause(e.get("censoring")) + ".")]

@@ -37,6 +37,8 @@ _NO_INTERVAL = {
     "cv": "no interval: cross-validation intervals need the two-stage bootstrap "
           "([validation] interval = 'two-stage')",
     "by_centre": "",
+    "external": "no interval: fewer than 10 usable resamples of the external patients (more replicates "
+                "give one)",
 }
 
 
@@ -69,7 +71,7 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
             ilabel = "shifted-percentile" if np.isfinite(lo) else ""
         elif method == "external":
             est, sd, (lo, hi), used = external_estimate(a, rm.train[rm.ok, j], conf_level)
-            ilabel = "percentile"
+            ilabel = "normal"
         elif method == "cv":
             est, sd, used = cv_estimate(rm.test[:, j], rm.replicate, rm.ok)
         else:

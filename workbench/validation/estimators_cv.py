@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from workbench.validation.intervals import percentiles
+from workbench.validation.intervals import resample_interval
 
 
 def cv_estimate(v: np.ndarray, rep: np.ndarray, ok: np.ndarray):
@@ -30,7 +30,7 @@ def by_centre_estimate(v: np.ndarray, events: np.ndarray, ok: np.ndarray):
 
 
 def external_estimate(a: float, b: np.ndarray, conf_level: float):
-    """Value on the external cohort; SD and percentile interval over resampled external rows."""
+    """Value on the external cohort; SD and interval (:func:`~.intervals.resample_interval`) over resampled rows."""
     b = b[np.isfinite(b)]
     sd = float(np.std(b, ddof=1)) if b.size > 1 else np.nan
-    return a, sd, percentiles(b, conf_level), int(b.size)
+    return a, sd, resample_interval(b, a, conf_level), int(b.size)

@@ -1,8 +1,9 @@
 """Performance in each hospital (or scanner) and its heterogeneity.
 
 Each level of a grouping (a centre, a scanner) is evaluated on its own rows
-with censoring weights and the null model from those rows, with a percentile
-bootstrap interval over resamples of its rows (predictions fixed). The
+with censoring weights and the null model from those rows, with a normal
+bootstrap interval over resamples of its rows (predictions fixed;
+:func:`~.intervals.resample_interval`). The
 per-level estimates are pooled by random-effects meta-analysis
 (:mod:`workbench.validation.meta`): C on the logit scale, O/E on the log scale,
 the calibration slope and the Brier score as they are; the within-level
@@ -21,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from workbench.errors import MetricError, WorkbenchError
-from workbench.validation.intervals import guard
+from workbench.validation.intervals import guard, resample_interval
 from workbench.validation.meta import POOLING_SCALES, prior_scale_for, random_effects, transform
 
 __all__ = ["GROUP_METRICS", "GroupBlock", "LevelEstimate", "evaluate_groups", "group_metric_names", "loco_groups"]
@@ -39,7 +40,7 @@ def group_metric_names(horizons) -> tuple[str, ...]:
 
 @dataclass(frozen=True)
 class LevelEstimate:
-    """One metric of one model at one level: estimate, percentile interval, SE on the pooling scale."""
+    """One metric of one model at one level: estimate, interval (resample_interval), SE on the pooling scale."""
 
     estimate: float
     ci_lower: float
@@ -109,14 +110,13 @@ def level_block(preds, y, strata, method, h, grid, kw, *, replicates: int, seed,
                              names)
         for m in preds:
             reps[m].append(vals[m])
-    a = (1.0 - conf_level) / 2.0
     out = {}
     for m in preds:
         R = np.array(reps[m]).reshape(-1, len(names))
         block = {}
         for j, nm in enumerate(names):
             v = R[:, j][np.isfinite(R[:, j])]
-            lo, hi = (np.quantile(v, [a, 1 - a]) if v.size >= 2 else (np.nan, np.nan))
+            lo, hi = resample_interval(v, float(point[m][j]), conf_level)
             # the rule of every workbench interval: within the metric's range, never zero width,
             # never excluding its own estimate (few resamples can give either)
             lo, hi, _ = guard(nm, float(point[m][j]), float(lo), float(hi))

@@ -145,6 +145,43 @@ def two_stage_interval(v: np.ndarray, estimate: float, conf_level: float, outer_
     return centre - half, centre + half
 
 
+RESAMPLE_RULE = ("normal interval around the estimate (t on B - 1 df times the standard deviation of the "
+                 "B resampled values, widened by sqrt(1 + 1/B))")
+"""How :func:`resample_interval` forms the interval (for texts)."""
+
+
+def resample_interval(v: np.ndarray, estimate: float, conf_level: float) -> tuple[float, float]:
+    """Interval of a statistic of fixed predictions from its values ``v`` in B resamples of the patients.
+
+    ``estimate -+ t_{B-1} * sd(v) * sqrt(1 + 1/B)``: for external validation, per-centre
+    blocks and the external difference bands (predictions fixed, so the statistic is a
+    plain plug-in estimate without refitting bias; no bias correction). Measured in
+    bench/bench_external_intervals.py (200 external cohorts of 200 patients, B = 50;
+    target 0.92-0.98) the percentile interval of the same resamples fell short (AUC,
+    IPA, O/E, calibration slope, ICI and the Brier difference 0.81-0.91), this one
+    covered 0.92-0.99; the pointwise bands of bench/bench_difference_bands.py likewise
+    (percentile AUC 0.924, net benefit 0.894; normal 0.947 and 0.956). NaN with fewer
+    than 10 finite values.
+    """
+    v = np.asarray(v, dtype=float)
+    v = v[np.isfinite(v)]
+    b = v.size
+    if b < 10 or not np.isfinite(estimate):
+        return np.nan, np.nan
+    half = float(t_dist.ppf(0.5 + conf_level / 2.0, b - 1)) * float(np.std(v, ddof=1)) * np.sqrt(1.0 + 1.0 / b)
+    return estimate - half, estimate + half
+
+
+def resample_band(d: np.ndarray, estimate: np.ndarray, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pointwise :func:`resample_interval` over the columns of ``d`` (rows: resamples)."""
+    d = np.asarray(d, dtype=float).reshape(np.shape(d)[0], -1)
+    est = np.asarray(estimate, dtype=float).reshape(-1)
+    lo, hi = np.full(d.shape[1], np.nan), np.full(d.shape[1], np.nan)
+    for j in range(d.shape[1]):
+        lo[j], hi[j] = resample_interval(d[:, j], est[j], conf_level)
+    return lo, hi
+
+
 def guard(name: str, estimate: float, lo: float, hi: float, difference: bool = False) -> tuple[float, float, str]:
     """Clip an interval to the metric's range; withdraw it (NaN + reason) if it is unusable."""
     if not (np.isfinite(lo) and np.isfinite(hi)):

@@ -25,7 +25,7 @@ from workbench.models.registry import MODEL_LABELS
 from workbench.report.methods import methods_paragraph
 from workbench.report.methods_text import _imaging_claims, harmonised_models, methods_claims
 from workbench.report.results import results_dict
-from workbench.validation.intervals import TWO_STAGE_RULE
+from workbench.validation.intervals import RESAMPLE_RULE, TWO_STAGE_RULE
 
 
 @pytest.fixture(scope="module")
@@ -260,6 +260,9 @@ def _external_applied(r, d, c):
         return
     e = r.external_prepared.cohort
     assert f"external cohort of {e.n} patients ({e.n_events} events)" in c["external.applied"]
+    # the rule the engine used for the external intervals, named in the text
+    labels = {m.interval for est in r.external.estimates.values() for m in est.values() if m.interval}
+    assert labels <= {"normal"} and RESAMPLE_RULE in c["external.applied"]
 
 
 def _external_censoring(r, d, c):

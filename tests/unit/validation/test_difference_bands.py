@@ -3,8 +3,9 @@
 GBSG2 (Schumacher et al. 1994) is split into a "development" part (first 400 rows) and an
 "external" part (the other 286); two unpenalised Cox models on its measurements are fitted on the
 first and applied unchanged to the second. The checks are independent recomputations: the band
-must be the percentile band of differences recomputed here from the metric functions on the
-resamples of ``resample_plan`` (the same resamples for both models), and the AUC band at a
+must be the normal band (estimate -+ t_{B-1} SD sqrt(1 + 1/B), t quantile from scipy) of the
+differences recomputed here from the metric functions on the resamples of ``resample_plan``
+(the same resamples for both models), and the AUC band at a
 horizon must equal the external table's interval of the AUC difference.
 """
 
@@ -18,6 +19,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
+from scipy.stats import t as t_dist
 
 sys.path.insert(0, str(Path(__file__).parents[3] / "bench"))
 from _sim import SmallCox  # noqa: E402
@@ -62,7 +64,7 @@ def gbsg2_split():
     return models, ext, res
 
 
-def test_external_net_benefit_band_is_the_paired_percentile_band(gbsg2_split):
+def test_external_net_benefit_band_is_the_paired_normal_band(gbsg2_split):
     models, ext, res = gbsg2_split
     band = net_benefit_difference(res, "full", "base", 1)
     curves = {k: m.predict_survival(ext, H) for k, m in models.items()}
@@ -74,9 +76,12 @@ def test_external_net_benefit_band_is_the_paired_percentile_band(gbsg2_split):
     whole = {k: net_benefit(ext.y, c, H[1]).net_benefit for k, c in curves.items()}
     np.testing.assert_allclose(band.estimate, whole["full"] - whole["base"], atol=1e-12)
     keep = np.isfinite(band.lower)
-    np.testing.assert_allclose(band.lower[keep], np.nanquantile(d, 0.025, axis=0)[keep], atol=1e-12)
-    np.testing.assert_allclose(band.upper[keep], np.nanquantile(d, 0.975, axis=0)[keep], atol=1e-12)
-    assert band.n_replicates == REPS and band.band == "percentile" and band.horizon == H[1]
+    b = np.sum(np.isfinite(d), axis=0)
+    half = t_dist.ppf(0.975, b - 1) * np.nanstd(d, axis=0, ddof=1) * np.sqrt(1 + 1 / b)
+    est = whole["full"] - whole["base"]
+    np.testing.assert_allclose(band.lower[keep], (est - half)[keep], atol=1e-12)
+    np.testing.assert_allclose(band.upper[keep], (est + half)[keep], atol=1e-12)
+    assert band.n_replicates == REPS and band.band == "normal" and band.horizon == H[1]
     assert keep.sum() >= 20  # the band exists over the thresholds where patients are acted on
 
 

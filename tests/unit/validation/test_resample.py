@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from scipy.stats import t as t_dist
 
 from workbench.cohort import Cohort, make_outcome
 from workbench.errors import MetricError, ModelError, SpecError
@@ -238,7 +239,7 @@ def test_horizon_beyond_a_fold_is_counted_not_fatal(gbsg2):
     assert res.failures["m"] == 0
 
 
-def test_external_validation_percentile_intervals(gbsg2):
+def test_external_validation_normal_intervals(gbsg2):
     from workbench.validation import validate_external
 
     dev, ext = gbsg2.take(np.arange(0, 450)), gbsg2.take(np.arange(450, gbsg2.n))
@@ -247,7 +248,11 @@ def test_external_validation_percentile_intervals(gbsg2):
     e = res.estimates["m"]["harrell_c"]
     assert res.method == "external" and np.isnan(e.optimism)
     assert e.estimate == res.apparent["m"].harrell_c
-    assert e.ci_lower < e.estimate < e.ci_upper and e.n_used == 10
+    assert e.ci_lower < e.estimate < e.ci_upper and e.n_used == 10 and e.interval == "normal"
+    # estimate -+ t_9 * SD of the 10 resampled values * sqrt(1 + 1/10) (t quantile from scipy)
+    v = res.replicates["m"].train[:, res.metric_names.index("harrell_c")]
+    half = t_dist.ppf(0.975, 9) * np.std(v, ddof=1) * np.sqrt(1.1)
+    assert (e.ci_lower, e.ci_upper) == pytest.approx((e.estimate - half, e.estimate + half))
 
 
 def test_tqdm_progress_bar_counts_to_total():
