@@ -119,17 +119,15 @@ def summarise(name: str, cov: np.ndarray, nominal: float = 0.95) -> str:
             f"estimate) at {100 * withdrawn:.0f}% of cohort-points\n    per point: {pts}")
 
 
-def _normal_pct(v: np.ndarray, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
-    """Trial rule for the external bands (--external-rule normal): mean -+ t_{B-1} sd sqrt(1 + 1/B)
-    of the resampled differences at each point, the normal analogue of the percentile band."""
-    from scipy import stats
-
-    lo, hi = np.full(v.shape[1], np.nan), np.full(v.shape[1], np.nan)
-    for j in range(v.shape[1]):
-        col = v[:, j][np.isfinite(v[:, j])]
-        if col.size >= 10:
-            half = stats.t.ppf(0.5 + conf_level / 2, col.size - 1) * np.std(col, ddof=1) * np.sqrt(1 + 1 / col.size)
-            lo[j], hi[j] = col.mean() - half, col.mean() + half
+def _percentile_band(d: np.ndarray, est: np.ndarray, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
+    """The rule the engine used before (--external-rule percentile): pointwise percentiles of the
+    resampled differences, whatever the estimate."""
+    a = (1.0 - conf_level) / 2.0
+    lo, hi = np.full(d.shape[1], np.nan), np.full(d.shape[1], np.nan)
+    for j in range(d.shape[1]):
+        col = d[:, j][np.isfinite(d[:, j])]
+        if col.size >= 2:
+            lo[j], hi[j] = np.quantile(col, [a, 1.0 - a])
     return lo, hi
 
 
@@ -144,8 +142,9 @@ def main(argv=None) -> None:
     ap.add_argument("--outer", type=int, default=30)
     ap.add_argument("--inner", type=int, default=3)
     ap.add_argument("--skip-external", action="store_true")
-    ap.add_argument("--external-rule", default="percentile", choices=("percentile", "normal"),
-                    help="external bands: the engine's percentile band, or a trial normal band (not in the engine)")
+    ap.add_argument("--external-rule", default="engine", choices=("engine", "percentile"),
+                    help="external bands: the engine's band (intervals.resample_band: normal, around the "
+                         "estimate), or the percentile band it replaced")
     ap.add_argument("--skip-internal", action="store_true")
     args = ap.parse_args(argv)
     t0 = time.time()
@@ -154,10 +153,10 @@ def main(argv=None) -> None:
           f"truth from {TRUTH_N} uncensored patients; grid {GRID.tolist()}, thresholds {THRESHOLDS.tolist()} "
           f"at horizon {HORIZONS[J]:g}")
     if not args.skip_external:
-        if args.external_rule == "normal":
+        if args.external_rule == "percentile":
             import workbench.validation.difference_bands as bands
 
-            bands._pct = _normal_pct
+            bands.resample_band = _percentile_band
         print(f"external band rule: {args.external_rule}")
         for name, cov in external_run(args.cohorts, args.replicates, args.n).items():
             print(summarise(name, cov), flush=True)
