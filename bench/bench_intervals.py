@@ -45,8 +45,8 @@ from workbench.validation.intervals import bias_corrected_normal, bias_corrected
 
 RULES = {"engine": None, "BC normal": bias_corrected_normal, "BC percentile": bias_corrected_percentiles}
 """Interval rules compared on the same outer samples (intervals.py). "engine": the interval the
-engine reports (two_stage_interval: normal, outer variance less the Monte Carlo noise of the
-inner replicates, see mc_noise.py); "BC normal": the same without the noise correction."""
+engine reports, read from its results (so a change of rule in the engine is measured here
+directly); the others recomputed from the outer estimates for comparison."""
 RAW_FIELDS = ("outer_combined", "outer_clinical", "estimate_combined", "estimate_difference", "truth_combined",
               "truth_clinical")
 

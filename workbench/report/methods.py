@@ -141,10 +141,7 @@ def _interval_text(v: dict) -> str:
         return (f"{level} intervals come from a two-stage bootstrap (Noma et al. 2021): the whole "
                 f"validation was repeated in {s.get('outer_replicates')} bootstrap samples of the patients "
                 f"({inner} each), and the interval is the {TWO_STAGE_RULE} (Efron & "
-                "Tibshirani 1993). Because each outer estimate rests on so few inner fits, their "
-                "Monte Carlo noise, measured on groups of the main run's own replicates of the same "
-                "shape, was taken out of the variance of the outer estimates. The interval "
-                "describes the expected performance of the modelling process "
+                "Tibshirani 1993); it describes the expected performance of the modelling process "
                 "at this sample size. Intervals are limited to each measure's possible range and are "
                 "not reported where they cannot be computed.")
     if v.get("interval") == "shifted-percentile":

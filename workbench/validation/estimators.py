@@ -16,12 +16,6 @@ from workbench.validation.estimators_bootstrap import bootstrap_estimate
 from workbench.validation.estimators_cv import by_centre_estimate, cv_estimate, external_estimate
 from workbench.validation.evaluate import metric_names, pair_metric_names
 from workbench.validation.intervals import guard, two_stage_interval
-from workbench.validation.mc_noise import (
-    Noise,
-    difference_noise,
-    group_estimates,
-    noise_from_groups,
-)
 from workbench.validation.results import (
     MetricEstimate,
     ReplicateFailure,
@@ -44,18 +38,13 @@ _NO_INTERVAL = {
 
 def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_level: float,
                estimator: str = "optimism", gamma: np.ndarray | None = None,
-               outer: np.ndarray | None = None, difference: bool = False, noise_size: int = 0,
-               groups_out: dict | None = None) -> dict:
+               outer: np.ndarray | None = None, difference: bool = False) -> dict:
     """One MetricEstimate per metric of ``rm``.
 
     ``estimator`` (bootstrap only): "optimism", "oob" or "632plus"; ``gamma``: the
     no-information values for .632+; ``outer``: estimates of the same estimator in
     each outer sample of the two-stage bootstrap (rows) for the interval;
-    ``difference``: the values are model-minus-baseline differences (range checks);
-    ``noise_size``: replicates behind one outer estimate (bootstrap: inner
-    replicates; cv: any positive value, one repeat), for the Monte Carlo noise
-    correction of :mod:`.mc_noise` (0: none); ``groups_out``: filled with the
-    per-group estimates of each metric (for differences of non-linear estimators).
+    ``difference``: the values are model-minus-baseline differences (range checks).
     """
     out = {}
     for j, name in enumerate(rm.names):
@@ -77,14 +66,7 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
         if outer is not None and outer.shape[0]:
-            nz = Noise()
-            if noise_size > 0:
-                g = group_estimates(method, estimator, name, a, rm, j,
-                                    np.nan if gamma is None else float(gamma[j]), noise_size)
-                nz = noise_from_groups(g.values())
-                if groups_out is not None:
-                    groups_out[name] = g
-            lo, hi = two_stage_interval(outer[:, j], est, conf_level, nz.outer_noise, nz.estimate_noise)
+            lo, hi = two_stage_interval(outer[:, j], est, conf_level)
             ilabel = "two-stage"
             if not np.isfinite(lo):
                 note = "interval not computable: too few usable outer bootstrap samples"
@@ -137,22 +119,20 @@ def _pair_metrics(key, tasks, outputs, arms, names, with_fold) -> ReplicateMetri
 
 
 def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, horizons,
-               arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None, noise_size=0):
+               arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None):
     names = metric_names(horizons)
     pnames = pair_metric_names(horizons)
     first = next(iter(apparent.values()))
     k, m = first.net_benefit.shape
     with_fold = method == "cv"
-    replicates, estimates, failures, dropped, selection, warn, groups = {}, {}, {}, {}, {}, {}, {}
+    replicates, estimates, failures, dropped, selection, warn = {}, {}, {}, {}, {}, {}
     log = []
     for name in models:
         rm = _model_metrics(name, tasks, outputs, arms, names, k, m, with_fold)
         replicates[name] = rm
         est_name = (estimator or {}).get(name, "optimism")
-        groups[name] = {}
         estimates[name] = _estimates(method, apparent[name].vector(), rm, conf_level, est_name,
-                                     (gammas or {}).get(name), (outer or {}).get(name),
-                                     noise_size=noise_size, groups_out=groups[name])
+                                     (gammas or {}).get(name), (outer or {}).get(name))
         recs = [(t, o["models"][name]) for t, o in zip(tasks, outputs, strict=True) if name in o["models"]]
         for t, rec in recs:
             if not rec["ok"]:
@@ -195,14 +175,7 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
     return dict(metric_names=names, pair_metric_names=pnames, replicates=replicates,
                 estimates=estimates, failures=failures, failure_log=tuple(log),
                 dropped_metrics=dropped, selection=selection, warning_counts=warn,
-                pair_replicates=pair_reps, pair_estimates=pair_est, noise_groups=groups)
-
-
-def noise_size(result) -> int:
-    """Replicates behind one outer estimate of ``result``'s two-stage bootstrap (0: no noise correction)."""
-    if result.interval != "two-stage":
-        return 0
-    return int(result.settings.get("inner_replicates", 0)) if result.method == "bootstrap" else 1
+                pair_replicates=pair_reps, pair_estimates=pair_est)
 
 
 def difference_estimates(result, model: str, baseline: str, paired: ReplicateMetrics,
@@ -223,19 +196,16 @@ def difference_estimates(result, model: str, baseline: str, paired: ReplicateMet
     est_name = ests.pop()
     om, ob = result.outer_estimates.get(model), result.outer_estimates.get(baseline)
     outer = None if om is None or ob is None else om - ob
-    size = noise_size(result)
     if result.method != "bootstrap" or est_name == "optimism":
         return _estimates(result.method, a_diff, paired, result.conf_level, est_name,
-                          outer=outer, difference=True, noise_size=size)
+                          outer=outer, difference=True)
     out = {}
     for j, nm in enumerate(paired.names):
         em, eb = result.estimates[model][nm], result.estimates[baseline][nm]
         est = em.estimate - eb.estimate
         lo, hi, note = np.nan, np.nan, _NO_INTERVAL["bootstrap"]
         if outer is not None:
-            gm, gb = (result.noise_groups.get(x, {}).get(nm, {}) for x in (model, baseline))
-            nz = difference_noise(gm, gb) if size else Noise()
-            lo, hi = two_stage_interval(outer[:, j], est, result.conf_level, nz.outer_noise, nz.estimate_noise)
+            lo, hi = two_stage_interval(outer[:, j], est, result.conf_level)
             note = "" if np.isfinite(lo) else "interval not computable: too few usable outer bootstrap samples"
         lo, hi, why = guard(nm, est, lo, hi, difference=True)
         label = em.estimator if em.estimator == eb.estimator else f"{em.estimator}/{eb.estimator}"

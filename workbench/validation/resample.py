@@ -364,8 +364,7 @@ def validate(
              if two_stage else {})
     outer_nb = outer_net_benefit(method, extra, extra_out, estimators) if two_stage else {}
     parts = _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, h,
-                       arms, conf_level, max_failure_rate, unit, estimators, gammas, outer,
-                       noise_size=(int(inner_replicates) if method == "bootstrap" else 1) if two_stage else 0)
+                       arms, conf_level, max_failure_rate, unit, estimators, gammas, outer)
     if two_stage:
         notes.append(f"intervals: two-stage bootstrap, {int(outer_replicates)} outer samples x "
                      + (f"{int(inner_replicates)} inner bootstrap replicates" if method == "bootstrap"

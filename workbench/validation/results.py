@@ -93,7 +93,7 @@ class MetricEstimate:
         event-weighted SD across centres.
     ci_lower, ci_upper : float
         Bootstrap: percentile interval of B re-centred on the estimate (NaN where B
-        has no spread); external: percentile interval; NaN for cv and by_centre.
+        has no spread); external: normal interval over the resamples; NaN for cv and by_centre.
     n_used : int
         Replicates (folds, centres) that contributed.
     estimator : str
@@ -102,8 +102,8 @@ class MetricEstimate:
     interval : str
         How the interval was formed: "two-stage" (interval from the same estimator
         over outer bootstrap samples, :func:`~.intervals.two_stage_interval`), "shifted-percentile"
-        (the cheap location-shifted interval, optimism only), "percentile"
-        (external), or "" where there is none.
+        (the cheap location-shifted interval, optimism only), "normal"
+        (external: :func:`~.intervals.resample_interval`), or "" where there is none.
     note : str
         Why an interval is missing, if it is.
     """
@@ -225,10 +225,6 @@ class ValidationResult:
     outer_net_benefit : dict of str to ndarray of shape (n_outer, n_horizons, n_thresholds)
         Two-stage intervals: each model's validated decision curves in each outer sample
         (the bands of :mod:`.difference_bands`).
-    noise_groups : dict of str to dict of str to dict of int to float
-        Two-stage intervals: per model and metric, the estimator applied to groups of
-        the data's replicates shaped like one outer estimate (:mod:`.mc_noise`; the
-        Monte Carlo noise correction of differences between models).
     """
 
     method: str
@@ -263,7 +259,6 @@ class ValidationResult:
     interval: str = ""
     outer_estimates: dict = field(default_factory=dict)
     outer_net_benefit: dict = field(default_factory=dict)
-    noise_groups: dict = field(default_factory=dict)
 
     def summary_frame(self) -> pd.DataFrame:
         """One row per model and metric with apparent, optimism, estimate, SD and interval."""
