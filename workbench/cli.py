@@ -237,6 +237,12 @@ def _cmd_apply(args) -> int:
     print(f"\n{'model':<16s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}")
     for name, est in res.validation.estimates.items():
         print(f"{name:<16s}{fmt_estimate(est.get('harrell_c')):>24s}{fmt_estimate(est.get('uno_c')):>24s}{fmt_estimate(est.get('ibs')):>24s}")
+    import numpy as np
+
+    notes = {e.note for est in res.validation.estimates.values() for e in est.values() if e.note}
+    if not any(np.isfinite(e.ci_lower) for est in res.validation.estimates.values() for e in est.values()):
+        reason = next(iter(sorted(notes)), "no interval could be computed")
+        print(f"{reason[0].upper()}{reason[1:]}.")
     if not res.recalibration.empty:
         print("\nCalibration (ICI) after recalibration on this cohort (apparent):")
         print(res.recalibration.pivot_table(index=["model", "recalibration"], columns="horizon", values="ici").round(3).to_string())

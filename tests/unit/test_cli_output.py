@@ -349,3 +349,15 @@ def test_apply_warns_when_a_feature_looks_like_another_unit(study, run_folder, t
     assert "1 column(s) have a median far outside the training range: 'tsize' (median" in err
     assert "a factor of 1000 (such as mm³ vs cm³ or ml, g vs kg)?" in err
     assert (tmp_path / "ext" / "external_results.json").exists()
+
+
+def test_apply_says_why_there_are_no_intervals(study, run_folder, tmp_path, capsys):
+    # 5 resamples of the new cohort: the interval rule needs 10, and the console says so
+    args = ["apply", str(run_folder / "bundle"), "--features", str(study.parent / "features.csv"),
+            "--clinical", str(study.parent / "clinical.csv")]
+    capsys.readouterr()
+    assert main([*args, "--out", str(tmp_path / "few"), "--replicates", "5"]) == 0
+    assert "No interval: fewer than 10 usable resamples of the external patients" in capsys.readouterr().out
+    assert main([*args, "--out", str(tmp_path / "enough"), "--replicates", "10"]) == 0
+    out = capsys.readouterr().out
+    assert "No interval" not in out and " to " in out.split("IBS")[1].splitlines()[1]
