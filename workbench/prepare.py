@@ -40,6 +40,8 @@ class PreparedCohort:
     incomplete_by_column: dict
     pool: tuple[str, ...]
     excluded_features: tuple[str, ...]
+    reproducibility: pd.DataFrame | None = None  # ICC per feature of the pool (preprocess/reproducibility.py)
+    unreproducible: tuple[str, ...] = ()  # features removed for an ICC below [imaging.reproducibility] min_icc
 
 
 def _matches(name: str, patterns) -> bool:
@@ -168,10 +170,51 @@ def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort
     )
     n_read = cohort.n
     cohort, excluded = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)
+    icc_table, removed = None, ()
+    if not external and d.repeats:
+        cohort, icc_table, removed = filter_reproducible(cohort, spec)
     if not external:
         check_post_outcome(cohort, spec.predictors)
     cohort, incomplete, by_col = drop_incomplete(cohort, spec.predictors)
-    return PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded)
+    return PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded,
+                          icc_table, removed)
+
+
+def filter_reproducible(cohort: Cohort, spec: StudySpec) -> tuple[Cohort, pd.DataFrame, tuple[str, ...]]:
+    """Remove pool features whose ICC on the repeat table is below the study's threshold.
+
+    Uses no outcome (see :mod:`workbench.preprocess.reproducibility`), so it is done once
+    on the whole cohort. Returns the cohort with the kept features, the ICC table and the
+    removed features; an error if none is kept.
+    """
+    from workbench.cohort.readers import read_table
+    from workbench.preprocess.reproducibility import feature_icc, reproducible_features
+
+    d, r = spec.data, spec.imaging.reproducibility
+    table = read_table(d.repeats, sheet=d.repeats_sheet)
+    if d.id not in table.columns:
+        raise CohortError(f"{d.repeats}: the repeat table has no patient id column {d.id!r} (the [data] id).")
+    table[d.id] = table[d.id].astype(str).str.strip()
+    pool = list(cohort.feature_names)
+    missing = [c for c in pool if c not in table.columns]
+    if missing:
+        raise CohortError(f"{d.repeats}: the repeat table lacks {len(missing)} imaging feature column(s) of the "
+                          f"pool (e.g. {', '.join(missing[:5])}); it must hold the same features.")
+    values = table.set_index(d.id)[pool].apply(pd.to_numeric, errors="coerce")
+    bad = [c for c in pool if values[c].isna().sum() > table[c].astype(str).str.strip().isin(["", "nan"]).sum()]
+    if bad:
+        raise CohortError(f"{d.repeats}: column(s) {', '.join(bad[:5])} hold values that are not numbers.")
+    first = pd.DataFrame(cohort.features[pool].to_numpy(float), index=pd.Index(cohort.ids.astype(str)), columns=pool)
+    try:
+        icc_table = feature_icc(first, values, r.form)
+    except CohortError as exc:
+        raise CohortError(f"{d.repeats}: {exc}") from None
+    kept, removed = reproducible_features(icc_table, r.min_icc)
+    if not kept:
+        raise CohortError(f"{d.repeats}: no imaging feature reaches {r.form} >= {r.min_icc:g} (highest "
+                          f"{icc_table['icc'].max():.2f}); lower [imaging.reproducibility] min_icc or check the "
+                          "repeat measurements.")
+    return replace(cohort, features=cohort.features[kept]), icc_table, tuple(removed)
 
 
 def package_versions() -> dict:

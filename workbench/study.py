@@ -55,6 +55,8 @@ class DataSpec:
     features_sheet: str | None = None  # Excel: the sheet to read
     clinical_sheet: str | None = None
     take_from: tuple[tuple[str, str], ...] = ()  # column in both tables -> "clinical" or "features"
+    repeats: str | None = None  # second measurements of some patients' features (reproducibility)
+    repeats_sheet: str | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "take_from", ColumnMap(take_from=dict(self.take_from or ())).take_from)
@@ -115,6 +117,14 @@ class PenaltySpec:
 
 
 @dataclass(frozen=True)
+class ReproducibilitySpec:
+    """[imaging.reproducibility]: features whose ICC on the [data] repeats table is below min_icc are removed."""
+
+    form: str = "ICC(3,1)"  # "ICC(1,1)", "ICC(2,1)" (absolute agreement) or "ICC(3,1)" (consistency)
+    min_icc: float = 0.75
+
+
+@dataclass(frozen=True)
 class ImagingSpec:
     """Which feature columns form the imaging pool and how the signature is built."""
 
@@ -124,6 +134,7 @@ class ImagingSpec:
     harmonise: HarmoniseSpec = field(default_factory=HarmoniseSpec)
     reduce: ReduceSpec = field(default_factory=ReduceSpec)
     penalty: PenaltySpec = field(default_factory=PenaltySpec)
+    reproducibility: ReproducibilitySpec = field(default_factory=ReproducibilitySpec)
 
 
 @dataclass(frozen=True)
@@ -252,6 +263,12 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[imaging.reduce] correlation must lie in (0, 1]; got {im.reduce.correlation}.")
     if not 0 < im.reduce.screen_fdr < 1:
         raise SpecError(f"[imaging.reduce] screen_fdr must lie in (0, 1); got {im.reduce.screen_fdr}.")
+    _choice("[imaging.reproducibility] form", im.reproducibility.form, ("ICC(1,1)", "ICC(2,1)", "ICC(3,1)"))
+    if not 0 < im.reproducibility.min_icc < 1:
+        raise SpecError(f"[imaging.reproducibility] min_icc must lie in (0, 1); got {im.reproducibility.min_icc}.")
+    if d.repeats and d.features is None:
+        raise SpecError("[data] repeats holds repeat measurements of imaging features, but the study has no "
+                        "imaging table ([data] features).")
     pen = im.penalty
     _choice("[imaging.penalty] rule", pen.rule, ("1se", "min"))
     if not 0 < pen.l1_ratio <= 1:
@@ -394,7 +411,7 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             raise SpecError(f"{source}: [study] needs '{key}'.")
     if "data" not in doc:
         raise SpecError(f"{source}: the [data] section is missing.")
-    data = _take(doc["data"], DataSpec, f"{source} [data]", base=base, paths=("features", "clinical"))
+    data = _take(doc["data"], DataSpec, f"{source} [data]", base=base, paths=("features", "clinical", "repeats"))
     if data.time_unit not in TIME_UNITS:
         raise SpecError(f"{source} [data] time_unit {data.time_unit!r}; choose one of {', '.join(TIME_UNITS)}.")
     preds = doc.get("predictor", [])
@@ -409,6 +426,7 @@ def study_from_dict(doc: dict, *, base: Path | None = None, source: str = "study
             "harmonise": (HarmoniseSpec, f"{source} [imaging.harmonise]"),
             "reduce": (ReduceSpec, f"{source} [imaging.reduce]"),
             "penalty": (PenaltySpec, f"{source} [imaging.penalty]"),
+            "reproducibility": (ReproducibilitySpec, f"{source} [imaging.reproducibility]"),
         },
     )
     if not data.batch and "method" not in doc.get("imaging", {}).get("harmonise", {}):
@@ -482,6 +500,8 @@ def study_to_dict(spec: StudySpec, *, base: Path | None = None) -> dict:
     if spec.data.features is not None:
         data["features"] = _rel(spec.data.features, base)
     data["clinical"] = _rel(spec.data.clinical, base)
+    if spec.data.repeats is not None:
+        data["repeats"] = _rel(spec.data.repeats, base)
     if spec.data.take_from:
         data["take_from"] = dict(spec.data.take_from)
     else:

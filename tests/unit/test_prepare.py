@@ -70,3 +70,64 @@ def test_post_outcome_patterns_warn_and_clean_data_does_not(cohort):
     assert "'late_marker' is missing for" in text and "all of whom had the event" in text
     assert "'after' separates patients with and without the event almost perfectly" in text
     assert len(rec) == len(msgs)
+
+
+def _repeat_study(pair, repeats_path, **repro):
+    from workbench.study import study_from_dict
+
+    doc = {"study": {"name": "repeats", "horizons": [730.0]},
+           "data": {"features": str(pair.features), "clinical": str(pair.clinical), "time": "time_days",
+                    "event": "status", "time_unit": "days", "event_codes": ["recurrence"],
+                    "censor_codes": ["censored"], "repeats": str(repeats_path)},
+           "predictor": [{"column": "horTh", "kind": "categorical"}]}
+    if repro:
+        doc["imaging"] = {"reproducibility": repro}
+    return study_from_dict(doc)
+
+
+def test_reproducibility_filter_removes_features_that_do_not_repeat(gbsg2_tables, tmp_path):
+    # GBSG2 measurements (scikit-survival) of 40 patients measured "again": tumour size and
+    # receptor levels with a small error (reproducible), node count shuffled between patients
+    # (its repeat has nothing to do with the first value)
+    import pandas as pd
+
+    from workbench.prepare import prepare_cohort
+    from workbench.preprocess.reproducibility import feature_icc
+
+    rng = np.random.default_rng(5)
+    first = gbsg2_tables.feat_df.iloc[:40].copy()
+    rep = first.copy()
+    for c in ("age", "tsize", "progrec", "estrec"):
+        rep[c] = first[c] + rng.normal(0, 0.05 * first[c].std(), 40)
+    rep["pnodes"] = rng.permutation(first["pnodes"].to_numpy())
+    path = tmp_path / "repeats.csv"
+    rep.to_csv(path, index=False)
+    spec = _repeat_study(gbsg2_tables, path, form="ICC(2,1)", min_icc=0.8)
+    prep = prepare_cohort(spec)
+    assert prep.unreproducible == ("pnodes",) and "pnodes" not in prep.cohort.feature_names
+    assert prep.cohort.feature_names == ["age", "tsize", "progrec", "estrec"]
+    # the stored table is feature_icc of those 40 patients
+    expect = feature_icc(first.set_index("patient_id").astype(float), rep.set_index("patient_id").astype(float),
+                         "ICC(2,1)")
+    pd.testing.assert_frame_equal(prep.reproducibility, expect)
+    assert (prep.reproducibility["icc"].drop("pnodes") > 0.95).all()
+
+
+def test_reproducibility_input_errors(gbsg2_tables, tmp_path):
+    from workbench.errors import CohortError
+    from workbench.prepare import prepare_cohort
+
+    rep = gbsg2_tables.feat_df.iloc[:40].drop(columns=["tsize"])
+    path = tmp_path / "repeats.csv"
+    rep.to_csv(path, index=False)
+    with pytest.raises(CohortError, match=r"repeats.csv: the repeat table lacks 1 imaging feature column"):
+        prepare_cohort(_repeat_study(gbsg2_tables, path))
+    gbsg2_tables.feat_df.iloc[:4].to_csv(path, index=False)
+    with pytest.raises(CohortError, match="needs at least 10"):
+        prepare_cohort(_repeat_study(gbsg2_tables, path))
+    from workbench.study import check_spec
+
+    with pytest.raises(SpecError, match=r"\[imaging.reproducibility\] form"):
+        check_spec(_repeat_study(gbsg2_tables, path, form="kappa"))
+    with pytest.raises(SpecError, match="min_icc must lie in"):
+        check_spec(_repeat_study(gbsg2_tables, path, min_icc=1.5))

@@ -178,6 +178,12 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
         return [Claim("imaging.pool", "The study used clinical predictors only (no imaging table).")]
     fam = ", ".join(f"{k} {v}" for k, v in sorted(s["feature_families"].items()))
     out = [Claim("imaging.pool", f"The imaging pool held {c['n_imaging_pool']} features ({fam}).")]
+    rp = d.get("reproducibility")
+    if rp:
+        out.append(Claim("imaging.reproducibility", f"Before any modelling, {rp['n_removed']} of {rp['n_features']} "
+                         f"candidate features were removed because their {rp['form']} between the first and a "
+                         f"repeat measurement of {rp['n_patients']} patients was below {rp['min_icc']:g} (Shrout & "
+                         "Fleiss 1979; McGraw & Wong 1996); the outcome was not used."))
     harm = harmonised_models(result)
     imaging_models = [k for k, m in d["models"].items() if k != "clinical" and
                       (m["kind"] != "cox" or "signature" in m)]

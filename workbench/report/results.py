@@ -251,6 +251,7 @@ def results_dict(result) -> dict:
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
         }
+    out["reproducibility"] = _reproducibility_block(result)
     _heterogeneity_blocks(result, out)
     _difference_blocks(result, out)
     if getattr(result, "new_site", None):
@@ -305,6 +306,26 @@ def comparison_table(comparisons: dict) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def _reproducibility_block(result) -> dict | None:
+    """ICC of each pool feature on the repeat table and what the filter removed (None: no repeat table)."""
+    prep = result.prepared
+    table = getattr(prep, "reproducibility", None)
+    if table is None:
+        return None
+    from workbench.preprocess.reproducibility import family_counts
+
+    r = result.spec.imaging.reproducibility
+    fam = family_counts(table, r.min_icc)
+    return {
+        "form": r.form, "min_icc": r.min_icc, "n_patients": int(table["n"].max()),
+        "n_features": int(len(table)), "n_removed": len(prep.unreproducible),
+        "removed": list(prep.unreproducible),
+        "by_family": {f: {k: int(v) for k, v in row.items()} for f, row in fam.iterrows()},
+        "features": {f: {"icc": jsonable(row["icc"]), "ci_lower": jsonable(row["lower"]),
+                         "ci_upper": jsonable(row["upper"]), "n": int(row["n"])} for f, row in table.iterrows()},
+    }
+
+
 def write_results(result, out_dir) -> Path:
     """Write ``results.json``, CSV tables and ``run.log`` into ``out_dir``; returns the JSON path."""
     out = Path(out_dir)
@@ -313,6 +334,10 @@ def write_results(result, out_dir) -> Path:
     path = out / "results.json"
     path.write_text(json.dumps(data, indent=2, allow_nan=False))
     performance_table(result).to_csv(out / "performance.csv", index=False)
+    icc_table = getattr(result.prepared, "reproducibility", None)
+    if icc_table is not None:
+        icc_table.assign(kept=icc_table["icc"] >= result.spec.imaging.reproducibility.min_icc).rename(
+            columns={"lower": "ci_lower", "upper": "ci_upper"}).to_csv(out / "feature_icc.csv")
     vc = getattr(result, "volume_comparisons", None) or {}
     extra = {"combined vs volume": vc["internal"]} if "internal" in vc else {}
     comparison_table({**result.comparisons, **extra}).to_csv(out / "comparison.csv", index=False)

@@ -70,6 +70,19 @@ def _claims(result):
 # ------------------------------------------------------------------ one check per claim key
 
 
+def _imaging_reproducibility(r, d, c):
+    table = r.prepared.reproducibility
+    if table is None:
+        assert "imaging.reproducibility" not in c and d["reproducibility"] is None
+        return
+    t = c["imaging.reproducibility"]
+    kept = table["icc"] >= r.spec.imaging.reproducibility.min_icc
+    assert 0 < (~kept).sum() < len(table)  # the fixture removes some features, not all
+    assert f"{int((~kept).sum())} of {len(table)} candidate features were removed" in t
+    assert f"their ICC(3,1) between the first and a repeat measurement of {int(table['n'].max())} patients" in t
+    assert f"below {r.spec.imaging.reproducibility.min_icc:g}" in t
+
+
 def _cohort_patients(r, d, c):
     t = c["cohort.patients"]
     assert f"Of {r.prepared.n_read} patients read" in t and f"{r.cohort.n} entered the analysis" in t
@@ -306,7 +319,7 @@ CHECKS = {
     "validation.estimator": _validation_estimator, "validation.interval": _validation_interval,
     "metrics.discrimination": _metrics_discrimination, "metrics.censoring_weights": _metrics_censoring,
     "metrics.accuracy_calibration": _metrics_accuracy, "comparison": _comparison, "added_value": _added_value,
-    "external.applied": _external_applied, "external.censoring": _external_censoring,
+    "imaging.reproducibility": _imaging_reproducibility, "external.applied": _external_applied, "external.censoring": _external_censoring,
     "external.pooling": _external_pooling, "software": _software,
 }
 
@@ -317,9 +330,27 @@ ABSENT_CLAIMS = {"cohort.excluded", "imaging.empty"}
 
 
 @pytest.fixture(scope="module")
-def claimed(small_study_result, external_result):
+def repeats_result(small_study_result):
+    """The small study as if a repeat table had been given: the ICC table of preprocess/reproducibility.py
+    from a second measurement of 30 patients (first values plus noise that grows along the pool)."""
+    from workbench.preprocess.reproducibility import feature_icc, reproducible_features
+
+    r = small_study_result
+    c = r.prepared.cohort
+    first = c.features.set_axis(c.ids.astype(str), axis=0).iloc[:30]
+    rng = np.random.default_rng(2)
+    scale = np.linspace(0.05, 2.0, first.shape[1]) * first.std().to_numpy()
+    repeat = first + rng.normal(0, 1, first.shape) * scale
+    table = feature_icc(first, repeat, "ICC(3,1)")
+    _, removed = reproducible_features(table, r.spec.imaging.reproducibility.min_icc)
+    return replace(r, prepared=replace(r.prepared, reproducibility=table, unreproducible=tuple(removed)))
+
+
+@pytest.fixture(scope="module")
+def claimed(small_study_result, external_result, repeats_result):
     return {"internal": (small_study_result, *_claims(small_study_result)),
-            "external": (external_result, *_claims(external_result))}
+            "external": (external_result, *_claims(external_result)),
+            "repeats": (repeats_result, *_claims(repeats_result))}
 
 
 def test_every_claim_has_a_check(claimed):
@@ -393,3 +424,30 @@ def test_interval_claims_follow_the_interval_computed(small_study_result):
     t = next(x.text for x in validation_claims(small_study_result, d) if x.key == "validation.interval")
     assert "moved so that their centre maps to the corrected estimate" in t and "two-stage" not in t
     assert np.isfinite(small_study_result.validation.conf_level)
+
+
+def test_report_states_the_reproducibility_filter(repeats_result):
+    from workbench.report.html import render_report
+
+    d = results_dict(repeats_result)["reproducibility"]
+    page = render_report(repeats_result, figures=False)
+    assert (f"{d['n_removed']} of {d['n_features']} features with an ICC below {d['min_icc']} were removed "
+            "before any modelling") in page
+    for fam, counts in d["by_family"].items():
+        assert f"{fam} {counts['removed']} of {counts['features']}" in page
+
+
+def test_results_folder_keeps_every_icc(repeats_result, tmp_path):
+    import json
+
+    import pandas as pd
+
+    from workbench.report.results import write_results
+
+    write_results(repeats_result, tmp_path)
+    table = pd.read_csv(tmp_path / "feature_icc.csv", index_col=0)
+    stored = repeats_result.prepared.reproducibility
+    np.testing.assert_allclose(table["icc"], stored["icc"], atol=1e-12)
+    assert table.index[~table["kept"]].tolist() == list(repeats_result.prepared.unreproducible)
+    block = json.loads((tmp_path / "results.json").read_text())["reproducibility"]
+    assert block["removed"] == list(repeats_result.prepared.unreproducible) and block["form"] == "ICC(3,1)"
