@@ -45,7 +45,7 @@ def main() -> None:
                 truth = 1 / (1 + s_c**2 + shift**2 / 2 + s_e**2)
                 hit, width, err = 0, [], []
                 for _ in range(args.reps):
-                    r = icc(draw(rng, n, s_e, s_c, shift), form)
+                    r = icc(draw(rng, n, s_e, s_c, shift), form, with_two_measure_interval=True)
                     hit += r.lower <= truth <= r.upper
                     width.append(r.upper - r.lower)
                     err.append(r.value - truth)

@@ -23,6 +23,15 @@ MSR, MSC, MSE and MSW are the mean squares for targets (rows), measurements
 intervals come from the F distribution (exact for ICC(1,1) and ICC(3,1), and
 Satterthwaite's approximation for ICC(2,1); McGraw & Wong 1996, table 7).
 
+bench/bench_icc.py (2000 replicates per setting, 20 and 40 patients, k = 2)
+measured coverage of the 95% intervals of 0.945-0.955 for ICC(1,1) and
+ICC(3,1). The ICC(2,1) interval with only two measurements is not reliable:
+0.73-0.95 when the measurement effects are random, 0.96-1.00 when the second
+measurement carries a fixed shift (its one degree of freedom for the
+measurement variance cannot support it). With k = 2 the ICC(2,1) is therefore
+reported without an interval (NaN), and the filter uses point estimates for
+every form.
+
 Features whose ICC falls below a threshold are removed before any modelling.
 The ICC uses no outcome, so computing it on all patients with a repeat
 measurement does not leak the outcome into validation. A threshold of 0.75
@@ -80,11 +89,13 @@ def _mean_squares(y: np.ndarray) -> dict:
             "w": (ss_t - ss_r) / (n * (k - 1))}
 
 
-def icc(y, form: str = "ICC(3,1)", conf_level: float = 0.95) -> ICCResult:
+def icc(y, form: str = "ICC(3,1)", conf_level: float = 0.95, *,
+        with_two_measure_interval: bool = False) -> ICCResult:
     """Intraclass correlation of an n x k table (rows: targets, columns: measurements).
 
     Rows with a missing value are left out. Raises CohortError for an unknown form or
-    fewer than 2 complete rows or columns.
+    fewer than 2 complete rows or columns. ``with_two_measure_interval``: give the
+    ICC(2,1) interval even with k = 2 (for the benchmark; see the module notes).
     """
     if form not in ICC_FORMS:
         raise CohortError(f"unknown ICC form {form!r}; choose one of {', '.join(ICC_FORMS)}.")
@@ -117,6 +128,8 @@ def icc(y, form: str = "ICC(3,1)", conf_level: float = 0.95) -> ICCResult:
             fl, fu = f_dist.ppf(q, n - 1, v), f_dist.ppf(q, v, n - 1)
             lower = n * (ms["r"] - fl * ms["e"]) / (fl * (k * ms["c"] + (k * n - k - n) * ms["e"]) + n * ms["r"])
             upper = n * (fu * ms["r"] - ms["e"]) / (k * ms["c"] + (k * n - k - n) * ms["e"] + n * fu * ms["r"])
+            if k == 2 and not with_two_measure_interval:
+                lower = upper = np.nan  # measured unreliable with two measurements (module notes)
         p = float(f_dist.sf(f0, df1, df2)) if np.isfinite(f0) else np.nan
     return ICCResult(form, float(value), float(lower), float(upper), int(n), int(k), float(f0), float(df1),
                      float(df2), p)
