@@ -15,13 +15,21 @@ from pathlib import Path
 
 import pandas as pd
 
-from workbench.simulate import EXTERNAL_HOSPITALS, NETWORK_HOSPITALS, simulate_cohort
+from workbench.simulate import (
+    EXTERNAL_HOSPITALS,
+    NETWORK_HOSPITALS,
+    population_icc,
+    simulate_cohort,
+    simulate_repeats,
+)
 
 HERE = Path(__file__).resolve().parent
 TRAINING_SEED = 20240
 EXTERNAL_SEED = 20241
 N_TRAINING = 500
 N_EXTERNAL = 150
+REPEAT_SEED = 20242
+N_REPEATS = 40  # patients segmented a second time (reproducibility)
 FEATURE_FORMAT = "%.5g"  # five significant digits keep the files small
 
 
@@ -37,6 +45,11 @@ def build_files() -> dict[str, str]:
         raise RuntimeError("patient identifiers collide between the training and external cohorts.")
     if train.truth["model"] != ext.truth["model"]:
         raise RuntimeError("the training and external cohorts were drawn from different models.")
+    repeats, repeat_truth = simulate_repeats(train, N_REPEATS, random_state=REPEAT_SEED)
+    icc = population_icc(20000, random_state=REPEAT_SEED + 1).round(4)
+    repeat_truth = {**repeat_truth,
+                    "icc_population": {"form": "ICC(3,1)", "n_patients": 20000, "values": icc.to_dict()},
+                    "poorly_reproducible": sorted(icc.index[icc < 0.75])}
     truth = {
         "synthetic": True,
         "description": "Invented cohort for demonstration and testing; no real patients.",
@@ -48,12 +61,14 @@ def build_files() -> dict[str, str]:
             "external": {"files": ["external_clinical.csv", "external_imaging.csv"],
                          **ext.truth["cohort"]},
         },
+        "repeats": {"file": "repeats.csv", "seed": REPEAT_SEED, **repeat_truth},
     }
     return {
         "clinical.csv": _csv(train.clinical, "%.1f"),
         "imaging.csv": _csv(train.imaging, FEATURE_FORMAT),
         "external_clinical.csv": _csv(ext.clinical, "%.1f"),
         "external_imaging.csv": _csv(ext.imaging, FEATURE_FORMAT),
+        "repeats.csv": _csv(repeats, FEATURE_FORMAT),
         "truth.json": json.dumps(truth, indent=2) + "\n",
     }
 

@@ -21,7 +21,7 @@ from workbench.cohort.io import read_cohort
 from workbench.errors import WorkbenchError
 from workbench.metrics.calibration import calibration_at
 from workbench.plausibility import check_bundle_cohort
-from workbench.prepare import PreparedCohort, drop_incomplete, select_pool
+from workbench.prepare import PreparedCohort, drop_incomplete, select_pool, without_unreproducible
 from workbench.report.bundle import Bundle
 from workbench.stats.riskgroups import assign_groups, group_labels
 from workbench.validation.compare import compare_models
@@ -68,7 +68,11 @@ def read_new_cohort(bundle: Bundle, features, clinical, *, features_sheet: str |
         )
     cohort, excluded = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)
     cohort, incomplete, by_col = drop_incomplete(cohort, spec.predictors)
-    return PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded)
+    prepared = PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded)
+    if not spec.data.repeats:
+        return prepared
+    # features the training run removed for poor reproducibility ([data] repeats) are no model's input
+    return without_unreproducible(prepared, [f for f in cohort.feature_names if f not in set(expected)])
 
 
 def _risk_group(values: np.ndarray, cuts) -> np.ndarray:

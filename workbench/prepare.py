@@ -180,6 +180,16 @@ def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort
                           icc_table, removed)
 
 
+def without_unreproducible(prepared: PreparedCohort, removed) -> PreparedCohort:
+    """A new cohort's prepared tables without the features the training run removed for poor reproducibility."""
+    gone = set(removed)
+    if not gone:
+        return prepared
+    c = prepared.cohort
+    keep = [f for f in c.feature_names if f not in gone]
+    return replace(prepared, cohort=replace(c, features=c.features[keep]), pool=tuple(keep))
+
+
 def filter_reproducible(cohort: Cohort, spec: StudySpec) -> tuple[Cohort, pd.DataFrame, tuple[str, ...]]:
     """Remove pool features whose ICC on the repeat table is below the study's threshold.
 

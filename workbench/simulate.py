@@ -423,12 +423,16 @@ class SimulatedCohort:
         JSON-serialisable description of the generating model (see ``README``).
     linear_predictors : DataFrame
         ``patient_id, lp_clinical, lp_imaging``: the true log relative hazards.
+    latent : ndarray of shape (n, p) or None
+        The standardised latent feature values before the scanner shift, in the rows of
+        ``imaging`` (for :func:`simulate_repeats`).
     """
 
     clinical: pd.DataFrame
     imaging: pd.DataFrame
     truth: dict
     linear_predictors: pd.DataFrame
+    latent: np.ndarray | None = None
 
     def outcome(self) -> np.ndarray:
         """The overall-survival outcome as the package's structured array."""
@@ -610,6 +614,7 @@ def simulate_cohort(
     lps = pd.DataFrame({"patient_id": ids, "lp_clinical": lp_clin, "lp_imaging": lp_img})
     ordering = np.argsort(ids.astype(str), kind="stable")
     clinical, imaging, lps = (d.iloc[ordering].reset_index(drop=True) for d in (clinical, imaging, lps))
+    latent = latent[ordering]
 
     time_o, dead_o = clinical["os_months"].to_numpy(float), clinical["status"].to_numpy() == "dead"
     lp_c, lp_i = lps["lp_clinical"].to_numpy(), lps["lp_imaging"].to_numpy()
@@ -672,4 +677,61 @@ def simulate_cohort(
             },
         },
     }
-    return SimulatedCohort(clinical=clinical, imaging=imaging, truth=truth, linear_predictors=lps)
+    return SimulatedCohort(clinical=clinical, imaging=imaging, truth=truth, linear_predictors=lps, latent=latent)
+
+
+# Measurement error of a repeat measurement (second segmentation) on the latent scale: SD by
+# family, times a factor by discretisation setting (finer grey-level bins reproduce worse).
+REPEAT_ERROR_SD = MappingProxyType({"morph": 0.15, "stat": 0.2, "ih": 0.3, "cm": 0.3, "rlm": 0.35, "szm": 0.4,
+                                    "ngt": 0.4})
+REPEAT_SETTING_FACTOR = MappingProxyType({"fbn32": 1.0, "fbs25": 3.0, "fbn64": 4.0})
+
+
+def repeat_error_sd(name: str) -> float:
+    """SD of the repeat-measurement error of a feature on its standardised latent scale."""
+    family, _, rest = name.partition("_")
+    setting = rest.rsplit("_", 1)[-1] if "_" in rest else ""
+    return REPEAT_ERROR_SD[family] * REPEAT_SETTING_FACTOR.get(setting, 1.0)
+
+
+def simulate_repeats(sim: SimulatedCohort, n_patients: int = 40, *, random_state=None) -> tuple[pd.DataFrame, dict]:
+    """A second measurement (repeat segmentation, same scan) of ``n_patients`` patients, and its truth.
+
+    Each feature's latent value gets an independent error of SD :func:`repeat_error_sd`
+    (so the latent ICC is 1 / (1 + SD^2)); the scanner shift and the value mapping are those
+    of the first measurement. Returns the table (``patient_id`` and the feature columns) and
+    a truth dict with the latent ICC of every feature and those below 0.75.
+    """
+    if sim.latent is None:
+        raise SpecError("this simulated cohort keeps no latent values; simulate it again.")
+    model = sim.truth["model"]
+    design = _build_design(int(model["n_features"]), int(model["design_seed"]))
+    rng = np.random.default_rng(random_state)
+    rows = np.sort(rng.choice(len(sim.imaging), size=int(n_patients), replace=False))
+    sd = np.array([repeat_error_sd(nm) for nm in design.names])
+    z = sim.latent[rows] + rng.normal(size=(rows.size, design.n_features)) * sd
+    scanner = sim.imaging["scanner"].to_numpy()[rows]
+    table = pd.concat([pd.DataFrame({"patient_id": sim.imaging["patient_id"].to_numpy()[rows]}),
+                       design.observe(z, scanner)], axis=1)
+    truth = {
+        "n_patients": int(rows.size),
+        "error_rule": "z_repeat = z + N(0, sd^2) on the latent scale before the scanner shift, sd = family SD x "
+                      "setting factor; the scanner shift and value mapping of the first measurement",
+        "family_sd": dict(REPEAT_ERROR_SD), "setting_factor": dict(REPEAT_SETTING_FACTOR),
+    }
+    return table, truth
+
+
+def population_icc(n_patients: int = 20000, *, random_state=None, hospitals=NETWORK_HOSPITALS,
+                   form: str = "ICC(3,1)") -> pd.Series:
+    """Each feature's ICC between a first and a repeat measurement in a very large cohort of this design.
+
+    The truth the demo's reproducibility filter is judged against: scanner shifts and the
+    feature value mappings make the observed ICC differ from the latent 1 / (1 + sd^2).
+    """
+    from workbench.preprocess.reproducibility import feature_icc
+
+    big = simulate_cohort(n_patients, random_state=random_state, hospitals=hospitals)
+    rep, _ = simulate_repeats(big, n_patients, random_state=None if random_state is None else random_state + 1)
+    first = big.imaging.drop(columns=["scanner"]).set_index("patient_id")
+    return feature_icc(first, rep.set_index("patient_id"), form)["icc"]
