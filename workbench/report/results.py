@@ -421,6 +421,14 @@ def format_results(result) -> str:
         f"Study: {result.spec.name}",
         f"{result.prepared.cohort.n} patients, {result.prepared.cohort.n_events} events; "
         f"validation {method}" + ("" if app else f", {_replicate_text(v.n_replicates)}"),
+    ]
+    icc_table = getattr(result.prepared, "reproducibility", None)
+    if icc_table is not None:
+        r = result.spec.imaging.reproducibility
+        lines.append(f"Reproducibility: {len(result.prepared.unreproducible)} of {len(icc_table)} imaging features "
+                     f"removed ({r.form} below {r.min_icc:g} on {int(icc_table['n'].max())} repeat measurements; "
+                     "feature_icc.csv).")
+    lines += [
         "",
         f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",
     ]

@@ -451,3 +451,13 @@ def test_results_folder_keeps_every_icc(repeats_result, tmp_path):
     assert table.index[~table["kept"]].tolist() == list(repeats_result.prepared.unreproducible)
     block = json.loads((tmp_path / "results.json").read_text())["reproducibility"]
     assert block["removed"] == list(repeats_result.prepared.unreproducible) and block["form"] == "ICC(3,1)"
+
+
+def test_console_digest_names_the_reproducibility_filter(repeats_result, small_study_result):
+    from workbench.report.results import format_results
+
+    r = repeats_result.prepared
+    line = next(s for s in format_results(repeats_result).splitlines() if s.startswith("Reproducibility:"))
+    assert line.startswith(f"Reproducibility: {len(r.unreproducible)} of {len(r.reproducibility)} imaging features "
+                           "removed (ICC(3,1) below 0.75 on 30 repeat measurements")
+    assert "Reproducibility:" not in format_results(small_study_result)
