@@ -121,14 +121,11 @@ def summarise(name: str, cov: np.ndarray, nominal: float = 0.95) -> str:
 
 def _percentile_band(d: np.ndarray, est: np.ndarray, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
     """The rule the engine used before (--external-rule percentile): pointwise percentiles of the
-    resampled differences, whatever the estimate."""
-    a = (1.0 - conf_level) / 2.0
-    lo, hi = np.full(d.shape[1], np.nan), np.full(d.shape[1], np.nan)
-    for j in range(d.shape[1]):
-        col = d[:, j][np.isfinite(d[:, j])]
-        if col.size >= 2:
-            lo[j], hi[j] = np.quantile(col, [a, 1.0 - a])
-    return lo, hi
+    resampled differences, whatever the estimate (difference_bands._pct, which the internal
+    shifted-percentile band still uses)."""
+    from workbench.validation.difference_bands import _pct
+
+    return _pct(d, conf_level)
 
 
 def main(argv=None) -> None:
