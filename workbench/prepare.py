@@ -171,13 +171,27 @@ def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort
     n_read = cohort.n
     cohort, excluded = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)
     icc_table, removed = None, ()
-    if not external and d.repeats:
+    if d.repeats and not external:
         cohort, icc_table, removed = filter_reproducible(cohort, spec)
     if not external:
         check_post_outcome(cohort, spec.predictors)
     cohort, incomplete, by_col = drop_incomplete(cohort, spec.predictors)
-    return PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded,
-                          icc_table, removed)
+    prepared = PreparedCohort(cohort, n_read, incomplete, by_col, tuple(cohort.feature_names), excluded,
+                              icc_table, removed)
+    if d.repeats and external:
+        # the models never saw the features the training run removed for poor reproducibility
+        prepared = without_unreproducible(prepared, _training_unreproducible(spec))
+    return prepared
+
+
+def _training_unreproducible(spec: StudySpec) -> tuple[str, ...]:
+    """The features the study's reproducibility filter removes from the training pool."""
+    d = spec.data
+    cohort = read_cohort(d.features, d.clinical, d.column_map(), on_unmatched=d.on_unmatched,
+                         drop_unusable_features=d.drop_unusable_features, features_sheet=d.features_sheet,
+                         clinical_sheet=d.clinical_sheet)
+    cohort, _ = select_pool(cohort, spec.imaging.include, spec.imaging.exclude)
+    return filter_reproducible(cohort, spec)[2]
 
 
 def without_unreproducible(prepared: PreparedCohort, removed) -> PreparedCohort:

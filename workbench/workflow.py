@@ -24,13 +24,7 @@ from workbench.models.labels import model_labels, warn_empty_signatures
 from workbench.models.registry import build_models, candidate_parameters
 from workbench.models.signature import check_volume_dominance, volume_correlation
 from workbench.models.volume import VOLUME_MODEL
-from workbench.prepare import (
-    PreparedCohort,
-    package_versions,
-    prepare_cohort,
-    spec_digest,
-    without_unreproducible,
-)
+from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.added_value import run_added_value
@@ -282,7 +276,7 @@ def run_study(
 
         external = ext_prepared = None
         if spec.external is not None:
-            ext_prepared = without_unreproducible(prepare_cohort(spec, external=True), prepared.unreproducible)
+            ext_prepared = prepare_cohort(spec, external=True)
             external = validate_external(
                 fitted,
                 ext_prepared.cohort,

@@ -33,3 +33,5 @@ def test_demo_filter_removes_the_poorly_reproducible_features_and_keeps_the_sign
     assert set(population.index[population > 0.9]) - near_constant <= kept
     assert set(PROGNOSTIC_FEATURES) <= kept
     assert len(truth["poorly_reproducible"]) > 40 and prep.reproducibility["n"].eq(40).all()
+    # the external cohort is prepared with the same pool: the models never saw the removed features
+    assert prepare_cohort(spec, external=True).cohort.feature_names == prep.cohort.feature_names

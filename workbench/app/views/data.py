@@ -158,6 +158,9 @@ def _map_columns(features: str | None, clinical: str) -> DataSpec | None:
             time_unit=unit, event_codes=tuple(ev) or None, censor_codes=tuple(cz) or None,
             centre=centre, batch=batch, on_unmatched="intersect" if keep_both else "error",
             drop_unusable_features=drop,
+            # a library study's repeat-measurement table stays with its imaging table
+            **({"repeats": prev.repeats, "repeats_sheet": prev.repeats_sheet}
+               if prev is not None and prev.features == features else {}),
         )
         data.column_map()
     except WorkbenchError as exc:
