@@ -21,7 +21,8 @@ from scipy.stats import rankdata
 
 from workbench.cohort.core import Cohort
 from workbench.cohort.io import read_cohort
-from workbench.errors import CohortError, PostOutcomeWarning, SpecError
+from workbench.cohort.schema import parse_features
+from workbench.errors import CohortError, DataQualityWarning, PostOutcomeWarning, SpecError
 from workbench.study import StudySpec
 
 PROVENANCE_PACKAGES = (
@@ -154,8 +155,13 @@ def check_post_outcome(cohort: Cohort, predictors=(), *, min_missing: int = 5) -
     return tuple(msgs)
 
 
-def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort:
-    """Read the study's (training or external) cohort and make it ready for modelling."""
+def prepare_cohort(spec: StudySpec, *, external: bool = False, unreproducible=None) -> PreparedCohort:
+    """Read the study's (training or external) cohort and make it ready for modelling.
+
+    ``unreproducible`` (external only): the features the training run's reproducibility
+    filter removed, when the caller has them; otherwise they are recomputed from the
+    training tables.
+    """
     d = spec.data
     if external:
         if spec.external is None:
@@ -180,7 +186,8 @@ def prepare_cohort(spec: StudySpec, *, external: bool = False) -> PreparedCohort
                               icc_table, removed)
     if d.repeats and external:
         # the models never saw the features the training run removed for poor reproducibility
-        prepared = without_unreproducible(prepared, _training_unreproducible(spec))
+        removed = _training_unreproducible(spec) if unreproducible is None else unreproducible
+        prepared = without_unreproducible(prepared, removed)
     return prepared
 
 
@@ -224,10 +231,13 @@ def filter_reproducible(cohort: Cohort, spec: StudySpec) -> tuple[Cohort, pd.Dat
     if missing:
         raise CohortError(f"{d.repeats}: the repeat table lacks {len(missing)} imaging feature column(s) of the "
                           f"pool (e.g. {', '.join(missing[:5])}); it must hold the same features.")
-    values = table.set_index(d.id)[pool].apply(pd.to_numeric, errors="coerce")
-    bad = [c for c in pool if values[c].isna().sum() > table[c].astype(str).str.strip().isin(["", "nan"]).sum()]
-    if bad:
-        raise CohortError(f"{d.repeats}: column(s) {', '.join(bad[:5])} hold values that are not numbers.")
+    # the imaging table's own parsing rules and messages (numbers, decimal commas, magnitudes); a column
+    # constant or empty among the repeats is numeric too and is put back (its ICC is undefined: removed)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        parsed = parse_features(table[pool], d.repeats, table.index.to_numpy(), drop_unusable=True)
+    values = pd.DataFrame({c: parsed[c] if c in parsed else pd.to_numeric(table[c], errors="coerce") for c in pool})
+    values = values.set_axis(pd.Index(table[d.id]), axis=0)
     first = pd.DataFrame(cohort.features[pool].to_numpy(float), index=pd.Index(cohort.ids.astype(str)), columns=pool)
     try:
         icc_table = feature_icc(first, values, r.form)

@@ -24,6 +24,7 @@ from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import ColumnMap
 from workbench.errors import SpecError, WorkbenchError
 from workbench.preprocess.clinical import PredictorSpec
+from workbench.preprocess.reproducibility import DEFAULT_MIN_ICC, ICC_FORMS
 from workbench.study_types import check_value, field_types
 
 MODEL_NAMES = ("clinical", "combined", "penalised_all", "forest")
@@ -121,7 +122,7 @@ class ReproducibilitySpec:
     """[imaging.reproducibility]: features whose ICC on the [data] repeats table is below min_icc are removed."""
 
     form: str = "ICC(3,1)"  # "ICC(1,1)", "ICC(2,1)" (absolute agreement) or "ICC(3,1)" (consistency)
-    min_icc: float = 0.75
+    min_icc: float = DEFAULT_MIN_ICC
 
 
 @dataclass(frozen=True)
@@ -263,7 +264,7 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[imaging.reduce] correlation must lie in (0, 1]; got {im.reduce.correlation}.")
     if not 0 < im.reduce.screen_fdr < 1:
         raise SpecError(f"[imaging.reduce] screen_fdr must lie in (0, 1); got {im.reduce.screen_fdr}.")
-    _choice("[imaging.reproducibility] form", im.reproducibility.form, ("ICC(1,1)", "ICC(2,1)", "ICC(3,1)"))
+    _choice("[imaging.reproducibility] form", im.reproducibility.form, ICC_FORMS)
     if not 0 < im.reproducibility.min_icc < 1:
         raise SpecError(f"[imaging.reproducibility] min_icc must lie in (0, 1); got {im.reproducibility.min_icc}.")
     if d.repeats and d.features is None:

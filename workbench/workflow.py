@@ -276,7 +276,7 @@ def run_study(
 
         external = ext_prepared = None
         if spec.external is not None:
-            ext_prepared = prepare_cohort(spec, external=True)
+            ext_prepared = prepare_cohort(spec, external=True, unreproducible=prepared.unreproducible)
             external = validate_external(
                 fitted,
                 ext_prepared.cohort,

@@ -122,6 +122,12 @@ def test_reproducibility_input_errors(gbsg2_tables, tmp_path):
     rep.to_csv(path, index=False)
     with pytest.raises(CohortError, match=r"repeats.csv: the repeat table lacks 1 imaging feature column"):
         prepare_cohort(_repeat_study(gbsg2_tables, path))
+    text = gbsg2_tables.feat_df.iloc[:40].astype({"tsize": object})
+    text.loc[5, "tsize"] = "big"
+    text.to_csv(path, index=False)
+    with pytest.raises(CohortError, match=r"repeats.csv: imaging feature columns must be numeric; text found in 1 "
+                                          r"column\(s\): 'tsize'"):
+        prepare_cohort(_repeat_study(gbsg2_tables, path))
     gbsg2_tables.feat_df.iloc[:4].to_csv(path, index=False)
     with pytest.raises(CohortError, match="needs at least 10"):
         prepare_cohort(_repeat_study(gbsg2_tables, path))
