@@ -50,7 +50,7 @@ def cli_results(tmp_path_factory):
     out = tmp / "out"
     subprocess.run(
         [sys.executable, "-m", "workbench.cli", "run", str(study), "--replicates", str(REPLICATES),
-         "--workers", "1", "--out", str(out), "--quiet"],
+         "--workers", "1", "--out", str(out), "--quiet", "--no-figures", "--no-report"],
         check=True, cwd=REPO, capture_output=True, timeout=600,
     )
     return json.loads((out / "results.json").read_text())
