@@ -42,6 +42,7 @@ class ExternalResult:
     comparisons: dict
     recalibration: pd.DataFrame
     warnings: tuple
+    new_batches: dict | None = None  # how scanners unseen in training were harmonised
 
 
 def read_new_cohort(bundle: Bundle, features, clinical, *, features_sheet: str | None = None,
@@ -147,7 +148,10 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None =
         if key not in seen:
             seen.add(key)
             msgs.append(key)
-    return ExternalResult(prepared, predictions, validation, comparisons, pd.DataFrame(rows), tuple(msgs))
+    from workbench.report.results import new_batches_block
+
+    return ExternalResult(prepared, predictions, validation, comparisons, pd.DataFrame(rows), tuple(msgs),
+                          new_batches_block(spec, bundle.models, cohort))
 
 
 def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str, path, *,
@@ -201,6 +205,7 @@ def write_external(result: ExternalResult, out_dir) -> Path:
         "recalibration": jsonable(result.recalibration),
         "censoring": censoring_dict(result.validation.censoring),
         "by_group": groups_dict(result.validation.groups),
+        "new_batches": result.new_batches,
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
     }
     path = out / "external_results.json"

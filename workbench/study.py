@@ -24,6 +24,11 @@ from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import ColumnMap
 from workbench.errors import SpecError, WorkbenchError
 from workbench.preprocess.clinical import PredictorSpec
+from workbench.preprocess.harmonize import (
+    COMBAT_PRIORS,
+    DEFAULT_MIN_NEW_BATCH,
+    UNSEEN_BATCH_POLICIES,
+)
 from workbench.preprocess.reproducibility import DEFAULT_MIN_ICC, ICC_FORMS
 from workbench.study_types import check_value, field_types
 
@@ -92,8 +97,9 @@ class HarmoniseSpec:
 
     method: str = "combat"  # "combat" or "none"
     protect: tuple[str, ...] = ()  # clinical predictors whose effects must be preserved
-    unseen_batch: str = "error"  # "error" or "reference"
-    empirical_bayes: str = "parametric"  # "parametric" or "nonparametric"
+    unseen_batch: str = "error"  # "error", "reference" or "estimate"
+    empirical_bayes: str = "parametric"  # "parametric", "nonparametric" or "none"
+    min_new_batch: int = DEFAULT_MIN_NEW_BATCH  # patients of an unseen scanner needed by "estimate"
 
 
 @dataclass(frozen=True)
@@ -251,8 +257,12 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[study] horizons must be positive and increasing; got {list(spec.horizons)}.")
     im = spec.imaging
     _choice("[imaging.harmonise] method", im.harmonise.method, ("combat", "none"))
-    _choice("[imaging.harmonise] unseen_batch", im.harmonise.unseen_batch, ("error", "reference"))
-    _choice("[imaging.harmonise] empirical_bayes", im.harmonise.empirical_bayes, ("parametric", "nonparametric"))
+    _choice("[imaging.harmonise] unseen_batch", im.harmonise.unseen_batch, UNSEEN_BATCH_POLICIES)
+    _choice("[imaging.harmonise] empirical_bayes", im.harmonise.empirical_bayes, COMBAT_PRIORS)
+    if int(im.harmonise.min_new_batch) < 3:
+        raise SpecError(f"[imaging.harmonise] min_new_batch = {im.harmonise.min_new_batch}: a scanner's scale "
+                        "needs at least 3 of its patients (the default is "
+                        f"{DEFAULT_MIN_NEW_BATCH}).")
     missing = sorted(set(im.harmonise.protect) - set(cols))
     if missing:
         raise SpecError(

@@ -120,6 +120,9 @@ class StudyResult:
     difference_bands : dict
         Per compared model, AUC and net-benefit differences against the baseline with
         paired bands, internal and external (:mod:`workbench.validation.difference_bands`).
+    harmonisation : dict or None
+        Before/after checks of the ComBat step and the scanner-confounding check
+        (:func:`workbench.preprocess.harmonisation_checks.study_checks`); None without ComBat.
     """
 
     spec: StudySpec
@@ -141,10 +144,29 @@ class StudyResult:
     collinearity: dict = field(default_factory=dict)
     volume_comparisons: dict = field(default_factory=dict)
     difference_bands: dict = field(default_factory=dict)
+    harmonisation: dict | None = None
 
     @property
     def cohort(self):
         return self.prepared.cohort
+
+
+def _harmonisation_checks(fitted: dict, cohort, spec, ext_prepared) -> dict | None:
+    """ComBat checks of the combined model (else the first harmonising model); warns on confounding."""
+    from workbench.preprocess.harmonisation_checks import study_checks
+
+    for name in ("combined", *fitted):
+        m = fitted.get(name)
+        if m is None:
+            continue
+        out = study_checks(m, cohort, spec, external_cohort=ext_prepared.cohort if ext_prepared else None,
+                           random_state=int(spec.seed) % (2**31))
+        if out is not None:
+            for c in out["confounding"]:
+                if c["flagged"]:
+                    warnings.warn("Harmonisation: " + c["message"], DataQualityWarning, stacklevel=2)
+            return {"model": name, **out}
+    return None
 
 
 def check_uno_tau(tau, cohort, horizons) -> None:
@@ -284,6 +306,7 @@ def run_study(
                 **external_settings(spec),
                 progress=_progress(progress, cancel, "external validation"),
             )
+        harmonisation = _harmonisation_checks(fitted, cohort, spec, ext_prepared)
         if v.method == "by_centre":
             validation = replace(validation, groups={"centre": loco_groups(
                 unfitted, cohort, spec.horizons, replicates=min(v.replicates, GROUP_REPLICATES),
@@ -352,5 +375,6 @@ def run_study(
         collinearity=collinearity,
         volume_comparisons=volume_comparisons,
         difference_bands=bands,
+        harmonisation=harmonisation,
     )
 

@@ -300,6 +300,12 @@ class CombinedCox(_CoxBase):
         # Missing imaging values get the training medians learned in fit, never evaluation-row values.
         return fill_missing(cohort.features, self.feature_medians_)
 
+    def harmonisation_inputs(self, cohort: Cohort):
+        """(features as the signature's ComBat receives them, protected covariate design, that ComBat or None)."""
+        check_fitted(self, "signature_")
+        X = self._features(cohort)[list(self.signature_.feature_names_in_)]
+        return X, self._protected(cohort), getattr(self.signature_, "combat_", None)
+
     def signature_score(self, cohort: Cohort) -> np.ndarray:
         check_fitted(self, "signature_")
         return self.signature_.score(self._features(cohort), batch=cohort.batch, covariates=self._protected(cohort))

@@ -64,7 +64,8 @@ class ImagingSignature(BaseEstimator):
     harmonize : bool, default True
         Apply ComBat when ``batch`` is given to :meth:`fit`.
     combat_prior : {"parametric", "nonparametric", "none"}
-    unseen_batch : {"error", "reference"}
+    unseen_batch : {"error", "reference", "estimate"}
+    min_new_batch : int
         See :class:`~workbench.preprocess.harmonize.ComBat`.
     nzv_freq_ratio, nzv_unique_percent : float
         See :class:`~workbench.preprocess.reduce.NearZeroVarianceFilter`.
@@ -99,13 +100,14 @@ class ImagingSignature(BaseEstimator):
     .. [3] Verweij PJM, van Houwelingen HC. Stat Med 1993;12(24):2305-14.
     """
 
-    def __init__(self, *, harmonize=True, combat_prior="parametric", unseen_batch="error",
+    def __init__(self, *, harmonize=True, combat_prior="parametric", unseen_batch="error", min_new_batch=20,
                  nzv_freq_ratio=95 / 5, nzv_unique_percent=10.0, redundancy_threshold=0.90,
                  screen_fdr=None, l1_ratio=0.9, n_alphas=100, alpha_min_ratio=0.01,
                  path_stop_ratio=0.05, n_folds=5, rule="min", cv_score="basic", random_state=None):
         self.harmonize = harmonize
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
+        self.min_new_batch = min_new_batch
         self.nzv_freq_ratio = nzv_freq_ratio
         self.nzv_unique_percent = nzv_unique_percent
         self.redundancy_threshold = redundancy_threshold
@@ -142,7 +144,8 @@ class ImagingSignature(BaseEstimator):
         records = []
         self.combat_ = None
         if batch is not None and self.harmonize:
-            self.combat_ = ComBat(prior=self.combat_prior, unseen_batch=self.unseen_batch)
+            self.combat_ = ComBat(prior=self.combat_prior, unseen_batch=self.unseen_batch,
+                                 min_new_batch=self.min_new_batch)
             X = self.combat_.fit_transform(X, batch, covariates)
             names = tuple(X.columns)
             records.append(StepRecord("ComBat harmonisation", len(names), len(names), names, ()))

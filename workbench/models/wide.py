@@ -35,7 +35,8 @@ class _WideInputs:
         self.feature_medians_ = cohort.features.median().to_dict()
         self.combat_ = None
         if self.harmonise and cohort.batch is not None:
-            self.combat_ = ComBat(prior=self.combat_prior, unseen_batch=self.unseen_batch).fit(
+            self.combat_ = ComBat(prior=self.combat_prior, unseen_batch=self.unseen_batch,
+                                 min_new_batch=self.min_new_batch).fit(
                 self._filled(cohort), cohort.batch, self._protected(cohort)
             )
 
@@ -49,6 +50,10 @@ class _WideInputs:
         design = self.transformer_.transform(cohort)
         cols = [j for t in self.transformer_.terms_ if t.column in self.protect for j in range(t.start, t.stop)]
         return design.X[:, cols]
+
+    def harmonisation_inputs(self, cohort: Cohort):
+        """(features as ComBat receives them, protected covariate design, the fitted ComBat or None)."""
+        return self._filled(cohort), self._protected(cohort), getattr(self, "combat_", None)
 
     def _inputs(self, cohort: Cohort) -> pd.DataFrame:
         design = self.transformer_.transform(cohort)
@@ -71,7 +76,7 @@ class PenalisedAllCox(_WideInputs):
         ComBat by batch when the cohort has a batch column.
     protect : tuple of str
         Clinical predictors preserved by the harmonisation.
-    combat_prior, unseen_batch : str
+    combat_prior, unseen_batch, min_new_batch : str, str, int
         See :class:`~workbench.preprocess.harmonize.ComBat`.
     l1_ratio, n_alphas, path_stop_ratio, n_folds, rule : penalty settings
         (the path first stops at ``path_stop_ratio`` x alpha_max and is extended
@@ -96,6 +101,7 @@ class PenalisedAllCox(_WideInputs):
         protect: tuple[str, ...] = (),
         combat_prior: str = "parametric",
         unseen_batch: str = "error",
+        min_new_batch: int = 20,
         l1_ratio: float = 1.0,
         n_alphas: int = 50,
         path_stop_ratio: float = 0.05,
@@ -109,6 +115,7 @@ class PenalisedAllCox(_WideInputs):
         self.protect = protect
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
+        self.min_new_batch = min_new_batch
         self.l1_ratio = l1_ratio
         self.n_alphas = n_alphas
         self.path_stop_ratio = path_stop_ratio
@@ -171,7 +178,7 @@ class ForestModel(_WideInputs):
     Parameters
     ----------
     predictors : tuple of PredictorSpec
-    harmonise, protect, combat_prior, unseen_batch : as in :class:`PenalisedAllCox`
+    harmonise, protect, combat_prior, unseen_batch, min_new_batch : as in :class:`PenalisedAllCox`
     n_estimators, min_samples_leaf, max_features, time_grid : forest settings
     extra_times : tuple of float
         Times added to the forest's time grid (the study horizons).
@@ -186,6 +193,7 @@ class ForestModel(_WideInputs):
         protect: tuple[str, ...] = (),
         combat_prior: str = "parametric",
         unseen_batch: str = "error",
+        min_new_batch: int = 20,
         n_estimators: int = 200,
         min_samples_leaf: int = 15,
         max_features="sqrt",
@@ -199,6 +207,7 @@ class ForestModel(_WideInputs):
         self.protect = protect
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
+        self.min_new_batch = min_new_batch
         self.n_estimators = n_estimators
         self.min_samples_leaf = min_samples_leaf
         self.max_features = max_features

@@ -20,6 +20,7 @@ References
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -27,8 +28,9 @@ from sklearn.base import BaseEstimator
 
 from workbench.errors import CohortError, DataQualityWarning, ModelError, NotFittedError
 
-_PRIORS = ("parametric", "nonparametric", "none")
-_UNSEEN = ("error", "reference")
+COMBAT_PRIORS = ("parametric", "nonparametric", "none")
+UNSEEN_BATCH_POLICIES = ("error", "reference", "estimate")
+DEFAULT_MIN_NEW_BATCH = 20  # patients of an unseen scanner needed to estimate its effects (our choice; see ComBat)
 
 
 def _labels(batch, n: int, where: str) -> np.ndarray:
@@ -123,6 +125,52 @@ def _nonparametric(Zb, g_hat, d_hat):
     return w @ g_d, w @ d_d
 
 
+def _batch_effects(Zb, use, prior: str, tol: float, max_iter: int):
+    """Location/scale of one batch's standardised rows and their empirical Bayes estimates.
+
+    Shared by :meth:`ComBat.fit` (training batches) and :meth:`ComBat.new_batches` (a
+    batch seen only later): the priors' hyper-parameters come from the batch's own
+    features, as in [1]_, so a new batch needs nothing but its own rows.
+    """
+    p = use.size
+    g_hat, d_hat = np.zeros(p), np.ones(p)
+    g_star, d_star = np.zeros(p), np.ones(p)
+    n_iter = 0
+    Zu = Zb[:, use]
+    g_hat[use] = Zu.mean(axis=0)
+    d_hat[use] = Zu.var(axis=0, ddof=1)
+    gh, dh = g_hat[use], d_hat[use]
+    if prior == "parametric" and use.sum() > 0:
+        g_star[use], d_star[use], n_iter = _parametric(Zu, gh, dh, tol, max_iter)
+    elif prior == "nonparametric" and use.sum() > 0:
+        g_star[use], d_star[use] = _nonparametric(Zu, gh, dh)
+    else:
+        g_star[use], d_star[use] = gh, dh
+    # a feature constant within one batch has delta_hat 0; never divide by it
+    d_star = np.where(d_star > 0, d_star, 1.0)
+    return g_hat, d_hat, g_star, d_star, n_iter
+
+
+@dataclass(frozen=True)
+class NewBatch:
+    """Effects of a batch absent from training, estimated from its own rows (no outcomes).
+
+    ``gamma_star``/``delta_star`` are on the scale of the training standardisation
+    (grand mean, protected-covariate effects and pooled variance held fixed);
+    ``shift_sd`` and ``scale_ratio`` summarise them over the adjusted features: the
+    mean absolute location shift in pooled SDs and the median SD ratio to the pool.
+    """
+
+    label: str
+    n: int
+    gamma_hat: np.ndarray
+    delta_hat: np.ndarray
+    gamma_star: np.ndarray
+    delta_star: np.ndarray
+    shift_sd: float
+    scale_ratio: float
+
+
 class ComBat(BaseEstimator):
     """Empirical Bayes location/scale harmonisation across batches (ComBat).
 
@@ -134,12 +182,23 @@ class ComBat(BaseEstimator):
         (method of moments) [1]_. ``"nonparametric"``: the empirical distribution
         of the other features' batch effects [1]_. ``"none"``: per-batch
         location/scale without shrinkage.
-    unseen_batch : {"error", "reference"}, default "error"
+    unseen_batch : {"error", "reference", "estimate"}, default "error"
         What :meth:`transform` does with rows from a batch absent from training.
         ``"error"`` raises :class:`~workbench.errors.ModelError`. ``"reference"``
         standardises them with the training grand mean and pooled SD only and maps
         them straight back, i.e. applies no batch adjustment at all (their scanner
         effect stays in the data) and warns with ``DataQualityWarning``.
+        ``"estimate"`` estimates the new batch's location and scale from its own rows
+        in the table being transformed (features and protected covariates only, never
+        outcomes), with the same empirical Bayes shrinkage as the training batches,
+        while the training grand mean, covariate effects and pooled variance stay fixed
+        (the out-of-sample form of ComBat; see :meth:`new_batches`). A batch with fewer
+        than ``min_new_batch`` rows in the table is left unadjusted, with a warning that
+        says so ("reference" for that batch): one patient cannot estimate a scanner.
+    min_new_batch : int, default 20
+        Rows of an unseen batch needed by ``unseen_batch="estimate"`` (at least 3). 20 is
+        our choice: with fewer, a batch's per-feature variance is estimated from so few
+        rows that the shrinkage, not the data, sets it.
     tol, max_iter : float, int
         Convergence of the parametric fixed-point iteration (largest relative change).
 
@@ -164,18 +223,21 @@ class ComBat(BaseEstimator):
     """
 
     def __init__(self, *, prior: str = "parametric", unseen_batch: str = "error",
-                 tol: float = 1e-10, max_iter: int = 1000):
+                 min_new_batch: int = DEFAULT_MIN_NEW_BATCH, tol: float = 1e-10, max_iter: int = 1000):
         self.prior = prior
         self.unseen_batch = unseen_batch
+        self.min_new_batch = min_new_batch
         self.tol = tol
         self.max_iter = max_iter
 
     def fit(self, X, batch, covariates=None) -> ComBat:
         """Learn batch effects from training rows; returns self."""
-        if self.prior not in _PRIORS:
-            raise ModelError(f"ComBat prior {self.prior!r} is unknown; choose one of {_PRIORS}.")
-        if self.unseen_batch not in _UNSEEN:
-            raise ModelError(f"unseen_batch={self.unseen_batch!r} is unknown; choose one of {_UNSEEN}.")
+        if self.prior not in COMBAT_PRIORS:
+            raise ModelError(f"ComBat prior {self.prior!r} is unknown; choose one of {COMBAT_PRIORS}.")
+        if self.unseen_batch not in UNSEEN_BATCH_POLICIES:
+            raise ModelError(f"unseen_batch={self.unseen_batch!r} is unknown; choose one of {UNSEEN_BATCH_POLICIES}.")
+        if int(self.min_new_batch) < 3:
+            raise ModelError(f"min_new_batch={self.min_new_batch!r}: a new batch's scale needs at least 3 rows.")
         A = _matrix(X, "ComBat.fit")
         n, p = A.shape
         b = _labels(batch, n, "ComBat.fit")
@@ -204,23 +266,12 @@ class ComBat(BaseEstimator):
         var_pooled = np.where(passthrough, 1.0, var_pooled)
         Z = (A - grand - C @ beta) / np.sqrt(var_pooled)
         use = ~passthrough
-        g_hat = np.zeros((nb, p))
-        d_hat = np.ones((nb, p))
+        g_hat, d_hat = np.zeros((nb, p)), np.ones((nb, p))
         g_star, d_star = np.zeros((nb, p)), np.ones((nb, p))
         n_iter = np.zeros(nb, dtype=int)
         for i in range(nb):
-            Zb = Z[codes == i][:, use]
-            g_hat[i, use] = Zb.mean(axis=0)
-            d_hat[i, use] = Zb.var(axis=0, ddof=1)
-            gh, dh = g_hat[i, use], d_hat[i, use]
-            if self.prior == "parametric" and use.sum() > 0:
-                g_star[i, use], d_star[i, use], n_iter[i] = _parametric(Zb, gh, dh, self.tol, self.max_iter)
-            elif self.prior == "nonparametric" and use.sum() > 0:
-                g_star[i, use], d_star[i, use] = _nonparametric(Zb, gh, dh)
-            else:
-                g_star[i, use], d_star[i, use] = gh, dh
-        # a feature constant within one batch has delta_hat 0; never divide by it
-        d_star = np.where(d_star > 0, d_star, 1.0)
+            g_hat[i], d_hat[i], g_star[i], d_star[i], n_iter[i] = _batch_effects(
+                Z[codes == i], use, self.prior, self.tol, self.max_iter)
         self.batches_ = np.asarray(levels, dtype=object)
         self.grand_mean_, self.var_pooled_, self.beta_ = grand, var_pooled, beta
         self.gamma_hat_, self.delta_hat_ = g_hat, d_hat
@@ -232,39 +283,110 @@ class ComBat(BaseEstimator):
             self.feature_names_in_ = np.asarray(X.columns.astype(str), dtype=object)
         return self
 
-    def transform(self, X, batch, covariates=None):
-        """Remove the learned batch effects from rows of known batches."""
+    def _checked(self, X, batch, covariates, where: str):
         if not hasattr(self, "gamma_star_"):
             raise NotFittedError("ComBat is not fitted yet; call fit on the training rows first.")
-        A = _matrix(X, "ComBat.transform")
+        A = _matrix(X, where)
         n, p = A.shape
         if p != self.n_features_in_:
-            raise ModelError(f"ComBat.transform: X has {p} features; {self.n_features_in_} were seen in fit.")
-        b = _labels(batch, n, "ComBat.transform")
-        C = _covariates(covariates, n, self.n_covariates_, "ComBat.transform")
+            raise ModelError(f"{where}: X has {p} features; {self.n_features_in_} were seen in fit.")
+        b = _labels(batch, n, where)
+        C = _covariates(covariates, n, self.n_covariates_, where)
         index = {lab: i for i, lab in enumerate(self.batches_)}
         codes = np.array([index.get(lab, -1) for lab in b], dtype=int)
+        stand = self.grand_mean_ + C @ self.beta_
+        return A, b, codes, stand
+
+    def new_batches(self, X, batch, covariates=None) -> dict[str, NewBatch]:
+        """Estimate the effects of every unseen batch with at least ``min_new_batch`` rows.
+
+        The rows are standardised with the training grand mean, protected-covariate
+        effects and pooled variance (all fixed); each new batch's location and scale
+        are then estimated from its own rows with the estimator's prior, exactly as a
+        training batch's are in :meth:`fit`. Uses feature values and protected
+        covariates only. Returns ``{label: NewBatch}`` (empty when every batch is known
+        or too small).
+        """
+        A, b, codes, stand = self._checked(X, batch, covariates, "ComBat.new_batches")
+        Z = (A - stand) / np.sqrt(self.var_pooled_)
+        use = ~self.passthrough_
+        out = {}
         unseen = codes < 0
+        for lab in sorted({str(v) for v in b[unseen]}):
+            rows = unseen & (b.astype(str) == lab)
+            if rows.sum() < int(self.min_new_batch):
+                continue
+            g_hat, d_hat, g_star, d_star, _ = _batch_effects(Z[rows], use, self.prior, self.tol, self.max_iter)
+            shift = float(np.mean(np.abs(g_star[use]))) if use.any() else 0.0
+            ratio = float(np.median(np.sqrt(d_star[use]))) if use.any() else 1.0
+            out[lab] = NewBatch(lab, int(rows.sum()), g_hat, d_hat, g_star, d_star, shift, ratio)
+        return out
+
+    def with_batches(self, fresh: dict) -> ComBat:
+        """A copy that knows the batches of ``fresh`` (from :meth:`new_batches`) as if seen in training.
+
+        Lets rows of a new scanner be transformed one at a time, or a held-out part of a
+        cohort, with effects estimated once from other rows of that scanner.
+        """
+        import copy
+
+        out = copy.copy(self)
+        labels = [lab for lab in fresh if lab not in {str(b) for b in self.batches_}]
+        if labels:
+            out.batches_ = np.concatenate([self.batches_, np.asarray(labels, dtype=object)])
+            for attr, key in (("gamma_hat_", "gamma_hat"), ("delta_hat_", "delta_hat"),
+                              ("gamma_star_", "gamma_star"), ("delta_star_", "delta_star")):
+                setattr(out, attr, np.vstack([getattr(self, attr)] + [getattr(fresh[lab], key) for lab in labels]))
+            out.n_iter_ = np.concatenate([self.n_iter_, np.zeros(len(labels), dtype=int)])
+        return out
+
+    def transform(self, X, batch, covariates=None):
+        """Remove the batch effects from rows (see ``unseen_batch`` for batches not seen in fit)."""
+        A, b, codes, stand = self._checked(X, batch, covariates, "ComBat.transform")
+        unseen = codes < 0
+        g_star, d_star = self.gamma_star_, self.delta_star_
         if unseen.any():
             labels = sorted({str(v) for v in b[unseen]})
-            pos = np.flatnonzero(unseen)
-            rows = (X.index[pos] if isinstance(X, pd.DataFrame) else pos)[:10].tolist()
             known = [str(v) for v in self.batches_]
+
+            def rows_of(mask):
+                pos = np.flatnonzero(mask)
+                shown = (X.index[pos] if isinstance(X, pd.DataFrame) else pos)[:10].tolist()
+                return f"{shown}{' ...' if pos.size > 10 else ''}"
+
             if self.unseen_batch == "error":
                 raise ModelError(
                     f"ComBat.transform: batch(es) {labels} were not in the training data "
-                    f"(rows {rows}{' ...' if pos.size > 10 else ''}); known batches are {known}. "
-                    "Their scanner effect cannot be estimated. Add such patients to training, "
-                    "or set unseen_batch='reference' to leave these rows unadjusted.")
-            warnings.warn(
-                f"ComBat: rows {rows} come from batch(es) {labels} not seen in training; they are "
-                "left without batch adjustment (unseen_batch='reference').",
-                DataQualityWarning, stacklevel=2)
-        stand = self.grand_mean_ + C @ self.beta_
+                    f"(rows {rows_of(unseen)}); known batches are {known}. "
+                    "Their scanner effect cannot be estimated. Add such patients to training, set "
+                    "unseen_batch='estimate' to estimate it from the new scanner's own patients "
+                    "(at least min_new_batch of them), or 'reference' to leave these rows unadjusted.")
+            fresh = self.new_batches(X, batch, covariates) if self.unseen_batch == "estimate" else {}
+            if fresh:
+                g_star = np.vstack([g_star, [fresh[lab].gamma_star for lab in fresh]])
+                d_star = np.vstack([d_star, [fresh[lab].delta_star for lab in fresh]])
+                for k, lab in enumerate(fresh):
+                    hit = unseen & (b.astype(str) == lab)
+                    codes[hit] = len(self.batches_) + k
+                unseen = codes < 0
+            left = sorted({str(v) for v in b[unseen]})
+            if left:
+                if self.unseen_batch == "estimate":
+                    counts = {lab: int((b[unseen].astype(str) == lab).sum()) for lab in left}
+                    why = (f"only {', '.join(f'{v} of {lab}' for lab, v in counts.items())} row(s) here, fewer "
+                           f"than the {int(self.min_new_batch)} needed to estimate a new scanner's effects "
+                           "(min_new_batch); harmonise them together with the other patients of their "
+                           "scanner (for example with 'workbench apply' on all of them)")
+                else:
+                    why = "unseen_batch='reference'"
+                warnings.warn(
+                    f"ComBat: rows {rows_of(unseen)} come from batch(es) {left} not seen in training; they are "
+                    f"left without batch adjustment ({why}).",
+                    DataQualityWarning, stacklevel=2)
         sd = np.sqrt(self.var_pooled_)
         Z = (A - stand) / sd
         k = np.maximum(codes, 0)
-        adj = (Z - self.gamma_star_[k]) / np.sqrt(self.delta_star_[k]) * sd + stand
+        adj = (Z - g_star[k]) / np.sqrt(d_star[k]) * sd + stand
         out = np.where(unseen[:, None] | self.passthrough_[None, :], A, adj)
         if isinstance(X, pd.DataFrame):
             return pd.DataFrame(out, index=X.index, columns=X.columns)
@@ -272,3 +394,32 @@ class ComBat(BaseEstimator):
 
     def fit_transform(self, X, batch, covariates=None):
         return self.fit(X, batch, covariates).transform(X, batch, covariates)
+
+
+def new_batch_records(models, cohort, policy: str, minimum: int) -> dict:
+    """What each harmonising model did with the cohort's scanners unseen in training.
+
+    ``{"policy", "min_new_batch", "scanners": [{"model", "scanner", "n", "adjusted",
+    "mean_abs_shift_sd", "median_sd_ratio"}]}``; empty scanners when all are known.
+    Scanners below ``minimum`` (or any unseen scanner under "reference") are listed
+    with ``adjusted`` false. Derived from the fitted models and the cohort's own
+    features and protected covariates; no outcomes.
+    """
+    rows = []
+    for name, m in models.items():
+        if not hasattr(m, "harmonisation_inputs") or cohort.batch is None:
+            continue
+        X, C, combat = m.harmonisation_inputs(cohort)
+        if combat is None:
+            continue
+        labels = np.asarray(cohort.batch).astype(str)
+        known = {str(b) for b in combat.batches_}
+        fresh = combat.new_batches(X, cohort.batch, C) if policy == "estimate" else {}
+        for lab in sorted(set(labels) - known):
+            nb = fresh.get(lab)
+            rows.append({"model": name, "scanner": lab, "n": int((labels == lab).sum()),
+                         "adjusted": nb is not None,
+                         "mean_abs_shift_sd": None if nb is None else round(nb.shift_sd, 6),
+                         "median_sd_ratio": None if nb is None else round(nb.scale_ratio, 6)})
+    rows.sort(key=lambda r: (r["model"], r["scanner"]))
+    return {"policy": policy, "min_new_batch": int(minimum), "scanners": rows}

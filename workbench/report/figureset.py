@@ -87,8 +87,9 @@ def nomogram_figure(result, *, patient=None, layout="columns", width="double", n
         )
         if patient_row is not None:
             cohort, i = patient_row
-            ci = m.predict_survival_with_ci(cohort.take([int(i)]), tuple(result.spec.horizons))
-            intervals.append({float(h): (float(ci.lower[0, k]), float(ci.upper[0, k]))
+            # the whole cohort, then the row: a new scanner is harmonised from all its patients
+            ci = m.predict_survival_with_ci(cohort, tuple(result.spec.horizons))
+            intervals.append({float(h): (float(ci.lower[int(i), k]), float(ci.upper[int(i), k]))
                               for k, h in enumerate(result.spec.horizons)})
     if not scales:
         raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
@@ -106,6 +107,13 @@ def patient_notes(result, cohort, index: int) -> list[str]:
     b = str(cohort.batch[int(index)])
     if b in train_batches:
         return []
+    from workbench.report.methods import unseen_handling
+
+    kind, n = unseen_handling(result).get(b, ("unadjusted", 0)) if result.external_prepared is not None \
+        and cohort is result.external_prepared.cohort else ("unadjusted", 0)
+    if kind == "estimated":
+        return [f"{b} was not among the training scanners ({', '.join(sorted(train_batches))}): its effect on "
+                f"the features was estimated from its {n} patients here, so the signature is less certain."]
     return [f"{b} was not among the training scanners ({', '.join(sorted(train_batches))}): this patient's "
             "features were standardised without harmonisation, so the signature may be off."]
 

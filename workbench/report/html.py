@@ -50,6 +50,7 @@ from workbench.report.methods import (
     limitations,
     methods_paragraph,
     predictor_handling,
+    unseen_batch_sentence,
     unseen_batches,
     validation_text,
 )
@@ -493,7 +494,8 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
                              "cells": [eperf[k].get(f"{c}@{h:g}") for c in _EXT_CALIBRATION]}
                             for k in eperf for h in horizons],
                "cal_labels": [_LABELS[c] for c in _EXT_CALIBRATION],
-               "unseen": unseen_batches(result), "policy": spec.imaging.harmonise.unseen_batch,
+               "unseen": unseen_batches(result),
+               "unseen_text": unseen_batch_sentence(result) if unseen_batches(result) else "",
                "batch_rows": [(b, n, b in seen) for b, n in e["batches"].items()],
                "comps": [{**c, "label": _label(k), "diffs": [{"label": metric_label(n, unit), **c["differences"][n]}
                                                              for n in _metric_order(c["differences"], horizons)]}

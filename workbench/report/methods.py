@@ -29,6 +29,8 @@ References
 
 from __future__ import annotations
 
+import numpy as np
+
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.results import results_dict
 from workbench.validation.intervals import TWO_STAGE_RULE
@@ -226,9 +228,7 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         out.append("There was no external validation; the estimates describe patients like the development "
                    "cohort only.")
     elif unseen_batches(result):
-        out.append(f"External patients imaged on scanners absent from the development data "
-                   f"({', '.join(unseen_batches(result))}) were standardised without a batch adjustment; "
-                   "imaging-based predictions for them are the least reliable.")
+        out.append(unseen_batch_sentence(result))
     if d["external"] is not None:
         from workbench.report.external_text import external_calibration_sentences
 
@@ -285,6 +285,42 @@ def added_value_text(d: dict) -> str:
     if shrink is not None and shrink < 1:
         parts.append(f"All coefficients of the combined model were multiplied by the cross-validated calibration "
                      f"slope {shrink:.3f} and the baseline hazard re-estimated (van Houwelingen and le Cessie 1990).")
+    return " ".join(parts)
+
+
+def unseen_handling(result) -> dict[str, tuple[str, int]]:
+    """Each external scanner absent from development: ("estimated" | "unadjusted", its patients).
+
+    Mirrors ComBat.transform: under ``unseen_batch = "estimate"`` a scanner with at
+    least ``min_new_batch`` patients in the external table is harmonised from its own
+    features; otherwise (or under "reference") its patients are left unadjusted.
+    """
+    h = result.spec.imaging.harmonise
+    out = {}
+    for b in unseen_batches(result):
+        n = int(np.sum(np.asarray(result.external_prepared.cohort.batch).astype(str) == b))
+        ok = h.method == "combat" and h.unseen_batch == "estimate" and n >= h.min_new_batch
+        out[b] = ("estimated" if ok else "unadjusted", n)
+    return out
+
+
+def unseen_batch_sentence(result) -> str:
+    """One paragraph on how external scanners absent from development were handled."""
+    how = unseen_handling(result)
+    est = [f"{b} ({n} patients)" for b, (k, n) in how.items() if k == "estimated"]
+    raw = [b for b, (k, _) in how.items() if k == "unadjusted"]
+    parts = []
+    if est:
+        parts.append(f"External patients imaged on scanners absent from the development data ({', '.join(est)}) "
+                     "were harmonised from their own features: each new scanner's location and scale per feature "
+                     "were estimated from its patients (empirical Bayes as for the development scanners, no "
+                     "outcomes used), with the development scanners' parameters held fixed. ComBat cannot tell a "
+                     "scanner effect from a difference in case mix, so imaging-based predictions for these "
+                     "patients remain less certain than for the development scanners.")
+    if raw:
+        parts.append(f"External patients imaged on scanners absent from the development data ({', '.join(raw)}) "
+                     "were standardised without a batch adjustment; imaging-based predictions for them are the "
+                     "least reliable.")
     return " ".join(parts)
 
 

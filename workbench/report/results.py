@@ -250,13 +250,48 @@ def results_dict(result) -> dict:
             if ext.cohort.batch is not None
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
+            "new_batches": new_batches_block(result.spec, result.models, ext.cohort),
         }
     out["reproducibility"] = _reproducibility_block(result)
+    out["harmonisation"] = jsonable(getattr(result, "harmonisation", None))
     _heterogeneity_blocks(result, out)
     _difference_blocks(result, out)
     if getattr(result, "new_site", None):
         out["new_site_sample_size"] = jsonable(result.new_site)
     return out
+
+
+def harmonisation_digest(result) -> list[str]:
+    """Console lines: ComBat before/after (share of features with a scanner effect, classifier AUC), new scanners."""
+    h = getattr(result, "harmonisation", None)
+    if not h:
+        return []
+
+    def pair(block):
+        b, a = block["before"], block["after"]
+        return (f"features with a scanner location effect {b['location_share']:.0%} -> {a['location_share']:.0%}, "
+                f"scanner classifier AUC {b['classifier_auc']:.2f} -> {a['classifier_auc']:.2f}")
+
+    lines = [f"Harmonisation (ComBat), development: {pair(h['development'])}."]
+    if "external" in h:
+        lines.append(f"Harmonisation, external cohort: {pair(h['external'])}.")
+    if result.external_prepared is not None:
+        nb = new_batches_block(result.spec, {h["model"]: result.models[h["model"]]}, result.external_prepared.cohort)
+        for r in (nb or {}).get("scanners", []):
+            lines.append(f"  new scanner {r['scanner']} ({r['n']} patients): "
+                         + (f"harmonised from its own features (mean shift {r['mean_abs_shift_sd']:.2f} SD, "
+                            f"SD ratio {r['median_sd_ratio']:.2f})" if r["adjusted"] else "left unadjusted"))
+    return lines
+
+
+def new_batches_block(spec, models, cohort) -> dict | None:
+    """How scanners unseen in training were harmonised (None without ComBat or a batch column)."""
+    from workbench.preprocess.harmonize import new_batch_records
+
+    h = spec.imaging.harmonise
+    if h.method != "combat" or cohort.batch is None:
+        return None
+    return new_batch_records(models, cohort, h.unseen_batch, h.min_new_batch)
 
 
 def _volume_comparison_block(result) -> dict | None:
@@ -428,6 +463,7 @@ def format_results(result) -> str:
         lines.append(f"Reproducibility: {len(result.prepared.unreproducible)} of {len(icc_table)} imaging features "
                      f"removed ({r.form} below {r.min_icc:g} on {int(icc_table['n'].max())} repeat measurements; "
                      "feature_icc.csv).")
+    lines += harmonisation_digest(result)
     lines += [
         "",
         f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",

@@ -64,7 +64,7 @@ def test_unseen_batch_error_names_batch_rows_and_known(shifted):
     msg = str(err.value)
     assert "Canon" in msg and "P001" in msg
     assert re.search(r"known batches are \['GE', 'Philips', 'Siemens'\]", msg)
-    assert "unseen_batch='reference'" in msg
+    assert "unseen_batch='estimate'" in msg and "'reference'" in msg
 
 
 def test_unseen_batch_reference_fallback_leaves_rows_unadjusted(shifted):
@@ -130,3 +130,45 @@ def test_empirical_bayes_shrinks_towards_the_batch_mean(shifted):
     gh, gs = cb.gamma_hat_, cb.gamma_star_
     gbar = gh.mean(axis=1, keepdims=True)
     assert np.all(np.abs(gs - gbar) <= np.abs(gh - gbar) + 1e-12)
+
+
+def test_estimate_policy_harmonises_a_new_scanner_and_reports_it(shifted):
+    X, batch, age = shifted
+    train = batch != "Siemens"  # Siemens (70 rows, shift -1, scale 0.7) plays the new scanner
+    cb = ComBat(unseen_batch="estimate").fit(X[train], batch[train], age[train])
+    fresh = cb.new_batches(X, batch, age)
+    assert list(fresh) == ["Siemens"] and fresh["Siemens"].n == 70
+    # shift -1 and scale 0.7 were planted (feature SD 1 within a scanner)
+    assert fresh["Siemens"].scale_ratio == pytest.approx(0.7 / np.sqrt(cb.var_pooled_).mean(), rel=0.2)
+    out = ComBat(unseen_batch="estimate").fit(X[train], batch[train], age[train]).transform(X, batch, age)
+    resid = out.to_numpy() - AGE_SLOPE * age[:, None]
+    means = pd.DataFrame(resid).groupby(batch).mean()
+    assert (means.max() - means.min()).max() < 0.6  # planted location differences of 1 to 3 are gone
+    # "reference" keeps the new scanner's rows as they were
+    with pytest.warns(DataQualityWarning, match="unseen_batch='reference'"):
+        ref = ComBat(unseen_batch="reference").fit(X[train], batch[train], age[train]).transform(X, batch, age)
+    np.testing.assert_array_equal(ref[~train].to_numpy(), X[~train].to_numpy())
+
+
+def test_min_new_batch_is_checked():
+    with pytest.raises(ModelError, match="at least 3 rows"):
+        ComBat(min_new_batch=2).fit(np.random.default_rng(0).normal(size=(10, 3)), ["a"] * 5 + ["b"] * 5)
+
+
+def test_study_keys_for_a_new_scanner_are_checked(tmp_path):
+    from dataclasses import replace
+
+    from workbench.errors import SpecError
+    from workbench.study import read_study, write_study
+
+    demo = read_study(__import__("pathlib").Path(__file__).parents[3] / "demo_cohort" / "study.toml")
+    assert demo.imaging.harmonise.unseen_batch == "estimate" and demo.imaging.harmonise.min_new_batch == 20
+    h = demo.imaging.harmonise
+    with pytest.raises(SpecError, match="min_new_batch = 2"):
+        replace(demo, imaging=replace(demo.imaging, harmonise=replace(h, min_new_batch=2)))
+    with pytest.raises(SpecError, match="unseen_batch"):
+        replace(demo, imaging=replace(demo.imaging, harmonise=replace(h, unseen_batch="guess")))
+    spec = replace(demo, imaging=replace(demo.imaging, harmonise=replace(h, min_new_batch=35,
+                                                                        empirical_bayes="none")))
+    back = read_study(write_study(spec, tmp_path / "s.toml"))
+    assert back.imaging.harmonise == spec.imaging.harmonise

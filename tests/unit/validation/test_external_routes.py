@@ -92,8 +92,13 @@ def test_run_and_apply_give_identical_external_numbers(tmp_path, capsys):
     assert n_checked > 100
     _close(_without(res["external"]["by_group"], COMPARISON_MODELS), ext["by_group"], "by_group")
     _close(res["external"]["censoring"], ext["censoring"], "censoring")
-    # the unseen scanner stands out in calibration-in-the-large
-    oe = {lev: v["oe_ratio@36"]["estimate"]
+    # the scanner the development data never had (scanner_D, 83 patients) is harmonised from its own
+    # features on both routes ([imaging.harmonise] unseen_batch = "estimate"), with the same estimates
+    assert res["external"]["new_batches"] == ext["new_batches"]
+    rows = [r for r in ext["new_batches"]["scanners"] if r["scanner"] == "scanner_D"]
+    assert rows and all(r["adjusted"] and r["n"] == 83 for r in rows)
+    # ... and its calibration-in-the-large is then in line with the seen scanners (left unadjusted,
+    # O/E at 12 months was 1.50: predicted survival far too high, see DEVELOPERS.md)
+    oe = {lev: v["oe_ratio@12"]["estimate"]
           for lev, v in res["external"]["by_group"]["scanner"]["estimates"]["combined"].items()}
-    seen = [oe[s] for s in oe if s != "scanner_D"]
-    assert oe["scanner_D"] > max(seen) + 0.1, oe
+    assert abs(oe["scanner_D"] - 1) < 0.15, oe

@@ -15,6 +15,7 @@ from workbench.errors import WorkbenchError
 from workbench.models.registry import MODEL_LABELS
 from workbench.prepare import select_pool
 from workbench.preprocess.clinical import PredictorSpec
+from workbench.preprocess.harmonize import DEFAULT_MIN_NEW_BATCH
 from workbench.study import (
     BACKENDS,
     MODEL_NAMES,
@@ -44,6 +45,9 @@ HELP = {
              "each part is predicted once from the others. 5 or 10 is usual.",
     "combat": "ComBat removes systematic differences between scanners (shifts and scales of each feature) "
               "while keeping differences that belong to the patients.",
+    "unseen": "For an external hospital's scanner that no training patient was imaged on. 'Estimate' learns that "
+              "scanner's shift and scale per feature from its own patients' features (never their outcomes; "
+              f"at least {DEFAULT_MIN_NEW_BATCH} of them), keeping the training scanners' values fixed.",
     "protect": "Clinical predictors whose link with the imaging features must survive harmonisation "
                "(for example stage, if later stages truly look different on images).",
     "missing": "Complete cases only: a patient with a missing value in this predictor is left out. "
@@ -243,10 +247,13 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> Imag
         protect = st.multiselect("Clinical predictors whose association with the features is preserved",
                                  cols, default=[c for c in h.protect if c in cols], key=_key("protect"),
                                  help=HELP["protect"])
-        unseen = st.selectbox("A scanner not seen in training", ["error", "reference"],
+        policies = ["error", "estimate", "reference"]
+        unseen = st.selectbox("A scanner not seen in training", policies,
                               format_func={"error": "stop with a message",
+                                           "estimate": "estimate its shifts from its own patients",
                                            "reference": "standardise without batch adjustment"}.get,
-                              index=["error", "reference"].index(h.unseen_batch), key=_key("unseen"))
+                              index=policies.index(h.unseen_batch), key=_key("unseen"),
+                              help=HELP["unseen"])
         r = tpl.reduce
         corr = st.slider("Redundancy filter: drop one of each pair correlated above", 0.5, 1.0,
                          float(r.correlation), 0.01, key=_key("corr"), help=HELP["corr"])
