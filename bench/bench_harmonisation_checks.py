@@ -101,7 +101,7 @@ def main(argv=None) -> None:
         ("planted effect: share of features flagged, scale (power)", pow_scale),
         ("planted effect, after ComBat: share flagged, location (target about 0)", post_loc),
         ("planted effect: classifier AUC before", auc_before),
-        ("planted effect: classifier AUC after, fold-wise ComBat (target about 0.5)", auc_after),
+        ("planted effect: classifier AUC after, each fold part harmonised on its own (target 0.5)", auc_after),
         ("planted effect: change in share of features associated with stage (target about 0)", stage_kept),
         ("stage confounded with scanner: flag rate (power)", conf_flag),
     ]

@@ -99,9 +99,19 @@ def test_results_page_shows_the_comparison(ran, cli_results):
 def test_signature_page_matches_the_fitted_signature(ran):
     ran.switch_page("views/signature.py").run()
     assert_clean(ran)
-    sig = ran.session_state[state.K_JOB].result.models["combined"].signature_
+    result = ran.session_state[state.K_JOB].result
+    sig = result.models["combined"].signature_
     steps = ran.dataframe[0].value
-    assert list(steps["Features out"]) == [s.n_out for s in sig.steps_]
+    # the demo's repeat table: the reproducibility filter (before any modelling) comes first
+    removed = len(result.prepared.unreproducible)
+    assert steps.iloc[0]["Step"].startswith("Reproducibility (ICC(3,1) >= 0.75")
+    assert steps.iloc[0]["Dropped"] == removed > 0
+    assert steps.iloc[0]["Features out"] == sig.steps_[0].n_in
+    assert list(steps["Features out"])[1:] == [s.n_out for s in sig.steps_]
+    # ... and the harmonisation checks of results.json
+    h = result.harmonisation["development"]
+    assert any(f"scanner classifier AUC {h['before']['classifier_auc']:.2f} -> {h['after']['classifier_auc']:.2f}"
+               in c.value for c in ran.caption)
     selected = ran.dataframe[1].value
     assert list(selected["Feature"]) == list(sig.coef_.index)
     assert any("refits kept between" in m.value for m in ran.markdown)

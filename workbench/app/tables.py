@@ -133,12 +133,22 @@ def selection_table(selection, top: int = 30) -> pd.DataFrame:
                               "in_apparent_fit": "In final fit"})
 
 
-def steps_table(steps) -> pd.DataFrame:
-    return pd.DataFrame([
-        {"Step": s.step, "Features in": int(s.n_in), "Features out": int(s.n_out),
-         "Dropped": int(s.n_in) - int(s.n_out)}
-        for s in steps
-    ])
+def steps_table(steps, prepared=None, reproducibility=None) -> pd.DataFrame:
+    """The signature's reduction steps; with a repeat table, the reproducibility filter first.
+
+    ``prepared`` (PreparedCohort) and ``reproducibility`` (the study's ReproducibilitySpec):
+    the filter ran once before any modelling, on all features of the pool.
+    """
+    rows = []
+    icc = getattr(prepared, "reproducibility", None)
+    if icc is not None and reproducibility is not None:
+        n_in, n_out = len(icc), len(icc) - len(prepared.unreproducible)
+        rows.append({"Step": f"Reproducibility ({reproducibility.form} >= {reproducibility.min_icc:g}, "
+                             f"{int(icc['n'].max())} repeat patients)",
+                     "Features in": n_in, "Features out": n_out, "Dropped": n_in - n_out})
+    rows += [{"Step": s.step, "Features in": int(s.n_in), "Features out": int(s.n_out),
+              "Dropped": int(s.n_in) - int(s.n_out)} for s in steps]
+    return pd.DataFrame(rows)
 
 
 def wide_metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:

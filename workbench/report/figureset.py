@@ -216,6 +216,10 @@ def study_figures(result, *, width="double") -> dict:
     from workbench.report.flow import patient_flow
 
     figs["patient_flow"] = plot_patient_flow(patient_flow(result), width=width)
+    if getattr(result, "harmonisation", None):
+        from workbench.figures.harmonisation import plot_harmonisation_checks
+
+        figs["harmonisation_checks"] = plot_harmonisation_checks(result.harmonisation, width=width)
     curves = baseline_curves(result)
     if curves:
         figs["baseline_survival"] = plot_baseline_survival({labels[k]: v for k, v in curves.items()},

@@ -90,7 +90,7 @@ _LABELS = {
 }
 _CALIBRATION = ("ici", "e50", "e90", "cal_slope", "oe_ratio")
 _EXT_CALIBRATION = ("oe_ratio", "cal_slope", "ici")
-FIGURE_SLOTS = ("data", "calibration", "decision", "difference", "external", "main", "appendix")
+FIGURE_SLOTS = ("data", "harmonisation", "calibration", "decision", "difference", "external", "main", "appendix")
 """Places in the report that hold figures."""
 
 
@@ -268,6 +268,13 @@ def _data_and_appendix_figures(result, out: dict) -> None:
     _figure(out["data"], "flow", "Patient flow", f"Patients of the development cohort{ext}: read, set aside "
             "with the reason (a patient missing several complete-case predictors counts under each), analysed.",
             lambda: plot_patient_flow(patient_flow(result), width="double"))
+    if getattr(result, "harmonisation", None):
+        from workbench.figures.harmonisation import plot_harmonisation_checks
+
+        _figure(out["harmonisation"], "harmonisation", "Scanner effects before and after ComBat",
+                "Open markers: before harmonisation; filled: after. Scanner effects should move to 0 and the "
+                "classifier AUC towards 0.5 (dashed tick); the links with protected predictors should stay put.",
+                lambda: plot_harmonisation_checks(result.harmonisation, width="double"), compact=True)
     curves = baseline_curves(result)
     if curves:
         unit = result.spec.data.time_unit

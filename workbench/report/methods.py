@@ -307,11 +307,11 @@ def unseen_handling(result) -> dict[str, tuple[str, int]]:
 def unseen_batch_sentence(result) -> str:
     """One paragraph on how external scanners absent from development were handled."""
     how = unseen_handling(result)
-    est = [f"{b} ({n} patients)" for b, (k, n) in how.items() if k == "estimated"]
+    est = [f"{b}, {n} patients" for b, (k, n) in how.items() if k == "estimated"]
     raw = [b for b, (k, _) in how.items() if k == "unadjusted"]
     parts = []
     if est:
-        parts.append(f"External patients imaged on scanners absent from the development data ({', '.join(est)}) "
+        parts.append(f"External patients imaged on scanners absent from the development data ({'; '.join(est)}) "
                      "were harmonised from their own features: each new scanner's location and scale per feature "
                      "were estimated from its patients (empirical Bayes as for the development scanners, no "
                      "outcomes used), with the development scanners' parameters held fixed. ComBat cannot tell a "

@@ -189,10 +189,17 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
                       (m["kind"] != "cox" or "signature" in m)]
     if harm:
         prot = f", preserving the effects of {_join(im.harmonise.protect)}" if im.harmonise.protect else ""
+        eb = ("without empirical Bayes shrinkage" if im.harmonise.empirical_bayes == "none"
+              else f"{im.harmonise.empirical_bayes} empirical Bayes")
+        checks = (" Scanner effects were checked before and after harmonisation: per-feature location (F) and "
+                  "scale (Brown-Forsythe) tests with Benjamini-Hochberg control of the false discovery rate, and "
+                  "the cross-validated AUC of a classifier predicting the scanner from the features."
+                  if d.get("harmonisation") else "")
         out.append(Claim("imaging.harmonisation", f"Imaging features were harmonised across scanners by ComBat "
-                         f"({im.harmonise.empirical_bayes} empirical Bayes{prot}; Johnson et al. 2007), learned "
+                         f"({eb}{prot}; Johnson et al. 2007), learned "
                          + (f"inside each fit of the {_label(harm[0])} model." if len(harm) == 1 else
-                            "inside each fit of these models: " + "; ".join(_label(k) for k in harm) + ".")))
+                            "inside each fit of these models: " + "; ".join(_label(k) for k in harm) + ".")
+                         + checks))
     elif imaging_models:
         why = ("the study names no scanner (batch) column" if not result.spec.data.batch
                else "harmonisation was switched off ([imaging.harmonise] method = 'none')")

@@ -155,6 +155,10 @@ def _imaging_harmonisation(r, d, c):
     assert harm == ["combined"] and "harmonised across scanners by ComBat" in t
     assert f"each fit of the {MODEL_LABELS['combined']} model." in t and MODEL_LABELS["clinical"] not in t
     assert r.spec.imaging.harmonise.empirical_bayes in t and "preserving the effects of age" in t
+    # the checks are claimed exactly when the run made them (workbench.preprocess.harmonisation_checks)
+    assert ("checked before and after harmonisation" in t) == bool(d.get("harmonisation"))
+    if d.get("harmonisation"):
+        assert d["harmonisation"]["development"]["before"]["n"] == r.cohort.n
 
 
 def _imaging_steps(r, d, c):
@@ -389,8 +393,8 @@ def test_wide_models_are_named_as_harmonised(small_study_result, wide_models):
     assert all(m.combat_ is not None for m in wide_models.values())
     d = results_dict(small_study_result)
     t = next(x.text for x in _imaging_claims(r, d) if x.key == "imaging.harmonisation")
-    assert t.endswith(f"inside each fit of these models: {MODEL_LABELS['combined']}; "
-                      f"{MODEL_LABELS['penalised_all']}; {MODEL_LABELS['forest']}.")
+    assert (f"inside each fit of these models: {MODEL_LABELS['combined']}; "
+            f"{MODEL_LABELS['penalised_all']}; {MODEL_LABELS['forest']}.") in t
 
 
 def test_no_harmonisation_is_said_when_none_was_learned(small_study_result):

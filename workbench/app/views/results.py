@@ -126,6 +126,7 @@ FIGURE_TITLES = {
     "site_calibration": "Calibration by centre and scanner (external)",
     "selection_frequency": "Signature: selection frequency",
     "coefficient_path": "Signature: coefficient path",
+    "harmonisation_checks": "Scanner effects before and after ComBat",
 }
 
 

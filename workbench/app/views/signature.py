@@ -65,7 +65,11 @@ def render() -> None:
     a, b = st.columns([1, 1])
     with a:
         st.markdown("**Reduction steps** (fitted on all patients)")
-        state.table(tables.steps_table(sig.steps_))
+        state.table(tables.steps_table(sig.steps_, result.prepared, result.spec.imaging.reproducibility))
+        from workbench.report.results import harmonisation_digest
+
+        for line in harmonisation_digest(result):
+            st.caption(line.strip())
         coef = getattr(sig, "coef_", None)
         if coef is not None and len(coef):
             st.markdown("**Selected features** (coefficient per training SD)")
