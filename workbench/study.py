@@ -100,6 +100,7 @@ class HarmoniseSpec:
     unseen_batch: str = "error"  # "error", "reference" or "estimate"
     empirical_bayes: str = "parametric"  # "parametric", "nonparametric" or "none"
     min_new_batch: int = DEFAULT_MIN_NEW_BATCH  # patients of an unseen scanner needed by "estimate"
+    reference_scanner: str | None = None  # harmonise every scanner to this one (its rows unchanged)
 
 
 @dataclass(frozen=True)

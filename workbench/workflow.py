@@ -10,6 +10,7 @@ app are thin faces over this function.
 
 from __future__ import annotations
 
+import difflib
 import time
 import warnings
 from collections.abc import Callable
@@ -169,6 +170,19 @@ def _harmonisation_checks(fitted: dict, cohort, spec, ext_prepared) -> dict | No
     return None
 
 
+def check_reference_scanner(spec, cohort) -> None:
+    """[imaging.harmonise] reference_scanner must be one of the development cohort's scanners."""
+    ref = spec.imaging.harmonise.reference_scanner
+    if ref is None or spec.imaging.harmonise.method != "combat" or cohort.batch is None:
+        return
+    known = sorted({str(b) for b in cohort.batch})
+    if str(ref) not in known:
+        close = difflib.get_close_matches(str(ref), known, n=1)
+        raise SpecError(f"[imaging.harmonise] reference_scanner = {ref!r} is not a scanner of the development "
+                        f"cohort (column {spec.data.batch!r}: {', '.join(known)})"
+                        + (f"; did you mean {close[0]!r}?" if close else "."))
+
+
 def check_uno_tau(tau, cohort, horizons) -> None:
     """Uno's C truncation time must lie inside follow-up (before the last observed time)."""
     if tau is None:
@@ -242,6 +256,7 @@ def run_study(
         warnings.simplefilter("always")
         prepared = prepare_cohort(spec)
         cohort = prepared.cohort
+        check_reference_scanner(spec, cohort)
         summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2,
                                    **candidate_parameters(spec, cohort))
 

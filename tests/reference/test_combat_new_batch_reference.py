@@ -107,3 +107,31 @@ def test_known_scanners_are_untouched_by_the_new_one():
     alone = cb.transform(X[train], batch[train], age[train])
     mixed = cb.transform(X, batch, age)[train]
     np.testing.assert_array_equal(alone, mixed)
+
+
+@pytest.mark.parametrize("prior, eb, parametric, rtol", [("parametric", True, True, 1e-4), ("none", False, True, 1e-6)])
+def test_reference_batch_matches_neurocombat_ref_batch(monkeypatch, prior, eb, parametric, rtol):
+    # neuroCombat 0.2.12's ref_batch branch calls np.int, an alias numpy 2 removed; the shim
+    # restores the alias for this call only (it is the built-in int)
+    monkeypatch.setattr(np, "int", int, raising=False)
+    X, batch, age = _simulated()
+    train = batch != NEW
+    X, batch, age = X[train], batch[train], age[train]
+    out = nc.neuroCombat(dat=X.T, covars=pd.DataFrame({"scanner": batch, "age": age}), batch_col="scanner",
+                         continuous_cols=["age"], eb=eb, parametric=parametric, ref_batch="B")
+    cb = ComBat(prior=prior, reference_batch="B").fit(X, batch, age)
+    ours = cb.transform(X, batch, age)
+    sd = np.sqrt(cb.var_pooled_)
+    np.testing.assert_allclose(cb.var_pooled_, np.asarray(out["estimates"]["var.pooled"]).ravel(), rtol=1e-6)
+    np.testing.assert_allclose(ours / sd, out["data"].T / sd, rtol=0, atol=5 * rtol)
+    # the reference scanner's rows are untouched; the others are moved onto its scale
+    np.testing.assert_array_equal(ours[batch == "B"], X[batch == "B"])
+    assert np.abs(ours[batch == "A"].mean(axis=0) - X[batch == "A"].mean(axis=0)).max() > 0.5
+
+
+def test_reference_batch_must_be_a_training_batch():
+    from workbench.errors import ModelError
+
+    X, batch, age = _simulated()
+    with pytest.raises(ModelError, match="reference batch 'Z' is not among the training batches"):
+        ComBat(reference_batch="Z").fit(X, batch, age)

@@ -66,6 +66,8 @@ class ImagingSignature(BaseEstimator):
     combat_prior : {"parametric", "nonparametric", "none"}
     unseen_batch : {"error", "reference", "estimate"}
     min_new_batch : int
+    reference_batch : str, optional
+        See :class:`~workbench.preprocess.harmonize.ComBat`.
         See :class:`~workbench.preprocess.harmonize.ComBat`.
     nzv_freq_ratio, nzv_unique_percent : float
         See :class:`~workbench.preprocess.reduce.NearZeroVarianceFilter`.
@@ -101,6 +103,7 @@ class ImagingSignature(BaseEstimator):
     """
 
     def __init__(self, *, harmonize=True, combat_prior="parametric", unseen_batch="error", min_new_batch=20,
+                 reference_batch=None,
                  nzv_freq_ratio=95 / 5, nzv_unique_percent=10.0, redundancy_threshold=0.90,
                  screen_fdr=None, l1_ratio=0.9, n_alphas=100, alpha_min_ratio=0.01,
                  path_stop_ratio=0.05, n_folds=5, rule="min", cv_score="basic", random_state=None):
@@ -108,6 +111,7 @@ class ImagingSignature(BaseEstimator):
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
         self.min_new_batch = min_new_batch
+        self.reference_batch = reference_batch
         self.nzv_freq_ratio = nzv_freq_ratio
         self.nzv_unique_percent = nzv_unique_percent
         self.redundancy_threshold = redundancy_threshold
@@ -145,7 +149,7 @@ class ImagingSignature(BaseEstimator):
         self.combat_ = None
         if batch is not None and self.harmonize:
             self.combat_ = ComBat(prior=self.combat_prior, unseen_batch=self.unseen_batch,
-                                 min_new_batch=self.min_new_batch)
+                                 min_new_batch=self.min_new_batch, reference_batch=self.reference_batch)
             X = self.combat_.fit_transform(X, batch, covariates)
             names = tuple(X.columns)
             records.append(StepRecord("ComBat harmonisation", len(names), len(names), names, ()))

@@ -36,7 +36,7 @@ class _WideInputs:
         self.combat_ = None
         if self.harmonise and cohort.batch is not None:
             self.combat_ = ComBat(prior=self.combat_prior, unseen_batch=self.unseen_batch,
-                                 min_new_batch=self.min_new_batch).fit(
+                                 min_new_batch=self.min_new_batch, reference_batch=self.reference_batch).fit(
                 self._filled(cohort), cohort.batch, self._protected(cohort)
             )
 
@@ -76,7 +76,7 @@ class PenalisedAllCox(_WideInputs):
         ComBat by batch when the cohort has a batch column.
     protect : tuple of str
         Clinical predictors preserved by the harmonisation.
-    combat_prior, unseen_batch, min_new_batch : str, str, int
+    combat_prior, unseen_batch, min_new_batch, reference_batch : str, str, int, str or None
         See :class:`~workbench.preprocess.harmonize.ComBat`.
     l1_ratio, n_alphas, path_stop_ratio, n_folds, rule : penalty settings
         (the path first stops at ``path_stop_ratio`` x alpha_max and is extended
@@ -102,6 +102,7 @@ class PenalisedAllCox(_WideInputs):
         combat_prior: str = "parametric",
         unseen_batch: str = "error",
         min_new_batch: int = 20,
+        reference_batch: str | None = None,
         l1_ratio: float = 1.0,
         n_alphas: int = 50,
         path_stop_ratio: float = 0.05,
@@ -116,6 +117,7 @@ class PenalisedAllCox(_WideInputs):
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
         self.min_new_batch = min_new_batch
+        self.reference_batch = reference_batch
         self.l1_ratio = l1_ratio
         self.n_alphas = n_alphas
         self.path_stop_ratio = path_stop_ratio
@@ -178,7 +180,7 @@ class ForestModel(_WideInputs):
     Parameters
     ----------
     predictors : tuple of PredictorSpec
-    harmonise, protect, combat_prior, unseen_batch, min_new_batch : as in :class:`PenalisedAllCox`
+    harmonise, protect, combat_prior, unseen_batch, min_new_batch, reference_batch : as in :class:`PenalisedAllCox`
     n_estimators, min_samples_leaf, max_features, time_grid : forest settings
     extra_times : tuple of float
         Times added to the forest's time grid (the study horizons).
@@ -194,6 +196,7 @@ class ForestModel(_WideInputs):
         combat_prior: str = "parametric",
         unseen_batch: str = "error",
         min_new_batch: int = 20,
+        reference_batch: str | None = None,
         n_estimators: int = 200,
         min_samples_leaf: int = 15,
         max_features="sqrt",
@@ -208,6 +211,7 @@ class ForestModel(_WideInputs):
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
         self.min_new_batch = min_new_batch
+        self.reference_batch = reference_batch
         self.n_estimators = n_estimators
         self.min_samples_leaf = min_samples_leaf
         self.max_features = max_features

@@ -195,6 +195,14 @@ class ComBat(BaseEstimator):
         (the out-of-sample form of ComBat; see :meth:`new_batches`). A batch with fewer
         than ``min_new_batch`` rows in the table is left unadjusted, with a warning that
         says so ("reference" for that batch): one patient cannot estimate a scanner.
+    reference_batch : str, optional
+        Harmonise every batch to this one (the reference-batch form of ComBat, as in
+        M-ComBat, Stein et al. 2015; ``ref_batch`` of neuroCombat): the grand mean and
+        pooled variance are the reference batch's own, its rows are left exactly as they
+        are, and the other batches are mapped onto its scale. Use it when one scanner is the
+        standard the signature should speak (for example the scanner of a planned
+        prospective study) or when a model must stay valid for that scanner's raw values;
+        the default (None) maps every batch to the average of all.
     min_new_batch : int, default 20
         Rows of an unseen batch needed by ``unseen_batch="estimate"`` (at least 3). 20 is
         our choice: with fewer, a batch's per-feature variance is estimated from so few
@@ -223,9 +231,11 @@ class ComBat(BaseEstimator):
     """
 
     def __init__(self, *, prior: str = "parametric", unseen_batch: str = "error",
-                 min_new_batch: int = DEFAULT_MIN_NEW_BATCH, tol: float = 1e-10, max_iter: int = 1000):
+                 min_new_batch: int = DEFAULT_MIN_NEW_BATCH, reference_batch: str | None = None,
+                 tol: float = 1e-10, max_iter: int = 1000):
         self.prior = prior
         self.unseen_batch = unseen_batch
+        self.reference_batch = reference_batch
         self.min_new_batch = min_new_batch
         self.tol = tol
         self.max_iter = max_iter
@@ -258,9 +268,15 @@ class ComBat(BaseEstimator):
                 "batches or collinear with them), so their effect cannot be separated from the "
                 "scanner effect. Drop or recode those covariates.")
         B_hat = np.linalg.lstsq(D, A, rcond=None)[0]
-        grand = (counts / n) @ B_hat[:nb]
         beta = B_hat[nb:]
-        var_pooled = ((A - D @ B_hat) ** 2).mean(axis=0)
+        ref = self._reference_index(levels)
+        if ref is None:
+            grand = (counts / n) @ B_hat[:nb]
+            var_pooled = ((A - D @ B_hat) ** 2).mean(axis=0)
+        else:  # the reference batch's own mean and variance
+            rows = codes == ref
+            grand = B_hat[ref]
+            var_pooled = ((A[rows] - D[rows] @ B_hat) ** 2).mean(axis=0)
         scale_ref = np.maximum(np.abs(A).max(axis=0), 1.0)
         passthrough = var_pooled <= (1e-12 * scale_ref) ** 2
         var_pooled = np.where(passthrough, 1.0, var_pooled)
@@ -272,6 +288,8 @@ class ComBat(BaseEstimator):
         for i in range(nb):
             g_hat[i], d_hat[i], g_star[i], d_star[i], n_iter[i] = _batch_effects(
                 Z[codes == i], use, self.prior, self.tol, self.max_iter)
+        if ref is not None:  # the reference is the target: no adjustment of its own rows
+            g_star[ref], d_star[ref] = 0.0, 1.0
         self.batches_ = np.asarray(levels, dtype=object)
         self.grand_mean_, self.var_pooled_, self.beta_ = grand, var_pooled, beta
         self.gamma_hat_, self.delta_hat_ = g_hat, d_hat
@@ -282,6 +300,15 @@ class ComBat(BaseEstimator):
         if isinstance(X, pd.DataFrame):
             self.feature_names_in_ = np.asarray(X.columns.astype(str), dtype=object)
         return self
+
+    def _reference_index(self, levels) -> int | None:
+        if self.reference_batch is None:
+            return None
+        names = [str(v) for v in levels]
+        if str(self.reference_batch) not in names:
+            raise ModelError(f"ComBat: the reference batch {self.reference_batch!r} is not among the training "
+                             f"batches {names}; name one of them.")
+        return names.index(str(self.reference_batch))
 
     def _checked(self, X, batch, covariates, where: str):
         if not hasattr(self, "gamma_star_"):
@@ -387,7 +414,10 @@ class ComBat(BaseEstimator):
         Z = (A - stand) / sd
         k = np.maximum(codes, 0)
         adj = (Z - g_star[k]) / np.sqrt(d_star[k]) * sd + stand
-        out = np.where(unseen[:, None] | self.passthrough_[None, :], A, adj)
+        keep = unseen[:, None] | self.passthrough_[None, :]
+        if self.reference_batch is not None:  # the reference batch's rows stay exactly as they were
+            keep = keep | (b.astype(str) == str(self.reference_batch))[:, None]
+        out = np.where(keep, A, adj)
         if isinstance(X, pd.DataFrame):
             return pd.DataFrame(out, index=X.index, columns=X.columns)
         return out

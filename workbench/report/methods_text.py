@@ -195,8 +195,10 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
                   "scale (Brown-Forsythe) tests with Benjamini-Hochberg control of the false discovery rate, and "
                   "the cross-validated AUC of a classifier predicting the scanner from the features."
                   if d.get("harmonisation") else "")
+        ref = (f", with {im.harmonise.reference_scanner} as the reference scanner (its features unchanged)"
+               if im.harmonise.reference_scanner else "")
         out.append(Claim("imaging.harmonisation", f"Imaging features were harmonised across scanners by ComBat "
-                         f"({eb}{prot}; Johnson et al. 2007), learned "
+                         f"({eb}{prot}{ref}; Johnson et al. 2007), learned "
                          + (f"inside each fit of the {_label(harm[0])} model." if len(harm) == 1 else
                             "inside each fit of these models: " + "; ".join(_label(k) for k in harm) + ".")
                          + checks))

@@ -172,3 +172,23 @@ def test_study_keys_for_a_new_scanner_are_checked(tmp_path):
                                                                         empirical_bayes="none")))
     back = read_study(write_study(spec, tmp_path / "s.toml"))
     assert back.imaging.harmonise == spec.imaging.harmonise
+
+
+def test_reference_scanner_key_round_trips_and_is_checked_against_the_cohort(tmp_path):
+    from dataclasses import replace
+    from pathlib import Path
+
+    from workbench.errors import SpecError
+    from workbench.prepare import prepare_cohort
+    from workbench.study import read_study, write_study
+    from workbench.workflow import check_reference_scanner
+
+    demo = read_study(Path(__file__).parents[3] / "demo_cohort" / "study.toml")
+    h = demo.imaging.harmonise
+    spec = replace(demo, imaging=replace(demo.imaging, harmonise=replace(h, reference_scanner="scanner_B")))
+    assert read_study(write_study(spec, tmp_path / "s.toml")).imaging.harmonise.reference_scanner == "scanner_B"
+    cohort = prepare_cohort(spec).cohort
+    check_reference_scanner(spec, cohort)  # a development scanner: fine
+    typo = replace(spec, imaging=replace(spec.imaging, harmonise=replace(h, reference_scanner="scaner_B")))
+    with pytest.raises(SpecError, match=r"'scaner_B' is not a scanner of the development cohort .*did you mean 'scanner_B'"):
+        check_reference_scanner(typo, cohort)
