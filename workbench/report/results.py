@@ -134,7 +134,8 @@ def _model_block(result, name: str) -> dict:
         block["collinearity"] = _collinearity_block(coll)
     if name in result.validation.selection:
         sel = result.validation.selection[name]
-        block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency)}
+        block["selection_frequency"] = {"n_fits": sel.n_fits, "frequency": jsonable(sel.frequency),
+                                        "unstable": list(sel.unstable)}
     block["risk_groups"] = _risk_group_block(result, name)
     block["performance"] = _metric_block(result.validation.estimates[name])
     if result.external is not None and name in result.external.estimates:
@@ -464,6 +465,12 @@ def format_results(result) -> str:
                      f"removed ({r.form} below {r.min_icc:g} on {int(icc_table['n'].max())} repeat measurements; "
                      "feature_icc.csv).")
     lines += harmonisation_digest(result)
+    sel = result.validation.selection.get("combined")
+    if sel is not None and sel.n_fits and sel.apparent:
+        shaky = sel.unstable
+        lines.append(f"Signature: {len(sel.apparent)} features; "
+                     + (f"kept by fewer than half of the {sel.n_fits} refits (unstable): {', '.join(shaky)}."
+                        if shaky else f"each kept by at least half of the {sel.n_fits} refits."))
     lines += [
         "",
         f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",

@@ -121,6 +121,10 @@ class MetricEstimate:
     note: str = ""
 
 
+UNSTABLE_BELOW = 0.5
+"""A final-signature feature kept by fewer than this share of the refits is flagged as unstable."""
+
+
 @dataclass(frozen=True)
 class SelectionSummary:
     """How often each imaging feature was kept by a model's refits.
@@ -143,6 +147,13 @@ class SelectionSummary:
     frequency: dict
     n_selected: np.ndarray
     apparent: tuple[str, ...] = ()
+
+    @property
+    def unstable(self) -> tuple[str, ...]:
+        """Features of the fit on all rows that fewer than half of the refits kept (UNSTABLE_BELOW)."""
+        if not self.n_fits:
+            return ()
+        return tuple(f for f in self.apparent if self.frequency.get(f, 0.0) < UNSTABLE_BELOW)
 
     def to_frame(self) -> pd.DataFrame:
         """One row per feature: share of refits that kept it, and whether the apparent fit did."""
