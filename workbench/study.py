@@ -23,6 +23,7 @@ import tomli_w
 from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import ColumnMap
 from workbench.errors import SpecError, WorkbenchError
+from workbench.models.stability import DEFAULT_MAX_FALSE, DEFAULT_PAIRS, DEFAULT_THRESHOLD
 from workbench.preprocess.clinical import PredictorSpec
 from workbench.preprocess.harmonize import (
     COMBAT_PRIORS,
@@ -122,6 +123,10 @@ class PenaltySpec:
     folds: int = 5
     n_alphas: int = 50
     path_stop_ratio: float = 0.05
+    selection: str = "cv"  # "cv" (penalty chosen by cross-validation) or "stability" (stability selection)
+    stability_pairs: int = DEFAULT_PAIRS  # complementary pairs of half-samples
+    stability_threshold: float = DEFAULT_THRESHOLD  # selection probability a feature must reach
+    stability_max_false: float = DEFAULT_MAX_FALSE  # bound on the expected number of false selections
 
 
 @dataclass(frozen=True)
@@ -287,6 +292,13 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[imaging.penalty] l1_ratio must lie in (0, 1] (1 = LASSO); got {pen.l1_ratio}.")
     if pen.folds < 3:
         raise SpecError(f"[imaging.penalty] folds must be at least 3; got {pen.folds}.")
+    _choice("[imaging.penalty] selection", pen.selection, ("cv", "stability"))
+    if not 0.5 < pen.stability_threshold <= 1:
+        raise SpecError("[imaging.penalty] stability_threshold must lie in (0.5, 1] (a feature must be picked in "
+                        f"more than half of the half-samples); got {pen.stability_threshold}.")
+    if pen.stability_max_false <= 0 or pen.stability_pairs < 1:
+        raise SpecError("[imaging.penalty] stability_max_false must be positive and stability_pairs at least 1; "
+                        f"got {pen.stability_max_false} and {pen.stability_pairs}.")
     for m in spec.models.fit:
         _choice("[models] fit entry", m, MODEL_NAMES)
     if spec.models.baseline not in spec.models.fit:

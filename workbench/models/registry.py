@@ -44,6 +44,10 @@ def build_signature(spec: StudySpec, random_state: int) -> ImagingSignature:
         n_folds=im.penalty.folds,
         rule=im.penalty.rule,
         random_state=random_state,
+        selection=im.penalty.selection,
+        stability_pairs=im.penalty.stability_pairs,
+        stability_threshold=im.penalty.stability_threshold,
+        stability_max_false=im.penalty.stability_max_false,
     )
 
 

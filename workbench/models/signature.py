@@ -106,7 +106,8 @@ class ImagingSignature(BaseEstimator):
                  reference_batch=None,
                  nzv_freq_ratio=95 / 5, nzv_unique_percent=10.0, redundancy_threshold=0.90,
                  screen_fdr=None, l1_ratio=0.9, n_alphas=100, alpha_min_ratio=0.01,
-                 path_stop_ratio=0.05, n_folds=5, rule="min", cv_score="basic", random_state=None):
+                 path_stop_ratio=0.05, n_folds=5, rule="min", cv_score="basic", random_state=None,
+                 selection="cv", stability_pairs=50, stability_threshold=0.75, stability_max_false=1.0):
         self.harmonize = harmonize
         self.combat_prior = combat_prior
         self.unseen_batch = unseen_batch
@@ -124,6 +125,10 @@ class ImagingSignature(BaseEstimator):
         self.rule = rule
         self.cv_score = cv_score
         self.random_state = random_state
+        self.selection = selection
+        self.stability_pairs = stability_pairs
+        self.stability_threshold = stability_threshold
+        self.stability_max_false = stability_max_false
 
     def fit(self, X_features, y, *, groups=None, batch=None, covariates=None) -> ImagingSignature:
         """Fit every step on these (training) rows; returns self.
@@ -165,8 +170,19 @@ class ImagingSignature(BaseEstimator):
             Z = (f.fit(Z, y, groups=groups) if isinstance(f, CoxScreen) else f.fit(Z, y)).transform(Z)
             records.append(f.record_)
         self.path_: PenalizedPathResult | None = None
+        self.stability_ = None
         beta = np.zeros(Z.shape[1])
-        if Z.shape[1] > 0:
+        if self.selection not in ("cv", "stability"):
+            raise ModelError(f"selection={self.selection!r} is unknown; choose 'cv' or 'stability'.")
+        if self.selection == "stability" and Z.shape[1] > 0:
+            beta = self._stability_fit(Z, y, groups)
+            nz = beta != 0
+            kept_names = tuple(Z.columns[nz])
+            prob = dict(zip(self.stability_.feature_names, self.stability_.probability, strict=True))
+            dropped = tuple((nm, f"picked in {prob[nm]:.0%} of the halves (below {self.stability_threshold:.0%})")
+                            for nm in Z.columns[~nz])
+            records.append(StepRecord("stability selection", Z.shape[1], len(kept_names), kept_names, dropped))
+        elif Z.shape[1] > 0:
             self.path_ = fit_penalized_path(
                 Z.to_numpy(), y, groups=groups, feature_names=list(Z.columns),
                 l1_ratio=self.l1_ratio, n_alphas=self.n_alphas,
@@ -174,11 +190,12 @@ class ImagingSignature(BaseEstimator):
                 n_folds=self.n_folds, rule=self.rule, score=self.cv_score,
                 random_state=self.random_state)
             beta = self.path_.coef
-        nz = beta != 0
-        kept_names = tuple(Z.columns[nz])
-        dropped = tuple((nm, "zero coefficient at the cross-validated penalty")
-                        for nm in Z.columns[~nz])
-        records.append(StepRecord("penalised Cox", Z.shape[1], len(kept_names), kept_names, dropped))
+        if self.stability_ is None:
+            nz = beta != 0
+            kept_names = tuple(Z.columns[nz])
+            dropped = tuple((nm, "zero coefficient at the cross-validated penalty")
+                            for nm in Z.columns[~nz])
+            records.append(StepRecord("penalised Cox", Z.shape[1], len(kept_names), kept_names, dropped))
         self.steps_ = tuple(records)
         self.selected_features_ = kept_names
         pos = [list(self.feature_names_in_).index(nm) for nm in kept_names]
@@ -188,6 +205,22 @@ class ImagingSignature(BaseEstimator):
         self.intercept_original_ = float(-(beta[nz] * mu / sd).sum())
         self.selected_index_ = np.asarray(pos, dtype=int)
         return self
+
+    def _stability_fit(self, Z: pd.DataFrame, y, groups) -> np.ndarray:
+        """Stability selection (models/stability.py), then an unpenalised Cox fit on the stable features."""
+        from workbench.models.stability import stability_select
+        from workbench.stats.coxph import fit_coxph
+
+        self.stability_ = stability_select(
+            Z.to_numpy(), y, feature_names=list(Z.columns), groups=groups, pairs=self.stability_pairs,
+            threshold=self.stability_threshold, max_false=self.stability_max_false, l1_ratio=self.l1_ratio,
+            random_state=self.random_state)
+        beta = np.zeros(Z.shape[1])
+        kept = [list(Z.columns).index(nm) for nm in self.stability_.selected]
+        if kept:
+            fit = fit_coxph(Z.iloc[:, kept], y["time"], y["event"], ties="breslow", min_events_per_parameter=0.0)
+            beta[kept] = np.asarray(fit.coef, dtype=float)
+        return beta
 
     def _harmonised(self, X_features, batch, covariates) -> np.ndarray:
         if not hasattr(self, "steps_"):

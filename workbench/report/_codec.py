@@ -41,6 +41,7 @@ from workbench.models.forest import SurvivalForest
 from workbench.models.penalized import PenalizedPathResult
 from workbench.models.recalibrated import RecalibratedModel
 from workbench.models.signature import ClinicalPlusImagingCox, ImagingSignature
+from workbench.models.stability import StabilityResult
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.preprocess.clinical import ClinicalTransformer, PredictorSpec, TermInfo
 from workbench.preprocess.harmonize import ComBat
@@ -396,7 +397,7 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     "ClinicalTransformer": _estimator_codec(
         ClinicalTransformer, ("terms_", "columns_", "n_train_", "n_dropped_train_", "n_imputed_train_")),
     "ImagingSignature": _estimator_codec(
-        ImagingSignature, ("feature_names_in_", "combat_", "scaler_", "filters_", "path_", "steps_",
+        ImagingSignature, ("feature_names_in_", "combat_", "scaler_", "filters_", "path_", "stability_", "steps_",
                            "selected_features_", "coef_", "coef_original_", "intercept_original_",
                            "selected_index_")),
     "ClinicalPlusImagingCox": _estimator_codec(
@@ -419,6 +420,7 @@ CODECS: Mapping[str, Codec] = MappingProxyType({
     "ChiSquareTest": _dataclass_codec(ChiSquareTest),
     "PenalizedPathResult": _dataclass_codec(PenalizedPathResult),
     "StepRecord": _dataclass_codec(StepRecord),
+    "StabilityResult": _dataclass_codec(StabilityResult),
 })
 """Every class a bundle may contain: class name -> (class, encoder, decoder)."""
 

@@ -79,7 +79,10 @@ def validation_claims(result, d: dict) -> list[Claim]:
         steps.append("the ComBat harmonisation")
     if any(getattr(m, "signature_", None) is not None for m in result.models.values()):
         steps.append("the imaging feature filters")
-    if _penalised(result):
+    if _penalised(result) and result.spec.imaging.penalty.selection == "stability":
+        steps.append("the stability selection of the imaging features (half-samples split by original patient "
+                     "identifier)")
+    elif _penalised(result):
         steps.append(f"the choice of the penalty by inner {result.spec.imaging.penalty.folds}-fold "
                      "cross-validation with folds split by original patient identifier (so copies of one "
                      "patient never sit on both sides of a fold)")
@@ -220,8 +223,18 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
                              "cross-validated partial-likelihood deviance (Verweij and van Houwelingen 1993) with "
                              f"{rule}: alpha {pen['alpha']:.4g} ({pen['alpha_over_max']:.3f} x alpha_max, the "
                              "smallest penalty that keeps every feature out)."))
+        st = sig.get("stability")
+        if st is not None:
+            out.append(Claim("imaging.penalty", f"Features were chosen by complementary-pairs stability selection "
+                             f"(Meinshausen and Buehlmann 2010; Shah and Samworth 2013): {st['pairs']} random splits "
+                             "of the patients into two halves, on each half the first "
+                             f"{st['q']} features to enter the lasso path of the Cox model, and a feature kept when "
+                             f"picked in at least {st['threshold']:.0%} of the {2 * st['pairs']} halves; this bounds "
+                             f"the expected number of falsely selected features by {st['bound']:.2f}."))
+        weights = ("their unpenalised Cox coefficients on the development rows" if st is not None
+                   else "the penalised coefficients")
         out.append(Claim("imaging.signature", f"The {len(sig['selected'])} kept features formed a signature "
-                         "score (their standardised values weighted by the penalised coefficients), which entered "
+                         f"score (their standardised values weighted by {weights}), which entered "
                          "a Cox model beside the clinical terms."))
         vc = combined.get("volume_correlation")
         if vc:

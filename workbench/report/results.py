@@ -125,6 +125,7 @@ def _model_block(result, name: str) -> dict:
                 "n_alphas_fitted": int(sig.path_.alphas.size),
                 "extensions": int(sig.path_.n_extensions),
             },
+            "stability": _stability_block(getattr(sig, "stability_", None)),
         }
     if sig is not None or name in result.volume:
         # null: not applicable (no volume feature named, or a signature that kept no feature)
@@ -260,6 +261,16 @@ def results_dict(result) -> dict:
     if getattr(result, "new_site", None):
         out["new_site_sample_size"] = jsonable(result.new_site)
     return out
+
+
+def _stability_block(st) -> dict | None:
+    """Stability selection of the signature (None when the penalty was chosen by cross-validation)."""
+    if st is None:
+        return None
+    order = np.argsort(-np.asarray(st.probability), kind="stable")
+    return {"pairs": st.pairs, "threshold": st.threshold, "max_false": st.max_false, "q": st.q,
+            "bound": st.bound, "selected": list(st.selected),
+            "probability": {st.feature_names[j]: float(st.probability[j]) for j in order}}
 
 
 def harmonisation_digest(result) -> list[str]:
