@@ -169,10 +169,32 @@ def _imaging_steps(r, d, c):
 
 
 def _imaging_penalty(r, d, c):
-    path = r.models["combined"].signature_.path_
     t = c["imaging.penalty"]
+    st = getattr(r.models["combined"].signature_, "stability_", None)
+    if st is not None:  # stability selection: the numbers of the fitted StabilityResult
+        assert f"{st.pairs} random splits" in t and f"first {st.q} features" in t
+        assert f"at least {st.threshold:.0%} of the {2 * st.pairs} halves" in t and f"by {st.bound:.2f}." in t
+        assert "unpenalised Cox coefficients" in c["imaging.signature"]
+        return
+    path = r.models["combined"].signature_.path_
     assert path.rule == "1se" and "one-standard-error rule" in t and f"alpha {path.alpha:.4g}" in t
     assert f"{r.spec.imaging.penalty.folds}-fold cross-validation" in t
+
+
+def test_stability_selection_is_described_with_its_own_numbers(small_study_result):
+    # the combined model's signature refitted with stability selection (models/stability.py)
+    from workbench.models.stability import StabilityResult
+
+    r = small_study_result
+    m = r.models["combined"]
+    names = tuple(m.signature_.feature_names_in_[:5])
+    st = StabilityResult(names, np.array([0.9, 0.8, 0.2, 0.1, 0.0]), names[:2], 3, 0.75, 1.0, 20, 0.9 / 5 * 2)
+    sig = replace_attr(m.signature_, stability_=st, path_=None)
+    run = replace(r, models={**r.models, "combined": replace_attr(m, signature_=sig)})
+    d = results_dict(run)
+    claims = {x.key: x.text for x in _imaging_claims(run, d)}
+    _imaging_penalty(run, d, claims)
+    assert "cross-validation" not in claims["imaging.penalty"]
 
 
 def _imaging_signature(r, d, c):
