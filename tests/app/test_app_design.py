@@ -106,3 +106,24 @@ def test_malformed_study_file_is_a_plain_message(new_app):
         ("typo.toml", b'[study]\nname = "x"\nhorizons = [12]\n[data]\nfeatures = "a.csv"\nclinical = "b.csv"\ntiem = "t"\n',
          "application/toml")).run()
     assert any("unknown key 'tiem'" in e.value and "time" in e.value for e in at.error)
+
+
+def test_scanner_and_signature_choices_reach_the_study(new_app):
+    at = _design(new_app)
+    demo = read_study(DEMO / "study.toml")
+    # the demo's own settings are what the boxes show first
+    assert at.selectbox(key="design0_unseen").value == demo.imaging.harmonise.unseen_batch == "estimate"
+    assert at.selectbox(key="design0_refscanner").value == "(average of all)"
+    assert at.radio(key="design0_selection").value == "cv"
+    # the scanners offered are the development cohort's own
+    assert at.selectbox(key="design0_refscanner").options == ["(average of all)", "scanner_A", "scanner_B",
+                                                               "scanner_C"]
+    at.selectbox(key="design0_refscanner").set_value("scanner_B")
+    at.radio(key="design0_selection").set_value("stability")
+    at.selectbox(key="design0_unseen").set_value("reference")
+    at.run()
+    assert_clean(at)
+    spec = at.session_state[state.K_STUDY]
+    assert spec.imaging.harmonise.reference_scanner == "scanner_B"
+    assert spec.imaging.harmonise.unseen_batch == "reference"
+    assert spec.imaging.penalty.selection == "stability"

@@ -48,6 +48,12 @@ HELP = {
     "unseen": "For an external hospital's scanner that no training patient was imaged on. 'Estimate' learns that "
               "scanner's shift and scale per feature from its own patients' features (never their outcomes; "
               f"at least {DEFAULT_MIN_NEW_BATCH} of them), keeping the training scanners' values fixed.",
+    "reference": "ComBat maps every scanner onto the average of all by default. Name one scanner to map the "
+                 "others onto it and leave its features exactly as measured (for a planned study on that scanner).",
+    "selection": "Cross-validated penalty: the features the lasso keeps at the penalty cross-validation chooses. "
+                 "Stability selection: the features the lasso picks again and again on random halves of the "
+                 "patients, with a bound on the expected number of false picks (1 by default): fewer, more "
+                 "reproducible features; the run takes several times longer.",
     "protect": "Clinical predictors whose link with the imaging features must survive harmonisation "
                "(for example stage, if later stages truly look different on images).",
     "missing": "Complete cases only: a patient with a missing value in this predictor is left out. "
@@ -254,6 +260,10 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> Imag
                                            "reference": "standardise without batch adjustment"}.get,
                               index=policies.index(h.unseen_batch), key=_key("unseen"),
                               help=HELP["unseen"])
+        scanners = ["(average of all)"] + (sorted({str(b) for b in cohort.batch}) if cohort.batch is not None else [])
+        ref = st.selectbox("Harmonise every scanner to", scanners,
+                           index=scanners.index(h.reference_scanner) if h.reference_scanner in scanners else 0,
+                           key=_key("refscanner"), disabled=not can_combat, help=HELP["reference"])
         r = tpl.reduce
         corr = st.slider("Redundancy filter: drop one of each pair correlated above", 0.5, 1.0,
                          float(r.correlation), 0.01, key=_key("corr"), help=HELP["corr"])
@@ -269,11 +279,16 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> Imag
                             format_func={"1se": "1-SE rule", "min": "best"}.get, key=_key("rule"),
                             help=HELP["rule"])
         folds = c3.number_input("Inner folds", 3, 20, int(p.folds), key=_key("pfolds"), help=HELP["folds"])
+        selection = st.radio("Signature features chosen by", ["cv", "stability"], horizontal=True,
+                             index=["cv", "stability"].index(p.selection), key=_key("selection"),
+                             format_func={"cv": "cross-validated penalty",
+                                          "stability": "stability selection"}.get, help=HELP["selection"])
     return replace(
         tpl, include=include, exclude=exclude, volume_feature=None if vol == "(none)" else vol,
-        harmonise=replace(h, method=method if can_combat else "none", protect=tuple(protect), unseen_batch=unseen),
+        harmonise=replace(h, method=method if can_combat else "none", protect=tuple(protect), unseen_batch=unseen,
+                          reference_scanner=None if ref == "(average of all)" else ref),
         reduce=replace(r, correlation=float(corr), screen=bool(screen), screen_fdr=float(fdr)),
-        penalty=replace(p, l1_ratio=float(l1), rule=rule, folds=int(folds)),
+        penalty=replace(p, l1_ratio=float(l1), rule=rule, folds=int(folds), selection=selection),
     )
 
 
