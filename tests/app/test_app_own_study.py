@@ -229,3 +229,33 @@ def test_clinical_only_study_from_an_upload(new_app, frames):
     spec = at.session_state[state.K_STUDY]
     assert spec.data.features is None and spec.models.fit == ("clinical",)
     assert any("Ready to run" in s.value for s in at.success)
+
+
+def test_repeat_table_upload_reaches_the_study_and_its_filter(new_app, frames):
+    from workbench.prepare import prepare_cohort
+
+    features, clinical = frames
+    # a second measurement of 30 patients (invented from GBSG2's own values): progesterone receptor
+    # measured again almost exactly, oestrogen receptor with noise larger than its spread
+    rng = np.random.default_rng(5)
+    rep = features.iloc[:30].copy()
+    rep["progrec"] = rep["progrec"] * (1 + rng.normal(0, 0.02, 30))
+    rep["estrec"] = rng.permutation(rep["estrec"].to_numpy()) + rng.normal(0, 50, 30)
+    at = new_app().run()
+    at.radio(key="data_source").set_value("upload").run()
+    at.file_uploader(key="upload_features").set_value(("gbsg2_features.csv", _csv(features), "text/csv"))
+    at.file_uploader(key="upload_clinical").set_value(("gbsg2_clinical.csv", _csv(clinical), "text/csv"))
+    at = at.run()
+    at.file_uploader(key="upload_repeats").set_value(("gbsg2_repeats.csv", _csv(rep), "text/csv"))
+    at = at.run().button(key="map_confirm").click().run()
+    assert_clean(at)
+    data = at.session_state[state.K_DATA]
+    assert data.repeats and data.repeats.endswith("gbsg2_repeats.csv")
+    at.switch_page("views/design.py").run()
+    assert_clean(at)
+    gen = at.session_state[state.K_DESIGN_GEN]
+    assert at.number_input(key=f"design{gen}_minicc").value == 0.75
+    spec = at.session_state[state.K_STUDY]
+    prepared = prepare_cohort(spec)
+    assert prepared.unreproducible == ("estrec",)
+    assert list(prepared.cohort.features.columns) == ["progrec"]

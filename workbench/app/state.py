@@ -49,6 +49,7 @@ K_HORIZONS_AUTO = "wb_horizons_auto"  # (unit, data hash) the horizons were prop
 K_LAST_GOOD = "wb_last_good"  # RunJob of the last run that finished with a result
 K_ROLES_OK = "wb_roles_confirmed"  # digests of the tables whose column roles the user confirmed
 K_DESIGN_GEN = "wb_design_gen"
+K_REPEATS = "wb_repeats"  # path of an uploaded repeat-measurement table, or None
 DEMO_NOTE = "The demo study (demo_cohort/study.toml) is loaded."
 
 UPLOAD_TYPES = ["csv", "tsv", "txt", "parquet", "pq", "xlsx", "xlsm", "xls"]
@@ -208,6 +209,7 @@ def start_own_study() -> None:
     ss[K_HORIZONS] = ()
     ss[K_HORIZONS_AUTO] = None
     ss[K_ROLES_OK] = None
+    ss[K_REPEATS] = None
     ss[K_DESIGN_GEN] = ss.get(K_DESIGN_GEN, 0) + 1
     for k in [k for k in ss if str(k).startswith("map_")]:
         del ss[k]

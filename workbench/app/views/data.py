@@ -58,7 +58,25 @@ def _choose_tables() -> tuple[str | None, str] | None:
     if f is None:
         st.caption("No imaging features table: a clinical-only study. Upload one to add imaging features.")
         return None, str(state.save_upload(c, "clinical"))
+    r = st.file_uploader(
+        "Repeat measurements of some patients (optional)", type=state.UPLOAD_TYPES, key="upload_repeats",
+        help="A second segmentation or rescan of some patients (10 or more): their id and the same feature "
+             "columns as the imaging table. Features that do not reproduce between the two measurements "
+             "(ICC below the threshold on the Design page, 0.75 by default) are removed before any modelling; "
+             "no outcome is used.")
+    ss[state.K_REPEATS] = str(state.save_upload(r, "repeats")) if r is not None else None
     return str(state.save_upload(f, "features")), str(state.save_upload(c, "clinical"))
+
+
+def _repeats(features, prev) -> dict:
+    """The repeat-measurement table: the uploaded one (own tables), or a library study's, kept with its
+    imaging table."""
+    ss = st.session_state
+    if ss.get(state.K_SOURCE) == "upload":
+        return {"repeats": ss[state.K_REPEATS]} if features and ss.get(state.K_REPEATS) else {}
+    if prev is not None and prev.features == features:
+        return {"repeats": prev.repeats, "repeats_sheet": prev.repeats_sheet}
+    return {}
 
 
 def _pick(label, options, current, key, help=None, optional=False):
@@ -158,9 +176,7 @@ def _map_columns(features: str | None, clinical: str) -> DataSpec | None:
             time_unit=unit, event_codes=tuple(ev) or None, censor_codes=tuple(cz) or None,
             centre=centre, batch=batch, on_unmatched="intersect" if keep_both else "error",
             drop_unusable_features=drop,
-            # a library study's repeat-measurement table stays with its imaging table
-            **({"repeats": prev.repeats, "repeats_sheet": prev.repeats_sheet}
-               if prev is not None and prev.features == features else {}),
+            **_repeats(features, prev),
         )
         data.column_map()
     except WorkbenchError as exc:

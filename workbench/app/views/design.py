@@ -16,6 +16,7 @@ from workbench.models.registry import MODEL_LABELS
 from workbench.prepare import select_pool
 from workbench.preprocess.clinical import PredictorSpec
 from workbench.preprocess.harmonize import DEFAULT_MIN_NEW_BATCH
+from workbench.preprocess.reproducibility import ICC_FORMS
 from workbench.study import (
     BACKENDS,
     MODEL_NAMES,
@@ -48,6 +49,8 @@ HELP = {
     "unseen": "For an external hospital's scanner that no training patient was imaged on. 'Estimate' learns that "
               "scanner's shift and scale per feature from its own patients' features (never their outcomes; "
               f"at least {DEFAULT_MIN_NEW_BATCH} of them), keeping the training scanners' values fixed.",
+    "icc": "Intraclass correlation between the first and the repeat measurement: ICC(3,1) for consistency "
+           "(a shift common to all repeat values is ignored), ICC(2,1) for absolute agreement, ICC(1,1) one-way.",
     "reference": "ComBat maps every scanner onto the average of all by default. Name one scanner to map the "
                  "others onto it and leave its features exactly as measured (for a planned study on that scanner).",
     "selection": "Cross-validated penalty: the features the lasso keeps at the penalty cross-validation chooses. "
@@ -240,6 +243,17 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> Imag
         vol = st.selectbox("Tumour-volume feature (checked for dominance of the signature)", vol_opts,
                            index=vol_opts.index(tpl.volume_feature) if tpl.volume_feature in vol_opts else 0,
                            key=_key("volume"))
+        rp = tpl.reproducibility
+        if data.repeats:
+            r1, r2 = st.columns(2)
+            form = r1.selectbox("Reproducibility (repeat table)", list(ICC_FORMS), index=list(ICC_FORMS).index(rp.form),
+                                key=_key("iccform"), help=HELP["icc"])
+            min_icc = r2.number_input("Keep features with ICC at least", 0.0, 0.99, float(rp.min_icc), 0.05,
+                                      key=_key("minicc"))
+            rp = replace(rp, form=form, min_icc=float(min_icc))
+        else:
+            st.caption("No repeat-measurement table: every feature of the pool is kept (upload one on the Data "
+                       "page to remove features that do not reproduce).")
     with b:
         h = tpl.harmonise
         can_combat = bool(data.batch)
@@ -289,6 +303,7 @@ def _imaging(cohort, tpl: ImagingSpec, predictors, data, problems: list) -> Imag
                           reference_scanner=None if ref == "(average of all)" else ref),
         reduce=replace(r, correlation=float(corr), screen=bool(screen), screen_fdr=float(fdr)),
         penalty=replace(p, l1_ratio=float(l1), rule=rule, folds=int(folds), selection=selection),
+        reproducibility=rp,
     )
 
 
