@@ -293,17 +293,29 @@ def harmonisation_digest(result) -> list[str]:
             lines.append(f"  new scanner {r['scanner']} ({r['n']} patients): "
                          + (f"harmonised from its own features (mean shift {r['mean_abs_shift_sd']:.2f} SD, "
                             f"SD ratio {r['median_sd_ratio']:.2f})" if r["adjusted"] else "left unadjusted"))
+            cal = [c for c in nb.get("calibration", []) if c["scanner"] == r["scanner"]]
+            if cal:
+                unit = result.spec.data.time_unit
+                hs = "/".join(f"{c['horizon']:g}" for c in cal)
+                lines.append(f"    its O/E at {hs} {unit}: " + "/".join(f"{c['oe_unadjusted']:.2f}" for c in cal)
+                             + " left unadjusted -> " + "/".join(f"{c['oe_harmonised']:.2f}" for c in cal)
+                             + " harmonised")
     return lines
 
 
 def new_batches_block(spec, models, cohort) -> dict | None:
-    """How scanners unseen in training were harmonised (None without ComBat or a batch column)."""
+    """How scanners unseen in training were harmonised, and what it changed for their calibration
+    (``calibration``: O/E and ICI per horizon, harmonised vs left unadjusted); None without ComBat
+    or a batch column."""
     from workbench.preprocess.harmonize import new_batch_records
+    from workbench.validation.new_scanner import new_scanner_calibration
 
     h = spec.imaging.harmonise
     if h.method != "combat" or cohort.batch is None:
         return None
-    return new_batch_records(models, cohort, h.unseen_batch, h.min_new_batch)
+    out = new_batch_records(models, cohort, h.unseen_batch, h.min_new_batch)
+    out["calibration"] = new_scanner_calibration(models, cohort, spec.horizons, h.unseen_batch, h.min_new_batch)
+    return out
 
 
 def _volume_comparison_block(result) -> dict | None:

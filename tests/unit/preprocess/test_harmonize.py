@@ -192,3 +192,17 @@ def test_reference_scanner_key_round_trips_and_is_checked_against_the_cohort(tmp
     typo = replace(spec, imaging=replace(spec.imaging, harmonise=replace(h, reference_scanner="scaner_B")))
     with pytest.raises(SpecError, match=r"'scaner_B' is not a scanner of the development cohort .*did you mean 'scanner_B'"):
         check_reference_scanner(typo, cohort)
+
+
+def test_new_scanner_calibration_is_reported_only_for_harmonised_new_scanners():
+    from workbench.validation.new_scanner import new_scanner_calibration
+
+    class NoCombat:
+        def harmonisation_inputs(self, cohort):
+            return None, None, None
+
+    # no new scanner harmonised: nothing to compare (policy "reference", or no ComBat step)
+    assert new_scanner_calibration({"m": NoCombat()}, type("C", (), {"batch": np.array(["a"])})(), (12,),
+                                   "reference", 20) == []
+    assert new_scanner_calibration({"m": NoCombat()}, type("C", (), {"batch": np.array(["a"])})(), (12,),
+                                   "estimate", 20) == []
