@@ -43,6 +43,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from workbench.preprocess.reduce import benjamini_hochberg
+
 DEFAULT_FDR = 0.05
 # confounding is flagged when the association is both clear (p below this) and large
 CONFOUNDING_P = 0.01
@@ -51,17 +53,8 @@ LARGE_ETA2 = 0.14  # Cohen's "large" eta squared (common practice)
 
 
 def bh_qvalues(p) -> np.ndarray:
-    """Benjamini-Hochberg adjusted p-values (q-values), in the input order."""
-    p = np.asarray(p, dtype=float)
-    n = p.size
-    if n == 0:
-        return p
-    order = np.argsort(p)
-    ranked = p[order] * n / np.arange(1, n + 1)
-    q = np.minimum.accumulate(ranked[::-1])[::-1]
-    out = np.empty(n)
-    out[order] = np.minimum(q, 1.0)
-    return out
+    """Benjamini-Hochberg adjusted p-values (q-values), in the input order (the screen's own rule)."""
+    return benjamini_hochberg(p)
 
 
 def _codes(batch) -> tuple[np.ndarray, np.ndarray]:
