@@ -101,3 +101,19 @@ def test_signature_built_by_stability_selection_scores_and_survives_a_bundle(tmp
     back = decode_value(tree, ArrayStore(store.arrays), "sig")
     np.testing.assert_array_equal(back.score(frame), sig.score(frame))
     np.testing.assert_array_equal(back.stability_.probability, st.probability)
+
+
+def test_an_empty_stability_signature_says_which_setting_emptied_it():
+    # found on GBSG2 split into two tables: 7 features give q = 1, and no feature reached 75%
+    from types import SimpleNamespace
+
+    from workbench.errors import EmptySignatureWarning
+    from workbench.models.labels import warn_empty_signatures
+    from workbench.models.stability import StabilityResult
+
+    st = StabilityResult(tuple(f"f{j}" for j in range(7)), np.array([0.65, 0.35, 0, 0, 0, 0, 0]), (), 1, 0.75, 1.0,
+                         20, 1 / 3.5)
+    model = SimpleNamespace(selected_features_=(), signature_=SimpleNamespace(stability_=st))
+    with pytest.warns(EmptySignatureWarning, match=r"first 1 feature\(s\) of 7 .* none reached 75% of the halves "
+                                                   r"\(the most stable: 65%\); raise stability_max_false"):
+        warn_empty_signatures({"combined": model})

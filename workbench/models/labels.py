@@ -43,8 +43,13 @@ def warn_empty_signatures(models: dict) -> None:
             continue
         what = ("the combined model has no signature term and is equal to the clinical model"
                 if name == "combined" else f"the {MODEL_LABELS.get(name, name)} model has no imaging term")
+        st = getattr(getattr(m, "signature_", None), "stability_", None)
+        check = ("the screening threshold and the penalty rule" if st is None else
+                 f"the stability settings: each half-sample picked only the first {st.q} feature(s) of "
+                 f"{len(st.feature_names)} (the bound of {st.max_false:g} expected false selections) and none "
+                 f"reached {st.threshold:.0%} of the halves (the most stable: "
+                 f"{max(st.probability):.0%}); raise stability_max_false or lower stability_threshold")
         warnings.warn(
             f"{MODEL_LABELS.get(name, name)} kept no imaging feature on all patients: {what}. "
-            "Its performance and comparisons say nothing about imaging; check the feature pool, the "
-            "screening threshold and the penalty rule.",
+            f"Its performance and comparisons say nothing about imaging; check the feature pool, {check}.",
             EmptySignatureWarning, stacklevel=2)
