@@ -24,13 +24,14 @@ from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import ColumnMap
 from workbench.errors import SpecError, WorkbenchError
 from workbench.models.stability import DEFAULT_MAX_FALSE, DEFAULT_PAIRS, DEFAULT_THRESHOLD
-from workbench.preprocess.clinical import PredictorSpec
-from workbench.preprocess.harmonize import (
+from workbench.preprocess.imaging_options import (
     COMBAT_PRIORS,
+    DEFAULT_MIN_ICC,
     DEFAULT_MIN_NEW_BATCH,
+    ICC_FORMS,
     UNSEEN_BATCH_POLICIES,
 )
-from workbench.preprocess.reproducibility import DEFAULT_MIN_ICC, ICC_FORMS
+from workbench.preprocess.predictor_spec import PredictorSpec
 from workbench.study_types import check_value, field_types
 
 MODEL_NAMES = ("clinical", "combined", "penalised_all", "forest")

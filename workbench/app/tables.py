@@ -6,7 +6,7 @@ import math
 
 import pandas as pd
 
-from workbench.models.registry import MODEL_LABELS
+from workbench.models.labels import MODEL_LABELS
 
 METRIC_LABELS = {
     "harrell_c": "Harrell C",

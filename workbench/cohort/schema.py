@@ -72,14 +72,24 @@ def check_ids(df: pd.DataFrame, source, id_col: str) -> None:
 
 
 def _to_float(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """Numbers, plus the mask of cells that were present but not numeric."""
+    """Numbers, plus the mask of cells that were present but not numeric.
+
+    Text cells are parsed in one vectorised pass; only the cells that pass fails on (blank,
+    padded or text) are looked at again, stripped, so a table of numbers read as text stays quick.
+    """
     s = values
-    if s.dtype == object or pd.api.types.is_string_dtype(s):
-        s = s.astype("string").str.strip().replace("", pd.NA)
-    num = pd.to_numeric(s, errors="coerce")
-    present = ~pd.isna(s)
-    bad = present.to_numpy() & pd.isna(num).to_numpy()
-    return num.to_numpy(dtype=float), bad
+    if not (s.dtype == object or pd.api.types.is_string_dtype(s)):
+        num = pd.to_numeric(s, errors="coerce")
+        return num.to_numpy(dtype=float), (~pd.isna(s)).to_numpy() & pd.isna(num).to_numpy()
+    num = pd.to_numeric(s, errors="coerce").to_numpy(dtype=float)
+    again = np.isnan(num) & s.notna().to_numpy()
+    bad = np.zeros(len(s), dtype=bool)
+    if again.any():
+        sub = s[again].astype("string").str.strip().replace("", pd.NA)
+        sub_num = pd.to_numeric(sub, errors="coerce")
+        num[again] = sub_num.to_numpy(dtype=float, na_value=np.nan)
+        bad[again] = (~pd.isna(sub)).to_numpy() & pd.isna(sub_num).to_numpy()
+    return num, bad
 
 
 def _comma_hint(values) -> str:

@@ -12,7 +12,15 @@ from __future__ import annotations
 import warnings
 
 from workbench.errors import EmptySignatureWarning
-from workbench.models.registry import MODEL_LABELS
+
+VOLUME_MODEL = "clinical_volume"
+MODEL_LABELS = {
+    "clinical": "Clinical Cox",
+    "combined": "Clinical + imaging signature",
+    "penalised_all": "Penalised Cox, clinical + all imaging",
+    "forest": "Random survival forest",
+    VOLUME_MODEL: "Clinical + tumour volume",
+}
 
 EQUAL_NOTE = "equal to the clinical model"
 

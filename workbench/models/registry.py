@@ -3,19 +3,12 @@
 from __future__ import annotations
 
 from workbench.models.cox import ClinicalCox, CombinedCox
+from workbench.models.labels import MODEL_LABELS  # noqa: F401  (re-exported)
 from workbench.models.signature import ImagingSignature
 from workbench.models.volume import VOLUME_MODEL, VolumeCox
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.study import StudySpec
-
-MODEL_LABELS = {
-    "clinical": "Clinical Cox",
-    "combined": "Clinical + imaging signature",
-    "penalised_all": "Penalised Cox, clinical + all imaging",
-    "forest": "Random survival forest",
-    VOLUME_MODEL: "Clinical + tumour volume",
-}
 
 COMPARISON_MODELS = (VOLUME_MODEL,)
 """Models the workbench adds on its own to answer a question about the study's models

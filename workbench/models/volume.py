@@ -26,9 +26,8 @@ import numpy as np
 from workbench.cohort.core import Cohort
 from workbench.errors import ModelError
 from workbench.models.cox import ClinicalCox, _complete_rows
+from workbench.models.labels import VOLUME_MODEL
 from workbench.preprocess.clinical import ClinicalTransformer, PredictorSpec
-
-VOLUME_MODEL = "clinical_volume"
 
 
 def volume_predictor(feature: str, values) -> PredictorSpec:

@@ -27,10 +27,11 @@ import pandas as pd
 from sklearn.base import BaseEstimator
 
 from workbench.errors import CohortError, DataQualityWarning, ModelError, NotFittedError
-
-COMBAT_PRIORS = ("parametric", "nonparametric", "none")
-UNSEEN_BATCH_POLICIES = ("error", "reference", "estimate")
-DEFAULT_MIN_NEW_BATCH = 20  # patients of an unseen scanner needed to estimate its effects (our choice; see ComBat)
+from workbench.preprocess.imaging_options import (  # noqa: F401  (re-exported)
+    COMBAT_PRIORS,
+    DEFAULT_MIN_NEW_BATCH,
+    UNSEEN_BATCH_POLICIES,
+)
 
 
 def _labels(batch, n: int, where: str) -> np.ndarray:

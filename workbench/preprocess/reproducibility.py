@@ -54,10 +54,8 @@ import pandas as pd
 from scipy.stats import f as f_dist
 
 from workbench.errors import CohortError
+from workbench.preprocess.imaging_options import DEFAULT_MIN_ICC, ICC_FORMS  # noqa: F401  (re-exported)
 
-ICC_FORMS = ("ICC(1,1)", "ICC(2,1)", "ICC(3,1)")
-DEFAULT_MIN_ICC = 0.75
-"""Common practice (Koo & Li 2016: 0.75-0.90 'good')."""
 MIN_REPEAT_PATIENTS = 10
 """Fewest patients with a usable repeat measurement for an ICC (its interval is very wide below)."""
 

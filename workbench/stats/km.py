@@ -8,9 +8,9 @@ Case weights are supported so that the same code serves frequency weights
 from __future__ import annotations
 
 from dataclasses import dataclass
+from statistics import NormalDist
 
 import numpy as np
-from scipy.stats import norm
 
 from workbench.errors import MetricError
 
@@ -178,7 +178,7 @@ def kaplan_meier(time, event, *, weights=None, conf_level: float = 0.95) -> Kapl
     positive = surv > 0
     std_err = np.where(positive, surv * np.sqrt(np.where(positive, cum, 0.0)), 0.0)
 
-    z = norm.ppf(0.5 + conf_level / 2.0)
+    z = NormalDist().inv_cdf(0.5 + conf_level / 2.0)
     lower = surv.copy()
     upper = surv.copy()
     inner = positive & (surv < 1.0) & np.isfinite(cum)

@@ -12,10 +12,10 @@ import streamlit as st
 
 from workbench.app import state
 from workbench.errors import WorkbenchError
-from workbench.models.registry import MODEL_LABELS
+from workbench.models.labels import MODEL_LABELS
 from workbench.prepare import select_pool
-from workbench.preprocess.clinical import PredictorSpec
 from workbench.preprocess.harmonize import DEFAULT_MIN_NEW_BATCH
+from workbench.preprocess.predictor_spec import PredictorSpec
 from workbench.preprocess.reproducibility import ICC_FORMS
 from workbench.study import (
     BACKENDS,
