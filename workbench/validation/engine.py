@@ -146,9 +146,11 @@ def _run_chunk(payload) -> list:
 
 def _chunks(tasks: list, workers: int, backend: str) -> list[list]:
     # Ship the cohort once per chunk rather than once per replicate, but keep at least ten
-    # chunks so that progress and cancellation are seen during the run. Serial runs ship
-    # nothing, so every replicate is its own chunk.
-    n_chunks = len(tasks) if backend == "serial" else min(len(tasks), max(10, 4 * int(workers)))
+    # chunks so that progress and cancellation are seen during the run. Serial runs (one
+    # worker runs in this process too, see backends.run_tasks) ship nothing, so every
+    # replicate is its own chunk: progress after each one, and a cancel acts within one.
+    serial = backend == "serial" or (int(workers) == 1 and backend in ("processes", "threads"))
+    n_chunks = len(tasks) if serial else min(len(tasks), max(10, 4 * int(workers)))
     n_chunks = max(1, n_chunks)
     bounds = np.linspace(0, len(tasks), n_chunks + 1).round().astype(int)
     return [tasks[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]

@@ -285,3 +285,15 @@ def test_by_centre_orders_numeric_centre_codes_by_value(gbsg2):
     assert res.centres == ("1", "2", "10")
     events = [int(numbered.event[numbered.centre == c].sum()) for c in res.centres]
     assert list(res.replicates["m"].events) == events
+
+
+def test_one_worker_reports_progress_after_every_replicate_and_gives_the_same_numbers(gbsg2):
+    # A cancel acts at the next progress call: with one worker (run in this process) each
+    # replicate is its own task, so the app's Cancel button acts within one replicate.
+    m = ColumnsCox(("pnodes", "tgrade"), name="m")
+    seen = []
+    one = validate({"m": m}, gbsg2, H, replicates=12, random_state=5, backend="processes", workers=1,
+                   calibration=False, progress=lambda done, total: seen.append((done, total)))
+    assert seen == [(k, 12) for k in range(1, 13)]
+    ref = validate({"m": m}, gbsg2, H, replicates=12, random_state=5, backend="serial", calibration=False)
+    assert one.estimates["m"]["harrell_c"].estimate == ref.estimates["m"]["harrell_c"].estimate
