@@ -148,10 +148,10 @@ def apply_bundle(bundle: Bundle, features, clinical, *, replicates: int | None =
         if key not in seen:
             seen.add(key)
             msgs.append(key)
-    from workbench.report.results import new_batches_block
+    from workbench.validation.new_scanner import new_scanner_block
 
     return ExternalResult(prepared, predictions, validation, comparisons, pd.DataFrame(rows), tuple(msgs),
-                          new_batches_block(spec, bundle.models, cohort))
+                          new_scanner_block(spec, bundle.models, cohort))
 
 
 def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str, path, *,

@@ -32,6 +32,7 @@ from workbench.validation.added_value import run_added_value
 from workbench.validation.compare import ComparisonResult, compare_models
 from workbench.validation.difference_bands import study_difference_bands
 from workbench.validation.groups import loco_groups
+from workbench.validation.new_scanner import new_scanner_block
 from workbench.validation.resample import ValidationResult, validate, validate_external
 
 GROUP_REPLICATES = 50
@@ -124,6 +125,10 @@ class StudyResult:
     harmonisation : dict or None
         Before/after checks of the ComBat step and the scanner-confounding check
         (:func:`workbench.preprocess.harmonisation_checks.study_checks`); None without ComBat.
+    new_batches : dict or None
+        How the external cohort's scanners unseen in training were harmonised, and their
+        calibration harmonised vs left unadjusted
+        (:func:`workbench.validation.new_scanner.new_scanner_block`); computed once per run.
     """
 
     spec: StudySpec
@@ -146,6 +151,7 @@ class StudyResult:
     volume_comparisons: dict = field(default_factory=dict)
     difference_bands: dict = field(default_factory=dict)
     harmonisation: dict | None = None
+    new_batches: dict | None = None
 
     @property
     def cohort(self):
@@ -322,6 +328,7 @@ def run_study(
                 progress=_progress(progress, cancel, "external validation"),
             )
         harmonisation = _harmonisation_checks(fitted, cohort, spec, ext_prepared)
+        new_batches = new_scanner_block(spec, fitted, ext_prepared.cohort) if ext_prepared is not None else None
         if v.method == "by_centre":
             validation = replace(validation, groups={"centre": loco_groups(
                 unfitted, cohort, spec.horizons, replicates=min(v.replicates, GROUP_REPLICATES),
@@ -391,5 +398,6 @@ def run_study(
         volume_comparisons=volume_comparisons,
         difference_bands=bands,
         harmonisation=harmonisation,
+        new_batches=new_batches,
     )
 

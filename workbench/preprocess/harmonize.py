@@ -425,32 +425,3 @@ class ComBat(BaseEstimator):
 
     def fit_transform(self, X, batch, covariates=None):
         return self.fit(X, batch, covariates).transform(X, batch, covariates)
-
-
-def new_batch_records(models, cohort, policy: str, minimum: int) -> dict:
-    """What each harmonising model did with the cohort's scanners unseen in training.
-
-    ``{"policy", "min_new_batch", "scanners": [{"model", "scanner", "n", "adjusted",
-    "mean_abs_shift_sd", "median_sd_ratio"}]}``; empty scanners when all are known.
-    Scanners below ``minimum`` (or any unseen scanner under "reference") are listed
-    with ``adjusted`` false. Derived from the fitted models and the cohort's own
-    features and protected covariates; no outcomes.
-    """
-    rows = []
-    for name, m in models.items():
-        if not hasattr(m, "harmonisation_inputs") or cohort.batch is None:
-            continue
-        X, C, combat = m.harmonisation_inputs(cohort)
-        if combat is None:
-            continue
-        labels = np.asarray(cohort.batch).astype(str)
-        known = {str(b) for b in combat.batches_}
-        fresh = combat.new_batches(X, cohort.batch, C) if policy == "estimate" else {}
-        for lab in sorted(set(labels) - known):
-            nb = fresh.get(lab)
-            rows.append({"model": name, "scanner": lab, "n": int((labels == lab).sum()),
-                         "adjusted": nb is not None,
-                         "mean_abs_shift_sd": None if nb is None else round(nb.shift_sd, 6),
-                         "median_sd_ratio": None if nb is None else round(nb.scale_ratio, 6)})
-    rows.sort(key=lambda r: (r["model"], r["scanner"]))
-    return {"policy": policy, "min_new_batch": int(minimum), "scanners": rows}

@@ -291,16 +291,15 @@ def added_value_text(d: dict) -> str:
 def unseen_handling(result) -> dict[str, tuple[str, int]]:
     """Each external scanner absent from development: ("estimated" | "unadjusted", its patients).
 
-    Mirrors ComBat.transform: under ``unseen_batch = "estimate"`` a scanner with at
-    least ``min_new_batch`` patients in the external table is harmonised from its own
-    features; otherwise (or under "reference") its patients are left unadjusted.
+    Read from what the run recorded (``result.new_batches``, one row per harmonising model and
+    scanner); a scanner no harmonising model adjusted - or any, without ComBat - is "unadjusted".
     """
-    h = result.spec.imaging.harmonise
+    rows = (getattr(result, "new_batches", None) or {}).get("scanners", [])
+    labels = np.asarray(result.external_prepared.cohort.batch).astype(str) if unseen_batches(result) else ()
     out = {}
     for b in unseen_batches(result):
-        n = int(np.sum(np.asarray(result.external_prepared.cohort.batch).astype(str) == b))
-        ok = h.method == "combat" and h.unseen_batch == "estimate" and n >= h.min_new_batch
-        out[b] = ("estimated" if ok else "unadjusted", n)
+        done = any(r["adjusted"] for r in rows if r["scanner"] == b)
+        out[b] = ("estimated" if done else "unadjusted", int(np.sum(labels == b)))
     return out
 
 

@@ -252,7 +252,7 @@ def results_dict(result) -> dict:
             if ext.cohort.batch is not None
             else {},
             "comparison": {name: _comparison_block(c) for name, c in result.external_comparisons.items()},
-            "new_batches": new_batches_block(result.spec, result.models, ext.cohort),
+            "new_batches": result.new_batches,
         }
     out["reproducibility"] = _reproducibility_block(result)
     out["harmonisation"] = jsonable(getattr(result, "harmonisation", None))
@@ -288,12 +288,12 @@ def harmonisation_digest(result) -> list[str]:
     if "external" in h:
         lines.append(f"Harmonisation, external cohort: {pair(h['external'])}.")
     if result.external_prepared is not None:
-        nb = new_batches_block(result.spec, {h["model"]: result.models[h["model"]]}, result.external_prepared.cohort)
-        for r in (nb or {}).get("scanners", []):
+        nb = result.new_batches or {}
+        for r in (r for r in nb.get("scanners", []) if r["model"] == h["model"]):
             lines.append(f"  new scanner {r['scanner']} ({r['n']} patients): "
                          + (f"harmonised from its own features (mean shift {r['mean_abs_shift_sd']:.2f} SD, "
                             f"SD ratio {r['median_sd_ratio']:.2f})" if r["adjusted"] else "left unadjusted"))
-            cal = [c for c in nb.get("calibration", []) if c["scanner"] == r["scanner"]]
+            cal = [c for c in nb.get("calibration", []) if c["scanner"] == r["scanner"] and c["model"] == h["model"]]
             if cal:
                 unit = result.spec.data.time_unit
                 hs = "/".join(f"{c['horizon']:g}" for c in cal)
@@ -301,21 +301,6 @@ def harmonisation_digest(result) -> list[str]:
                              + " left unadjusted -> " + "/".join(f"{c['oe_harmonised']:.2f}" for c in cal)
                              + " harmonised")
     return lines
-
-
-def new_batches_block(spec, models, cohort) -> dict | None:
-    """How scanners unseen in training were harmonised, and what it changed for their calibration
-    (``calibration``: O/E and ICI per horizon, harmonised vs left unadjusted); None without ComBat
-    or a batch column."""
-    from workbench.preprocess.harmonize import new_batch_records
-    from workbench.validation.new_scanner import new_scanner_calibration
-
-    h = spec.imaging.harmonise
-    if h.method != "combat" or cohort.batch is None:
-        return None
-    out = new_batch_records(models, cohort, h.unseen_batch, h.min_new_batch)
-    out["calibration"] = new_scanner_calibration(models, cohort, spec.horizons, h.unseen_batch, h.min_new_batch)
-    return out
 
 
 def _volume_comparison_block(result) -> dict | None:

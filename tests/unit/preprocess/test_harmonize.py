@@ -194,15 +194,21 @@ def test_reference_scanner_key_round_trips_and_is_checked_against_the_cohort(tmp
         check_reference_scanner(typo, cohort)
 
 
-def test_new_scanner_calibration_is_reported_only_for_harmonised_new_scanners():
-    from workbench.validation.new_scanner import new_scanner_calibration
+def test_new_scanner_block_needs_combat_and_a_harmonising_model():
+    from dataclasses import replace
+
+    from workbench.study import read_study
+    from workbench.validation.new_scanner import new_scanner_block
 
     class NoCombat:
         def harmonisation_inputs(self, cohort):
             return None, None, None
 
-    # no new scanner harmonised: nothing to compare (policy "reference", or no ComBat step)
-    assert new_scanner_calibration({"m": NoCombat()}, type("C", (), {"batch": np.array(["a"])})(), (12,),
-                                   "reference", 20) == []
-    assert new_scanner_calibration({"m": NoCombat()}, type("C", (), {"batch": np.array(["a"])})(), (12,),
-                                   "estimate", 20) == []
+    spec = read_study(__import__("pathlib").Path(__file__).parents[3] / "demo_cohort" / "study.toml")
+    cohort = type("C", (), {"batch": np.array(["a"])})()
+    plain = replace(spec, imaging=replace(spec.imaging, harmonise=replace(spec.imaging.harmonise, method="none")))
+    assert new_scanner_block(plain, {"m": NoCombat()}, cohort) is None  # no ComBat step: nothing to record
+    assert new_scanner_block(spec, {"m": NoCombat()}, type("C", (), {"batch": None})()) is None  # no scanners
+    block = new_scanner_block(spec, {"m": NoCombat()}, cohort)  # a model without a ComBat step adjusts nothing
+    assert block == {"policy": spec.imaging.harmonise.unseen_batch,
+                     "min_new_batch": spec.imaging.harmonise.min_new_batch, "scanners": [], "calibration": []}
