@@ -73,8 +73,14 @@ def _cell(df, model_label: str, measure: str, column: str) -> str:
 def test_results_page_runs_and_shows_harrell_c_of_the_command_line(ran, cli_results):
     assert_clean(ran)
     assert any("Finished in" in s.value for s in ran.success)
-    disc = _frame_with(ran, "Model", "Measure", "Validated", "Apparent")
     wide = _frame_with(ran, "Measure", "Clinical Cox", "Clinical + imaging signature")
+    with pytest.raises(AssertionError):  # apparent values and optimism only on demand
+        _frame_with(ran, "Model", "Measure", "Validated", "Apparent")
+    ran.toggle(key="results_details").set_value(True).run()
+    assert_clean(ran)
+    disc = _frame_with(ran, "Model", "Measure", "Validated", "Apparent")
+    assert any("Reclassification (NRI, IDI)" in m.value for m in ran.markdown)
+    ran.toggle(key="results_details").set_value(False).run()
     # Reference: the command line's results.json for the same study file and seed.
     for name, label in (("clinical", "Clinical Cox"), ("combined", "Clinical + imaging signature")):
         perf = cli_results["models"][name]["performance"]["harrell_c"]

@@ -67,6 +67,16 @@ def bar_figure(labels, values, *, xlabel: str) -> Figure:
     return fig
 
 
+SCREEN_DPI = 110
+
+
+def screen_png(fig) -> bytes:
+    """A figure as a PNG for the page: quick to draw, sharp enough on screen."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=SCREEN_DPI, bbox_inches="tight")
+    return buf.getvalue()
+
+
 def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 200) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=dpi)

@@ -80,6 +80,13 @@ def figures(result) -> dict:
     return mod.study_figures(result) if mod is not None and hasattr(mod, "study_figures") else {}
 
 
+def screens(exports) -> dict:
+    """Each standard figure as the PNG the Results view shows (name -> bytes), drawn ahead of the visit."""
+    from workbench.app.charts import screen_png
+
+    return {name: screen_png(fig) for name, fig in (exports.get("figures") or {}).items() if name != "nomogram"}
+
+
 BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
             "bundle": bundle_zip}
 
@@ -91,7 +98,7 @@ class Exports:
         self.result = result
         self.files: dict[str, object] = {}
         self.errors: dict[str, BaseException] = {}
-        self._lock = threading.Lock()
+        self._lock = threading.RLock()  # "screens" is built from "figures" while holding it
         self._thread: threading.Thread | None = None
 
     def start(self) -> Exports:
@@ -100,7 +107,8 @@ class Exports:
         return self
 
     def _all(self) -> None:
-        for name in ("figures", "json", "bundle", "folder", "report"):  # the slowest last
+        # the Results view's figures first, then the Export view's files, the slowest last
+        for name in ("figures", "screens", "json", "bundle", "folder", "report"):
             self._build(name)
 
     def _build(self, name: str) -> None:
@@ -110,7 +118,7 @@ class Exports:
             try:
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore")
-                    self.files[name] = BUILDERS[name](self.result)
+                    self.files[name] = (screens(self) if name == "screens" else BUILDERS[name](self.result))
             except Exception as exc:  # noqa: BLE001 - shown in the Export view
                 self.errors[name] = exc
 

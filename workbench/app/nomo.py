@@ -8,6 +8,7 @@ import zipfile
 import streamlit as st
 
 from workbench.app import state, tables
+from workbench.app.charts import SCREEN_DPI, screen_png  # noqa: F401  (re-exported)
 
 NOMOGRAM_MODELS = ("clinical", "combined")
 
@@ -61,17 +62,6 @@ def rounded_survival(surv):
         digits = 1 if c == "total_points" else 3
         out[c] = out[c].astype(float).round(digits)
     return out
-
-
-SCREEN_DPI = 110
-"""Resolution of figures shown in the page (downloads are PNG at 300 dpi, or SVG and PDF)."""
-
-
-def screen_png(fig) -> bytes:
-    """A figure as a PNG for the page: quick to draw, sharp enough on screen."""
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=SCREEN_DPI, bbox_inches="tight")
-    return buf.getvalue()
 
 
 def points_table_zip(tables_by_model: dict, prefix: str = "") -> bytes:

@@ -201,6 +201,14 @@ def _fmt(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+@st.cache_data(show_spinner=False, max_entries=8)
+def _km_png(data_hash: str, horizons: tuple, time_unit: str, ylabel: str, _cohort) -> bytes:
+    """The cohort's Kaplan-Meier figure as PNG, drawn once per table content, horizons and labels."""
+    fig = charts.km_figure(kaplan_meier(_cohort.time, _cohort.event), time_unit=time_unit, horizons=horizons,
+                           ylabel=ylabel)
+    return charts.figure_bytes(fig)
+
+
 def _summary(cohort, horizons) -> None:
     inside = tuple(h for h in horizons if 0 < h <= float(cohort.time.max()))
     summary, warns = state.cohort_summary(cohort.source.data_hash, inside, cohort)
@@ -223,9 +231,8 @@ def _summary(cohort, horizons) -> None:
     with left:
         d = state.current_data()
         outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
-        fig = charts.km_figure(kaplan_meier(cohort.time, cohort.event), time_unit=u, horizons=inside,
-                               ylabel="Overall survival" if outcome == "death" else f"Free of {outcome}")
-        st.image(charts.figure_bytes(fig), caption=f"Kaplan-Meier estimate of freedom from {outcome}, "
+        ylabel = "Overall survival" if outcome == "death" else f"Free of {outcome}"
+        st.image(_km_png(cohort.source.data_hash, inside, u, ylabel, cohort), caption=f"Kaplan-Meier estimate of freedom from {outcome}, "
                  "with 95% confidence band")
     with right:
         if summary.horizons:

@@ -140,8 +140,14 @@ def _figure_title(name: str) -> str:
 
 
 @st.cache_data(show_spinner=False, max_entries=32)
-def _figure_png(run_key: tuple, name: str, _fig) -> bytes:
-    """A run's figure as PNG for the page, drawn once per run and figure."""
+def _figure_png(run_key: tuple, name: str, _fig, _job=None) -> bytes:
+    """A run's figure as PNG for the page: drawn in the background after the run
+    (:mod:`workbench.app.exports`, never two threads on one figure), or here without it."""
+    ex = getattr(_job, "exports", None)
+    if ex is not None:
+        png = (ex.get("screens") or {}).get(name)
+        if png is not None:
+            return png
     return nomo.screen_png(_fig)
 
 
@@ -166,7 +172,7 @@ def _figures(result, key) -> None:
     pick = st.selectbox("Figure", names, format_func=_figure_title, key="results_figure")
     fig = figs[pick]
     left, right = st.columns([3, 1])
-    left.image(_figure_png(key, pick, fig), width="stretch")
+    left.image(_figure_png(key, pick, fig, state.result_job()), width="stretch")
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
             # written only when the button is pressed (the view itself stays quick to redraw)
@@ -179,12 +185,11 @@ def _figures(result, key) -> None:
             st.caption("Curves, calibration and decision curves are drawn on the development cohort (apparent).")
 
 
-def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added_value=None) -> None:
+def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added_value=None,
+                details: bool = False) -> None:
     st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
                 f"{comp.n_paired} paired replicates)")
-    state.table(tables.difference_table(comp, time_unit=u, headline=True))
-    with st.expander("Every measure"):
-        state.table(tables.difference_table(comp, time_unit=u), max_rows=20)
+    state.table(tables.difference_table(comp, time_unit=u, headline=not details), max_rows=20)
     if added_value is not None:
         st.write(f"Added value of imaging given the clinical model (permutation test): cross-validated "
                  f"log-likelihood gain {added_value.observed:.1f}, p = {added_value.p_value:.3g} "
@@ -205,7 +210,8 @@ def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added
         st.caption(LR_CAUTION)
     elif lr.note:
         st.caption(f"Likelihood-ratio test: {lr.note}")
-    with st.expander("Reclassification (NRI, IDI)"):
+    if details:
+        st.markdown("**Reclassification (NRI, IDI)**")
         state.table(tables.reclassification_table(comp, time_unit=u), max_rows=20)
         if comp.reclassification:
             st.caption(comp.reclassification[0].nri_caution)
@@ -243,6 +249,9 @@ def _show(result, job) -> None:
             for cat, msg in result.warnings:
                 st.write(f"**{cat}**: {plain(state.friendly(msg))}")
 
+    details = st.toggle("Show every measure: apparent values, optimism, all differences and reclassification",
+                        key="results_details",
+                        help="Off, the page shows the validated estimates and the headline differences only.")
     pct = round(100 * v.conf_level)
     fewest = min(reps.values()) if reps else 0
     if fewest < tables.MIN_CI_REPLICATES:
@@ -262,7 +271,8 @@ def _show(result, job) -> None:
         st.caption(f"Validated estimate ({pct}% interval): {how_text}; cross-validation and centres: held "
                    f"out. {note}")
         state.table(tables.wide_metric_table(v, families, time_unit=u))
-        with st.expander(f"{title}: apparent values and optimism"):
+        if details:
+            st.markdown(f"**{title}: apparent values and optimism**")
             state.table(tables.metric_table(v, families, time_unit=u), max_rows=20)
 
     st.subheader(f"Against the baseline: {tables.label(spec.models.baseline)}")
@@ -272,11 +282,13 @@ def _show(result, job) -> None:
         state.show_error("Comparing the models", exc)
         comps = []
     if comps:
-        tabs = st.tabs([f"{tables.label(c.model)} minus {tables.label(c.baseline)}" for c in comps])
-    for tab, comp in zip(tabs if comps else [], comps, strict=False):
-        with tab:
-            _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes), job.key,
-                        getattr(result, "added_value", {}).get(comp.model))
+        names = [c.model for c in comps]
+        pick = st.segmented_control(
+            "Comparison", names, default=names[0], key="results_comparison", label_visibility="collapsed",
+            format_func=lambda m: f"{tables.label(m)} minus {tables.label(spec.models.baseline)}") or names[0]
+        comp = comps[names.index(pick)] if pick in names else comps[0]
+        _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes), job.key,
+                    getattr(result, "added_value", {}).get(comp.model), details)
     _figures(result, job.key)
 
     if result.external is not None:
@@ -285,11 +297,18 @@ def _show(result, job) -> None:
                    f"({result.external.n} patients, {result.external.n_events} events).")
         state.table(tables.wide_metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
                                              + tables.OVERALL, time_unit=u))
-        for comp in (getattr(result, "external_comparisons", None) or {}).values():
-            with st.expander(f"External: {tables.label(comp.model)} minus {tables.label(comp.baseline)}"):
-                state.table(tables.difference_table(comp, time_unit=u, headline=True))
-        _by_group(getattr(result.external, "groups", None), "External cohort")
-    _by_group(getattr(result.validation, "groups", None), "Leave-one-centre-out")
+        ext_comps = getattr(result, "external_comparisons", None) or {}
+        shown = ext_comps.get(st.session_state.get("results_comparison")) or next(iter(ext_comps.values()), None)
+        if shown is not None:
+            st.markdown(f"**External: {tables.label(shown.model)} minus {tables.label(shown.baseline)}** "
+                        "(the comparison chosen above)")
+            state.table(tables.difference_table(shown, time_unit=u, headline=not details), max_rows=20)
+        if details:
+            _by_group(getattr(result.external, "groups", None), "External cohort")
+    if details:
+        _by_group(getattr(result.validation, "groups", None), "Leave-one-centre-out")
+    elif getattr(result.validation, "groups", None) or getattr(result.external, "groups", None):
+        st.caption("Performance by centre and scanner: switch on 'Show every measure' at the top.")
 
 
 def _by_group(groups, title: str) -> None:
@@ -300,10 +319,10 @@ def _by_group(groups, title: str) -> None:
 
     df = group_table(groups)
     keep = df["metric"].str.split("@").str[0].isin(["harrell_c", "oe_ratio", "cal_slope"])
-    with st.expander(f"{title}: performance by centre and scanner"):
-        st.caption("Each level weighted by its own censoring distribution; pooled rows: random-effects "
-                   "meta-analysis with the 95% prediction interval for a new site (pi_lower, pi_upper).")
-        state.table(df[keep].round(3), max_rows=60)
+    st.markdown(f"**{title}: performance by centre and scanner**")
+    st.caption("Each level weighted by its own censoring distribution; pooled rows: random-effects "
+               "meta-analysis with the 95% prediction interval for a new site (pi_lower, pi_upper).")
+    state.table(df[keep].round(3), max_rows=60)
 
 
 def render() -> None:

@@ -1,0 +1,80 @@
+"""The background builder of a finished run's files (workbench.app.exports), without a browser."""
+
+from __future__ import annotations
+
+import threading
+
+import pytest
+from matplotlib.figure import Figure
+
+from workbench.app import exports
+
+
+def _figure() -> Figure:
+    fig = Figure(figsize=(2, 1.5))
+    fig.add_subplot().plot([0, 1], [1, 0])
+    return fig
+
+
+@pytest.fixture
+def builders(monkeypatch):
+    calls = []
+
+    def make(name, value):
+        def build(result):
+            calls.append(name)
+            return value
+        return build
+
+    fake = {"figures": make("figures", {"calibration": _figure(), "nomogram": _figure()}),
+            "json": make("json", "{}"), "bundle": make("bundle", b"zip"), "folder": make("folder", b"zip"),
+            "report": make("report", "<html></html>")}
+    monkeypatch.setattr(exports, "BUILDERS", fake)
+    return calls
+
+
+def test_screens_are_drawn_from_the_figures_once_and_leave_the_nomogram_to_its_page(builders):
+    ex = exports.Exports(result=object())
+    png = ex.get("screens")
+    assert set(png) == {"calibration"}
+    assert png["calibration"].startswith(b"\x89PNG")
+    assert ex.get("screens") is png and builders == ["figures"]  # built once, from the one figure build
+
+
+def test_background_build_finishes_every_file_in_order_without_locking_itself(builders):
+    ex = exports.prepare(object())
+    ex._thread.join(timeout=60)
+    assert not ex._thread.is_alive()
+    assert builders == ["figures", "json", "bundle", "folder", "report"]
+    assert ex.ready("screens") and not ex.errors
+    assert ex.get("report") == "<html></html>"
+
+
+def test_a_view_waiting_on_a_file_gets_it_when_the_background_build_is_under_way(builders, monkeypatch):
+    gate = threading.Event()
+    slow = exports.BUILDERS["figures"]
+
+    def held(result):
+        gate.wait(30)
+        return slow(result)
+
+    monkeypatch.setitem(exports.BUILDERS, "figures", held)
+    ex = exports.prepare(object())
+    got = {}
+    waiter = threading.Thread(target=lambda: got.setdefault("screens", ex.get("screens")))
+    waiter.start()
+    gate.set()
+    waiter.join(timeout=60)
+    assert set(got["screens"]) == {"calibration"}
+
+
+def test_an_error_while_building_is_kept_and_raised_to_the_view(builders, monkeypatch):
+    def broken(result):
+        raise ValueError("no figures today")
+
+    monkeypatch.setitem(exports.BUILDERS, "figures", broken)
+    ex = exports.Exports(object())
+    with pytest.raises(ValueError, match="no figures today"):
+        ex.get("figures")
+    with pytest.raises(ValueError, match="no figures today"):  # the screens need the figures
+        ex.get("screens")
