@@ -45,7 +45,8 @@ def group_table(groups: dict | None) -> pd.DataFrame:
                 for metric, e in metrics.items():
                     rows.append({"grouping": name, "level": lev, "model": model, "metric": metric,
                                  "n": g.n[lev], "n_events": g.n_events[lev], "estimate": e.estimate,
-                                 "ci_lower": e.ci_lower, "ci_upper": e.ci_upper})
+                                 "ci_lower": e.ci_lower, "ci_upper": e.ci_upper,
+                                 "ci_note": getattr(e, "ci_note", "")})
             for metric, p in g.pooled.get(model, {}).items():
                 rows.append({"grouping": name, "level": "pooled", "model": model, "metric": metric,
                              "estimate": p.estimate, "ci_lower": p.ci_lower, "ci_upper": p.ci_upper,
@@ -101,7 +102,10 @@ def heterogeneity_context(block: dict | None, horizons, labels: dict | None = No
                          "cells": [(by_level.get(lev) or {}).get(c) for c in cols]} for lev in levels]
                 prow = [pooled.get(c) for c in cols]
                 parts.append({"heads": heads, "rows": rows, "pooled": prow if any(p for p in prow) else None})
+            withdrawn = sorted({e.get("ci_note") for p in parts for r in p["rows"] for e in r["cells"]
+                                if isinstance(e, dict) and e.get("ci_note")})
             out.append({"grouping": name, "model": labels.get(model, model), "parts": parts,
+                        "withdrawn": withdrawn,
                         "pooled": any(p["pooled"] for p in parts),
                         "censoring": g.get("censoring"), "method": g.get("pooling_method"),
                         "notes": g.get("notes") or []})

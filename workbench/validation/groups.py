@@ -47,6 +47,7 @@ class LevelEstimate:
     ci_upper: float
     se_pooling_scale: float
     n_used: int
+    ci_note: str = ""  # why the interval is withdrawn (NaN), from intervals.guard; "" when reported
 
 
 @dataclass(frozen=True)
@@ -119,11 +120,11 @@ def level_block(preds, y, strata, method, h, grid, kw, *, replicates: int, seed,
             lo, hi = resample_interval(v, float(point[m][j]), conf_level)
             # the rule of every workbench interval: within the metric's range, never zero width,
             # never excluding its own estimate (few resamples can give either)
-            lo, hi, _ = guard(nm, float(point[m][j]), float(lo), float(hi))
+            lo, hi, why = guard(nm, float(point[m][j]), float(lo), float(hi))
             tv = transform(v, _scale(nm))
             tv = tv[np.isfinite(tv)]
             se = float(np.std(tv, ddof=1)) if tv.size >= 2 else np.nan
-            block[nm] = LevelEstimate(float(point[m][j]), float(lo), float(hi), se, int(v.size))
+            block[nm] = LevelEstimate(float(point[m][j]), float(lo), float(hi), se, int(v.size), why)
         out[m] = block
     return out
 

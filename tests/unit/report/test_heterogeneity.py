@@ -50,3 +50,17 @@ def test_one_table_per_horizon_so_each_fits_a_page():
     assert [h[-1] for h in heads] == ["Brier 12", "Brier 24", "Brier 36"]
     html = _environment().get_template("_heterogeneity.html.j2").render(het=het, het_title="External cohort")
     assert html.count("<table") == 3 and html.count('class="note"') == 1
+
+
+def test_a_withdrawn_interval_is_marked_in_its_cell_and_explained_under_the_table():
+    import copy
+
+    block = copy.deepcopy(BLOCK)
+    why = "interval not reported: it would exclude its own estimate"
+    block["scanner"]["estimates"]["combined"]["scanner_A"]["oe_ratio@36"] = {
+        "estimate": 1.038, "ci_lower": None, "ci_upper": None, "ci_note": why}
+    html = _render(block)
+    cell = html.split("scanner_A")[1].split("</tr>")[0]
+    assert "1.04" in cell and "no interval&dagger;" in cell
+    assert f"&dagger; No interval: {why}" in html
+    assert "&dagger;" not in _render(BLOCK)  # nothing withdrawn: no mark, no note

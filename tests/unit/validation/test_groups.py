@@ -144,4 +144,7 @@ def test_per_centre_intervals_follow_the_interval_rule_with_few_resamples(cohort
                 n_finite += 1
                 lo, hi = metric_range(nm)
                 assert lo <= e.ci_lower <= e.estimate <= e.ci_upper <= hi, (lev, nm, e)
+                assert e.ci_note == ""
+            elif e.n_used >= 10 and np.isfinite(e.estimate):
+                assert e.ci_note.startswith("interval not"), (lev, nm, e)  # withdrawn, with the reason
     assert n_finite > 0
