@@ -99,6 +99,7 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         import matplotlib.pyplot as plt
 
         from workbench.report import html as report_html
+        from workbench.report import report_figures
         from workbench.report.bundle import save_bundle, summarise_training
         from workbench.report.figureset import study_figures
         from workbench.report.results import format_results, write_results
@@ -112,7 +113,7 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
         assert figs, "no figure drawn"
         for f in figs.values():
             plt.close(f)
-        monkeypatch.setattr(report_html, "_embed", lambda fig: plt.close(fig) or "data:,")
+        monkeypatch.setattr(report_figures, "_embed", lambda fig: plt.close(fig) or "data:,")
         html = report_html.render_report(result)
         training = summarise_training(result.cohort, result.models, result.spec.horizons)
         save_bundle(result.models, result.spec, training, out / "bundle", overwrite=True)

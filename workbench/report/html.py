@@ -23,28 +23,30 @@ References
 
 from __future__ import annotations
 
-import base64
-import io
-import math
 import re
-import warnings
-from contextvars import ContextVar
 from dataclasses import dataclass
 from pathlib import Path
 
 import jinja2
-import matplotlib
-import numpy as np
 from markupsafe import Markup
 
 from workbench.cohort.summary import CAUTION, feature_family
-from workbench.errors import WorkbenchError, WorkbenchWarning
-from workbench.metrics.decision import DecisionCurveResult
 from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
-from workbench.models.registry import MODEL_LABELS, offered_models
+from workbench.models.registry import MODEL_LABELS
 from workbench.report.appendix import appendix_context
 from workbench.report.characteristics import characteristics_table
 from workbench.report.checklist import FILLED, reporting_checklist
+from workbench.report.formatting import (  # noqa: F401  (re-exported)
+    _LABELS,
+    _RUN_LABELS,
+    _finite,
+    _label,
+    _metric_order,
+    fmt_num,
+    fmt_p,
+    fmt_sig,
+    metric_label,
+)
 from workbench.report.methods import (
     estimate_label,
     limitations,
@@ -55,6 +57,7 @@ from workbench.report.methods import (
     validation_text,
 )
 from workbench.report.pdf import print_pdf
+from workbench.report.report_figures import FIGURE_SLOTS, _figures  # noqa: F401  (re-exported)
 from workbench.report.results import results_dict
 
 TEMPLATES = Path(__file__).with_name("templates")
@@ -82,16 +85,8 @@ SECTIONS = (
 """Section ids and headings, in report order (the title block comes first, id ``title``)."""
 
 _GLOBAL = ("harrell_c", "uno_c", "mean_auc", "ibs", "null_ibs", "ipa_integrated")
-_LABELS = {
-    "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC over the horizons", "ibs": "Integrated Brier score",
-    "null_ibs": "Integrated Brier, Kaplan-Meier null", "ipa_integrated": "IPA, integrated",
-    "auc": "AUC", "brier": "Brier score", "ipa": "IPA", "ici": "ICI", "e50": "E50", "e90": "E90",
-    "cal_slope": "Calibration slope", "oe_ratio": "Observed / expected",
-}
 _CALIBRATION = ("ici", "e50", "e90", "cal_slope", "oe_ratio")
 _EXT_CALIBRATION = ("oe_ratio", "cal_slope", "ici")
-FIGURE_SLOTS = ("data", "harmonisation", "calibration", "decision", "difference", "external", "main", "appendix")
-"""Places in the report that hold figures."""
 
 
 @dataclass(frozen=True)
@@ -105,49 +100,6 @@ class ReportFiles:
 # ------------------------------------------------------------------ formatting
 
 
-def _finite(x) -> bool:
-    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
-
-
-def fmt_num(x, digits: int = 3) -> str:
-    """A number with fixed decimals, or "n/a"."""
-    return f"{x:.{digits}f}".replace("-", "\u2212") if _finite(x) else "n/a"
-
-
-def fmt_sig(x, digits: int = 6) -> str:
-    """A number to ``digits`` significant digits (reproduction parameters of very different sizes), or "n/a"."""
-    return f"{x:.{digits}g}".replace("-", "\u2212") if _finite(x) else "n/a"
-
-
-def fmt_p(p) -> str:
-    """A p-value as usually printed."""
-    if not _finite(p):
-        return "n/a"
-    return "<0.001" if p < 0.001 else f"{p:.3f}"
-
-
-# Labels of the run being rendered (a model equal to another says so); set by render_report only.
-_RUN_LABELS: ContextVar[dict | None] = ContextVar("run_labels", default=None)
-
-
-def _label(name: str) -> str:
-    return (_RUN_LABELS.get() or {}).get(name) or MODEL_LABELS.get(name, name)
-
-
-def metric_label(name: str, unit: str) -> str:
-    """"auc@12" -> "AUC at 12 months"."""
-    base, _, h = name.partition("@")
-    text = _LABELS.get(base, base)
-    return f"{text} at {float(h):g} {unit}" if h else text
-
-
-def _metric_order(names, horizons) -> list[str]:
-    hs = [f"{h:g}" for h in horizons]
-    order = ["harrell_c", "uno_c", *[f"auc@{h}" for h in hs], "mean_auc", *[f"brier@{h}" for h in hs], "ibs",
-             "null_ibs", *[f"ipa@{h}" for h in hs], "ipa_integrated"]
-    return [n for n in order if n in names]
-
-
 def _short_paths(text: str, spec) -> str:
     """The study file as run, with data file locations cut to their names (no machine paths in a report)."""
     paths = [spec.data.features, spec.data.clinical]
@@ -156,273 +108,6 @@ def _short_paths(text: str, spec) -> str:
     for p in (p for p in paths if p):
         text = text.replace(f'"{p}"', f'"{Path(p).name}"')
     return text
-
-
-# ------------------------------------------------------------------ figures
-
-
-def _embed(fig) -> str:
-    """A matplotlib Figure as an SVG data URI (text as paths, so no font is needed to show it)."""
-    buf = io.BytesIO()
-    with matplotlib.rc_context({"svg.hashsalt": "workbench-report", "svg.fonttype": "path"}):
-        fig.savefig(buf, format="svg", metadata={"Date": None})
-    return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
-
-
-def _figure(items: list, key: str, title: str, caption: str, draw, half: bool = False, compact: bool = False) -> None:
-    """Draw one figure into ``items``; a figure that cannot be drawn leaves a note, not a broken report.
-
-    ``compact`` figures print at most about half a page high, so two share a page."""
-    item = {"id": f"fig-{key}", "title": title, "caption": caption, "src": "", "error": "", "half": half,
-            "compact": compact}
-    try:
-        with warnings.catch_warnings():
-            # the run already recorded its statistical warnings; redrawing must not repeat them
-            warnings.simplefilter("ignore", WorkbenchWarning)
-            item["src"] = _embed(draw())
-    except (WorkbenchError, ValueError, KeyError, IndexError) as exc:
-        item["error"] = f"This figure could not be drawn: {exc}"
-    items.append(item)
-
-
-def _calibration_fig(models, cohort, horizons, unit):
-    from workbench.figures import plot_calibration_panels
-    from workbench.metrics.calibration import calibration_at
-
-    curves = {_label(k): m.predict_survival(cohort, horizons) for k, m in models.items()}
-    cal = {name: [calibration_at(cohort.y, c, h) for h in horizons] for name, c in curves.items()}
-    return plot_calibration_panels(cal, predicted=curves, time_unit=unit)
-
-
-def _eval_horizons(horizons, cohort) -> tuple[float, ...]:
-    return tuple(h for h in horizons if h < float(np.max(cohort.time[cohort.event])) if np.any(cohort.event))
-
-
-def _km_fig(model, train, cohort, unit, title, k=3, min_at_risk=10):
-    from workbench.figures import km_by_group, plot_km_by_group, risk_groups
-
-    groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, k)
-    # on the development patients the groups come from a model fitted to them: described, not tested
-    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title,
-                            development=cohort is train, min_at_risk=min_at_risk)
-
-
-def _external_row_censoring(result, cohort, models):
-    from workbench.report.figureset import external_censoring
-
-    risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
-    return external_censoring(result, cohort, risks)
-
-
-def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=None):
-    """AUC over time; censoring weights from ``weights_from`` (the evaluated cohort itself when external)."""
-    from workbench.figures import plot_td_auc, td_auc_by_model
-
-    t = cohort.time[cohort.event]
-    hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
-    grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
-    risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
-    # the legend's mean AUC is the results table's: over the study horizons, weighted by events
-    means = {k: r.mean_auc
-             for k, r in td_auc_by_model(weights_from.y, cohort.y, risks, horizons, censoring=row_censoring).items()}
-    window = "at " + ", ".join(f"{h:g}" for h in horizons) + (f" {unit}" if unit else "")
-    return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid, censoring=row_censoring),
-                       time_unit=unit, horizons=horizons, title=title, mean_auc=means, mean_window=window)
-
-
-def _decision_fig(d: dict, unit: str, j: int, external: bool = False):
-    """Decision curves of every model at the j-th horizon, from the comparison blocks.
-
-    Internal: the validated curves (apparent when the study ran no internal validation,
-    method "none"). External: the curves of the unchanged models on the external patients."""
-    arm = "apparent" if d["validation"]["method"] == "none" and not external else "validated"
-    from workbench.figures import plot_decision_curve
-
-    comps = list((d["external"]["comparison"] if external else d["comparison"]).values())
-    surv = {h["horizon"]: h["survival"] for h in d["cohort"]["summary"]["horizons"]}
-    first = comps[0]["decision_curves"][j]
-    h, pt = first["horizon"], np.asarray(first["thresholds"], float)
-    treat_all = np.asarray([np.nan if x is None else x for x in first["treat_all"]], float)
-    # the event risk only sets the vertical scale; treat-all at the lowest threshold is close to it
-    risk = float(np.nanmax(treat_all)) if external else 1.0 - surv.get(h, np.nan)
-
-    def curve(values, name):
-        v = np.asarray([np.nan if x is None else x for x in values], float)
-        return DecisionCurveResult(h, pt, v, treat_all, np.zeros_like(pt), np.full_like(pt, np.nan), risk, name)
-
-    res = {_label(comps[0]["baseline"]): curve(first[f"baseline_{arm}"], comps[0]["baseline"])}
-    for c in comps:
-        res[_label(c["model"])] = curve(c["decision_curves"][j][f"model_{arm}"], c["model"])
-    where = "external cohort" if external else "development cohort"
-    return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}, {where}")
-
-
-def _data_and_appendix_figures(result, out: dict) -> None:
-    """The patient flow (data section) and the baseline survival curves (appendix)."""
-    from workbench.figures.baseline import plot_baseline_survival
-    from workbench.figures.flow import plot_patient_flow
-    from workbench.report.appendix import baseline_curves
-    from workbench.report.flow import patient_flow
-
-    ext = " and the external cohort" if result.external_prepared is not None else ""
-    _figure(out["data"], "flow", "Patient flow", f"Patients of the development cohort{ext}: read, set aside "
-            "with the reason (a patient missing several complete-case predictors counts under each), analysed.",
-            lambda: plot_patient_flow(patient_flow(result), width="double"))
-    if getattr(result, "harmonisation", None):
-        from workbench.figures.harmonisation import plot_harmonisation_checks
-
-        _figure(out["harmonisation"], "harmonisation", "Scanner effects before and after ComBat",
-                "Open markers: before harmonisation; filled: after. Scanner effects should move to 0 and the "
-                "classifier AUC towards 0.5 (dashed tick); the links with protected predictors should stay put.",
-                lambda: plot_harmonisation_checks(result.harmonisation, width="double"), compact=True)
-    curves = baseline_curves(result)
-    if curves:
-        unit = result.spec.data.time_unit
-        _figure(out["appendix"], "baseline", "Baseline survival of each Cox model",
-                "S0(t) for a patient at the training means of the design columns (x_mean), with a step at every "
-                "training event time; dotted lines mark the prediction horizons.",
-                lambda: plot_baseline_survival({_label(k): v for k, v in curves.items()}, horizons=result.spec.horizons,
-                                               time_unit=unit, width="double"))
-
-
-def _figures(result, d: dict) -> dict:
-    from workbench.figures import (
-        forest_table,
-        nomogram_scales,
-        plot_coefficient_path,
-        plot_forest,
-        plot_nomogram,
-        plot_schoenfeld,
-        plot_selection_frequency,
-    )
-
-    unit, horizons, train = result.spec.data.time_unit, tuple(result.spec.horizons), result.cohort
-    models = result.models
-    cox = {k: m for k, m in models.items() if hasattr(m, "fit_") and hasattr(m, "transformer_")}
-    offered = offered_models(cox)  # comparison models (clinical + volume) get no nomogram
-    lead = models.get("combined") or next(iter(models.values()))
-    k_groups = getattr(result.spec.models, "risk_groups", 3)
-    at_risk = result.spec.figures.min_at_risk
-    out = {k: [] for k in FIGURE_SLOTS}
-    _data_and_appendix_figures(result, out)
-    _figure(out["calibration"], "calibration", "Calibration at each horizon (development cohort, apparent fits)",
-            "Smoothed observed against predicted risk with 95% band, grouped points and the predicted risks "
-            "below. Drawn from the fits on all patients, so optimistic; the corrected numbers are in the table.",
-            lambda: _calibration_fig(models, train, horizons, unit))
-    # the estimator the run used (optimism, out-of-bootstrap, .632+, cross-validation), not a fixed word
-    how = estimate_label(d).split(" (")[0]
-    ext_comps = (d.get("external") or {}).get("comparison") or {}
-    for j, h in enumerate(horizons if d["comparison"] else ()):
-        app = d["validation"]["method"] == "none"
-        _figure(out["decision"], f"decision-{j}",
-                f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else how.lower()})",
-                "Net benefit against the threshold risk, " + ("measured on the development patients (optimistic)"
-                if app else f"validated like the other metrics ({how.lower()})") + ", with the two reference "
-                "strategies (everyone acted on, no one acted on).",
-                lambda j=j: _decision_fig(d, unit, j), half=True)
-        if ext_comps:
-            _figure(out["decision"], f"decision-external-{j}", f"Decision curves at {h:g} {unit} (external cohort)",
-                    "The same models applied unchanged to the external patients: nothing to correct, but "
-                    "judged on patients the models never saw.",
-                    lambda j=j: _decision_fig(d, unit, j, external=True), half=True)
-    _difference_figures(out["difference"], result, unit)
-    if result.external is not None:
-        ext = result.external_prepared.cohort
-        eh = _eval_horizons(horizons, ext)
-        _figure(out["external"], "external-calibration", "Calibration on the external cohort",
-                "Smoothed calibration of the unchanged models on the external patients.",
-                lambda: _calibration_fig(models, ext, eh, unit))
-        _site_figure(out["external"], result, d, unit)
-        _figure(out["external"], "external-km", "Risk groups on the external cohort",
-                f"Kaplan-Meier curves by {k_groups} quantile groups of the {_label(lead.name)} risk, cut-points "
-                f"fixed on the development patients. Curves stop when fewer than {at_risk} patients remain at risk.", lambda: _km_fig(lead, train, ext, unit, "External cohort",
-                                                                       k_groups, at_risk))
-        _figure(out["external"], "external-auc", "Discrimination over time, external cohort",
-                "Cumulative/dynamic AUC over follow-up time.",
-                lambda: _auc_fig(models, ext, ext, eh, unit, "External cohort",
-                                 _external_row_censoring(result, ext, models)))
-    if cox:
-        def nomo():
-            scales = [nomogram_scales(m, horizons, time_unit=unit, median_axis=True, name=_label(k),
-                                      signature_scores=m.signature_score(train) if hasattr(m, "signature_score")
-                                      else None) for k, m in offered.items()]
-            return plot_nomogram(scales, layout="rows")
-        _figure(out["main"], "nomogram", "Nomograms", "Points per predictor, total points, and survival "
-                "probability at each horizon and predicted median survival, for each Cox model.", nomo)
-    _figure(out["main"], "km", "Kaplan-Meier curves by risk group (development cohort)",
-            f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent). "
-            f"Curves stop when fewer than {at_risk} patients remain at risk.",
-            lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups, at_risk))
-    _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
-            "Cumulative/dynamic AUC over follow-up time.",
-            lambda: _auc_fig(models, train, train, horizons, unit, "Development cohort"))
-    for k, m in cox.items():
-        _figure(out["main"], f"forest-{k}", f"Hazard ratios: {_label(k)}", "Hazard ratios with 95% CI per "
-                "clinically meaningful contrast (reference levels marked).",
-                lambda m=m, k=k: plot_forest(forest_table(m), title=_label(k)))
-    for k, sel in result.validation.selection.items():
-        if sel.n_fits:
-            _figure(out["main"], f"selection-{k}", f"Selection frequency: {_label(k)}",
-                    f"Share of the {sel.n_fits} bootstrap refits that kept each imaging feature; features of "
-                    "the fit on all patients are highlighted.",
-                    lambda sel=sel, k=k: plot_selection_frequency(sel.frequency, n_replicates=sel.n_fits,
-                                                                  selected=sel.apparent, title=_label(k)))
-    sig = getattr(models.get("combined"), "signature_", None)
-    if sig is not None and sig.path_ is not None:
-        _figure(out["main"], "path", "Penalised path of the imaging signature",
-                "Coefficients along the penalty path and the cross-validated deviance that chose the penalty.",
-                lambda: plot_coefficient_path(sig.path_, title="Imaging signature", width="double"), compact=True)
-    for k, ph in result.ph_tests.items():
-        _figure(out["main"], f"ph-{k}", f"Proportional-hazards diagnostics: {_label(k)}",
-                "Scaled Schoenfeld residuals against transformed time with a smooth; a flat line supports "
-                "proportional hazards.", lambda ph=ph: plot_schoenfeld(ph))
-    return out
-
-
-_BAND_WORDS = {
-    "two-stage": "with a two-stage bootstrap band (over outer bootstrap samples, paired)",
-    "shifted-percentile": "with the cheap shifted-percentile paired bootstrap band",
-}
-
-
-def _difference_figures(items: list, result, unit: str) -> None:
-    """Model-minus-baseline AUC and net benefit, internal beside external (validation/difference_bands.py)."""
-    from workbench.figures.differences import plot_difference_curves
-
-    for name, bands in (getattr(result, "difference_bands", None) or {}).items():
-        nb = bands["net_benefit"]["internal"]
-        ext = result.external is not None
-        names = {"model_label": _label(name), "baseline_label": _label(nb.baseline)}
-        _figure(items, f"difference-{name}", f"{_label(name)} minus {_label(nb.baseline)}: AUC and net benefit",
-                "Differences from the same resamples for both models. Internal: validated AUC differences at the "
-                "study horizons with their intervals, and the validated net-benefit difference at "
-                f"{nb.horizon:g} {unit} " + _BAND_WORDS.get(nb.band, "without a band (see the note in results.json)")
-                + "."
-                + (" External: the difference of the unchanged models on the external patients with pointwise "
-                   "normal bands over resamples of those patients (the resamples of the external table; in "
-                   "simulation they covered about 95%)."
-                   if ext else "") + " Above zero favours the first model.",
-                lambda b=bands, kw=names: plot_difference_curves(b, time_unit=unit, **kw))
-
-
-def _site_figure(items: list, result, d: dict, unit: str) -> None:
-    """Observed/expected per centre and per scanner with the random-effects pooling (external cohort)."""
-    from workbench.figures.site_calibration import plot_site_calibration
-    from workbench.report.external_text import worst_horizon
-
-    groups = {k: g for k, g in (getattr(result.external, "groups", None) or {}).items() if len(g.levels) >= 2}
-    if not groups:
-        return
-    models = [k for k in ("clinical", "combined") if k in result.models] or list(result.models)[:2]
-    hs = list(result.external.horizons)
-    h = worst_horizon(d, models, hs[len(hs) // 2])
-    _figure(items, "external-sites", f"Calibration by centre and scanner at {h:g} {unit} (external cohort)",
-            "Observed/expected risk (Kaplan-Meier observed over mean predicted) with 95% bootstrap intervals of each "
-            "site's patients; the pooled random-effects estimate (diamond: 95% confidence interval) and the 95% "
-            "prediction interval for a new site (dotted) under each grouping. Open markers: a scanner the "
-            "development data did not have. The horizon is the one at which these models depart most overall.",
-            lambda: plot_site_calibration(groups, horizon=h, models=models, labels={k: _label(k) for k in models},
-                                          unseen=unseen_batches(result), time_unit=unit))
 
 
 # ------------------------------------------------------------------ context

@@ -270,7 +270,7 @@ def test_clinical_volume_model_validated_compared_and_reported(html, data, resul
 def test_risk_group_curves_stop_at_the_study_minimum_at_risk(result):
     import numpy as np
 
-    from workbench.report.html import _km_fig
+    from workbench.report.report_figures import _km_fig
     from workbench.stats.km import kaplan_meier
     from workbench.stats.riskgroups import learn_cutpoints
 
