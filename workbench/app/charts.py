@@ -70,10 +70,13 @@ def bar_figure(labels, values, *, xlabel: str) -> Figure:
 SCREEN_DPI = 110
 
 
-def screen_png(fig) -> bytes:
-    """A figure as a PNG for the page: quick to draw, sharp enough on screen."""
+def screen_png(fig, tight: bool = True) -> bytes:
+    """A figure as a PNG for the page: quick to draw, sharp enough on screen.
+
+    ``tight=False`` keeps the figure's own page (one drawing instead of two) for figures that
+    lay themselves out to fit, such as the nomogram."""
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=SCREEN_DPI, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=SCREEN_DPI, bbox_inches="tight" if tight else None)
     return buf.getvalue()
 
 

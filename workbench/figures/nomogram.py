@@ -32,6 +32,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
@@ -88,6 +89,7 @@ class _Painter:
     def __init__(self, ax, scales: NomogramScales, geo: _Geometry, measure: _Measure):
         self.ax, self.s, self.geo, self.m = ax, scales, geo, measure
         self.right_limit = 100.0 + geo.right  # labels may use the right margin unless a patient column is there
+        self._ticks: dict[str, list] = {}  # colour -> tick segments, drawn as one collection (finish)
 
     def total_x(self, total):
         return np.asarray(total, dtype=float) * 100.0 / self.s.total_axis_max
@@ -96,7 +98,15 @@ class _Painter:
         self.ax.plot([x0, x1], [y, y], color=INK, lw=0.8, solid_capstyle="butt", clip_on=False)
 
     def _tick(self, x, y, up=True, length=0.13, colour=INK):
-        self.ax.plot([x, x], [y, y + (length if up else -length)], color=colour, lw=0.6, clip_on=False)
+        self._ticks.setdefault(colour, []).append([(x, y), (x, y + (length if up else -length))])
+
+    def finish(self):
+        """Every tick mark of the panel as one line collection per colour (hundreds of single
+        lines drew several times slower)."""
+        for colour, segs in self._ticks.items():
+            self.ax.add_collection(LineCollection(segs, colors=colour, linewidths=0.6, capstyle="butt",
+                                                  clip_on=False, gid="ticks", zorder=2), autolim=False)
+        self._ticks = {}
 
     def _text(self, x, y, text, up=True, size=None, colour=INK, **kw):
         self.ax.text(x, y, text, ha=kw.pop("ha", "center"), va="bottom" if up else "top",
@@ -374,6 +384,7 @@ def _draw_panel(ax, scales: NomogramScales, rows: list[_Row], geo: _Geometry, me
         painter.patient(patient, rows)
         if interval:
             painter.intervals(interval, rows)
+    painter.finish()
 
 
 def _as_list(scales) -> list[NomogramScales]:

@@ -19,7 +19,7 @@ def _drawing(run_key: tuple, models: tuple, horizons: tuple, layout: str, _scale
 
 @st.cache_data(show_spinner=False, max_entries=8)
 def _png(run_key: tuple, models: tuple, horizons: tuple, layout: str, _fig) -> bytes:
-    return nomo.screen_png(_fig)
+    return nomo.screen_png(_fig, tight=False)  # the nomogram lays itself out to fit its page
 
 
 def _files(run_key: tuple, models: tuple, horizons: tuple, layout: str, scales) -> dict:
