@@ -20,6 +20,7 @@ import streamlit as st
 
 from workbench.app import state
 from workbench.app.messages import plain
+from workbench.app.tables import MIN_CI_REPLICATES
 from workbench.cohort.io import file_digest
 from workbench.errors import WorkbenchError
 from workbench.study import StudySpec, dumps_study
@@ -37,12 +38,20 @@ def quick_permutations(spec: StudySpec, replicates: int) -> int | None:
     return QUICK_PERMUTATIONS
 
 
+def quick_interval(spec: StudySpec, replicates: int) -> StudySpec:
+    """The study as a run with ``replicates`` computes it: below MIN_CI_REPLICATES the page shows
+    no interval, so a quick run skips the two-stage interval's outer samples (most of its time)."""
+    if int(replicates) >= MIN_CI_REPLICATES or spec.validation.interval != "two-stage":
+        return spec
+    return replace(spec, validation=replace(spec.validation, interval="shifted-percentile"))
+
+
 @st.cache_resource(show_spinner=False, max_entries=4)
 def run_study_cached(data_hash: str, text: str, replicates: int, workers: int,
                      _spec: StudySpec, _progress=None, _cancel=None):
     """Fitted study result, cached on the data hash and the study text."""
     workflow = importlib.import_module("workbench.workflow")
-    return workflow.run_study(_spec, progress=_progress, cancel=_cancel,
+    return workflow.run_study(quick_interval(_spec, replicates), progress=_progress, cancel=_cancel,
                               replicates=replicates, workers=workers,
                               permutations=quick_permutations(_spec, replicates))
 
@@ -208,11 +217,3 @@ def show_provenance(what: str = "These numbers") -> bool:
         st.warning(f"**Out of date.** {text} The study has changed since (tables, column roles or design): "
                    "run it again on the Results page to update them.")
     return current
-
-
-def quick_spec(spec: StudySpec, replicates: int, workers: int) -> StudySpec:
-    """The study with the replicates and workers of this run (forest replicates capped to match)."""
-    v = spec.validation
-    return replace(spec, validation=replace(
-        v, replicates=int(replicates), workers=int(workers),
-        forest_replicates=min(v.forest_replicates, int(replicates))))

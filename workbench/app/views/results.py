@@ -46,7 +46,8 @@ def _run_controls(spec) -> None:
         f"Quick mode: {state.DEMO_REPLICATES} bootstrap replicates by default, so that a run in the browser "
         f"finishes in about a minute. The full analysis uses the {spec.validation.replicates} replicates set on "
         "the Design page: set that number here, or run the study file from the command line. Intervals from few "
-        "replicates are rough."
+        "replicates are rough, and below 10 replicates none is shown (the two-stage interval's outer samples "
+        "are then skipped, which makes the run several times quicker)."
         + (f" A quick run also tests the added value of imaging with only {state.QUICK_PERMUTATIONS} permutations "
            f"(instead of {spec.added_value.permutations}), so its p-value cannot go below 0.05."
            if state.quick_permutations(spec, int(reps)) is not None else "")
