@@ -99,7 +99,7 @@ def _independent_expansion(D, t, c, cause):
         rows.append({**D.iloc[i].to_dict(), "start": -1.0, "stop": t[i], "E": int(c[i] == cause), "w": 1.0})
         if c[i] > 0 and c[i] != cause and t[i] < t_last:
             pts = [t[i], *cuts[(cuts > t[i]) & (cuts < t_last)], t_last]
-            for a, b in zip(pts[:-1], pts[1:]):
+            for a, b in zip(pts[:-1], pts[1:], strict=True):
                 w = G(a) / G_left(t[i])
                 if w > 0:
                     rows.append({**D.iloc[i].to_dict(), "start": a, "stop": b, "E": 0, "w": w})
@@ -114,7 +114,8 @@ def test_fine_gray_matches_weighted_lifelines_on_independent_expansion(data):
     assert len(ex) > len(D)  # competing events did add weighted rows
     ref = _lifelines_fit(ex, duration_col="stop", event_col="E", entry_col="start", weights_col="w",
                          fit_options={"precision": 1e-12})
-    np.testing.assert_allclose(fit.coef, ref.params_[D.columns].values, rtol=0, atol=1e-4)
+    # measured: 7e-7 (cgvhd), 2e-9 (bmt)
+    np.testing.assert_allclose(fit.coef, ref.params_[D.columns].values, rtol=0, atol=1e-5)
     assert fit.cox.converged
 
 
