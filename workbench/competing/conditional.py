@@ -72,7 +72,7 @@ def _check(times, since: float) -> np.ndarray:
 
 def _loglog_limits(surv, se_log_h, conf_level):
     z = norm.ppf(0.5 + conf_level / 2.0)
-    inner = (surv > 0) & (surv < 1) & np.isfinite(se_log_h)
+    inner = (surv > 0) & (surv < 1) & np.isfinite(se_log_h) & np.isfinite(surv)
     lo, hi = surv.copy(), surv.copy()
     lo[inner] = surv[inner] ** np.exp(z * se_log_h[inner])
     hi[inner] = surv[inner] ** np.exp(-z * se_log_h[inner])
@@ -150,15 +150,17 @@ def conditional_survival_km(time, event, times, since: float, *, groups=None, co
     for lab in labels:
         m = g == lab
         km = kaplan_meier(time[m], event[m], conf_level=conf_level)
+        # A risk set that empties with events (d = n) sends S to 0: log S = -inf and
+        # Greenwood's term is infinite from there on; S(t | s) is then 0 (or undefined,
+        # NaN, for a landmark s at which no one in the group is left).
         with np.errstate(divide="ignore", invalid="ignore"):
             n, d = km.at_risk, km.events
             term = np.where(d > 0, d / (n * (n - d)), 0.0)
-        cum = np.r_[0.0, np.cumsum(term)]
-        logs = np.r_[0.0, np.cumsum(np.log1p(-np.where(n > 0, d / n, 0.0)))]
-        j_t = np.searchsorted(km.times, t, side="right")
-        j_s = int(np.searchsorted(km.times, float(since), side="right"))
-        rows_s.append(np.exp(logs[j_t] - logs[j_s]))
-        with np.errstate(divide="ignore", invalid="ignore"):
+            cum = np.r_[0.0, np.cumsum(term)]
+            logs = np.r_[0.0, np.cumsum(np.log1p(-np.where(n > 0, d / n, 0.0)))]
+            j_t = np.searchsorted(km.times, t, side="right")
+            j_s = int(np.searchsorted(km.times, float(since), side="right"))
+            rows_s.append(np.exp(logs[j_t] - logs[j_s]))
             # 0/0 where S(t | s) = 1: no interval is needed there (the limits are 1).
             rows_se.append(np.sqrt(cum[j_t] - cum[j_s]) / np.abs(logs[j_t] - logs[j_s]))
     surv = np.vstack(rows_s)
