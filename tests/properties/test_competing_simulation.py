@@ -53,3 +53,40 @@ def test_conditional_survival_intervals_cover(rows):
     for key in ("cs_cox", "cs_km"):
         cov = np.mean([r[key] for r in rows])
         assert 0.90 <= cov <= 0.985, (key, cov)
+
+
+def _true_incidence(Z, t0):
+    from bench_competing import FG_P
+
+    return 1 - (1 - FG_P * (1 - np.exp(-t0))) ** np.exp(Z @ FG_B1)
+
+
+def test_calibration_and_auc_of_the_true_incidence():
+    # One large cohort from the true Fine-Gray model: the true incidence is calibrated
+    # (small ICI, groups on the diagonal) and a halved one is not; random scores give AUC 1/2.
+    from bench_competing import simulate_fine_gray
+
+    from workbench.competing.metrics import (
+        competing_auc,
+        competing_grouped_calibration,
+        competing_smoothed_calibration,
+    )
+    from workbench.competing.outcome import IncidenceCurves, make_competing_outcome
+    from workbench.predictions import RiskScores
+
+    rng = np.random.default_rng(11)
+    Z, t, c = simulate_fine_gray(3000, rng)
+    y = make_competing_outcome(t, c)
+    t0 = 1.0
+    grid = np.array([0.5, t0])
+    true = IncidenceCurves(grid, np.column_stack([_true_incidence(Z, 0.5), _true_incidence(Z, t0)]))
+    half = IncidenceCurves(grid, true.risks / 2)
+    good = competing_smoothed_calibration(y, true, t0)
+    bad = competing_smoothed_calibration(y, half, t0)
+    assert good.ici < 0.015 and bad.ici > 0.04, (good.ici, bad.ici)
+    groups = competing_grouped_calibration(y, true, t0, n_groups=5)
+    assert np.all(groups.observed_lower <= groups.mean_predicted + 0.02)
+    assert np.all(groups.mean_predicted <= groups.observed_upper + 0.02)
+    auc_true = competing_auc(y, y, true, t0).auc
+    auc_random = competing_auc(y, y, RiskScores(rng.uniform(size=t.size)), t0).auc
+    assert auc_true > 0.65 and abs(auc_random - 0.5) < 0.04, (auc_true, auc_random)
