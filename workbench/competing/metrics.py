@@ -87,7 +87,9 @@ class CompetingAUCResult:
     cause: int = 1
 
 
-def competing_auc(y_train, y_test, prediction, t0: float, *, tied_tol: float = 1e-8) -> CompetingAUCResult:
+def competing_auc(
+    y_train, y_test, prediction, t0: float, *, cause: int | None = None, tied_tol: float = 1e-8
+) -> CompetingAUCResult:
     r"""Time-dependent AUC for a cause of interest with competing risks.
 
     Cases: events of the cause by ``t0``, weight :math:`1/\hat G(T_i-)`.
@@ -103,6 +105,9 @@ def competing_auc(y_train, y_test, prediction, t0: float, *, tied_tol: float = 1
     prediction : IncidenceCurves or RiskScores
         Predicted incidence of the cause (read at ``t0``) or a risk score.
     t0 : float
+    cause : int, optional
+        The cause of interest; taken from ``prediction`` when it is an
+        IncidenceCurves (and must agree), 1 by default for RiskScores.
     tied_tol : float
         Scores closer than this count as tied.
 
@@ -119,13 +124,17 @@ def competing_auc(y_train, y_test, prediction, t0: float, *, tied_tol: float = 1
     """
     time, cause = split_competing(y_test)
     if isinstance(prediction, RiskScores):
-        k = 1
+        k = 1 if cause is None else int(cause)
         if prediction.values.size != time.size:
             raise MetricError(f"competing_auc: {prediction.values.size} risk scores but {time.size} outcomes.")
         score = np.asarray(prediction.values, dtype=float)
     else:
         curves = _require_incidence(prediction, time.size, "competing_auc")
         k = curves.cause
+        if cause is not None and int(cause) != k:
+            raise MetricError(
+                f"competing_auc: the predictions are for cause {k} but cause {cause} was asked for."
+            )
         score = curves.risk_at(t0)
     t0 = _check_single_horizon(time, cause == k, t0, "competing_auc")
     cens = fit_censoring(any_event_outcome(y_train))

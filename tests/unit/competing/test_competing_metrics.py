@@ -90,3 +90,13 @@ def test_survival_curves_are_refused(cgvhd):
     t, c, yc, inc, _ = cgvhd
     with pytest.raises(MetricError, match="cumulative incidences"):
         competing_brier(yc, yc, SurvivalCurves(inc.times, 1 - inc.risks), [0.5])
+
+
+def test_auc_cause_from_scores_and_mismatch(cgvhd):
+    t, c, yc, inc, _ = cgvhd
+    from workbench.predictions import RiskScores
+
+    by_scores = competing_auc(yc, yc, RiskScores(inc.risk_at(0.5)), 0.5, cause=1)
+    assert by_scores.auc == competing_auc(yc, yc, inc, 0.5).auc
+    with pytest.raises(MetricError, match="predictions are for cause 1 but cause 2"):
+        competing_auc(yc, yc, inc, 0.5, cause=2)
