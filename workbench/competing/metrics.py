@@ -122,7 +122,7 @@ def competing_auc(
     time-dependent areas under receiver operating characteristic curves for
     censored event times with competing risks. Stat Med 2013;32:5381-97.
     """
-    time, cause = split_competing(y_test)
+    time, status = split_competing(y_test)
     if isinstance(prediction, RiskScores):
         k = 1 if cause is None else int(cause)
         if prediction.values.size != time.size:
@@ -136,10 +136,10 @@ def competing_auc(
                 f"competing_auc: the predictions are for cause {k} but cause {cause} was asked for."
             )
         score = curves.risk_at(t0)
-    t0 = _check_single_horizon(time, cause == k, t0, "competing_auc")
+    t0 = _check_single_horizon(time, status == k, t0, "competing_auc")
     cens = fit_censoring(any_event_outcome(y_train))
-    is_case = (cause == k) & (time <= t0)
-    is_comp = (cause > 0) & (cause != k) & (time <= t0)
+    is_case = (status == k) & (time <= t0)
+    is_comp = (status > 0) & (status != k) & (time <= t0)
     is_free = time > t0
     a = np.zeros(time.size)
     a[is_case] = cens.inverse_at(time[is_case], left_limit=True)
