@@ -76,3 +76,17 @@ def test_ratio_of_any_curves_and_refusals(rossi):
     np.testing.assert_allclose(res.survival, curves.probs[:, 9:] / curves.probs[:, [9]], rtol=0, atol=1e-12)
     with pytest.raises(MetricError, match="at or after"):
         conditional_survival_cox(fit, d[COLS].iloc[:2], [5.0], 10.0)
+
+
+def test_group_curves_are_ratios_of_group_means(rossi):
+    d, fit = rossi
+    grid = np.arange(1.0, 53.0)
+    probs = predict_survival(fit, d[COLS], grid)
+    groups = np.where(d["prio"] > 2, "high", "low")
+    res = conditional_from_curves(SurvivalCurves(grid, probs), 20.0, [20.0, 30.0, 52.0], groups=groups)
+    assert res.labels == ("high", "low")
+    for row, lab in enumerate(res.labels):
+        m = groups == lab
+        want = probs[m][:, [19, 29, 51]].mean(axis=0) / probs[m][:, 19].mean()
+        np.testing.assert_allclose(res.survival[row], want, rtol=0, atol=1e-12)
+    assert np.all(res.survival[:, 0] == 1.0)

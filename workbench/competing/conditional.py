@@ -169,16 +169,28 @@ def conditional_survival_km(time, event, times, since: float, *, groups=None, co
     return ConditionalSurvival(float(since), t, surv, lo, hi, () if groups is None else labels, float(conf_level))
 
 
-def conditional_from_curves(curves: SurvivalCurves, since: float, times=None) -> ConditionalSurvival:
+def conditional_from_curves(curves: SurvivalCurves, since: float, times=None, *, groups=None) -> ConditionalSurvival:
     """S(t) / S(s) of any model's survival curves (step lookup); no interval.
 
-    Raises where S(s) = 0 for a patient (no one is alive at s to condition on).
+    With ``groups`` (one label per patient) each row is a risk group's
+    model-based conditional survival, mean_i S_i(t) / mean_i S_i(s): the
+    survival to t of the group's patients still alive at s, as the model sees
+    them. Raises where S(s) = 0 (no one is alive at s to condition on).
     """
     t = _check(curves.times[curves.times >= since] if times is None else times, since)
     s_since = curves.at(float(since))
+    labels: tuple = ()
+    s_t = np.column_stack([curves.at(x) for x in t]) if t.size else np.zeros((curves.n_samples, 0))
+    if groups is not None:
+        g = np.asarray(groups).ravel()
+        if g.size != curves.n_samples:
+            raise MetricError(f"got {g.size} group labels for {curves.n_samples} patients; give one per patient.")
+        labels = tuple(np.unique(g).tolist())
+        s_since = np.array([s_since[g == lab].mean() for lab in labels])
+        s_t = np.vstack([s_t[g == lab].mean(axis=0) for lab in labels])
     if np.any(s_since <= 0):
         raise MetricError(f"predicted survival at the landmark {since:g} is 0 for some patients; nothing to condition on.")
-    s_t = np.column_stack([curves.at(x) for x in t]) if t.size else np.zeros((curves.n_samples, 0))
     surv = s_t / s_since[:, None]
+    surv[:, t == float(since)] = 1.0  # exactly, whatever the order of summation of the means
     nan = np.full_like(surv, np.nan)
-    return ConditionalSurvival(float(since), t, surv, nan, nan.copy())
+    return ConditionalSurvival(float(since), t, surv, nan, nan.copy(), labels)
