@@ -19,7 +19,7 @@ from scipy.stats import norm
 
 from workbench.errors import MetricError
 from workbench.predictions import SurvivalCurves
-from workbench.stats.coxph import CoxPHFit, _cumhaz_at, _design_for
+from workbench.stats.coxph import CoxPHFit, _cumhaz_at, _design_for, log_cumhaz_se
 from workbench.stats.km import kaplan_meier
 
 __all__ = [
@@ -104,17 +104,7 @@ def conditional_survival_cox(fit: CoxPHFit, X, times, since: float, *, conf_leve
     dH = _cumhaz_at(fit, t, fit.baseline_cumhaz) - _cumhaz_at(fit, at_s, fit.baseline_cumhaz)
     dV = _cumhaz_at(fit, t, fit.baseline_var) - _cumhaz_at(fit, at_s, fit.baseline_var)
     dQ = _cumhaz_at(fit, t, fit.baseline_xbar) - _cumhaz_at(fit, at_s, fit.baseline_xbar)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        pos = dH > 1e-300
-        qbar = np.where(pos[:, None], dQ / np.where(pos, dH, 1.0)[:, None], 0.0)
-        base = np.where(pos, dV / np.where(pos, dH, 1.0) ** 2, 0.0)
-    C = fit.cov
-    quad = (
-        np.einsum("ij,jk,ik->i", xc, C, xc)[:, None]
-        - 2 * xc @ C @ qbar.T
-        + np.einsum("tj,jk,tk->t", qbar, C, qbar)[None, :]
-    )
-    se = np.sqrt(np.clip(base[None, :] + quad, 0, None))
+    se = log_cumhaz_se(fit, xc, dH, dV, dQ)
     surv = np.exp(-np.exp(lp)[:, None] * dH[None, :])
     lo, hi = _loglog_limits(surv, se, conf_level)
     return ConditionalSurvival(float(since), t, surv, lo, hi, (), float(conf_level))

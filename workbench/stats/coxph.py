@@ -39,6 +39,7 @@ __all__ = [
     "baseline_survival_at",
     "fit_coxph",
     "linear_predictor",
+    "log_cumhaz_se",
     "predict_survival",
     "predict_survival_with_ci",
 ]
@@ -752,6 +753,28 @@ def predict_survival(fit: CoxPHFit, X, times, offset=None) -> np.ndarray:
     return np.exp(-np.exp(linear_predictor(fit, X, offset))[:, None] * H0[None, :])
 
 
+def log_cumhaz_se(fit: CoxPHFit, xc, H0, V0, Q) -> np.ndarray:
+    """Delta-method SE of log H(t | x) from the baseline pieces (see :func:`predict_survival_with_ci`).
+
+    ``xc`` are centred predictors (n_samples, n_params); ``H0``, ``V0`` and ``Q`` the
+    baseline cumulative hazard, its variance term and the cumulative risk-set means
+    over the interval of interest, (n_times,) and (n_times, n_params): read at t for
+    S(t | x), or differences between t and s for survival over (s, t]. Returns
+    (n_samples, n_times); 0 where H0 is 0.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pos = H0 > 0
+        qbar = np.where(pos[:, None], Q / np.where(pos, H0, 1.0)[:, None], 0.0)
+        base = np.where(pos, V0 / np.where(pos, H0, 1.0) ** 2, 0.0)
+    C = fit.cov
+    quad = (
+        np.einsum("ij,jk,ik->i", xc, C, xc)[:, None]
+        - 2 * xc @ C @ qbar.T
+        + np.einsum("tj,jk,tk->t", qbar, C, qbar)[None, :]
+    )
+    return np.sqrt(np.clip(base[None, :] + quad, 0, None))
+
+
 def predict_survival_with_ci(fit: CoxPHFit, X, times, conf_level: float = 0.95, offset=None) -> SurvivalWithCI:
     r"""Predicted survival with pointwise delta-method limits on the log cumulative hazard.
 
@@ -785,16 +808,7 @@ def predict_survival_with_ci(fit: CoxPHFit, X, times, conf_level: float = 0.95, 
     H0 = _cumhaz_at(fit, times, fit.baseline_cumhaz)
     V0 = _cumhaz_at(fit, times, fit.baseline_var)
     Q = _cumhaz_at(fit, times, fit.baseline_xbar)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        qbar = np.where(H0[:, None] > 0, Q / H0[:, None], 0.0)
-        base = np.where(H0 > 0, V0 / H0**2, 0.0)
-    C = fit.cov
-    quad = (
-        np.einsum("ij,jk,ik->i", xc, C, xc)[:, None]
-        - 2 * xc @ C @ qbar.T
-        + np.einsum("tj,jk,tk->t", qbar, C, qbar)[None, :]
-    )
-    se = np.sqrt(np.clip(base[None, :] + quad, 0, None))
+    se = log_cumhaz_se(fit, xc, H0, V0, Q)
     surv = np.exp(-np.exp(lp)[:, None] * H0[None, :])
     zq = float(special.ndtri(0.5 + conf_level / 2))
     return SurvivalWithCI(
