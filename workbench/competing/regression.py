@@ -185,7 +185,8 @@ def expand_fine_gray(y, cause: int = 1) -> ExpandedRows:
     Every patient keeps a row (0, T_i] with weight 1 (event if the cause is
     ``cause``). A patient with a competing event at T_i gets further rows
     (u_j, u_{j+1}] cut at the censoring times after T_i, up to the last event
-    time of ``cause``, with weight :math:`\hat G(u_j) / \hat G(T_i-)`: so at
+    time of ``cause`` (intervals that hold no event time of ``cause`` are left
+    out: they enter no risk set), with weight :math:`\hat G(u_j) / \hat G(T_i-)`: so at
     any time t the weight is :math:`\hat G(t-) / \hat G(T_i-)`, the estimated
     probability of still being uncensored at t given uncensored at T_i.
     :math:`\hat G` is the Kaplan-Meier estimate of the censoring distribution
@@ -220,7 +221,11 @@ def expand_fine_gray(y, cause: int = 1) -> ExpandedRows:
     g_start = cens.survival_at(start, left_limit=False, check_positive=False)
     g_entry = cens.survival_at(time[who], left_limit=True, check_positive=False)
     weight = g_start / g_entry
-    keep = (weight > 0) & (stop > start)
+    # Only risk sets at event times of the cause count: an interval holding none of them
+    # changes neither the likelihood nor the baseline, so it is left out.
+    ev = np.unique(time[own])
+    holds_event = np.searchsorted(ev, stop, side="right") > np.searchsorted(ev, start, side="right")
+    keep = (weight > 0) & (stop > start) & holds_event
     return ExpandedRows(
         patient=np.r_[np.arange(n), who[keep]],
         start=np.r_[np.zeros(n), start[keep]],

@@ -54,13 +54,12 @@ def test_expansion_rows_on_a_small_example():
     # Worked by hand: censorings at 2, 4 and 6, cause-1 events at 1 and 5, a competing event
     # at 1.5. Censoring Kaplan-Meier: at 2 four patients are at risk (times 2, 4, 5, 6), so
     # G(2) = 3/4; at 4 three (4, 5, 6), so G(4) = 3/4 * 2/3 = 1/2; G(1.5-) = 1. The competing
-    # patient stays on (1.5, 2], (2, 4], (4, 5] (5 = last cause-1 event) with weights
-    # G(1.5)/G(1.5-) = 1, G(2) = 3/4 and G(4) = 1/2.
+    # patient would stay on (1.5, 2], (2, 4], (4, 5] (5 = last cause-1 event) with weights
+    # 1, 3/4 and 1/2; only (4, 5] holds a cause-1 event time, so only it is kept.
     y = make_competing_outcome([1.0, 1.5, 2.0, 4.0, 5.0, 6.0], [1, 2, 0, 0, 1, 0])
     rows = expand_fine_gray(y, 1)
-    extra = rows.patient >= 0
-    extra[:6] = False
-    np.testing.assert_array_equal(rows.patient[extra], [1, 1, 1])
-    np.testing.assert_allclose(rows.start[extra], [1.5, 2.0, 4.0])
-    np.testing.assert_allclose(rows.stop[extra], [2.0, 4.0, 5.0])
-    np.testing.assert_allclose(rows.weight[extra], [1.0, 0.75, 0.5], rtol=0, atol=1e-15)
+    np.testing.assert_array_equal(rows.patient, [0, 1, 2, 3, 4, 5, 1])
+    np.testing.assert_allclose(rows.start[6:], [4.0])
+    np.testing.assert_allclose(rows.stop, [1.0, 1.5, 2.0, 4.0, 5.0, 6.0, 5.0])
+    np.testing.assert_array_equal(rows.event, [True, False, False, False, True, False, False])
+    np.testing.assert_allclose(rows.weight, [1, 1, 1, 1, 1, 1, 0.5], rtol=0, atol=1e-15)
