@@ -54,6 +54,15 @@ def test_auc_equals_cumulative_dynamic_auc(gbsg2, t0):
     ref = time_dependent_auc(gbsg2["y_tr"], gbsg2["y_te"], RiskScores(gbsg2["curves"].risk_at(t0)), [t0])
     assert ours.n_controls_competing == 0
     assert abs(ours.auc - ref.auc[0]) < TOL
+    assert abs(ours.std_err - ref.std_err[0]) < TOL
+
+
+def test_auc_standard_error_on_the_same_sample(gbsg2):
+    # apparent performance: training and evaluation rows are the same patients
+    ours = competing_auc(gbsg2["c_te"], gbsg2["c_te"], gbsg2["inc"], 730.0)
+    ref = time_dependent_auc(gbsg2["y_te"], gbsg2["y_te"], RiskScores(gbsg2["curves"].risk_at(730.0)), [730.0])
+    assert abs(ours.auc - ref.auc[0]) < TOL
+    assert abs(ours.std_err - ref.std_err[0]) < TOL
 
 
 def test_brier_and_ipa_equal_survival_brier(gbsg2):

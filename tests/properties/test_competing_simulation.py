@@ -2,7 +2,8 @@
 
 60 cohorts of 200 patients: Aalen-Johansen interval coverage of the true cumulative
 incidence under constant cause-specific hazards, Fine-Gray coefficient bias and robust
-interval coverage under a true Fine-Gray model (Fine & Gray 1999 design), and conditional-survival interval coverage
+interval coverage under a true Fine-Gray model (Fine & Gray 1999 design), AUC (definition 2)
+interval coverage on the same cohorts, and conditional-survival interval coverage
 under a Weibull proportional-hazards truth. Bounds: nominal 0.95 pooled over horizons,
 with room for the Monte Carlo error of 60 cohorts (the full benchmark prints the per-cell
 numbers with their MC SE).
@@ -90,3 +91,11 @@ def test_calibration_and_auc_of_the_true_incidence():
     auc_true = competing_auc(y, y, true, t0).auc
     auc_random = competing_auc(y, y, RiskScores(rng.uniform(size=t.size)), t0).auc
     assert auc_true > 0.65 and abs(auc_random - 0.5) < 0.04, (auc_true, auc_random)
+
+
+def test_auc_interval_covers(rows):
+    from bench_competing import true_auc
+
+    auc = np.array([r["auc"] for r in rows])
+    assert 0.90 <= auc[:, 2].mean() <= 0.99, auc[:, 2].mean()
+    assert abs(auc[:, 0].mean() - true_auc()) < 3 * auc[:, 0].std(ddof=1) / np.sqrt(COHORTS) + 0.005
