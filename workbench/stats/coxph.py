@@ -39,6 +39,7 @@ __all__ = [
     "baseline_survival_at",
     "fit_coxph",
     "linear_predictor",
+    "log_cumhaz_se",
     "predict_survival",
     "predict_survival_with_ci",
 ]
@@ -212,6 +213,7 @@ class _Data:
     names: tuple[str, ...]
     integer_weights: bool
     rows: np.ndarray
+    entry: np.ndarray | None = None
 
 
 def _as_design(X, names) -> tuple[np.ndarray, tuple[str, ...]]:
@@ -251,7 +253,7 @@ def _vector(v, n: int, what: str, default: float) -> np.ndarray:
     return v
 
 
-def _prepare(X, time, event, weights=None, offset=None, names=None) -> _Data:
+def _prepare(X, time, event, weights=None, offset=None, names=None, entry=None) -> _Data:
     X, names = _as_design(X, names)
     n = X.shape[0]
     t = _vector(time, n, "The follow-up time", 0.0)
@@ -279,16 +281,26 @@ def _prepare(X, time, event, weights=None, offset=None, names=None) -> _Data:
     if np.any(w < 0):
         raise ModelError(f"Case weights must not be negative; negative in {_rows(w < 0)}.")
     off = _vector(offset, n, "The offset", 0.0)
+    ent = None
+    if entry is not None:
+        ent = _vector(entry, n, "The entry time", 0.0)
+        late = (ent > t) | (e & (ent >= t))
+        if late.any():
+            raise ModelError(
+                f"The entry time is not before the follow-up time in {_rows(late)}; a row is at risk "
+                "on (entry, time], so entry must be earlier than time (and strictly earlier for an event)."
+            )
     keep = w > 0
     if not keep.all():
         X, t, e, w, off = X[keep], t[keep], e[keep], w[keep], off[keep]
+        ent = None if ent is None else ent[keep]
     if not np.any(e):
         raise ModelError(
             f"No events are recorded among the {int(keep.sum())} patients, so no hazard ratio can be estimated. "
             "Check the coding of the event column (1 = event such as death or relapse, 0 = censored)."
         )
     integer = bool(np.all(np.abs(w - np.rint(w)) < 1e-8))
-    return _Data(X, t, e, w, off, names, integer, np.flatnonzero(keep))
+    return _Data(X, t, e, w, off, names, integer, np.flatnonzero(keep), ent)
 
 
 # --------------------------------------------------------- risk-set engine
@@ -306,7 +318,7 @@ class _Terms:
 class _RiskSets:
     """Time-sorted layout of one data set; evaluates the partial likelihood."""
 
-    def __init__(self, time, event, weights, integer_weights: bool):
+    def __init__(self, time, event, weights, integer_weights: bool, entry=None):
         order = np.argsort(time, kind="stable")
         self.order = order
         self.t, self.d, self.w = time[order], event[order], weights[order]
@@ -320,6 +332,14 @@ class _RiskSets:
         self.wd = np.add.reduceat(self.w[self.ev_pos], self.ev_starts)
         self.n_groups_le = np.searchsorted(self.times, self.t, side="right")
         self.integer_weights = integer_weights
+        # Delayed entry (counting-process rows): row i is at risk at event time s when
+        # entry_i < s <= t_i, so the rows that entered at or after s are subtracted.
+        self.late = None
+        if entry is not None and np.any(entry[order] > 0):
+            self.entry = entry[order]
+            self.entry_order = np.argsort(self.entry, kind="stable")
+            self.late = np.searchsorted(self.entry[self.entry_order], self.times, side="left")
+            self.n_groups_le_entry = np.searchsorted(self.times, self.entry, side="right")
 
     def terms(self, ties: str) -> _Terms:
         G = self.n_groups
@@ -345,6 +365,10 @@ class _RiskSets:
         rX = r[:, None] * Xs
         S0 = np.cumsum(r[::-1])[::-1][self.first]
         S1 = np.cumsum(rX[::-1], axis=0)[::-1][self.first]
+        if self.late is not None:
+            eo = self.entry_order
+            S0 = S0 - np.r_[np.cumsum(r[eo][::-1])[::-1], 0.0][self.late]
+            S1 = S1 - np.vstack([np.cumsum(rX[eo][::-1], axis=0)[::-1], np.zeros((1, Xs.shape[1]))])[self.late]
         E0 = np.add.reduceat(r[self.ev_pos], self.ev_starts)
         E1 = np.add.reduceat(rX[self.ev_pos], self.ev_starts, axis=0)
         g, f, c = terms.group, terms.frac, terms.mult
@@ -361,7 +385,10 @@ class _RiskSets:
         if hessian:
             alpha = np.bincount(g, weights=c / s0, minlength=self.n_groups)
             gamma = np.bincount(g, weights=c * f / s0, minlength=self.n_groups)
-            diag = r * np.concatenate([[0.0], np.cumsum(alpha)])[self.n_groups_le]
+            cum_alpha = np.concatenate([[0.0], np.cumsum(alpha)])
+            diag = r * cum_alpha[self.n_groups_le]
+            if self.late is not None:
+                diag -= r * cum_alpha[self.n_groups_le_entry]
             diag[self.ev_pos] -= r[self.ev_pos] * gamma[self.ev_group]
             info = (Xs * diag[:, None]).T @ Xs - (a * c[:, None]).T @ a
         return loglik, score, info, (s0, a, shift)
@@ -422,6 +449,7 @@ def fit_coxph(
     names=None,
     baseline_ties: Ties | None = None,
     min_events_per_parameter: float = 10.0,
+    entry=None,
 ) -> CoxPHFit:
     r"""Fit a Cox proportional-hazards model by Newton-Raphson.
 
@@ -458,6 +486,12 @@ def fit_coxph(
         Fleming-Harrington estimator).
     min_events_per_parameter : float
         Threshold for :class:`LowEventsWarning` (common practice: 10); 0 disables.
+    entry : array-like of shape (n_samples,), optional
+        Entry times for counting-process rows (delayed entry): a row is at risk
+        on (entry, time]. Used for time-varying weights, e.g. the Fine-Gray
+        model on expanded data (:mod:`workbench.competing.regression`). The
+        perfect-ordering separation check then compares with a superset of
+        each risk set; the likelihood probe still applies.
 
     Returns
     -------
@@ -488,7 +522,7 @@ def fit_coxph(
         raise ModelError(f"baseline_ties must be 'efron' or 'breslow', not {baseline_ties!r}.")
     if penalty < 0 or not np.isfinite(penalty):
         raise ModelError(f"The ridge penalty must be zero or positive, not {penalty}.")
-    data = _prepare(X, time, event, weights, offset, names)
+    data = _prepare(X, time, event, weights, offset, names, entry)
     names = data.names
     n_par = data.X.shape[1]
     w = data.weights
@@ -503,7 +537,7 @@ def fit_coxph(
             f"({data.X[0, j]:g} for '{names[j]}') for every patient, so its hazard ratio cannot be "
             "estimated. Remove it from the model."
         )
-    rs = _RiskSets(data.time, data.event, w, data.integer_weights)
+    rs = _RiskSets(data.time, data.event, w, data.integer_weights, data.entry)
     Xs = ((data.X - x_mean) / x_scale)[rs.order]
     off = data.offset[rs.order]
     _check_design(Xs, rs.w, names)
@@ -719,6 +753,28 @@ def predict_survival(fit: CoxPHFit, X, times, offset=None) -> np.ndarray:
     return np.exp(-np.exp(linear_predictor(fit, X, offset))[:, None] * H0[None, :])
 
 
+def log_cumhaz_se(fit: CoxPHFit, xc, H0, V0, Q) -> np.ndarray:
+    """Delta-method SE of log H(t | x) from the baseline pieces (see :func:`predict_survival_with_ci`).
+
+    ``xc`` are centred predictors (n_samples, n_params); ``H0``, ``V0`` and ``Q`` the
+    baseline cumulative hazard, its variance term and the cumulative risk-set means
+    over the interval of interest, (n_times,) and (n_times, n_params): read at t for
+    S(t | x), or differences between t and s for survival over (s, t]. Returns
+    (n_samples, n_times); 0 where H0 is 0.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pos = H0 > 0
+        qbar = np.where(pos[:, None], Q / np.where(pos, H0, 1.0)[:, None], 0.0)
+        base = np.where(pos, V0 / np.where(pos, H0, 1.0) ** 2, 0.0)
+    C = fit.cov
+    quad = (
+        np.einsum("ij,jk,ik->i", xc, C, xc)[:, None]
+        - 2 * xc @ C @ qbar.T
+        + np.einsum("tj,jk,tk->t", qbar, C, qbar)[None, :]
+    )
+    return np.sqrt(np.clip(base[None, :] + quad, 0, None))
+
+
 def predict_survival_with_ci(fit: CoxPHFit, X, times, conf_level: float = 0.95, offset=None) -> SurvivalWithCI:
     r"""Predicted survival with pointwise delta-method limits on the log cumulative hazard.
 
@@ -752,16 +808,7 @@ def predict_survival_with_ci(fit: CoxPHFit, X, times, conf_level: float = 0.95, 
     H0 = _cumhaz_at(fit, times, fit.baseline_cumhaz)
     V0 = _cumhaz_at(fit, times, fit.baseline_var)
     Q = _cumhaz_at(fit, times, fit.baseline_xbar)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        qbar = np.where(H0[:, None] > 0, Q / H0[:, None], 0.0)
-        base = np.where(H0 > 0, V0 / H0**2, 0.0)
-    C = fit.cov
-    quad = (
-        np.einsum("ij,jk,ik->i", xc, C, xc)[:, None]
-        - 2 * xc @ C @ qbar.T
-        + np.einsum("tj,jk,tk->t", qbar, C, qbar)[None, :]
-    )
-    se = np.sqrt(np.clip(base[None, :] + quad, 0, None))
+    se = log_cumhaz_se(fit, xc, H0, V0, Q)
     surv = np.exp(-np.exp(lp)[:, None] * H0[None, :])
     zq = float(special.ndtri(0.5 + conf_level / 2))
     return SurvivalWithCI(
