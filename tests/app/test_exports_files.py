@@ -78,3 +78,26 @@ def test_an_error_while_building_is_kept_and_raised_to_the_view(builders, monkey
         ex.get("figures")
     with pytest.raises(ValueError, match="no figures today"):  # the screens need the figures
         ex.get("screens")
+
+
+def test_results_file_is_built_at_once_while_the_figures_are_still_being_drawn(builders, monkeypatch):
+    gate = threading.Event()
+    slow = exports.BUILDERS["figures"]
+
+    def held(result):
+        gate.wait(30)
+        return slow(result)
+
+    monkeypatch.setitem(exports.BUILDERS, "figures", held)
+    ex = exports.prepare(object())
+    try:
+        got = {}
+        reader = threading.Thread(target=lambda: got.setdefault("json", ex.get("json")))
+        reader.start()
+        reader.join(timeout=10)
+        assert not reader.is_alive() and got["json"] == "{}"  # did not wait for the figures
+        assert not ex.ready("figures")
+    finally:
+        gate.set()
+        ex._thread.join(timeout=60)
+    assert ex.ready("report") and not ex.errors

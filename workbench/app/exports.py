@@ -98,7 +98,9 @@ class Exports:
         self.result = result
         self.files: dict[str, object] = {}
         self.errors: dict[str, BaseException] = {}
-        self._lock = threading.RLock()  # "screens" is built from "figures" while holding it
+        # one lock per file: a view asking for results.json builds it at once instead of waiting
+        # for the background thread to finish drawing the figures
+        self._locks = {name: threading.Lock() for name in (*BUILDERS, "screens")}
         self._thread: threading.Thread | None = None
 
     def start(self) -> Exports:
@@ -112,7 +114,7 @@ class Exports:
             self._build(name)
 
     def _build(self, name: str) -> None:
-        with self._lock:
+        with self._locks[name]:
             if name in self.files or name in self.errors:
                 return
             try:
@@ -124,7 +126,7 @@ class Exports:
 
     def get(self, name: str):
         """The file's content (None when the layer offers none); raises the error met while building it."""
-        self._build(name)  # waits for the background thread while it holds the lock
+        self._build(name)  # waits for the background thread only while it builds this same file
         if name in self.errors:
             raise self.errors[name]
         return self.files.get(name)
