@@ -301,7 +301,8 @@ def _cmd_estimate(args) -> int:
     ignore = tuple(k for k in (d.id, d.time, d.event, d.centre) if k and k in patient)
     ignore += tuple(f.strip() for item in args.ignore or () for f in item.split(",") if f.strip())
     est = estimate_patient(bundle.models[args.model], patient, bundle.spec.horizons,
-                           training_ranges=ranges_from_bundle(bundle, args.model), ignore=ignore)
+                           training_ranges=ranges_from_bundle(bundle, args.model), ignore=ignore,
+                           alive_at=args.alive_at)
     from workbench.plausibility import check_patient_scale
 
     check_patient_scale(est.checks, source=str(args.patient) if args.patient else "the patient's values")
@@ -365,6 +366,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--value", action="append", metavar="FIELD=VALUE", help="a value, e.g. --value age=67 (repeatable)")
     p.add_argument("--ignore", action="append", metavar="FIELD[,FIELD]",
                    help="fields of the patient file the model does not use, to skip (repeatable)")
+    p.add_argument("--alive-at", type=float, metavar="TIME",
+                   help="the patient is known to be alive at this time (a follow-up visit): also print the "
+                        "chance of reaching each later horizon given that (conditional survival)")
     p.set_defaults(func=_cmd_estimate)
 
     p = sub.add_parser("app", help="start the browser front end on this computer")

@@ -17,7 +17,7 @@ from __future__ import annotations
 import difflib
 import warnings
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -131,6 +131,10 @@ class PatientEstimate:
     checks: PatientChecks
     notes: tuple[str, ...] = ()
     caution: str = CAUTION
+    alive_at: float | None = None
+    conditional: tuple[HorizonEstimate, ...] = ()
+    """Survival to each later horizon given survival to ``alive_at`` (S(t)/S(s)), with the
+    limits of the same interval method; empty without ``alive_at``."""
 
     @property
     def out_of_range(self) -> bool:
@@ -344,7 +348,7 @@ def check_patient(patient, training_ranges: TrainingRanges, *, ignore: Sequence[
 
 def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRanges | None = None,
                      conf_level: float = 0.95, method: str = "delta", bootstrap_models=None,
-                     times=None, ignore: Sequence[str] = ()) -> PatientEstimate:
+                     times=None, ignore: Sequence[str] = (), alive_at: float | None = None) -> PatientEstimate:
     """Survival estimate with confidence limits for one new patient.
 
     Parameters
@@ -375,6 +379,12 @@ def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRange
         Time grid of the curve; default 121 points from 0 to the last horizon.
     ignore : sequence of str
         Further fields of the patient's record to leave aside (for example an id).
+    alive_at : float, optional
+        A time the patient is known to have survived to (a follow-up visit): adds the
+        conditional survival S(t | alive at s) = S(t) / S(s) at every later horizon, with
+        limits from the same method ("delta": over (s, t] from the Cox model, see
+        :func:`workbench.competing.conditional.conditional_survival_cox`; "bootstrap":
+        percentiles of the refits' ratios; none for the forest and penalised model).
 
     Returns
     -------
@@ -394,6 +404,11 @@ def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRange
     h = np.atleast_1d(np.asarray(horizons, dtype=float))
     if h.size == 0 or not np.all(np.isfinite(h)) or np.any(h <= 0):
         raise SpecError(f"horizons must be positive times, for example [12, 24, 36]; got {list(h)}.")
+    if alive_at is not None:
+        a = float(alive_at)
+        if not np.isfinite(a) or a <= 0 or a >= float(h.max()):
+            raise SpecError(f"alive_at must be a time after 0 and before the last horizon ({h.max():g}); "
+                            f"got {alive_at!r}.")
     ranges = training_ranges if training_ranges is not None else ranges_from_model(model)
     cohort, checks, unestimable = _validate(patient, ranges, ignore)
     if unestimable:
@@ -405,6 +420,10 @@ def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRange
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         est = _predict(model, cohort, grid, h, conf_level, method, bootstrap_models, ranges, checks)
+        if alive_at is not None:
+            est = replace(est, alive_at=float(alive_at),
+                          conditional=_conditional(model, cohort, h, float(alive_at), conf_level, est.interval_method,
+                                                   bootstrap_models))
     # each prediction call re-encodes the patient; pass every distinct warning on once
     for msg in {(w.category, str(w.message)): w for w in caught}.values():
         warnings.warn(str(msg.message), msg.category, stacklevel=2)
@@ -452,6 +471,32 @@ def _predict(model, cohort, grid, h, conf_level, method, bootstrap_models, range
         conf_level=float(conf_level), interval_method=how, n_bootstrap=n_boot, linear_predictor=lp,
         risk_score=risk, risk_group=group, risk_cutpoints=cuts, checks=checks, notes=tuple(notes),
     )
+
+
+def _conditional(model, cohort, h, since: float, conf_level: float, how: str, bootstrap_models):
+    """S(t | alive at ``since``) at the horizons after it, with limits by the estimate's method."""
+    later = h[h > since]
+    if not later.size:
+        return ()
+    grid = as_times(np.concatenate([[since], later]))
+    surv = model.predict_survival(cohort, grid).probs[0]
+    if not surv[0] > 0:
+        raise ModelError(f"the model gives no survival to {since:g}; conditional survival after it is undefined.")
+    est = surv[1:] / surv[0]
+    lo = hi = np.full(later.size, np.nan)
+    if how == "delta":
+        from workbench.competing.conditional import conditional_survival_cox
+
+        cs = conditional_survival_cox(model.fit_, model._design(cohort), later, since, conf_level=conf_level)
+        lo, hi = cs.lower[0], cs.upper[0]
+    elif how == "bootstrap":
+        draws = np.vstack([m.predict_survival(cohort, grid).probs[0] for m in bootstrap_models])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratios = draws[:, 1:] / draws[:, :1]
+        a = 100 * (1 - conf_level) / 2
+        lo, hi = np.nanpercentile(ratios, [a, 100 - a], axis=0)
+    return tuple(HorizonEstimate(float(t), float(e), float(a_), float(b))
+                 for t, e, a_, b in zip(later, est, lo, hi, strict=True))
 
 
 def refit_bootstrap(model, cohort: Cohort, n_replicates: int = 200, *, random_state) -> list:
@@ -503,6 +548,14 @@ def format_estimate(est: PatientEstimate) -> str:
         ci = (f" ({100 * est.conf_level:g}% CI {_pct(hz.lower)} to {_pct(hz.upper)}; {label})"
               if est.interval_method != "none" else " (no interval)")
         lines.append(f"  Survival at {hz.horizon:g} {u}: {_pct(hz.survival)}{ci}")
+    if est.alive_at is not None:
+        lines.append(f"  Alive at {est.alive_at:g} {u}: chance of being alive at")
+        for hz in est.conditional:
+            ci = (f" ({100 * est.conf_level:g}% CI {_pct(hz.lower)} to {_pct(hz.upper)})"
+                  if np.isfinite(hz.lower) else " (no interval)")
+            lines.append(f"    {hz.horizon:g} {u}: {_pct(hz.survival)}{ci}")
+        if not est.conditional:
+            lines.append("    (no horizon lies after it)")
     lines.append("")
     if np.isfinite(est.linear_predictor):
         lines.append(f"Linear predictor: {est.linear_predictor:.3f} (0 = average training patient)")

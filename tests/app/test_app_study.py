@@ -182,6 +182,16 @@ def test_patient_estimate_matches_the_library(ran):
     for hz in est.horizons:
         assert shown[f"Survival at {hz.horizon:g} months"] == f"{100 * hz.survival:.1f}%"
     assert "Research use only" in " ".join(i.value for i in at.info)  # the caution, once, above the view
+    # alive at the first horizon (a follow-up visit): the chances of reaching the later ones
+    first = float(result.spec.horizons[0])
+    box = next(n for n in at.number_input if n.label.startswith("Known to be alive at"))
+    box.set_value(first).run()
+    assert_clean(at)
+    cond = estimate_patient(model, {k: v for k, v in record.items() if k in keep}, result.spec.horizons,
+                            training_ranges=ranges, alive_at=first).conditional
+    table = _frame_with(at, "Horizon", "Chance, given alive now")
+    assert list(table["Chance, given alive now"]) == [f"{100 * c.survival:.1f}%" for c in cond]
+    assert len(cond) == len(result.spec.horizons) - 1
 
 
 def test_patient_out_of_range_and_text_are_explained(ran):

@@ -361,3 +361,19 @@ def test_apply_says_why_there_are_no_intervals(study, run_folder, tmp_path, caps
     assert main([*args, "--out", str(tmp_path / "enough"), "--replicates", "10"]) == 0
     out = capsys.readouterr().out
     assert "No interval" not in out and " to " in out.split("IBS")[1].splitlines()[1]
+
+
+def test_estimate_alive_at_a_visit_prints_the_conditional_chances(run_folder, capsys):
+    from workbench.report.bundle import load_bundle
+
+    h = load_bundle(run_folder / "bundle").spec.horizons
+    code = main(["estimate", str(run_folder / "bundle"), "--model", "clinical", "--value", "age=60",
+                 "--value", "tgrade=II", "--value", "horTh=no", "--alive-at", f"{h[0]:g}"])
+    assert code == 0
+    out = capsys.readouterr().out
+    assert f"Alive at {h[0]:g} " in out and "chance of being alive at" in out
+    assert out.count("CI") >= len(h) + len(h) - 1  # every horizon, and every later one given the visit
+    assert out.rstrip().splitlines()[-1].startswith("Caution:")
+    assert main(["estimate", str(run_folder / "bundle"), "--model", "clinical", "--value", "age=60",
+                 "--value", "tgrade=II", "--value", "horTh=no", "--alive-at", f"{h[-1]:g}"]) == 2
+    assert "alive_at must be a time after 0 and before the last horizon" in capsys.readouterr().err

@@ -286,3 +286,49 @@ def test_read_patient_file_errors(demo, tmp_path):
     odd.write_text("{}")
     with pytest.raises(CohortError, match=r"must be \.csv, \.tsv or \.xlsx"):
         read_patient_file(odd)
+
+
+# ------------------------------------------------------------------ alive at a follow-up visit
+
+
+def test_conditional_survival_is_the_ratio_with_the_delta_interval_over_the_gap(demo):
+    from workbench.competing.conditional import conditional_survival_cox
+
+    _, cohort, models, _ = demo
+    m = models["clinical"]
+    est = estimate_patient(m, _patient(demo), H, training_ranges=_ranges(demo), alive_at=12.0)
+    assert est.alive_at == 12.0 and [c.horizon for c in est.conditional] == [24.0, 36.0]
+    s = m.predict_survival(cohort.take([3]), [12.0, 24.0, 36.0]).probs[0]
+    # S(t | alive at 12) = S(t) / S(12) of the same model (Zabor et al. 2013)
+    np.testing.assert_allclose([c.survival for c in est.conditional], s[1:] / s[0], rtol=0, atol=1e-12)
+    ref = conditional_survival_cox(m.fit_, m._design(cohort.take([3])), [24.0, 36.0], 12.0)
+    np.testing.assert_allclose([c.lower for c in est.conditional], ref.lower[0], rtol=0, atol=1e-12)
+    np.testing.assert_allclose([c.upper for c in est.conditional], ref.upper[0], rtol=0, atol=1e-12)
+    for c, h in zip(est.conditional, est.horizons[1:], strict=True):
+        assert c.lower < c.survival < c.upper
+        assert c.survival > h.survival  # having survived a year, the chance of reaching t is higher
+    text = format_estimate(est)
+    assert "Alive at 12 months: chance of being alive at" in text and "36 months:" in text
+
+
+def test_conditional_survival_by_bootstrap_and_without_an_interval(demo):
+    _, cohort, models, _ = demo
+    m = models["clinical"]
+    refits = refit_bootstrap(m, cohort, 20, random_state=5)
+    est = estimate_patient(m, _patient(demo), H, training_ranges=_ranges(demo), method="bootstrap",
+                           bootstrap_models=refits, alive_at=24.0)
+    draws = np.array([r.predict_survival(cohort.take([3]), [24.0, 36.0]).probs[0] for r in refits])
+    ratio = draws[:, 1] / draws[:, 0]
+    assert est.conditional[0].lower == pytest.approx(np.percentile(ratio, 2.5), abs=1e-12)
+    assert est.conditional[0].upper == pytest.approx(np.percentile(ratio, 97.5), abs=1e-12)
+    forest = estimate_patient(models["forest"], _patient(demo, imaging=True), H,
+                              training_ranges=_ranges(demo, "forest"), alive_at=12.0)
+    f = models["forest"].predict_survival(cohort.take([3]), [12.0, 36.0]).probs[0]
+    assert forest.conditional[-1].survival == pytest.approx(f[1] / f[0], abs=1e-12)
+    assert np.isnan(forest.conditional[-1].lower)
+
+
+@pytest.mark.parametrize("alive_at", [0.0, 36.0, 40.0, float("nan")])
+def test_alive_at_must_lie_before_the_last_horizon(demo, alive_at):
+    with pytest.raises(SpecError, match="alive_at must be a time after 0 and before the last horizon"):
+        estimate_patient(demo[2]["clinical"], _patient(demo), H, training_ranges=_ranges(demo), alive_at=alive_at)

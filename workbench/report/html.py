@@ -132,6 +132,14 @@ def _group_context(d: dict, horizons) -> dict:
     return {"ext_groups": rows(ext), "loco_groups": rows((d.get("validation") or {}).get("by_group"))}
 
 
+def _conditional_context(d: dict) -> dict | None:
+    """Observed conditional survival by risk group of the lead model (combined, else clinical)."""
+    lead = next((k for k in ("combined", "clinical") if k in d.get("models", {})), None)
+    block = ((d["models"][lead].get("risk_groups") or {}).get("conditional_survival") or {}) if lead else {}
+    cohorts = [{"name": n, "rows": rows} for n, rows in block.items() if rows]
+    return {"model": _label(lead), "cohorts": cohorts} if cohorts else None
+
+
 def report_context(result, *, include_ids: bool = False, figures: bool = True) -> dict:
     """Everything the report template shows, as plain data (numbers from ``results_dict``)."""
     d = results_dict(result)
@@ -211,6 +219,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
         "cal_rows": cal_rows, "cal_labels": [_LABELS[c] for c in _CALIBRATION],
         "models": models, "comps": comps, "ext": ext, "ids": ids, "volume_comp": volume_comp(vcd.get("internal")),
         **_group_context(d, horizons),
+        "conditional": _conditional_context(d),
         "equal": {MODEL_LABELS.get(k, k): MODEL_LABELS.get(v, v) for k, v in equal_models(result.models).items()},
         "equal_note": EQUAL_NOTE,
         "apparent_only": d["validation"]["method"] == "none",

@@ -171,9 +171,39 @@ def _risk_group_block(result, name: str) -> dict | None:
         cuts = learn_cutpoints(result.models[name].predict_risk(result.cohort), k)
     except Exception:  # noqa: BLE001 - e.g. too many tied scores: no groups rather than no results
         return None
-    return {"n_groups": int(k), "cutpoints": jsonable(cuts), "labels": list(group_labels(k)),
-            "learned_on": "training rows (quantiles of the risk score)",
-            "rule": "a score exactly on a cut-point joins the lower group"}
+    out = {"n_groups": int(k), "cutpoints": jsonable(cuts), "labels": list(group_labels(k)),
+           "learned_on": "training rows (quantiles of the risk score)",
+           "rule": "a score exactly on a cut-point joins the lower group"}
+    out["conditional_survival"] = {"development": conditional_rows(result.models[name], result.cohort, cuts,
+                                                                   result.spec.horizons)}
+    if result.external_prepared is not None and name in (result.external.estimates if result.external else {}):
+        out["conditional_survival"]["external"] = conditional_rows(
+            result.models[name], result.external_prepared.cohort, cuts, result.spec.horizons)
+    return out
+
+
+def conditional_rows(model, cohort, cuts, horizons) -> list[dict]:
+    """Observed conditional survival per risk group: alive at one horizon, the chance of reaching each
+    later one (Kaplan-Meier within the group, Greenwood log(-log) 95% limits; Zabor et al. 2013).
+    Groups from the model's risk with the training cut-points; on the development cohort the
+    separation of the groups is apparent (the model was fitted there)."""
+    from workbench.competing.conditional import conditional_survival_km
+    from workbench.stats.riskgroups import assign_groups, group_labels
+
+    labels = group_labels(len(cuts) + 1)
+    g = assign_groups(model.predict_risk(cohort).values, cuts)
+    last = float(cohort.time.max())
+    hz = [float(h) for h in horizons if float(h) < last]
+    rows = []
+    for i, s in enumerate(hz[:-1]):
+        cs = conditional_survival_km(cohort.time, cohort.event, hz[i + 1:], s, groups=g)
+        for r, lab in enumerate(cs.labels):
+            at_risk = int(np.sum((g == lab) & (cohort.time > s)))
+            for j, t in enumerate(cs.times):
+                rows.append({"group": labels[int(lab)], "alive_at": s, "horizon": float(t), "at_risk": at_risk,
+                             "survival": jsonable(float(cs.survival[r, j])),
+                             "ci_lower": jsonable(float(cs.lower[r, j])), "ci_upper": jsonable(float(cs.upper[r, j]))})
+    return rows
 
 
 def _group_digest(result) -> list[str]:

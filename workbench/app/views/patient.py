@@ -177,6 +177,17 @@ def _show(result, name: str, est, record: dict, score: float | None = None) -> N
         col.caption(ci)
     if est.risk_group is not None:
         cols[-1].metric("Risk group", est.risk_group, help="Tertiles of the training patients' risk.")
+    if est.alive_at is not None:
+        st.markdown(f"**Alive at {est.alive_at:g} {u}**: the chance of being alive at each later horizon")
+        rows = [(f"{c.horizon:g} {u}", f"{100 * c.survival:.1f}%",
+                 f"{100 * c.lower:.1f}% to {100 * c.upper:.1f}%" if np.isfinite(c.lower) else "no interval")
+                for c in est.conditional]
+        if rows:
+            state.table(pd.DataFrame(rows, columns=["Horizon", "Chance, given alive now", f"{pct}% CI"]))
+            st.caption("Conditional survival: the predicted survival to each horizon divided by that to the visit, "
+                       "from the same model; the interval is of the same kind as above.")
+        else:
+            st.caption("No horizon of the study lies after this time.")
     ch = est.checks
     if ch.out_of_range:
         st.markdown("**Values outside the training data** (the model extrapolates there)")
@@ -289,8 +300,16 @@ def render() -> None:
         known.add(result.spec.data.batch or use_ranges.batch_column)
     record = {k: v for k, v in values.items() if k in known}
     estimate = state.load_module("workbench.estimate")
+    hz = [float(h) for h in result.spec.horizons]
+    u = result.validation.time_unit
+    alive = st.number_input(
+        f"Known to be alive at ({u}; optional)", min_value=0.0, max_value=float(max(hz)), value=0.0,
+        step=float(min(hz)) / 2, key=f"pt_alive_{tag}",
+        help="At a follow-up visit: the chance of reaching each later horizon given that the patient is alive "
+             "now (conditional survival). 0 leaves it out.")
     try:
-        est = estimate.estimate_patient(use_model, record, result.spec.horizons, training_ranges=use_ranges)
+        est = estimate.estimate_patient(use_model, record, result.spec.horizons, training_ranges=use_ranges,
+                                        alive_at=float(alive) if 0 < alive < max(hz) else None)
     except Exception as exc:  # noqa: BLE001
         state.show_error("The estimate cannot be made", exc)
         return
