@@ -101,3 +101,15 @@ def test_results_file_is_built_at_once_while_the_figures_are_still_being_drawn(b
         gate.set()
         ex._thread.join(timeout=60)
     assert ex.ready("report") and not ex.errors
+
+
+def test_a_view_gets_its_figure_without_waiting_for_the_others(builders, monkeypatch):
+    from workbench.app import charts
+
+    drawn = []
+    real = charts.screen_png
+    monkeypatch.setattr(charts, "screen_png", lambda fig, tight=True: drawn.append(fig) or real(fig, tight))
+    ex = exports.Exports(object())
+    png = ex.screen("calibration")  # asked for first by the view: drawn at once
+    assert png.startswith(b"\x89PNG") and len(drawn) == 1
+    assert ex.get("screens")["calibration"] is png and len(drawn) == 1  # not drawn a second time

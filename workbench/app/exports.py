@@ -82,9 +82,7 @@ def figures(result) -> dict:
 
 def screens(exports) -> dict:
     """Each standard figure as the PNG the Results view shows (name -> bytes), drawn ahead of the visit."""
-    from workbench.app.charts import screen_png
-
-    return {name: screen_png(fig) for name, fig in (exports.get("figures") or {}).items() if name != "nomogram"}
+    return {name: exports.screen(name) for name in (exports.get("figures") or {}) if name != "nomogram"}
 
 
 BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
@@ -102,6 +100,9 @@ class Exports:
         # for the background thread to finish drawing the figures
         self._locks = {name: threading.Lock() for name in (*BUILDERS, "screens")}
         self._thread: threading.Thread | None = None
+        self._pngs: dict[str, bytes] = {}
+        self._figure_locks: dict[str, threading.Lock] = {}
+        self._guard = threading.Lock()
 
     def start(self) -> Exports:
         self._thread = threading.Thread(target=self._all, name="workbench-exports", daemon=True)
@@ -130,6 +131,19 @@ class Exports:
         if name in self.errors:
             raise self.errors[name]
         return self.files.get(name)
+
+    def screen(self, name: str) -> bytes:
+        """One figure's screen PNG: drawn once, by the background thread or by the view that asks
+        first (a view never waits for the other figures; one figure is never drawn by two threads)."""
+        from workbench.app.charts import screen_png
+
+        figs = self.get("figures") or {}
+        with self._guard:
+            lock = self._figure_locks.setdefault(name, threading.Lock())
+        with lock:
+            if name not in self._pngs:
+                self._pngs[name] = screen_png(figs[name])
+            return self._pngs[name]
 
     def ready(self, name: str) -> bool:
         return name in self.files or name in self.errors

@@ -145,10 +145,8 @@ def _figure_png(run_key: tuple, name: str, _fig, _job=None) -> bytes:
     """A run's figure as PNG for the page: drawn in the background after the run
     (:mod:`workbench.app.exports`, never two threads on one figure), or here without it."""
     ex = getattr(_job, "exports", None)
-    if ex is not None:
-        png = (ex.get("screens") or {}).get(name)
-        if png is not None:
-            return png
+    if ex is not None and name in (ex.get("figures") or {}):
+        return ex.screen(name)
     return nomo.screen_png(_fig)
 
 
