@@ -8,12 +8,12 @@ the target:
 - Results view re-rendered with the run cached, reached from another view (target < 0.5 s);
 - a figure switched on the Results view (target < 0.5 s);
 - a nomogram at a time that is not one of the study's horizons (target < 1 s);
-- Export ready: results.json and the bundle, then the report (target < 3 s), visited at once after the
-  run finishes, the worst case for the report written in the background; and the report again when
-  Export is visited after the Results and Nomogram views, as a user would;
+- Export ready: results.json and the bundle, then the report (target < 3 s), visited after the
+  Results and Nomogram views as a user would (the report is written in the background after the
+  run); with ``--at-once``, visited the moment the run finishes instead (the worst case);
 - cancel: click to "cancelled" while a long run is under way (target < 2 s).
 
-    python bench/bench_app_browser.py [--replicates 2]
+    python bench/bench_app_browser.py [--replicates 2] [--at-once]
 
 A view counts as ready when its expected text is visible and Streamlit's running indicator
 is gone (polled every 50 ms), so each timing includes up to ~0.1 s of polling. Timings depend on
@@ -43,7 +43,7 @@ ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-f
         "--disable-background-networking", "--disable-component-update", "--disable-sync"]
 TARGETS = {"cold start to first view": 5.0, "Results view, cached run": 0.5, "Results figure switch": 0.5,
            "nomogram at a new time": 1.0, "Export ready (results, bundle)": 3.0, "Export report ready": 3.0,
-           "Export report ready, after the results": 3.0,
+           "Export ready (results, bundle), at once": 3.0, "Export report ready, at once": 3.0,
            "cancel acts": 2.0}
 
 
@@ -106,10 +106,15 @@ def one_round(page, args, times) -> None:
     ready(page, "Finished in")
     page.get_by_role("button", name="Download PDF").first.wait_for(timeout=600_000)
     ready(page, "Finished in")
-    t0 = time.monotonic()
-    record(times, "Export ready (results, bundle)", goto(page, "Export", "Download the model bundle (zip)"))
-    ready(page, "Download the report (HTML)")
-    record(times, "Export report ready", time.monotonic() - t0)
+
+    def export(label: str) -> None:
+        t0 = time.monotonic()
+        record(times, f"Export ready (results, bundle){label}", goto(page, "Export", "Download the model bundle (zip)"))
+        ready(page, "Download the report (HTML)")
+        record(times, f"Export report ready{label}", time.monotonic() - t0)
+
+    if args.at_once:  # the worst case: the background build has had no time at all
+        export(", at once")
     goto(page, "Data", "Cohort summary")
     record(times, "Results view, cached run", goto(page, "Results", "Download PDF"))
     select = page.get_by_label("Figure", exact=True).first
@@ -132,11 +137,8 @@ def one_round(page, args, times) -> None:
     box.press("Enter")
     ready(page, f", {new}, ")  # the axes caption lists the new time among the horizons
     record(times, "nomogram at a new time", time.monotonic() - t0)
-    # a user who looked at the results and the nomogram first: the background build has had time
-    t0 = time.monotonic()
-    goto(page, "Export", "Download the model bundle (zip)")
-    ready(page, "Download the report (HTML)")
-    record(times, "Export report ready, after the results", time.monotonic() - t0)
+    if not args.at_once:  # a user who looked at the results and the nomogram first
+        export("")
     goto(page, "Results", "Run the study")
     reps = page.get_by_role("spinbutton", name="Bootstrap replicates for this run")
     reps.fill("500")
@@ -154,6 +156,7 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--replicates", type=int, default=2)
     ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--at-once", action="store_true", help="visit Export the moment the run finishes")
     args = ap.parse_args(argv)
     from playwright.sync_api import sync_playwright
 
@@ -173,11 +176,13 @@ def main(argv=None) -> int:
             finally:
                 stop(proc)
         browser.close()
-    print(f"{'measure':32s} {'runs (s)':24s} {'median':>8s} {'target':>8s}  met")
+    print(f"{'measure':40s} {'runs (s)':24s} {'median':>8s} {'target':>8s}  met")
     for k, v in times.items():
-        med = statistics.median(v) if v else float("nan")
+        if not v:
+            continue  # the other Export case (see --at-once)
+        med = statistics.median(v)
         runs = ", ".join(f"{x:.2f}" for x in v)
-        print(f"{k:32s} {runs:24s} {med:8.2f} {TARGETS[k]:8.2f}  {'yes' if med < TARGETS[k] else 'NO'}")
+        print(f"{k:40s} {runs:24s} {med:8.2f} {TARGETS[k]:8.2f}  {'yes' if med < TARGETS[k] else 'NO'}")
     print(f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     return 0
 
