@@ -50,7 +50,8 @@ def test_background_build_finishes_every_file_in_order_without_locking_itself(bu
     assert ex.get("report") == "<html></html>"
 
 
-def test_a_view_waiting_on_a_file_gets_it_when_the_background_build_is_under_way(builders, monkeypatch):
+def _hold_figures(monkeypatch) -> threading.Event:
+    """Make the figures' build wait until the returned event is set (a slow background build)."""
     gate = threading.Event()
     slow = exports.BUILDERS["figures"]
 
@@ -59,6 +60,11 @@ def test_a_view_waiting_on_a_file_gets_it_when_the_background_build_is_under_way
         return slow(result)
 
     monkeypatch.setitem(exports.BUILDERS, "figures", held)
+    return gate
+
+
+def test_a_view_waiting_on_a_file_gets_it_when_the_background_build_is_under_way(builders, monkeypatch):
+    gate = _hold_figures(monkeypatch)
     ex = exports.prepare(object())
     got = {}
     waiter = threading.Thread(target=lambda: got.setdefault("screens", ex.get("screens")))
@@ -81,14 +87,7 @@ def test_an_error_while_building_is_kept_and_raised_to_the_view(builders, monkey
 
 
 def test_results_file_is_built_at_once_while_the_figures_are_still_being_drawn(builders, monkeypatch):
-    gate = threading.Event()
-    slow = exports.BUILDERS["figures"]
-
-    def held(result):
-        gate.wait(30)
-        return slow(result)
-
-    monkeypatch.setitem(exports.BUILDERS, "figures", held)
+    gate = _hold_figures(monkeypatch)
     ex = exports.prepare(object())
     try:
         got = {}
