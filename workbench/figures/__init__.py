@@ -6,7 +6,12 @@ from workbench.figures.discrimination import plot_td_auc, td_auc_by_model
 from workbench.figures.export import save_figure
 from workbench.figures.grouping import RiskGroups, risk_cutpoints, risk_groups
 from workbench.figures.hazard_ratios import forest_table, plot_forest
-from workbench.figures.km import KMByGroupResult, km_by_group, plot_km_by_group
+from workbench.figures.km import (
+    KMByGroupResult,
+    conditional_km_by_group,
+    km_by_group,
+    plot_km_by_group,
+)
 from workbench.figures.nomogram import plot_nomogram
 from workbench.figures.nomogram_points import (
     NomogramScales,
@@ -34,6 +39,7 @@ __all__ = [
     "TermScale",
     "decision_curves",
     "forest_table",
+    "conditional_km_by_group",
     "km_by_group",
     "nomogram_scales",
     "palette_report",

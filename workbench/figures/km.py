@@ -18,11 +18,11 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from workbench.cohort.outcome import split_outcome
+from workbench.cohort.outcome import make_outcome, split_outcome
 from workbench.errors import SpecError, WorkbenchWarning
 from workbench.figures.grouping import RiskGroups, risk_groups
 from workbench.figures.measure import TextMeasure
@@ -129,6 +129,20 @@ def km_by_group(
     )
 
 
+def conditional_km_by_group(y_eval, grouping: RiskGroups, since: float, *, time_unit: str = "",
+                            conf_level: float = 0.95) -> KMByGroupResult:
+    """:func:`km_by_group` of the patients still followed at ``since`` (a follow-up visit), with
+    time counted from it: each curve is the group's conditional survival S(since + u | alive at
+    since) (Kaplan-Meier on the patients at risk at ``since`` is the ratio KM(t) / KM(since))."""
+    time, event = split_outcome(y_eval)
+    keep = time > float(since)
+    if keep.sum() < 2:
+        raise SpecError(f"fewer than two patients are followed beyond {since:g} {time_unit}; nothing to show.")
+    sub = replace(grouping, groups=np.asarray(grouping.groups)[keep])
+    return km_by_group(make_outcome(time[keep] - float(since), event[keep]), sub, time_unit=time_unit,
+                       conf_level=conf_level)
+
+
 def _step(km: KaplanMeierResult, values, min_at_risk: int = 0):
     """Step coordinates of a curve, cut after the last time with at least ``min_at_risk`` at risk."""
     keep = km.at_risk >= min_at_risk
@@ -168,6 +182,7 @@ def plot_km_by_group(
     show_at_risk: bool = True,
     min_at_risk: int = 10,
     development: bool = False,
+    since: float | None = None,
 ):
     """Draw Kaplan-Meier curves by risk group with bands, an at-risk strip and a caption.
 
@@ -188,6 +203,9 @@ def plot_km_by_group(
     development : bool
         The groups are evaluated on the patients the model was fitted to: the caption
         describes the comparison and prints no p-value.
+    since : float, optional
+        The curves are conditional on being alive at this time (from
+        :func:`conditional_km_by_group`): the axes say so.
 
     Returns
     -------
@@ -217,8 +235,10 @@ def plot_km_by_group(
         ax_main.set_ylim(0, 1.02)
         ax_main.set_xlim(0, result.tick_times[-1] if result.tick_times.size else None)
         ax_main.set_xticks(result.tick_times)
-        ax_main.set_ylabel("Survival probability")
         unit = f" ({result.time_unit})" if result.time_unit else ""
+        after = "" if since is None else f" since {format_number(since)}"
+        ax_main.set_ylabel("Survival probability" if since is None else
+                           f"Survival, given alive at {format_number(since)}")
         if ax is None:
             # above the panel, where no curve can be hidden behind it
             ax_main.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=n_groups,
@@ -235,7 +255,7 @@ def plot_km_by_group(
                 ax_main.set_title(title, loc="left")
         if ax_tab is not None:
             ax_main.tick_params(labelbottom=False)
-            ax_tab.set_xlabel(f"Time{unit}")
+            ax_tab.set_xlabel(f"Time{after}{unit}")
             for i, row in enumerate(result.at_risk):
                 y = n_groups - 1 - i
                 for t, v in zip(result.tick_times, row, strict=True):
@@ -246,7 +266,7 @@ def plot_km_by_group(
             ax_tab.spines[["left", "top", "right"]].set_visible(False)
             ax_tab.set_title("At risk", loc="left", fontsize="small", pad=2)
         else:
-            ax_main.set_xlabel(f"Time{unit}")
+            ax_main.set_xlabel(f"Time{after}{unit}")
         if ax_tab is not None:
             ax_tab.set_xticks(result.tick_times, labels=[format_number(t) for t in result.tick_times])
         return out

@@ -23,8 +23,9 @@ from pathlib import Path
 
 import numpy as np
 
-from workbench.errors import WorkbenchError, WorkbenchWarning
+from workbench.errors import SpecError, WorkbenchError, WorkbenchWarning
 from workbench.figures import (
+    conditional_km_by_group,
     decision_curves,
     forest_table,
     km_by_group,
@@ -169,6 +170,15 @@ def study_figures(result, *, width="double") -> dict:
             km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})", width=width,
             development=result.external_prepared is None, min_at_risk=result.spec.figures.min_at_risk,
         )
+        since = min(horizons)
+        try:  # alive at the first horizon (a follow-up visit): survival after it, by the same groups
+            figs["conditional_survival"] = plot_km_by_group(
+                conditional_km_by_group(evalc.y, groups, since, time_unit=unit),
+                title=f"{labels[top]}: alive at {since:g} {unit}, by risk group ({where})", width=width,
+                development=result.external_prepared is None, min_at_risk=result.spec.figures.min_at_risk,
+                since=since)
+        except SpecError:
+            pass  # fewer than two patients or one risk group left after the visit: no figure
         last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
         grid = np.linspace(min(horizons) / 2, last, 15)
         risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}

@@ -63,13 +63,19 @@ def _eval_horizons(horizons, cohort) -> tuple[float, ...]:
     return tuple(h for h in horizons if h < float(np.max(cohort.time[cohort.event])) if np.any(cohort.event))
 
 
-def _km_fig(model, train, cohort, unit, title, k=3, min_at_risk=10):
-    from workbench.figures import km_by_group, plot_km_by_group, risk_groups
+def _km_fig(model, train, cohort, unit, title, k=3, min_at_risk=10, since=None):
+    from workbench.figures import (
+        conditional_km_by_group,
+        km_by_group,
+        plot_km_by_group,
+        risk_groups,
+    )
 
     groups = risk_groups(model.predict_risk(train).values, model.predict_risk(cohort).values, k)
+    km = (km_by_group(cohort.y, groups, time_unit=unit) if since is None
+          else conditional_km_by_group(cohort.y, groups, since, time_unit=unit))
     # on the development patients the groups come from a model fitted to them: described, not tested
-    return plot_km_by_group(km_by_group(cohort.y, groups, time_unit=unit), title=title,
-                            development=cohort is train, min_at_risk=min_at_risk)
+    return plot_km_by_group(km, title=title, development=cohort is train, min_at_risk=min_at_risk, since=since)
 
 
 def _external_row_censoring(result, cohort, models):
@@ -218,6 +224,15 @@ def _figures(result, d: dict) -> dict:
             f"{k_groups} quantile groups of the {_label(lead.name)} risk on all development patients (apparent). "
             f"Curves stop when fewer than {at_risk} patients remain at risk.",
             lambda: _km_fig(lead, train, train, unit, _label(lead.name), k_groups, at_risk))
+    first = float(min(horizons))
+    on_ext = result.external is not None
+    ev = result.external_prepared.cohort if on_ext else train
+    _figure(out["main"], "conditional-km", f"Alive at {first:g} {unit}: survival after it, by risk group",
+            f"The patients still followed at {first:g} {unit} ({'external' if on_ext else 'development'} "
+            "cohort), in the same risk groups, with time counted from then: conditional survival, read off for a "
+            f"patient seen alive at a visit at {first:g} {unit}. Curves stop when fewer than {at_risk} patients "
+            "remain at risk.",
+            lambda: _km_fig(lead, train, ev, unit, _label(lead.name), k_groups, at_risk, since=first), half=True)
     _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
             "Cumulative/dynamic AUC over follow-up time.",
             lambda: _auc_fig(models, train, train, horizons, unit, "Development cohort"))

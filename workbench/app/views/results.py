@@ -120,6 +120,7 @@ def _run_figures(run_key: tuple, _result, _job=None) -> dict:
 
 FIGURE_TITLES = {
     "km_risk_groups": "Kaplan-Meier curves by risk group",
+    "conditional_survival": "Alive at the first horizon: survival after it, by risk group",
     "td_auc": "Time-dependent AUC",
     "calibration": "Calibration at each horizon",
     "decision_curve": "Decision curves",
