@@ -28,6 +28,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.linalg.blas import dsyrk
 
 from workbench.errors import ModelError
 
@@ -137,8 +138,12 @@ def hessian_block(rs: RiskSets, eta_s: np.ndarray, XS: np.ndarray) -> np.ndarray
     U = np.cumsum(EX[::-1], axis=0)[::-1][rs.first[use]]
     U *= (np.sqrt(rs.dw[use]) / risk[use])[:, None]
     A = XS * np.sqrt(e * a)[:, None]
-    H = A.T @ A - U.T @ U
-    return 0.5 * (H + H.T)
+    # symmetric rank-k updates: half the flops of the two products
+    H = dsyrk(1.0, A, trans=1)
+    H = dsyrk(-1.0, U, beta=1.0, c=H, trans=1, overwrite_c=1)
+    iu = np.tril_indices(H.shape[0], -1)
+    H[iu] = H.T[iu]
+    return H
 
 
 def null_deviance(rs: RiskSets) -> float:
