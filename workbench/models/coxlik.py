@@ -141,9 +141,8 @@ def hessian_block(rs: RiskSets, eta_s: np.ndarray, XS: np.ndarray) -> np.ndarray
     # symmetric rank-k updates: half the flops of the two products
     H = dsyrk(1.0, A, trans=1)
     H = dsyrk(-1.0, U, beta=1.0, c=H, trans=1, overwrite_c=1)
-    iu = np.tril_indices(H.shape[0], -1)
-    H[iu] = H.T[iu]
-    return H
+    # only the upper triangle is written; mirror it
+    return np.triu(H) + np.triu(H, 1).T
 
 
 def null_deviance(rs: RiskSets) -> float:
