@@ -38,6 +38,10 @@ def solve_penalised_quadratic(G, g, b, lam1, lam2, eps, max_cycles):
     lam1_l = lam1.tolist()
     cycles = 0
     signs_before = None
+    if np.any(b):  # warm start: the support often carries over from the previous penalty
+        step, exact = _support_step(G, g, b, lam1, lam2, b)
+        if exact:
+            return step, 1
     while cycles < max_cycles:
         cycles += 1
         max_up = 0.0

@@ -44,9 +44,10 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from workbench.errors import ConvergenceWarning, ModelError
 from workbench.models.coxcd import solve_penalised_quadratic
@@ -60,6 +61,12 @@ from workbench.models.coxlik import (
 _MIN_ALPHAS = 5  # the flat-deviance stop compares with the penalty this many steps back
 _FLAT = 0.999
 _BIG = 1e35  # a penalty that keeps every penalised coefficient at zero
+
+
+@lru_cache(maxsize=1)
+def _blas_controller() -> ThreadpoolController:
+    # scanning the loaded libraries costs ~5 ms; a path on a small problem takes ~10 ms
+    return ThreadpoolController()
 
 
 @dataclass(frozen=True)
@@ -122,6 +129,7 @@ class _Problem:
         self.loglik = 0.0
         self.active = pf == 0  # unpenalised features are always in the working set
         self.cycles = 0
+        self._reuse = None  # (working set, Hessian) that the next penalty may start from
         self._refresh()
 
     def _refresh(self):
@@ -166,7 +174,13 @@ class _Problem:
         KKT conditions).
         """
         XS = self.X[:, S]
-        G = self._hessian(S)
+        key = S.tobytes()
+        if self._reuse is not None and self._reuse[0] == key:
+            G = self._reuse[1]  # the previous penalty's Hessian, once: it changes little
+            self._reuse = None
+        else:
+            G = self._hessian(S)
+            self._reuse = (key, G)
         diag = np.diag(G)
         last_up = np.inf
         while True:
@@ -202,6 +216,7 @@ class _Problem:
             if step < 1.0 or up > 1e-3 * last_up:
                 G = self._hessian(S)
                 diag = np.diag(G)
+                self._reuse = (key, G)
             last_up = up
 
 
@@ -259,7 +274,7 @@ def fit_cox_path(X, time, event, *, alphas=None, n_alphas: int = 100, alpha_min_
     """
     # one BLAS thread: the products here are small and many, and threads contend with
     # the resampling engine's own workers
-    with threadpool_limits(limits=1, user_api="blas"):
+    with _blas_controller().limit(limits=1, user_api="blas"):
         path = _run_path(X, time, event, alphas, n_alphas, alpha_min_ratio, l1_ratio,
                          penalty_factor, weights, tol, max_iter, stop_flat)
     if not path.converged:
