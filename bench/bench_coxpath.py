@@ -18,8 +18,8 @@ and the largest difference in the penalised objective at any penalty (ours minus
 library's; negative means ours is lower). Both run with the workbench's tolerance 1e-7 and
 one BLAS thread. Timings are from one run on a shared machine: treat ratios near 1 as ties.
 
-Run: ``nice -n 19 python bench/bench_coxpath.py`` (about 3-5 minutes on 2 cores) or
-``--quick`` (sizes divided by 5, under a minute).
+Run: ``nice -n 19 python bench/bench_coxpath.py`` (about 30 s of solver time on 2 cores; measured) or
+``--quick`` (sizes divided by 5, a few seconds).
 """
 
 from __future__ import annotations
