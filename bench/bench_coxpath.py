@@ -1,0 +1,110 @@
+"""Speed of the numpy Cox path solver against scikit-survival's compiled one, side by side.
+
+Seeded simulation (invented data): n patients, p standardised features in blocks of 10 with
+within-block correlation ``--rho`` (a radiomics-like design), 10 features with log hazard
+ratio 0.3 per SD, exponential survival with uniform censoring (about 30% censored).
+Scenarios, each run in this one process one after the other:
+
+1. one lasso-type path (l1_ratio 0.9) on n x p = 5,000 x 2,000, penalties from alpha_max
+   down to 0.05 alpha_max (the workbench's first path segment), 100 per two decades;
+2. one path on 500 x 1,000 (p > n), down to 0.01 alpha_max;
+3. a bootstrap replicate of 1,000 x 500: our solver with the bootstrap counts as
+   frequency weights, the library on the duplicated rows.
+
+The library builds its grid and stops where the deviance flattens; our solver is handed
+exactly the penalties the library returned. Printed per scenario: wall time of each, the
+ratio (library / ours; above 1 means ours is faster), the largest coefficient difference
+and the largest difference in the penalised objective at any penalty (ours minus the
+library's; negative means ours is lower). Both run with the workbench's tolerance 1e-7 and
+one BLAS thread. Timings are from one run on a shared machine: treat ratios near 1 as ties.
+
+Run: ``nice -n 19 python bench/bench_coxpath.py`` (about 30 s of solver time on 2 cores; measured) or
+``--quick`` (sizes divided by 5, a few seconds).
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+import warnings
+
+import numpy as np
+from sksurv.linear_model import CoxnetSurvivalAnalysis
+from threadpoolctl import threadpool_limits
+
+from workbench.cohort import make_outcome
+from workbench.models.coxlik import weighted_loglik
+from workbench.models.coxpath import fit_cox_path
+
+
+def simulate(n: int, p: int, rho: float, seed: int):
+    rng = np.random.default_rng(seed)
+    block = 10
+    shared = np.repeat(rng.standard_normal((n, -(-p // block))), block, axis=1)[:, :p]
+    X = np.sqrt(rho) * shared + np.sqrt(1 - rho) * rng.standard_normal((n, p))
+    X = (X - X.mean(0)) / X.std(0)
+    lp = X[:, np.arange(10) * block % p] @ np.full(10, 0.3)
+    t = rng.exponential(np.exp(-lp))
+    c = rng.uniform(0, 3.5, n)
+    return X, np.minimum(t, c), t <= c
+
+
+def objective(X, time, event, B, alphas, l1, w=None):
+    W = time.size if w is None else w.sum()
+    ll = weighted_loglik(X @ B, time, event, w)
+    pen = l1 * np.abs(B).sum(0) + 0.5 * (1 - l1) * (B * B).sum(0)
+    return -ll / W + alphas * pen
+
+
+def compare(label, X, time, event, *, l1, alpha_min_ratio, n_alphas, weights=None):
+    rows = np.arange(time.size) if weights is None else np.repeat(np.arange(time.size), weights)
+    Xl, yl = X[rows], make_outcome(time[rows], event[rows])
+    with threadpool_limits(limits=1, user_api="blas"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        t0 = time_now()
+        ref = CoxnetSurvivalAnalysis(n_alphas=n_alphas, alpha_min_ratio=alpha_min_ratio, l1_ratio=l1,
+                                     tol=1e-7).fit(Xl, yl)
+        t_lib = time_now() - t0
+    t0 = time_now()
+    ours = fit_cox_path(X, time, event, alphas=ref.alphas_, l1_ratio=l1, weights=weights, tol=1e-7,
+                        stop_flat=False)
+    t_ours = time_now() - t0
+    d_coef = np.abs(ours.coefs - ref.coef_).max()
+    d_obj = (objective(X, time, event, ours.coefs, ours.alphas, l1, weights)
+             - objective(X, time, event, ref.coef_, ours.alphas, l1, weights))
+    print(f"{label:<44} {t_lib:8.2f} s {t_ours:8.2f} s {t_lib / t_ours:7.2f}   "
+          f"{ref.alphas_.size:4d}  {np.count_nonzero(ours.coefs[:, -1]):5d}  {d_coef:9.2e}  "
+          f"{d_obj.max():+9.2e}")
+
+
+def time_now() -> float:
+    return time.perf_counter()
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--quick", action="store_true", help="sizes divided by 5")
+    ap.add_argument("--rho", type=float, default=0.5)
+    ap.add_argument("--seed", type=int, default=20261203)
+    a = ap.parse_args()
+    k = 5 if a.quick else 1
+    print(f"Cox path solvers side by side (scale: {'quick, sizes / 5' if a.quick else 'full'}; "
+          f"rho {a.rho}; seed {a.seed}; tol 1e-7; one BLAS thread)")
+    print(f"{'scenario':<44} {'library':>10} {'ours':>10} {'ratio':>7}  {'pens':>5} {'nnz':>6} "
+          f"{'max|dcoef|':>10} {'max dobj':>9}")
+    X, t, e = simulate(5000 // k, 2000 // k, a.rho, a.seed)
+    compare(f"path {X.shape[0]} x {X.shape[1]}, to 0.05 alpha_max", X, t, e, l1=0.9,
+            alpha_min_ratio=0.05, n_alphas=66)
+    X, t, e = simulate(500 // k, 1000 // k, a.rho, a.seed + 1)
+    compare(f"path {X.shape[0]} x {X.shape[1]}, to 0.01 alpha_max", X, t, e, l1=0.9,
+            alpha_min_ratio=0.01, n_alphas=100)
+    X, t, e = simulate(1000 // k, 500 // k, a.rho, a.seed + 2)
+    w = np.random.default_rng(a.seed + 3).multinomial(X.shape[0], np.full(X.shape[0], 1 / X.shape[0]))
+    compare(f"bootstrap {X.shape[0]} x {X.shape[1]}: weights vs duplicated", X, t, e, l1=0.9,
+            alpha_min_ratio=0.05, n_alphas=66, weights=w)
+    print("ratio = library time / our time (>1: ours faster); pens = penalties on the path; nnz = "
+          "non-zero coefficients at its end; dobj = our penalised objective minus the library's")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,337 @@
+"""Elastic-net Cox regularisation paths by cyclic coordinate descent, in numpy.
+
+For each penalty ``alpha`` of a decreasing path this minimises
+
+    -l(beta) / W + alpha * sum_j pf_j * (l1_ratio * |beta_j| + (1 - l1_ratio) / 2 * beta_j**2)
+
+where ``l`` is the weighted Breslow log partial likelihood
+(:mod:`workbench.models.coxlik`), ``W`` the total case weight (the number of rows
+for unit weights) and ``pf`` the penalty factors rescaled to sum to the number of
+features (0 leaves a feature unpenalised). This is the objective, the ``alpha``
+scale and the penalty-factor convention of Simon et al. [1]_ as implemented in
+scikit-survival's ``CoxnetSurvivalAnalysis`` with ``normalize=False``, so the two
+give the same path for the same penalties.
+
+The solver: at the current coefficients the partial likelihood is replaced by its
+second-order expansion on a working set of features, and the penalised quadratic is
+minimised by cyclic coordinate descent [1]_ [3]_ (covariance updates on the working
+set's Hessian, so a pass over a feature costs O(working-set size), not O(n)); a
+backtracking step keeps each move a descent step, and the expansion is renewed until
+the coefficients stop moving. [1]_ expands with only the diagonal of the Hessian in
+the linear predictor; near the weakly penalised end of a path that converges slowly
+(a contraction factor of 0.93 per step, measured on the breast cancer genes), so the
+exact Hessian on the working set is used instead, computed with reverse cumulative
+sums (a proximal Newton method [4]_; the solution is the same, only the route differs).
+The working set at each penalty is the ever-active set plus the features passing
+the sequential strong rule [2]_; after convergence every other feature's KKT
+condition is checked, violators join the set and the fit resumes. Warm starts carry
+each solution to the next penalty.
+
+References
+----------
+.. [1] Simon N, Friedman J, Hastie T, Tibshirani R. Regularization paths for Cox's
+       proportional hazards model via coordinate descent. J Stat Softw 2011;39(5):1-13.
+.. [2] Tibshirani R, Bien J, Friedman J, Hastie T, Simon N, Taylor J, Tibshirani RJ.
+       Strong rules for discarding predictors in lasso-type problems. J R Stat Soc B
+       2012;74(2):245-66.
+.. [3] Friedman J, Hastie T, Tibshirani R. Regularization paths for generalized linear
+       models via coordinate descent. J Stat Softw 2010;33(1):1-22.
+.. [4] Lee JD, Sun Y, Saunders MA. Proximal Newton-type methods for minimizing composite
+       functions. SIAM J Optim 2014;24(3):1420-43.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+from threadpoolctl import ThreadpoolController
+
+from workbench.errors import ConvergenceWarning, ModelError
+from workbench.models.coxcd import solve_penalised_quadratic
+from workbench.models.coxlik import (
+    gradient_and_weights,
+    hessian_block,
+    make_risk_sets,
+    null_deviance,
+)
+
+_MIN_ALPHAS = 5  # the flat-deviance stop compares with the penalty this many steps back
+_FLAT = 0.999
+_BIG = 1e35  # a penalty that keeps every penalised coefficient at zero
+
+
+@lru_cache(maxsize=1)
+def _blas_controller() -> ThreadpoolController:
+    # scanning the loaded libraries costs ~5 ms; a path on a small problem takes ~10 ms
+    return ThreadpoolController()
+
+
+@dataclass(frozen=True)
+class CoxPath:
+    """A fitted elastic-net Cox path.
+
+    Attributes
+    ----------
+    alphas : ndarray of shape (n_alphas,)
+    coefs : ndarray of shape (n_features, n_alphas)
+        Coefficients on the scale of the ``X`` given (columns follow ``alphas``).
+    dev_ratio : ndarray of shape (n_alphas,)
+        Fraction of the null deviance explained, on the scale of [1]_'s stopping rule.
+    n_cycles : int
+        Coordinate-descent cycles used over the whole path.
+    converged : bool
+    penalty_factor : ndarray of shape (n_features,)
+        The rescaled penalty factors actually used.
+    """
+
+    alphas: np.ndarray
+    coefs: np.ndarray
+    dev_ratio: np.ndarray
+    n_cycles: int
+    converged: bool
+    penalty_factor: np.ndarray
+
+
+def rescale_penalty_factor(penalty_factor, n_features: int) -> np.ndarray:
+    """Penalty factors rescaled to sum to ``n_features`` (glmnet's convention)."""
+    if penalty_factor is None:
+        return np.ones(n_features)
+    pf = np.asarray(penalty_factor, dtype=float).ravel()
+    if pf.shape[0] != n_features:
+        raise ModelError(f"penalty_factor has {pf.shape[0]} entries; X has {n_features} features.")
+    if not np.all(np.isfinite(pf)) or np.any(pf < 0) or pf.sum() <= 0:
+        raise ModelError("penalty factors must be finite, non-negative and not all zero.")
+    return pf * n_features / pf.sum()
+
+
+class _Problem:
+    """Sorted, centred data and the state carried from one penalty to the next."""
+
+    def __init__(self, X, time, event, weights, pf, l1_ratio, tol):
+        X = np.asarray(X, dtype=float)
+        self.rs = make_risk_sets(time, event, weights)
+        self.W = self.rs.total_weight
+        if self.W <= 0 or self.rs.dw.sum() <= 0:
+            raise ModelError("the weighted data contain no events; the Cox path needs at least one.")
+        mean = self.rs.w @ X[self.rs.order] / self.W
+        self.X = X[self.rs.order] - mean  # centring leaves Cox coefficients unchanged
+        self.pf = pf
+        self.l1 = float(l1_ratio)
+        self.null_dev = null_deviance(self.rs)
+        self.eps = tol * self.null_dev
+        p = X.shape[1]
+        self.beta = np.zeros(p)
+        self.eta = np.zeros(X.shape[0])
+        self.grad = None  # X' resid / W at beta
+        self.loglik = 0.0
+        self.active = pf == 0  # unpenalised features are always in the working set
+        self.cycles = 0
+        self._reuse = None  # (working set, Hessian) that the next penalty may start from
+        self._refresh()
+
+    def _refresh(self):
+        r, h, ll = gradient_and_weights(self.rs, self.eta)
+        self.resid, self.hess, self.loglik = r / self.W, h / self.W, ll
+        self.grad = self.X.T @ self.resid
+
+    def dev_ratio(self) -> float:
+        # [1]'s scale: (saturated - model log-likelihood) / W is -l / W for the Cox model
+        return 1.0 - (-self.loglik / self.W) / self.null_dev
+
+    def objective(self, beta, loglik) -> float:
+        pen = self.pf * (self.l1 * np.abs(beta) + 0.5 * (1 - self.l1) * beta * beta)
+        return -loglik / self.W + self.alpha * pen.sum()
+
+    def fit_alpha(self, alpha, work, max_cycles):
+        """Fit one penalty from the current state; ``work`` is a boolean working set."""
+        self.alpha = alpha
+        lam1_all = alpha * self.l1 * self.pf
+        lam2_all = alpha * (1 - self.l1) * self.pf
+        while True:
+            S = np.flatnonzero(work)
+            if S.size:
+                conv = self._fit_working_set(S, lam1_all[S], lam2_all[S], max_cycles)
+            else:
+                conv = True
+            if self.cycles >= max_cycles:
+                return False
+            viol = (~work) & (np.abs(self.grad) > lam1_all)
+            if conv and not viol.any():
+                return True
+            work |= viol
+
+    def _hessian(self, S):
+        return hessian_block(self.rs, self.eta, self.X[:, S]) / self.W
+
+    def _fit_working_set(self, S, lam1, lam2, max_cycles):
+        """Proximal Newton on the working set with the exact Hessian of the partial likelihood.
+
+        The Hessian is renewed only when progress slows (a stale one changes the speed of
+        approach, never the fixed point: d = 0 exactly when the exact gradient meets the
+        KKT conditions).
+        """
+        XS = self.X[:, S]
+        key = S.tobytes()
+        if self._reuse is not None and self._reuse[0] == key:
+            G = self._reuse[1]  # the previous penalty's Hessian, once: it changes little
+            self._reuse = None
+        else:
+            G = self._hessian(S)
+            self._reuse = (key, G)
+        diag = np.diag(G)
+        last_up = np.inf
+        while True:
+            b_old = self.beta[S]
+            b_new, c = solve_penalised_quadratic(G, self.grad[S], b_old, lam1, lam2, self.eps,
+                                     max(max_cycles - self.cycles, 1))
+            self.cycles += c
+            d = b_new - b_old
+            if not np.any(d):
+                return True
+            obj_old = self.objective(self.beta, self.loglik)
+            step = 1.0
+            while True:  # backtracking keeps every step a descent step
+                beta_try = self.beta.copy()
+                beta_try[S] = b_old + step * d
+                eta_try = self.eta + XS @ (step * d)
+                r, h, ll = gradient_and_weights(self.rs, eta_try)
+                if self.objective(beta_try, ll) <= obj_old + 1e-12 * abs(obj_old) or step < 1e-6:
+                    break
+                step *= 0.5
+            self.beta, self.eta = beta_try, eta_try
+            self.resid, self.hess, self.loglik = r / self.W, h / self.W, ll
+            self.grad = self.X.T @ self.resid
+            up = float(np.max(diag * (step * d) ** 2))
+            # converged when no single coordinate step from here would change the quadratic
+            # model by eps or more ([1]'s criterion, taken at the current point rather than
+            # from the last move, so a subproblem stopped early cannot pass for convergence)
+            b_now = self.beta[S]
+            z = self.grad[S] + diag * b_now
+            move = np.sign(z) * np.maximum(np.abs(z) - lam1, 0.0) / (diag + lam2) - b_now
+            if float(np.max(diag * move * move)) < self.eps or self.cycles >= max_cycles:
+                return self.cycles < max_cycles
+            if step < 1.0 or up > 1e-3 * last_up:
+                G = self._hessian(S)
+                diag = np.diag(G)
+                self._reuse = (key, G)
+            last_up = up
+
+
+def cox_alpha_max(X, time, event, *, l1_ratio=1.0, penalty_factor=None, weights=None) -> float:
+    """Smallest penalty at which every penalised coefficient is zero.
+
+    ``max_j |x_j' r| / (pf_j * l1_ratio)`` over penalised features, with ``r`` the
+    score residuals of the model holding only the unpenalised features.
+    """
+    return fit_cox_path(X, time, event, n_alphas=2, l1_ratio=l1_ratio, penalty_factor=penalty_factor,
+                        weights=weights).alphas[0]
+
+
+def fit_cox_path(X, time, event, *, alphas=None, n_alphas: int = 100, alpha_min_ratio: float = 0.01,
+                 l1_ratio: float = 1.0, penalty_factor=None, weights=None, tol: float = 1e-7,
+                 max_iter: int = 100000, stop_flat: bool | None = None) -> CoxPath:
+    """Elastic-net Cox path by coordinate descent with strong rules and warm starts.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n_samples, n_features)
+        Predictors, used as given (standardise beforehand if wanted; centring is done
+        internally and does not change the coefficients).
+    time : ndarray of shape (n_samples,)
+    event : ndarray of bool of shape (n_samples,)
+    alphas : array-like, decreasing, or None
+        Penalties to fit (0 gives the unpenalised fit). ``None`` builds ``n_alphas`` log-spaced penalties from
+        ``alpha_max`` (see :func:`cox_alpha_max`) down to ``alpha_min_ratio * alpha_max``.
+    l1_ratio : float in (0, 1]
+        1 = lasso; smaller values mix in a ridge penalty.
+    penalty_factor : array-like of shape (n_features,) or None
+        Relative penalty of each feature, rescaled to sum to ``n_features``; 0 leaves a
+        feature unpenalised.
+    weights : array-like of shape (n_samples,) or None
+        Frequency (case) weights; a weight of 0 drops the row, an integer weight ``k``
+        counts the row ``k`` times.
+    tol : float
+        A penalty's fit stops when no coefficient update changes the weighted
+        least-squares objective by more than ``tol`` times the null deviance.
+    max_iter : int
+        Maximum coordinate-descent cycles over the whole path.
+    stop_flat : bool or None
+        End the path once the explained deviance ratio changes by less than 0.1% over
+        five penalties (the rule of [1]_ and of scikit-survival). ``None``: only for a
+        generated path.
+
+    Returns
+    -------
+    CoxPath
+
+    References
+    ----------
+    .. [1] Simon N et al. J Stat Softw 2011;39(5):1-13.
+    .. [2] Tibshirani R et al. J R Stat Soc B 2012;74(2):245-66.
+    """
+    # one BLAS thread: the products here are small and many, and threads contend with
+    # the resampling engine's own workers
+    with _blas_controller().limit(limits=1, user_api="blas"):
+        path = _run_path(X, time, event, alphas, n_alphas, alpha_min_ratio, l1_ratio,
+                         penalty_factor, weights, tol, max_iter, stop_flat)
+    if not path.converged:
+        warnings.warn(f"the Cox path solver used all {max_iter} cycles before converging; "
+                      "increase max_iter or loosen tol.", ConvergenceWarning, stacklevel=2)
+    return path
+
+
+def _run_path(X, time, event, alphas, n_alphas, alpha_min_ratio, l1_ratio, penalty_factor,
+              weights, tol, max_iter, stop_flat) -> CoxPath:
+    X = np.asarray(X, dtype=float)
+    if X.ndim != 2 or X.shape[0] != np.shape(time)[0]:
+        raise ModelError(f"X has shape {X.shape}; expected (n_samples, n_features) matching time.")
+    if not 0.0 < l1_ratio <= 1.0:
+        raise ModelError(f"l1_ratio must lie in (0, 1], got {l1_ratio}.")
+    p = X.shape[1]
+    pf = rescale_penalty_factor(penalty_factor, p)
+    prob = _Problem(X, time, event, weights, pf, l1_ratio, tol)
+    create = alphas is None
+    if stop_flat is None:
+        stop_flat = create
+    if create:
+        if int(n_alphas) < 1:
+            raise ModelError(f"n_alphas must be at least 1, got {n_alphas}.")
+        # the model with only the unpenalised features, then the first penalty that keeps
+        # every penalised feature out of it
+        ok = prob.fit_alpha(_BIG, prob.active.copy(), max_iter) if prob.active.any() else True
+        pen = pf > 0
+        a_max = float(np.max(np.abs(prob.grad[pen]) / pf[pen]) / l1_ratio)
+        grid = a_max * alpha_min_ratio ** (np.arange(int(n_alphas)) / max(int(n_alphas) - 1, 1))
+    else:
+        grid = np.asarray(alphas, dtype=float).ravel()
+        if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
+            raise ModelError("alphas must be non-negative and finite (0 fits the unpenalised model).")
+        if np.any(np.diff(grid) > 0):
+            raise ModelError("alphas must be in decreasing order (warm starts run down the path).")
+        ok = True
+    coefs = np.zeros((p, grid.size))
+    dev = np.zeros(grid.size)
+    alpha_prev = grid[0] if create else None
+    n_done = grid.size
+    for k, alpha in enumerate(grid):
+        if alpha_prev is None:  # a given path: the first strong rule compares with alpha_max
+            pen = pf > 0
+            alpha_prev = max(float(np.max(np.abs(prob.grad[pen]) / pf[pen]) / l1_ratio), alpha)
+        strong = np.abs(prob.grad) > l1_ratio * (2.0 * alpha - alpha_prev) * pf
+        work = (prob.beta != 0) | (pf == 0) | strong
+        if not (create and k == 0):  # alpha_max's model is the unpenalised-terms fit itself
+            ok = prob.fit_alpha(alpha, work, max_iter) and ok
+        coefs[:, k] = prob.beta
+        dev[k] = prob.dev_ratio()
+        alpha_prev = alpha
+        if prob.cycles >= max_iter:
+            n_done = k + 1
+            break
+        if stop_flat and k >= _MIN_ALPHAS and dev[k] > 0 and dev[k - _MIN_ALPHAS + 1] / dev[k] > _FLAT:
+            n_done = k + 1
+            break
+    return CoxPath(alphas=grid[:n_done].copy(), coefs=coefs[:, :n_done], dev_ratio=dev[:n_done],
+                   n_cycles=prob.cycles, converged=bool(ok), penalty_factor=pf)
