@@ -36,12 +36,6 @@ from workbench.models.penalized import (
 
 TOL = 1e-11
 
-# These checks compare the path machinery (grid, early-stop continuation, extension, CV
-# scoring) with the reference solver's own coefficients, so they run the scikit-survival
-# route (solver="sksurv"). The workbench's default numpy solver is checked against the
-# same reference at 1e-6 in test_coxpath_reference.py (the reference needs tol=1e-15 for
-# that; at tol=1e-11 the two solvers sit ~1e-4 apart at the end of this path, measured).
-
 
 @pytest.fixture(scope="module")
 def breast():
@@ -58,7 +52,7 @@ def breast_path(breast):
     # a tight solver tolerance so that warm-started and cold-started fits reach the same
     # optimum (the elastic net with l1_ratio < 1 is strictly convex) to well below 1e-6
     return fit_penalized_path(Z, y, feature_names=names, l1_ratio=0.9, path_stop_ratio=0.05,
-                              n_folds=5, tol=TOL, random_state=0, solver="sksurv")
+                              n_folds=5, tol=TOL, random_state=0)
 
 
 def test_path_matches_scikit_survival_coxnet(breast, breast_path):
@@ -104,7 +98,7 @@ def test_unpenalised_terms_follow_the_penalty_factor(breast):
     pf = np.ones(Z.shape[1])
     clinical = [names.index(c) for c in ("age", "size", "er=positive")]
     pf[clinical] = 0.0
-    r = fit_penalized_path(Z, y, penalty_factor=pf, l1_ratio=0.9, random_state=1, solver="sksurv")
+    r = fit_penalized_path(Z, y, penalty_factor=pf, l1_ratio=0.9, random_state=1)
     ref = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas, penalty_factor=pf).fit(Z, y)
     np.testing.assert_allclose(r.coefs, ref.coef_, atol=1e-6)
     assert np.all(r.coefs[clinical] != 0)  # in the model at every penalty, even alpha_max
@@ -140,7 +134,7 @@ def test_cv_score_equals_per_penalty_loop(score):
     y = make_outcome(time, event)
     groups = rng.integers(0, 60, n)  # some patients contribute several rows
     r = fit_penalized_path(X, y, groups=groups, n_alphas=30, path_stop_ratio=0.05, n_folds=4,
-                           score=score, random_state=3, solver="sksurv")
+                           score=score, random_state=3)
     fold = patient_folds(groups, event, 4, 3)
     per_fold = np.zeros((4, r.alphas.size))
     oof = np.zeros((n, r.alphas.size))

@@ -1,10 +1,7 @@
 """Penalised (LASSO / elastic-net) Cox paths with patient-grouped cross-validation.
 
-The path itself is fitted by the workbench's own numpy solver
-(:func:`workbench.models.coxpath.fit_cox_path`: coordinate descent with strong rules,
-Simon et al. 2011), which minimises the same objective as scikit-survival's
-:class:`CoxnetSurvivalAnalysis` (``solver="sksurv"`` still fits with the library, for
-reference checks). What this module adds:
+The path itself is fitted by scikit-survival's :class:`CoxnetSurvivalAnalysis`
+(coordinate descent, Simon et al. 2011). What this module adds:
 
 * folds are formed from *patients*, not rows, so that the copies of one patient
   that a bootstrap sample contains never sit on both sides of a split (with
@@ -45,13 +42,11 @@ from workbench.errors import (
     ModelError,
     NotFittedError,
 )
-from workbench.models.coxpath import fit_cox_path
 from workbench.predictions import RiskScores, SurvivalCurves
 
 _EXTENSION_FACTOR = 0.25  # each extension lowers the end of the path four-fold
 _RULES = ("min", "1se")
 _SCORES = ("basic", "linear_predictor")
-_SOLVERS = ("coxpath", "sksurv")
 
 
 # ----------------------------------------------------------------- likelihood
@@ -325,23 +320,14 @@ def choose_alpha(cv_mean: np.ndarray, cv_se: np.ndarray, rule: str = "min") -> t
 # -------------------------------------------------------------------- fitting
 
 
-def _coxnet_path(X, y, alphas, l1_ratio, penalty_factor, tol, max_iter, done=None, solver="coxpath"):
+def _coxnet_path(X, y, alphas, l1_ratio, penalty_factor, tol, max_iter, done=None):
     """Coefficients at every one of ``alphas`` (columns), continuing early-stopped paths.
 
-    ``solver="coxpath"`` (the default) fits the whole grid with
-    :func:`workbench.models.coxpath.fit_cox_path`, which never stops early on a given grid.
-    ``solver="sksurv"`` uses scikit-survival, whose solver ends a path early when the
-    deviance stops changing (in a training fold whose own alpha_max lies below the common
-    grid's first penalties: a run of all-zero models); the rest of the grid is then fitted
-    from the next penalty on (cold start), so every fold scores the same penalties.
+    The solver ends a path early when the deviance stops changing, which happens in a
+    training fold whose own alpha_max lies below the common grid's first penalties (a
+    run of all-zero models). The rest of the grid is then fitted from the next penalty
+    on (cold start), so every fold scores the same penalties.
     """
-    if done is not None and done.shape[1] >= len(alphas):
-        return done[:, :len(alphas)]
-    if solver == "coxpath":
-        time, event = split_outcome(y)
-        return fit_cox_path(X, time, event, alphas=alphas, l1_ratio=l1_ratio,
-                            penalty_factor=penalty_factor, tol=tol, max_iter=max_iter,
-                            stop_flat=False).coefs
     parts = [] if done is None else [done]
     start = 0 if done is None else done.shape[1]
     while start < len(alphas):
@@ -361,22 +347,6 @@ def _coxnet_path(X, y, alphas, l1_ratio, penalty_factor, tol, max_iter, done=Non
     return np.hstack(parts)
 
 
-def _first_segment(X, y, n_seg, alpha_min_ratio, l1_ratio, penalty_factor, tol, max_iter, solver):
-    """alpha_max and the path's first segment (the solver's own log-spaced grid)."""
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="all coefficients are zero")
-        if solver == "coxpath":
-            time, event = split_outcome(y)
-            path = fit_cox_path(X, time, event, n_alphas=n_seg, alpha_min_ratio=alpha_min_ratio,
-                                l1_ratio=l1_ratio, penalty_factor=penalty_factor, tol=tol,
-                                max_iter=max_iter, stop_flat=False)
-            return float(path.alphas[0]), path.coefs
-        first = CoxnetSurvivalAnalysis(
-            n_alphas=n_seg, alpha_min_ratio=alpha_min_ratio, l1_ratio=l1_ratio,
-            penalty_factor=penalty_factor, tol=tol, max_iter=max_iter).fit(X, y)
-        return float(first.alphas_[0]), first.coef_
-
-
 def fit_penalized_path(
     X: np.ndarray,
     y: np.ndarray,
@@ -394,7 +364,6 @@ def fit_penalized_path(
     tol: float = 1e-7,
     max_iter: int = 100000,
     random_state=None,
-    solver: str = "coxpath",
 ) -> PenalizedPathResult:
     """Fit a penalised Cox path and choose its penalty by patient-grouped cross-validation.
 
@@ -424,8 +393,6 @@ def fit_penalized_path(
         See :func:`cv_deviance`.
     random_state : int, Generator or None
         Fold assignment.
-    solver : {"coxpath", "sksurv"}
-        The workbench's numpy path solver, or scikit-survival's (kept for reference checks).
 
     Returns
     -------
@@ -445,8 +412,6 @@ def fit_penalized_path(
         raise ModelError(f"penalty rule {rule!r} is unknown; choose one of {_RULES}.")
     if score not in _SCORES:
         raise ModelError(f"cv score {score!r} is unknown; choose one of {_SCORES}.")
-    if solver not in _SOLVERS:
-        raise ModelError(f"path solver {solver!r} is unknown; choose one of {_SOLVERS}.")
     if int(n_alphas) < 2:
         raise ModelError(f"n_alphas must be at least 2 to form a path, got {n_alphas}.")
     if p == 0:
@@ -478,19 +443,22 @@ def fit_penalized_path(
     log_step = np.log(alpha_min_ratio) / (n_alphas - 1)
     n_seg = int(np.floor(np.log(path_stop_ratio) / log_step + 1e-9)) + 1
     n_seg = max(min(n_seg, n_alphas), 2)
-    alpha_max, first_coefs = _first_segment(X, y, n_seg, float(np.exp(log_step * (n_seg - 1))),
-                                            l1_ratio, penalty_factor, tol, max_iter, solver)
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="all coefficients are zero")
+        first = CoxnetSurvivalAnalysis(
+            n_alphas=n_seg, alpha_min_ratio=float(np.exp(log_step * (n_seg - 1))),
+            l1_ratio=l1_ratio, penalty_factor=penalty_factor, tol=tol, max_iter=max_iter,
+        ).fit(X, y)
+    alpha_max = float(first.alphas_[0])
     grid = alpha_max * np.exp(log_step * np.arange(n_alphas))
     n_cur, n_ext = n_seg, 0
-    coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter, done=first_coefs,
-                         solver=solver)
+    coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter, done=first.coef_)
     while True:
         alphas = grid[:n_cur]
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="all coefficients are zero")
             fold_coefs = [
-                _coxnet_path(X[fold != k], y[fold != k], alphas, l1_ratio, penalty_factor, tol, max_iter,
-                             solver=solver)
+                _coxnet_path(X[fold != k], y[fold != k], alphas, l1_ratio, penalty_factor, tol, max_iter)
                 for k in range(n_folds)
             ]
         per_fold, ev_k, mean, se = cv_deviance(X, time, event, fold, fold_coefs, score)
@@ -502,8 +470,7 @@ def fit_penalized_path(
         n_ext += 1
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="all coefficients are zero")
-            coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter,
-                                 solver=solver)
+            coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter)
     index, i_min = choose_alpha(mean, se, rule)
     return PenalizedPathResult(
         feature_names=names, alphas=alphas.copy(), coefs=np.asarray(coefs, dtype=float),

@@ -33,7 +33,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from workbench.errors import ModelError
-from workbench.models.coxpath import fit_cox_path
 
 DEFAULT_PAIRS = 50
 DEFAULT_THRESHOLD = 0.75
@@ -50,7 +49,7 @@ def q_for_bound(p: int, threshold: float, max_false: float) -> int:
 
 
 def first_to_enter(X: np.ndarray, y, q: int, *, l1_ratio: float = 1.0,
-                   ratios=((0.1, 50), (0.01, 100)), solver: str = "coxpath") -> np.ndarray:
+                   ratios=((0.1, 50), (0.01, 100))) -> np.ndarray:
     """Indices of the first ``q`` features to enter the penalised Cox path of (X, y).
 
     Features entering at the same penalty are ordered by the size of their coefficient
@@ -58,25 +57,18 @@ def first_to_enter(X: np.ndarray, y, q: int, *, l1_ratio: float = 1.0,
     (50 log-spaced penalties, about the spacing of 100 penalties to 0.01), and to ``0.01 *
     alpha_max`` only when fewer than ``q`` features have entered by then (the long, dense
     end of a path is what costs: on the demo this is 10 times faster). Fewer than ``q``
-    are returned if the path ends first (the path stops where the explained deviance
-    flattens, as in Simon et al. 2011). ``solver="sksurv"`` fits with scikit-survival's
-    solver instead of :func:`workbench.models.coxpath.fit_cox_path` (for reference checks).
+    are returned if the path ends first.
     """
-    time, event = y["time"], y["event"]
+    from sksurv.linear_model import CoxnetSurvivalAnalysis
+
     for alpha_min_ratio, n_alphas in ratios:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # all-zero starts and early path stops are expected here
-            if solver == "sksurv":
-                from sksurv.linear_model import CoxnetSurvivalAnalysis
-
-                coefs = CoxnetSurvivalAnalysis(n_alphas=n_alphas, alpha_min_ratio=alpha_min_ratio,
-                                               l1_ratio=l1_ratio, fit_baseline_model=False).fit(X, y).coef_
-            else:
-                coefs = fit_cox_path(X, time, event, n_alphas=n_alphas, alpha_min_ratio=alpha_min_ratio,
-                                     l1_ratio=l1_ratio, stop_flat=True).coefs
-        if np.count_nonzero(np.asarray(coefs).any(axis=1)) >= q:
+            m = CoxnetSurvivalAnalysis(n_alphas=n_alphas, alpha_min_ratio=alpha_min_ratio, l1_ratio=l1_ratio,
+                                       fit_baseline_model=False).fit(X, y)
+        if np.count_nonzero(np.asarray(m.coef_).any(axis=1)) >= q:
             break
-    coefs = np.asarray(coefs)
+    coefs = np.asarray(m.coef_)
     nz = coefs != 0
     entered = nz.any(axis=1)
     first = np.where(entered, nz.argmax(axis=1), coefs.shape[1])
