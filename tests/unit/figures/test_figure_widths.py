@@ -37,7 +37,8 @@ STUDY = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 
 EXPECTED = {"nomogram", "km_risk_groups", "td_auc", "calibration", "decision_curve", "hazard_ratios_clinical",
             "hazard_ratios_combined", "selection_frequency", "coefficient_path", "ph_clinical", "ph_combined",
-            "difference_curves", "site_calibration", "patient_flow", "baseline_survival", "harmonisation_checks"}
+            "difference_curves", "site_calibration", "patient_flow", "baseline_survival", "harmonisation_checks",
+            "conditional_survival"}
 
 
 @pytest.fixture(scope="module")
