@@ -245,7 +245,7 @@ def plot_km_by_group(
                            handlelength=2.2, columnspacing=1.2, borderaxespad=0.2, title="Risk group",
                            title_fontsize="small", alignment="left")
             if title:
-                fig.suptitle(title, x=0.01, ha="left", fontsize="medium")
+                fig.suptitle(_wrap_to(title, fig, base_font_size(width)), x=0.01, ha="left", fontsize="medium")
             caption = km_caption(result, development=development, min_at_risk=min_at_risk)
             fig.supxlabel(_wrap_to(caption, fig, base_font_size(width) - 1.5), x=0.01, ha="left",
                           fontsize="small", linespacing=1.2)
