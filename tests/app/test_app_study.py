@@ -83,6 +83,9 @@ def test_results_page_runs_and_shows_harrell_c_of_the_command_line(ran, cli_resu
     assert_clean(ran)
     disc = _frame_with(ran, "Model", "Measure", "Validated", "Apparent")
     assert any("Reclassification (NRI, IDI)" in m.value for m in ran.markdown)
+    # observed conditional survival by risk group, as results.json has it (3 groups x 3 horizon pairs)
+    cond = _frame_with(ran, "Risk group", "Alive at", "Chance of being alive at", "Estimate (95% CI)")
+    assert len(cond) == 3 * 3 and set(cond["Risk group"]) == {"low", "intermediate", "high"}
     ran.toggle(key="results_details").set_value(False).run()
     # Reference: the command line's results.json for the same study file and seed.
     for name, label in (("clinical", "Clinical Cox"), ("combined", "Clinical + imaging signature")):

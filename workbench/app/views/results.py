@@ -290,6 +290,8 @@ def _show(result, job) -> None:
         _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes), job.key,
                     getattr(result, "added_value", {}).get(comp.model), details)
     _figures(result, job.key)
+    if details:
+        _conditional(result, job.key, u)
 
     if result.external is not None:
         st.subheader("External validation")
@@ -309,6 +311,47 @@ def _show(result, job) -> None:
         _by_group(getattr(result.validation, "groups", None), "Leave-one-centre-out")
     elif getattr(result.validation, "groups", None) or getattr(result.external, "groups", None):
         st.caption("Performance by centre and scanner: switch on 'Show every measure' at the top.")
+
+
+@st.cache_data(show_spinner=False, max_entries=4)
+def _conditional_frame(run_key: tuple, _result, unit: str):
+    """Observed conditional survival by risk group of the lead model (as results.json has it)."""
+    import pandas as pd
+
+    from workbench.report.results import conditional_rows
+    from workbench.stats.riskgroups import learn_cutpoints
+
+    lead = "combined" if "combined" in _result.models else next(iter(_result.models))
+    m = _result.models[lead]
+    cuts = learn_cutpoints(m.predict_risk(_result.cohort), _result.spec.models.risk_groups)
+    ev = _result.external_prepared.cohort if _result.external_prepared is not None else _result.cohort
+    rows = conditional_rows(m, ev, cuts, _result.spec.horizons)
+    df = pd.DataFrame([{"Risk group": r["group"], "Alive at": f"{r['alive_at']:g} {unit}",
+                        "Chance of being alive at": f"{r['horizon']:g} {unit}",
+                        "Estimate (95% CI)": tables.num(_nan(r["survival"]), 2) + (
+                            f" ({tables.interval(r['ci_lower'], r['ci_upper'], 2)})"
+                            if r["ci_lower"] is not None else ""),
+                        "At risk then": r["at_risk"]} for r in rows])
+    return lead, _result.external_prepared is not None, df
+
+
+def _nan(x) -> float:
+    return float("nan") if x is None else float(x)
+
+
+def _conditional(result, key, u: str) -> None:
+    try:
+        lead, external, df = _conditional_frame(key, result, u)
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Conditional survival by risk group", exc)
+        return
+    if df.empty:
+        return
+    st.subheader("Alive at a follow-up visit, by risk group")
+    st.caption(f"Kaplan-Meier within the {tables.label(lead)} risk groups among the patients still followed at the "
+               f"visit ({'external' if external else 'development'} cohort; on the development cohort the groups' "
+               "separation is apparent): the chance of being alive at each later horizon, with 95% limits.")
+    state.table(df, max_rows=30)
 
 
 def _by_group(groups, title: str) -> None:
