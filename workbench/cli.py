@@ -161,6 +161,32 @@ def _cmd_run(args) -> int:
     return 0
 
 
+def _cmd_competing(args) -> int:
+    from workbench.competing.analysis import run_competing
+    from workbench.outfolder import atomic_folder, check_out_folder
+    from workbench.report.competing import format_competing, write_competing_folder
+    from workbench.study import read_study
+    from workbench.validation.backends import tqdm_progress
+
+    spec = read_study(args.study)
+    if spec.data.competing_codes is None:
+        raise WorkbenchError(f"{args.study}: [data] names no competing_codes, so there are no competing events to "
+                             "analyse. Add the codes of the competing events, e.g. competing_codes = [\"other\"] "
+                             "next to event_codes, or use 'workbench run' for an ordinary analysis.")
+    out = check_out_folder(args.out, _protected_inputs(args.study, spec), markers=("competing_results.json",))
+    replacing = out.is_dir() and any(out.iterdir())
+    bar = None if args.quiet else tqdm_progress("competing-risks bootstrap", file=sys.stderr)
+    result = run_competing(spec, replicates=args.replicates, progress=bar)
+    args.console.show_all(result.warnings)
+    with atomic_folder(out) as tmp:
+        written = write_competing_folder(result, tmp, figures=not args.no_figures)
+    print()
+    print(format_competing(result))
+    print(f"\nResults written to {out}/ ({', '.join(written)})"
+          + ("; the earlier results there were replaced" if replacing else ""))
+    return 0
+
+
 def _write_run_folder(result, out: Path, args) -> list[str]:
     """Everything of a run into ``out`` (a temporary folder renamed into place afterwards)."""
     from workbench.report.bundle import save_bundle, summarise_training
@@ -342,6 +368,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
     p.add_argument("--no-pdf", action="store_true", help="write the HTML report only")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("competing", help="competing-risks analysis of a study file with [data] competing_codes")
+    p.add_argument("study", metavar="STUDY.toml", help="study file naming competing_codes in [data]")
+    p.add_argument("--out", default="competing", metavar="FOLDER", help="results folder (default: competing)")
+    p.add_argument("--replicates", type=_count(0), metavar="N",
+                   help="override the number of bootstrap replicates (0: apparent performance only)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--no-figures", action="store_true", help="skip the figures")
+    p.set_defaults(func=_cmd_competing)
 
     p = sub.add_parser("apply", help="apply a saved model bundle to a new cohort and validate it there")
     p.add_argument("bundle", metavar="BUNDLE", help="bundle folder or .zip written by 'workbench run'")

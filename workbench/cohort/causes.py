@@ -43,16 +43,15 @@ def parse_cause(values, source, col, rows, event_codes, competing_codes, censor_
     comp = tuple(str(c).strip() for c in competing_codes)
     allowed_events = tuple(event_codes) + comp
     s = values.astype("string").str.strip()
-    # parse_event checks missing values and unknown codes with the competing codes counted as events
-    any_event = parse_event(values, source, col, rows, allowed_events,
-                            censor_codes if censor_codes is not None else None)
     s = s.fillna("")
-    is_comp = s.isin(comp).to_numpy()
     absent = [c for c in comp if not (s == c).any()]
     if absent:
         seen = ", ".join(repr(v) for v in sorted(set(s))[:8])
         raise CohortError(f"{source}, column {col!r}: competing code(s) {', '.join(repr(a) for a in absent)} "
                           f"occur in no row; the values found are {seen}. Correct competing_codes.")
+    # parse_event checks missing values and unknown codes with the competing codes counted as events
+    any_event = parse_event(values, source, col, rows, allowed_events, censor_codes)
+    is_comp = s.isin(comp).to_numpy()
     cause = np.zeros(len(s), dtype=np.int64)
     cause[any_event & ~is_comp] = 1
     cause[is_comp] = 2
