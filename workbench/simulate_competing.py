@@ -24,6 +24,7 @@ __all__ = [
     "OTHER_RATE",
     "OTHER_SHAPE",
     "add_competing_death",
+    "draw_other_death",
     "other_cause_lp",
 ]
 
@@ -39,6 +40,14 @@ def other_cause_lp(age, ecog) -> np.ndarray:
     ecog = np.asarray(ecog, dtype=int)
     return (b["age_per_10_years"] * (np.asarray(age, float) - 65.0) / 10.0
             + np.array([0.0, b["ecog_1"], b["ecog_2"]])[ecog])
+
+
+def draw_other_death(age, ecog, *, random_state) -> np.ndarray:
+    """Latent times of death from other causes (months), by inverse-transform sampling."""
+    rng = np.random.default_rng(random_state)
+    lp = other_cause_lp(age, ecog)
+    u = rng.random(np.asarray(lp).size)
+    return (-np.log(u) / (OTHER_RATE * np.exp(lp))) ** (1.0 / OTHER_SHAPE)
 
 
 def add_competing_death(sim: SimulatedCohort, *, random_state) -> tuple[pd.DataFrame, dict]:
@@ -70,10 +79,7 @@ def add_competing_death(sim: SimulatedCohort, *, random_state) -> tuple[pd.DataF
     et = sim.event_times
     if not np.array_equal(et["patient_id"].to_numpy(), sim.clinical["patient_id"].to_numpy()):
         raise ValueError("event times and clinical rows are not in the same order.")
-    rng = np.random.default_rng(random_state)
-    lp = other_cause_lp(et["age"].to_numpy(), et["ecog"].to_numpy())
-    u = rng.random(len(et))
-    t_other = (-np.log(u) / (OTHER_RATE * np.exp(lp))) ** (1.0 / OTHER_SHAPE)
+    t_other = draw_other_death(et["age"].to_numpy(), et["ecog"].to_numpy(), random_state=random_state)
     t_cancer, t_censor = et["t_event"].to_numpy(float), et["t_censor"].to_numpy(float)
     time = np.minimum.reduce([t_cancer, t_other, t_censor])
     cause = np.where(t_cancer <= np.minimum(t_other, t_censor), 1,

@@ -35,7 +35,8 @@ from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, 
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.plans import _bootstrap_plan, _copy_seed, _root
 
-__all__ = ["METRICS", "CompetingStudyResult", "evaluate_arm", "optimism_table", "run_competing"]
+__all__ = ["METRICS", "CompetingStudyResult", "CompetingValidation", "evaluate_arm", "optimism_table",
+           "run_competing", "validate_competing"]
 
 METRICS = ("auc", "brier", "ipa", "ici")
 """Per horizon: competing AUC (definition 2), IPCW Brier score, IPA, ICI."""
@@ -50,8 +51,11 @@ def _models(cohort: Cohort) -> tuple[str, ...]:
     return ("clinical", "combined") if cohort.feature_names else ("clinical",)
 
 
-def evaluate_arm(arm: FittedArm, cohort: Cohort, target: str, method: str, horizons) -> dict:
-    """Metrics of one fitted arm on ``cohort``: {metric: array over horizons} (NaN where undefined)."""
+def evaluate_arm(arm: FittedArm, cohort: Cohort, target: str, method: str, horizons, metrics=METRICS) -> dict:
+    """Metrics of one fitted arm on ``cohort``: {metric: array over horizons} (NaN where undefined).
+
+    Censoring weights come from ``cohort`` itself (its own censoring distribution).
+    """
     y = target_outcome(cohort, target)
     h = np.asarray(horizons, dtype=float)
     curves = arm.predict(cohort, h, method)
@@ -61,6 +65,8 @@ def evaluate_arm(arm: FittedArm, cohort: Cohort, target: str, method: str, horiz
             out["auc"][j] = competing_auc(y, y, curves, t0).auc
         except WorkbenchError:
             pass
+        if "ici" not in metrics:
+            continue
         try:
             out["ici"][j] = competing_smoothed_calibration(y, curves, t0).ici
         except WorkbenchError:
@@ -73,17 +79,17 @@ def evaluate_arm(arm: FittedArm, cohort: Cohort, target: str, method: str, horiz
     return out
 
 
-def _fit_all(train: Cohort, spec: StudySpec, seed: int) -> dict:
+def _fit_all(train: Cohort, spec: StudySpec, seed: int, targets=TARGETS) -> dict:
     arms = {}
-    for target in TARGETS:
+    for target in targets:
         for model in _models(train):
             arms[(target, model)] = fit_arm(train, spec, target, imaging=model == "combined", random_state=seed,
                                             fine_gray=target == "cause")
     return arms
 
 
-def _evaluate_all(arms: dict, cohort: Cohort, horizons) -> dict:
-    return {(target, model, method): evaluate_arm(arm, cohort, target, method, horizons)
+def _evaluate_all(arms: dict, cohort: Cohort, horizons, metrics=METRICS) -> dict:
+    return {(target, model, method): evaluate_arm(arm, cohort, target, method, horizons, metrics)
             for (target, model), arm in arms.items() for method in _methods(target)}
 
 
@@ -141,6 +147,53 @@ def optimism_table(apparent: dict, replicate_rows: list[tuple[dict, dict]]) -> t
     return optimism, corrected
 
 
+@dataclass(frozen=True)
+class CompetingValidation:
+    """Apparent, optimism and corrected metrics, the full-data arms, failed replicates."""
+
+    apparent: dict
+    optimism: dict
+    corrected: dict
+    arms: dict
+    failed: int
+    caught: tuple = ()
+
+
+def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targets=TARGETS, metrics=METRICS,
+                       progress=None) -> CompetingValidation:
+    """Fit on all rows, then Harrell's bootstrap optimism correction (replicate plan of the main engine).
+
+    Replicate ``b`` draws its rows and its model seed from the study seed as
+    :func:`workbench.validation.resample.validate` does; a replicate whose fit fails
+    (a :class:`WorkbenchError`) is counted and left out.
+    """
+    h = np.asarray(spec.horizons, dtype=float)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        arms = _fit_all(cohort, spec, int(spec.seed), targets)
+        apparent = _with_differences(_evaluate_all(arms, cohort, h, metrics))
+    root = _copy_seed(_root(int(spec.seed)))
+    _app_ss, rep_root = root.spawn(2)
+    B = int(replicates)
+    plan = _bootstrap_plan(cohort.n, B, rep_root) if B else []
+    rows, failed = [], 0
+    for b, (idx, seed) in enumerate(plan):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # the full-data fit reported the warnings once
+            try:
+                boot = cohort.take(idx)
+                fitted = _fit_all(boot, spec, seed, targets)
+                rows.append((_with_differences(_evaluate_all(fitted, boot, h, metrics)),
+                             _with_differences(_evaluate_all(fitted, cohort, h, metrics))))
+            except WorkbenchError:
+                failed += 1
+        if progress is not None:
+            progress(b + 1, B)
+    optimism, corrected = optimism_table(apparent, rows)
+    caught_pairs = tuple(caught)
+    return CompetingValidation(apparent, optimism, corrected, arms, failed, caught_pairs)
+
+
 def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=None) -> CompetingStudyResult:
     """Run the competing-risks analysis of a study.
 
@@ -173,28 +226,10 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         prepared = prepare_cohort(spec)
-        cohort = prepared.cohort
-        h = np.asarray(spec.horizons, dtype=float)
-        arms = _fit_all(cohort, spec, int(spec.seed))
-        apparent = _with_differences(_evaluate_all(arms, cohort, h))
-    messages = tuple(dict.fromkeys((w.category.__name__, str(w.message)) for w in caught))
-    root = _copy_seed(_root(int(spec.seed)))
-    _app_ss, rep_root = root.spawn(2)
-    plan = _bootstrap_plan(cohort.n, B, rep_root) if B else []
-    rows, failed = [], 0
-    for b, (idx, seed) in enumerate(plan):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # the full-data fit reported the warnings once
-            try:
-                boot = cohort.take(idx)
-                fitted = _fit_all(boot, spec, seed)
-                rows.append((_with_differences(_evaluate_all(fitted, boot, h)),
-                             _with_differences(_evaluate_all(fitted, cohort, h))))
-            except WorkbenchError:
-                failed += 1
-        if progress is not None:
-            progress(b + 1, B)
-    optimism, corrected = optimism_table(apparent, rows)
+    cohort = prepared.cohort
+    h = np.asarray(spec.horizons, dtype=float)
+    v = validate_competing(cohort, spec, replicates=B, progress=progress)
+    messages = tuple(dict.fromkeys((w.category.__name__, str(w.message)) for w in [*caught, *v.caught]))
     provenance = {
         "seed": spec.seed,
         "data_hash": cohort.source.data_hash,
@@ -205,7 +240,7 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         "replicates": B,
     }
     return CompetingStudyResult(
-        spec=spec, study_text=text, prepared=prepared, horizons=h, apparent=apparent, optimism=optimism,
-        corrected=corrected, replicates=B, failed=failed, incidence=aalen_johansen(cohort.time, cohort.cause),
-        arms=arms, provenance=provenance, warnings=messages,
+        spec=spec, study_text=text, prepared=prepared, horizons=h, apparent=v.apparent, optimism=v.optimism,
+        corrected=v.corrected, replicates=B, failed=v.failed, incidence=aalen_johansen(cohort.time, cohort.cause),
+        arms=v.arms, provenance=provenance, warnings=messages,
     )
