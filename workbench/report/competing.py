@@ -126,8 +126,8 @@ def format_competing(result: CompetingStudyResult) -> str:
     labels = _cause_labels(result)
     c = result.cohort
     lines = ["Competing-risks analysis", "========================",
-             f"Patients {c.n}: {labels[1]} {int(np.sum(c.cause == 1))}, {labels[2]} {int(np.sum(c.cause == 2))}, "
-             f"censored {int(np.sum(c.cause == 0))}"]
+             f"Patients {c.n}: event of interest ({labels[1]}) {int(np.sum(c.cause == 1))}, competing ({labels[2]}) "
+             f"{int(np.sum(c.cause == 2))}, censored {int(np.sum(c.cause == 0))}"]
     for k in result.incidence.causes:
         est, lo, hi = incidence_at(result.incidence, h, cause=k)
         parts = [f"{t:g}: {e:.3f} ({a:.3f}-{b:.3f})" for t, e, a, b in zip(h, est, lo, hi, strict=True)]
