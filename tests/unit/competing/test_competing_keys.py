@@ -115,3 +115,18 @@ def test_an_unlisted_value_is_refused(folder):
     clin.to_csv(folder / "clinical.csv", index=False)
     with pytest.raises(CohortError, match=r"'unknown' in row 6 are not among the allowed codes"):
         prepare_cohort(study_from_dict(_doc(), base=folder))
+
+
+def test_ordinary_route_censors_competing_events_and_says_so(folder):
+    from workbench.workflow import run_study
+
+    doc = _doc()
+    doc["validation"] = {"workers": 1}
+    spec = study_from_dict(doc, base=folder)
+    result = run_study(spec, replicates=2, permutations=0)
+    # the run records its warnings (shown by the command line and the app)
+    assert any(c == "DataQualityWarning" and m.startswith("69 competing events ([data] competing_codes) are treated "
+                                                          "as censored") for c, m in result.warnings)
+    counts = json.loads((DEMO / "truth.json").read_text())["competing"]["cohorts"]["training"]["counts"]
+    assert result.cohort.n_events == counts["cancer"]
+    assert result.summary.n_competing == counts["other"]
