@@ -72,6 +72,8 @@ def _add_cohort_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--event", required=True, metavar="COLUMN", help="event column (0/1, true/false, or codes)")
     g.add_argument("--event-codes", metavar="A,B", help="values of the event column that mean the event happened, e.g. dead")
     g.add_argument("--censor-codes", metavar="A,B", help="values that mean censored, e.g. alive")
+    g.add_argument("--competing-codes", metavar="A,B",
+                   help="values that mean a competing event, e.g. other (needs --event-codes)")
     g.add_argument("--centre", metavar="COLUMN", help="hospital / centre column (optional)")
     g.add_argument("--batch", metavar="COLUMN", help="scanner / batch column for harmonisation (optional)")
     g.add_argument("--keep-matched", action="store_true", help="keep only patients found in both tables instead of stopping")
@@ -93,6 +95,7 @@ def _cmd_inspect(args) -> int:
         time_unit=args.time_unit,
         event_codes=_split_list(args.event_codes),
         censor_codes=_split_list(args.censor_codes),
+        competing_codes=_split_list(args.competing_codes),
         centre=args.centre,
         batch=args.batch,
         take_from=_pairs(args.take_from, "--take-from"),

@@ -255,6 +255,9 @@ def format_summary(s: CohortSummary) -> str:
         f"Median survival: {_num(s.median_survival)} {u} "
         f"(95% CI {_num(s.median_survival_ci[0])} to {_num(s.median_survival_ci[1])})",
     ]
+    if s.n_competing is not None:
+        lines.append("(Kaplan-Meier figures here censor the competing events: cause-specific, not the risk of the "
+                     "event; 'workbench competing' gives the cumulative incidence of each cause.)")
     if s.horizons:
         lines.append("")
         lines.append(f"Kaplan-Meier survival{'':27s}at risk")
