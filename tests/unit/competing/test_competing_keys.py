@@ -130,3 +130,12 @@ def test_ordinary_route_censors_competing_events_and_says_so(folder):
     counts = json.loads((DEMO / "truth.json").read_text())["competing"]["cohorts"]["training"]["counts"]
     assert result.cohort.n_events == counts["cancer"]
     assert result.summary.n_competing == counts["other"]
+
+
+def test_inspect_counts_competing_events(folder, capsys):
+    args = ["inspect", "--clinical", str(folder / "clinical.csv"), "--time", "followup_cr_months", "--event",
+            "death_cause", "--event-codes", "cancer", "--competing-codes", "other", "--censor-codes", "alive"]
+    assert main(args) == 0
+    assert "events of interest 285 (57%)   competing events 69 (14%)   censored 146" in capsys.readouterr().out
+    assert main(args[:7] + args[9:]) == 2  # competing codes without event codes
+    assert "competing_codes needs event_codes as well" in capsys.readouterr().err
