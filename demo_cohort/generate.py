@@ -22,6 +22,7 @@ from workbench.simulate import (
     simulate_cohort,
     simulate_repeats,
 )
+from workbench.simulate_competing import add_competing_death
 
 HERE = Path(__file__).resolve().parent
 TRAINING_SEED = 20240
@@ -29,6 +30,9 @@ EXTERNAL_SEED = 20241
 N_TRAINING = 500
 N_EXTERNAL = 150
 REPEAT_SEED = 20242
+# Deaths from other causes: a stream of their own, so every earlier column is unchanged
+COMPETING_SEED = 20243
+EXTERNAL_COMPETING_SEED = 20244
 N_REPEATS = 40  # patients segmented a second time (reproducibility)
 FEATURE_FORMAT = "%.5g"  # five significant digits keep the files small
 
@@ -45,6 +49,8 @@ def build_files() -> dict[str, str]:
         raise RuntimeError("patient identifiers collide between the training and external cohorts.")
     if train.truth["model"] != ext.truth["model"]:
         raise RuntimeError("the training and external cohorts were drawn from different models.")
+    train_clinical, train_cr = add_competing_death(train, random_state=COMPETING_SEED)
+    ext_clinical, ext_cr = add_competing_death(ext, random_state=EXTERNAL_COMPETING_SEED)
     repeats, repeat_truth = simulate_repeats(train, N_REPEATS, random_state=REPEAT_SEED)
     icc = population_icc(20000, random_state=REPEAT_SEED + 1).round(4)
     repeat_truth = {**repeat_truth,
@@ -62,11 +68,16 @@ def build_files() -> dict[str, str]:
                          **ext.truth["cohort"]},
         },
         "repeats": {"file": "repeats.csv", "seed": REPEAT_SEED, **repeat_truth},
+        "competing": {
+            **{k: v for k, v in train_cr.items() if k not in ("seed", "counts")},
+            "cohorts": {"training": {"seed": train_cr["seed"], "counts": train_cr["counts"]},
+                        "external": {"seed": ext_cr["seed"], "counts": ext_cr["counts"]}},
+        },
     }
     return {
-        "clinical.csv": _csv(train.clinical, "%.1f"),
+        "clinical.csv": _csv(train_clinical, "%.1f"),
         "imaging.csv": _csv(train.imaging, FEATURE_FORMAT),
-        "external_clinical.csv": _csv(ext.clinical, "%.1f"),
+        "external_clinical.csv": _csv(ext_clinical, "%.1f"),
         "external_imaging.csv": _csv(ext.imaging, FEATURE_FORMAT),
         "repeats.csv": _csv(repeats, FEATURE_FORMAT),
         "truth.json": json.dumps(truth, indent=2) + "\n",

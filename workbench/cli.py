@@ -72,6 +72,8 @@ def _add_cohort_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--event", required=True, metavar="COLUMN", help="event column (0/1, true/false, or codes)")
     g.add_argument("--event-codes", metavar="A,B", help="values of the event column that mean the event happened, e.g. dead")
     g.add_argument("--censor-codes", metavar="A,B", help="values that mean censored, e.g. alive")
+    g.add_argument("--competing-codes", metavar="A,B",
+                   help="values that mean a competing event, e.g. other (needs --event-codes)")
     g.add_argument("--centre", metavar="COLUMN", help="hospital / centre column (optional)")
     g.add_argument("--batch", metavar="COLUMN", help="scanner / batch column for harmonisation (optional)")
     g.add_argument("--keep-matched", action="store_true", help="keep only patients found in both tables instead of stopping")
@@ -93,6 +95,7 @@ def _cmd_inspect(args) -> int:
         time_unit=args.time_unit,
         event_codes=_split_list(args.event_codes),
         censor_codes=_split_list(args.censor_codes),
+        competing_codes=_split_list(args.competing_codes),
         centre=args.centre,
         batch=args.batch,
         take_from=_pairs(args.take_from, "--take-from"),
@@ -158,6 +161,32 @@ def _cmd_run(args) -> int:
     print(f"\nResults written to {out}/ (results.json, CSV tables, run.log, {', '.join(extras)})"
           + ("; the earlier results there were replaced" if replacing else ""))
     args.console.note_hidden("run.log")
+    return 0
+
+
+def _cmd_competing(args) -> int:
+    from workbench.competing.analysis import run_competing
+    from workbench.outfolder import atomic_folder, check_out_folder
+    from workbench.report.competing import format_competing, write_competing_folder
+    from workbench.study import read_study
+    from workbench.validation.backends import tqdm_progress
+
+    spec = read_study(args.study)
+    if spec.data.competing_codes is None:
+        raise WorkbenchError(f"{args.study}: [data] names no competing_codes, so there are no competing events to "
+                             "analyse. Add the codes of the competing events, e.g. competing_codes = [\"other\"] "
+                             "next to event_codes, or use 'workbench run' for an ordinary analysis.")
+    out = check_out_folder(args.out, _protected_inputs(args.study, spec), markers=("competing_results.json",))
+    replacing = out.is_dir() and any(out.iterdir())
+    bar = None if args.quiet else tqdm_progress("competing-risks bootstrap", file=sys.stderr)
+    result = run_competing(spec, replicates=args.replicates, progress=bar)
+    args.console.show_all(result.warnings)
+    with atomic_folder(out) as tmp:
+        written = write_competing_folder(result, tmp, figures=not args.no_figures)
+    print()
+    print(format_competing(result))
+    print(f"\nResults written to {out}/ ({', '.join(written)})"
+          + ("; the earlier results there were replaced" if replacing else ""))
     return 0
 
 
@@ -343,6 +372,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-report", action="store_true", help="skip the HTML/PDF report")
     p.add_argument("--no-pdf", action="store_true", help="write the HTML report only")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("competing", help="competing-risks analysis of a study file with [data] competing_codes")
+    p.add_argument("study", metavar="STUDY.toml", help="study file naming competing_codes in [data]")
+    p.add_argument("--out", default="competing", metavar="FOLDER", help="results folder (default: competing)")
+    p.add_argument("--replicates", type=_count(0), metavar="N",
+                   help="override the number of bootstrap replicates (0: apparent performance only)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--no-figures", action="store_true", help="skip the figures")
+    p.set_defaults(func=_cmd_competing)
 
     p = sub.add_parser("apply", help="apply a saved model bundle to a new cohort and validate it there")
     p.add_argument("bundle", metavar="BUNDLE", help="bundle folder or .zip written by 'workbench run'")

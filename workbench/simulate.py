@@ -426,6 +426,11 @@ class SimulatedCohort:
     latent : ndarray of shape (n, p) or None
         The standardised latent feature values before the scanner shift, in the rows of
         ``imaging`` (for :func:`simulate_repeats`).
+    event_times : DataFrame or None
+        ``patient_id, t_event, t_censor, age, ecog``: the unrounded event and censoring
+        times behind ``os_months`` and the true age and ECOG (before any value is
+        blanked), in the rows of ``clinical`` (for
+        :func:`workbench.simulate_competing.add_competing_death`).
     """
 
     clinical: pd.DataFrame
@@ -433,6 +438,7 @@ class SimulatedCohort:
     truth: dict
     linear_predictors: pd.DataFrame
     latent: np.ndarray | None = None
+    event_times: pd.DataFrame | None = None
 
     def outcome(self) -> np.ndarray:
         """The overall-survival outcome as the package's structured array."""
@@ -612,8 +618,11 @@ def simulate_cohort(
     })
     imaging = pd.concat([pd.DataFrame({"patient_id": ids, "scanner": scanner}), features], axis=1)
     lps = pd.DataFrame({"patient_id": ids, "lp_clinical": lp_clin, "lp_imaging": lp_img})
+    times = pd.DataFrame({"patient_id": ids, "t_event": t_event, "t_censor": np.minimum(t_admin, t_loss),
+                          "age": c["age"], "ecog": c["ecog"]})
     ordering = np.argsort(ids.astype(str), kind="stable")
-    clinical, imaging, lps = (d.iloc[ordering].reset_index(drop=True) for d in (clinical, imaging, lps))
+    clinical, imaging, lps, times = (d.iloc[ordering].reset_index(drop=True)
+                                     for d in (clinical, imaging, lps, times))
     latent = latent[ordering]
 
     time_o, dead_o = clinical["os_months"].to_numpy(float), clinical["status"].to_numpy() == "dead"
@@ -677,7 +686,8 @@ def simulate_cohort(
             },
         },
     }
-    return SimulatedCohort(clinical=clinical, imaging=imaging, truth=truth, linear_predictors=lps, latent=latent)
+    return SimulatedCohort(clinical=clinical, imaging=imaging, truth=truth, linear_predictors=lps, latent=latent,
+                           event_times=times)
 
 
 # Measurement error of a repeat measurement (second segmentation) on the latent scale: SD by

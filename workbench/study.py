@@ -20,6 +20,7 @@ from pathlib import Path
 
 import tomli_w
 
+from workbench.cohort.causes import check_competing_codes
 from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import ColumnMap
 from workbench.errors import SpecError, WorkbenchError
@@ -56,6 +57,7 @@ class DataSpec:
     time_unit: str = "months"
     event_codes: tuple[str, ...] | None = None
     censor_codes: tuple[str, ...] | None = None
+    competing_codes: tuple[str, ...] | None = None  # codes of competing events (the competing-risks route)
     centre: str | None = None
     batch: str | None = None
     on_unmatched: str = "error"
@@ -77,6 +79,7 @@ class DataSpec:
             time_unit=self.time_unit,
             event_codes=self.event_codes,
             censor_codes=self.censor_codes,
+            competing_codes=self.competing_codes,
             centre=self.centre,
             batch=self.batch,
             take_from=self.take_from,
@@ -250,6 +253,8 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError("[data] needs 'clinical', the table with follow-up time and event.")
     if d.features is None:
         check_clinical_only(spec)
+    if d.competing_codes is not None:
+        check_competing_codes(d.event_codes, d.censor_codes, d.competing_codes, SpecError, "[data] ")
     _choice("[data] time_unit", d.time_unit, tuple(TIME_UNITS))
     _choice("[data] on_unmatched", d.on_unmatched, ("error", "intersect"))
     if not spec.predictors:

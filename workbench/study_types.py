@@ -14,7 +14,7 @@ import typing
 
 from workbench.errors import SpecError
 
-CODE_LIKE = frozenset({"levels", "reference", "event_codes", "censor_codes"})
+CODE_LIKE = frozenset({"levels", "reference", "event_codes", "censor_codes", "competing_codes"})
 """Keys holding category codes or levels: numbers are accepted and compared as text."""
 
 _TOML_NAMES = {str: "text", bool: "true/false", int: "a whole number", float: "a decimal number",

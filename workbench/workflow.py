@@ -262,6 +262,12 @@ def run_study(
         warnings.simplefilter("always")
         prepared = prepare_cohort(spec)
         cohort = prepared.cohort
+        if cohort.cause is not None:
+            warnings.warn(
+                f"{int((cohort.cause == 2).sum())} competing events ([data] competing_codes) are treated as "
+                "censored here: this is a cause-specific analysis, and its survival curves are not the risk of "
+                "the event in a world with competing events. 'workbench competing' gives the cumulative incidence.",
+                DataQualityWarning, stacklevel=2)
         check_reference_scanner(spec, cohort)
         summary = summarise_cohort(cohort, spec.horizons, anticipated_r2=spec.anticipated_r2,
                                    **candidate_parameters(spec, cohort))

@@ -28,6 +28,7 @@ from workbench.simulate import (
 DEMO = Path(__file__).resolve().parents[2] / "demo_cohort"
 CLINICAL_COLUMNS = ["patient_id", "hospital", "age", "sex", "ecog", "stage", "histology",
                     "cea_ng_ml", "treatment_intent", "os_months", "status"]
+COMPETING_COLUMNS = ["followup_cr_months", "death_cause"]
 FAMILY_PREFIXES = ("morph_", "stat_", "ih_", "cm_", "rlm_", "szm_", "ngt_")
 
 
@@ -278,7 +279,7 @@ def test_committed_files_equal_a_fresh_regeneration():
 def test_committed_training_cohort_meets_its_targets(committed):
     gen = _load_generator()
     c, truth = committed["clinical"], committed["truth"]
-    assert len(c) == gen.N_TRAINING and list(c.columns) == CLINICAL_COLUMNS
+    assert len(c) == gen.N_TRAINING and list(c.columns) == CLINICAL_COLUMNS + COMPETING_COLUMNS
     sim = simulate_cohort(gen.N_TRAINING, random_state=gen.TRAINING_SEED, hospitals=NETWORK_HOSPITALS)
     lps = sim.linear_predictors
     assert (lps["patient_id"].to_numpy() == c["patient_id"].to_numpy()).all()
@@ -306,3 +307,26 @@ def test_committed_external_cohort(committed):
     assert 0.35 < share_d < 0.65 and "scanner_D" not in set(ti["scanner"])
     assert set(committed["truth"]["scanner_shifts"]) == {"scanner_A", "scanner_B", "scanner_C",
                                                          "scanner_D"}
+
+
+def test_committed_competing_columns_leave_the_earlier_columns_unchanged(committed):
+    # The competing-death columns come from their own stream: the earlier columns are the
+    # simulator's table written exactly as before the competing columns existed.
+    gen = _load_generator()
+    sim = simulate_cohort(gen.N_TRAINING, random_state=gen.TRAINING_SEED, hospitals=NETWORK_HOSPITALS)
+    before = gen._csv(sim.clinical, "%.1f").splitlines()
+    after = (gen.HERE / "clinical.csv").read_text(encoding="utf-8").splitlines()
+    assert len(before) == len(after)
+    assert all(a.rsplit(",", 2)[0] == b for a, b in zip(after, before, strict=True))
+    c = committed["clinical"]
+    assert set(c["death_cause"]) == {"cancer", "other", "alive"}
+    cancer = c["death_cause"] == "cancer"
+    # a cancer death is the death of the single-cause columns, at the same time
+    assert (c.loc[cancer, "status"] == "dead").all()
+    assert (c.loc[cancer, "followup_cr_months"] == c.loc[cancer, "os_months"]).all()
+    assert (c["followup_cr_months"] <= c["os_months"]).all()
+    counts = committed["truth"]["competing"]["cohorts"]["training"]["counts"]
+    assert counts == c["death_cause"].value_counts().to_dict()
+    # other-cause deaths depend on age (truth: log HR 0.6 per 10 years), not on stage directly
+    other = c["death_cause"] == "other"
+    assert c.loc[other, "age"].mean() > c.loc[~other, "age"].mean() + 3

@@ -9,6 +9,9 @@ A cohort holds, row-aligned by position:
   as text; preprocessing turns them into model terms).
 * ``features`` -- numeric imaging features (float columns).
 * ``centre`` and ``batch`` -- optional grouping labels (hospital, scanner).
+* ``cause`` -- optional, for a study with competing events: 0 censored, 1 the cause
+  of interest, 2 a competing event. ``y`` then holds the cause of interest with
+  competing events censored (the ordinary, cause-specific view).
 
 It never changes after construction; :meth:`take` returns a new cohort.
 """
@@ -20,7 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from workbench.cohort.outcome import check_outcome
+from workbench.cohort.outcome import check_outcome, make_competing_outcome
 
 TIME_UNITS = {"days": 365.25, "weeks": 365.25 / 7.0, "months": 12.0, "years": 1.0}
 """Time units accepted for follow-up, with the number of units in one year."""
@@ -55,6 +58,7 @@ class Cohort:
     centre: np.ndarray | None = None
     batch: np.ndarray | None = None
     source: CohortSource = field(default_factory=CohortSource)
+    cause: np.ndarray | None = None
 
     def __post_init__(self):
         check_outcome(self.y, "Cohort.y")
@@ -71,6 +75,13 @@ class Cohort:
                 if v.shape[0] != n:
                     raise ValueError(f"Cohort.{name} has {v.shape[0]} rows but the outcome has {n}.")
                 object.__setattr__(self, name, v)
+        if self.cause is not None:
+            c = np.asarray(self.cause, dtype=np.int64).ravel()
+            if c.shape[0] != n or np.any((c < 0) | (c > 2)):
+                raise ValueError(f"Cohort.cause needs {n} codes among 0, 1, 2.")
+            if not np.array_equal(c == 1, self.y["event"]):
+                raise ValueError("Cohort.y must flag exactly the patients whose cause is 1 (the cause of interest).")
+            object.__setattr__(self, "cause", c)
         if self.time_unit not in TIME_UNITS:
             raise ValueError(f"time unit {self.time_unit!r} is not one of {sorted(TIME_UNITS)}.")
 
@@ -92,6 +103,13 @@ class Cohort:
         return self.y["event"].astype(bool)
 
     @property
+    def competing_outcome(self) -> np.ndarray | None:
+        """The competing-risks outcome (fields ``cause``, ``time``), or None without competing events."""
+        if self.cause is None:
+            return None
+        return make_competing_outcome(self.time, self.cause)
+
+    @property
     def feature_names(self) -> list[str]:
         return list(self.features.columns)
 
@@ -110,6 +128,7 @@ class Cohort:
             centre=None if self.centre is None else self.centre[idx],
             batch=None if self.batch is None else self.batch[idx],
             source=self.source,
+            cause=None if self.cause is None else self.cause[idx],
         )
 
     def mask(self, keep) -> Cohort:

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from workbench.cohort.causes import check_competing_codes, parse_cause
 from workbench.cohort.codes import code_text
 from workbench.cohort.core import TIME_UNITS, Cohort, CohortSource
 from workbench.cohort.followup import check_followup
@@ -55,6 +56,11 @@ class ColumnMap:
         Hospital or centre (either table), for leave-one-centre-out validation.
     batch : str, optional
         Scanner or acquisition batch (either table), for harmonisation.
+    competing_codes : tuple of str, optional
+        Codes of the event column that mark a competing event (e.g. ``("other",)``
+        next to ``event_codes = ("cancer",)``): the cohort then carries a cause per
+        patient (0 censored, 1 event, 2 competing) and ``y`` censors competing events.
+        Needs ``event_codes``.
     take_from : dict (or pairs) of column name to {"clinical", "features"}, optional
         For a column name found in both tables (other than the id), which
         table's column to use; the other copy is left aside. Without an entry
@@ -71,6 +77,8 @@ class ColumnMap:
     centre: str | None = None
     batch: str | None = None
     take_from: tuple[tuple[str, str], ...] = field(default=(), repr=False)
+    # repr=False keeps the data hash of studies without competing events as it was
+    competing_codes: tuple[str, ...] | None = field(default=None, repr=False)
 
     def __post_init__(self):
         if self.time_unit not in TIME_UNITS:
@@ -78,10 +86,12 @@ class ColumnMap:
                 f"time unit {self.time_unit!r} is not recognised; use one of "
                 f"{', '.join(TIME_UNITS)}."
             )
-        for name in ("event_codes", "censor_codes"):
+        for name in ("event_codes", "censor_codes", "competing_codes"):
             v = getattr(self, name)
             if v is not None:
                 object.__setattr__(self, name, tuple(str(c).strip() for c in v))
+        if self.competing_codes is not None:
+            check_competing_codes(self.event_codes, self.censor_codes, self.competing_codes, CohortError)
         pairs = dict(self.take_from or ())
         for col, table in pairs.items():
             if table not in ("clinical", "features"):
@@ -169,9 +179,15 @@ def read_cohort(
     clin_rows = clin["_row"].to_numpy()
 
     time = parse_time(clin[columns.time], cpath, columns.time, clin_rows)
-    event = parse_event(
-        clin[columns.event], cpath, columns.event, clin_rows, columns.event_codes, columns.censor_codes
-    )
+    cause = None
+    if columns.competing_codes:
+        cause = parse_cause(clin[columns.event], cpath, columns.event, clin_rows, columns.event_codes,
+                            columns.competing_codes, columns.censor_codes)
+        event = cause == 1
+    else:
+        event = parse_event(
+            clin[columns.event], cpath, columns.event, clin_rows, columns.event_codes, columns.censor_codes
+        )
     check_events(event, cpath, columns.event, min_events)
     check_followup(time, event, columns.time_unit, cpath, columns.time, clin_rows)
     for col in both_roles:
@@ -223,7 +239,8 @@ def read_cohort(
              str(drop_unusable_features)]
     # settings added later enter only when used, so earlier hashes of the same study stay valid
     parts += [f"{k}={v}" for k, v in (("take_from", columns.take_from), ("features_sheet", features_sheet),
-                                      ("clinical_sheet", clinical_sheet)) if v]
+                                      ("clinical_sheet", clinical_sheet),
+                                      ("competing_codes", columns.competing_codes)) if v]
     for part in parts:
         digest.update(part.encode())
     source = CohortSource(
@@ -249,6 +266,7 @@ def read_cohort(
         centre=centre,
         batch=batch,
         source=source,
+        cause=cause,
     )
 
 

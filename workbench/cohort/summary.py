@@ -80,6 +80,9 @@ class CohortSummary:
     n_imaging_candidates: int = 0
     events_per_candidate_parameter: float | None = None
     sample_size_imaging: SampleSizeResult | None = None
+    # with competing events: patients whose first event is a competing one (counted among
+    # n_censored, as the cause-specific view censors them)
+    n_competing: int | None = None
 
 
 def feature_family(name: str) -> str:
@@ -228,6 +231,7 @@ def summarise_cohort(
         n_imaging_candidates=p_img,
         events_per_candidate_parameter=n_ev / (max(p_clin, 1) + p_img) if p_img > 0 else None,
         sample_size_imaging=ss_img,
+        n_competing=None if cohort.cause is None else int(np.sum(cohort.cause == 2)),
     )
 
 
@@ -241,12 +245,19 @@ def format_summary(s: CohortSummary) -> str:
     lines = [
         "Cohort summary",
         "==============",
-        f"Patients {s.n_patients}   events {s.n_events} ({100 * s.n_events / s.n_patients:.0f}%)   censored {s.n_censored}",
+        f"Patients {s.n_patients}   events {s.n_events} ({100 * s.n_events / s.n_patients:.0f}%)   censored {s.n_censored}"
+        if s.n_competing is None else
+        f"Patients {s.n_patients}   events of interest {s.n_events} ({100 * s.n_events / s.n_patients:.0f}%)   "
+        f"competing events {s.n_competing} ({100 * s.n_competing / s.n_patients:.0f}%)   "
+        f"censored {s.n_censored - s.n_competing}",
         f"Median follow-up (reverse Kaplan-Meier): {_num(s.median_followup)} {u} "
         f"(95% CI {_num(s.median_followup_ci[0])} to {_num(s.median_followup_ci[1])}); longest {s.max_followup:.1f} {u}",
         f"Median survival: {_num(s.median_survival)} {u} "
         f"(95% CI {_num(s.median_survival_ci[0])} to {_num(s.median_survival_ci[1])})",
     ]
+    if s.n_competing is not None:
+        lines.append("(Kaplan-Meier figures here censor the competing events: cause-specific, not the risk of the "
+                     "event; 'workbench competing' gives the cumulative incidence of each cause.)")
     if s.horizons:
         lines.append("")
         lines.append(f"Kaplan-Meier survival{'':27s}at risk")

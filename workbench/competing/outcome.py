@@ -2,7 +2,8 @@
 
 A competing-risks outcome is a numpy structured array with fields ``cause``
 (int64: 0 = censored, 1, 2, ... = the cause of the first event) and ``time``
-(float64). It is built here only, by :func:`make_competing_outcome`.
+(float64). It is built in :mod:`workbench.cohort.outcome` only, by :func:`make_competing_outcome`
+(re-exported here).
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from workbench.cohort.outcome import make_outcome
+from workbench.cohort.outcome import COMPETING_DTYPE, make_competing_outcome, make_outcome
 from workbench.errors import MetricError
 
 __all__ = [
@@ -23,42 +24,6 @@ __all__ = [
     "split_competing",
 ]
 
-COMPETING_DTYPE = np.dtype([("cause", "<i8"), ("time", "<f8")])
-
-
-def make_competing_outcome(time, cause) -> np.ndarray:
-    """Build a competing-risks outcome from follow-up times and cause codes.
-
-    Parameters
-    ----------
-    time : array-like of shape (n_samples,)
-        Follow-up time, finite and non-negative.
-    cause : array-like of shape (n_samples,)
-        Whole numbers: 0 for censored, 1, 2, ... for the cause of the first event.
-
-    Returns
-    -------
-    ndarray of shape (n_samples,) with dtype ``COMPETING_DTYPE``
-    """
-    t = np.asarray(time, dtype=float).ravel()
-    c = np.asarray(cause).ravel()
-    if t.shape != c.shape:
-        raise MetricError(f"time has {t.size} values but cause has {c.size}; give one cause code per patient.")
-    if t.size == 0:
-        raise MetricError("the competing-risks outcome is empty; it needs at least one patient.")
-    if not np.all(np.isfinite(t)) or np.any(t < 0):
-        raise MetricError("follow-up times must be finite and non-negative; correct missing or negative times.")
-    cf = np.asarray(c, dtype=float)
-    if not np.all(np.isfinite(cf)) or np.any(cf < 0) or np.any(cf != np.round(cf)):
-        bad = sorted({str(v) for v in c[~(np.isfinite(cf) & (cf >= 0) & (cf == np.round(cf)))]})[:5]
-        raise MetricError(
-            f"cause codes must be whole numbers: 0 for censored, 1, 2, ... for the cause of the "
-            f"first event; found {', '.join(bad)}."
-        )
-    y = np.empty(t.size, dtype=COMPETING_DTYPE)
-    y["cause"] = cf.astype(np.int64)
-    y["time"] = t
-    return y
 
 
 def split_competing(y) -> tuple[np.ndarray, np.ndarray]:

@@ -1,0 +1,145 @@
+"""The competing-risks route end to end: ``workbench competing`` on the demo and on a public dataset.
+
+1. The demo competing study (invented data, demo_cohort/study_competing.toml) with 2
+   bootstrap replicates through the command line: files, caution, provenance, counts
+   against demo_cohort/truth.json, and the signature's added value. In the generating
+   model (truth.json, ``competing``) imaging enters the hazard of cancer death only, not
+   that of death from other causes, so the added value of the signature must be larger
+   for cancer death than for all-cause death, where the other deaths dilute it.
+2. scikit-survival's ``load_cgvhd`` (chronic graft-versus-host disease after transplant;
+   Pintilie M. Competing Risks: A Practical Perspective. Wiley 2006), status 1 the event,
+   2 (relapse) and 3 (death) competing, as a clinical table of its own: a clinical-only
+   study (no imaging keys), so only the clinical model. Reference values: lifelines'
+   AalenJohansenFitter for the incidence and lifelines' CoxPHFitter (competing events
+   censored) for the cause-specific coefficients, fitted on the same data here.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from workbench.cli import main
+from workbench.cohort.summary import CAUTION
+from workbench.competing.analysis import run_competing
+from workbench.prepare import prepare_cohort
+from workbench.study import read_study, study_from_dict
+
+DEMO = Path(__file__).resolve().parents[3] / "demo_cohort"
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("competing") / "demo"
+    assert main(["competing", str(DEMO / "study_competing.toml"), "--out", str(out), "--replicates", "2",
+                 "--quiet"]) == 0
+    return out, json.loads((out / "competing_results.json").read_text())
+
+
+def _value(doc, target, model, metric, kind="corrected", method="cause_specific"):
+    rows = [r for r in doc["results"] if (r["target"], r["model"], r["method"], r["metric"])
+            == (target, model, method, metric)]
+    return np.array([r[kind] for r in sorted(rows, key=lambda r: r["horizon"])], dtype=float)
+
+
+def test_demo_writes_results_figures_and_provenance(demo_run, capsys):
+    out, doc = demo_run
+    assert doc["caution"] == CAUTION
+    spec = read_study(DEMO / "study_competing.toml")
+    assert doc["provenance"]["seed"] == spec.seed
+    assert doc["provenance"]["data_hash"] == prepare_cohort(spec).cohort.source.data_hash
+    counts = json.loads((DEMO / "truth.json").read_text())["competing"]["cohorts"]["training"]["counts"]
+    assert doc["cohort"]["causes"] == {"censored": counts["alive"], "cancer": counts["cancer"],
+                                       "other": counts["other"]}
+    for stem in ("cumulative_incidence", "incidence_calibration"):
+        for width in ("single", "double"):
+            assert (out / f"{stem}_{width}.png").stat().st_size > 1000
+    assert doc["validation"]["replicates"] == 2
+    # corrected = apparent - optimism, row by row
+    for r in doc["results"]:
+        if r["apparent"] is not None and r["optimism"] is not None:
+            assert r["corrected"] == pytest.approx(r["apparent"] - r["optimism"], abs=2e-6)
+
+
+def test_demo_signature_adds_more_for_cancer_death_than_for_all_cause_death(demo_run):
+    _, doc = demo_run
+    truth = json.loads((DEMO / "truth.json").read_text())["competing"]
+    assert "none" in truth["cause_specific_hazards"]["other"]["imaging"]
+    for kind in ("apparent", "corrected"):
+        cancer = _value(doc, "cause", "combined_minus_clinical", "auc", kind)
+        all_cause = _value(doc, "all_cause", "combined_minus_clinical", "auc", kind)
+        assert np.all(cancer > 0) and np.all(cancer > all_cause), (kind, cancer, all_cause)
+    # Fine-Gray tells the same story for the cause of interest
+    assert np.all(_value(doc, "cause", "combined_minus_clinical", "auc", method="fine_gray") > 0)
+
+
+# ------------------------------------------------------------------ public dataset
+
+
+@pytest.fixture(scope="module")
+def cgvhd_study(tmp_path_factory):
+    from sksurv.datasets import load_cgvhd
+
+    X, y = load_cgvhd()
+    folder = tmp_path_factory.mktemp("cgvhd")
+    clin = X.astype({c: str for c in ("dx", "tx", "extent")}).assign(
+        patient_id=[f"P{i:03d}" for i in range(len(X))], years=y["ftime"], status=y["status"].astype(str))
+    clin.to_csv(folder / "clinical.csv", index=False)
+    doc = {"study": {"name": "cgvhd", "horizons": [0.45, 0.65], "seed": 11},
+           "data": {"clinical": "clinical.csv", "time": "years", "time_unit": "years", "event": "status",
+                    "event_codes": ["1"], "competing_codes": ["2", "3"], "censor_codes": ["0"]},
+           "predictor": [{"column": "age"}, {"column": "dx", "kind": "categorical", "reference": "CML"},
+                         {"column": "extent", "kind": "categorical", "reference": "L"}]}
+    return folder, doc, clin
+
+
+def test_clinical_only_public_dataset_runs_the_clinical_model(cgvhd_study, capsys):
+    import tomli_w
+
+    folder, doc, _ = cgvhd_study
+    (folder / "study.toml").write_text(tomli_w.dumps(doc))
+    out = folder / "out"
+    assert main(["competing", str(folder / "study.toml"), "--out", str(out), "--replicates", "3", "--quiet"]) == 0
+    res = json.loads((out / "competing_results.json").read_text())
+    assert {r["model"] for r in res["results"]} == {"clinical"}
+    assert res["cohort"]["causes"] == {"censored": 4, "1": 86, "2, 3": 10}  # load_cgvhd status counts
+    printed = capsys.readouterr().out
+    # the summary ends with the caution; the folder written is named after it, as in 'workbench run'
+    summary, _, written = printed.partition("\nResults written to")
+    assert summary.rstrip().endswith(f"Caution: {CAUTION}") and "competing_results.json" in written
+    assert "event of interest (1) 86, competing (2, 3) 10, censored 4" in summary
+
+
+def test_public_dataset_matches_reference_libraries(cgvhd_study):
+    from lifelines import AalenJohansenFitter, CoxPHFitter
+
+    folder, doc, clin = cgvhd_study
+    result = run_competing(study_from_dict(doc, base=folder), replicates=0)
+    cohort = result.cohort
+    # Aalen-Johansen incidence of cause 1 at the horizons against lifelines; lifelines
+    # separates tied times by a small random jitter (hence the tolerance of 0.01); the horizons
+    # 0.45 and 0.65 lie at least 0.002 from every observed time, so the jitter cannot cross them
+    ajf = AalenJohansenFitter(seed=1).fit(clin["years"], clin["status"].astype(int), event_of_interest=1)
+    ref = ajf.cumulative_density_.iloc[:, 0]
+    for t in result.horizons:
+        j = np.searchsorted(result.incidence.times, t, side="right") - 1
+        ours = result.incidence.incidence[result.incidence.row(1), j]
+        theirs = float(ref[ref.index <= t].iloc[-1])
+        assert ours == pytest.approx(theirs, abs=0.01), t
+    # cause-specific Cox of cause 1: lifelines' Cox with relapse and death censored, same design (Efron ties),
+    # its Newton steps run to precision 1e-12 (its default stops earlier on the flat likelihood of "extent")
+    arm = result.arms[("cause", "clinical")]
+    X = arm.transformer.transform(cohort).X
+    frame = pd.DataFrame(X, columns=[f"x{j}" for j in range(X.shape[1])]).assign(
+        T=cohort.time, E=(cohort.cause == 1).astype(int))
+    ref_coef = CoxPHFitter().fit(frame, "T", "E", fit_options={"precision": 1e-12}).params_.to_numpy()
+    np.testing.assert_allclose(arm.cause_specific.fit_for(1).coef, ref_coef, atol=1e-4)
+    # without competing events in the all-cause target, the same arm is the ordinary Cox model
+    all_arm = result.arms[("all_cause", "clinical")]
+    frame["E"] = (cohort.cause > 0).astype(int)
+    np.testing.assert_allclose(all_arm.cause_specific.fit_for(1).coef,
+                               CoxPHFitter().fit(frame, "T", "E", fit_options={"precision": 1e-12}).params_.to_numpy(), atol=1e-4)
