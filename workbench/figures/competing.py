@@ -5,10 +5,12 @@ from __future__ import annotations
 import numpy as np
 
 from workbench.competing.cif import CumulativeIncidenceResult
+from workbench.figures.measure import wrap_to_width
 from workbench.figures.style import (
     BAND_ALPHA,
     INK,
     NEUTRAL,
+    base_font_size,
     figure_and_axes,
     model_styles,
     new_figure,
@@ -44,35 +46,44 @@ def plot_cause_incidence(result: CumulativeIncidenceResult, labels: dict, *, hor
     return fig
 
 
-def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="single"):
+def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="single", time_unit: str = "",
+                               title: str = ""):
     """Mean predicted against Aalen-Johansen observed incidence by risk group, one panel per horizon.
 
-    ``groups`` maps a model name to a list of grouped-calibration results (one per
-    horizon, :func:`workbench.competing.metrics.competing_grouped_calibration`).
+    ``groups`` maps a model name (a study key such as "combined", shown by its label) to a
+    list of grouped-calibration results (one per horizon,
+    :func:`workbench.competing.metrics.competing_grouped_calibration`). Every panel has the
+    same 0-1 scale, so the horizons can be compared at a glance.
     """
+    from workbench.models.labels import MODEL_LABELS
+
     names = list(groups)
     n_h = len(next(iter(groups.values()))) if groups else 0
     styles = model_styles(names)
     with style_context(width):
-        fig = new_figure(width, aspect=0.42 if n_h > 1 else 0.8)
+        fig = new_figure(width, aspect=(0.42 if width == "double" else 0.62) if n_h > 1 else 0.8)
         axes = fig.subplots(1, max(n_h, 1), squeeze=False)[0]
         for j, ax in enumerate(axes):
-            top = 0.0
             for name in names:
                 g = groups[name][j]
                 st = styles[name]
                 err = np.vstack([g.observed - g.observed_lower, g.observed_upper - g.observed])
                 ax.errorbar(g.mean_predicted, g.observed, yerr=np.clip(err, 0, None), fmt=st.marker,
-                            color=st.color, linestyle="none", capsize=1.5, label=name)
-                top = max(top, float(np.max(g.observed_upper)), float(np.max(g.mean_predicted)))
-            top = min(1.0, 1.05 * top) or 1.0
-            ax.plot([0, top], [0, top], color=NEUTRAL, linewidth=0.5, linestyle=":")
-            ax.set_xlim(0, top)
-            ax.set_ylim(0, top)
-            ax.set_title(f"t = {groups[names[0]][j].t0:g}")
+                            color=st.color, linestyle="none", capsize=1.5, label=MODEL_LABELS.get(name, name))
+            ax.plot([0, 1], [0, 1], color=NEUTRAL, linewidth=0.5, linestyle=":")
+            ax.set_xlim(0, 1)
+            ax.set_ylim(0, 1)
+            if j:
+                ax.tick_params(labelleft=False)
+            ax.set_title(f"{groups[names[0]][j].t0:g} {time_unit}".strip())
             ax.set_xlabel("Predicted")
+            ax.set_aspect("equal")
             if j == 0:
-                ax.set_ylabel(f"Observed incidence of {cause_label}" if cause_label else "Observed incidence")
-        if names:
-            axes[0].legend(loc="upper left")
+                ax.set_ylabel("Observed (Aalen-Johansen)")
+        if names:  # under the panels, where long model names cannot squeeze them
+            handles, labels = axes[0].get_legend_handles_labels()
+            fig.legend(handles, labels, loc="outside lower center", ncols=len(names), frameon=False)
+        head = f"Incidence of {cause_label} by risk group" if cause_label else "Incidence by risk group"
+        fig.suptitle(wrap_to_width(f"{head}: {title}" if title else head, fig, 1.1 * base_font_size(width)), x=0.01,
+                     ha="left", fontsize="medium")
     return fig

@@ -25,7 +25,7 @@ import numpy as np
 from workbench.cohort.outcome import make_outcome, split_outcome
 from workbench.errors import SpecError, WorkbenchWarning
 from workbench.figures.grouping import RiskGroups, risk_groups
-from workbench.figures.measure import TextMeasure
+from workbench.figures.measure import wrap_to_width
 from workbench.figures.style import (
     BAND_ALPHA,
     base_font_size,
@@ -245,9 +245,9 @@ def plot_km_by_group(
                            handlelength=2.2, columnspacing=1.2, borderaxespad=0.2, title="Risk group",
                            title_fontsize="small", alignment="left")
             if title:
-                fig.suptitle(_wrap_to(title, fig, base_font_size(width)), x=0.01, ha="left", fontsize="medium")
+                fig.suptitle(wrap_to_width(title, fig, base_font_size(width)), x=0.01, ha="left", fontsize="medium")
             caption = km_caption(result, development=development, min_at_risk=min_at_risk)
-            fig.supxlabel(_wrap_to(caption, fig, base_font_size(width) - 1.5), x=0.01, ha="left",
+            fig.supxlabel(wrap_to_width(caption, fig, base_font_size(width) - 1.5), x=0.01, ha="left",
                           fontsize="small", linespacing=1.2)
         else:
             ax_main.legend(loc="lower left", title="Risk group", title_fontsize="small", handlelength=2.2)
@@ -270,16 +270,3 @@ def plot_km_by_group(
         if ax_tab is not None:
             ax_tab.set_xticks(result.tick_times, labels=[format_number(t) for t in result.tick_times])
         return out
-
-
-def _wrap_to(text: str, fig, size: float) -> str:
-    """Break ``text`` into lines that fit the figure's width at ``size`` points."""
-    meas = TextMeasure()
-    limit = fig.get_figwidth() * 72.0 * 0.97
-    lines: list[str] = []
-    for w in text.split(" "):
-        if lines and meas.width(f"{lines[-1]} {w}", size) <= limit:
-            lines[-1] = f"{lines[-1]} {w}"
-        else:
-            lines.append(w)
-    return "\n".join(lines)

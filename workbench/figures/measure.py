@@ -30,3 +30,16 @@ class TextMeasure:
                 for line in lines
             )
         return self._cache[key]
+
+
+def wrap_to_width(text: str, fig, size: float) -> str:
+    """Break ``text`` into lines that fit the figure's width at ``size`` points."""
+    meas = TextMeasure()
+    limit = fig.get_figwidth() * 72.0 * 0.97
+    lines: list[str] = []
+    for w in text.split(" "):
+        if lines and meas.width(f"{lines[-1]} {w}", size) <= limit:
+            lines[-1] = f"{lines[-1]} {w}"
+        else:
+            lines.append(w)
+    return "\n".join(lines)

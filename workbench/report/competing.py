@@ -114,7 +114,9 @@ def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool =
         save_figure(fig, out / f"cumulative_incidence_{width}", widths=(None,))
         groups = _calibration_groups(result)
         if groups:
-            fig = plot_incidence_calibration(groups, cause_label=labels[1], width=width)
+            fig = plot_incidence_calibration(groups, cause_label=labels[1], width=width,
+                                             time_unit=result.cohort.time_unit,
+                                             title="development cohort, apparent (the models were fitted here)")
             save_figure(fig, out / f"incidence_calibration_{width}", widths=(None,))
     written += ["cumulative_incidence_*", "incidence_calibration_*"]
     return written
