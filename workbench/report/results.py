@@ -182,11 +182,17 @@ def _risk_group_block(result, name: str) -> dict | None:
     return out
 
 
-def conditional_rows(model, cohort, cuts, horizons) -> list[dict]:
+CONDITIONAL_MIN_AT_RISK = 10
+"""Fewest of a group's patients still followed at the visit for its conditional survival to be given
+(the same rule as the risk-group curves' default min_at_risk; common practice)."""
+
+
+def conditional_rows(model, cohort, cuts, horizons, min_at_risk: int = CONDITIONAL_MIN_AT_RISK) -> list[dict]:
     """Observed conditional survival per risk group: alive at one horizon, the chance of reaching each
     later one (Kaplan-Meier within the group, Greenwood log(-log) 95% limits; Zabor et al. 2013).
     Groups from the model's risk with the training cut-points; on the development cohort the
-    separation of the groups is apparent (the model was fitted there)."""
+    separation of the groups is apparent (the model was fitted there). A group with fewer than
+    ``min_at_risk`` patients still followed at the visit gets no estimate (null, with a note)."""
     from workbench.competing.conditional import conditional_survival_km
     from workbench.stats.riskgroups import assign_groups, group_labels
 
@@ -199,10 +205,13 @@ def conditional_rows(model, cohort, cuts, horizons) -> list[dict]:
         cs = conditional_survival_km(cohort.time, cohort.event, hz[i + 1:], s, groups=g)
         for r, lab in enumerate(cs.labels):
             at_risk = int(np.sum((g == lab) & (cohort.time > s)))
+            few = at_risk < min_at_risk
             for j, t in enumerate(cs.times):
                 rows.append({"group": labels[int(lab)], "alive_at": s, "horizon": float(t), "at_risk": at_risk,
-                             "survival": jsonable(float(cs.survival[r, j])),
-                             "ci_lower": jsonable(float(cs.lower[r, j])), "ci_upper": jsonable(float(cs.upper[r, j]))})
+                             "survival": None if few else jsonable(float(cs.survival[r, j])),
+                             "ci_lower": None if few else jsonable(float(cs.lower[r, j])),
+                             "ci_upper": None if few else jsonable(float(cs.upper[r, j])),
+                             "note": f"fewer than {min_at_risk} patients at risk" if few else ""})
     return rows
 
 

@@ -53,3 +53,22 @@ def test_report_partial_lists_each_row_and_says_where_the_groups_come_from():
     assert "0.91<span class=\"ci\">0.85 to 0.95</span>" in html and "0.52</td>" in html
     assert "cut-points learned on the development patients" in html
     assert env.get_template("_conditional.html.j2").render(conditional=None, unit="months").strip() == ""
+
+
+def test_a_group_with_too_few_patients_at_the_visit_gets_no_estimate():
+    from workbench.report.html import _environment
+
+    X, y = load_gbsg2()
+    time, event = y["time"].astype(float), y["cens"].astype(bool)
+    risk = X["pnodes"].to_numpy(float)
+    model = SimpleNamespace(predict_risk=lambda cohort: SimpleNamespace(values=risk))
+    cuts = learn_cutpoints(risk, 3)
+    rows = conditional_rows(model, SimpleNamespace(time=time, event=event), cuts, (365.0, 2200.0, 2400.0),
+                            min_at_risk=60)
+    few = [r for r in rows if r["at_risk"] < 60]
+    assert few and all(r["survival"] is None and r["ci_lower"] is None for r in few)
+    assert all(r["note"] == "fewer than 60 patients at risk" for r in few)
+    assert all(r["survival"] is not None and r["note"] == "" for r in rows if r["at_risk"] >= 60)
+    html = _environment().get_template("_conditional.html.j2").render(
+        conditional={"model": "m", "cohorts": [{"name": "development", "rows": few}]}, unit="days")
+    assert "fewer than 60 patients at risk" in html

@@ -328,7 +328,8 @@ def _conditional_frame(run_key: tuple, _result, unit: str):
     rows = conditional_rows(m, ev, cuts, _result.spec.horizons)
     df = pd.DataFrame([{"Risk group": r["group"], "Alive at": f"{r['alive_at']:g} {unit}",
                         "Chance of being alive at": f"{r['horizon']:g} {unit}",
-                        "Estimate (95% CI)": tables.num(_nan(r["survival"]), 2) + (
+                        "Estimate (95% CI)": (r.get("note") or "-") if r["survival"] is None else
+                        tables.num(_nan(r["survival"]), 2) + (
                             f" ({tables.interval(r['ci_lower'], r['ci_upper'], 2)})"
                             if r["ci_lower"] is not None else ""),
                         "At risk then": r["at_risk"]} for r in rows])
