@@ -7,7 +7,12 @@ character count.
 
 from __future__ import annotations
 
-__all__ = ["TextMeasure"]
+__all__ = ["TextMeasure", "wrap_to_width"]
+
+_WIDTHS: dict = {}
+"""Measured widths shared by every TextMeasure: (text, font) -> points. A nomogram redrawn at another
+horizon measures the same labels again, and each measurement costs milliseconds."""
+_MAX_CACHED = 50_000
 
 
 class TextMeasure:
@@ -19,17 +24,16 @@ class TextMeasure:
 
         self._r = RendererAgg(10, 10, 72)
         self._prop = FontProperties
-        self._cache: dict = {}
 
     def width(self, text: str, size: float) -> float:
-        key = (text, size)
-        if key not in self._cache:
+        prop = self._prop(size=size)  # the font of the current style context (family, weight, size)
+        key = (text, hash(prop))
+        if key not in _WIDTHS:
+            if len(_WIDTHS) > _MAX_CACHED:
+                _WIDTHS.clear()
             lines = text.split("\n") or [""]
-            self._cache[key] = max(
-                self._r.get_text_width_height_descent(line, self._prop(size=size), ismath=False)[0]
-                for line in lines
-            )
-        return self._cache[key]
+            _WIDTHS[key] = max(self._r.get_text_width_height_descent(line, prop, ismath=False)[0] for line in lines)
+        return _WIDTHS[key]
 
 
 def wrap_to_width(text: str, fig, size: float) -> str:
