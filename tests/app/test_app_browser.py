@@ -212,7 +212,16 @@ def _shot(page, name: str):
     # two animation frames: the browser has laid out the new size before the picture is taken
     page.evaluate("() => new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r)))")
     _settle(page)
-    page.screenshot(path=str(SHOTS / f"{name}.png"))
+    # Tables draw into canvases after the resize, on frames of their own: take pictures until two
+    # in a row are the same (the page has stopped drawing), at most 40 frames' worth of tries.
+    before = page.screenshot()
+    for _ in range(40):
+        page.evaluate("() => new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r)))")
+        now = page.screenshot()
+        if now == before:
+            break
+        before = now
+    (SHOTS / f"{name}.png").write_bytes(now)
     page.set_viewport_size({"width": 1440, "height": 1000})
 
 
