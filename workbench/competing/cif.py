@@ -10,11 +10,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import norm
 
 from workbench.competing.outcome import make_competing_outcome, split_competing
 from workbench.errors import MetricError
-from workbench.stats.km import kaplan_meier
+from workbench.stats.km import kaplan_meier, loglog_limits
 
 __all__ = ["CumulativeIncidenceResult", "aalen_johansen", "incidence_at"]
 
@@ -145,13 +144,8 @@ def aalen_johansen(time, cause, *, conf_level: float = 0.95) -> CumulativeIncide
     var = F**2 * A0 - 2 * F * A1 + A2 + np.cumsum(second, axis=1) - 2 * (F * B0 - B1)
     se = np.sqrt(np.clip(var, 0.0, None))
 
-    z = norm.ppf(0.5 + conf_level / 2.0)
-    lower, upper = F.copy(), F.copy()
-    inner = (F > 0) & (F < 1) & (se > 0)
-    half = np.zeros_like(F)
-    half[inner] = z * se[inner] / (F[inner] * np.abs(np.log(F[inner])))
-    lower[inner] = F[inner] ** np.exp(half[inner])
-    upper[inner] = F[inner] ** np.exp(-half[inner])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lower, upper = loglog_limits(F, se / (F * np.abs(np.log(F))), conf_level)
     return CumulativeIncidenceResult(
         times=times,
         causes=causes,

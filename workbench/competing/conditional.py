@@ -15,12 +15,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import norm
 
 from workbench.errors import MetricError
 from workbench.predictions import SurvivalCurves
 from workbench.stats.coxph import CoxPHFit, _cumhaz_at, _design_for, log_cumhaz_se
-from workbench.stats.km import kaplan_meier
+from workbench.stats.km import kaplan_meier, loglog_limits
 
 __all__ = [
     "ConditionalSurvival",
@@ -70,15 +69,6 @@ def _check(times, since: float) -> np.ndarray:
     return t
 
 
-def _loglog_limits(surv, se_log_h, conf_level):
-    z = norm.ppf(0.5 + conf_level / 2.0)
-    inner = (surv > 0) & (surv < 1) & np.isfinite(se_log_h) & np.isfinite(surv)
-    lo, hi = surv.copy(), surv.copy()
-    lo[inner] = surv[inner] ** np.exp(z * se_log_h[inner])
-    hi[inner] = surv[inner] ** np.exp(-z * se_log_h[inner])
-    return lo, hi
-
-
 def conditional_survival_cox(fit: CoxPHFit, X, times, since: float, *, conf_level: float = 0.95) -> ConditionalSurvival:
     r"""A patient's conditional survival from a Cox model, with a delta-method interval.
 
@@ -106,7 +96,7 @@ def conditional_survival_cox(fit: CoxPHFit, X, times, since: float, *, conf_leve
     dQ = _cumhaz_at(fit, t, fit.baseline_xbar) - _cumhaz_at(fit, at_s, fit.baseline_xbar)
     se = log_cumhaz_se(fit, xc, dH, dV, dQ)
     surv = np.exp(-np.exp(lp)[:, None] * dH[None, :])
-    lo, hi = _loglog_limits(surv, se, conf_level)
+    lo, hi = loglog_limits(surv, se, conf_level)
     return ConditionalSurvival(float(since), t, surv, lo, hi, (), float(conf_level))
 
 
@@ -155,7 +145,7 @@ def conditional_survival_km(time, event, times, since: float, *, groups=None, co
             rows_se.append(np.sqrt(cum[j_t] - cum[j_s]) / np.abs(logs[j_t] - logs[j_s]))
     surv = np.vstack(rows_s)
     se = np.vstack(rows_se)
-    lo, hi = _loglog_limits(surv, se, conf_level)
+    lo, hi = loglog_limits(surv, se, conf_level)
     return ConditionalSurvival(float(since), t, surv, lo, hi, () if groups is None else labels, float(conf_level))
 
 

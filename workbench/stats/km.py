@@ -19,6 +19,7 @@ __all__ = [
     "MedianSurvival",
     "kaplan_meier",
     "km_ci_at",
+    "loglog_limits",
     "median_survival",
     "reverse_kaplan_meier_median_followup",
     "survival_at",
@@ -88,6 +89,25 @@ class MedianSurvival:
     ci_lower: float
     ci_upper: float
     conf_level: float = 0.95
+
+
+def loglog_limits(p, se_loglog, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pointwise limits of a probability ``p`` symmetric on the log(-log p) scale.
+
+    ``p ** exp(+-z se)`` with ``se`` the standard error of ``log(-log p)`` (for a
+    survival probability, of the log cumulative hazard); the limits stay in [0, 1].
+    Where ``p`` is 0 or 1 or ``se`` is not finite the limits equal ``p``. Used for
+    the Kaplan-Meier curve, the Aalen-Johansen cumulative incidence and conditional
+    survival (Kalbfleisch & Prentice 1980).
+    """
+    p = np.asarray(p, dtype=float)
+    se = np.broadcast_to(np.asarray(se_loglog, dtype=float), p.shape)
+    z = NormalDist().inv_cdf(0.5 + conf_level / 2.0)
+    lower, upper = p.copy(), p.copy()
+    inner = (p > 0) & (p < 1) & np.isfinite(se) & np.isfinite(p)
+    lower[inner] = p[inner] ** np.exp(z * se[inner])
+    upper[inner] = p[inner] ** np.exp(-z * se[inner])
+    return lower, upper
 
 
 def _check_inputs(time, event, weights) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -178,14 +198,9 @@ def kaplan_meier(time, event, *, weights=None, conf_level: float = 0.95) -> Kapl
     positive = surv > 0
     std_err = np.where(positive, surv * np.sqrt(np.where(positive, cum, 0.0)), 0.0)
 
-    z = NormalDist().inv_cdf(0.5 + conf_level / 2.0)
-    lower = surv.copy()
-    upper = surv.copy()
-    inner = positive & (surv < 1.0) & np.isfinite(cum)
-    log_s = np.log(surv[inner])
-    half = z * np.sqrt(cum[inner]) / np.abs(log_s)
-    lower[inner] = surv[inner] ** np.exp(half)
-    upper[inner] = surv[inner] ** np.exp(-half)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        se_loglog = np.sqrt(cum) / np.abs(np.log(surv))
+    lower, upper = loglog_limits(surv, se_loglog, conf_level)
     return KaplanMeierResult(
         times=times,
         survival=surv,
