@@ -404,12 +404,13 @@ def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRange
     h = np.atleast_1d(np.asarray(horizons, dtype=float))
     if h.size == 0 or not np.all(np.isfinite(h)) or np.any(h <= 0):
         raise SpecError(f"horizons must be positive times, for example [12, 24, 36]; got {list(h)}.")
+    ranges = training_ranges if training_ranges is not None else ranges_from_model(model)
     if alive_at is not None:
         a = float(alive_at)
         if not np.isfinite(a) or a <= 0 or a >= float(h.max()):
-            raise SpecError(f"alive_at must be a time after 0 and before the last horizon ({h.max():g}); "
-                            f"got {alive_at!r}.")
-    ranges = training_ranges if training_ranges is not None else ranges_from_model(model)
+            unit = getattr(ranges, "time_unit", "") or ""
+            raise SpecError(f"the time the patient is known to be alive (--alive-at) must be after 0 and before "
+                            f"the last horizon ({h.max():g} {unit}); got {a:g}.".replace(" )", ")"))
     cohort, checks, unestimable = _validate(patient, ranges, ignore)
     if unestimable:
         raise ModelError(

@@ -376,4 +376,4 @@ def test_estimate_alive_at_a_visit_prints_the_conditional_chances(run_folder, ca
     assert out.rstrip().splitlines()[-1].startswith("Caution:")
     assert main(["estimate", str(run_folder / "bundle"), "--model", "clinical", "--value", "age=60",
                  "--value", "tgrade=II", "--value", "horTh=no", "--alive-at", f"{h[-1]:g}"]) == 2
-    assert "alive_at must be a time after 0 and before the last horizon" in capsys.readouterr().err
+    assert "the time the patient is known to be alive (--alive-at) must be after 0 and before the last horizon" in capsys.readouterr().err

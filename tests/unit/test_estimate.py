@@ -330,5 +330,5 @@ def test_conditional_survival_by_bootstrap_and_without_an_interval(demo):
 
 @pytest.mark.parametrize("alive_at", [0.0, 36.0, 40.0, float("nan")])
 def test_alive_at_must_lie_before_the_last_horizon(demo, alive_at):
-    with pytest.raises(SpecError, match="alive_at must be a time after 0 and before the last horizon"):
+    with pytest.raises(SpecError, match=r"known to be alive \(--alive-at\) must be after 0 and before the last horizon \(36 months\)"):
         estimate_patient(demo[2]["clinical"], _patient(demo), H, training_ranges=_ranges(demo), alive_at=alive_at)
