@@ -148,3 +148,28 @@ def test_per_centre_intervals_follow_the_interval_rule_with_few_resamples(cohort
             elif e.n_used >= 10 and np.isfinite(e.estimate):
                 assert e.ci_note.startswith("interval not"), (lev, nm, e)  # withdrawn, with the reason
     assert n_finite > 0
+
+
+class _Fixed:
+    """Stand-in predictions: taking rows returns itself (the level's values are patched below)."""
+
+    def take(self, idx):
+        return self
+
+
+def test_a_withdrawn_per_level_interval_keeps_its_reason(monkeypatch):
+    # every resample gives the same values as the level itself: the interval rule
+    # (intervals.guard) withdraws each interval as zero-width, and the reason must reach
+    # the LevelEstimate instead of an empty cell
+    from workbench.validation import groups
+
+    names = groups.group_metric_names(H)
+    values = np.linspace(0.6, 0.1, len(names))
+    monkeypatch.setattr(groups, "_level_values", lambda preds, *a, **k: {m: values.copy() for m in preds})
+    block = groups.level_block({"cox": (_Fixed(), _Fixed())}, np.zeros(40), None, "km", H, None, {},
+                               replicates=12, seed=1, conf_level=0.95)
+    assert set(block["cox"]) == set(names)
+    for nm, e in block["cox"].items():
+        assert np.isnan(e.ci_lower) and np.isnan(e.ci_upper), (nm, e)
+        assert e.ci_note == "interval not computable: the resampled values do not vary", (nm, e)
+        assert e.estimate == pytest.approx(values[names.index(nm)]) and e.n_used == 12
