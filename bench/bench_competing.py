@@ -20,7 +20,9 @@ Monte Carlo SEs next to the nominal value:
    S(t | alive at s) for s = 0.5, 1.0 and t = s + 0.5, s + 1 under a Weibull proportional-
    hazards truth (shape 1.3, scale 0.3, log HR 0.7 for a binary group and 0.4 for a normal
    covariate), uniform(0.5, 4) censoring: the Cox route for two fixed patients and the
-   Kaplan-Meier route per group.
+   Kaplan-Meier route per group; and the bootstrap route of the patient estimate
+   (workbench.competing.conditional.refit_ratio_limits: percentiles of S_b(t) / S_b(s)
+   over ``--boot`` Cox models refitted on bootstrap samples), for the same two patients.
 4. Time-dependent AUC for cause 1 at t = 1 (workbench.competing.metrics.competing_auc,
    definition 2 of Blanche et al. 2013) of the marker b1'Z on the Fine-Gray cohorts (normal
    covariates): coverage of its 95% interval (influence-function SE) against the true AUC
@@ -39,7 +41,11 @@ import numpy as np
 import pandas as pd
 
 from workbench.competing.cif import aalen_johansen, incidence_at
-from workbench.competing.conditional import conditional_survival_cox, conditional_survival_km
+from workbench.competing.conditional import (
+    conditional_survival_cox,
+    conditional_survival_km,
+    refit_ratio_limits,
+)
 from workbench.competing.metrics import competing_auc
 from workbench.competing.outcome import make_competing_outcome
 from workbench.competing.regression import fit_fine_gray
@@ -123,7 +129,7 @@ def true_conditional(x, s, t):
 # ------------------------------------------------------------ one cohort
 
 
-def one_cohort(seed, n):
+def one_cohort(seed, n, boot=0):
     """All three studies on cohorts drawn from one seed; returns a dict of arrays."""
     rng = np.random.default_rng(seed)
     out = {}
@@ -161,13 +167,28 @@ def one_cohort(seed, n):
         truth_g = group_survival(u) / group_survival(s)
         km_hits.append((k.lower[:, 0] <= truth_g) & (truth_g <= k.upper[:, 0]))
     out["cs_cox"] = np.array(cox_hits)  # (landmarks, patients)
+    if boot:
+        times = sorted({v for pair in CS_LANDMARKS for v in pair})
+        draws = []  # (boot, patients, times): S_b(t) of each refitted model, from S(t | alive at 0)
+        for _ in range(boot):
+            i = rng.integers(0, n, n)
+            fb = fit_coxph(X[i], t[i], e[i], min_events_per_parameter=0)
+            draws.append(conditional_survival_cox(fb, CS_PATIENTS, times, 0.0).survival)
+        draws = np.array(draws)
+        boot_hits = []
+        for s, u in CS_LANDMARKS:
+            cols = [times.index(s), times.index(u)]
+            lims = [refit_ratio_limits(draws[:, p, cols], 0.95) for p in range(len(CS_PATIENTS))]
+            truth = true_conditional(CS_PATIENTS, s, u)
+            boot_hits.append([(lo[0] <= truth[p]) & (truth[p] <= hi[0]) for p, (lo, hi) in enumerate(lims)])
+        out["cs_boot"] = np.array(boot_hits)  # (landmarks, patients)
     out["cs_km"] = np.array(km_hits)  # (landmarks, groups)
     return out
 
 
-def run(cohorts, n, seed=20261203):
+def run(cohorts, n, seed=20261203, boot=0):
     seeds = np.random.SeedSequence(seed).generate_state(cohorts)
-    return [one_cohort(int(s), n) for s in seeds]
+    return [one_cohort(int(s), n, boot) for s in seeds]
 
 
 def _p(hits):
@@ -183,10 +204,12 @@ def main() -> None:
     ap.add_argument("--cohorts", type=int, default=1000)
     ap.add_argument("--n", type=int, default=200)
     ap.add_argument("--quick", action="store_true", help="100 cohorts, for a quick look")
+    ap.add_argument("--boot", type=int, default=200,
+                    help="refits per cohort for the bootstrap route of study 3 (0 skips it)")
     args = ap.parse_args()
     cohorts = 100 if args.quick else args.cohorts
     t0 = time.perf_counter()
-    rows = run(cohorts, args.n)
+    rows = run(cohorts, args.n, boot=args.boot)
     print(f"{cohorts} cohorts of n = {args.n}; nominal coverage 0.95; MC SE of a proportion "
           "sqrt(p(1-p)/R), of a mean SD/sqrt(R)\n")
 
@@ -222,6 +245,10 @@ def main() -> None:
         for j, who in enumerate(("Cox, patient x=(0,0)", "Cox, patient x=(1,1)")):
             p, se = _p(cox[:, i, j])
             print(f"   {who:<22}{s:>5.1f}{u:>5.1f}{p:>10.3f}{se:>8.3f}")
+        if args.boot:
+            for j, who in enumerate(("bootstrap, x=(0,0)", "bootstrap, x=(1,1)")):
+                p, se = _p(np.array([r["cs_boot"] for r in rows])[:, i, j])
+                print(f"   {who:<22}{s:>5.1f}{u:>5.1f}{p:>10.3f}{se:>8.3f}")
         for g in (0, 1):
             p, se = _p(km[:, i, g])
             print(f"   {'KM, group ' + str(g):<22}{s:>5.1f}{u:>5.1f}{p:>10.3f}{se:>8.3f}")

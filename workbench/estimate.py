@@ -491,11 +491,10 @@ def _conditional(model, cohort, h, since: float, conf_level: float, how: str, bo
         cs = conditional_survival_cox(model.fit_, model._design(cohort), later, since, conf_level=conf_level)
         lo, hi = cs.lower[0], cs.upper[0]
     elif how == "bootstrap":
+        from workbench.competing.conditional import refit_ratio_limits
+
         draws = np.vstack([m.predict_survival(cohort, grid).probs[0] for m in bootstrap_models])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            ratios = draws[:, 1:] / draws[:, :1]
-        a = 100 * (1 - conf_level) / 2
-        lo, hi = np.nanpercentile(ratios, [a, 100 - a], axis=0)
+        lo, hi = refit_ratio_limits(draws, conf_level)
     return tuple(HorizonEstimate(float(t), float(e), float(a_), float(b))
                  for t, e, a_, b in zip(later, est, lo, hi, strict=True))
 

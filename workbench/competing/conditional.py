@@ -26,6 +26,7 @@ __all__ = [
     "conditional_from_curves",
     "conditional_survival_cox",
     "conditional_survival_km",
+    "refit_ratio_limits",
 ]
 
 
@@ -67,6 +68,22 @@ def _check(times, since: float) -> np.ndarray:
             f"after it, got {t.min():g}."
         )
     return t
+
+
+def refit_ratio_limits(draws, conf_level: float) -> tuple[np.ndarray, np.ndarray]:
+    r"""Percentile limits of conditional survival over refitted models.
+
+    ``draws`` holds, for each of B models refitted on bootstrap samples, the survival at
+    the landmark s (first column) and at the later times: the limits are the
+    percentiles of :math:`S_b(t) / S_b(s)` (Efron & Tibshirani 1993, chapter 13), which
+    carry every fitted step's uncertainty. Measured in bench/bench_competing.py (study 3).
+    """
+    draws = np.asarray(draws, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratios = draws[:, 1:] / draws[:, :1]
+    a = 100 * (1 - conf_level) / 2
+    lo, hi = np.nanpercentile(ratios, [a, 100 - a], axis=0)
+    return lo, hi
 
 
 def conditional_survival_cox(fit: CoxPHFit, X, times, since: float, *, conf_level: float = 0.95) -> ConditionalSurvival:
