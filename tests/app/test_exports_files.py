@@ -112,3 +112,29 @@ def test_a_view_gets_its_figure_without_waiting_for_the_others(builders, monkeyp
     png = ex.screen("calibration")  # asked for first by the view: drawn at once
     assert png.startswith(b"\x89PNG") and len(drawn) == 1
     assert ex.get("screens")["calibration"] is png and len(drawn) == 1  # not drawn a second time
+
+
+def _pid(result) -> tuple[int, object]:
+    import os
+
+    return os.getpid(), result
+
+
+def _fails(result):
+    raise ValueError(f"report failed for {result}")
+
+
+def test_the_report_is_built_in_a_worker_process_and_its_errors_reach_the_view():
+    import os
+
+    pid, echoed = exports.run_apart(_pid, {"run": 1})
+    assert pid != os.getpid() and echoed == {"run": 1}  # another process, the result passed whole
+    with pytest.raises(ValueError, match="report failed for 7"):
+        exports.run_apart(_fails, 7)
+
+
+def test_a_result_that_cannot_be_pickled_is_reported_on_here():
+    import os
+
+    pid, _ = exports.run_apart(_pid, threading.Lock())  # locks cannot be pickled
+    assert pid == os.getpid()

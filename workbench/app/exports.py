@@ -2,7 +2,9 @@
 
 :func:`prepare` builds them all in a background thread right after a run finishes, so that the
 Export view finds them ready; the view calls :func:`get`, which waits for that thread or builds
-a file itself when it has not been built. Nothing here touches Streamlit.
+a file itself when it has not been built. The report (20-30 s of drawing and templating) is
+built in a worker process (:func:`run_apart`), so that it never competes with the views for the
+interpreter lock. Nothing here touches Streamlit.
 """
 
 from __future__ import annotations
@@ -10,10 +12,14 @@ from __future__ import annotations
 import importlib
 import io
 import json
+import multiprocessing
+import pickle
 import tempfile
 import threading
 import warnings
 import zipfile
+from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
 
 
@@ -74,6 +80,51 @@ def report_html(result) -> str | None:
     return None if fn is None else fn(result)
 
 
+_POOL: ProcessPoolExecutor | None = None
+_POOL_GUARD = threading.Lock()
+
+
+def _call_pickled(fn, blob: bytes):
+    return fn(pickle.loads(blob))
+
+
+def run_apart(fn, result):
+    """``fn(result)`` in the app's one worker process (started on first use, then kept warm).
+
+    A long build in a thread of the app's own process shares the interpreter lock with the
+    views: drawing a figure while the report was being built took ~6 s instead of ~1 s.
+    ``fn`` must be a module-level function. Falls back to calling it here when ``result``
+    cannot be pickled or the worker process cannot be started or dies; an exception
+    raised by ``fn`` itself reaches the caller as it would here.
+    """
+    global _POOL
+    try:
+        blob = pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL)
+    except Exception:  # noqa: BLE001 - e.g. a stand-in result in tests, or an unpicklable object
+        return fn(result)
+    with _POOL_GUARD:
+        try:
+            if _POOL is None:
+                _POOL = ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("spawn"))
+            future = _POOL.submit(_call_pickled, fn, blob)
+        except (OSError, RuntimeError, BrokenProcessPool):
+            _POOL = None
+            future = None
+    if future is None:
+        return fn(result)
+    try:
+        return future.result()
+    except BrokenProcessPool:
+        with _POOL_GUARD:
+            _POOL = None
+        return fn(result)
+
+
+def report_html_apart(result) -> str | None:
+    """:func:`report_html` in the worker process (:func:`run_apart`)."""
+    return run_apart(report_html, result)
+
+
 def figures(result) -> dict:
     """The run's standard figures (name -> matplotlib Figure), as the Results view shows them."""
     mod = _module("workbench.report.figureset")
@@ -85,7 +136,7 @@ def screens(exports) -> dict:
     return {name: exports.screen(name) for name in (exports.get("figures") or {}) if name != "nomogram"}
 
 
-BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
+BUILDERS = {"figures": figures, "report": report_html_apart, "json": results_json, "folder": results_zip,
             "bundle": bundle_zip}
 
 
