@@ -418,6 +418,11 @@ def _patients(patient, scales: list[NomogramScales]) -> list[PatientPoints | Non
     return out
 
 
+def _notes_for(scales: NomogramScales, notes, imaging_notes) -> list[str]:
+    imaging = any(t.name == SIGNATURE_TERM for t in scales.terms)
+    return [*(notes or ()), *((imaging_notes or ()) if imaging else ())]
+
+
 def plot_nomogram(
     scales: NomogramScales | Sequence[NomogramScales],
     *,
@@ -429,6 +434,7 @@ def plot_nomogram(
     ax=None,
     notes: Sequence[str] | None = None,
     intervals: Sequence[Mapping | None] | None = None,
+    imaging_notes: Sequence[str] | None = None,
 ):
     """Draw one or more nomograms on a common page layout.
 
@@ -458,6 +464,9 @@ def plot_nomogram(
         Warnings about the patient that the scales cannot know, printed under each panel
         with a "!" (e.g. "scanner_D was not in the training network: its features were
         not harmonised"). Values outside the training range are flagged automatically.
+    imaging_notes : sequence of str, optional
+        Like ``notes``, but printed only under panels with an imaging signature axis
+        (a note about the patient's scanner says nothing about the clinical model).
 
     Notes
     -----
@@ -491,7 +500,8 @@ def plot_nomogram(
             bbox = ax.get_position()
             geo = _geometry(bbox.width * ax.figure.get_figwidth() * 72.0, fs, right_pt, label_pt)
             rows = _layout(items[0], _term_block(items[0], geo, measure), geo, measure)
-            _add_notes(rows, _panel_notes(items[0], pats[0], list(notes or ()), ivs[0]), geo, measure)
+            _add_notes(rows, _panel_notes(items[0], pats[0], _notes_for(items[0], notes, imaging_notes), ivs[0]),
+                       geo, measure)
             _draw_panel(ax, items[0], rows, geo, measure, titles[0], pats[0], ivs[0])
             return ax
         w = column_width_inches(width)
@@ -501,9 +511,8 @@ def plot_nomogram(
         # side by side, pad the shorter term block so total-points and survival axes line up
         block = max(_term_block(s, geo, measure) for s in items) if layout == "columns" else 0.0
         layouts = [_layout(s, block, geo, measure) for s in items]
-        extra = list(notes) if notes else []
         for sc, rows, pp, iv in zip(items, layouts, pats, ivs, strict=True):
-            _add_notes(rows, _panel_notes(sc, pp, extra, iv), geo, measure)
+            _add_notes(rows, _panel_notes(sc, pp, _notes_for(sc, notes, imaging_notes), iv), geo, measure)
         heights = [(sum(r.height for r in rows) + 0.3) * ROW_INCHES for rows in layouts]
         head, foot = 0.22, 0.3
         if layout == "columns":

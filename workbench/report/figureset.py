@@ -96,7 +96,8 @@ def nomogram_figure(result, *, patient=None, layout="columns", width="double", n
         raise WorkbenchError("the study fits no Cox model, so there is no nomogram to draw.")
     if width == "single" and layout == "columns" and len(scales) > 1:
         layout = "rows"  # two panels side by side do not fit one journal column
-    return plot_nomogram(scales, patient=patient, layout=layout, width=width, notes=notes,
+    # the notes (patient_notes) are about the patient's scanner: only the imaging panel gets them
+    return plot_nomogram(scales, patient=patient, layout=layout, width=width, imaging_notes=notes,
                          intervals=intervals if patient_row is not None else None)
 
 

@@ -140,3 +140,16 @@ def test_survival_ticks_are_regular_tenths(demo):
         # every tick sits where the scale gives that survival
         for k in s.ticks:
             assert float(s.survival(k.points)) == pytest.approx(k.value, abs=1e-9)
+
+
+def test_a_scanner_note_is_printed_under_the_imaging_panel_only(demo, demo_two_models):
+    cohort, sig, sc = demo
+    spec, _, models = demo_two_models
+    clin = nomogram_scales(models["clinical"], spec.horizons, time_unit="months", median_axis=True)
+    values = patient_values(cohort, 0, sig)
+    note = "scanner_X was not among the training scanners"
+    fig = plot_nomogram([clin, sc], patient=[values, values], imaging_notes=[note], notes=["a note for every panel"])
+    texts = [" ".join(t.get_text() for t in ax.texts).replace("\n", " ") for ax in fig.axes]
+    assert len(texts) == 2
+    assert note not in texts[0] and f"! {note}" in texts[1]  # the clinical panel has no imaging axis
+    assert all("! a note for every panel" in t for t in texts)
