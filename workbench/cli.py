@@ -179,7 +179,7 @@ def _cmd_competing(args) -> int:
     out = check_out_folder(args.out, _protected_inputs(args.study, spec), markers=("competing_results.json",))
     replacing = out.is_dir() and any(out.iterdir())
     bar = None if args.quiet else tqdm_progress("competing-risks bootstrap", file=sys.stderr)
-    result = run_competing(spec, replicates=args.replicates, progress=bar)
+    result = run_competing(spec, replicates=args.replicates, progress=bar, workers=args.workers)
     args.console.show_all(result.warnings)
     with atomic_folder(out) as tmp:
         written = write_competing_folder(result, tmp, figures=not args.no_figures)
@@ -378,6 +378,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", default="competing", metavar="FOLDER", help="results folder (default: competing)")
     p.add_argument("--replicates", type=_count(0), metavar="N",
                    help="override the number of bootstrap replicates (0: apparent performance only)")
+    p.add_argument("--workers", type=_count(1), metavar="N", help="override the number of parallel workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-figures", action="store_true", help="skip the figures")
     p.set_defaults(func=_cmd_competing)

@@ -33,6 +33,7 @@ from workbench.competing.metrics import (
 from workbench.errors import SpecError, WorkbenchError
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.study import StudySpec, dumps_study
+from workbench.validation.backends import run_tasks
 from workbench.validation.plans import _bootstrap_plan, _copy_seed, _root
 
 __all__ = ["METRICS", "CompetingStudyResult", "CompetingValidation", "evaluate_arm", "optimism_table",
@@ -159,13 +160,29 @@ class CompetingValidation:
     caught: tuple = ()
 
 
+def _replicate(task):
+    """One bootstrap replicate: (metrics on the bootstrap rows, on the original rows), or None if a fit failed."""
+    cohort, spec, idx, seed, targets, h, metrics = task
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the full-data fit reported the warnings once
+        try:
+            boot = cohort.take(idx)
+            fitted = _fit_all(boot, spec, seed, targets)
+            return (_with_differences(_evaluate_all(fitted, boot, h, metrics)),
+                    _with_differences(_evaluate_all(fitted, cohort, h, metrics)))
+        except WorkbenchError:
+            return None
+
+
 def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targets=TARGETS, metrics=METRICS,
-                       progress=None) -> CompetingValidation:
+                       progress=None, workers: int | None = None) -> CompetingValidation:
     """Fit on all rows, then Harrell's bootstrap optimism correction (replicate plan of the main engine).
 
     Replicate ``b`` draws its rows and its model seed from the study seed as
     :func:`workbench.validation.resample.validate` does; a replicate whose fit fails
-    (a :class:`WorkbenchError`) is counted and left out.
+    (a :class:`WorkbenchError`) is counted and left out. Replicates run on the study's
+    ``[validation]`` backend and workers (``workers`` overrides the number); the
+    result does not depend on either.
     """
     h = np.asarray(spec.horizons, dtype=float)
     with warnings.catch_warnings(record=True) as caught:
@@ -176,25 +193,19 @@ def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targ
     _app_ss, rep_root = root.spawn(2)
     B = int(replicates)
     plan = _bootstrap_plan(cohort.n, B, rep_root) if B else []
-    rows, failed = [], 0
-    for b, (idx, seed) in enumerate(plan):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # the full-data fit reported the warnings once
-            try:
-                boot = cohort.take(idx)
-                fitted = _fit_all(boot, spec, seed, targets)
-                rows.append((_with_differences(_evaluate_all(fitted, boot, h, metrics)),
-                             _with_differences(_evaluate_all(fitted, cohort, h, metrics))))
-            except WorkbenchError:
-                failed += 1
-        if progress is not None:
-            progress(b + 1, B)
+    v = spec.validation
+    tasks = [(cohort, spec, idx, seed, tuple(targets), h, tuple(metrics)) for idx, seed in plan]
+    results = run_tasks(_replicate, tasks, backend=v.backend, workers=int(v.workers if workers is None else workers),
+                        scheduler=v.scheduler, progress=progress)
+    rows = [r for r in results if r is not None]
+    failed = len(results) - len(rows)
     optimism, corrected = optimism_table(apparent, rows)
     caught_pairs = tuple(caught)
     return CompetingValidation(apparent, optimism, corrected, arms, failed, caught_pairs)
 
 
-def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=None) -> CompetingStudyResult:
+def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=None,
+                  workers: int | None = None) -> CompetingStudyResult:
     """Run the competing-risks analysis of a study.
 
     Parameters
@@ -204,6 +215,8 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
     replicates : int, optional
         Bootstrap replicates (default: the study's ``[validation] replicates``).
     progress : callable(done, total), optional
+    workers : int, optional
+        Parallel workers (default: the study's ``[validation] workers``).
 
     Returns
     -------
@@ -228,7 +241,7 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         prepared = prepare_cohort(spec)
     cohort = prepared.cohort
     h = np.asarray(spec.horizons, dtype=float)
-    v = validate_competing(cohort, spec, replicates=B, progress=progress)
+    v = validate_competing(cohort, spec, replicates=B, progress=progress, workers=workers)
     messages = tuple(dict.fromkeys((w.category.__name__, str(w.message)) for w in [*caught, *v.caught]))
     provenance = {
         "seed": spec.seed,
@@ -238,6 +251,8 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         "started": datetime.fromtimestamp(started, tz=UTC).isoformat(timespec="seconds"),
         "seconds": round(_time.time() - started, 1),
         "replicates": B,
+        "workers": int(spec.validation.workers if workers is None else workers),
+        "backend": spec.validation.backend,
     }
     return CompetingStudyResult(
         spec=spec, study_text=text, prepared=prepared, horizons=h, apparent=v.apparent, optimism=v.optimism,

@@ -143,3 +143,18 @@ def test_public_dataset_matches_reference_libraries(cgvhd_study):
     frame["E"] = (cohort.cause > 0).astype(int)
     np.testing.assert_allclose(all_arm.cause_specific.fit_for(1).coef,
                                CoxPHFitter().fit(frame, "T", "E", fit_options={"precision": 1e-12}).params_.to_numpy(), atol=1e-4)
+
+
+def test_replicates_give_the_same_numbers_on_one_or_two_workers(cgvhd_study):
+    # the replicate plan is drawn before the replicates are sent out, so the worker
+    # processes change the wall time, not the result (public data: load_cgvhd)
+    folder, doc, _ = cgvhd_study
+    spec = study_from_dict(doc, base=folder)
+    one = run_competing(spec, replicates=4, workers=1)
+    two = run_competing(spec, replicates=4, workers=2)
+    assert one.provenance["workers"] == 1 and two.provenance["workers"] == 2
+    assert one.failed == two.failed == 0
+    for key, opt in one.optimism.items():
+        for m, v in opt.items():
+            np.testing.assert_array_equal(v, two.optimism[key][m], err_msg=str((key, m)))
+    assert any(np.any(np.isfinite(v) & (v != 0)) for opt in one.optimism.values() for v in opt.values())
