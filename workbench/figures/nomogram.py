@@ -314,7 +314,7 @@ class _Painter:
             if r.kind == "total":
                 text = format_number(round(pp.total, 1), 4)
             elif r.kind == "survival":
-                text = f"{pp.survival[r.horizon]:.2f}"
+                text = f"{self.s.read_off(pp.survival[r.horizon]):.2f}"
             else:
                 m = pp.median_survival
                 longest = max((k.value for k in self.s.median.ticks), default=None) if self.s.median else None

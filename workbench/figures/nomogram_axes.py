@@ -224,6 +224,10 @@ class NomogramScales:
         One per horizon, in the order given.
     median : MedianScale or None
     time_unit : str
+    risk_of : str
+        When set (e.g. "cancer death"), the probability axes are read as the risk of that
+        event by each horizon (named in a note under the panel), ``1 - survival(total)``: a Fine-Gray model's cumulative
+        incidence, whose complement has the Cox form (:mod:`workbench.competing.nomogram`).
     """
 
     model: str
@@ -235,6 +239,11 @@ class NomogramScales:
     survival: tuple[SurvivalScale, ...]
     median: MedianScale | None = None
     time_unit: str = ""
+    risk_of: str = ""
+
+    def read_off(self, probability: float) -> float:
+        """The number printed for a probability axis value: survival, or the risk when ``risk_of``."""
+        return 1.0 - float(probability) if self.risk_of else float(probability)
 
     @property
     def horizons(self) -> tuple[float, ...]:

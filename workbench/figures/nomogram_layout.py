@@ -207,6 +207,8 @@ def _row_label(r: _Row, scales: NomogramScales) -> str:
         return SUM_AXIS
     if r.kind == "survival":
         u = _unit_singular(scales.time_unit)
+        if scales.risk_of:  # the event is named in the panel title; the rows stay short
+            return f"{format_number(r.horizon)}-{u} risk" if u else f"Risk by {format_number(r.horizon)}"
         return f"{format_number(r.horizon)}-{u} survival" if u else f"Survival at {format_number(r.horizon)}"
     if r.kind == "median":
         return f"Median survival ({scales.time_unit})" if scales.time_unit else "Median survival"
@@ -237,6 +239,9 @@ def _label_width(items, measure: _Measure, fs: float) -> float:
 
 def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str], interval=None) -> list[str]:
     out = []
+    if sc.risk_of:
+        out.append(f"Risk axes: the chance that {sc.risk_of} has occurred by each horizon, with other events "
+                   "competing (cumulative incidence), not the chance of being alive.")
     sig = next((t for t in sc.terms if t.kind == "signature"), None)
     if sig is not None and sig.sd_scale is not None:
         groups = ", ".join(b.label for b in sig.bands)
@@ -263,7 +268,8 @@ def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str],
         if interval:
             unit = f" {sc.time_unit}" if sc.time_unit else ""
             parts = [f"{format_number(h)}{unit} {lo:.2f} to {hi:.2f}" for h, (lo, hi) in sorted(interval.items())]
-            out.append("Shaded bars on the survival axes: 95% interval of this patient's predicted survival "
+            what = f"risk of {sc.risk_of}" if sc.risk_of else "survival"
+            out.append(f"Shaded bars on the {what} axes: 95% interval of this patient's predicted {what} "
                        f"({'; '.join(parts)}).")
         out += [f"! {n}" for n in extra]
     return out

@@ -34,8 +34,7 @@ References
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
-from types import MappingProxyType
+from collections.abc import Sequence
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -53,7 +52,6 @@ from workbench.figures.nomogram_axes import (
     RiskBand,
     SurvivalScale,
     TermScale,
-    _is_missing,
 )
 from workbench.figures.ticks import format_number, nice_log_ticks, nice_ticks
 from workbench.preprocess.clinical import TermInfo, term_contribution
@@ -182,17 +180,18 @@ def _continuous_segments(info, part, scale_fn, ppl) -> tuple[AxisSegment, ...]:
     return tuple(segs)
 
 
-def _survival_ticks(scale: SurvivalScale, axis_max: float) -> tuple[AxisTick, ...]:
+def _survival_ticks(scale: SurvivalScale, axis_max: float, risk: bool = False) -> tuple[AxisTick, ...]:
     """Regular survival ticks: every tenth (0.1 ... 0.9) that falls on the axis, the same step on
     every axis and panel; beyond the last tenth at either end, one tail value (0.95, 0.98, 0.99 or
-    0.05, 0.02, 0.01) may close the axis."""
+    0.05, 0.02, 0.01) may close the axis. With ``risk`` the labels give the risk, 1 - survival
+    (the same set of values, so the same ticks)."""
     min_gap = 0.07 * axis_max
     kept: list[AxisTick] = []
 
     def place(prob) -> None:
         t = float(scale.total_points_for(prob))
         if 0.0 <= t <= axis_max and all(abs(t - k.points) >= min_gap for k in kept):
-            kept.append(AxisTick(format_number(prob, 2), prob, t))
+            kept.append(AxisTick(format_number(round(1.0 - prob, 2) if risk else prob, 2), prob, t))
 
     for p10 in range(1, 10):
         place(p10 / 10)
@@ -220,6 +219,7 @@ def nomogram_scales(
     median_axis: bool = False,
     time_unit: str = "",
     name: str | None = None,
+    risk_of: str = "",
 ) -> NomogramScales:
     """Build the axes and point mappings of a fitted Cox model's nomogram.
 
@@ -242,6 +242,10 @@ def nomogram_scales(
     time_unit : str
     name : str, optional
         Model name shown (default ``model.name``).
+    risk_of : str, optional
+        Read the probability axes as the risk of this event (``1 - S``), for a model
+        whose complement of the predicted risk has the Cox form (a Fine-Gray model's
+        cumulative incidence); no median axis then.
 
     Returns
     -------
@@ -323,13 +327,16 @@ def nomogram_scales(
     scales = []
     for h, s in zip(hz, s0, strict=True):
         base = SurvivalScale(float(h), float(s), (), lp_intercept, ppl)
-        scales.append(SurvivalScale(float(h), float(s), _survival_ticks(base, axis_max), lp_intercept, ppl))
+        scales.append(SurvivalScale(float(h), float(s), _survival_ticks(base, axis_max, bool(risk_of)), lp_intercept,
+                                    ppl))
+    if median_axis and risk_of:
+        raise SpecError("a risk nomogram (risk_of) has no median-survival axis; leave median_axis off.")
     median = _median_scale(fit, lp_intercept, ppl, axis_max) if median_axis else None
     return NomogramScales(
         model=name if name is not None else getattr(model, "name", ""),
         terms=tuple(terms), points_per_lp=ppl, lp_intercept=lp_intercept,
         total_ticks=total_ticks, total_axis_max=axis_max, survival=tuple(scales),
-        median=median, time_unit=time_unit,
+        median=median, time_unit=time_unit, risk_of=risk_of,
     )
 
 
@@ -385,64 +392,8 @@ def _median_scale(fit, lp_intercept: float, ppl: float, axis_max: float) -> Medi
     return MedianScale(tuple(sorted(ticks, key=lambda k: k.points)), t, H)
 
 
-# ------------------------------------------------------------------ reading a patient
-
-
-def points_for_patient(scales: NomogramScales, raw_values: Mapping) -> PatientPoints:
-    """Read one patient off the nomogram's scales.
-
-    Parameters
-    ----------
-    scales : NomogramScales
-    raw_values : mapping
-        Value per axis name (the clinical column names, plus ``"imaging_signature"``
-        for the signature score), as in the clinical table: numbers, level
-        names, ``"<0.5"`` below a detection limit. A missing value is replaced
-        by the training imputation value where the model defines one.
-
-    Returns
-    -------
-    PatientPoints
-    """
-    absent = [t.name for t in scales.terms if t.name not in raw_values]
-    if absent:
-        raise SpecError(
-            f"the patient has no value for {', '.join(map(repr, absent))}; the nomogram of "
-            f"{scales.model!r} needs every one of: {', '.join(t.name for t in scales.terms)}."
-        )
-    values, points, imputed, outside = {}, {}, [], []
-    for t in scales.terms:
-        vals, miss = t.fill_missing([raw_values[t.name]])
-        if miss[0]:
-            imputed.append(t.name)
-        values[t.name] = vals[0]
-        p = float(t.points(vals)[0])
-        if not np.isfinite(p):
-            raise SpecError(f"{t.label}: the value {raw_values[t.name]!r} gives no points on the nomogram.")
-        points[t.name] = p
-        rng = t.training_range
-        v = vals[0]
-        if rng is not None and isinstance(v, (int, float, np.floating, np.integer)) and np.isfinite(float(v)):
-            if not rng[0] <= float(v) <= rng[1]:
-                outside.append(t.name)
-    total = float(sum(points.values()))
-    surv = {s.horizon: float(s.survival(total)) for s in scales.survival}
-    med = scales.median_survival(total) if scales.median is not None else None
-    return PatientPoints(
-        values=MappingProxyType(values), points=MappingProxyType(points), total=total,
-        linear_predictor=float(scales.linear_predictor(total)), survival=MappingProxyType(surv),
-        median_survival=med, imputed=tuple(imputed), outside=tuple(outside),
-    )
-
-
-def patient_values(cohort, index: int, signature_scores: ArrayLike | None = None) -> dict:
-    """Raw values of one cohort row as :func:`points_for_patient` expects them."""
-    row = cohort.clinical.iloc[int(index)]
-    out = {str(k): (None if _is_missing(v) else v) for k, v in row.items()}
-    if signature_scores is not None:
-        out[SIGNATURE_TERM] = float(np.asarray(signature_scores, dtype=float)[int(index)])
-    return out
-
+# reading a patient and the points table live in their own modules; re-exported here for existing imports
+from workbench.figures.nomogram_reading import patient_values, points_for_patient  # noqa: E402
 
 # the points table lives in its own module; re-exported here for existing imports
 from workbench.figures.nomogram_table import (  # noqa: E402

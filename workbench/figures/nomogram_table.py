@@ -96,12 +96,16 @@ def points_table(
     tot = np.arange(min(lo_tot, 0.0), hi_tot + total_step / 2, total_step)
     surv = {"total_points": tot, "linear_predictor": scales.linear_predictor(tot)}
     for s in scales.survival:
-        surv[f"survival_{format_number(s.horizon)}"] = s.survival(tot)
+        if scales.risk_of:
+            surv[f"risk_{format_number(s.horizon)}"] = 1.0 - s.survival(tot)
+        else:
+            surv[f"survival_{format_number(s.horizon)}"] = s.survival(tot)
     return PointsTable(terms, pd.DataFrame(surv), scales.model, scales.horizons)
 
 
 def write_points_table(table: PointsTable, path) -> tuple:
-    """Write the points table as two CSV files: ``<path>`` (terms) and ``<stem>_survival.csv``.
+    """Write the points table as two CSV files: ``<path>`` (terms) and ``<stem>_survival.csv``
+    (``<stem>_risk.csv`` for a risk nomogram).
 
     Returns the two paths written.
     """
@@ -113,7 +117,8 @@ def write_points_table(table: PointsTable, path) -> tuple:
     p.parent.mkdir(parents=True, exist_ok=True)
     terms = table.terms.assign(points=table.terms["points"].round(2))
     terms.to_csv(p, index=False)
-    q = p.with_name(f"{p.stem}_survival.csv")
+    kind = "risk" if any(str(c).startswith("risk_") for c in table.survival.columns) else "survival"
+    q = p.with_name(f"{p.stem}_{kind}.csv")
     table.survival.round({"total_points": 2, "linear_predictor": 4}).round(4).to_csv(q, index=False)
     return p, q
 

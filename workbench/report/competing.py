@@ -72,12 +72,20 @@ def competing_results_dict(result: CompetingStudyResult) -> dict:
         "validation": {"method": "bootstrap optimism correction (Harrell)", "replicates": result.replicates,
                        "failed_replicates": result.failed,
                        "signature": "refitted in every replicate on the bootstrap rows, outcome of the target "
-                                    "cause with other causes censored; its coefficient is the in-sample one"},
+                                    "cause with other causes censored; its coefficient is "
+                                    + _coefficient_words(result.spec.models.combined.coefficient)},
         "targets": TARGET_LABELS,
         "metrics": METRIC_LABELS,
         "results": rows,
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
     }
+
+
+def _coefficient_words(coefficient: str) -> str:
+    if coefficient == "prevalidated":
+        return ("estimated on cross-fitted (out-of-fold) signature scores, in the whole cohort and in every "
+                "replicate")
+    return "the in-sample one (optimistic)"
 
 
 def _calibration_groups(result: CompetingStudyResult, n_groups: int = 5) -> dict:
@@ -96,7 +104,12 @@ def _calibration_groups(result: CompetingStudyResult, n_groups: int = 5) -> dict
 
 
 def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool = True) -> list[str]:
-    """Write competing_results.json and (unless ``figures`` is False) the two figures into ``out``."""
+    """Write competing_results.json and (unless ``figures`` is False) the figures into ``out``.
+
+    Figures: the Aalen-Johansen incidence of every cause, the apparent calibration of the
+    cause-specific models, and the Fine-Gray nomograms with their points tables (the
+    risk of the cause of interest by each horizon, read from total points).
+    """
     from workbench.figures.competing import plot_cause_incidence, plot_incidence_calibration
     from workbench.figures.export import save_figure
 
@@ -119,7 +132,38 @@ def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool =
                                              title="development cohort, apparent (the models were fitted here)")
             save_figure(fig, out / f"incidence_calibration_{width}", widths=(None,))
     written += ["cumulative_incidence_*", "incidence_calibration_*"]
+    written += _write_incidence_nomogram(result, out, f"the event coded '{labels[1]}'")
     return written
+
+
+NOMOGRAM_TITLES = {"clinical": "Clinical, Fine-Gray", "combined": "Clinical + signature, Fine-Gray"}
+
+
+def _write_incidence_nomogram(result: CompetingStudyResult, out: Path, cause_label: str) -> list[str]:
+    """The Fine-Gray nomograms (risk of the cause of interest) as figures and points tables."""
+    from workbench.competing.nomogram import incidence_nomogram_scales
+    from workbench.figures.export import save_figure
+    from workbench.figures.nomogram import plot_nomogram
+    from workbench.figures.nomogram_table import points_table, write_points_table
+
+    built = {}
+    for model in ("clinical", "combined"):
+        arm = result.arms.get(("cause", model))
+        if arm is None or arm.fine_gray is None:
+            continue
+        built[model] = incidence_nomogram_scales(arm, result.cohort, result.horizons, cause_label=cause_label,
+                                                 time_unit=result.cohort.time_unit,
+                                                 name=NOMOGRAM_TITLES[model])
+    scales = list(built.values())
+    if not scales:
+        return []
+    for width in ("single", "double"):
+        fig = plot_nomogram(scales, layout="rows" if width == "single" and len(scales) > 1 else "columns",
+                            width=width)
+        save_figure(fig, out / f"incidence_nomogram_{width}", widths=(None,))
+    for model, sc in built.items():
+        write_points_table(points_table(sc), out / f"incidence_nomogram_points_{model}.csv")
+    return ["incidence_nomogram_*"]
 
 
 def format_competing(result: CompetingStudyResult) -> str:

@@ -55,9 +55,13 @@ def test_demo_writes_results_figures_and_provenance(demo_run, capsys):
     counts = json.loads((DEMO / "truth.json").read_text())["competing"]["cohorts"]["training"]["counts"]
     assert doc["cohort"]["causes"] == {"censored": counts["alive"], "cancer": counts["cancer"],
                                        "other": counts["other"]}
-    for stem in ("cumulative_incidence", "incidence_calibration"):
+    for stem in ("cumulative_incidence", "incidence_calibration", "incidence_nomogram"):
         for width in ("single", "double"):
             assert (out / f"{stem}_{width}.png").stat().st_size > 1000
+    for model in ("clinical", "combined"):  # the Fine-Gray nomograms' points tables (terms, then risk by total)
+        assert (out / f"incidence_nomogram_points_{model}.csv").stat().st_size > 100
+        assert (out / f"incidence_nomogram_points_{model}_risk.csv").read_text().startswith(
+            "total_points,linear_predictor,risk_12,risk_24,risk_36")
     assert doc["validation"]["replicates"] == 2
     # corrected = apparent - optimism, row by row
     for r in doc["results"]:
