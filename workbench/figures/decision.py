@@ -14,8 +14,11 @@ from __future__ import annotations
 from collections.abc import Mapping
 
 import numpy as np
+from matplotlib import rcParams
+from matplotlib.font_manager import FontProperties
 
 from workbench.errors import SpecError
+from workbench.figures.measure import wrap_to_width
 from workbench.figures.style import INK, NEUTRAL, figure_and_axes, model_styles, style_context
 from workbench.figures.ticks import format_number
 from workbench.metrics.decision import DecisionCurveResult, net_benefit
@@ -95,5 +98,7 @@ def plot_decision_curve(
         else:
             a.legend(loc="upper right")
         if title:
-            a.set_title(title, loc="left")
+            # a long title wraps: it starts at the axes' left edge, right of the y labels
+            size = FontProperties(size=rcParams["axes.titlesize"]).get_size_in_points()
+            a.set_title(wrap_to_width(title, a.figure, size, fraction=0.8), loc="left")
         return fig if ax is None else a

@@ -36,10 +36,10 @@ class TextMeasure:
         return _WIDTHS[key]
 
 
-def wrap_to_width(text: str, fig, size: float) -> str:
-    """Break ``text`` into lines that fit the figure's width at ``size`` points."""
+def wrap_to_width(text: str, fig, size: float, fraction: float = 0.97) -> str:
+    """Break ``text`` into lines that fit ``fraction`` of the figure's width at ``size`` points."""
     meas = TextMeasure()
-    limit = fig.get_figwidth() * 72.0 * 0.97
+    limit = fig.get_figwidth() * 72.0 * fraction
     lines: list[str] = []
     for w in text.split(" "):
         if lines and meas.width(f"{lines[-1]} {w}", size) <= limit:

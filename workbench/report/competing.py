@@ -132,8 +132,41 @@ def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool =
                                              title="development cohort, apparent (the models were fitted here)")
             save_figure(fig, out / f"incidence_calibration_{width}", widths=(None,))
     written += ["cumulative_incidence_*", "incidence_calibration_*"]
+    written += _write_decision_curve(result, out, labels[1])
     written += _write_incidence_nomogram(result, out, f"the event coded '{labels[1]}'")
     return written
+
+
+DECISION_LABELS = {"clinical": "Clinical (cause-specific Cox)", "combined": "Clinical + signature (cause-specific Cox)"}
+
+
+def _write_decision_curve(result: CompetingStudyResult, out: Path, cause_label: str) -> list[str]:
+    """Net benefit of acting on the predicted risk of the cause of interest (middle horizon, apparent)."""
+    from workbench.competing.metrics import competing_net_benefit
+    from workbench.figures.decision import plot_decision_curve
+    from workbench.figures.export import save_figure
+
+    h = result.horizons
+    t0 = float(h[len(h) // 2])
+    y = target_outcome(result.cohort, "cause")
+    curves = {}
+    for model in ("clinical", "combined"):
+        arm = result.arms.get(("cause", model))
+        if arm is not None:
+            try:
+                curves[DECISION_LABELS[model]] = competing_net_benefit(
+                    y, arm.predict(result.cohort, [t0], "cause_specific"), t0)
+            except WorkbenchError:
+                continue
+    if not curves:
+        return []
+    unit = result.cohort.time_unit
+    title = (f"Risk of event '{cause_label}' by {t0:g} {unit}, other events competing; development cohort, "
+             "apparent (the models were fitted here)")
+    for width in ("single", "double"):
+        fig = plot_decision_curve(curves, time_unit=unit, width=width, title=title)
+        save_figure(fig, out / f"incidence_decision_curve_{width}", widths=(None,))
+    return ["incidence_decision_curve_*"]
 
 
 NOMOGRAM_TITLES = {"clinical": "Clinical, Fine-Gray", "combined": "Clinical + signature, Fine-Gray"}

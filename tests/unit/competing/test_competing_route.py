@@ -55,7 +55,7 @@ def test_demo_writes_results_figures_and_provenance(demo_run, capsys):
     counts = json.loads((DEMO / "truth.json").read_text())["competing"]["cohorts"]["training"]["counts"]
     assert doc["cohort"]["causes"] == {"censored": counts["alive"], "cancer": counts["cancer"],
                                        "other": counts["other"]}
-    for stem in ("cumulative_incidence", "incidence_calibration", "incidence_nomogram"):
+    for stem in ("cumulative_incidence", "incidence_calibration", "incidence_nomogram", "incidence_decision_curve"):
         for width in ("single", "double"):
             assert (out / f"{stem}_{width}.png").stat().st_size > 1000
     for model in ("clinical", "combined"):  # the Fine-Gray nomograms' points tables (terms, then risk by total)
