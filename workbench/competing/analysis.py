@@ -24,12 +24,8 @@ import numpy as np
 
 from workbench.cohort.core import Cohort
 from workbench.competing.cif import CumulativeIncidenceResult, aalen_johansen
+from workbench.competing.external import METRICS, external_block, score_curves, with_differences
 from workbench.competing.fitting import TARGETS, FittedArm, fit_arm, target_outcome
-from workbench.competing.metrics import (
-    competing_auc,
-    competing_brier,
-    competing_smoothed_calibration,
-)
 from workbench.errors import SpecError, WorkbenchError
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.study import StudySpec, dumps_study
@@ -39,8 +35,6 @@ from workbench.validation.plans import _bootstrap_plan, _copy_seed, _root
 __all__ = ["METRICS", "CompetingStudyResult", "CompetingValidation", "evaluate_arm", "optimism_table",
            "run_competing", "validate_competing"]
 
-METRICS = ("auc", "brier", "ipa", "ici")
-"""Per horizon: competing AUC (definition 2), IPCW Brier score, IPA, ICI."""
 
 
 def _methods(target: str) -> tuple[str, ...]:
@@ -57,27 +51,8 @@ def evaluate_arm(arm: FittedArm, cohort: Cohort, target: str, method: str, horiz
 
     Censoring weights come from ``cohort`` itself (its own censoring distribution).
     """
-    y = target_outcome(cohort, target)
     h = np.asarray(horizons, dtype=float)
-    curves = arm.predict(cohort, h, method)
-    out = {m: np.full(h.size, np.nan) for m in METRICS}
-    for j, t0 in enumerate(h):
-        try:
-            out["auc"][j] = competing_auc(y, y, curves, t0).auc
-        except WorkbenchError:
-            pass
-        if "ici" not in metrics:
-            continue
-        try:
-            out["ici"][j] = competing_smoothed_calibration(y, curves, t0).ici
-        except WorkbenchError:
-            pass
-    try:
-        b = competing_brier(y, y, curves, h)
-        out["brier"], out["ipa"] = np.asarray(b.brier, float), np.asarray(b.ipa, float)
-    except WorkbenchError:
-        pass
-    return out
+    return score_curves(target_outcome(cohort, target), arm.predict(cohort, h, method), h, metrics)
 
 
 def _fit_all(train: Cohort, spec: StudySpec, seed: int, targets=TARGETS) -> dict:
@@ -94,15 +69,6 @@ def _evaluate_all(arms: dict, cohort: Cohort, horizons, metrics=METRICS) -> dict
             for (target, model), arm in arms.items() for method in _methods(target)}
 
 
-def _with_differences(scores: dict) -> dict:
-    out = dict(scores)
-    for (target, model, method), s in scores.items():
-        if model == "combined":
-            base = scores[(target, "clinical", method)]
-            out[(target, "combined_minus_clinical", method)] = {m: s[m] - base[m] for m in METRICS}
-    return out
-
-
 @dataclass(frozen=True)
 class CompetingStudyResult:
     """Everything the competing-risks route measured.
@@ -110,7 +76,9 @@ class CompetingStudyResult:
     ``apparent`` and ``corrected`` map (target, model, method) -> {metric: array over
     horizons}; model ``"combined_minus_clinical"`` holds the differences. ``arms``
     are the models fitted on all rows (for figures), ``incidence`` the
-    Aalen-Johansen curves of every cause.
+    Aalen-Johansen curves of every cause. With an ``[external]`` block, ``external``
+    holds the fixed predictions' metrics on the external cohort with their intervals
+    (:func:`workbench.competing.external.external_block`).
     """
 
     spec: StudySpec
@@ -126,6 +94,9 @@ class CompetingStudyResult:
     arms: dict
     provenance: dict
     warnings: tuple = field(default=())
+    external: dict | None = None
+    external_prepared: PreparedCohort | None = None
+    external_replicates: int = 0
 
     @property
     def cohort(self) -> Cohort:
@@ -168,8 +139,8 @@ def _replicate(task):
         try:
             boot = cohort.take(idx)
             fitted = _fit_all(boot, spec, seed, targets)
-            return (_with_differences(_evaluate_all(fitted, boot, h, metrics)),
-                    _with_differences(_evaluate_all(fitted, cohort, h, metrics)))
+            return (with_differences(_evaluate_all(fitted, boot, h, metrics)),
+                    with_differences(_evaluate_all(fitted, cohort, h, metrics)))
         except WorkbenchError:
             return None
 
@@ -188,7 +159,7 @@ def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targ
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         arms = _fit_all(cohort, spec, int(spec.seed), targets)
-        apparent = _with_differences(_evaluate_all(arms, cohort, h, metrics))
+        apparent = with_differences(_evaluate_all(arms, cohort, h, metrics))
     root = _copy_seed(_root(int(spec.seed)))
     _app_ss, rep_root = root.spawn(2)
     B = int(replicates)
@@ -242,7 +213,18 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
     cohort = prepared.cohort
     h = np.asarray(spec.horizons, dtype=float)
     v = validate_competing(cohort, spec, replicates=B, progress=progress, workers=workers)
+    external = ext_prepared = None
+    if spec.external is not None:
+        with warnings.catch_warnings(record=True) as caught_ext:
+            warnings.simplefilter("always")
+            ext_prepared = prepare_cohort(spec, external=True, unreproducible=prepared.unreproducible)
+            external = validate_competing_external(v.arms, ext_prepared.cohort, spec, replicates=B)
+        caught = [*caught, *caught_ext]
     messages = tuple(dict.fromkeys((w.category.__name__, str(w.message)) for w in [*caught, *v.caught]))
+    if ext_prepared is not None:
+        provenance_ext = {"external_data_hash": ext_prepared.cohort.source.data_hash}
+    else:
+        provenance_ext = {}
     provenance = {
         "seed": spec.seed,
         "data_hash": cohort.source.data_hash,
@@ -253,9 +235,30 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         "replicates": B,
         "workers": int(spec.validation.workers if workers is None else workers),
         "backend": spec.validation.backend,
+        **provenance_ext,
     }
     return CompetingStudyResult(
         spec=spec, study_text=text, prepared=prepared, horizons=h, apparent=v.apparent, optimism=v.optimism,
         corrected=v.corrected, replicates=B, failed=v.failed, incidence=aalen_johansen(cohort.time, cohort.cause),
-        arms=v.arms, provenance=provenance, warnings=messages,
+        arms=v.arms, provenance=provenance, warnings=messages, external=external, external_prepared=ext_prepared,
+        external_replicates=B if external is not None else 0,
     )
+
+
+def validate_competing_external(arms: dict, external: Cohort, spec: StudySpec, *, replicates: int) -> dict:
+    """Metrics of the whole-cohort fits on an external cohort, with resampling intervals.
+
+    Every arm predicts the external patients once (their new scanners harmonised by the
+    signature's own policy); :func:`workbench.competing.external.external_block` resamples
+    the patients ``replicates`` times from a seed of its own drawn from the study seed.
+    """
+    if external.cause is None:
+        raise SpecError("the external cohort has no cause codes; it needs the same event column and codes.")
+    h = np.asarray(spec.horizons, dtype=float)
+    curves = {(target, model, method): arm.predict(external, h, method)
+              for (target, model), arm in arms.items() for method in _methods(target)
+              if not (method == "fine_gray" and arm.fine_gray is None)}
+    outcomes = {target: target_outcome(external, target) for target, _ in arms}
+    seed = np.random.SeedSequence([int(spec.seed), 0x6578])  # "ex": a stream apart from the replicates
+    return external_block(curves, outcomes, h, replicates=int(replicates), seed=seed,
+                          conf_level=0.95)

@@ -78,7 +78,34 @@ def competing_results_dict(result: CompetingStudyResult) -> dict:
         "metrics": METRIC_LABELS,
         "results": rows,
         "warnings": [{"category": c, "message": m} for c, m in result.warnings],
+        "external": _external_dict(result, labels),
     }
+
+
+def _external_dict(result: CompetingStudyResult, labels: dict) -> dict | None:
+    """The external cohort's metrics of the whole-cohort fits, with their intervals (or None)."""
+    if result.external is None:
+        return None
+    from workbench.competing.external import EXTERNAL_INTERVAL_RULE
+
+    ext = result.external_prepared.cohort
+    rows = []
+    for (target, model, method), block in result.external.items():
+        for m, v in block.items():
+            for j, t in enumerate(result.horizons):
+                row = {"target": target, "model": model, "method": method, "metric": m, "horizon": float(t),
+                       "estimate": _num(v["estimate"][j]), "lower": _num(v["lower"][j]),
+                       "upper": _num(v["upper"][j])}
+                if v["note"][j]:
+                    row["interval_note"] = v["note"][j]
+                rows.append(row)
+    return {"n": ext.n,
+            "causes": {"censored": int(np.sum(ext.cause == 0)), labels[1]: int(np.sum(ext.cause == 1)),
+                       labels[2]: int(np.sum(ext.cause == 2))},
+            "replicates": result.external_replicates, "conf_level": 0.95,
+            "interval": EXTERNAL_INTERVAL_RULE + " of the external patients; predictions of the models fitted on "
+                        "the whole development cohort, fixed",
+            "results": rows}
 
 
 def _coefficient_words(coefficient: str) -> str:
@@ -217,5 +244,16 @@ def format_competing(result: CompetingStudyResult) -> str:
         name = f"{'cause ' + labels[1] if target == 'cause' else 'all-cause'} {model} [{method}]"
         cells = ["/".join(f"{x:.3f}" for x in v[m]) for m in ("auc", "brier", "ici")]
         lines.append(f"  {name:<58} {' | '.join(cells)}")
+    if result.external is not None:
+        e = result.external_prepared.cohort
+        lines.append(f"External cohort, {e.n} patients ({int(np.sum(e.cause == 1))} {labels[1]}, "
+                     f"{int(np.sum(e.cause == 2))} {labels[2]}); AUC with 95% CI "
+                     f"({result.external_replicates} resamples):")
+        for (target, model, method), block in result.external.items():
+            name = f"{'cause ' + labels[1] if target == 'cause' else 'all-cause'} {model} [{method}]"
+            a = block["auc"]
+            cells = [f"{x:.3f} ({lo:.3f} to {hi:.3f})" if np.isfinite(lo) else f"{x:.3f} (no interval)"
+                     for x, lo, hi in zip(a["estimate"], a["lower"], a["upper"], strict=True)]
+            lines.append(f"  {name:<58} {'; '.join(cells)}")
     lines.append(f"Caution: {CAUTION}")
     return "\n".join(lines)

@@ -63,6 +63,14 @@ def test_demo_writes_results_figures_and_provenance(demo_run, capsys):
         assert (out / f"incidence_nomogram_points_{model}_risk.csv").read_text().startswith(
             "total_points,linear_predictor,risk_12,risk_24,risk_36")
     assert doc["validation"]["replicates"] == 2
+    # the external hospital: the whole-cohort fits judged there (2 resamples: too few for intervals)
+    ext = json.loads((DEMO / "truth.json").read_text())["competing"]["cohorts"]["external"]["counts"]
+    assert doc["external"]["n"] == sum(ext.values())
+    assert doc["external"]["causes"] == {"censored": ext["alive"], "cancer": ext["cancer"], "other": ext["other"]}
+    auc = [r for r in doc["external"]["results"] if r["metric"] == "auc" and r["target"] == "cause"]
+    assert {r["model"] for r in auc} == {"clinical", "combined", "combined_minus_clinical"}
+    assert all(0.5 < r["estimate"] < 1 and r["lower"] is None for r in auc if r["model"] != "combined_minus_clinical")
+    assert doc["provenance"]["external_data_hash"]
     # corrected = apparent - optimism, row by row
     for r in doc["results"]:
         if r["apparent"] is not None and r["optimism"] is not None:
