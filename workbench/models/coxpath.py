@@ -52,8 +52,10 @@ from threadpoolctl import ThreadpoolController
 from workbench.errors import ConvergenceWarning, ModelError
 from workbench.models.coxcd import solve_penalised_quadratic
 from workbench.models.coxlik import (
-    gradient_and_weights,
-    hessian_block,
+    hessian_cross,
+    hessian_factors,
+    hessian_from_factors,
+    likelihood_pieces,
     make_risk_sets,
     null_deviance,
 )
@@ -61,6 +63,7 @@ from workbench.models.coxlik import (
 _MIN_ALPHAS = 5  # the flat-deviance stop compares with the penalty this many steps back
 _FLAT = 0.999
 _BIG = 1e35  # a penalty that keeps every penalised coefficient at zero
+_RENEW = 0.1  # a fresh Hessian when a Newton step shrinks the update by less than this
 
 
 @lru_cache(maxsize=1)
@@ -110,14 +113,16 @@ def rescale_penalty_factor(penalty_factor, n_features: int) -> np.ndarray:
 class _Problem:
     """Sorted, centred data and the state carried from one penalty to the next."""
 
-    def __init__(self, X, time, event, weights, pf, l1_ratio, tol):
+    def __init__(self, X, time, event, weights, pf, l1_ratio, tol, ties):
         X = np.asarray(X, dtype=float)
-        self.rs = make_risk_sets(time, event, weights)
+        self.rs = make_risk_sets(time, event, weights, ties)
         self.W = self.rs.total_weight
         if self.W <= 0 or self.rs.dw.sum() <= 0:
             raise ModelError("the weighted data contain no events; the Cox path needs at least one.")
         mean = self.rs.w @ X[self.rs.order] / self.W
-        self.X = X[self.rs.order] - mean  # centring leaves Cox coefficients unchanged
+        # centring leaves Cox coefficients unchanged; column-major so that a working set's
+        # columns are gathered as contiguous blocks
+        self.X = np.asfortranarray(X[self.rs.order] - mean)
         self.pf = pf
         self.l1 = float(l1_ratio)
         self.null_dev = null_deviance(self.rs)
@@ -125,17 +130,18 @@ class _Problem:
         p = X.shape[1]
         self.beta = np.zeros(p)
         self.eta = np.zeros(X.shape[0])
-        self.grad = None  # X' resid / W at beta
-        self.loglik = 0.0
         self.active = pf == 0  # unpenalised features are always in the working set
         self.cycles = 0
-        self._reuse = None  # (working set, Hessian) that the next penalty may start from
-        self._refresh()
+        self.n_hessians = 0
+        # (working set, its Hessian, the likelihood pieces it was taken at): a Hessian
+        # from an earlier point changes the speed of approach, never the fixed point
+        self._cache = None
+        self._set_pieces(likelihood_pieces(self.rs, self.eta))
+        self.grad = self.X.T @ self.resid  # X' resid / W at beta, every feature
 
-    def _refresh(self):
-        r, h, ll = gradient_and_weights(self.rs, self.eta)
-        self.resid, self.hess, self.loglik = r / self.W, h / self.W, ll
-        self.grad = self.X.T @ self.resid
+    def _set_pieces(self, pc):
+        self.pieces = pc
+        self.resid, self.loglik = pc.resid / self.W, pc.loglik
 
     def dev_ratio(self) -> float:
         # [1]'s scale: (saturated - model log-likelihood) / W is -l / W for the Cox model
@@ -156,6 +162,7 @@ class _Problem:
                 conv = self._fit_working_set(S, lam1_all[S], lam2_all[S], max_cycles)
             else:
                 conv = True
+            self.grad = self.X.T @ self.resid  # the KKT check of every feature
             if self.cycles >= max_cycles:
                 return False
             viol = (~work) & (np.abs(self.grad) > lam1_all)
@@ -163,60 +170,80 @@ class _Problem:
                 return True
             work |= viol
 
-    def _hessian(self, S):
-        return hessian_block(self.rs, self.eta, self.X[:, S]) / self.W
+    def _hessian(self, S, XS, fresh):
+        """Hessian of ``-l / W`` on ``S``: the cached one, extended by the rows of features new
+        to the working set (taken at the cached point, so the matrix stays one exact,
+        positive semi-definite Hessian), or a fresh one at the current point."""
+        c = self._cache
+        if not fresh and c is not None:
+            old_S, G_old, pc = c
+            if old_S.size == S.size and np.array_equal(old_S, S):
+                return G_old
+            pos = np.searchsorted(old_S, S)
+            pos = np.minimum(pos, old_S.size - 1)
+            known = old_S[pos] == S
+            if known.sum() >= S.size // 2:
+                G = np.empty((S.size, S.size))
+                kk, nn = np.flatnonzero(known), np.flatnonzero(~known)
+                G[np.ix_(kk, kk)] = G_old[np.ix_(pos[kk], pos[kk])]
+                if nn.size:
+                    Fk = hessian_factors(self.rs, pc, XS[:, kk])
+                    Fn = hessian_factors(self.rs, pc, XS[:, nn])
+                    Gkn = hessian_cross(Fk, Fn) / self.W
+                    G[np.ix_(kk, nn)] = Gkn
+                    G[np.ix_(nn, kk)] = Gkn.T
+                    G[np.ix_(nn, nn)] = hessian_from_factors(*Fn) / self.W
+                self._cache = (S.copy(), G, pc)
+                return G
+        G = hessian_from_factors(*hessian_factors(self.rs, self.pieces, XS)) / self.W
+        self.n_hessians += 1
+        self._cache = (S.copy(), G, self.pieces)
+        return G
 
     def _fit_working_set(self, S, lam1, lam2, max_cycles):
         """Proximal Newton on the working set with the exact Hessian of the partial likelihood.
 
-        The Hessian is renewed only when progress slows (a stale one changes the speed of
-        approach, never the fixed point: d = 0 exactly when the exact gradient meets the
-        KKT conditions).
+        The Hessian is renewed only when progress slows or a step has to be shortened.
         """
         XS = self.X[:, S]
-        key = S.tobytes()
-        if self._reuse is not None and self._reuse[0] == key:
-            G = self._reuse[1]  # the previous penalty's Hessian, once: it changes little
-            self._reuse = None
-        else:
-            G = self._hessian(S)
-            self._reuse = (key, G)
+        G = self._hessian(S, XS, fresh=False)
         diag = np.diag(G)
+        gS = XS.T @ self.resid
         last_up = np.inf
         while True:
             b_old = self.beta[S]
-            b_new, c = solve_penalised_quadratic(G, self.grad[S], b_old, lam1, lam2, self.eps,
-                                     max(max_cycles - self.cycles, 1))
+            b_new, c = solve_penalised_quadratic(G, gS, b_old, lam1, lam2, self.eps,
+                                                 max(max_cycles - self.cycles, 1))
             self.cycles += c
             d = b_new - b_old
             if not np.any(d):
                 return True
             obj_old = self.objective(self.beta, self.loglik)
             step = 1.0
+            dS = XS @ d
             while True:  # backtracking keeps every step a descent step
                 beta_try = self.beta.copy()
                 beta_try[S] = b_old + step * d
-                eta_try = self.eta + XS @ (step * d)
-                r, h, ll = gradient_and_weights(self.rs, eta_try)
-                if self.objective(beta_try, ll) <= obj_old + 1e-12 * abs(obj_old) or step < 1e-6:
+                eta_try = self.eta + step * dS
+                pc = likelihood_pieces(self.rs, eta_try)
+                if self.objective(beta_try, pc.loglik) <= obj_old + 1e-12 * abs(obj_old) or step < 1e-6:
                     break
                 step *= 0.5
             self.beta, self.eta = beta_try, eta_try
-            self.resid, self.hess, self.loglik = r / self.W, h / self.W, ll
-            self.grad = self.X.T @ self.resid
+            self._set_pieces(pc)
+            gS = XS.T @ self.resid
             up = float(np.max(diag * (step * d) ** 2))
             # converged when no single coordinate step from here would change the quadratic
             # model by eps or more ([1]'s criterion, taken at the current point rather than
             # from the last move, so a subproblem stopped early cannot pass for convergence)
             b_now = self.beta[S]
-            z = self.grad[S] + diag * b_now
+            z = gS + diag * b_now
             move = np.sign(z) * np.maximum(np.abs(z) - lam1, 0.0) / (diag + lam2) - b_now
             if float(np.max(diag * move * move)) < self.eps or self.cycles >= max_cycles:
                 return self.cycles < max_cycles
-            if step < 1.0 or up > 1e-3 * last_up:
-                G = self._hessian(S)
+            if step < 1.0 or up > _RENEW * last_up:
+                G = self._hessian(S, XS, fresh=True)
                 diag = np.diag(G)
-                self._reuse = (key, G)
             last_up = up
 
 
@@ -232,7 +259,8 @@ def cox_alpha_max(X, time, event, *, l1_ratio=1.0, penalty_factor=None, weights=
 
 def fit_cox_path(X, time, event, *, alphas=None, n_alphas: int = 100, alpha_min_ratio: float = 0.01,
                  l1_ratio: float = 1.0, penalty_factor=None, weights=None, tol: float = 1e-7,
-                 max_iter: int = 100000, stop_flat: bool | None = None) -> CoxPath:
+                 max_iter: int = 100000, stop_flat: bool | None = None,
+                 ties: str = "breslow") -> CoxPath:
     """Elastic-net Cox path by coordinate descent with strong rules and warm starts.
 
     Parameters
@@ -262,6 +290,10 @@ def fit_cox_path(X, time, event, *, alphas=None, n_alphas: int = 100, alpha_min_
         End the path once the explained deviance ratio changes by less than 0.1% over
         five penalties (the rule of [1]_ and of scikit-survival). ``None``: only for a
         generated path.
+    ties : {"breslow", "efron"}
+        How tied event times enter the partial likelihood (see
+        :mod:`workbench.models.coxlik`; Efron with whole-number weights equals Efron on
+        the duplicated rows).
 
     Returns
     -------
@@ -276,7 +308,7 @@ def fit_cox_path(X, time, event, *, alphas=None, n_alphas: int = 100, alpha_min_
     # the resampling engine's own workers
     with _blas_controller().limit(limits=1, user_api="blas"):
         path = _run_path(X, time, event, alphas, n_alphas, alpha_min_ratio, l1_ratio,
-                         penalty_factor, weights, tol, max_iter, stop_flat)
+                         penalty_factor, weights, tol, max_iter, stop_flat, ties)
     if not path.converged:
         warnings.warn(f"the Cox path solver used all {max_iter} cycles before converging; "
                       "increase max_iter or loosen tol.", ConvergenceWarning, stacklevel=2)
@@ -284,7 +316,7 @@ def fit_cox_path(X, time, event, *, alphas=None, n_alphas: int = 100, alpha_min_
 
 
 def _run_path(X, time, event, alphas, n_alphas, alpha_min_ratio, l1_ratio, penalty_factor,
-              weights, tol, max_iter, stop_flat) -> CoxPath:
+              weights, tol, max_iter, stop_flat, ties) -> CoxPath:
     X = np.asarray(X, dtype=float)
     if X.ndim != 2 or X.shape[0] != np.shape(time)[0]:
         raise ModelError(f"X has shape {X.shape}; expected (n_samples, n_features) matching time.")
@@ -292,7 +324,7 @@ def _run_path(X, time, event, alphas, n_alphas, alpha_min_ratio, l1_ratio, penal
         raise ModelError(f"l1_ratio must lie in (0, 1], got {l1_ratio}.")
     p = X.shape[1]
     pf = rescale_penalty_factor(penalty_factor, p)
-    prob = _Problem(X, time, event, weights, pf, l1_ratio, tol)
+    prob = _Problem(X, time, event, weights, pf, l1_ratio, tol, ties)
     create = alphas is None
     if stop_flat is None:
         stop_flat = create
