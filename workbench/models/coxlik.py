@@ -47,6 +47,7 @@ from workbench.models.coxkernels import (
     cox_loglik_columns,
     cox_pieces,
     cox_row_terms,
+    hessian_apply,
 )
 
 TIES = ("breslow", "efron")
@@ -155,6 +156,9 @@ class Pieces:
     l11: np.ndarray
     l21: np.ndarray
     l22: np.ndarray
+    q0: np.ndarray  # per block: sums of tw / R_k**2, times f_k and f_k**2
+    q1: np.ndarray
+    q2: np.ndarray
 
 
 def likelihood_pieces(rs: RiskSets, eta_s: np.ndarray) -> Pieces:
@@ -197,10 +201,15 @@ def hessian_from_factors(A, V) -> np.ndarray:
     return np.triu(H) + np.triu(H, 1).T  # only the upper triangle is written
 
 
-def hessian_cross(F1, F2) -> np.ndarray:
-    """``A1'A2 - V1'V2`` for the factors of two column sets at the same linear predictor."""
-    H = dgemm(1.0, F1[0], F2[0], trans_a=1)
-    return dgemm(-1.0, F1[1], F2[1], beta=1.0, c=H, trans_a=1, overwrite_c=1)
+def hessian_columns(rs: RiskSets, pc: Pieces, XS: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """Columns ``cols`` of the Hessian ``-d2 l / d beta_S d beta_S'`` (shape (|S|, |cols|)).
+
+    ``X_S' M`` with ``M = (-d2l/deta2) X_cols`` from one compiled O(n) pass per column,
+    then one product: O(n |S| |cols|), without touching the other columns' risk sets.
+    """
+    M = hessian_apply(np.asfortranarray(XS[:, cols]), pc.c, pc.e, pc.q0, pc.q1, pc.q2, rs.bfirst,
+                      rs.row_blk, rs.ev_blk)
+    return dgemm(1.0, XS, M, trans_a=1)
 
 
 def hessian_block(rs: RiskSets, eta_s: np.ndarray, XS: np.ndarray) -> np.ndarray:
