@@ -53,8 +53,9 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from workbench.errors import ConvergenceWarning, ModelError
-from workbench.models.coxcd import solve_penalised_quadratic
+from workbench.models.coxkernels import newton_working_set
 from workbench.models.coxlik import (
+    Pieces,
     hessian_columns,
     hessian_factors,
     hessian_from_factors,
@@ -70,6 +71,7 @@ _RENEW = 0.3  # a fresh Hessian when a Newton step shrinks the update by less th
 # the quadratic subproblem is solved ten times tighter than the outer rule: an inexact inner
 # solve leaves Newton steps of the size of the tolerance itself, which crawl (measured)
 _INNER = 0.1
+_SMALL = 2e6  # below this many flops, skip the Python-side Hessian cache and KKT bound
 _FULL_SHARE = 0.3  # recompute the whole gradient when more features than this need checking
 
 
@@ -162,6 +164,9 @@ class _Problem:
         a wide X). The decision is exact either way.
         """
         out = ~work
+        if self.X.size < _SMALL:  # the bound's bookkeeping costs more than the product
+            self.full_gradient()
+            return out & (np.abs(self.grad) > lam1_all)
         bound = self.xnorm * float(np.linalg.norm(self.resid - self._r0))
         cand = np.flatnonzero(out & (np.abs(self.grad) + bound > lam1_all))
         if cand.size > _FULL_SHARE * out.size:
@@ -183,10 +188,6 @@ class _Problem:
     def dev_ratio(self) -> float:
         # [1]'s scale: (saturated - model log-likelihood) / W is -l / W for the Cox model
         return 1.0 - (-self.loglik / self.W) / self.null_dev
-
-    def objective(self, beta, loglik) -> float:
-        pen = self.pf * (self.l1 * np.abs(beta) + 0.5 * (1 - self.l1) * beta * beta)
-        return -loglik / self.W + self.alpha * pen.sum()
 
     def fit_alpha(self, alpha, work, max_cycles):
         """Fit one penalty from the current state; ``work`` is a boolean working set."""
@@ -234,50 +235,27 @@ class _Problem:
         return G
 
     def _fit_working_set(self, S, lam1, lam2, max_cycles):
-        """Proximal Newton on the working set with the exact Hessian of the partial likelihood.
-
-        The Hessian is renewed only when progress slows or a step has to be shortened.
-        """
-        XS = self.X[:, S]
-        G = self._hessian(S, XS, fresh=False)
-        diag = np.diag(G)
-        gS = XS.T @ self.resid
-        last_up = np.inf
-        while True:
-            b_old = self.beta[S]
-            b_new, c = solve_penalised_quadratic(G, gS, b_old, lam1, lam2, self.eps * _INNER,
-                                                 max(max_cycles - self.cycles, 1))
-            self.cycles += c
-            d = b_new - b_old
-            if not np.any(d):
-                return True, gS
-            obj_old = self.objective(self.beta, self.loglik)
-            step = 1.0
-            dS = XS @ d
-            while True:  # backtracking keeps every step a descent step
-                beta_try = self.beta.copy()
-                beta_try[S] = b_old + step * d
-                eta_try = self.eta + step * dS
-                pc = likelihood_pieces(self.rs, eta_try)
-                if self.objective(beta_try, pc.loglik) <= obj_old + 1e-12 * abs(obj_old) or step < 1e-6:
-                    break
-                step *= 0.5
-            self.beta, self.eta = beta_try, eta_try
-            self._set_pieces(pc)
-            gS = XS.T @ self.resid
-            up = float(np.max(diag * (step * d) ** 2))
-            # converged when no single coordinate step from here would change the quadratic
-            # model by eps or more ([1]'s criterion, taken at the current point rather than
-            # from the last move, so a subproblem stopped early cannot pass for convergence)
-            b_now = self.beta[S]
-            z = gS + diag * b_now
-            move = np.sign(z) * np.maximum(np.abs(z) - lam1, 0.0) / (diag + lam2) - b_now
-            if float(np.max(diag * move * move)) < self.eps or self.cycles >= max_cycles:
-                return self.cycles < max_cycles, gS
-            if step < 1.0 or up > _RENEW * last_up:
-                G = self._hessian(S, XS, fresh=True)
-                diag = np.diag(G)
-            last_up = up
+        """Proximal Newton on the working set with the exact Hessian of the partial likelihood,
+        in compiled code (:func:`workbench.models.coxkernels.newton_working_set`); the Hessian
+        is renewed only when progress slows or a step has to be shortened."""
+        XS = np.asfortranarray(self.X[:, S])
+        # a small Hessian is cheaper to recompute in compiled code than to extend in Python
+        fresh = XS.size * S.size < _SMALL
+        G = np.zeros((S.size, S.size)) if fresh else self._hessian(S, XS, fresh=False)
+        rs = self.rs
+        b, eta, G, renewed, ref, cyc, conv, pc, gS = newton_working_set(
+            XS, self.eta, self.beta[S].copy(), np.ascontiguousarray(lam1), np.ascontiguousarray(lam2),
+            np.ascontiguousarray(G), fresh, self.W, self.eps, self.eps * _INNER,
+            max(max_cycles - self.cycles, 1), _RENEW, *rs.kernel_args(), rs.row_blk, rs.ev_blk, rs.efron)
+        self.cycles += cyc
+        self.beta = self.beta.copy()
+        self.beta[S] = b
+        self.eta = eta
+        self._set_pieces(Pieces(*pc))
+        if renewed:
+            self.n_hessians += 1
+            self._cache = (S.copy(), G, Pieces(*ref))
+        return conv and self.cycles < max_cycles, gS
 
 
 def cox_alpha_max(X, time, event, *, l1_ratio=1.0, penalty_factor=None, weights=None) -> float:
