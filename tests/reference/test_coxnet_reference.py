@@ -14,7 +14,6 @@ Sources:
   Verweij & van Houwelingen (Stat Med 1993;12:2305-14), written out below.
 """
 
-import warnings
 
 import numpy as np
 import pytest
@@ -26,6 +25,7 @@ from sksurv.linear_model.coxph import BreslowEstimator
 from statsmodels.duration.hazard_regression import PHReg
 
 from workbench.cohort.outcome import make_outcome
+from workbench.models.coxpath import fit_cox_path
 from workbench.models.penalized import (
     PenalizedCox,
     breslow_log_cumhaz,
@@ -34,7 +34,11 @@ from workbench.models.penalized import (
     patient_folds,
 )
 
-TOL = 1e-11
+# The engine's path now comes from the workbench's own solver; the reference runs at
+# tol=1e-15 because its stopping rule leaves coefficient errors of about sqrt(tol) (4e-4 at
+# 1e-11 on this data, measured; see test_coxpath_reference.py), ours at 1e-16.
+TOL = 1e-16
+REF_TOL = 1e-15
 
 
 @pytest.fixture(scope="module")
@@ -58,16 +62,17 @@ def breast_path(breast):
 def test_path_matches_scikit_survival_coxnet(breast, breast_path):
     Z, y, _ = breast
     r = breast_path
-    ref = CoxnetSurvivalAnalysis(l1_ratio=0.9, n_alphas=100, alpha_min_ratio=0.01, tol=TOL).fit(Z, y)
+    ref = CoxnetSurvivalAnalysis(l1_ratio=0.9, n_alphas=100, alpha_min_ratio=0.01, tol=REF_TOL,
+                                 max_iter=10_000_000).fit(Z, y)
     k = r.alphas.size
     np.testing.assert_allclose(r.alphas, ref.alphas_[:k], rtol=1e-10)
     np.testing.assert_allclose(r.coefs, ref.coef_[:, :k], atol=1e-6)
     # the same alphas handed to the reference solver explicitly
-    given = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas, tol=TOL).fit(Z, y)
+    given = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas, tol=REF_TOL, max_iter=10_000_000).fit(Z, y)
     np.testing.assert_allclose(r.coefs, given.coef_, atol=1e-6)
     # a sparser grid warm-starts differently; the solver's stopping rule then leaves
     # differences of ~1e-5 (measured), so this check of the same optimum is looser
-    sparse = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas[::7], tol=TOL).fit(Z, y)
+    sparse = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas[::7], tol=1e-11).fit(Z, y)
     np.testing.assert_allclose(r.coefs[:, ::7], sparse.coef_, atol=1e-4)
 
 
@@ -98,8 +103,9 @@ def test_unpenalised_terms_follow_the_penalty_factor(breast):
     pf = np.ones(Z.shape[1])
     clinical = [names.index(c) for c in ("age", "size", "er=positive")]
     pf[clinical] = 0.0
-    r = fit_penalized_path(Z, y, penalty_factor=pf, l1_ratio=0.9, random_state=1)
-    ref = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas, penalty_factor=pf).fit(Z, y)
+    r = fit_penalized_path(Z, y, penalty_factor=pf, l1_ratio=0.9, tol=TOL, random_state=1)
+    ref = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas, penalty_factor=pf, tol=REF_TOL,
+                                 max_iter=10_000_000).fit(Z, y)
     np.testing.assert_allclose(r.coefs, ref.coef_, atol=1e-6)
     assert np.all(r.coefs[clinical] != 0)  # in the model at every penalty, even alpha_max
 
@@ -140,9 +146,9 @@ def test_cv_score_equals_per_penalty_loop(score):
     oof = np.zeros((n, r.alphas.size))
     for k in range(4):
         tr = fold != k
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            B = CoxnetSurvivalAnalysis(l1_ratio=0.9, alphas=r.alphas).fit(X[tr], y[tr]).coef_
+        # the fold paths from the engine's solver (its agreement with scikit-survival's is
+        # tested above); this test checks the scoring, written out below
+        B = fit_cox_path(X[tr], time[tr], event[tr], alphas=r.alphas, l1_ratio=0.9, stop_flat=False).coefs
         d_k = event[~tr].sum()
         for j in range(r.alphas.size):
             eta = X @ B[:, j]

@@ -15,7 +15,13 @@ Sources:
   0.05 alpha_max (the workbench's first path segment), where tol=1e-15 reaches 8e-7.
 * statsmodels ``PHReg(ties="breslow")`` for the unpenalised fit, on the Rossi recidivism
   data shipped with lifelines (``lifelines.datasets.load_rossi``; many tied weeks).
-* Frequency weights against the same rows duplicated (definition of a frequency weight).
+* Frequency weights against the same rows duplicated (definition of a frequency weight),
+  with Breslow and with Efron ties, and the engine's bootstrap-copies-as-weights route
+  against the duplicated rows.
+* Efron ties: lifelines ``CoxPHFitter`` (Efron is its default) unpenalised on the Rossi data
+  (coefficients 1e-6; also three published coefficients of Fox's appendix, 5 decimals);
+  statsmodels ``PHReg(ties="efron")`` log-likelihood (1e-12) and score, the latter for the
+  KKT conditions of a penalised Efron path (1e-7).
 * The one-pass cross-validated score against a per-penalty loop of Verweij & van
   Houwelingen's definition (Stat Med 1993;12:2305-14) using the workbench's Breslow
   log-likelihood, itself checked against statsmodels in test_coxnet_reference.py.
@@ -24,7 +30,9 @@ Sources:
 import warnings
 
 import numpy as np
+import pandas as pd
 import pytest
+from lifelines import CoxPHFitter
 from lifelines.datasets import load_rossi
 from sksurv.column import encode_categorical
 from sksurv.datasets import load_breast_cancer, load_gbsg2
@@ -34,7 +42,7 @@ from statsmodels.duration.hazard_regression import PHReg
 from workbench.cohort.outcome import make_outcome
 from workbench.models.coxlik import cv_partial_loglik, weighted_loglik
 from workbench.models.coxpath import cox_alpha_max, fit_cox_path
-from workbench.models.penalized import breslow_loglik
+from workbench.models.penalized import breslow_loglik, fit_penalized_path
 
 REF_TOL = 1e-15  # the reference solver's tolerance (see the module docstring)
 OUR_TOL = 1e-16
@@ -151,3 +159,96 @@ def test_cv_scores_equal_a_per_penalty_loop(gbsg2):
             eta = Z @ B[:, j]
             want = breslow_loglik(eta, time, event) - breslow_loglik(eta[tr], time[tr], event[tr])
             assert got[k, j] == pytest.approx(want, rel=1e-10, abs=1e-9)
+
+
+# ----------------------------------------------------------------------------- Efron ties
+
+_ROSSI = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]
+
+
+@pytest.fixture(scope="module")
+def rossi():
+    df = load_rossi()
+    return df, df[_ROSSI].to_numpy(float), df["week"].to_numpy(float), df["arrest"].to_numpy(bool)
+
+
+def test_unpenalised_efron_fit_equals_lifelines_on_rossi(rossi):
+    # lifelines CoxPHFitter (Efron ties, its default), tight Newton tolerance; the weeks are
+    # heavily tied (114 arrests on 49 distinct weeks), so Efron and Breslow differ visibly
+    df, X, time, event = rossi
+    ref = CoxPHFitter().fit(df, "week", "arrest", fit_options={"precision": 1e-12})
+    ours = fit_cox_path(X, time, event, alphas=[0.0], tol=1e-16, ties="efron")
+    np.testing.assert_allclose(ours.coefs[:, 0], ref.params_[_ROSSI].to_numpy(), rtol=0, atol=1e-6)
+    np.testing.assert_allclose(weighted_loglik(X @ ours.coefs[:, 0], time, event, ties="efron"),
+                               ref.log_likelihood_, rtol=1e-10)
+    # published (Fox, appendix to An R and S-PLUS Companion to Applied Regression; printed to
+    # 5 decimals): fin -0.37942, age -0.05744, prio 0.09150
+    np.testing.assert_allclose(ours.coefs[[0, 1, 6], 0], [-0.37942, -0.05744, 0.09150], atol=6e-6)
+
+
+def test_efron_loglik_and_score_equal_statsmodels(rossi):
+    # statsmodels PHReg(ties="efron"): log-likelihood and score at arbitrary coefficients
+    _, X, time, event = rossi
+    m = PHReg(time, X, status=event.astype(float), ties="efron")
+    B = np.random.default_rng(11).normal(0, 0.1, (X.shape[1], 3))
+    np.testing.assert_allclose(weighted_loglik(X @ B, time, event, ties="efron"),
+                               [m.loglike(B[:, k]) for k in range(3)], rtol=1e-12)
+
+
+def test_efron_path_meets_the_kkt_conditions_with_statsmodels_score(rossi):
+    # elastic-net stationarity (Simon et al. 2011, section 2) with the Efron score of
+    # statsmodels PHReg, independent of our likelihood code; tolerance 1e-7 at solver tol 1e-16
+    _, X, time, event = rossi
+    Z = (X - X.mean(0)) / X.std(0)
+    l1 = 0.7
+    path = fit_cox_path(Z, time, event, n_alphas=30, alpha_min_ratio=0.01, l1_ratio=l1, tol=1e-16,
+                        stop_flat=False, ties="efron")
+    m = PHReg(time, Z, status=event.astype(float), ties="efron")
+    n = time.size
+    assert np.count_nonzero(path.coefs[:, -1]) == Z.shape[1]
+    for k, a in enumerate(path.alphas):
+        b = path.coefs[:, k]
+        g = m.score(b) / n
+        nz = b != 0
+        np.testing.assert_allclose(g[nz], a * (l1 * np.sign(b[nz]) + (1 - l1) * b[nz]), rtol=0, atol=1e-7)
+        assert np.all(np.abs(g[~nz]) <= a * l1 + 1e-7)
+
+
+def test_efron_frequency_weights_equal_duplicated_rows(rossi):
+    # definition of a frequency weight, with Efron's tie correction counting copies as ties
+    _, X, time, event = rossi
+    Z = (X - X.mean(0)) / X.std(0)
+    w = np.random.default_rng(5).integers(0, 4, time.size)
+    rows = np.repeat(np.arange(time.size), w)
+    weighted = fit_cox_path(Z, time, event, weights=w, n_alphas=30, l1_ratio=0.8, tol=OUR_TOL,
+                            stop_flat=False, ties="efron")
+    expanded = fit_cox_path(Z[rows], time[rows], event[rows], alphas=weighted.alphas, l1_ratio=0.8,
+                            tol=OUR_TOL, stop_flat=False, ties="efron")
+    np.testing.assert_allclose(weighted.coefs, expanded.coefs, rtol=0, atol=1e-8)
+    eta = Z @ weighted.coefs
+    np.testing.assert_allclose(weighted_loglik(eta, time, event, w, ties="efron"),
+                               weighted_loglik(eta[rows], time[rows], event[rows], ties="efron"),
+                               rtol=1e-12)
+    # ... and the unpenalised weighted fit equals lifelines on the duplicated rows
+    df = pd.DataFrame(Z[rows], columns=_ROSSI).assign(week=time[rows], arrest=event[rows])
+    ref = CoxPHFitter().fit(df, "week", "arrest", fit_options={"precision": 1e-12})
+    ours = fit_cox_path(Z, time, event, weights=w, alphas=[0.0], tol=1e-16, ties="efron")
+    np.testing.assert_allclose(ours.coefs[:, 0], ref.params_[_ROSSI].to_numpy(), rtol=0, atol=1e-6)
+
+
+def test_bootstrap_copies_as_weights_give_the_same_cross_validated_path(breast):
+    # the engine fits a bootstrap sample as one weighted row per patient: the folds, the
+    # path and the cross-validated deviance equal those of the duplicated rows (frequency
+    # weights by definition), to solver tolerance
+    Z, time, event, names = breast
+    ids = np.random.default_rng(9).integers(0, time.size, time.size)
+    y = make_outcome(time[ids], event[ids])
+    kw = dict(groups=ids, l1_ratio=0.9, path_stop_ratio=0.05, tol=OUR_TOL, random_state=4)
+    weighted = fit_penalized_path(Z[ids], y, **kw)
+    rows = fit_penalized_path(Z[ids], y, collapse_copies=False, **kw)
+    np.testing.assert_allclose(weighted.alphas, rows.alphas, rtol=1e-12)
+    np.testing.assert_allclose(weighted.coefs, rows.coefs, rtol=0, atol=1e-8)
+    # deviances per event of 10-35 on this path: relative 1e-8 (coefficients differ by ~1e-9)
+    np.testing.assert_allclose(weighted.cv_mean, rows.cv_mean, rtol=1e-8, atol=0)
+    np.testing.assert_allclose(weighted.fold_events, rows.fold_events, rtol=0, atol=0)
+    assert weighted.index == rows.index and weighted.selected == rows.selected

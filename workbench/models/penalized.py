@@ -1,13 +1,19 @@
 """Penalised (LASSO / elastic-net) Cox paths with patient-grouped cross-validation.
 
-The path itself is fitted by scikit-survival's :class:`CoxnetSurvivalAnalysis`
-(coordinate descent, Simon et al. 2011). What this module adds:
+The path itself is fitted by the workbench's own solver
+(:func:`workbench.models.coxpath.fit_cox_path`: coordinate descent, Simon et al. 2011, with
+compiled inner loops; it gives scikit-survival's ``CoxnetSurvivalAnalysis`` path to 1e-6,
+see tests/reference/test_coxpath_reference.py). What this module adds:
 
 * folds are formed from *patients*, not rows, so that the copies of one patient
   that a bootstrap sample contains never sit on both sides of a split (with
   row-wise folds the penalty choice collapses to the least-penalised end);
 * the cross-validated partial log-likelihood of every penalty of a fold is
-  computed in one vectorised pass over the matrix of linear predictors;
+  computed in one compiled pass over the matrix of linear predictors
+  (:func:`workbench.models.coxlik.cv_partial_loglik`);
+* a bootstrap sample (rows of one patient that are exact copies) is fitted as one row
+  per patient with its count as a frequency weight: the same likelihood, folds and
+  penalties, on fewer rows;
 * the path is first fitted only down to ``path_stop_ratio * alpha_max`` (most of
   the solver's time is spent below that) and is extended only when the
   cross-validated optimum lands on its last penalty;
@@ -32,16 +38,15 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from sklearn.base import BaseEstimator
-from sklearn.exceptions import ConvergenceWarning as _SkConvergenceWarning
-from sksurv.linear_model import CoxnetSurvivalAnalysis
 
 from workbench.cohort.outcome import check_outcome, split_outcome
 from workbench.errors import (
-    ConvergenceWarning,
     DataQualityWarning,
     ModelError,
     NotFittedError,
 )
+from workbench.models.coxlik import cv_partial_loglik
+from workbench.models.coxpath import fit_cox_path
 from workbench.predictions import RiskScores, SurvivalCurves
 
 _EXTENSION_FACTOR = 0.25  # each extension lowers the end of the path four-fold
@@ -127,7 +132,7 @@ def breslow_log_cumhaz(eta: np.ndarray, time: np.ndarray, event: np.ndarray):
 # ---------------------------------------------------------------------- folds
 
 
-def patient_folds(groups, event, n_folds: int = 5, random_state=None) -> np.ndarray:
+def patient_folds(groups, event, n_folds: int = 5, random_state=None, weights=None) -> np.ndarray:
     """Assign rows to cross-validation folds so that no patient is split.
 
     Every row of one patient (the copies a bootstrap sample draws) goes to the same
@@ -140,6 +145,9 @@ def patient_folds(groups, event, n_folds: int = 5, random_state=None) -> np.ndar
     event : array-like of shape (n_samples,)
     n_folds : int
     random_state : int, Generator or None
+    weights : array-like of shape (n_samples,) or None
+        Frequency weights: a row of weight ``k`` counts as ``k`` rows (the same folds as
+        for the duplicated rows, patients appearing in the same order).
 
     Returns
     -------
@@ -155,8 +163,9 @@ def patient_folds(groups, event, n_folds: int = 5, random_state=None) -> np.ndar
         )
     rng = np.random.default_rng(random_state)
     codes, _ = pd.factorize(groups)
-    n_ev = np.bincount(codes, weights=event.astype(float), minlength=n_groups)
-    n_rows = np.bincount(codes, minlength=n_groups)
+    w = np.ones(codes.size) if weights is None else np.asarray(weights, dtype=float)
+    n_ev = np.bincount(codes, weights=event * w, minlength=n_groups)
+    n_rows = np.bincount(codes, weights=w, minlength=n_groups)
     # Greedy balancing (a few hundred patients: a plain loop is far cheaper than a generic
     # splitter): patients in random order, those with most events first, each to the fold
     # with the fewest events so far (ties: fewest rows); patients without an event go to
@@ -246,8 +255,8 @@ class PenalizedPathResult:
 # ---------------------------------------------------------------- CV scoring
 
 
-def cv_deviance(X, time, event, fold, fold_coefs, score: str = "basic"):
-    """Cross-validated deviance of every penalty, one vectorised pass per fold.
+def cv_deviance(X, time, event, fold, fold_coefs, score: str = "basic", weights=None):
+    """Cross-validated deviance of every penalty, one compiled pass per fold.
 
     Parameters
     ----------
@@ -261,6 +270,9 @@ def cv_deviance(X, time, event, fold, fold_coefs, score: str = "basic"):
         ``l(beta_-k) - l_-k(beta_-k)`` on all rows minus the training rows [2]_.
         ``"linear_predictor"``: the partial likelihood of all rows evaluated at the
         out-of-fold linear predictors, split into the event terms of each fold [3]_.
+        Both computed by :func:`workbench.models.coxlik.cv_partial_loglik` (Breslow ties).
+    weights : ndarray of shape (n_samples,) or None
+        Frequency weights (a bootstrap sample's counts); events are counted with them.
 
     Returns
     -------
@@ -273,31 +285,18 @@ def cv_deviance(X, time, event, fold, fold_coefs, score: str = "basic"):
     if score not in _SCORES:
         raise ModelError(f"cv score {score!r} is unknown; choose one of {_SCORES}.")
     n_folds = len(fold_coefs)
-    n_alphas = fold_coefs[0].shape[1]
-    contrib = np.empty((n_folds, n_alphas))
-    events = np.array([np.count_nonzero(event[fold == k]) for k in range(n_folds)], dtype=float)
-    if score == "basic":
-        for k, B in enumerate(fold_coefs):
-            eta = X @ B
-            train = fold != k
-            contrib[k] = breslow_loglik(eta, time, event) - breslow_loglik(
-                eta[train], time[train], event[train])
-    else:
-        eta = np.empty((X.shape[0], n_alphas))
-        for k, B in enumerate(fold_coefs):
-            rows = fold == k
-            eta[rows] = X[rows] @ B
-        terms = breslow_loglik_terms(eta, time, event)
-        for k in range(n_folds):
-            contrib[k] = terms[fold == k].sum(axis=0)
+    w = np.ones(np.shape(time)[0]) if weights is None else np.asarray(weights, dtype=float)
+    ev_w = np.asarray(event, dtype=bool) * w
+    events = np.array([ev_w[fold == k].sum() for k in range(n_folds)], dtype=float)
+    contrib = cv_partial_loglik(X, time, event, fold, fold_coefs, weights, score=score)
     with np.errstate(invalid="ignore", divide="ignore"):
         per_fold = -2.0 * contrib / events[:, None]
     per_fold = np.where(np.isfinite(per_fold), per_fold, np.inf)  # a diverged fit never wins
-    w = events / events.sum()
+    wk = events / events.sum()
     use = events > 0
-    mean = (w[use, None] * per_fold[use]).sum(axis=0)
+    mean = (wk[use, None] * per_fold[use]).sum(axis=0)
     with np.errstate(invalid="ignore"):
-        var = (w[use, None] * (per_fold[use] - mean) ** 2).sum(axis=0) / max(use.sum() - 1, 1)
+        var = (wk[use, None] * (per_fold[use] - mean) ** 2).sum(axis=0) / max(use.sum() - 1, 1)
     se = np.sqrt(np.where(np.isfinite(var), var, np.inf))
     return per_fold, events, mean, se
 
@@ -320,31 +319,30 @@ def choose_alpha(cv_mean: np.ndarray, cv_se: np.ndarray, rule: str = "min") -> t
 # -------------------------------------------------------------------- fitting
 
 
-def _coxnet_path(X, y, alphas, l1_ratio, penalty_factor, tol, max_iter, done=None):
-    """Coefficients at every one of ``alphas`` (columns), continuing early-stopped paths.
+def _path(X, time, event, weights, alphas, l1_ratio, penalty_factor, tol, max_iter):
+    """Coefficients at every one of ``alphas`` (columns), by the workbench's solver.
 
-    The solver ends a path early when the deviance stops changing, which happens in a
-    training fold whose own alpha_max lies below the common grid's first penalties (a
-    run of all-zero models). The rest of the grid is then fitted from the next penalty
-    on (cold start), so every fold scores the same penalties.
+    A training fold's own alpha_max may lie below the common grid's first penalties:
+    those give all-zero models, and the whole grid is still fitted so every fold scores
+    the same penalties.
     """
-    parts = [] if done is None else [done]
-    start = 0 if done is None else done.shape[1]
-    while start < len(alphas):
-        model = CoxnetSurvivalAnalysis(
-            alphas=alphas[start:], l1_ratio=l1_ratio, penalty_factor=penalty_factor, tol=tol,
-            max_iter=max_iter, fit_baseline_model=False)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            model.fit(X, y)
-        for w in caught:
-            if issubclass(w.category, _SkConvergenceWarning):
-                warnings.warn(
-                    f"the penalised Cox solver stopped before converging ({w.message}). "
-                    "Increase max_iter or loosen tol.", ConvergenceWarning, stacklevel=3)
-        parts.append(model.coef_)
-        start += model.coef_.shape[1]
-    return np.hstack(parts)
+    return fit_cox_path(X, time, event, alphas=alphas, l1_ratio=l1_ratio, penalty_factor=penalty_factor,
+                        weights=weights, tol=tol, max_iter=max_iter, stop_flat=False).coefs
+
+
+def _collapse_copies(X, time, event, groups):
+    """One row per patient with its count as a weight, when all of a patient's rows are exact
+    copies (a bootstrap sample); ``None`` otherwise. Patients keep their order of first
+    appearance, so :func:`patient_folds` forms the same folds."""
+    codes, _ = pd.factorize(groups)
+    first = np.unique(codes, return_index=True)[1]
+    if first.size == codes.size:
+        return None
+    f = first[codes]
+    same = (time == time[f]) & (event == event[f]) & np.all(X == X[f], axis=1)
+    if not same.all():
+        return None
+    return X[first], time[first], event[first], np.asarray(groups)[first], np.bincount(codes).astype(float)
 
 
 def fit_penalized_path(
@@ -364,6 +362,7 @@ def fit_penalized_path(
     tol: float = 1e-7,
     max_iter: int = 100000,
     random_state=None,
+    collapse_copies: bool = True,
 ) -> PenalizedPathResult:
     """Fit a penalised Cox path and choose its penalty by patient-grouped cross-validation.
 
@@ -393,6 +392,10 @@ def fit_penalized_path(
         See :func:`cv_deviance`.
     random_state : int, Generator or None
         Fold assignment.
+    collapse_copies : bool
+        With ``groups``, fit a patient whose rows are all exact copies (a bootstrap
+        sample) as one row with its count as a frequency weight: the same likelihood,
+        folds and penalties on fewer rows (results equal to solver tolerance).
 
     Returns
     -------
@@ -436,41 +439,39 @@ def fit_penalized_path(
     groups = np.asarray(groups)
     if groups.shape[0] != n:
         raise ModelError(f"groups has {groups.shape[0]} entries but X has {n} rows; they must match.")
-    fold = patient_folds(groups, event, n_folds, random_state)
+    weights = None
+    collapsed = _collapse_copies(X, time, event, groups) if grouped and collapse_copies else None
+    if collapsed is not None:
+        X, time, event, groups, weights = collapsed
+    fold = patient_folds(groups, event, n_folds, random_state, weights=weights)
 
     # One log-spaced grid from alpha_max to alpha_min_ratio * alpha_max; the solver's
     # own path creation gives alpha_max and the first segment with the same spacing.
     log_step = np.log(alpha_min_ratio) / (n_alphas - 1)
     n_seg = int(np.floor(np.log(path_stop_ratio) / log_step + 1e-9)) + 1
     n_seg = max(min(n_seg, n_alphas), 2)
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="all coefficients are zero")
-        first = CoxnetSurvivalAnalysis(
-            n_alphas=n_seg, alpha_min_ratio=float(np.exp(log_step * (n_seg - 1))),
-            l1_ratio=l1_ratio, penalty_factor=penalty_factor, tol=tol, max_iter=max_iter,
-        ).fit(X, y)
-    alpha_max = float(first.alphas_[0])
+    first = fit_cox_path(X, time, event, n_alphas=n_seg, alpha_min_ratio=float(np.exp(log_step * (n_seg - 1))),
+                         l1_ratio=l1_ratio, penalty_factor=penalty_factor, weights=weights, tol=tol,
+                         max_iter=max_iter, stop_flat=False)
+    alpha_max = float(first.alphas[0])
     grid = alpha_max * np.exp(log_step * np.arange(n_alphas))
     n_cur, n_ext = n_seg, 0
-    coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter, done=first.coef_)
+    coefs = first.coefs
     while True:
         alphas = grid[:n_cur]
-        with warnings.catch_warnings():
-            warnings.filterwarnings("ignore", message="all coefficients are zero")
-            fold_coefs = [
-                _coxnet_path(X[fold != k], y[fold != k], alphas, l1_ratio, penalty_factor, tol, max_iter)
-                for k in range(n_folds)
-            ]
-        per_fold, ev_k, mean, se = cv_deviance(X, time, event, fold, fold_coefs, score)
+        fold_coefs = []
+        for k in range(n_folds):
+            tr = fold != k
+            fold_coefs.append(_path(X[tr], time[tr], event[tr], None if weights is None else weights[tr],
+                                    alphas, l1_ratio, penalty_factor, tol, max_iter))
+        per_fold, ev_k, mean, se = cv_deviance(X, time, event, fold, fold_coefs, score, weights)
         i_min = int(np.argmin(mean))
         if i_min < n_cur - 1 or n_cur >= n_alphas:
             break
         n_more = int(np.ceil(np.log(_EXTENSION_FACTOR) / log_step))
         n_cur = min(n_alphas, n_cur + n_more)
         n_ext += 1
-        with warnings.catch_warnings():
-            warnings.filterwarnings("ignore", message="all coefficients are zero")
-            coefs = _coxnet_path(X, y, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter)
+        coefs = _path(X, time, event, weights, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter)
     index, i_min = choose_alpha(mean, se, rule)
     return PenalizedPathResult(
         feature_names=names, alphas=alphas.copy(), coefs=np.asarray(coefs, dtype=float),
