@@ -17,9 +17,7 @@ import numpy as np
 from workbench.cohort.summary import CAUTION
 from workbench.competing.analysis import METRICS, CompetingStudyResult
 from workbench.competing.cif import incidence_at
-from workbench.competing.fitting import target_outcome
-from workbench.competing.metrics import competing_grouped_calibration
-from workbench.errors import WorkbenchError
+from workbench.report.competing_figures import cause_labels
 
 __all__ = ["FORMAT", "competing_results_dict", "format_competing", "write_competing_folder"]
 
@@ -35,16 +33,11 @@ def _num(x) -> float | None:
     return round(x, 6) if np.isfinite(x) else None
 
 
-def _cause_labels(result: CompetingStudyResult) -> dict:
-    d = result.spec.data
-    return {1: ", ".join(d.event_codes or ("event",)), 2: ", ".join(d.competing_codes or ("competing",))}
-
-
 def competing_results_dict(result: CompetingStudyResult) -> dict:
     """The result as plain JSON data."""
     h = result.horizons
     cohort = result.cohort
-    labels = _cause_labels(result)
+    labels = cause_labels(result)
     inc = {}
     for k in result.incidence.causes:
         est, lo, hi = incidence_at(result.incidence, h, cause=k)
@@ -115,30 +108,14 @@ def _coefficient_words(coefficient: str) -> str:
     return "the in-sample one (optimistic)"
 
 
-def _calibration_groups(result: CompetingStudyResult, n_groups: int = 5) -> dict:
-    cohort = result.cohort
-    y = target_outcome(cohort, "cause")
-    out = {}
-    for (target, model), arm in result.arms.items():
-        if target != "cause":
-            continue
-        curves = arm.predict(cohort, result.horizons, "cause_specific")
-        try:
-            out[model] = [competing_grouped_calibration(y, curves, t0, n_groups=n_groups) for t0 in result.horizons]
-        except WorkbenchError:
-            continue
-    return out
-
-
 def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool = True) -> list[str]:
     """Write competing_results.json and (unless ``figures`` is False) the figures into ``out``.
 
-    Figures: the Aalen-Johansen incidence of every cause, the apparent calibration of the
-    cause-specific models, and the Fine-Gray nomograms with their points tables (the
-    risk of the cause of interest by each horizon, read from total points).
+    Figures (:func:`workbench.report.competing_figures.competing_figures`) at both journal
+    widths, and the Fine-Gray nomograms' points tables.
     """
-    from workbench.figures.competing import plot_cause_incidence, plot_incidence_calibration
     from workbench.figures.export import save_figure
+    from workbench.figures.nomogram_table import points_table, write_points_table
 
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -147,89 +124,24 @@ def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool =
     written = ["competing_results.json"]
     if not figures:
         return written
-    labels = _cause_labels(result)
+    from workbench.report.competing_figures import competing_figures, nomogram_scales_by_model
+
+    names: list[str] = []
     for width in ("single", "double"):
-        fig = plot_cause_incidence(result.incidence, labels, horizons=result.horizons,
-                                   time_unit=result.cohort.time_unit, width=width)
-        save_figure(fig, out / f"cumulative_incidence_{width}", widths=(None,))
-        groups = _calibration_groups(result)
-        if groups:
-            fig = plot_incidence_calibration(groups, cause_label=labels[1], width=width,
-                                             time_unit=result.cohort.time_unit,
-                                             title="development cohort, apparent (the models were fitted here)")
-            save_figure(fig, out / f"incidence_calibration_{width}", widths=(None,))
-    written += ["cumulative_incidence_*", "incidence_calibration_*"]
-    written += _write_decision_curve(result, out, labels[1])
-    written += _write_incidence_nomogram(result, out, f"the event coded '{labels[1]}'")
-    return written
-
-
-DECISION_LABELS = {"clinical": "Clinical (cause-specific Cox)", "combined": "Clinical + signature (cause-specific Cox)"}
-
-
-def _write_decision_curve(result: CompetingStudyResult, out: Path, cause_label: str) -> list[str]:
-    """Net benefit of acting on the predicted risk of the cause of interest (middle horizon, apparent)."""
-    from workbench.competing.metrics import competing_net_benefit
-    from workbench.figures.decision import plot_decision_curve
-    from workbench.figures.export import save_figure
-
-    h = result.horizons
-    t0 = float(h[len(h) // 2])
-    y = target_outcome(result.cohort, "cause")
-    curves = {}
-    for model in ("clinical", "combined"):
-        arm = result.arms.get(("cause", model))
-        if arm is not None:
-            try:
-                curves[DECISION_LABELS[model]] = competing_net_benefit(
-                    y, arm.predict(result.cohort, [t0], "cause_specific"), t0)
-            except WorkbenchError:
-                continue
-    if not curves:
-        return []
-    unit = result.cohort.time_unit
-    title = (f"Risk of event '{cause_label}' by {t0:g} {unit}, other events competing; development cohort, "
-             "apparent (the models were fitted here)")
-    for width in ("single", "double"):
-        fig = plot_decision_curve(curves, time_unit=unit, width=width, title=title)
-        save_figure(fig, out / f"incidence_decision_curve_{width}", widths=(None,))
-    return ["incidence_decision_curve_*"]
-
-
-NOMOGRAM_TITLES = {"clinical": "Clinical, Fine-Gray", "combined": "Clinical + signature, Fine-Gray"}
-
-
-def _write_incidence_nomogram(result: CompetingStudyResult, out: Path, cause_label: str) -> list[str]:
-    """The Fine-Gray nomograms (risk of the cause of interest) as figures and points tables."""
-    from workbench.competing.nomogram import incidence_nomogram_scales
-    from workbench.figures.export import save_figure
-    from workbench.figures.nomogram import plot_nomogram
-    from workbench.figures.nomogram_table import points_table, write_points_table
-
-    built = {}
-    for model in ("clinical", "combined"):
-        arm = result.arms.get(("cause", model))
-        if arm is None or arm.fine_gray is None:
-            continue
-        built[model] = incidence_nomogram_scales(arm, result.cohort, result.horizons, cause_label=cause_label,
-                                                 time_unit=result.cohort.time_unit,
-                                                 name=NOMOGRAM_TITLES[model])
-    scales = list(built.values())
-    if not scales:
-        return []
-    for width in ("single", "double"):
-        fig = plot_nomogram(scales, layout="rows" if width == "single" and len(scales) > 1 else "columns",
-                            width=width)
-        save_figure(fig, out / f"incidence_nomogram_{width}", widths=(None,))
-    for model, sc in built.items():
+        figs = competing_figures(result, width)
+        for name, fig in figs.items():
+            save_figure(fig, out / f"{name}_{width}", widths=(None,))
+        names = list(figs)
+    written += [f"{n}_*" for n in names]
+    for model, sc in nomogram_scales_by_model(result).items():
         write_points_table(points_table(sc), out / f"incidence_nomogram_points_{model}.csv")
-    return ["incidence_nomogram_*"]
+    return written
 
 
 def format_competing(result: CompetingStudyResult) -> str:
     """A short console summary ending with the caution."""
     h = result.horizons
-    labels = _cause_labels(result)
+    labels = cause_labels(result)
     c = result.cohort
     lines = ["Competing-risks analysis", "========================",
              f"Patients {c.n}: event of interest ({labels[1]}) {int(np.sum(c.cause == 1))}, competing ({labels[2]}) "
