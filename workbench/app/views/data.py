@@ -151,6 +151,12 @@ def _map_columns(features: str | None, clinical: str) -> DataSpec | None:
                             help="Leave empty when the column holds 0/1 or true/false (1 = the event happened).")
         cz = st.multiselect("Values meaning censored (event-free at last follow-up)", levels,
                             default=cz_default, key="map_censor_codes")
+        others = [v for v in levels if v not in ev and v not in cz]
+        cr = st.multiselect(
+            "Values meaning a competing event (optional)", others, key="map_competing_codes",
+            default=[v for v in (g("competing_codes") or ()) if v in others],
+            help="An event that makes the event of interest impossible, such as death from another cause. The "
+                 "main analysis counts it as censored; the Results page then offers a competing-risks analysis.")
         if not binary and not ev:
             st.caption("This column is not 0/1: choose which values mean the event happened.")
     with c:
@@ -174,6 +180,7 @@ def _map_columns(features: str | None, clinical: str) -> DataSpec | None:
         data = DataSpec(
             features=features, clinical=clinical, id=id_col, time=time_col, event=event_col,
             time_unit=unit, event_codes=tuple(ev) or None, censor_codes=tuple(cz) or None,
+            competing_codes=tuple(cr) or None,
             centre=centre, batch=batch, on_unmatched="intersect" if keep_both else "error",
             drop_unusable_features=drop,
             **_repeats(features, prev),

@@ -379,6 +379,14 @@ def render() -> None:
         state.not_available("Running a study")
         return
     _run_controls(spec)
+    _main(spec)
+    from workbench.app.views import competing
+
+    competing.render_section(spec)
+
+
+def _main(spec) -> None:
+    """The study run's state and, once one has finished, its results."""
     job = state.current_job()
     if job is None:
         st.info("Press Run the study to fit the models and validate them.")

@@ -1,0 +1,145 @@
+"""Competing risks on the Results page: the cause of interest with other events competing.
+
+Shown when the study names competing codes (the Data page's third set of event values).
+The analysis is :func:`workbench.competing.analysis.run_competing`, the same as
+``workbench competing``; it is run on request, apart from the main study run, and kept
+for the study and number of replicates it was run with.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from workbench.app import charts, state
+
+TARGET_WORDS = {"cause": "cause of interest", "all_cause": "death from any cause"}
+MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
+               "combined_minus_clinical": "Difference (signature added)"}
+METHOD_WORDS = {"cause_specific": "cause-specific Cox", "fine_gray": "Fine-Gray"}
+KEY = "wb_competing_result"
+
+
+def _fmt(x: float, lo: float | None = None, hi: float | None = None) -> str:
+    if not np.isfinite(x):
+        return "n/a"
+    if lo is None or not np.isfinite(lo):
+        return f"{x:.3f}"
+    return f"{x:.3f} ({lo:.3f} to {hi:.3f})"
+
+
+def corrected_table(result) -> pd.DataFrame:
+    """One row per target, model and method; the optimism-corrected AUC, Brier and ICI per horizon."""
+    rows = []
+    for (target, model, method), v in result.corrected.items():
+        row = {"Outcome": TARGET_WORDS.get(target, target), "Model": MODEL_WORDS.get(model, model),
+               "Fitted by": METHOD_WORDS.get(method, method)}
+        for m, label in (("auc", "AUC"), ("brier", "Brier"), ("ici", "ICI")):
+            for j, t in enumerate(result.horizons):
+                row[f"{label} {t:g}"] = _fmt(float(v[m][j]))
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def external_table(result) -> pd.DataFrame | None:
+    """AUC with its 95% interval on the external cohort, per target, model and method."""
+    if result.external is None:
+        return None
+    rows = []
+    for (target, model, method), block in result.external.items():
+        row = {"Outcome": TARGET_WORDS.get(target, target), "Model": MODEL_WORDS.get(model, model),
+               "Fitted by": METHOD_WORDS.get(method, method)}
+        a = block["auc"]
+        for j, t in enumerate(result.horizons):
+            row[f"AUC {t:g}"] = _fmt(float(a["estimate"][j]), float(a["lower"][j]), float(a["upper"][j]))
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def incidence_table(result) -> pd.DataFrame:
+    from workbench.competing.cif import incidence_at
+    from workbench.report.competing_figures import cause_labels
+
+    labels = cause_labels(result)
+    rows = []
+    for k in result.incidence.causes:
+        est, lo, hi = incidence_at(result.incidence, result.horizons, cause=k)
+        row = {"Cause": labels.get(k, str(k))}
+        for t, e, a, b in zip(result.horizons, est, lo, hi, strict=True):
+            row[f"By {t:g}"] = _fmt(float(e), float(a), float(b))
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+@st.cache_data(show_spinner=False, max_entries=2)
+def _pngs(run_key: tuple, _result) -> dict:
+    from workbench.report.competing_figures import competing_figures
+
+    return {name: charts.screen_png(fig, tight=name != "incidence_nomogram")
+            for name, fig in competing_figures(_result, "double").items()}
+
+
+FIGURE_TITLES = {"cumulative_incidence": "Cumulative incidence of each cause",
+                 "incidence_calibration": "Calibration for the cause of interest (apparent)",
+                 "incidence_decision_curve": "Decision curve for the cause of interest (apparent)",
+                 "incidence_nomogram": "Fine-Gray nomogram: risk of the cause of interest"}
+
+
+def render_section(spec) -> None:
+    """The competing-risks section (nothing when the study names no competing codes)."""
+    if not spec.data.competing_codes:
+        return
+    ss = st.session_state
+    st.divider()
+    st.header("Competing risks")
+    st.caption(
+        f"Events coded {', '.join(spec.data.event_codes or ())} are the cause of interest; "
+        f"{', '.join(spec.data.competing_codes)} compete with them (a patient who dies of another cause can no "
+        "longer have the event of interest). The main results above treat competing events as censored. This "
+        "analysis fits cause-specific Cox and Fine-Gray models and validates them by the bootstrap, as "
+        "'workbench competing' does.")
+    quick = min(state.DEMO_REPLICATES, spec.validation.replicates)
+    reps = st.number_input("Bootstrap replicates for the competing-risks analysis", 0, 2000,
+                           int(ss.get("wb_competing_reps", quick)), key="competing_replicates",
+                           help="0 gives apparent performance only (optimistic). External intervals need 10 "
+                                "or more.")
+    ss["wb_competing_reps"] = int(reps)
+    run_key = (state.study_text(spec), int(reps))
+    if st.button("Run the competing-risks analysis", key="competing_run"):
+        from workbench.competing.analysis import run_competing
+
+        bar = st.progress(0.0, text="Competing-risks bootstrap")
+        try:
+            with st.spinner("Fitting and validating the competing-risks models..."):
+                result = run_competing(spec, replicates=int(reps),
+                                       progress=lambda done, total: bar.progress(done / max(total, 1)))
+        except Exception as exc:  # noqa: BLE001
+            state.show_error("The competing-risks analysis", exc)
+            return
+        ss[KEY] = (run_key, result)
+    held = ss.get(KEY)
+    if held is None:
+        st.info("Press the button to run it.")
+        return
+    key, result = held
+    if key != run_key:
+        st.warning("The study or the number of replicates changed since this analysis ran: run it again to "
+                   "bring it up to date.")
+    c = result.cohort
+    st.success(f"{c.n} patients: {int(np.sum(c.cause == 1))} events of interest, {int(np.sum(c.cause == 2))} "
+               f"competing, {int(np.sum(c.cause == 0))} censored; {result.replicates} bootstrap replicates "
+               f"({result.failed} failed).")
+    st.subheader("Cumulative incidence (Aalen-Johansen, 95% interval)")
+    state.table(incidence_table(result))
+    st.subheader("Validated performance (optimism-corrected)")
+    st.caption("AUC for the cause of interest (competing events count as controls); Brier score and ICI of the "
+               "predicted cumulative incidence. No intervals: the bootstrap here corrects optimism only.")
+    state.table(corrected_table(result))
+    ext = external_table(result)
+    if ext is not None:
+        st.subheader("External cohort (95% interval from resampling its patients)")
+        state.table(ext)
+    for name, png in _pngs(key, result).items():
+        st.markdown(f"**{FIGURE_TITLES.get(name, name)}**")
+        st.image(png)
