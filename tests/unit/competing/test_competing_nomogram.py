@@ -20,19 +20,8 @@ from workbench.study import study_from_dict
 
 
 @pytest.fixture(scope="module")
-def cgvhd(tmp_path_factory):
-    from sksurv.datasets import load_cgvhd
-
-    X, y = load_cgvhd()
-    folder = tmp_path_factory.mktemp("cgvhd_nomogram")
-    clin = X.astype({c: str for c in ("dx", "tx", "extent")}).assign(
-        patient_id=[f"P{i:03d}" for i in range(len(X))], years=y["ftime"], status=y["status"].astype(str))
-    clin.to_csv(folder / "clinical.csv", index=False)
-    doc = {"study": {"name": "cgvhd", "horizons": [0.45, 0.65], "seed": 11},
-           "data": {"clinical": "clinical.csv", "time": "years", "time_unit": "years", "event": "status",
-                    "event_codes": ["1"], "competing_codes": ["2", "3"], "censor_codes": ["0"]},
-           "predictor": [{"column": "age"}, {"column": "dx", "kind": "categorical", "reference": "CML"},
-                         {"column": "extent", "kind": "categorical", "reference": "L"}]}
+def cgvhd(cgvhd_study):
+    folder, doc, _ = cgvhd_study
     result = run_competing(study_from_dict(doc, base=folder), replicates=0)
     arm = result.arms[("cause", "clinical")]
     sc = incidence_nomogram_scales(arm, result.cohort, result.horizons, cause_label="relapse", time_unit="years",

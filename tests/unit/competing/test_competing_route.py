@@ -92,23 +92,6 @@ def test_demo_signature_adds_more_for_cancer_death_than_for_all_cause_death(demo
 # ------------------------------------------------------------------ public dataset
 
 
-@pytest.fixture(scope="module")
-def cgvhd_study(tmp_path_factory):
-    from sksurv.datasets import load_cgvhd
-
-    X, y = load_cgvhd()
-    folder = tmp_path_factory.mktemp("cgvhd")
-    clin = X.astype({c: str for c in ("dx", "tx", "extent")}).assign(
-        patient_id=[f"P{i:03d}" for i in range(len(X))], years=y["ftime"], status=y["status"].astype(str))
-    clin.to_csv(folder / "clinical.csv", index=False)
-    doc = {"study": {"name": "cgvhd", "horizons": [0.45, 0.65], "seed": 11},
-           "data": {"clinical": "clinical.csv", "time": "years", "time_unit": "years", "event": "status",
-                    "event_codes": ["1"], "competing_codes": ["2", "3"], "censor_codes": ["0"]},
-           "predictor": [{"column": "age"}, {"column": "dx", "kind": "categorical", "reference": "CML"},
-                         {"column": "extent", "kind": "categorical", "reference": "L"}]}
-    return folder, doc, clin
-
-
 def test_clinical_only_public_dataset_runs_the_clinical_model(cgvhd_study, capsys):
     import tomli_w
 
