@@ -27,7 +27,7 @@ from workbench.study import StudySpec
 
 PROVENANCE_PACKAGES = (
     "survival-workbench", "numpy", "pandas", "scipy", "scikit-learn", "scikit-survival",
-    "lifelines", "matplotlib", "joblib",
+    "lifelines", "matplotlib", "joblib", "numba",
 )
 
 
