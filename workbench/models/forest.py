@@ -23,9 +23,7 @@ compiled code, in ``n_jobs`` threads.
 
 from __future__ import annotations
 
-import math
 import warnings
-from numbers import Integral, Real
 
 import numpy as np
 from joblib import Parallel, delayed, effective_n_jobs
@@ -35,7 +33,7 @@ from sklearn.utils import check_random_state
 from workbench.cohort.outcome import check_outcome, split_outcome
 from workbench.errors import ModelError, NotFittedError, WorkbenchWarning
 from workbench.metrics.concordance import harrell_c
-from workbench.models.forest_grow import MAX_BINS, grow_histogram_forest
+from workbench.models.forest_grow import MAX_BINS, grow_histogram_forest, resolve_settings
 from workbench.models.forest_importance import PermutationImportanceResult, permutation_importance
 from workbench.models.forest_library import grow_with_library
 from workbench.models.forest_parts import (
@@ -240,7 +238,7 @@ class SurvivalForest(BaseEstimator):
                 max_depth=self.max_depth, max_leaf_nodes=self.max_leaf_nodes, bootstrap=bool(self.bootstrap),
                 n_jobs=self.n_jobs, random_state=self.random_state))
         else:
-            settings = self._histogram_settings(n, Xa.shape[1])
+            settings = resolve_settings(self.get_params(), n, Xa.shape[1])
             # one seed per tree, drawn as scikit-learn's forests draw theirs
             seeds = check_random_state(self.random_state).randint(np.iinfo(np.int32).max, size=settings.pop("n_trees"))
             grown = grow_histogram_forest(Xa, time, event, grid, event_times, seeds=seeds, settings=settings,
@@ -281,47 +279,6 @@ class SurvivalForest(BaseEstimator):
             )
         self.oob_score_ = _harrell_c(y[scored], self.oob_risk_[scored])
         return self
-
-    def _histogram_settings(self, n: int, p: int) -> dict:
-        """The tree settings as the compiled builder takes them, checked."""
-        def whole(name, value, low):
-            if not isinstance(value, Integral) or isinstance(value, bool) or value < low:
-                raise ModelError(f"{name} must be a whole number of at least {low}, got {value!r}.")
-            return int(value)
-
-        def count_or_fraction(name, value, low, high):
-            if isinstance(value, Integral) and not isinstance(value, bool):
-                return whole(name, value, low)
-            if isinstance(value, Real) and 0.0 < value <= high:
-                return max(int(math.ceil(value * n)), low)
-            raise ModelError(f"{name} must be a whole number >= {low} or a fraction in (0, {high}], got {value!r}.")
-
-        leaf = count_or_fraction("min_samples_leaf", self.min_samples_leaf, 1, 0.5)
-        split = count_or_fraction("min_samples_split", self.min_samples_split, 2, 1.0)
-        mf = self.max_features
-        if mf is None:
-            mtry = p
-        elif mf == "sqrt":
-            mtry = max(1, int(math.sqrt(p)))
-        elif mf == "log2":
-            mtry = max(1, int(math.log2(p)))
-        elif isinstance(mf, Integral) and not isinstance(mf, bool) and 1 <= mf <= p:
-            mtry = int(mf)
-        elif isinstance(mf, Real) and not isinstance(mf, (bool, Integral)) and 0.0 < mf <= 1.0:
-            mtry = max(1, int(mf * p))
-        else:
-            raise ModelError(
-                f"max_features={mf!r} is not understood; use 'sqrt', 'log2', None, a whole number "
-                f"from 1 to {p} or a fraction in (0, 1]."
-            )
-        depth = -1 if self.max_depth is None else whole("max_depth", self.max_depth, 0)
-        leaves = 0 if self.max_leaf_nodes is None else whole("max_leaf_nodes", self.max_leaf_nodes, 2)
-        bins = whole("max_bins", self.max_bins, 2)
-        if bins > MAX_BINS:
-            raise ModelError(f"max_bins must be at most {MAX_BINS}, got {bins}.")
-        return {"n_trees": whole("n_estimators", self.n_estimators, 1), "mtry": mtry, "min_leaf": leaf,
-                "min_split": max(split, 2 * leaf), "max_depth": depth, "max_leaf_nodes": leaves,
-                "max_bins": bins, "bootstrap": bool(self.bootstrap)}
 
     # -------------------------------------------------------------- predict
 

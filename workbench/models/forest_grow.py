@@ -10,9 +10,13 @@ compiled builder releases the GIL.
 
 from __future__ import annotations
 
+import math
+from numbers import Integral, Real
+
 import numpy as np
 from joblib import Parallel, delayed
 
+from workbench.errors import ModelError
 from workbench.models.forest_parts import (
     GrownTree,
     bootstrap_counts,
@@ -74,3 +78,45 @@ def grow_histogram_forest(Xa, time, event, grid, event_times, *, seeds, settings
     if n_jobs in (None, 1) or len(seeds) == 1:
         return [one(s) for s in seeds]
     return Parallel(n_jobs=n_jobs, prefer="threads")(delayed(one)(s) for s in seeds)
+
+
+def resolve_settings(params: dict, n: int, p: int) -> dict:
+    """The forest's tree settings (``get_params()``) as the compiled builder takes them, checked."""
+    def whole(name, value, low):
+        if not isinstance(value, Integral) or isinstance(value, bool) or value < low:
+            raise ModelError(f"{name} must be a whole number of at least {low}, got {value!r}.")
+        return int(value)
+
+    def count_or_fraction(name, value, low, high):
+        if isinstance(value, Integral) and not isinstance(value, bool):
+            return whole(name, value, low)
+        if isinstance(value, Real) and 0.0 < value <= high:
+            return max(int(math.ceil(value * n)), low)
+        raise ModelError(f"{name} must be a whole number >= {low} or a fraction in (0, {high}], got {value!r}.")
+
+    leaf = count_or_fraction("min_samples_leaf", params["min_samples_leaf"], 1, 0.5)
+    split = count_or_fraction("min_samples_split", params["min_samples_split"], 2, 1.0)
+    mf = params["max_features"]
+    if mf is None:
+        mtry = p
+    elif mf == "sqrt":
+        mtry = max(1, int(math.sqrt(p)))
+    elif mf == "log2":
+        mtry = max(1, int(math.log2(p)))
+    elif isinstance(mf, Integral) and not isinstance(mf, bool) and 1 <= mf <= p:
+        mtry = int(mf)
+    elif isinstance(mf, Real) and not isinstance(mf, (bool, Integral)) and 0.0 < mf <= 1.0:
+        mtry = max(1, int(mf * p))
+    else:
+        raise ModelError(
+            f"max_features={mf!r} is not understood; use 'sqrt', 'log2', None, a whole number "
+            f"from 1 to {p} or a fraction in (0, 1]."
+        )
+    depth = -1 if params["max_depth"] is None else whole("max_depth", params["max_depth"], 0)
+    leaves = 0 if params["max_leaf_nodes"] is None else whole("max_leaf_nodes", params["max_leaf_nodes"], 2)
+    bins = whole("max_bins", params["max_bins"], 2)
+    if bins > MAX_BINS:
+        raise ModelError(f"max_bins must be at most {MAX_BINS}, got {bins}.")
+    return {"n_trees": whole("n_estimators", params["n_estimators"], 1), "mtry": mtry, "min_leaf": leaf,
+            "min_split": max(split, 2 * leaf), "max_depth": depth, "max_leaf_nodes": leaves,
+            "max_bins": bins, "bootstrap": bool(params["bootstrap"])}
