@@ -352,6 +352,8 @@ class SurvivalForest(BaseEstimator):
         out = np.zeros((n, walks[0][-1].shape[1]))
 
         def rows(lo: int, hi: int) -> None:
+            # one tree at a time over all rows keeps the tree's nodes in cache; blocks of rows
+            # through all trees were slower (measured at 50,000 rows: 1024-row blocks 1.4x)
             for walk in walks:
                 add_leaf_values(Xa, *walk, out, lo, hi)
 
