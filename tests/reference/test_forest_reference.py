@@ -26,8 +26,11 @@ from sksurv.preprocessing import OneHotEncoder
 from workbench.cohort.outcome import make_outcome
 from workbench.models.forest import SurvivalForest, permutation_importance
 
-# small forests keep the file fast; the identity holds tree by tree
+# small forests keep the file fast; the identity holds tree by tree. builder="library" grows
+# the library's own trees, so these tests check our leaf curves, risks, out-of-bag C and
+# importance exactly; our own builder is compared in test_forest_builder_reference.py
 GBSG2_TREES = dict(n_estimators=50, min_samples_leaf=15, max_features="sqrt", random_state=0)
+OURS = dict(GBSG2_TREES, builder="library")
 # floating-point reordering of the same products and sums, nothing more
 EXACT = 1e-10
 
@@ -52,7 +55,7 @@ def library_forest(gbsg2):
 
 def test_survival_on_full_grid_equals_library(gbsg2, library_forest):
     X_train, X_test, y_train, _ = gbsg2
-    ours = SurvivalForest(time_grid="all", **GBSG2_TREES).fit(X_train, y_train)
+    ours = SurvivalForest(time_grid="all", **OURS).fit(X_train, y_train)
     lib_probs = library_forest.predict_survival_function(X_test, return_array=True)
     # the library's own time axis includes censoring times, where curves stay flat
     our_probs = ours.predict_survival(X_test, library_forest.unique_times_)
@@ -61,7 +64,7 @@ def test_survival_on_full_grid_equals_library(gbsg2, library_forest):
 
 def test_survival_on_coarse_grid_equals_library_at_grid_and_is_bounded_between(gbsg2, library_forest):
     X_train, X_test, y_train, _ = gbsg2
-    ours = SurvivalForest(time_grid=20, **GBSG2_TREES).fit(X_train, y_train)
+    ours = SurvivalForest(time_grid=20, **OURS).fit(X_train, y_train)
     grid = ours.time_grid_
     lib_fns = library_forest.predict_survival_function(X_test)
     at_grid = np.array([fn(grid) for fn in lib_fns])
@@ -87,7 +90,7 @@ def test_risk_equals_library_predict_whatever_the_grid(gbsg2, library_forest):
     X_train, X_test, y_train, y_test = gbsg2
     lib_risk = library_forest.predict(X_test)
     for grid in (None, 10):
-        ours = SurvivalForest(time_grid=grid, **GBSG2_TREES).fit(X_train, y_train)
+        ours = SurvivalForest(time_grid=grid, **OURS).fit(X_train, y_train)
         risk = ours.predict_risk(X_test)
         np.testing.assert_allclose(risk, lib_risk, rtol=1e-12)
         assert spearmanr(risk, lib_risk).statistic == pytest.approx(1.0, abs=1e-12)
@@ -98,7 +101,7 @@ def test_risk_equals_library_predict_whatever_the_grid(gbsg2, library_forest):
 
 def test_out_of_bag_c_equals_library(gbsg2, library_forest):
     X_train, _, y_train, _ = gbsg2
-    ours = SurvivalForest(**GBSG2_TREES).fit(X_train, y_train)
+    ours = SurvivalForest(**OURS).fit(X_train, y_train)
     assert ours.oob_score_ == pytest.approx(library_forest.oob_score_, abs=1e-12)
 
 
@@ -106,7 +109,7 @@ def test_other_tree_settings_on_veterans_data():
     X_train, X_test, y_train, _ = _split(load_veterans_lung_cancer, "Status", "Survival_in_days")
     settings = dict(n_estimators=30, min_samples_leaf=5, max_features=None, max_depth=4, random_state=2)
     lib = RandomSurvivalForest(**settings).fit(X_train, y_train)
-    ours = SurvivalForest(time_grid="all", **settings).fit(X_train, y_train)
+    ours = SurvivalForest(time_grid="all", builder="library", **settings).fit(X_train, y_train)
     np.testing.assert_allclose(
         ours.predict_survival(X_test, lib.unique_times_),
         lib.predict_survival_function(X_test, return_array=True),
@@ -119,7 +122,7 @@ def test_other_tree_settings_on_veterans_data():
 def test_permutation_importance_equals_brute_force_with_library(gbsg2, library_forest):
     """Same shuffles, re-predicted by the library forest and scored by sksurv's C."""
     X_train, X_test, y_train, y_test = gbsg2
-    ours = SurvivalForest(**GBSG2_TREES).fit(X_train, y_train)
+    ours = SurvivalForest(**OURS).fit(X_train, y_train)
     res = permutation_importance(ours, X_test, y_test, n_repeats=2, random_state=7)
 
     def c(risk):

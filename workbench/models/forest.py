@@ -1,9 +1,11 @@
 """Random survival forest with survival curves kept on a fixed time grid.
 
-The trees are grown by scikit-survival in its low-memory mode, which stores no
-curve in any node. Leaf curves are then rebuilt from the in-bag training rows of
-each leaf (with their bootstrap multiplicities), but only at the points of a
-fixed time grid. Memory for the curves is therefore
+The trees are grown by our own histogram builder (:mod:`workbench.models.survtree`,
+compiled with numba; :mod:`workbench.models.forest_grow`), or, with
+``builder="library"``, by scikit-survival's (:mod:`workbench.models.forest_library`).
+No curve is stored in any node: leaf curves are built from the in-bag training
+rows of each leaf (with their bootstrap multiplicities), but only at the points
+of a fixed time grid. Memory for the curves is therefore
 
     n_trees x n_leaves_per_tree x n_grid x 8 bytes
 
@@ -11,32 +13,42 @@ instead of n_trees x n_nodes x n_unique_times x 16 bytes. With about
 ``0.632 n / min_samples_leaf`` leaves per tree, 200 trees on 5,000 patients with
 ``min_samples_leaf=15`` and a 100-point grid need about 34 MB.
 
-The estimates are those of scikit-survival's ``RandomSurvivalForest`` grown with
-the same settings and seed: the ensemble survival function is the mean over
-trees of the leaf Kaplan-Meier curves, and the risk score is the ensemble
-Nelson-Aalen cumulative hazard summed over all distinct training event times.
+The estimates have the meaning of scikit-survival's ``RandomSurvivalForest``:
+the ensemble survival function is the mean over trees of the leaf Kaplan-Meier
+curves, and the risk score is the ensemble Nelson-Aalen cumulative hazard summed
+over all distinct training event times; with ``builder="library"`` they are the
+library's values for the same seed. Prediction walks every tree for every row in
+compiled code, in ``n_jobs`` threads.
 """
 
 from __future__ import annotations
 
-import hashlib
 import warnings
-from collections.abc import Callable
-from dataclasses import dataclass
-from numbers import Integral
 
 import numpy as np
+from joblib import Parallel, delayed, effective_n_jobs
 from sklearn.base import BaseEstimator
-from sksurv.ensemble import RandomSurvivalForest
+from sklearn.utils import check_random_state
 
 from workbench.cohort.outcome import check_outcome, split_outcome
-from workbench.errors import MetricError, ModelError, NotFittedError, WorkbenchWarning
+from workbench.errors import ModelError, NotFittedError, WorkbenchWarning
 from workbench.metrics.concordance import harrell_c
+from workbench.models.forest_grow import MAX_BINS, grow_histogram_forest, resolve_settings
+from workbench.models.forest_importance import PermutationImportanceResult, permutation_importance
+from workbench.models.forest_library import grow_with_library
+from workbench.models.forest_parts import (
+    DEFAULT_GRID_SIZE,  # noqa: F401  (re-exported)
+    as_float32,
+    column_names,
+    fingerprint,
+    make_grid,
+)
+from workbench.models.survtree import add_leaf_values
 from workbench.predictions import RiskScores, SurvivalCurves
 
 __all__ = ["PermutationImportanceResult", "SurvivalForest", "permutation_importance"]
 
-DEFAULT_GRID_SIZE = 100
+BUILDERS = ("histogram", "library")
 
 
 class SurvivalForest(BaseEstimator):
@@ -47,12 +59,14 @@ class SurvivalForest(BaseEstimator):
     n_estimators : int, default 200
         Number of trees.
     min_samples_leaf : int or float, default 15
-        Minimum number of (bootstrap-weighted) patients in a leaf. Leaves of at
-        least 15 patients give steadier Kaplan-Meier curves than the library's
-        default of 3 (common practice) and keep the forest small.
+        Minimum number of distinct in-bag patients in a leaf (a patient drawn
+        twice by the bootstrap counts once, as in scikit-learn's trees); a float
+        is a fraction of the training rows, rounded up. Leaves of at least 15
+        patients give steadier Kaplan-Meier curves than the library's default
+        of 3 (common practice) and keep the forest small.
     min_samples_split : int or float, default 6
-        Minimum number of patients needed to split a node; the tree builder
-        raises it to ``2 * min_samples_leaf`` when that is larger.
+        Minimum number of distinct in-bag patients needed to split a node; the
+        tree builder raises it to ``2 * min_samples_leaf`` when that is larger.
     max_features : int, float, {"sqrt", "log2"} or None, default "sqrt"
         Number of predictors tried at each split.
     max_depth, max_leaf_nodes : int or None, default None
@@ -68,17 +82,30 @@ class SurvivalForest(BaseEstimator):
         - "all": every distinct training event time (exactly the library's
           curves, at the library's memory cost per leaf).
         - array: the given strictly increasing non-negative times.
+    bootstrap : bool, default True
+        Grow each tree on a bootstrap sample (multiplicities as frequency
+        weights). Without it every tree sees every row once and there is no
+        out-of-bag estimate (``oob_score_`` is NaN).
+    builder : {"histogram", "library"}, default "histogram"
+        "histogram": our compiled builder. Predictors are cut once into at most
+        ``max_bins`` quantile bins (every distinct value its own bin when there
+        are fewer), and each node tries every bin threshold of ``max_features``
+        randomly drawn predictors with the log-rank statistic.
+        "library": scikit-survival's tree builder, exact thresholds; with the
+        same seed and settings it grows the same trees as
+        ``sksurv.ensemble.RandomSurvivalForest`` (slower; kept for checks).
+    max_bins : int, default 255
+        Most bins per predictor for the histogram builder (2 to 255).
     n_jobs : int or None, default 1
-        Threads used to grow the trees.
+        Threads used to grow the trees and to predict.
     random_state : int, RandomState or None, default None
-        Seed for the bootstraps and the split candidates; the same seed and
-        settings grow the same trees as ``sksurv.ensemble.RandomSurvivalForest``.
+        Seed for the bootstraps and the predictor draws.
 
     Attributes
     ----------
     time_grid_ : ndarray of shape (n_grid,)
         Times at which curves are stored.
-    trees_ : list of sklearn.tree._tree.Tree
+    trees_ : list of SurvivalTree (or scikit-learn ``Tree`` with ``builder="library"``)
         The fitted trees (structure only, no curves).
     tree_seeds_ : ndarray of shape (n_estimators,)
         Seed of each tree's bootstrap, used to recover out-of-bag rows.
@@ -94,6 +121,9 @@ class SurvivalForest(BaseEstimator):
     oob_score_ : float
         Harrell's C of the out-of-bag risk scores on the training rows; rows
         that were in-bag for every tree are left out (with a warning).
+    oob_risk_ : ndarray of shape (n_train,)
+        Out-of-bag risk score of each training row (mean over the trees whose
+        bootstrap left it out; NaN for rows in every tree's bootstrap).
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Only when fitted on a DataFrame with string column names.
@@ -112,6 +142,7 @@ class SurvivalForest(BaseEstimator):
     :math:`\bar S(t) = B^{-1} \sum_b S_b(t)` and the risk score
     :math:`B^{-1} \sum_b \sum_k H_b(\tau_k)` over all distinct training event
     times :math:`\tau_k`. Both equal scikit-survival's values for the same trees.
+    The split rule and tree growth are described in :mod:`workbench.models.survtree`.
 
     ``predict_survival`` steps right-continuously between grid times: at
     :math:`g_k \le t < g_{k+1}` it returns :math:`\bar S(g_k)`, which exceeds
@@ -134,6 +165,8 @@ class SurvivalForest(BaseEstimator):
        observations. J Am Stat Assoc 1958;53:457-81.
     .. [4] Aalen O. Nonparametric inference for a family of counting
        processes. Ann Stat 1978;6:701-26.
+    .. [5] LeBlanc M, Crowley J. Survival trees by goodness of split. J Am Stat
+       Assoc 1993;88:457-67.
     """
 
     def __init__(
@@ -146,6 +179,9 @@ class SurvivalForest(BaseEstimator):
         max_depth: int | None = None,
         max_leaf_nodes: int | None = None,
         time_grid=None,
+        bootstrap: bool = True,
+        builder: str = "histogram",
+        max_bins: int = MAX_BINS,
         n_jobs: int | None = 1,
         random_state=None,
     ):
@@ -156,8 +192,12 @@ class SurvivalForest(BaseEstimator):
         self.max_depth = max_depth
         self.max_leaf_nodes = max_leaf_nodes
         self.time_grid = time_grid
+        self.bootstrap = bootstrap
+        self.builder = builder
+        self.max_bins = max_bins
         self.n_jobs = n_jobs
         self.random_state = random_state
+
 
     # ------------------------------------------------------------------ fit
 
@@ -175,8 +215,8 @@ class SurvivalForest(BaseEstimator):
         -------
         self
         """
-        names = _column_names(X)
-        Xa = _as_float32(X, "the training predictors")
+        names = column_names(X)
+        Xa = as_float32(X, "the training predictors")
         y = check_outcome(y)
         time, event = split_outcome(y)
         if time.size != Xa.shape[0]:
@@ -187,47 +227,33 @@ class SurvivalForest(BaseEstimator):
         if not event.any():
             raise ModelError("the training outcome contains no events; a survival forest needs events.")
         event_times = np.unique(time[event])
-        grid = _make_grid(self.time_grid, event_times)
-
-        forest = RandomSurvivalForest(
-            n_estimators=self.n_estimators,
-            min_samples_leaf=self.min_samples_leaf,
-            min_samples_split=self.min_samples_split,
-            max_features=self.max_features,
-            max_depth=self.max_depth,
-            max_leaf_nodes=self.max_leaf_nodes,
-            bootstrap=True,
-            n_jobs=self.n_jobs,
-            random_state=self.random_state,
-            low_memory=True,
-        )
-        try:
-            forest.fit(Xa, y)
-        except ValueError as exc:
-            raise ModelError(
-                f"the survival forest could not be grown: {exc}. Check the forest settings "
-                "(number of trees, leaf size, features per split)."
-            ) from exc
-
+        grid = make_grid(self.time_grid, event_times)
         n = Xa.shape[0]
-        self.trees_, self.leaf_survival_, self.leaf_risk_, self.node_to_leaf_ = [], [], [], []
-        self.tree_seeds_ = np.array([est.random_state for est in forest.estimators_], dtype=np.int64)
+        if self.builder not in BUILDERS:
+            raise ModelError(f"builder={self.builder!r} is not understood; use one of {BUILDERS}.")
+        if self.builder == "library":
+            grown = grow_with_library(Xa, y, time, event, grid, event_times, dict(
+                n_estimators=self.n_estimators, min_samples_leaf=self.min_samples_leaf,
+                min_samples_split=self.min_samples_split, max_features=self.max_features,
+                max_depth=self.max_depth, max_leaf_nodes=self.max_leaf_nodes, bootstrap=bool(self.bootstrap),
+                n_jobs=self.n_jobs, random_state=self.random_state))
+        else:
+            settings = resolve_settings(self.get_params(), n, Xa.shape[1])
+            # one seed per tree, drawn as scikit-learn's forests draw theirs
+            seeds = check_random_state(self.random_state).randint(np.iinfo(np.int32).max, size=settings.pop("n_trees"))
+            grown = grow_histogram_forest(Xa, time, event, grid, event_times, seeds=seeds, settings=settings,
+                                          n_jobs=self.n_jobs)
+
+        self.trees_ = [g.tree for g in grown]
+        self.node_to_leaf_ = [g.node_to_leaf for g in grown]
+        self.leaf_survival_ = [g.surv for g in grown]
+        self.leaf_risk_ = [g.risk for g in grown]
+        self.tree_seeds_ = np.array([g.seed for g in grown], dtype=np.int64)
         oob_num = np.zeros(n)
         oob_den = np.zeros(n)
-        for est, seed in zip(forest.estimators_, self.tree_seeds_, strict=True):
-            tree = est.tree_
-            weight = _bootstrap_counts(seed, n)
-            node_to_leaf, n_leaves = _leaf_numbering(tree)
-            leaf = node_to_leaf[tree.apply(Xa)]
-            _check_leaf_weights(tree, node_to_leaf, leaf, weight)
-            surv, risk = _leaf_estimates(leaf, n_leaves, time, event, weight, grid, event_times)
-            oob = weight == 0
-            oob_num[oob] += risk[leaf[oob]]
-            oob_den[oob] += 1
-            self.trees_.append(tree)
-            self.node_to_leaf_.append(node_to_leaf)
-            self.leaf_survival_.append(surv)
-            self.leaf_risk_.append(risk)
+        for g in grown:
+            oob_num[g.oob_rows] += g.oob_risk
+            oob_den[g.oob_rows] += 1
 
         self.time_grid_ = grid
         self.first_event_time_ = float(event_times[0])
@@ -236,8 +262,13 @@ class SurvivalForest(BaseEstimator):
         if names is not None:
             self.feature_names_in_ = names
         self.n_train_ = n
-        self.training_fingerprint_ = _fingerprint(Xa, time, event)
+        self.training_fingerprint_ = fingerprint(Xa, time, event)
         scored = oob_den > 0
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.oob_risk_ = np.where(scored, oob_num / oob_den, np.nan)
+        if not self.bootstrap:
+            self.oob_score_ = float("nan")
+            return self
         if not scored.all():
             warnings.warn(
                 f"{int((~scored).sum())} training patients were in every tree's bootstrap sample "
@@ -246,7 +277,7 @@ class SurvivalForest(BaseEstimator):
                 WorkbenchWarning,
                 stacklevel=2,
             )
-        self.oob_score_ = _harrell_c(y[scored], oob_num[scored] / oob_den[scored])
+        self.oob_score_ = _harrell_c(y[scored], self.oob_risk_[scored])
         return self
 
     # -------------------------------------------------------------- predict
@@ -265,10 +296,7 @@ class SurvivalForest(BaseEstimator):
             training event times (the expected number of events).
         """
         Xa = self._validate_X(X)
-        out = np.zeros(Xa.shape[0])
-        for tree, node_to_leaf, risk in zip(self.trees_, self.node_to_leaf_, self.leaf_risk_, strict=True):
-            out += risk[node_to_leaf[tree.apply(Xa)]]
-        return out / len(self.trees_)
+        return self._mean_over_trees(Xa, [r.reshape(-1, 1) for r in self.leaf_risk_])[:, 0]
 
     def predict_survival(self, X, times=None) -> np.ndarray:
         """Ensemble survival probabilities.
@@ -287,10 +315,7 @@ class SurvivalForest(BaseEstimator):
         """
         Xa = self._validate_X(X)
         cols = self._grid_columns(times)
-        grid_probs = np.zeros((Xa.shape[0], self.time_grid_.size))
-        for tree, node_to_leaf, surv in zip(self.trees_, self.node_to_leaf_, self.leaf_survival_, strict=True):
-            grid_probs += surv[node_to_leaf[tree.apply(Xa)]]
-        grid_probs /= len(self.trees_)
+        grid_probs = self._mean_over_trees(Xa, self.leaf_survival_)
         # column -1 stands for "before the first training event", where S = 1
         padded = np.concatenate([grid_probs, np.ones((Xa.shape[0], 1))], axis=1)
         return padded[:, cols]
@@ -315,10 +340,36 @@ class SurvivalForest(BaseEstimator):
                 "this survival forest has not been fitted yet; call fit(X, y) on training data first."
             )
 
+    def _mean_over_trees(self, Xa: np.ndarray, values: list[np.ndarray]) -> np.ndarray:
+        """Mean over trees of ``values[tree][leaf of row]``, rows split among ``n_jobs`` threads."""
+        walks = [
+            tuple(np.ascontiguousarray(a, dtype=np.int64) for a in (t.children_left, t.children_right, t.feature))
+            + (np.ascontiguousarray(t.threshold, dtype=np.float64), np.ascontiguousarray(nl, dtype=np.int64),
+               np.ascontiguousarray(v, dtype=np.float64))
+            for t, nl, v in zip(self.trees_, self.node_to_leaf_, values, strict=True)
+        ]
+        n = Xa.shape[0]
+        out = np.zeros((n, walks[0][-1].shape[1]))
+
+        def rows(lo: int, hi: int) -> None:
+            # one tree at a time over all rows keeps the tree's nodes in cache; blocks of rows
+            # through all trees were slower (measured at 50,000 rows: 1024-row blocks 1.4x)
+            for walk in walks:
+                add_leaf_values(Xa, *walk, out, lo, hi)
+
+        jobs = max(1, min(effective_n_jobs(self.n_jobs), n // 1000 + 1))
+        if jobs == 1:
+            rows(0, n)
+        else:
+            cuts = np.linspace(0, n, jobs + 1).astype(int)
+            Parallel(n_jobs=jobs, prefer="threads")(delayed(rows)(lo, hi) for lo, hi in zip(cuts[:-1], cuts[1:], strict=True))
+        out /= len(walks)
+        return out
+
     def _validate_X(self, X) -> np.ndarray:
         self._check_fitted()
         names = getattr(self, "feature_names_in_", None)
-        given = _column_names(X)
+        given = column_names(X)
         if names is not None and given is not None and not np.array_equal(names, given):
             missing = [c for c in names if c not in set(given)]
             if missing:
@@ -327,7 +378,7 @@ class SurvivalForest(BaseEstimator):
                     "supply the same columns as at training."
                 )
             X = X[list(names)]
-        Xa = _as_float32(X, "the predictors")
+        Xa = as_float32(X, "the predictors")
         if Xa.shape[1] != self.n_features_in_:
             raise ModelError(
                 f"the predictors have {Xa.shape[1]} columns but the forest was trained on "
@@ -362,306 +413,5 @@ class SurvivalForest(BaseEstimator):
         return cols
 
 
-# ------------------------------------------------------ permutation importance
-
-
-@dataclass(frozen=True)
-class PermutationImportanceResult:
-    """Loss of concordance when one predictor is shuffled, most important first.
-
-    Attributes
-    ----------
-    features : tuple of str
-        Predictor names, sorted by decreasing ``mean_drop`` (ties keep column order).
-    mean_drop, sd_drop : ndarray of shape (n_features,)
-        Mean and sample standard deviation (ddof=1; 0 for a single repeat) over
-        repeats of ``baseline - score with the predictor shuffled``.
-    drops : ndarray of shape (n_features, n_repeats)
-        Every repeat, in the same order as ``features``.
-    baseline : float
-        Score of the unshuffled predictions on the same rows.
-    metric : str
-    rows : {"held-out", "out-of-bag"}
-    n_rows : int
-        Patients that entered the score.
-    n_repeats : int
-    """
-
-    features: tuple[str, ...]
-    mean_drop: np.ndarray
-    sd_drop: np.ndarray
-    drops: np.ndarray
-    baseline: float
-    metric: str
-    rows: str
-    n_rows: int
-    n_repeats: int
-
-    def __post_init__(self):
-        for name in ("mean_drop", "sd_drop", "drops"):
-            arr = np.array(getattr(self, name), dtype=float)
-            arr.setflags(write=False)
-            object.__setattr__(self, name, arr)
-
-    def to_frame(self):
-        """The result as a pandas DataFrame, one row per predictor."""
-        import pandas as pd
-
-        return pd.DataFrame(
-            {"feature": list(self.features), "mean_drop": self.mean_drop, "sd_drop": self.sd_drop}
-        )
-
-
-def permutation_importance(
-    forest: SurvivalForest,
-    X,
-    y,
-    *,
-    n_repeats: int = 5,
-    random_state: int | np.random.Generator | None,
-    metric: str | Callable[[np.ndarray, np.ndarray], float] = "harrell_c",
-    rows: str = "held-out",
-) -> PermutationImportanceResult:
-    """Permutation importance of each predictor for a fitted :class:`SurvivalForest`.
-
-    Parameters
-    ----------
-    forest : SurvivalForest
-        A fitted forest.
-    X : array-like or DataFrame of shape (n_samples, n_features)
-    y : outcome array
-        Built with :func:`workbench.cohort.make_outcome`.
-    n_repeats : int, default 5
-        Shuffles per predictor.
-    random_state : int, numpy Generator or None
-        Seed of the shuffles; required so that tables can be reproduced (pass
-        None explicitly for fresh randomness).
-    metric : "harrell_c" or callable, default "harrell_c"
-        Score where higher is better; a callable receives ``(y, risk)`` with
-        ``risk`` higher = worse and returns a float.
-    rows : {"held-out", "out-of-bag"}, default "held-out"
-        "held-out": ``X, y`` are patients the forest was not trained on and every
-        tree predicts every row. "out-of-bag": ``X, y`` must be exactly the
-        training rows (checked against a fingerprint); each row is predicted
-        only by the trees whose bootstrap left it out, as for ``oob_score_``,
-        so no refit or held-out set is needed.
-
-    Returns
-    -------
-    PermutationImportanceResult
-
-    Notes
-    -----
-    For every predictor and repeat, the column is shuffled across all rows of
-    ``X`` (one permutation shared by all trees) and the ensemble risk score is
-    scored again. The shuffles are ``numpy.random.default_rng(random_state)
-    .permutation(n_samples)``, drawn predictor by predictor (in column order),
-    repeat by repeat. Only trees that split on that predictor change their
-    predictions, so only those are re-evaluated. This is permutation
-    importance, not impurity importance, which favours predictors with many
-    distinct values. With correlated predictors (as radiomic features are), a
-    shuffled predictor's information is partly still carried by its partners,
-    so each importance is a lower bound on what the predictor contributes.
-
-    References
-    ----------
-    .. [1] Breiman L. Random forests. Mach Learn 2001;45:5-32.
-    .. [2] Ishwaran H, Kogalur UB, Blackstone EH, Lauer MS. Random survival
-       forests. Ann Appl Stat 2008;2(3):841-60.
-    .. [3] Harrell FE, Califf RM, Pryor DB, Lee KL, Rosati RA. Evaluating the
-       yield of medical tests. JAMA 1982;247:2543-6.
-    """
-    if not isinstance(forest, SurvivalForest):
-        raise ModelError(f"permutation_importance needs a SurvivalForest, got {type(forest).__name__}.")
-    if rows not in ("held-out", "out-of-bag"):
-        raise ModelError(f"rows={rows!r} is not understood; use 'held-out' or 'out-of-bag'.")
-    if not isinstance(n_repeats, Integral) or n_repeats < 1:
-        raise ModelError(f"n_repeats must be a positive whole number, got {n_repeats!r}.")
-    score, metric_name = _resolve_metric(metric)
-    Xa = forest._validate_X(X)
-    y = check_outcome(y)
-    time, event = split_outcome(y)
-    n, p = Xa.shape
-    if time.size != n:
-        raise ModelError(f"the predictors have {n} rows but the outcome has {time.size}; they must match.")
-
-    n_trees = len(forest.trees_)
-    if rows == "out-of-bag":
-        if n != forest.n_train_ or _fingerprint(Xa, time, event) != forest.training_fingerprint_:
-            raise ModelError(
-                "rows='out-of-bag' needs exactly the training predictors and outcome, in the "
-                "training order; for other patients use rows='held-out'."
-            )
-        weight = np.stack([_bootstrap_counts(s, n) == 0 for s in forest.tree_seeds_]).astype(float)
-    else:
-        weight = np.ones((n_trees, n))
-    den = weight.sum(axis=0)
-    scored = den > 0
-    if scored.sum() < 2:
-        raise ModelError("fewer than two patients have predictions to score; use more trees or rows.")
-    y_scored = y[scored]
-
-    contrib = np.empty((n_trees, n))
-    uses = np.zeros((n_trees, p), dtype=bool)
-    for b, (tree, node_to_leaf, risk) in enumerate(
-        zip(forest.trees_, forest.node_to_leaf_, forest.leaf_risk_, strict=True)
-    ):
-        contrib[b] = risk[node_to_leaf[tree.apply(Xa)]] * weight[b]
-        uses[b, tree.feature[tree.feature >= 0]] = True
-    total = contrib.sum(axis=0)
-    baseline = score(y_scored, total[scored] / den[scored])
-
-    rng = np.random.default_rng(random_state)
-    drops = np.zeros((p, n_repeats))
-    work = Xa.copy()
-    for j in range(p):
-        affected = np.flatnonzero(uses[:, j])
-        unchanged = total - contrib[affected].sum(axis=0)
-        for r in range(n_repeats):
-            # draw for every predictor so that one predictor's shuffles do not depend on the others
-            work[:, j] = Xa[rng.permutation(n), j]
-            if affected.size == 0:
-                continue
-            new = unchanged.copy()
-            for b in affected:
-                tree = forest.trees_[b]
-                new += forest.leaf_risk_[b][forest.node_to_leaf_[b][tree.apply(work)]] * weight[b]
-            drops[j, r] = baseline - score(y_scored, new[scored] / den[scored])
-        work[:, j] = Xa[:, j]
-
-    names = getattr(forest, "feature_names_in_", None)
-    names = [str(c) for c in names] if names is not None else [f"x{j}" for j in range(p)]
-    mean = drops.mean(axis=1)
-    sd = drops.std(axis=1, ddof=1) if n_repeats > 1 else np.zeros(p)
-    order = np.argsort(-mean, kind="stable")
-    return PermutationImportanceResult(
-        features=tuple(names[j] for j in order),
-        mean_drop=mean[order],
-        sd_drop=sd[order],
-        drops=drops[order],
-        baseline=float(baseline),
-        metric=metric_name,
-        rows=rows,
-        n_rows=int(scored.sum()),
-        n_repeats=int(n_repeats),
-    )
-
-
-# ---------------------------------------------------------------- internals
-
-
-def _column_names(X) -> np.ndarray | None:
-    cols = getattr(X, "columns", None)
-    if cols is None or not all(isinstance(c, str) for c in cols):
-        return None
-    return np.asarray(list(cols), dtype=object)
-
-
-def _as_float32(X, what: str) -> np.ndarray:
-    # the trees compare float32 values, as scikit-learn converts them
-    try:
-        Xa = np.ascontiguousarray(np.asarray(X, dtype=np.float32))
-    except (TypeError, ValueError) as exc:
-        raise ModelError(
-            f"{what} contain non-numeric values ({exc}); encode categories as numbers "
-            "(for example one column per category) before fitting the forest."
-        ) from exc
-    if Xa.ndim != 2:
-        raise ModelError(f"{what} must be a table (2-D), got an array with {Xa.ndim} dimension(s).")
-    if not np.all(np.isfinite(Xa)):
-        rows = np.flatnonzero(~np.isfinite(Xa).all(axis=1))
-        raise ModelError(
-            f"{what} contain missing or infinite values (rows {rows[:5].tolist()}); "
-            "impute or drop them before using the forest."
-        )
-    return Xa
-
-
-def _make_grid(spec, event_times: np.ndarray) -> np.ndarray:
-    if spec is None:
-        spec = DEFAULT_GRID_SIZE
-    if isinstance(spec, str):
-        if spec != "all":
-            raise ModelError(f"time_grid={spec!r} is not understood; use None, an integer, 'all' or times.")
-        return event_times.copy()
-    if isinstance(spec, Integral) and not isinstance(spec, bool):
-        if spec < 2:
-            raise ModelError(f"time_grid={spec} is too small; ask for at least 2 grid times.")
-        levels = np.linspace(0.0, 1.0, int(spec))
-        # inverted_cdf picks observed event times, where the curves are exact
-        return np.unique(np.quantile(event_times, levels, method="inverted_cdf"))
-    grid = np.asarray(spec, dtype=float).ravel()
-    if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
-        raise ModelError("time_grid must hold finite, non-negative times.")
-    if np.any(np.diff(grid) <= 0):
-        raise ModelError("time_grid times must be strictly increasing; sort them and drop duplicates.")
-    return grid
-
-
-def _bootstrap_counts(seed: int, n: int) -> np.ndarray:
-    # scikit-learn's forest draws each tree's bootstrap as RandomState(seed).randint(0, n, n);
-    # _check_leaf_weights verifies the reconstruction against the tree itself
-    idx = np.random.RandomState(seed).randint(0, n, n)
-    return np.bincount(idx, minlength=n).astype(np.int64)
-
-
-def _leaf_numbering(tree) -> tuple[np.ndarray, int]:
-    is_leaf = tree.children_left == -1
-    node_to_leaf = np.full(tree.node_count, -1, dtype=np.int32)
-    node_to_leaf[is_leaf] = np.arange(int(is_leaf.sum()), dtype=np.int32)
-    return node_to_leaf, int(is_leaf.sum())
-
-
-def _check_leaf_weights(tree, node_to_leaf, leaf, weight) -> None:
-    per_leaf = np.bincount(leaf, weights=weight, minlength=int(node_to_leaf.max()) + 1)
-    expected = tree.weighted_n_node_samples[node_to_leaf >= 0]
-    if not np.allclose(per_leaf, expected):
-        raise ModelError(
-            "the bootstrap samples of the installed scikit-learn could not be reconstructed, "
-            "so leaf curves would be wrong; report this together with the scikit-learn version."
-        )
-
-
-def _leaf_estimates(leaf, n_leaves, time, event, weight, grid, event_times):
-    """Leaf Kaplan-Meier on ``grid`` and leaf summed Nelson-Aalen hazard, in one sort."""
-    inbag = weight > 0
-    order = np.lexsort((time[inbag], leaf[inbag]))
-    lf, t = leaf[inbag][order], time[inbag][order]
-    w = weight[inbag][order]
-    d = np.where(event[inbag][order], w, 0)
-    # integer weights keep the at-risk counts exact
-    before = np.cumsum(w) - w
-    leaf_first = np.searchsorted(lf, lf, side="left")
-    at_risk = np.bincount(lf, weights=w, minlength=n_leaves)[lf] - (before - before[leaf_first])
-    start = np.flatnonzero(np.r_[True, (lf[1:] != lf[:-1]) | (t[1:] != t[:-1])])
-    d_g = np.add.reduceat(d, start)
-    keep = d_g > 0
-    l_g, t_g = lf[start][keep], t[start][keep]
-    n_g, d_g = at_risk[start][keep], d_g[keep].astype(float)
-
-    factors = np.ones((n_leaves, grid.size + 1))
-    np.multiply.at(factors, (l_g, np.searchsorted(grid, t_g, side="left")), 1.0 - d_g / n_g)
-    surv = np.cumprod(factors[:, :-1], axis=1)
-
-    later_event_times = event_times.size - np.searchsorted(event_times, t_g, side="left")
-    risk = np.bincount(l_g, weights=d_g / n_g * later_event_times, minlength=n_leaves)
-    return surv, risk
-
-
-def _fingerprint(Xa: np.ndarray, time: np.ndarray, event: np.ndarray) -> str:
-    h = hashlib.sha256()
-    for part in (np.asarray(Xa.shape, dtype=np.int64), Xa, time.astype(np.float64), event.astype(np.uint8)):
-        h.update(np.ascontiguousarray(part).tobytes())
-    return h.hexdigest()
-
-
 def _harrell_c(y: np.ndarray, risk: np.ndarray) -> float:
     return harrell_c(y, RiskScores(risk, model="survival forest")).c_index
-
-
-def _resolve_metric(metric):
-    if callable(metric):
-        return (lambda y, risk: float(metric(y, risk))), getattr(metric, "__name__", "custom")
-    if metric == "harrell_c":
-        return _harrell_c, "harrell_c"
-    raise MetricError(f"metric={metric!r} is not available; use 'harrell_c' or a function (y, risk) -> score.")

@@ -14,13 +14,15 @@ learned attributes named in the table, one by one. The encoder refuses an
 object that carries a learned attribute (``name_``) missing from the table, so
 that a new attribute cannot be dropped silently from a saved model.
 
-The random survival forest is the one special case: its trees are scikit-learn
-``Tree`` objects, whose only serialisation is pickle. What prediction needs is
-stored instead, for all trees at once: the node arrays (children, split
-feature, threshold), each node's leaf number and the leaf curves on the time
-grid. They are rebuilt as :class:`StoredTree`, a predict-only tree with the
-same ``apply`` rule (go left when ``x[feature] <= threshold``, comparing the
-float32 input in double precision as scikit-learn does).
+The random survival forest is the one special case: its trees (our own
+:class:`~workbench.models.survtree.SurvivalTree`, or scikit-learn ``Tree``
+objects, whose only serialisation is pickle, when grown with
+``builder="library"``) are stored, for all trees at once, as what prediction
+needs: the node arrays (children, split feature, threshold), each node's leaf
+number and the leaf curves on the time grid. They are rebuilt as
+:class:`StoredTree` (the same class as ``SurvivalTree``), with the same
+``apply`` rule (go left when ``x[feature] <= threshold``, comparing the float32
+input in double precision as scikit-learn does).
 """
 
 from __future__ import annotations
@@ -42,6 +44,7 @@ from workbench.models.penalized import PenalizedPathResult
 from workbench.models.recalibrated import RecalibratedModel
 from workbench.models.signature import ClinicalPlusImagingCox, ImagingSignature
 from workbench.models.stability import StabilityResult
+from workbench.models.survtree import SurvivalTree
 from workbench.models.wide import ForestModel, PenalisedAllCox
 from workbench.preprocess.clinical import ClinicalTransformer, PredictorSpec, TermInfo
 from workbench.preprocess.harmonize import ComBat
@@ -264,38 +267,13 @@ def _dataclass_codec(cls: type) -> Codec:
 # ---------------------------------------------------------------- forest
 
 
-class StoredTree:
-    """A predict-only decision tree rebuilt from its node arrays.
-
-    Holds what :class:`~workbench.models.forest.SurvivalForest` uses of a
-    scikit-learn tree: ``children_left``, ``children_right``, ``feature``,
-    ``threshold``, ``node_count`` and :meth:`apply`.
-    """
-
-    def __init__(self, children_left, children_right, feature, threshold):
-        self.children_left = np.asarray(children_left, dtype=np.intp)
-        self.children_right = np.asarray(children_right, dtype=np.intp)
-        self.feature = np.asarray(feature, dtype=np.intp)
-        self.threshold = np.asarray(threshold, dtype=np.float64)
-        self.node_count = int(self.children_left.size)
-
-    def apply(self, X) -> np.ndarray:
-        """Leaf node index of every row, walking all rows one tree level at a time."""
-        X = np.asarray(X)
-        node = np.zeros(X.shape[0], dtype=np.intp)
-        active = np.flatnonzero(self.children_left[node] != -1)
-        while active.size:
-            nd = node[active]
-            # float32 inputs against float64 thresholds, promoted as scikit-learn's tree does
-            left = X[active, self.feature[nd]].astype(np.float64) <= self.threshold[nd]
-            nxt = np.where(left, self.children_left[nd], self.children_right[nd])
-            node[active] = nxt
-            active = active[self.children_left[nxt] != -1]
-        return node
+# Predict-only trees rebuilt from their node arrays: the forest's own tree class
+# (go left when x[feature] <= threshold, float32 input compared in double precision).
+StoredTree = SurvivalTree
 
 
 _FOREST_PLAIN = ("tree_seeds_", "time_grid_", "first_event_time_", "last_event_time_", "n_features_in_",
-                 "feature_names_in_", "n_train_", "training_fingerprint_", "oob_score_")
+                 "feature_names_in_", "n_train_", "training_fingerprint_", "oob_score_", "oob_risk_")
 _FOREST_STATE = (*_FOREST_PLAIN, "trees_", "node_to_leaf_", "leaf_survival_", "leaf_risk_")
 
 

@@ -11,7 +11,7 @@ def test_horizons_on_the_grid_give_exact_survival(simulated_cohort, demo_predict
     cohort, _ = simulated_cohort
     h = (13.7, 29.3)
     coarse = ForestModel(demo_predictors, n_estimators=30, time_grid=8, extra_times=h, random_state=1).fit(cohort)
-    # a grid as long as the cohort holds every event time: the library forest's own curves
+    # a grid as long as the cohort holds every event time: the full-resolution curves
     full = ForestModel(demo_predictors, n_estimators=30, time_grid=cohort.n, random_state=1).fit(cohort)
     np.testing.assert_allclose(coarse.predict_survival(cohort, h).probs, full.predict_survival(cohort, h).probs,
                                atol=1e-12)
