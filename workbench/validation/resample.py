@@ -100,7 +100,7 @@ from workbench.validation.estimators import INTERVALS, _summarise
 from workbench.validation.estimators_bootstrap import ESTIMATORS, no_information
 from workbench.validation.evaluate import ibs_grid, metric_names
 from workbench.validation.external import validate_external
-from workbench.validation.intervals import CV_RULE, TWO_STAGE_RULE
+from workbench.validation.intervals import CV_MIN_FOLD_VALUES, CV_RULE, TWO_STAGE_RULE
 from workbench.validation.plans import (
     _bootstrap_plan,
     _copy_seed,
@@ -361,7 +361,8 @@ def validate(
     two_stage = two_stage and (replicates > 0 or method == "cv")
     two_stage = two_stage and (method != "cv" or cv_interval == "two-stage")
     # cross-validation without outer samples: the corrected resampled t interval, n_test/n_train = 1/(k-1)
-    cv_ratio = 1.0 / (int(folds) - 1) if method == "cv" and not two_stage else None
+    cv_ratio = (1.0 / (int(folds) - 1) if method == "cv" and not two_stage
+                and int(folds) * max(n_rep.values()) >= CV_MIN_FOLD_VALUES else None)
     extra = []
     if two_stage:
         caps = {nm: min(int(outer_replicates), r if model_replicates and nm in model_replicates
@@ -404,7 +405,7 @@ def validate(
         n_events=cohort.n_events, apparent=apparent, apparent_pairs=apparent_pairs, fits=fits,
         n_replicates=n_rep, centres=centres, conf_level=conf_level, seed_entropy=int(root.entropy),
         estimator=estimators, interval=interval if two_stage else (
-            "shifted-percentile" if method == "bootstrap" else "corrected-t" if method == "cv" else ""),
+            "shifted-percentile" if method == "bootstrap" else "corrected-t" if cv_ratio is not None else ""),
         outer_estimates=outer,
         outer_net_benefit=outer_nb,
         settings={"estimator": estimator, "interval": interval, "outer_replicates": int(outer_replicates),

@@ -165,5 +165,6 @@ def test_cv_interval_is_the_corrected_resampled_t_interval_of_the_fold_values(sm
                    calibration=False)
     e = few.estimates["a"]["harrell_c"]
     assert np.isnan(e.ci_lower) and "fewer than 10 held-out fold values" in e.note
+    assert few.interval == "" and compare_models(few, "b", "a").differences["harrell_c"].interval == ""
     with pytest.raises(SpecError, match="cv_interval"):
         validate(models, small, H, method="cv", folds=3, repeats=2, cv_interval="magic", backend="serial")
