@@ -38,7 +38,8 @@ the same outer samples, paired. The .632+ no-information values of the data are
 reused inside outer samples.
 
 Cost: ``outer * (inner + 1)`` refits per model for the bootstrap estimators and
-``outer * (folds + 1)`` for cross-validation, on top of the estimate itself.
+``outer * (folds + 1)`` for cross-validation (only with ``cv_interval="two-stage"``), on top of
+the estimate itself.
 
 References
 ----------
