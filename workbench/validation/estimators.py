@@ -194,7 +194,7 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
 
 def cv_test_train_ratio(result) -> float | None:
     """n_test / n_train = 1 / (k - 1) of a cross-validation run whose interval is :func:`~.intervals.cv_interval`."""
-    if result.method != "cv" or result.interval != "corrected-t":
+    if result.method != "cv" or getattr(result, "interval", "") != "corrected-t":
         return None
     return 1.0 / (int(result.settings["folds"]) - 1)
 
