@@ -167,7 +167,7 @@ def cv_interval(v: np.ndarray, estimate: float, test_train_ratio: float, conf_le
     above the upper end. On 60 of the n = 120 cohorts the two-stage interval it replaced
     (20 outer samples) covered 1.000 for both, with widths 0.188 and 0.124 against 0.145
     and 0.079, at 2.9 times the CPU time. The same fold values without the n_test/n_train
-    term cover 0.41-0.54. Only C and the C difference are benchmarked. NaN with fewer
+    term cover 0.40-0.54. Only C and the C difference are benchmarked. NaN with fewer
     than :data:`CV_MIN_FOLD_VALUES` finite fold values.
 
     References
