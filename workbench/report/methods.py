@@ -25,6 +25,8 @@ References
    Stat Med 1993;12:2305-14.
 .. [7] Austin PC, Harrell FE Jr, van Klaveren D. Graphical calibration curves and
    the integrated calibration index (ICI) for survival models. Stat Med 2020;39:2714-42.
+.. [8] Nadeau C, Bengio Y. Inference for the generalization error. Machine Learning
+   2003;52:239-81 (corrected resampled t interval of cross-validation).
 """
 
 from __future__ import annotations
@@ -33,7 +35,7 @@ import numpy as np
 
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.results import results_dict
-from workbench.validation.intervals import TWO_STAGE_RULE
+from workbench.validation.intervals import CV_MIN_FOLD_VALUES, CV_RULE, TWO_STAGE_RULE
 
 REPLICATES_COMMON = 200
 """Bootstrap replicates usually asked of a final analysis (common practice)."""
@@ -146,6 +148,15 @@ def _interval_text(v: dict) -> str:
                 "Tibshirani 1993); it describes the expected performance of the modelling process "
                 "at this sample size. Intervals are limited to each measure's possible range and are "
                 "not reported where they cannot be computed.")
+    if v.get("interval") == "corrected-t":
+        k, r = s.get("folds"), s.get("repeats")
+        return (f"{level} intervals of the cross-validated estimates are the {CV_RULE}, here J = {k} x {r} "
+                f"and n_test/n_train = 1/{int(k or 2) - 1}; differences between models use "
+                "the paired per-fold differences. The correction term accounts for the overlap of the "
+                "training sets of the folds, which makes the fold values correlated. The interval "
+                "describes the expected performance of the modelling process at this sample size. "
+                f"Intervals need at least {CV_MIN_FOLD_VALUES} fold values, are limited to each measure's "
+                "possible range and are not reported where they cannot be computed.")
     if v.get("interval") == "shifted-percentile":
         return (f"{level} intervals are the percentile intervals of the bootstrap-sample performance, "
                 "moved so that their centre maps to the corrected estimate (an approximate interval "

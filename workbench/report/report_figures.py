@@ -262,6 +262,7 @@ def _figures(result, d: dict) -> dict:
 _BAND_WORDS = {
     "two-stage": "with a two-stage bootstrap band (over outer bootstrap samples, paired)",
     "shifted-percentile": "with the cheap shifted-percentile paired bootstrap band",
+    "corrected-t": "with a corrected resampled t band (over the paired per-fold differences)",
 }
 
 

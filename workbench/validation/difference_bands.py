@@ -9,7 +9,9 @@ validation already holds; nothing is refitted.
 
 * internal: estimate = the validated decision curves of the comparison, subtracted
   (optimism: ``(A_m - A_b) - mean((B_m - B_b) - (O_m - O_b))`` at each threshold;
-  out-of-bootstrap, .632+ and cv as there). Band, pointwise: with the two-stage interval,
+  out-of-bootstrap, .632+ and cv as there). Band, pointwise: for cross-validation, the
+  corrected resampled t interval (:func:`~.intervals.cv_interval`) of the paired per-fold
+  differences (not benchmarked for net benefit); with the two-stage interval,
   the two-stage interval (:func:`~.intervals.two_stage_interval`) of the paired
   differences of the validated curves in the outer bootstrap samples (the interval of the scalar differences, per
   threshold); otherwise, for the optimism estimator, the cheap location-shifted
@@ -51,8 +53,10 @@ import numpy as np
 from workbench.errors import SpecError, WorkbenchError
 from workbench.metrics.td_auc import time_dependent_auc
 from workbench.validation.intervals import (
+    CV_RULE,
     RESAMPLE_RULE,
     TWO_STAGE_RULE,
+    cv_interval,
     guard,
     resample_band,
     two_stage_interval,
@@ -194,6 +198,18 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
                                   lower=lo, upper=hi, band="two-stage",
                                   note=f"validated difference; band: {TWO_STAGE_RULE} of the paired "
                                        "differences of the validated curves in the outer bootstrap samples")
+        if result.method == "cv" and getattr(result, "interval", "") == "corrected-t":
+            from workbench.validation.estimators import cv_test_train_ratio
+
+            d = rm.nb_test[ra, j] - rbm.nb_test[rb, j]
+            lo, hi = nan.copy(), nan.copy()
+            for k in range(x.size):
+                lo[k], hi[k] = cv_interval(d[:, k], est[k], cv_test_train_ratio(result), result.conf_level)
+            lo, hi = _guarded("net_benefit", est, lo, hi)
+            return DifferenceBand(**common, estimate=est, lower=lo, upper=hi,
+                                  band="corrected-t" if np.isfinite(lo).any() else "",
+                                  note=f"cross-validated difference; band: {CV_RULE}, of the paired per-fold "
+                                       "differences, pointwise")
         if result.method == "bootstrap" and est_name == {"optimism"} and ra.size >= 2:
             b = rm.nb_train[ra, j] - rbm.nb_train[rb, j]
             lo, hi = _pct(b, result.conf_level)

@@ -15,7 +15,12 @@ from workbench.errors import ModelError
 from workbench.validation.estimators_bootstrap import bootstrap_estimate
 from workbench.validation.estimators_cv import by_centre_estimate, cv_estimate, external_estimate
 from workbench.validation.evaluate import metric_names, pair_metric_names
-from workbench.validation.intervals import guard, two_stage_interval
+from workbench.validation.intervals import (
+    CV_MIN_FOLD_VALUES,
+    cv_interval,
+    guard,
+    two_stage_interval,
+)
 from workbench.validation.results import (
     MetricEstimate,
     ReplicateFailure,
@@ -28,8 +33,8 @@ INTERVALS = ("two-stage", "shifted-percentile")
 _NO_INTERVAL = {
     "bootstrap": "no interval: the out-of-bootstrap and .632+ estimates need the two-stage "
                  "bootstrap for an interval ([validation] interval = 'two-stage')",
-    "cv": "no interval: cross-validation intervals need the two-stage bootstrap "
-          "([validation] interval = 'two-stage')",
+    "cv": f"no interval: fewer than {CV_MIN_FOLD_VALUES} held-out fold values (more folds or repeats "
+          "give one)",
     "by_centre": "",
     "external": "no interval: fewer than 10 usable resamples of the external patients (more replicates "
                 "give one)",
@@ -38,13 +43,17 @@ _NO_INTERVAL = {
 
 def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_level: float,
                estimator: str = "optimism", gamma: np.ndarray | None = None,
-               outer: np.ndarray | None = None, difference: bool = False) -> dict:
+               outer: np.ndarray | None = None, difference: bool = False,
+               cv_ratio: float | None = None) -> dict:
     """One MetricEstimate per metric of ``rm``.
 
     ``estimator`` (bootstrap only): "optimism", "oob" or "632plus"; ``gamma``: the
     no-information values for .632+; ``outer``: estimates of the same estimator in
     each outer sample of the two-stage bootstrap (rows) for the interval;
-    ``difference``: the values are model-minus-baseline differences (range checks).
+    ``difference``: the values are model-minus-baseline differences (range checks);
+    ``cv_ratio`` (cv without outer samples): n_test / n_train of the folds, for the
+    corrected resampled t interval (:func:`~.intervals.cv_interval`) of the held-out
+    fold values.
     """
     out = {}
     for j, name in enumerate(rm.names):
@@ -63,6 +72,9 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
             ilabel = "normal"
         elif method == "cv":
             est, sd, used = cv_estimate(rm.test[:, j], rm.replicate, rm.ok)
+            if outer is None and cv_ratio is not None:
+                lo, hi = cv_interval(rm.test[rm.ok, j], est, cv_ratio, conf_level)
+                ilabel = "corrected-t"
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
         if outer is not None and outer.shape[0]:
@@ -119,7 +131,8 @@ def _pair_metrics(key, tasks, outputs, arms, names, with_fold) -> ReplicateMetri
 
 
 def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, horizons,
-               arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None):
+               arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None,
+               cv_ratio=None):
     names = metric_names(horizons)
     pnames = pair_metric_names(horizons)
     first = next(iter(apparent.values()))
@@ -132,7 +145,7 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
         replicates[name] = rm
         est_name = (estimator or {}).get(name, "optimism")
         estimates[name] = _estimates(method, apparent[name].vector(), rm, conf_level, est_name,
-                                     (gammas or {}).get(name), (outer or {}).get(name))
+                                     (gammas or {}).get(name), (outer or {}).get(name), cv_ratio=cv_ratio)
         recs = [(t, o["models"][name]) for t, o in zip(tasks, outputs, strict=True) if name in o["models"]]
         for t, rec in recs:
             if not rec["ok"]:
@@ -171,11 +184,19 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
         pair_reps[key] = rm
         ests = {(estimator or {}).get(nm, "optimism") for nm in key}
         pair_est[key] = _estimates(method, pp.vector(), rm, conf_level,
-                                   "optimism" if ests == {"optimism"} else "oob", difference=True)
+                                   "optimism" if ests == {"optimism"} else "oob", difference=True,
+                                   cv_ratio=cv_ratio)
     return dict(metric_names=names, pair_metric_names=pnames, replicates=replicates,
                 estimates=estimates, failures=failures, failure_log=tuple(log),
                 dropped_metrics=dropped, selection=selection, warning_counts=warn,
                 pair_replicates=pair_reps, pair_estimates=pair_est)
+
+
+def cv_test_train_ratio(result) -> float | None:
+    """n_test / n_train = 1 / (k - 1) of a cross-validation run whose interval is :func:`~.intervals.cv_interval`."""
+    if result.method != "cv" or getattr(result, "interval", "") != "corrected-t":
+        return None
+    return 1.0 / (int(result.settings["folds"]) - 1)
 
 
 def difference_estimates(result, model: str, baseline: str, paired: ReplicateMetrics,
@@ -187,7 +208,8 @@ def difference_estimates(result, model: str, baseline: str, paired: ReplicateMet
     corrected estimates). Out-of-bootstrap and .632+: the difference of the two
     models' estimates (the .632+ weights are not linear in the values). Two-stage
     intervals: :func:`~.intervals.two_stage_interval` of the paired differences of
-    the outer-sample estimates.
+    the outer-sample estimates. Cross-validation without outer samples: the corrected
+    resampled t interval (:func:`~.intervals.cv_interval`) of the paired per-fold differences.
     """
     ests = {result.estimator.get(m, "optimism") for m in (model, baseline)}
     if len(ests) > 1:
@@ -198,7 +220,7 @@ def difference_estimates(result, model: str, baseline: str, paired: ReplicateMet
     outer = None if om is None or ob is None else om - ob
     if result.method != "bootstrap" or est_name == "optimism":
         return _estimates(result.method, a_diff, paired, result.conf_level, est_name,
-                          outer=outer, difference=True)
+                          outer=outer, difference=True, cv_ratio=cv_test_train_ratio(result))
     out = {}
     for j, nm in enumerate(paired.names):
         em, eb = result.estimates[model][nm], result.estimates[baseline][nm]

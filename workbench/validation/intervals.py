@@ -132,9 +132,61 @@ def two_stage_interval(v: np.ndarray, estimate: float, conf_level: float) -> tup
     difference was 0.028 against 0.015 across cohorts (C: 0.046 against 0.031), the same
     over-dispersion as the bootstrap outer stage, so duplicated patients are not the cause;
     the spread of a refitted model's CV estimate at a smaller training size is. The
-    cross-validated C-difference interval therefore stays conservative.
+    engine therefore gives cross-validation its own interval, :func:`cv_interval`, with no
+    outer stage; this rule stays for the bootstrap estimators (and for cross-validation
+    only with ``validate(..., cv_interval="two-stage")``).
     """
     return bias_corrected_normal(v, estimate, conf_level)
+
+
+CV_RULE = ("corrected resampled t interval (Nadeau & Bengio 2003): variance (1/J + n_test/n_train) times the "
+           "variance of the J = folds x repeats held-out fold values, t on J - 1 df")
+"""How :func:`cv_interval` forms the interval of repeated k-fold cross-validation (for texts)."""
+
+CV_MIN_FOLD_VALUES = 10
+"""Fewest held-out fold values (folds x repeats) :func:`cv_interval` forms an interval from."""
+
+
+def cv_interval(v: np.ndarray, estimate: float, test_train_ratio: float, conf_level: float) -> tuple[float, float]:
+    """Interval of a repeated k-fold cross-validated estimate from its J held-out fold values ``v``.
+
+    ``estimate -+ t_{J-1} * sqrt((1/J + n_test/n_train) * s^2)``, ``s^2`` the variance of
+    the J = k x r fold values (of a metric, or of the paired per-fold difference of two
+    models): the corrected resampled t statistic of Nadeau & Bengio (2003) in the
+    repeated k-fold form of Bouckaert & Frank (2004), ``n_test/n_train = 1/(k - 1)``.
+    The fold values share training patients, so ``s^2 / J`` (the naive variance) is far
+    too small; the ``n_test/n_train`` term stands for their correlation. No outer
+    resampling is needed, so the interval costs nothing beyond the estimate.
+
+    Measured in bench/bench_cv_intervals.py (nominal 0.95, target 0.92-0.98; small Cox
+    models x1 + x2 vs x1 + x2 + x3, 5-fold x 10 repeats; conditional / expected estimand):
+    200 cohorts of n = 120, C 0.935 / 0.945, C difference 0.980 / 0.965 (MC SE 0.010-0.017;
+    mean reported SE 0.019 against an SD of the difference of 0.015-0.017); 200 cohorts of
+    n = 300, C 0.950 / 0.945, C difference 0.985 / 0.985 (MC SE 0.009-0.016; SE 0.0103
+    against SD 0.009-0.010) - the difference one MC SE above the upper end; n = 120 with
+    5-fold x 3 repeats (J = 15), C 0.955 / 0.950, C difference 0.990 / 0.975 (MC SE
+    0.007-0.015). So the difference interval is still somewhat conservative, far less so
+    than before. On 60 of the n = 120 cohorts the two-stage interval it replaced
+    (20 outer samples) covered 1.000 for both, with widths 0.188 and 0.124 against 0.145
+    and 0.079, at 2.9 times the CPU time. The same fold values without the n_test/n_train
+    term cover 0.40-0.54. Only C and the C difference are benchmarked. NaN with fewer
+    than :data:`CV_MIN_FOLD_VALUES` finite fold values.
+
+    References
+    ----------
+    .. [1] Nadeau C, Bengio Y. Inference for the generalization error. Machine
+           Learning 2003;52:239-81.
+    .. [2] Bouckaert RR, Frank E. Evaluating the replicability of significance tests
+           for comparing learning algorithms. PAKDD 2004, LNAI 3056:3-12.
+    """
+    v = np.asarray(v, dtype=float)
+    v = v[np.isfinite(v)]
+    j = v.size
+    if j < CV_MIN_FOLD_VALUES or not np.isfinite(estimate) or not np.isfinite(test_train_ratio):
+        return np.nan, np.nan
+    var = (1.0 / j + float(test_train_ratio)) * float(np.var(v, ddof=1))
+    half = float(t_dist.ppf(0.5 + conf_level / 2.0, j - 1)) * np.sqrt(var)
+    return estimate - half, estimate + half
 
 
 RESAMPLE_RULE = ("normal interval around the estimate (t on B - 1 df times the standard deviation of the "

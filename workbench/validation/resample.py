@@ -35,15 +35,14 @@ Intervals
 ``interval="two-stage"`` (the study-file default): the same estimator is re-run
 inside outer bootstrap samples of the patients and the interval is formed from
 those estimates (:func:`.intervals.two_stage_interval`: bias-corrected normal
-interval, for the bootstrap estimators and cross-validation alike; see
-:mod:`.two_stage`); it targets the expected
+interval; see :mod:`.two_stage`), for the bootstrap estimators; it targets the expected
 performance of the modelling process at this sample size.
 ``interval="shifted-percentile"`` (this function's default, cheap): the
 percentile interval of B moved so that mean(B) maps to the optimism-corrected
 estimate, [est + q_2.5(B) - mean(B), est + q_97.5(B) - mean(B)]. It ignores the
 variability of the optimism and covered about 0.87 for a nominal 0.95 in
-simulation; it is not defined for the other estimators or for cv (NaN with a
-note). Every interval is clipped to the metric's range and withdrawn (NaN + a
+simulation; it is not defined for the other estimators (NaN with a note).
+Cross-validation has its own interval whatever ``interval`` says (below). Every interval is clipped to the metric's range and withdrawn (NaN + a
 note) rather than reported with zero width or excluding its own estimate
 (:mod:`.intervals`).
 
@@ -51,8 +50,11 @@ Cross-validation
 ----------------
 Repeated stratified k-fold (folds by patient id, balanced for events): each
 metric is averaged over the folds of a repeat; the estimate is the mean of the
-repeat means and ``sd`` their standard deviation across repeats; the interval
-comes from the two-stage bootstrap when asked for.
+repeat means and ``sd`` their standard deviation across repeats. The interval is
+the corrected resampled t interval of the k x r held-out fold values
+(:func:`.intervals.cv_interval`, Nadeau & Bengio 2003), differences from the
+paired per-fold differences; it needs no outer samples. ``cv_interval="two-stage"``
+keeps the two-stage bootstrap for comparison (bench/bench_cv_intervals.py).
 
 Leave-one-centre-out
 --------------------
@@ -98,7 +100,7 @@ from workbench.validation.estimators import INTERVALS, _summarise
 from workbench.validation.estimators_bootstrap import ESTIMATORS, no_information
 from workbench.validation.evaluate import ibs_grid, metric_names
 from workbench.validation.external import validate_external
-from workbench.validation.intervals import TWO_STAGE_RULE
+from workbench.validation.intervals import CV_MIN_FOLD_VALUES, CV_RULE, TWO_STAGE_RULE
 from workbench.validation.plans import (
     _bootstrap_plan,
     _copy_seed,
@@ -131,6 +133,9 @@ __all__ = [
 ]
 
 METHODS = ("bootstrap", "cv", "by_centre")
+CV_INTERVALS = ("corrected", "two-stage")
+"""Interval routes of cross-validation: the corrected resampled t interval (no outer samples), or the
+two-stage bootstrap it replaced (kept for bench/bench_cv_intervals.py, which measures both)."""
 
 
 def _check_models(models) -> dict:
@@ -196,6 +201,7 @@ def validate(
     interval: str = "shifted-percentile",
     outer_replicates: int = 100,
     inner_replicates: int = 10,
+    cv_interval: str = "corrected",
 ) -> ValidationResult:
     """Internally validate unfitted models by refitting them in every resample.
 
@@ -246,14 +252,21 @@ def validate(
     interval : {"two-stage", "shifted-percentile"}, default "shifted-percentile"
         "two-stage": interval (:func:`.intervals.two_stage_interval`) over ``outer_replicates``
         outer bootstrap samples, in each of which the same estimator is run with
-        ``inner_replicates`` inner replicates (bootstrap) or one k-fold split (cv)
-        (see :mod:`.two_stage`; costs ``outer * (inner + 1)`` or ``outer * (folds + 1)``
-        extra refits per model). "shifted-percentile": the cheap location-shifted
-        interval of the optimism estimator (under-covers; NaN for other estimators
-        and for cv). by_centre intervals are not affected. The study file's default
+        ``inner_replicates`` inner replicates (see :mod:`.two_stage`; costs
+        ``outer * (inner + 1)`` extra refits per model). "shifted-percentile": the cheap
+        location-shifted interval of the optimism estimator (under-covers; NaN for
+        other estimators). cv (see ``cv_interval``) and by_centre intervals are not
+        affected. The study file's default
         is "two-stage" (``[validation] interval``); this function keeps the cheap one
         as its default so that exploratory calls stay fast.
     outer_replicates, inner_replicates : int, default 100 and 10
+    cv_interval : {"corrected", "two-stage"}, default "corrected"
+        Cross-validation's interval: "corrected" (whatever ``interval`` says) is the
+        corrected resampled t interval of the held-out fold values
+        (:func:`.intervals.cv_interval`; Nadeau & Bengio 2003), which needs no outer
+        samples and costs nothing beyond the estimate; "two-stage" with
+        ``interval="two-stage"`` runs the two-stage bootstrap instead (conservative for
+        a C difference in bench/bench_cv_intervals.py; kept for comparison).
 
     Returns
     -------
@@ -277,6 +290,8 @@ def validate(
         raise SpecError(f"unknown estimator {estimator!r}; choose one of auto, {', '.join(ESTIMATORS)}.")
     if interval not in INTERVALS:
         raise SpecError(f"unknown interval {interval!r}; choose one of {', '.join(INTERVALS)}.")
+    if cv_interval not in CV_INTERVALS:
+        raise SpecError(f"unknown cv_interval {cv_interval!r}; choose one of {', '.join(CV_INTERVALS)}.")
     for nm, v in (("outer_replicates", outer_replicates), ("inner_replicates", inner_replicates)):
         if int(v) != v or v < 0:
             raise SpecError(f"{nm} must be a whole number of at least 0, got {v!r}.")
@@ -344,6 +359,10 @@ def validate(
 
     two_stage = interval == "two-stage" and method in ("bootstrap", "cv") and outer_replicates > 0
     two_stage = two_stage and (replicates > 0 or method == "cv")
+    two_stage = two_stage and (method != "cv" or cv_interval == "two-stage")
+    # cross-validation without outer samples: the corrected resampled t interval, n_test/n_train = 1/(k-1)
+    cv_ratio = (1.0 / (int(folds) - 1) if method == "cv" and not two_stage
+                and int(folds) * max(n_rep.values()) >= CV_MIN_FOLD_VALUES else None)
     extra = []
     if two_stage:
         caps = {nm: min(int(outer_replicates), r if model_replicates and nm in model_replicates
@@ -364,11 +383,14 @@ def validate(
              if two_stage else {})
     outer_nb = outer_net_benefit(method, extra, extra_out, estimators) if two_stage else {}
     parts = _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, h,
-                       arms, conf_level, max_failure_rate, unit, estimators, gammas, outer)
+                       arms, conf_level, max_failure_rate, unit, estimators, gammas, outer, cv_ratio)
     if two_stage:
         notes.append(f"intervals: two-stage bootstrap, {int(outer_replicates)} outer samples x "
                      + (f"{int(inner_replicates)} inner bootstrap replicates" if method == "bootstrap"
                         else f"one {int(folds)}-fold split") + f" ({TWO_STAGE_RULE}).")
+    elif cv_ratio is not None:
+        notes.append(f"intervals: {CV_RULE}; J = {int(folds)} folds x {max(n_rep.values())} repeats, "
+                     f"n_test/n_train = 1/{int(folds) - 1}; no outer resampling.")
     total = max(n_rep.values())
     for nm, r in n_rep.items():
         if 0 < r < total:
@@ -383,10 +405,11 @@ def validate(
         n_events=cohort.n_events, apparent=apparent, apparent_pairs=apparent_pairs, fits=fits,
         n_replicates=n_rep, centres=centres, conf_level=conf_level, seed_entropy=int(root.entropy),
         estimator=estimators, interval=interval if two_stage else (
-            "shifted-percentile" if method == "bootstrap" else ""), outer_estimates=outer,
+            "shifted-percentile" if method == "bootstrap" else "corrected-t" if cv_ratio is not None else ""),
+        outer_estimates=outer,
         outer_net_benefit=outer_nb,
         settings={"estimator": estimator, "interval": interval, "outer_replicates": int(outer_replicates),
-                  "inner_replicates": int(inner_replicates),
+                  "inner_replicates": int(inner_replicates), "cv_interval": cv_interval,
                   "replicates": int(replicates), "folds": int(folds), "repeats": int(repeats),
                   "backend": backend, "workers": int(workers), "calibration": bool(calibration),
                   "reseed_models": bool(reseed_models), "max_failure_rate": float(max_failure_rate)},

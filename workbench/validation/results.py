@@ -93,7 +93,8 @@ class MetricEstimate:
         event-weighted SD across centres.
     ci_lower, ci_upper : float
         Bootstrap: percentile interval of B re-centred on the estimate (NaN where B
-        has no spread); external: normal interval over the resamples; NaN for cv and by_centre.
+        has no spread); external: normal interval over the resamples; cv: corrected resampled t
+        interval of the held-out fold values; NaN for by_centre.
     n_used : int
         Replicates (folds, centres) that contributed.
     estimator : str
@@ -102,7 +103,8 @@ class MetricEstimate:
     interval : str
         How the interval was formed: "two-stage" (interval from the same estimator
         over outer bootstrap samples, :func:`~.intervals.two_stage_interval`), "shifted-percentile"
-        (the cheap location-shifted interval, optimism only), "normal"
+        (the cheap location-shifted interval, optimism only), "corrected-t" (cv: corrected
+        resampled t interval of the held-out fold values, :func:`~.intervals.cv_interval`), "normal"
         (external: :func:`~.intervals.resample_interval`), or "" where there is none.
     note : str
         Why an interval is missing, if it is.
@@ -229,7 +231,9 @@ class ValidationResult:
         Bootstrap: the estimator used for each model ("optimism", "oob", "632plus");
         the metric-level label is in each MetricEstimate.
     interval : str
-        "two-stage" or "shifted-percentile" (see :mod:`.two_stage`).
+        "two-stage" or "shifted-percentile" (see :mod:`.two_stage`); cross-validation:
+        "corrected-t" (:func:`~.intervals.cv_interval`, no outer samples) unless run with
+        ``cv_interval="two-stage"``.
     outer_estimates : dict of str to ndarray of shape (n_outer, n_metrics)
         Two-stage intervals: each model's estimate in each outer bootstrap sample
         (NaN where the model failed there); model differences use the same samples.

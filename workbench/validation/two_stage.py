@@ -1,4 +1,10 @@
-"""Two-stage bootstrap intervals for validated performance (bootstrap and cross-validation).
+"""Two-stage bootstrap intervals for validated performance (bootstrap estimators).
+
+Cross-validation no longer comes here by default: its interval is the corrected
+resampled t interval of the held-out fold values (:func:`.intervals.cv_interval`),
+which needs no outer samples. ``validate(..., cv_interval="two-stage")`` still runs
+the cross-validated outer stage below, so bench/bench_cv_intervals.py can measure
+both side by side (the two-stage one was conservative for a cv C difference).
 
 Estimand
 --------
@@ -32,7 +38,8 @@ the same outer samples, paired. The .632+ no-information values of the data are
 reused inside outer samples.
 
 Cost: ``outer * (inner + 1)`` refits per model for the bootstrap estimators and
-``outer * (folds + 1)`` for cross-validation, on top of the estimate itself.
+``outer * (folds + 1)`` for cross-validation (only with ``cv_interval="two-stage"``), on top of
+the estimate itself.
 
 References
 ----------

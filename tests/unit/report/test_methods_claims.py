@@ -25,7 +25,7 @@ from workbench.models.registry import MODEL_LABELS
 from workbench.report.methods import methods_paragraph
 from workbench.report.methods_text import _imaging_claims, harmonised_models, methods_claims
 from workbench.report.results import results_dict
-from workbench.validation.intervals import RESAMPLE_RULE, TWO_STAGE_RULE
+from workbench.validation.intervals import CV_RULE, RESAMPLE_RULE, TWO_STAGE_RULE
 
 
 @pytest.fixture(scope="module")
@@ -248,6 +248,10 @@ def _validation_estimator(r, d, c):
 def _validation_interval(r, d, c):
     v = r.validation
     t = c["validation.interval"]
+    if v.interval == "corrected-t":  # a cross-validated run: the rule of intervals.cv_interval, no outer stage
+        assert CV_RULE in t and f"J = {v.settings['folds']} x {v.settings['repeats']}" in t
+        assert "two-stage" not in t
+        return
     assert v.interval == "two-stage" and "two-stage bootstrap" in t
     assert f"in {v.settings['outer_replicates']} bootstrap samples" in t
     # the rule the engine used (intervals.TWO_STAGE_RULE), named in the text

@@ -1,4 +1,4 @@
-"""Estimator choice, the out-of-bootstrap arm, range-guarded intervals, two-stage intervals.
+"""Estimator choice, the out-of-bootstrap arm, range-guarded intervals, two-stage and cv intervals.
 
 Outcomes: the German Breast Cancer Study Group 2 trial (Schumacher et al., J Clin Oncol
 1994; `sksurv.datasets.load_gbsg2`), first 300 patients, with the small Cox model of
@@ -89,7 +89,7 @@ def test_two_stage_intervals_contain_their_estimates(small, method):
     models = {"a": ColumnsCox(("age", "tsize")), "b": ColumnsCox(("age", "tsize", "pnodes"))}
     res = validate(models, small, H, method=method, replicates=5, folds=3, repeats=2, random_state=4,
                    backend="serial", calibration=False, interval="two-stage", outer_replicates=12,
-                   inner_replicates=2)
+                   inner_replicates=2, cv_interval="two-stage")
     assert res.interval == "two-stage" and res.outer_estimates["a"].shape == (12, len(res.metric_names))
     # the validated decision curves of the same outer samples (the net-benefit difference band), failing together
     nb = res.outer_net_benefit["a"]
@@ -113,3 +113,58 @@ def test_two_stage_intervals_contain_their_estimates(small, method):
     plain = validate(models, small, H, method=method, replicates=5, folds=3, repeats=2, random_state=4,
                      backend="serial", calibration=False)
     assert plain.estimates["a"]["harrell_c"].estimate == res.estimates["a"]["harrell_c"].estimate
+
+
+def test_cv_interval_is_the_corrected_resampled_t_interval_of_the_fold_values(small):
+    # Reference: the corrected resampled t interval of Nadeau & Bengio (Machine Learning 2003;
+    # 52:239-81), repeated k-fold form of Bouckaert & Frank (PAKDD 2004): estimate -+ t_{J-1}
+    # sqrt((1/J + n_test/n_train) s^2), n_test/n_train = 1/(k - 1); recomputed here by hand
+    # with scipy from the run's own fold values.
+    from scipy.stats import t as t_dist
+
+    from workbench.validation.difference_bands import net_benefit_difference
+
+    models = {"a": ColumnsCox(("age", "tsize")), "b": ColumnsCox(("age", "tsize", "pnodes"))}
+    folds, repeats = 4, 3
+    res = validate(models, small, H, method="cv", folds=folds, repeats=repeats, random_state=4,
+                   backend="serial", calibration=False, interval="two-stage", outer_replicates=12)
+    assert res.interval == "corrected-t" and res.outer_estimates == {}  # no outer samples were run
+    assert any("Nadeau & Bengio" in n for n in res.notes)
+    j = res.metric_names.index("harrell_c")
+
+    def by_hand(v, est):
+        v = v[np.isfinite(v)]
+        half = t_dist.ppf(0.975, v.size - 1) * np.sqrt((1 / v.size + 1 / (folds - 1)) * np.var(v, ddof=1))
+        return est - half, est + half
+
+    for m in models:
+        rm, e = res.replicates[m], res.estimates[m]["harrell_c"]
+        assert rm.test.shape[0] == folds * repeats and e.interval == "corrected-t"
+        assert (e.ci_lower, e.ci_upper) == pytest.approx(by_hand(rm.test[:, j], e.estimate), abs=1e-12)
+        for x in res.estimates[m].values():
+            if np.isfinite(x.ci_lower):
+                lo, hi = metric_range(x.name)
+                assert lo <= x.ci_lower <= x.estimate <= x.ci_upper <= hi and x.interval == "corrected-t"
+    # the difference: the same rule on the paired per-fold differences
+    d = compare_models(res, "b", "a").differences["harrell_c"]
+    ra, rb = res.replicates["b"], res.replicates["a"]
+    assert d.interval == "corrected-t"
+    assert (d.ci_lower, d.ci_upper) == pytest.approx(by_hand(ra.test[:, j] - rb.test[:, j], d.estimate), abs=1e-12)
+    # a rule without the n_test/n_train term would be about sqrt(1 + J/(k-1)) = 2.2 times narrower
+    assert d.ci_upper - d.ci_lower > 2.0 * 2 * t_dist.ppf(0.975, 11) * np.std(ra.test[:, j] - rb.test[:, j],
+                                                                               ddof=1) / np.sqrt(12)
+    band = net_benefit_difference(res, "b", "a", 0)
+    assert band.band == "corrected-t"
+    ok = np.isfinite(band.lower)
+    assert ok.any() and np.all(band.lower[ok] <= band.estimate[ok]) and np.all(band.estimate[ok] <= band.upper[ok])
+    # the same estimates whatever the interval setting; too few fold values: no interval, and why
+    cheap = validate(models, small, H, method="cv", folds=4, repeats=3, random_state=4, backend="serial",
+                     calibration=False)
+    assert cheap.estimates["a"]["harrell_c"] == res.estimates["a"]["harrell_c"]
+    few = validate(models, small, H, method="cv", folds=3, repeats=2, random_state=4, backend="serial",
+                   calibration=False)
+    e = few.estimates["a"]["harrell_c"]
+    assert np.isnan(e.ci_lower) and "fewer than 10 held-out fold values" in e.note
+    assert few.interval == "" and compare_models(few, "b", "a").differences["harrell_c"].interval == ""
+    with pytest.raises(SpecError, match="cv_interval"):
+        validate(models, small, H, method="cv", folds=3, repeats=2, cv_interval="magic", backend="serial")

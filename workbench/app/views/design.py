@@ -78,8 +78,9 @@ HELP = {
                 "interval comes from how much the validated numbers vary between them (the interval that "
                 "covered in simulation). Quick percentile: cheap, known to be too narrow; for a first look only.",
     "outer": "Bootstrap samples in which the whole validation is repeated for the intervals. Each costs "
-             "(inner replicates + 1) refits of every model (cross-validation: folds + 1). 100 or more for a "
-             "final analysis.",
+             "(inner replicates + 1) refits of every model. 100 or more for a final analysis. Cross-validation "
+             "needs none: its interval comes from the spread of its own fold results (corrected for their "
+             "overlap).",
     "inner": "Bootstrap replicates of the validation inside each outer sample (bootstrap validation only).",
     "permutations": "Permutations of the added-value test of imaging given the clinical model. Each refits "
                     "the whole signature; 199 give p-values down to 0.005, 999 for a final analysis; "

@@ -1,0 +1,20 @@
+"""The methods text of a cross-validated run states the interval the engine computed.
+
+The rule is the corrected resampled t interval of Nadeau & Bengio (Machine Learning
+2003;52:239-81); the text must name it (intervals.CV_RULE), give J = folds x repeats and
+n_test/n_train = 1/(k - 1) of the run, and not describe a two-stage bootstrap.
+"""
+
+from __future__ import annotations
+
+from workbench.report.methods import _interval_text
+from workbench.validation.intervals import CV_RULE
+
+
+def test_cv_interval_text_names_the_corrected_rule_and_the_run_settings():
+    v = {"method": "cv", "conf_level": 0.95, "interval": "corrected-t",
+         "settings": {"folds": 5, "repeats": 10, "interval": "two-stage", "outer_replicates": 100}}
+    t = _interval_text(v)
+    assert t.startswith("95% intervals") and CV_RULE in t and "Nadeau & Bengio" in t
+    assert "J = 5 x 10" in t and "n_test/n_train = 1/4" in t
+    assert "two-stage" not in t and "outer" not in t and "bootstrap samples" not in t
