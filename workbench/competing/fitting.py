@@ -4,7 +4,12 @@ One *arm* is a clinical design (learned on the training rows) with, for the
 clinical + imaging model, the study's imaging signature fitted on the same rows
 with the outcome of the target cause (the other causes censored). On that design
 the arm fits the cause-specific Cox models of every cause and the Fine-Gray model
-of the cause of interest. Everything learned (clinical terms, feature medians,
+of the cause of interest. As in the main route's clinical + signature Cox model
+(:class:`~workbench.models.cox.CombinedCox`), the coefficients of the signature term
+are by default estimated on cross-fitted (out-of-fold) signature scores
+(``[models.combined] coefficient = "prevalidated"``): a coefficient fitted on the
+scores of the very patients the signature was selected on is too large, and the
+bootstrap's optimism correction does not take all of it back. Everything learned (clinical terms, feature medians,
 harmonisation, signature, coefficients) lives in the fitted arm and is reapplied
 unchanged to evaluation rows: inside a bootstrap replicate the signature never sees
 the rows it is judged on.
@@ -30,6 +35,7 @@ from workbench.competing.regression import (
 )
 from workbench.errors import SpecError
 from workbench.models.cox import fill_missing
+from workbench.models.penalized import patient_folds
 from workbench.models.registry import build_signature
 from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.study import StudySpec
@@ -82,6 +88,31 @@ class FittedArm:
         return predict_incidence_cause_specific(self.cause_specific, X, times, cause=1)
 
 
+def _signature_fit(rows: Cohort, spec: StudySpec, y_cause: np.ndarray, protect, random_state: int):
+    """The study's signature fitted on ``rows`` for the outcome of cause 1 (others censored), with its medians."""
+    medians = rows.features.median().to_dict()
+    sig = clone(build_signature(spec, int(random_state))).fit(
+        fill_missing(rows.features, medians), make_outcome(rows.time, y_cause == 1), groups=rows.ids,
+        batch=rows.batch, covariates=protect)
+    return sig, medians
+
+
+def _cross_fitted_score(train: Cohort, spec: StudySpec, y, X: np.ndarray, protect_cols, random_state: int):
+    """Out-of-fold signature scores on ``train`` (patient-grouped folds of the cause of interest)."""
+    folds = patient_folds(train.ids, (y["cause"] == 1).astype(int), int(spec.models.combined.prevalidation_folds),
+                          random_state=int(random_state))
+    score = np.zeros(train.n)
+    for k in np.unique(folds):
+        tr, te = np.flatnonzero(folds != k), np.flatnonzero(folds == k)
+        sub, held = train.take(tr), train.take(te)
+        prot = X[:, list(protect_cols)] if protect_cols else None
+        sig, med = _signature_fit(sub, spec, y["cause"][tr], None if prot is None else prot[tr], random_state)
+        if sig.selected_features_:
+            score[te] = sig.score(fill_missing(held.features, med), batch=held.batch,
+                                  covariates=None if prot is None else prot[te])
+    return score
+
+
 def fit_arm(train: Cohort, spec: StudySpec, target: str, *, imaging: bool, random_state: int,
             fine_gray: bool = True) -> FittedArm:
     """Fit one arm on the training rows ``train`` for ``target`` (see :data:`TARGETS`)."""
@@ -92,13 +123,14 @@ def fit_arm(train: Cohort, spec: StudySpec, target: str, *, imaging: bool, rando
                     for j in range(t.start, t.stop))
     signature, medians, n_sel = None, {}, 0
     if imaging:
-        medians = train.features.median().to_dict()
-        signature = clone(build_signature(spec, int(random_state))).fit(
-            fill_missing(train.features, medians), make_outcome(y["time"], y["cause"] == 1), groups=train.ids,
-            batch=train.batch, covariates=X[:, list(protect)] if protect else None)
+        signature, medians = _signature_fit(train, spec, y["cause"], X[:, list(protect)] if protect else None,
+                                            random_state)
         n_sel = len(signature.selected_features_)
     arm = FittedArm(transformer, signature, medians, protect, None, None, n_sel)  # type: ignore[arg-type]
     Xd = arm.design(train)
+    if n_sel and spec.models.combined.coefficient == "prevalidated":
+        # coefficients from out-of-fold scores; the arm keeps the signature fitted on all rows
+        Xd = np.column_stack([Xd[:, :-1], _cross_fitted_score(train, spec, y, X, protect, random_state)])
     arm.cause_specific = fit_cause_specific(Xd, y, min_events_per_parameter=0)
     if fine_gray and np.any(y["cause"] > 1):
         arm.fine_gray = fit_fine_gray(Xd, y, cause=1, min_events_per_parameter=0)
