@@ -348,8 +348,9 @@ def _models_and_validation(tpl_m: ModelsSpec, tpl_v: ValidationSpec, data) -> tu
                                 index=intervals.index(tpl_v.interval) if tpl_v.interval in intervals else 0,
                                 key=_key("interval"), help=HELP["interval"])
         two_stage = interval == "two-stage"
+        # cross-validation's interval needs no outer samples (intervals.cv_interval)
         outer = c2.number_input("Outer samples", 1, 5000, int(tpl_v.outer_replicates), key=_key("outer"),
-                                help=HELP["outer"], disabled=not two_stage)
+                                help=HELP["outer"], disabled=not two_stage or method != "bootstrap")
         inner = c3.number_input("Inner replicates", 1, 1000, int(tpl_v.inner_replicates), key=_key("inner"),
                                 help=HELP["inner"], disabled=not two_stage or method != "bootstrap")
         scheduler = tpl_v.scheduler
