@@ -1,7 +1,7 @@
 """Reduced version of bench/bench_competing_external.py (seeded simulation, invented data).
 
-40 simulated cohorts (development 300, external 200 patients, the Fine-Gray design of
-bench_competing.py), 20 resamples of the external patients each, truth from 40,000
+30 simulated cohorts (development 300, external 200 patients, the Fine-Gray design of
+bench_competing.py), 20 resamples of the external patients each, truth from 20,000
 uncensored patients computed without the method under test. Pooled over the models,
 metrics and horizons the 95% intervals must cover the truth in at least 0.85 of the cells
 (a binomial lower tail far below a true 0.95), and for the AUC the interval's implied SE
@@ -23,13 +23,13 @@ sys.path.insert(0, str(Path(__file__).parents[2] / "bench"))
 from bench_competing_external import one_cohort  # noqa: E402
 
 pytestmark = pytest.mark.slow
-COHORTS, REPS = 40, 20
+COHORTS, REPS = 30, 20
 
 
 @pytest.fixture(scope="module")
 def rows():
     seeds = np.random.SeedSequence(777).generate_state(COHORTS)
-    return Parallel(n_jobs=2)(delayed(one_cohort)(int(s), 300, 200, REPS, 40_000) for s in seeds)
+    return Parallel(n_jobs=2)(delayed(one_cohort)(int(s), 300, 200, REPS, 20_000) for s in seeds)
 
 
 def test_external_intervals_cover_the_truth(rows):
