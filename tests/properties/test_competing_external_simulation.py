@@ -1,6 +1,6 @@
 """Reduced version of bench/bench_competing_external.py (seeded simulation, invented data).
 
-30 simulated cohorts (development 300, external 200 patients, the Fine-Gray design of
+20 simulated cohorts (development 300, external 200 patients, the Fine-Gray design of
 bench_competing.py), 20 resamples of the external patients each, truth from 20,000
 uncensored patients computed without the method under test. Pooled over the models,
 metrics and horizons the 95% intervals must cover the truth in at least 0.85 of the cells
@@ -23,7 +23,7 @@ sys.path.insert(0, str(Path(__file__).parents[2] / "bench"))
 from bench_competing_external import one_cohort  # noqa: E402
 
 pytestmark = pytest.mark.slow
-COHORTS, REPS = 30, 20
+COHORTS, REPS = 20, 20
 
 
 @pytest.fixture(scope="module")
