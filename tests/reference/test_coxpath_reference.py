@@ -19,7 +19,8 @@ Sources:
   with Breslow and with Efron ties, and the engine's bootstrap-copies-as-weights route
   against the duplicated rows.
 * Efron ties: lifelines ``CoxPHFitter`` (Efron is its default) unpenalised on the Rossi data
-  (coefficients 1e-6; also three published coefficients of Fox's appendix, 5 decimals);
+  (coefficients 1e-6; also three published coefficients of Fox's appendix, 5 decimals, recalled
+  from memory);
   statsmodels ``PHReg(ties="efron")`` log-likelihood (1e-12) and score, the latter for the
   KKT conditions of a penalised Efron path (1e-7).
 * The one-pass cross-validated score against a per-penalty loop of Verweij & van
@@ -182,7 +183,8 @@ def test_unpenalised_efron_fit_equals_lifelines_on_rossi(rossi):
     np.testing.assert_allclose(weighted_loglik(X @ ours.coefs[:, 0], time, event, ties="efron"),
                                ref.log_likelihood_, rtol=1e-10)
     # published (Fox, appendix to An R and S-PLUS Companion to Applied Regression; printed to
-    # 5 decimals): fin -0.37942, age -0.05744, prio 0.09150
+    # 5 decimals; values recalled from memory, and they agree with lifelines' fit above):
+    # fin -0.37942, age -0.05744, prio 0.09150
     np.testing.assert_allclose(ours.coefs[[0, 1, 6], 0], [-0.37942, -0.05744, 0.09150], atol=6e-6)
 
 
