@@ -138,3 +138,53 @@ def test_a_result_that_cannot_be_pickled_is_reported_on_here():
 
     pid, _ = exports.run_apart(_pid, threading.Lock())  # locks cannot be pickled
     assert pid == os.getpid()
+
+
+# module-level builders: the worker processes import them by name
+def _worker_figures(result) -> dict:
+    import os
+
+    if os.getpid() == result["parent"]:
+        raise AssertionError("the figures were drawn in the server's own process")
+    return {"calibration": _figure(), "nomogram": _figure()}
+
+
+def _worker_json(result) -> str:
+    import os
+
+    return str(os.getpid())
+
+
+def _dies_in_a_worker(result) -> str:
+    import os
+
+    if os.getpid() != result["parent"]:
+        os._exit(3)  # a worker killed mid-build (e.g. out of memory)
+    return "built here"
+
+
+def test_figures_and_files_are_built_in_the_worker_processes_not_in_the_server(monkeypatch):
+    import os
+
+    monkeypatch.setattr(exports, "BUILDERS", {**exports.BUILDERS, "figures": _worker_figures, "json": _worker_json,
+                                              "bundle": _worker_json, "folder": _worker_json, "report": _worker_json})
+    ex = exports.prepare({"parent": os.getpid()})
+    assert ex.names() == ["calibration", "nomogram"]
+    assert ex.screen("calibration").startswith(b"\x89PNG")
+    assert ex.figure_file("calibration", "svg").startswith(b"<?xml")  # a download, from the figures held there
+    assert ex.figure_file("calibration", "pdf").startswith(b"%PDF")
+    assert int(ex.get("json")) != os.getpid() and ex.get("report") == ex.get("json")  # one files worker
+    ex._thread.join(timeout=120)
+    assert set(ex.get("screens")) == {"calibration"} and not ex.errors
+
+
+def test_a_worker_that_dies_leaves_the_build_to_the_server(monkeypatch):
+    import os
+
+    from workbench.app import workers
+
+    monkeypatch.setattr(workers, "_BREAKS", {})
+    monkeypatch.setitem(exports.BUILDERS, "json", _dies_in_a_worker)
+    ex = exports.Exports({"parent": os.getpid()})
+    assert ex.get("json") == "built here"
+    assert workers._BREAKS == {workers.FILES_POOL: 1}  # counted, and a new worker is started next time

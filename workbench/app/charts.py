@@ -80,6 +80,16 @@ def screen_png(fig, tight: bool = True) -> bytes:
     return buf.getvalue()
 
 
+def save_figure(fig, fmt: str) -> bytes:
+    """Figure bytes: PNG at 300 dpi; SVG and PDF with text kept as editable text."""
+    import matplotlib
+
+    buf = io.BytesIO()
+    with matplotlib.rc_context({"svg.fonttype": "none", "pdf.fonttype": 42}):
+        fig.savefig(buf, format=fmt, dpi=300 if fmt == "png" else None, bbox_inches="tight")
+    return buf.getvalue()
+
+
 def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 200) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, dpi=dpi)

@@ -1,10 +1,14 @@
 """The files of a finished run (figures, report HTML, results.json, results folder, model bundle), built once.
 
-:func:`prepare` builds them all in a background thread right after a run finishes, so that the
-Export view finds them ready; the view calls :func:`get`, which waits for that thread or builds
-a file itself when it has not been built. The report (20-30 s of drawing and templating) is
-built in a worker process (:func:`run_apart`), so that it never competes with the views for the
-interpreter lock. Nothing here touches Streamlit.
+:func:`prepare` starts building them right after a run finishes, so that the Results and Export
+views find them ready. The building happens in two worker processes kept warm for the server's
+lifetime (:mod:`workbench.app.workers`): one draws the run's figures (held there, so a figure
+is drawn for the screen or written as a download without drawing the others again), the other
+writes results.json, the bundle, the results folder and the report (20-30 s). The server's own
+process only waits for them, so a view never competes with a build for the interpreter lock:
+with the builds in a thread of the server, switching the Results figure took ~6 s instead of
+~0.1 s. When the result cannot be pickled or a worker cannot be started, everything is built
+here in a background thread instead, as before. Nothing here touches Streamlit.
 """
 
 from __future__ import annotations
@@ -12,15 +16,15 @@ from __future__ import annotations
 import importlib
 import io
 import json
-import multiprocessing
-import pickle
 import tempfile
 import threading
+import uuid
 import warnings
 import zipfile
-from concurrent.futures import ProcessPoolExecutor
-from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
+
+from workbench.app import workers
+from workbench.app.workers import run_apart  # noqa: F401  (re-exported)
 
 
 def _module(name: str):
@@ -80,90 +84,75 @@ def report_html(result) -> str | None:
     return None if fn is None else fn(result)
 
 
-_POOL: ProcessPoolExecutor | None = None
-_POOL_GUARD = threading.Lock()
-
-
-def _call_pickled(fn, blob: bytes):
-    return fn(pickle.loads(blob))
-
-
-def run_apart(fn, result):
-    """``fn(result)`` in the app's one worker process (started on first use, then kept warm).
-
-    A long build in a thread of the app's own process shares the interpreter lock with the
-    views: drawing a figure while the report was being built took ~6 s instead of ~1 s.
-    ``fn`` must be a module-level function. Falls back to calling it here when ``result``
-    cannot be pickled or the worker process cannot be started or dies; an exception
-    raised by ``fn`` itself reaches the caller as it would here.
-    """
-    global _POOL
-    try:
-        blob = pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL)
-    except Exception:  # noqa: BLE001 - e.g. a stand-in result in tests, or an unpicklable object
-        return fn(result)
-    with _POOL_GUARD:
-        try:
-            if _POOL is None:
-                _POOL = ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("spawn"))
-            future = _POOL.submit(_call_pickled, fn, blob)
-        except (OSError, RuntimeError, BrokenProcessPool):
-            _POOL = None
-            future = None
-    if future is None:
-        return fn(result)
-    try:
-        return future.result()
-    except BrokenProcessPool:
-        with _POOL_GUARD:
-            _POOL = None
-        return fn(result)
-
-
-def report_html_apart(result) -> str | None:
-    """:func:`report_html` in the worker process (:func:`run_apart`)."""
-    return run_apart(report_html, result)
-
-
 def figures(result) -> dict:
     """The run's standard figures (name -> matplotlib Figure), as the Results view shows them."""
     mod = _module("workbench.report.figureset")
     return mod.study_figures(result) if mod is not None and hasattr(mod, "study_figures") else {}
 
 
-def screens(exports) -> dict:
-    """Each standard figure as the PNG the Results view shows (name -> bytes), drawn ahead of the visit."""
-    return {name: exports.screen(name) for name in (exports.get("figures") or {}) if name != "nomogram"}
-
-
-BUILDERS = {"figures": figures, "report": report_html_apart, "json": results_json, "folder": results_zip,
+BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
             "bundle": bundle_zip}
+FILES = ("json", "bundle", "folder", "report")
+"""The files the second worker writes, in this order (the slowest last)."""
+
+SCREEN = "screen"
+"""``fmt`` of :meth:`Exports.figure_file` for the PNG the Results view shows."""
 
 
 class Exports:
-    """The files of one run: built in the background, or on demand; errors kept to be shown."""
+    """The files of one run: built in the worker processes (or here), or on demand; errors kept to be shown.
 
-    def __init__(self, result) -> None:
+    ``apart=False`` builds everything in this process (tests of the locking, and the fallback).
+    """
+
+    def __init__(self, result, apart: bool = True) -> None:
         self.result = result
         self.files: dict[str, object] = {}
         self.errors: dict[str, BaseException] = {}
-        # one lock per file: a view asking for results.json builds it at once instead of waiting
-        # for the background thread to finish drawing the figures
         self._locks = {name: threading.Lock() for name in (*BUILDERS, "screens")}
         self._thread: threading.Thread | None = None
         self._pngs: dict[str, bytes] = {}
         self._figure_locks: dict[str, threading.Lock] = {}
         self._guard = threading.Lock()
+        self._futures: dict[str, object] = {}
+        self._local_figures: dict | None = None
+        self._local_guard = threading.Lock()
+        self._job = workers.Job(result, token=uuid.uuid4().hex) if apart else None
 
     def start(self) -> Exports:
+        # the second worker gets every file at once and writes them in order, the report last
+        for name in FILES:
+            self._futures[name] = self._submit(workers.FILES_POOL, workers.build, BUILDERS[name])
         self._thread = threading.Thread(target=self._all, name="workbench-exports", daemon=True)
         self._thread.start()
         return self
 
+    def _submit(self, pool: str, task, *args):
+        if self._job is None:
+            return None
+        return self._job.submit(pool, task, *args)
+
     def _all(self) -> None:
-        # the Results view's figures first, then the Export view's files, the slowest last
-        for name in ("figures", "screens", "json", "bundle", "folder", "report"):
+        # the Results view's figures first, then the Export view's files (their futures)
+        for name in ("figures", "screens", *FILES):
             self._build(name)
+
+    def _compute(self, name: str):
+        if name == "screens":
+            return {n: self.screen(n) for n in self.names() if n != "nomogram"}
+        if name == "figures":  # the names, in the order the Results view lists them
+            future = self._submit(workers.FIGURES_POOL, workers.figure_task, BUILDERS["figures"], None, None)
+            got = workers.outcome(future)
+            return got if got is not workers.UNAVAILABLE else list(self._figures_here())
+        got = workers.outcome(self._futures.get(name) or self._submit(workers.FILES_POOL, workers.build,
+                                                                        BUILDERS[name]))
+        return got if got is not workers.UNAVAILABLE else BUILDERS[name](self.result)
+
+    def _figures_here(self) -> dict:
+        with self._local_guard:
+            if self._local_figures is None:
+                self._local_figures = BUILDERS["figures"](self.result)
+            return self._local_figures
 
     def _build(self, name: str) -> None:
         with self._locks[name]:
@@ -172,28 +161,42 @@ class Exports:
             try:
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore")
-                    self.files[name] = (screens(self) if name == "screens" else BUILDERS[name](self.result))
+                    self.files[name] = self._compute(name)
             except Exception as exc:  # noqa: BLE001 - shown in the Export view
                 self.errors[name] = exc
 
     def get(self, name: str):
-        """The file's content (None when the layer offers none); raises the error met while building it."""
+        """The file's content (None when the layer offers none); raises the error met while building it.
+
+        ``"figures"`` is the list of the run's figure names; ``"screens"`` their screen PNGs."""
         self._build(name)  # waits for the background thread only while it builds this same file
         if name in self.errors:
             raise self.errors[name]
         return self.files.get(name)
 
+    def names(self) -> list[str]:
+        return list(self.get("figures") or [])
+
+    def figure_file(self, name: str, fmt: str) -> bytes:
+        """One figure as ``fmt`` ("png", "svg", "pdf") for download, or :data:`SCREEN` for the page."""
+        from workbench.app.charts import save_figure, screen_png
+
+        self.names()  # raises the figures' error, if any
+        got = workers.outcome(self._submit(workers.FIGURES_POOL, workers.figure_task, BUILDERS["figures"],
+                                           name, fmt))
+        if got is not workers.UNAVAILABLE:
+            return got
+        fig = self._figures_here()[name]
+        return screen_png(fig) if fmt == SCREEN else save_figure(fig, fmt)
+
     def screen(self, name: str) -> bytes:
         """One figure's screen PNG: drawn once, by the background thread or by the view that asks
-        first (a view never waits for the other figures; one figure is never drawn by two threads)."""
-        from workbench.app.charts import screen_png
-
-        figs = self.get("figures") or {}
+        first (a view never waits for the other figures; one figure is never drawn twice)."""
         with self._guard:
             lock = self._figure_locks.setdefault(name, threading.Lock())
         with lock:
             if name not in self._pngs:
-                self._pngs[name] = screen_png(figs[name])
+                self._pngs[name] = self.figure_file(name, SCREEN)
             return self._pngs[name]
 
     def ready(self, name: str) -> bool:
@@ -203,3 +206,13 @@ class Exports:
 def prepare(result) -> Exports:
     """Start building every file of ``result`` in the background."""
     return Exports(result).start()
+
+
+def of_job(job, result=None) -> Exports:
+    """The run's files: started when the run finished, or now when that did not happen."""
+    ex = getattr(job, "exports", None)
+    if ex is None:
+        ex = prepare(result if result is not None else job.result)
+        if job is not None:
+            job.exports = ex
+    return ex

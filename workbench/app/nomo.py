@@ -8,7 +8,7 @@ import zipfile
 import streamlit as st
 
 from workbench.app import state, tables
-from workbench.app.charts import SCREEN_DPI, screen_png  # noqa: F401  (re-exported)
+from workbench.app.charts import SCREEN_DPI, save_figure, screen_png  # noqa: F401  (re-exported)
 
 NOMOGRAM_MODELS = ("clinical", "combined")
 
@@ -33,16 +33,6 @@ def scales_for(run_key: tuple, name: str, horizons: tuple[float, ...], _result):
         _result.models[name], horizons, signature_scores=training_scores(_result, name),
         time_unit=_result.validation.time_unit, name=tables.label(name),
     )
-
-
-def save_figure(fig, fmt: str) -> bytes:
-    """Figure bytes: PNG at 300 dpi; SVG and PDF with text kept as editable text."""
-    import matplotlib
-
-    buf = io.BytesIO()
-    with matplotlib.rc_context({"svg.fonttype": "none", "pdf.fonttype": 42}):
-        fig.savefig(buf, format=fmt, dpi=300 if fmt == "png" else None, bbox_inches="tight")
-    return buf.getvalue()
 
 
 def rounded_terms(terms):

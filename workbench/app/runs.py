@@ -157,6 +157,9 @@ def run_key(spec: StudySpec, replicates: int, workers: int) -> tuple:
 
 
 def start_run(spec: StudySpec, replicates: int, workers: int) -> RunJob:
+    from workbench.app import workers as app_workers
+
+    app_workers.warm()  # the figure and file workers start (and load their layers) while the run goes on
     job = RunJob(run_key(spec, replicates, workers), spec, int(replicates), int(workers)).start()
     job.number = int(st.session_state.get("wb_run_number", 0)) + 1
     st.session_state["wb_run_number"] = job.number

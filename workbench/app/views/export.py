@@ -12,10 +12,7 @@ from workbench.app import exports, state
 
 def _files(job) -> exports.Exports:
     """The run's files: built in the background after the run, or now when that has not started."""
-    ex = getattr(job, "exports", None)
-    if ex is None:
-        ex = job.exports = exports.prepare(job.result)
-    return ex
+    return exports.of_job(job)
 
 
 def _get(ex, name: str, text: str):

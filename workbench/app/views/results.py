@@ -7,7 +7,7 @@ import os
 import numpy as np
 import streamlit as st
 
-from workbench.app import charts, nomo, roles, state, tables
+from workbench.app import charts, exports, roles, state, tables
 from workbench.app.messages import plain
 from workbench.validation.compare import LR_CAUTION
 
@@ -102,22 +102,6 @@ def _decision_figure(dc, model: str, baseline: str, outcome: str = "the event"):
     return fig
 
 
-@st.cache_resource(show_spinner="Drawing the figures of the run...", max_entries=2)
-def _run_figures(run_key: tuple, _result, _job=None) -> dict:
-    """Every standard figure of the run from the report layer (empty when it has none yet).
-
-    They are drawn in the background as soon as the run finishes (:mod:`workbench.app.exports`);
-    this waits for that rather than drawing them twice.
-    """
-    ex = getattr(_job, "exports", None)
-    if ex is not None:
-        return ex.get("figures") or {}
-    mod = state.load_module("workbench.report.figureset")
-    if mod is None or not hasattr(mod, "study_figures"):
-        return {}
-    return mod.study_figures(_result)
-
-
 FIGURE_TITLES = {
     "km_risk_groups": "Kaplan-Meier curves by risk group",
     "conditional_survival": "Alive at the first horizon: survival after it, by risk group",
@@ -142,16 +126,6 @@ def _figure_title(name: str) -> str:
 
 
 @st.cache_data(show_spinner=False, max_entries=32)
-def _figure_png(run_key: tuple, name: str, _fig, _job=None) -> bytes:
-    """A run's figure as PNG for the page: drawn in the background after the run
-    (:mod:`workbench.app.exports`, never two threads on one figure), or here without it."""
-    ex = getattr(_job, "exports", None)
-    if ex is not None and name in (ex.get("figures") or {}):
-        return ex.screen(name)
-    return nomo.screen_png(_fig)
-
-
-@st.cache_data(show_spinner=False, max_entries=32)
 def _decision_png(run_key: tuple, model: str, horizon: float, outcome: str, _dc, baseline: str) -> bytes:
     return charts.figure_bytes(_decision_figure(_dc, model, baseline, outcome))
 
@@ -159,24 +133,31 @@ def _decision_png(run_key: tuple, model: str, horizon: float, outcome: str, _dc,
 def _figures(result, key) -> None:
     spec = result.spec
     st.subheader("Figures")
+    # drawn in the app's figure worker as soon as the run finished (workbench.app.exports)
+    ex = exports.of_job(state.result_job(), result)
     try:
-        figs = _run_figures(key, result, state.result_job())
+        if ex.ready("figures"):
+            names = ex.names()
+        else:
+            with st.spinner("Drawing the figures of the run..."):
+                names = ex.names()
     except Exception as exc:  # noqa: BLE001
         state.show_error("Drawing the figures", exc)
         return
-    figs = {k: v for k, v in figs.items() if k != "nomogram"}  # the Nomogram page has it
-    if not figs:
+    names = [n for n in names if n != "nomogram"]  # the Nomogram page has it
+    if not names:
         state.not_available("The figures of a run")
         return
-    names = list(figs)
     pick = st.selectbox("Figure", names, format_func=_figure_title, key="results_figure")
-    fig = figs[pick]
     left, right = st.columns([3, 1])
-    left.image(_figure_png(key, pick, fig, state.result_job()), width="stretch")
+    try:
+        left.image(ex.screen(pick), width="stretch")
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Drawing the figure", exc)
     with right:
         for fmt, mime in (("png", "image/png"), ("svg", "image/svg+xml"), ("pdf", "application/pdf")):
             # written only when the button is pressed (the view itself stays quick to redraw)
-            data = lambda f=fig, x=fmt: nomo.save_figure(f, x)  # noqa: E731
+            data = lambda n=pick, x=fmt: ex.figure_file(n, x)  # noqa: E731
             st.download_button(f"Download {fmt.upper()}", data, file_name=state.study_filename(spec, f".{fmt}", pick),
                                mime=mime, key=f"results_fig_{fmt}", on_click="ignore")
         if result.external_prepared is not None:
