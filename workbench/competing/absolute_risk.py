@@ -66,9 +66,9 @@ class AbsoluteRisk:
         every cause for the cause-specific route.
     risk, lower, upper, se : ndarray of shape (n_causes, n_times)
         Cumulative incidence, its limits and its standard error (probability scale).
-    event_free, event_free_lower, event_free_upper : ndarray of shape (n_times,)
-        Probability of no event of any cause (cause-specific route; NaN for Fine-Gray,
-        which models one cause only).
+    event_free, event_free_lower, event_free_upper, event_free_se : ndarray of shape (n_times,)
+        Probability of no event of any cause, its limits and standard error
+        (cause-specific route; NaN for Fine-Gray, which models one cause only).
     conf_level : float
     """
 
@@ -82,6 +82,7 @@ class AbsoluteRisk:
     event_free: np.ndarray
     event_free_lower: np.ndarray
     event_free_upper: np.ndarray
+    event_free_se: np.ndarray
     conf_level: float = 0.95
 
     def of(self, cause: int) -> np.ndarray:
@@ -222,7 +223,7 @@ def fine_gray_risk(fit: FineGrayFit, X_train, y_train, x_new, horizons, *, conf_
     lo_s, hi_s = loglog_limits(1.0 - F, se_log, conf_level)
     nan = np.full(h.size, np.nan)
     return AbsoluteRisk("fine_gray", h, (int(fit.cause),), F[None, :], (1.0 - hi_s)[None, :], (1.0 - lo_s)[None, :],
-                        (np.exp(-H) * sd)[None, :], nan, nan.copy(), nan.copy(), float(conf_level))
+                        (np.exp(-H) * sd)[None, :], nan, nan.copy(), nan.copy(), nan.copy(), float(conf_level))
 
 
 def cause_specific_risks(fit: CauseSpecificFit, X_train, y_train, x_new, horizons, *,
@@ -286,4 +287,4 @@ def cause_specific_risks(fit: CauseSpecificFit, X_train, y_train, x_new, horizon
         se_free = sd_free / (s_free * -np.log(s_free))
     lo_f, hi_f = loglog_limits(s_free, se_free, conf_level)
     return AbsoluteRisk("cause_specific", h, tuple(int(k) for k in fit.causes), risk, lower, upper, sd,
-                        s_free, lo_f, hi_f, float(conf_level))
+                        s_free, lo_f, hi_f, sd_free, float(conf_level))
