@@ -171,6 +171,10 @@ def _one_row(fit: CoxPHFit, x_new) -> np.ndarray:
     x = _design_for(fit, x_new)
     if x.shape[0] != 1:
         raise ModelError(f"an absolute risk is estimated for one patient at a time; got {x.shape[0]} rows.")
+    lp = float((x[0] - fit.x_mean) @ fit.coef)
+    if not lp < 700:  # exp() overflows past ~709: the hazard is infinite for a float
+        raise ModelError(f"the patient's linear predictor is {lp:.4g}, so far from the training patients that "
+                         "the hazard cannot be computed; check the values (units, typing errors).")
     return x[0]
 
 
