@@ -22,8 +22,17 @@ with double the interval width (z = 0.98 and 3.92), which the reduced property t
 
 Run: PYTHONPATH=. nice -n 19 .venv/bin/python bench/bench_competing_patient.py [--cohorts 1000] [--n 200]
 
-Measured (1000 cohorts of n = 200, seed 20261203; printed by this script, see the report):
-filled in below the docstring's end by hand after a run.
+Measured on this machine (seed 20261203, nice -n 19 on 2 shared cores):
+
+* 2000 cohorts of n = 200 (367 s): every cell's coverage in 0.937-0.963, MC SE 0.004-0.005.
+  Fine-Gray route 0.937-0.950 (6 cells); cause-specific route 0.942-0.963 (18 cells: both
+  causes and the event-free survival). Half width: 0.640-0.683; double width: 1.000.
+  Bias of the point estimate: Fine-Gray -0.003 to -0.005 (MC SE 0.0005-0.0017; the small-
+  sample bias of n = 200), cause-specific within +-0.004 (incidences) and +0.004 (event-free,
+  pattern (0, 0)).
+* 1000 cohorts of n = 100 (135 s): coverage 0.922-0.962 (MC SE 0.006-0.008); lowest at the
+  pattern (1, 1) (cause 1 0.927-0.937, event-free 0.922-0.936, Fine-Gray 0.933-0.941), where
+  few patients lie near the pattern. Half width: 0.627-0.681; double width: 0.997-1.000.
 """
 
 from __future__ import annotations
