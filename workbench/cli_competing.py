@@ -64,5 +64,8 @@ def run(args: argparse.Namespace) -> int:
     est = estimate_competing_patient(arm, cohort, spec, patient, random_state=int(spec.seed),
                                      signature_score=args.signature_score, conf_level=args.conf_level,
                                      ignore=ignore)
+    from workbench.plausibility import check_patient_scale
+
+    check_patient_scale(est.checks, source=str(args.patient) if args.patient else "the patient's values")
     print(format_competing_estimate(est))
     return 0

@@ -116,7 +116,7 @@ def _score_flag(score: float, train_scores: np.ndarray) -> RangeFlag | None:
 def estimate_competing_patient(arm: FittedArm, train: Cohort, spec: StudySpec, patient, horizons=None, *,
                                random_state: int | None = None, signature_score: float | None = None,
                                training_ranges: TrainingRanges | None = None, conf_level: float = 0.95,
-                               ignore: Sequence[str] = ()) -> CompetingPatientEstimate:
+                               ignore: Sequence[str] = (), training_design=None) -> CompetingPatientEstimate:
     """Absolute risk of the cause of interest and of the competing cause for one new patient.
 
     Parameters
@@ -141,6 +141,9 @@ def estimate_competing_patient(arm: FittedArm, train: Cohort, spec: StudySpec, p
     conf_level : float
     ignore : sequence of str
         Further fields of the patient's record to leave aside.
+    training_design : ndarray, optional
+        :func:`arm_training_design` of ``arm`` on ``train``, when already at hand (it refits
+        the cross-fitted signature scores, the slow step for several patients).
 
     Returns
     -------
@@ -184,7 +187,11 @@ def estimate_competing_patient(arm: FittedArm, train: Cohort, spec: StudySpec, p
     notes = []
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        X_train = arm_training_design(arm, train, spec, random_state=seed)
+        X_train = arm_training_design(arm, train, spec, random_state=seed) if training_design is None \
+            else np.asarray(training_design, dtype=float)
+        if X_train.shape[0] != train.n:
+            raise SpecError(f"training_design has {X_train.shape[0]} rows for {train.n} training patients; "
+                            "build it with arm_training_design(arm, train, spec).")
         y_train = target_outcome(train, "cause")
         if signature_score is not None:
             x_new = np.column_stack([arm.transformer.transform(cohort).X, [[float(signature_score)]]])

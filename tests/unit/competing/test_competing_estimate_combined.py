@@ -18,7 +18,11 @@ from workbench.cohort.summary import CAUTION
 from workbench.competing.fitting import fit_arm
 from workbench.errors import CohortError, ModelError
 from workbench.estimate import patient_cohort
-from workbench.estimate_competing import competing_ranges, estimate_competing_patient
+from workbench.estimate_competing import (
+    arm_training_design,
+    competing_ranges,
+    estimate_competing_patient,
+)
 from workbench.prepare import prepare_cohort
 from workbench.study import read_study
 
@@ -43,13 +47,14 @@ def small(tmp_path_factory):
     assert arm.n_selected > 0
     row = {c: cohort.clinical.iloc[3][c] for c in CLINICAL}
     imaging = {f: cohort.features.iloc[3][f] for f in cohort.features.columns}
-    return path, spec, cohort, arm, row, {**imaging, "scanner": cohort.batch[3]}
+    X = arm_training_design(arm, cohort, spec, random_state=int(spec.seed))
+    return path, spec, cohort, arm, row, {**imaging, "scanner": cohort.batch[3]}, X
 
 
 def test_imaging_values_and_their_score_give_the_same_estimate(small):
-    _, spec, cohort, arm, row, imaging = small
-    a = estimate_competing_patient(arm, cohort, spec, {**row, **imaging})
-    b = estimate_competing_patient(arm, cohort, spec, row, signature_score=a.signature_score)
+    _, spec, cohort, arm, row, imaging, X = small
+    a = estimate_competing_patient(arm, cohort, spec, {**row, **imaging}, training_design=X)
+    b = estimate_competing_patient(arm, cohort, spec, row, signature_score=a.signature_score, training_design=X)
     assert a.model == b.model == "combined"
     for x, y in ((a.fine_gray, b.fine_gray), (a.cause_specific, b.cause_specific)):
         np.testing.assert_allclose(x.risk, y.risk, rtol=0, atol=1e-12)
@@ -61,22 +66,34 @@ def test_imaging_values_and_their_score_give_the_same_estimate(small):
     assert any("signature as fixed" in n for n in a.notes)
 
 
+def test_training_design_is_the_one_the_arm_was_fitted_on(small):
+    # the limits need the design the regressions saw: with prevalidated coefficients its last
+    # column holds the cross-fitted scores, recomputed here with the arm's seed
+    from workbench.competing.fitting import target_outcome
+    from workbench.competing.regression import fit_cause_specific
+    _, spec, cohort, arm, _, _, X = small
+    assert spec.models.combined.coefficient == "prevalidated"
+    refit = fit_cause_specific(X, target_outcome(cohort, "cause"), min_events_per_parameter=0)
+    for a, b in zip(refit.fits, arm.cause_specific.fits, strict=True):
+        np.testing.assert_allclose(a.coef, b.coef, rtol=0, atol=1e-12)
+
+
 def test_imaging_outside_training_and_scores_outside_are_flagged(small):
-    _, spec, cohort, arm, row, imaging = small
+    _, spec, cohort, arm, row, imaging, X = small
     far = {**imaging, "morph_volume_cc": 50 * float(cohort.features["morph_volume_cc"].max())}
-    est = estimate_competing_patient(arm, cohort, spec, {**row, **far})
+    est = estimate_competing_patient(arm, cohort, spec, {**row, **far}, training_design=X)
     assert est.checks.imaging_outside >= 1 and est.out_of_range
-    est = estimate_competing_patient(arm, cohort, spec, row, signature_score=5.0)
+    est = estimate_competing_patient(arm, cohort, spec, row, signature_score=5.0, training_design=X)
     assert any(f.field == "signature score" and "extrapolates" in f.message for f in est.checks.flags)
     with pytest.raises(ModelError, match="linear predictor"):
-        estimate_competing_patient(arm, cohort, spec, row, signature_score=1e4)
+        estimate_competing_patient(arm, cohort, spec, row, signature_score=1e4, training_design=X)
     missing = {k: v for k, v in imaging.items() if k != "morph_volume_cc"}
     with pytest.raises(CohortError, match="imaging feature"):
-        estimate_competing_patient(arm, cohort, spec, {**row, **missing})
+        estimate_competing_patient(arm, cohort, spec, {**row, **missing}, training_design=X)
 
 
 def test_command_with_a_signature_score(small, capsys):
-    path, *_ , row, _ = small
+    path, _, _, _, row, _, _ = small
     args = [a for k, v in row.items() for a in ("--value", f"{k}={v}")]
     assert main(["competing-estimate", str(path), "--model", "combined", "--signature-score", "0.2", *args]) == 0
     out = capsys.readouterr().out

@@ -65,7 +65,11 @@ def _form(ranges, with_score: bool, tag: str):
 
 def render_patient(result) -> None:
     """The patient subsection of the competing-risks section."""
-    from workbench.estimate_competing import competing_ranges, estimate_competing_patient
+    from workbench.estimate_competing import (
+        arm_training_design,
+        competing_ranges,
+        estimate_competing_patient,
+    )
 
     st.subheader("One patient's absolute risk of each cause")
     st.caption("From the models fitted on all patients: the risk of the cause of interest by Fine-Gray, and of "
@@ -85,9 +89,17 @@ def render_patient(result) -> None:
             return
         try:
             with st.spinner("Estimating..."):
+                # the training design (cross-fitted signature scores) is built once per analysis and model
+                designs = st.session_state.setdefault(f"{KEY}_designs", {})
+                dkey = (id(result), name)
+                if dkey not in designs:
+                    designs.clear()
+                    designs[dkey] = arm_training_design(arm, result.cohort, result.spec,
+                                                        random_state=int(result.spec.seed))
                 est = estimate_competing_patient(arm, result.cohort, result.spec,
                                                  {k: v for k, v in values.items() if v is not None},
-                                                 random_state=int(result.spec.seed), signature_score=score)
+                                                 random_state=int(result.spec.seed), signature_score=score,
+                                                 training_design=designs[dkey])
         except Exception as exc:  # noqa: BLE001
             state.show_error("The patient estimate", exc)
             return
