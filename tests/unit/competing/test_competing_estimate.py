@@ -3,7 +3,7 @@
 Data: scikit-survival's ``load_cgvhd`` as a clinical-only competing study (the
 ``cgvhd_study`` fixture: cause 1 = chronic GvHD, relapse and death competing). The point
 estimates are checked against the study's own fitted arm (``run_competing``, the fit
-``workbench competing`` reports) and against scikit-survival-independent arithmetic in
+``workbench competing`` reports); against lifelines in
 tests/reference/test_competing_absolute_risk_reference.py.
 """
 
