@@ -410,6 +410,10 @@ def build_parser() -> argparse.ArgumentParser:
                         "chance of reaching each later horizon given that (conditional survival)")
     p.set_defaults(func=_cmd_estimate)
 
+    from workbench.cli_competing import add_parser as add_competing_estimate
+
+    add_competing_estimate(sub)
+
     p = sub.add_parser("app", help="start the browser front end on this computer")
     p.add_argument("app_args", nargs=argparse.REMAINDER, help="--port N, --open")
     p.set_defaults(func=_cmd_app)

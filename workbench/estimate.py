@@ -343,6 +343,13 @@ def check_patient(patient, training_ranges: TrainingRanges, *, ignore: Sequence[
     return _validate(patient, training_ranges, ignore)[1]
 
 
+def patient_cohort(patient, training_ranges: TrainingRanges, *, ignore: Sequence[str] = ()):
+    """One patient's checked raw values as a one-row :class:`Cohort`, with the checks and the
+    categorical flags that have no coefficient (for routes other than :func:`estimate_patient`,
+    such as :mod:`workbench.estimate_competing`)."""
+    return _validate(patient, training_ranges, ignore)
+
+
 # ---------------------------------------------------------------- estimate
 
 

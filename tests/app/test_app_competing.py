@@ -72,3 +72,30 @@ def test_changing_the_replicates_marks_the_analysis_out_of_date(competing_page):
     at = competing_page
     at.number_input(key="competing_replicates").set_value(REPS + 1).run()
     assert any("changed since this analysis ran" in w.value for w in at.warning)
+
+
+def test_patient_absolute_risks_match_the_library(competing_page):
+    # the clinical model's estimate for one patient (values of the first demo patient) must show
+    # the numbers of workbench.estimate_competing.estimate_competing_patient on the same fitted arm
+    from workbench.app.views.competing import KEY
+    from workbench.app.views.competing_patient import estimate_frame
+    from workbench.estimate_competing import estimate_competing_patient
+
+    at = competing_page
+    at.radio(key="cpe_model").set_value("clinical").run()
+    values = {"age": "67", "sex": "male", "ecog": "1", "stage": "III", "cea_ng_ml": "4.2"}
+    for col, v in values.items():
+        box = [w for w in at.selectbox if w.key == f"cpe_clinical_{col}"]
+        if box:
+            box[0].set_value(v)
+        else:
+            at.text_input(key=f"cpe_clinical_{col}").input(v)
+    at.button[[b.label for b in at.button].index("Estimate the absolute risks")].click().run()
+    assert_clean(at)
+    spec = read_study(DEMO / "study_competing.toml")
+    held = at.session_state[KEY][1]  # the app's own analysis, fitted as run_competing fits it
+    est = estimate_competing_patient(held.arms[("cause", "clinical")], held.cohort, spec, values)
+    shown = next(d.value for d in at.dataframe if "Probability" in d.value.columns)
+    pd_ref = estimate_frame(est)
+    assert shown.astype(str).values.tolist() == pd_ref.astype(str).values.tolist()
+    assert any("Research use only" in i.value for i in at.info)

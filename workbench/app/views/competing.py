@@ -143,3 +143,6 @@ def render_section(spec) -> None:
     for name, png in _pngs(key, result).items():
         st.markdown(f"**{FIGURE_TITLES.get(name, name)}**")
         st.image(png)
+    from workbench.app.views.competing_patient import render_patient
+
+    render_patient(result)
