@@ -572,7 +572,13 @@ def format_estimate(est: PatientEstimate) -> str:
         cuts = " / ".join(f"{c:.3g}" for c in est.risk_cutpoints)
         lines.append(f"Risk group: {est.risk_group} of {len(est.risk_cutpoints) + 1} (training quantile groups, "
                      f"cut-points {cuts}; a score on a cut-point joins the lower group)")
-    ch = est.checks
+    return "\n".join(lines + checks_lines(est.checks, est.notes, est.caution))
+
+
+def checks_lines(ch, notes, caution: str) -> list[str]:
+    """The closing lines of a printed estimate: values outside the training data, imputations,
+    notes and the caution (shared with :mod:`workbench.estimate_competing`)."""
+    lines = []
     if ch.out_of_range:
         lines += ["", "Values outside the training data:"]
         lines += [f"  {f.message}" for f in ch.flags]
@@ -584,7 +590,6 @@ def format_estimate(est: PatientEstimate) -> str:
         lines += ["", "All values lie within the training data."]
     if ch.imputed:
         lines += ["", "Imputed:"] + [f"  {t}" for t in ch.imputed]
-    if est.notes:
-        lines += ["", "Notes:"] + [f"  {t}" for t in est.notes]
-    lines += ["", f"Caution: {est.caution}"]
-    return "\n".join(lines)
+    if notes:
+        lines += ["", "Notes:"] + [f"  {t}" for t in notes]
+    return lines + ["", f"Caution: {caution}"]

@@ -30,7 +30,13 @@ from workbench.cohort.summary import CAUTION
 from workbench.competing.absolute_risk import AbsoluteRisk, cause_specific_risks, fine_gray_risk
 from workbench.competing.fitting import FittedArm, _cross_fitted_score, target_outcome
 from workbench.errors import CohortError, ModelError, SpecError
-from workbench.estimate import PatientChecks, RangeFlag, TrainingRanges, patient_cohort
+from workbench.estimate import (
+    PatientChecks,
+    RangeFlag,
+    TrainingRanges,
+    checks_lines,
+    patient_cohort,
+)
 from workbench.report.bundle import ClinicalInput
 from workbench.study import StudySpec
 
@@ -271,18 +277,4 @@ def format_competing_estimate(est: CompetingPatientEstimate) -> str:
         parts.append(f"free of any event {_ci(r.event_free[j], r.event_free_lower[j], r.event_free_upper[j], lvl)}")
         lines.append(f"  by {t:g} {u}: " + "; ".join(parts))
     lines += ["", "Limits: influence-function standard errors, symmetric on the log(-log) scale."]
-    ch = est.checks
-    if ch.out_of_range:
-        lines += ["", "Values outside the training data:"] + [f"  {f.message}" for f in ch.flags]
-        if ch.imaging_outside:
-            lines.append(f"  {ch.imaging_outside} of {ch.imaging_checked} imaging features lie beyond the "
-                         "training 1st-99th percentiles; furthest:")
-            lines += [f"    {f.message}" for f in ch.imaging_worst]
-    else:
-        lines += ["", "All values lie within the training data."]
-    if ch.imputed:
-        lines += ["", "Imputed:"] + [f"  {t}" for t in ch.imputed]
-    if est.notes:
-        lines += ["", "Notes:"] + [f"  {t}" for t in est.notes]
-    lines += ["", f"Caution: {est.caution}"]
-    return "\n".join(lines)
+    return "\n".join(lines + checks_lines(est.checks, est.notes, est.caution))
