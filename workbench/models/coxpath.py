@@ -54,6 +54,7 @@ from threadpoolctl import ThreadpoolController
 
 from workbench.errors import ConvergenceWarning, ModelError
 from workbench.models.coxkernels import (
+    carry_hessian,
     columns_dot,
     gather_columns,
     newton_working_set,
@@ -286,13 +287,8 @@ class _Problem:
             pos = posmap[ids]
             known = pos >= 0
             if known.sum() >= ids.size // 2:
-                G = np.empty((ids.size, ids.size))
-                kk, nn = np.flatnonzero(known), np.flatnonzero(~known)
-                m0 = old.size
-                if ids.size > m0 and np.array_equal(ids[:m0], old):  # the old set, then new ones
-                    G[:m0, :m0] = G_old
-                else:
-                    G[np.ix_(kk, kk)] = G_old[np.ix_(pos[kk], pos[kk])]
+                G = carry_hessian(G_old, pos)
+                nn = np.flatnonzero(~known)
                 if nn.size:
                     Gn = hessian_columns(self.rs, pc, XS, nn) / self.W
                     G[:, nn] = Gn
