@@ -17,7 +17,15 @@ Prints, side by side in one run:
   target >= 10);
 * Harrell C, Uno C and AUC timing for 50,000 patients.
 
+Also the pipeline a user would script over the general-purpose library (patient-grouped
+5-fold CV over one library path per fold, the all-rows path at the chosen penalty, clinical
+and clinical + signature Cox refitted by the library, out-of-bag Harrell C; timed on a few
+replicates and scaled; target: ours >= 10x ahead and <= 60 s for 200 replicates on 2 workers).
+
 Run: .venv/bin/python bench/bench_validation.py [--replicates 200] [--workers 2]
+     [--run-replicates 8] [--library-samples 2] [--grid-samples 0] [--skip-metrics]
+     [--backend serial]   (ours in this process: CPU times side by side, less disturbed by
+                           other work on a shared machine; scaled to --workers)
 """
 
 from __future__ import annotations
@@ -173,7 +181,8 @@ def timed(fn):
 
 
 def main(replicates: int, workers: int, kernel_samples: int, grid_samples: int, timed_folds: int,
-         library_samples: int = 3, run_replicates: int | None = None, skip_metrics: bool = False) -> None:
+         library_samples: int = 3, run_replicates: int | None = None, skip_metrics: bool = False,
+         backend: str = "processes") -> None:
     warnings.simplefilter("ignore")
     cohort = synthetic_cohort()
     run = replicates if run_replicates is None else min(int(run_replicates), replicates)
@@ -181,19 +190,28 @@ def main(replicates: int, workers: int, kernel_samples: int, grid_samples: int, 
           f"{replicates} bootstrap replicates on {workers} worker(s)"
           + ("" if run == replicates else f" (measured on {run}, scaled to {replicates})"), flush=True)
 
+    c0 = time.process_time()
     t_val, res = timed(lambda: validate(models(), cohort, HORIZONS, replicates=run,
-                                        random_state=1, backend="processes", workers=workers))
+                                        random_state=1, backend=backend, workers=workers))
     t_cmp, cmp = timed(lambda: compare_models(res, "combined", "clinical"))
+    cpu = time.process_time() - c0
     t_run = t_val + t_cmp
-    # the apparent fit runs once; the replicates share the workers
-    per_rep = t_run / (1 + run / workers)
+    # the apparent fit runs once; the replicates share the workers (serial: scaled as if they did)
+    per_rep = t_run / (1 + run / (workers if backend != "serial" else 1))
     t_total = per_rep * (1 + replicates / workers)
-    print(f"  validate + compare done in {t_run:.1f} s ({run} replicates)", flush=True)
+    print(f"  validate + compare done in {t_run:.1f} s ({run} replicates, backend {backend}"
+          + (f"; CPU {cpu:.1f} s, {cpu / (1 + run):.2f} s per fit of both models)" if backend == "serial" else ")"),
+          flush=True)
 
     samples = bootstrap_samples(cohort, max(kernel_samples, library_samples), seed=3)
+    c0 = time.process_time()
     t_l = [timed(lambda idx=idx: library_replicate(cohort, idx))[0] for idx in samples[:library_samples]]
+    cpu_l = (time.process_time() - c0) / max(len(t_l), 1)
     library = np.mean(t_l) * (1 + replicates / workers) if t_l else float("nan")
-    print(f"  library pipeline done ({np.mean(t_l):.2f} s per replicate)", flush=True)
+    print(f"  library pipeline done ({np.mean(t_l):.2f} s per replicate; CPU {cpu_l:.2f} s)", flush=True)
+    if backend == "serial":
+        print(f"  CPU per replicate: library pipeline {cpu_l:.2f} s, ours {cpu / (1 + run):.2f} s, "
+              f"ratio {cpu_l / (cpu / (1 + run)):.2f}", flush=True)
     t_k = [timed(lambda idx=idx: kernel_fit(cohort, idx))[0] for idx in samples[:kernel_samples]]
     # The apparent fit on all rows runs before the replicates, on one worker.
     floor = np.mean(t_k) * (1 + replicates / workers)
@@ -249,6 +267,8 @@ if __name__ == "__main__":
     ap.add_argument("--run-replicates", type=int, default=None,
                     help="replicates of ours actually run (scaled to --replicates; default all)")
     ap.add_argument("--skip-metrics", action="store_true", help="skip the 50,000-patient metric timings")
+    ap.add_argument("--backend", default="processes",
+                    help="'serial' runs ours in this process (CPU time measurable; scaled to --workers)")
     a = ap.parse_args()
     main(a.replicates, a.workers, a.kernel_samples, a.grid_samples, a.grid_folds, a.library_samples,
-         a.run_replicates, a.skip_metrics)
+         a.run_replicates, a.skip_metrics, a.backend)

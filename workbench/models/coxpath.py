@@ -82,6 +82,8 @@ _SMALL = 2e6  # below this many flops, skip the Python-side Hessian cache and KK
 _FULL_SHARE = 0.3  # recompute the whole gradient when more features than this need checking
 _BASIS_SIZE = 20  # residual moves kept for the KKT bound (see _Problem._kkt_violations)
 _BASIS_KEEP = 1e-3  # a move joins the basis only if this share of it is new (keeps P accurate)
+_HELD_SHARE = 0.1  # features that left the working set may stay in its buffer up to this share
+_HOLD = 1e300  # an L1 penalty that holds a coefficient at zero (finite: 0 * _HOLD = 0)
 _MARGIN = 1e-9  # relative margin of the bound for the rounding of P = X'Q
 
 
@@ -247,15 +249,19 @@ class _Problem:
             work |= viol
 
     def _working_columns(self, S):
-        """The working set's columns as a column-major view ``(XS, ids)``, ``ids`` the features
-        in the order of the columns.
+        """The working set's columns as a column-major view ``(XS, ids, held)``: ``ids`` the
+        features in the order of the columns, ``held`` those of them outside ``S``.
 
         The columns live in a buffer that keeps them in the order they joined: a set that only
-        grows (the usual case down a path) copies only its new columns; a set that lost a
-        feature is gathered afresh, in feature order.
+        grows (the usual case down a path) copies only its new columns. A feature that left
+        the set stays in the buffer while such features are few (the caller holds it at zero);
+        otherwise the set is gathered afresh, in feature order.
         """
         ids = self._ids
-        if ids.size and self._inbuf[S].sum() == ids.size:  # S holds every buffered feature
+        inS = np.zeros_like(self._inbuf)
+        inS[S] = True
+        n_held = ids.size - int(self._inbuf[S].sum())
+        if ids.size and n_held <= _HELD_SHARE * ids.size:
             new = S[~self._inbuf[S]]
             if ids.size + new.size > self._buf.shape[1]:  # grow the buffer geometrically
                 cap = min(max(2 * self._buf.shape[1], ids.size + new.size), self.X.shape[1])
@@ -270,7 +276,7 @@ class _Problem:
             self._inbuf[:] = False
         self._inbuf[ids] = True
         self._ids = ids
-        return self._buf[:, :ids.size], ids
+        return self._buf[:, :ids.size], ids, ~inS[ids]
 
     def _hessian(self, ids, XS):
         """Hessian of ``-l / W`` on the features ``ids`` (the columns of ``XS``): the cached
@@ -306,13 +312,15 @@ class _Problem:
         is renewed only when progress slows or a step has to be shortened. Coordinates are
         visited in feature order whatever the order of the buffered columns. Returns
         ``(converged, features, their gradient)``."""
-        XS, ids = self._working_columns(S)
+        XS, ids, held = self._working_columns(S)
         # a small Hessian is cheaper to recompute in compiled code than to extend in Python
         fresh = XS.size * ids.size < _SMALL
         G = np.zeros((ids.size, ids.size)) if fresh else self._hessian(ids, XS)
         rs = self.rs
+        lam1 = lam1_all[ids]
+        lam1[held] = _HOLD  # features outside the set stay at zero (their coefficient is 0)
         b, eta, G, renewed, ref, cyc, conv, pc, gS = newton_working_set(
-            XS, self.eta, self.beta[ids], lam1_all[ids], lam2_all[ids],
+            XS, self.eta, self.beta[ids], lam1, lam2_all[ids],
             np.ascontiguousarray(G), fresh, self.W, self.eps, self.eps * _INNER,
             max(max_cycles - self.cycles, 1), _RENEW, *rs.kernel_args(), rs.row_blk, rs.ev_blk, rs.efron,
             np.argsort(ids))
