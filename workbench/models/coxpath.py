@@ -30,6 +30,14 @@ penalty is the ever-active set plus the features passing the sequential strong r
 [2]_; after convergence every other feature's KKT condition is checked, violators join the set and the fit resumes. Warm starts carry
 each solution to the next penalty.
 
+Throughput on a large X (measured on 5,000 x 2,000, bench/bench_coxpath.py): X is sorted,
+centred and laid out by columns in one tiled copy; the working set's columns sit in an
+append-only buffer, so a growing set copies only its new columns (coordinates are still
+visited in feature order); the KKT check bounds each feature's gradient through a small basis
+of earlier residual moves whose products with X are known, and recomputes only the features
+the bound cannot clear (19 instead of 34 full passes over X on that path). The decisions and
+the fixed point are those of the exact check.
+
 References
 ----------
 .. [1] Simon N, Friedman J, Hastie T, Tibshirani R. Regularization paths for Cox's
