@@ -26,6 +26,12 @@ for 200 permutations on 2 workers; ``--timing-run`` runs fewer and scales):
 
     nice -n 19 python bench/bench_added_value.py --timing 200 [--timing-run 4] [--workers 2]
 
+Measured 2026-12-03 (shared 2-core machine, load average 10-17; ``--timing 200 --timing-run 1
+--workers 1``): 5.4 s CPU per permutation (five signature fits of 400 patients, each with a
+5-fold penalty choice), i.e. about 540 s for 200 permutations on two free workers, before and
+after that day's solver changes (target 60 s: not met). With ``--timing-run 4 --workers 2``
+(wall, heavily loaded): 3735 s before, 3800 s after, scaled.
+
 References: Morris TP, White IR, Crowther MJ. Stat Med 2019;38:2074-102 (simulation
 studies; Monte Carlo SE of a proportion sqrt(p (1 - p) / R)).
 """
