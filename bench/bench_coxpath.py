@@ -28,22 +28,24 @@ are from one run on a shared machine: treat ratios near 1 as ties.
 Run: ``nice -n 19 python bench/bench_coxpath.py`` (about a minute on 2 cores) or ``--quick``
 (sizes divided by 5, a few seconds).
 
-Measured 2026-12-03 on the shared 2-core machine (load average 10-15 from other work, so the
-process-CPU ratio is the steadier one), same script, solver before / after the throughput
-changes (tiled sort-centre-transpose copy, append-only working-set buffer, KKT bound through
-a basis of residual moves, compiled Hessian carry-over):
+Measured 2026-12-03 on the shared 2-core machine (load average 10-17 from other work, so the
+process-CPU ratio is the steadier one), this script with the solver before / after the
+throughput changes (tiled sort-centre-transpose copy, append-only working-set buffer, KKT
+bound through earlier residual moves, compiled Hessian carry-over), two runs after:
 
-    path 5000 x 2000     wall ratio 1.91 -> 2.86   CPU ratio 1.87 -> 2.69 (target 4: not met)
-    path 500 x 1000      wall ratio 5.60 -> 5.87   CPU ratio 5.54 -> 5.55
-    path + 5-fold CV     wall ratio 8.21 -> 5.25   CPU ratio 7.09 -> 6.05 (same CPU for ours,
-                         3.19 s; the library's CPU differed between the runs)
-    bootstrap 1000 x 500 wall ratio 2.48 -> 2.19   CPU ratio 2.37 -> 2.45
+    path 5000 x 2000     wall ratio 1.91 -> 2.86, 2.88   CPU ratio 1.87 -> 2.69, 2.73
+                         (our CPU 1.19 s -> 0.82, 0.84 s; target 4: NOT met)
+    path 500 x 1000      wall ratio 5.60 -> 5.87, 5.86   CPU ratio 5.54 -> 5.55, 6.05
+    path + 5-fold CV     wall ratio 8.21 -> 5.25, 6.40   CPU ratio 7.09 -> 6.05, 6.46
+                         (our CPU 3.19 s before and after; the library's varied between runs)
+    bootstrap 1000 x 500 wall ratio 2.48 -> 2.19, 2.68   CPU ratio 2.37 -> 2.45, 2.31
 
-Repeated side-by-side runs of scenario 1 alone (CPU, best of two of ours): 2.0 before,
-2.8-3.0 after. Where the 5,000 x 2,000 path's CPU goes after the changes (profile, 0.8 s):
-Hessian columns of features joining the working set 0.20 s (one product, O(n |S| |new|)),
-the proximal-Newton kernel 0.17 s, 19 full gradient passes 0.15 s, the sorted column-major
-copy of X 0.12 s, candidate gradients and buffer copies 0.07 s.
+Repeated in one process (scenario 1, CPU, our best of two): 1.94-2.11 before, 2.8-3.2 after.
+Where the 5,000 x 2,000 path's CPU goes after the changes (profile, about 0.75 s): Hessian
+columns of features joining the working set 0.20 s (one product, O(n |S| |new|), near the
+single-core peak), the proximal-Newton kernel 0.17 s, 19 full gradient passes 0.15 s (34
+before), the sorted column-major copy of X 0.12 s (a transpose: numpy's own costs the
+same), candidate gradients and buffer copies 0.07 s.
 """
 
 from __future__ import annotations
