@@ -21,6 +21,17 @@ Run (about 15 minutes on one free core at the default scale):
 
     nice -n 10 python bench/bench_added_value.py [--null 200] [--alt 40] [--n 200] [--p 60]
 
+Timing mode (the test's wall time on bench_validation.py's 500 x 1,000 cohort, target <= 60 s
+for 200 permutations on 2 workers; ``--timing-run`` runs fewer and scales):
+
+    nice -n 19 python bench/bench_added_value.py --timing 200 [--timing-run 4] [--workers 2]
+
+Measured 2026-12-03 (shared 2-core machine, load average 10-17; ``--timing 200 --timing-run 1
+--workers 1``): 5.4 s CPU per permutation (five signature fits of 400 patients, each with a
+5-fold penalty choice), i.e. about 540 s for 200 permutations on two free workers, before and
+after that day's solver changes (target 60 s: not met). With ``--timing-run 4 --workers 2``
+(wall, heavily loaded): 3735 s before, 3800 s after, scaled.
+
 References: Morris TP, White IR, Crowther MJ. Stat Med 2019;38:2074-102 (simulation
 studies; Monte Carlo SE of a proportion sqrt(p (1 - p) / R)).
 """
@@ -77,6 +88,37 @@ def rate(x, alpha):
     return r, float(np.sqrt(r * (1 - r) / x.size))
 
 
+def timing(permutations: int, run: int, workers: int) -> None:
+    """Wall time of the test with ``permutations`` permutations on bench_validation.py's cohort
+    (500 x 1,000) and models (clinical Cox; clinical + signature, default settings), 5 folds.
+
+    ``run`` permutations are actually run; the time is scaled as (1 + K) fits of the combined
+    model per fold (the observed statistic costs one permutation's work), the workers sharing
+    the permutations."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from bench_validation import models, synthetic_cohort
+
+    cohort = synthetic_cohort()
+    m = models()
+    t0, c0 = time.perf_counter(), time.process_time()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        t = added_value_test(m["combined"], m["clinical"], cohort, permutations=run, folds=5, random_state=1,
+                             backend="processes" if workers > 1 else "serial", workers=workers)
+    sec, cpu = time.perf_counter() - t0, time.process_time() - c0
+    per = sec / (1 + run / workers)
+    total = per * (1 + permutations / workers)
+    print(f"added-value test on {cohort.n} x {cohort.features.shape[1]}: {run} permutations on {workers} "
+          f"worker(s) in {sec:.1f} s (p = {t.p_value:.3f}); {per:.1f} s per permutation and worker")
+    label = f"{permutations} permutations" + ("" if run == permutations else f" (scaled from {run})")
+    print(f"{label:<52}{total:9.1f} s   (target <= 60 s)")
+    if workers == 1:  # serial: this process did all the work, so its CPU time is the work's
+        print(f"{'  CPU: per permutation (incl. observed), scaled to 2 workers':<52}{cpu / (1 + run):9.1f} s"
+              f"{cpu / (1 + run) * (1 + permutations / 2):9.1f} s")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--null", type=int, default=200, help="simulated null cohorts")
@@ -87,7 +129,14 @@ def main(argv=None):
     ap.add_argument("--folds", type=int, default=3, help="folds of the cross-validated likelihood")
     ap.add_argument("--rule", default="min", help="penalty rule of the signature")
     ap.add_argument("--alpha", type=float, default=0.05)
+    ap.add_argument("--timing", type=int, default=0, metavar="K",
+                    help="instead: time the test with K permutations on bench_validation.py's 500 x 1,000 cohort")
+    ap.add_argument("--timing-run", type=int, default=None, help="permutations actually run (scaled to K)")
+    ap.add_argument("--workers", type=int, default=2, help="workers of the timing run")
     a = ap.parse_args(argv)
+    if a.timing:
+        timing(a.timing, a.timing if a.timing_run is None else min(a.timing_run, a.timing), a.workers)
+        return
     preds = tuple(read_study(DEMO).predictors)
     print(f"scale: n = {a.n} patients, p = {a.p} imaging features, K = {a.K} permutations, "
           f"{a.folds}-fold cross-validated likelihood, inner 3-fold penalty choice (rule {a.rule!r}), "

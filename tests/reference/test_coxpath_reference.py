@@ -88,6 +88,32 @@ def test_path_equals_scikit_survival_at_every_penalty(request, data, alpha_min_r
     np.testing.assert_allclose(ours.coefs[:, :k], ref.coef_, rtol=0, atol=ATOL)
 
 
+@pytest.mark.parametrize("l1_ratio", [1.0, 0.5])
+def test_large_problem_route_equals_scikit_survival(breast, monkeypatch, l1_ratio):
+    """The route a large X takes (working-set buffer, Hessian carried between working sets, KKT
+    bound through a basis of residual moves), forced on the breast cancer genes: the same
+    reference path (scikit-survival, tol=1e-15) to the same 1e-6."""
+    import workbench.models.coxpath as cp
+
+    calls = {"bound": 0}
+    kkt = cp.columns_dot
+
+    def spy(*args):
+        calls["bound"] += 1
+        return kkt(*args)
+
+    monkeypatch.setattr(cp, "_SMALL", 0)
+    monkeypatch.setattr(cp, "columns_dot", spy)
+    Z, time, event, _ = breast
+    ours = fit_cox_path(Z, time, event, n_alphas=100, alpha_min_ratio=0.05, l1_ratio=l1_ratio,
+                        tol=OUR_TOL, stop_flat=False)
+    assert calls["bound"] > 0  # the bound cleared some features and checked the rest
+    ref = _reference(Z, time, event, ours.alphas, l1_ratio)
+    k = ref.coef_.shape[1]
+    assert k >= 20
+    np.testing.assert_allclose(ours.coefs[:, :k], ref.coef_, rtol=0, atol=ATOL)
+
+
 @pytest.mark.parametrize("data", ["breast", "gbsg2"])
 def test_generated_path_matches_the_reference_grid_and_its_early_stop(request, data):
     Z, time, event, _ = request.getfixturevalue(data)

@@ -205,8 +205,9 @@ def cox_row_terms(E, w, dw, bfirst, blast, mterms, tw, efron):
 
 
 @njit(cache=True)
-def cd_cycles(G, q, bn, lam1, denom, diag, eps, max_cycles, sign_check):
-    """Cyclic coordinate descent on ``-q'd + d'Gd/2 + penalty``, in place on ``bn`` and ``q``.
+def cd_cycles(G, q, bn, lam1, denom, diag, eps, max_cycles, sign_check, visit):
+    """Cyclic coordinate descent on ``-q'd + d'Gd/2 + penalty``, in place on ``bn`` and ``q``;
+    each cycle visits the coordinates in the order ``visit``.
 
     ``q`` is the running gradient ``g - G (bn - b)`` (covariance updates [3]_). Returns
     ``(cycles, status)``: 1 when no update changed the quadratic by ``eps`` or more,
@@ -219,7 +220,8 @@ def cd_cycles(G, q, bn, lam1, denom, diag, eps, max_cycles, sign_check):
     while cycles < max_cycles:
         cycles += 1
         max_up = 0.0
-        for j in range(m):
+        for jj in range(m):
+            j = visit[jj]
             old = bn[j]
             z = q[j] + diag[j] * old
             a = abs(z) - lam1[j]
@@ -264,7 +266,7 @@ def _penalty(b, lam1, lam2):
 
 @njit(cache=True)
 def newton_working_set(XS, eta, b, lam1, lam2, G, fresh, W, eps, inner_eps, max_cycles, renew,
-                       w, dw, bfirst, blast, mterms, tw, row_blk, ev_blk, efron):
+                       w, dw, bfirst, blast, mterms, tw, row_blk, ev_blk, efron, visit):
     """Proximal Newton on one working set, all in compiled code (see coxpath._Problem).
 
     ``XS`` (column-major, sorted rows) holds the working set's columns, ``b`` their
@@ -275,7 +277,8 @@ def newton_working_set(XS, eta, b, lam1, lam2, G, fresh, W, eps, inner_eps, max_
     quadratic model by ``eps`` or more. The Hessian is renewed when a step had to be
     shortened or shrank the update by less than the factor ``renew``.
 
-    Returns ``(b, eta, G, ref, cycles, converged, pieces, gS)`` with ``ref`` the likelihood
+    Coordinates are visited in the order ``visit`` (the columns of ``XS`` may be in any
+    order). Returns ``(b, eta, G, ref, cycles, converged, pieces, gS)`` with ``ref`` the likelihood
     pieces ``G`` was taken at (``None`` when ``G`` is the one given) and ``pieces`` those at
     the final point.
     """
@@ -297,7 +300,7 @@ def newton_working_set(XS, eta, b, lam1, lam2, G, fresh, W, eps, inner_eps, max_
         q = gS.copy()
         bn = b.copy()
         cyc, _ = cd_cycles(G, q, bn, lam1, denom, diag, inner_eps, max(max_cycles - cycles, 1),
-                           max_cycles + 1)
+                           max_cycles + 1, visit)
         cycles += cyc
         d = bn - b
         moved = False
@@ -347,3 +350,81 @@ def newton_working_set(XS, eta, b, lam1, lam2, G, fresh, W, eps, inner_eps, max_
             renewed = True
             ref = pc
         last_up = up
+
+
+@njit(cache=True)
+def sorted_centred_columns(X, order, mean):
+    """``X[order] - mean`` in column-major layout with the column norms, in one pass.
+
+    The copy runs over square tiles so that the rows read and the columns written both stay
+    in cache and in the address-translation buffer (one copy instead of four).
+    """
+    n, p = X.shape
+    out = np.empty((p, n)).T
+    norm2 = np.zeros(p)
+    blk = 32
+    for j0 in range(0, p, blk):
+        j1 = min(j0 + blk, p)
+        for i0 in range(0, n, blk):
+            i1 = min(i0 + blk, n)
+            for j in range(j0, j1):
+                m = mean[j]
+                s = 0.0
+                for i in range(i0, i1):
+                    v = X[order[i], j] - m
+                    out[i, j] = v
+                    s += v * v
+                norm2[j] += s
+    return out, np.sqrt(norm2)
+
+
+@njit(cache=True)
+def carry_hessian(G_old, pos):
+    """A matrix for a new working set holding the entries of ``G_old`` between features it
+    already covered (``pos[k]``: position of feature ``k`` in ``G_old``, -1 for a new one);
+    the rows and columns of new features are left for the caller to fill."""
+    m = pos.shape[0]
+    G = np.empty((m, m))
+    for a in range(m):
+        pa = pos[a]
+        if pa < 0:
+            continue
+        for b in range(m):
+            pb = pos[b]
+            if pb >= 0:
+                G[a, b] = G_old[pa, pb]
+    return G
+
+
+@njit(cache=True)
+def put_columns(X, cols, out, start):
+    """``out[:, start + k] = X[:, cols[k]]`` for column-major arrays."""
+    n = X.shape[0]
+    for k in range(cols.shape[0]):
+        j = cols[k]
+        for i in range(n):
+            out[i, start + k] = X[i, j]
+
+
+@njit(cache=True)
+def gather_columns(X, cols):
+    """``X[:, cols]`` of a column-major ``X`` as a column-major copy (one contiguous copy per
+    column)."""
+    n = X.shape[0]
+    m = cols.shape[0]
+    out = np.empty((m, n)).T
+    for k in range(m):
+        j = cols[k]
+        for i in range(n):
+            out[i, k] = X[i, j]
+    return out
+
+
+@njit(cache=True)
+def columns_dot(X, cols, r):
+    """``X[:, cols]' r`` for a column-major ``X`` without copying the columns."""
+    m = cols.shape[0]
+    out = np.empty(m)
+    for k in range(m):
+        out[k] = np.dot(X[:, cols[k]], r)
+    return out

@@ -315,14 +315,18 @@ def cv_partial_loglik(X, time, event, fold, fold_coefs, weights=None, *, ties: s
         eta = np.empty((X.shape[0], out.shape[1]))
         for k, B in enumerate(fold_coefs):
             rows = fold == k
-            eta[rows] = X[rows] @ B
+            B = np.asarray(B, dtype=float)
+            nz = np.flatnonzero(np.any(B != 0, axis=1))
+            eta[rows] = X[np.ix_(rows, nz)] @ B[nz]
         terms = loglik_row_terms(eta, time, event, w, ties)
         for k in range(n_folds):
             out[k] = terms[fold == k].sum(axis=0)
         return out
     rs_all = make_risk_sets(time, event, w, ties)
     for k, B in enumerate(fold_coefs):
-        eta = X @ B
+        B = np.asarray(B, dtype=float)
+        nz = np.flatnonzero(np.any(B != 0, axis=1))  # a sparse path: only its non-zero rows
+        eta = X[:, nz] @ B[nz]
         rs_train = make_risk_sets(time, event, np.where(fold != k, w, 0.0), ties)
         out[k] = loglik_sorted(rs_all, eta[rs_all.order]) - loglik_sorted(rs_train, eta[rs_train.order])
     return out

@@ -30,6 +30,14 @@ penalty is the ever-active set plus the features passing the sequential strong r
 [2]_; after convergence every other feature's KKT condition is checked, violators join the set and the fit resumes. Warm starts carry
 each solution to the next penalty.
 
+Throughput on a large X (measured on 5,000 x 2,000, bench/bench_coxpath.py): X is sorted,
+centred and laid out by columns in one tiled copy; the working set's columns sit in an
+append-only buffer, so a growing set copies only its new columns (coordinates are still
+visited in feature order); the KKT check bounds each feature's gradient through a small basis
+of earlier residual moves whose products with X are known, and recomputes only the features
+the bound cannot clear (about 20 instead of 34 full passes over X on that path). The decisions and
+the fixed point are those of the exact check.
+
 References
 ----------
 .. [1] Simon N, Friedman J, Hastie T, Tibshirani R. Regularization paths for Cox's
@@ -53,7 +61,14 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from workbench.errors import ConvergenceWarning, ModelError
-from workbench.models.coxkernels import newton_working_set
+from workbench.models.coxkernels import (
+    carry_hessian,
+    columns_dot,
+    gather_columns,
+    newton_working_set,
+    put_columns,
+    sorted_centred_columns,
+)
 from workbench.models.coxlik import (
     Pieces,
     hessian_columns,
@@ -73,6 +88,10 @@ _RENEW = 0.3  # a fresh Hessian when a Newton step shrinks the update by less th
 _INNER = 0.1
 _SMALL = 2e6  # below this many flops, skip the Python-side Hessian cache and KKT bound
 _FULL_SHARE = 0.3  # recompute the whole gradient when more features than this need checking
+_BASIS_SIZE = 20  # residual moves kept for the KKT bound (see _Problem._kkt_violations)
+_HELD_SHARE = 0.1  # features that left the working set may stay in its buffer up to this share
+_HOLD = 1e300  # an L1 penalty that holds a coefficient at zero (finite: 0 * _HOLD = 0)
+_MARGIN = 1e-9  # relative margin of the KKT bound for rounding (double precision: ~1e-16)
 
 
 @lru_cache(maxsize=1)
@@ -128,10 +147,12 @@ class _Problem:
         self.W = self.rs.total_weight
         if self.W <= 0 or self.rs.dw.sum() <= 0:
             raise ModelError("the weighted data contain no events; the Cox path needs at least one.")
-        mean = self.rs.w @ X[self.rs.order] / self.W
+        w = np.empty_like(self.rs.w)
+        w[self.rs.order] = self.rs.w  # the case weights in the given row order
+        mean = w @ X / self.W
         # centring leaves Cox coefficients unchanged; column-major so that a working set's
-        # columns are gathered as contiguous blocks
-        self.X = np.asfortranarray(X[self.rs.order] - mean)
+        # columns are gathered as contiguous blocks; sorted, centred and laid out in one copy
+        self.X, self.xnorm = sorted_centred_columns(X, self.rs.order, mean)
         self.pf = pf
         self.l1 = float(l1_ratio)
         self.null_dev = null_deviance(self.rs)
@@ -145,37 +166,64 @@ class _Problem:
         # (working set, its Hessian, the likelihood pieces it was taken at): a Hessian
         # from an earlier point changes the speed of approach, never the fixed point
         self._cache = None
+        self._buf = np.zeros((X.shape[0], 0), order="F")  # see _working_columns
+        self._ids = np.zeros(0, dtype=np.int64)
+        self._inbuf = np.zeros(p, dtype=bool)
         self._set_pieces(likelihood_pieces(self.rs, self.eta))
-        self.xnorm = np.sqrt(np.einsum("ij,ij->j", self.X, self.X))
+        self._r0 = None
+        self._D, self._G, self._Gabs = np.zeros((X.shape[0], 0)), np.zeros((p, 0)), np.zeros((p, 0))
         self.full_gradient()
 
     def full_gradient(self):
-        """``X' resid / W`` of every feature (one pass over X), remembered with its residuals."""
-        self.grad = self.X.T @ self.resid
+        """``X' resid / W`` of every feature (one pass over X), remembered with its residuals.
+
+        The move of the residuals since the last full pass joins a small basis ``D`` whose
+        products with X are known exactly as differences of full gradients (``G``), with no
+        extra pass over X (see :meth:`_kkt_violations`).
+        """
+        g = self.X.T @ self.resid
+        if self._r0 is not None and self.X.size >= _SMALL:
+            d = self.resid - self._r0
+            if np.any(d != 0):
+                keep = slice(1, None) if self._D.shape[1] >= _BASIS_SIZE else slice(None)  # oldest out
+                self._D = np.column_stack([self._D[:, keep], d])
+                self._G = np.column_stack([self._G[:, keep], g - self.grad])
+                self._Gabs = np.column_stack([self._Gabs[:, keep], np.abs(g) + np.abs(self.grad)])
+        self.grad = g
         self._r0 = self.resid.copy()
         self.grad_rule = self.grad  # best known current gradient, for the strong rule
 
     def _kkt_violations(self, work, lam1_all, S, gS):
         """Features outside the working set that violate their KKT condition, exactly.
 
-        ``|x_j' r| <= |x_j' r0| + ||x_j|| ||r - r0||`` (Cauchy-Schwarz) clears most features
-        without touching their column; only the others are recomputed, and the whole
-        gradient only when they are many (it is one pass over X, the path's largest cost on
-        a wide X). The decision is exact either way.
+        With ``r0`` the residuals of the last full pass and ``D`` earlier residual moves whose
+        products ``G = X'D`` are known, ``r - r0 = D c + u`` (``c`` by least squares) and
+        ``|x_j' r| <= |x_j' r0 + G_j c| + ||x_j|| ||u||`` (Cauchy-Schwarz on the part the
+        moves miss). This clears most features without touching their column; only the
+        others are recomputed, and the whole gradient only when they are many (it is one
+        pass over X, the path's largest cost on a wide X). The decision is exact either
+        way: the bound carries margins far above the rounding of ``G c`` and of ``u``.
         """
         out = ~work
         if self.X.size < _SMALL:  # the bound's bookkeeping costs more than the product
             self.full_gradient()
             return out & (np.abs(self.grad) > lam1_all)
-        bound = self.xnorm * float(np.linalg.norm(self.resid - self._r0))
-        cand = np.flatnonzero(out & (np.abs(self.grad) + bound > lam1_all))
+        d = self.resid - self._r0
+        D = self._D
+        c = np.linalg.lstsq(D, d, rcond=None)[0] if D.shape[1] else np.zeros(0)
+        est = self.grad + self._G @ c
+        ac = np.abs(c)
+        slack = float(np.linalg.norm(d)) + float(np.linalg.norm(D, axis=0) @ ac)
+        bound = self.xnorm * (float(np.linalg.norm(d - D @ c)) + _MARGIN * slack)
+        bound += _MARGIN * (self._Gabs @ ac + np.abs(self.grad) + np.abs(est) + lam1_all)
+        cand = np.flatnonzero(out & (np.abs(est) + bound > lam1_all))
         if cand.size > _FULL_SHARE * out.size:
             self.full_gradient()
             return out & (np.abs(self.grad) > lam1_all)
-        g = self.X[:, cand].T @ self.resid
+        g = columns_dot(self.X, cand, self.resid)
         viol = np.zeros_like(work)
         viol[cand] = np.abs(g) > lam1_all[cand]
-        self.grad_rule = self.grad.copy()
+        self.grad_rule = est
         self.grad_rule[cand] = g
         if S.size:
             self.grad_rule[S] = gS
@@ -197,7 +245,7 @@ class _Problem:
         while True:
             S = np.flatnonzero(work)
             if S.size:
-                conv, gS = self._fit_working_set(S, lam1_all[S], lam2_all[S], max_cycles)
+                conv, S, gS = self._fit_working_set(S, lam1_all, lam2_all, max_cycles)
             else:
                 conv, gS = True, np.zeros(0)
             if self.cycles >= max_cycles:
@@ -207,55 +255,91 @@ class _Problem:
                 return True
             work |= viol
 
-    def _hessian(self, S, XS, fresh):
-        """Hessian of ``-l / W`` on ``S``: the cached one, extended by the rows of features new
-        to the working set (taken at the cached point, so the matrix stays one exact,
-        positive semi-definite Hessian), or a fresh one at the current point."""
+    def _working_columns(self, S):
+        """The working set's columns as a column-major view ``(XS, ids, held)``: ``ids`` the
+        features in the order of the columns, ``held`` those of them outside ``S``.
+
+        The columns live in a buffer that keeps them in the order they joined: a set that only
+        grows (the usual case down a path) copies only its new columns. A feature that left
+        the set stays in the buffer while such features are few (the caller holds it at zero);
+        otherwise the set is gathered afresh, in feature order.
+        """
+        ids = self._ids
+        inS = np.zeros_like(self._inbuf)
+        inS[S] = True
+        n_held = ids.size - int(self._inbuf[S].sum())
+        if ids.size and n_held <= _HELD_SHARE * ids.size:
+            new = S[~self._inbuf[S]]
+            if ids.size + new.size > self._buf.shape[1]:  # grow the buffer geometrically
+                cap = min(max(2 * self._buf.shape[1], ids.size + new.size), self.X.shape[1])
+                buf = np.empty((cap, self.X.shape[0])).T
+                put_columns(self._buf, np.arange(ids.size), buf, 0)
+                self._buf = buf
+            put_columns(self.X, new, self._buf, ids.size)
+            ids = np.concatenate([ids, new])
+        else:
+            self._buf = gather_columns(self.X, S)
+            ids = S.copy()
+            self._inbuf[:] = False
+        self._inbuf[ids] = True
+        self._ids = ids
+        return self._buf[:, :ids.size], ids, ~inS[ids]
+
+    def _hessian(self, ids, XS):
+        """Hessian of ``-l / W`` on the features ``ids`` (the columns of ``XS``): the cached
+        one, extended by the rows of features new to the working set (taken at the cached
+        point, so the matrix stays one exact, positive semi-definite Hessian), or a fresh one
+        at the current point."""
         c = self._cache
-        if not fresh and c is not None:
-            old_S, G_old, pc = c
-            if old_S.size == S.size and np.array_equal(old_S, S):
+        if c is not None:
+            old, G_old, pc = c
+            if old.size == ids.size and np.array_equal(old, ids):
                 return G_old
-            pos = np.searchsorted(old_S, S)
-            pos = np.minimum(pos, old_S.size - 1)
-            known = old_S[pos] == S
-            if known.sum() >= S.size // 2:
-                G = np.empty((S.size, S.size))
-                kk, nn = np.flatnonzero(known), np.flatnonzero(~known)
-                G[np.ix_(kk, kk)] = G_old[np.ix_(pos[kk], pos[kk])]
+            posmap = np.full(self.X.shape[1], -1)
+            posmap[old] = np.arange(old.size)
+            pos = posmap[ids]
+            known = pos >= 0
+            if known.sum() >= ids.size // 2:
+                G = carry_hessian(G_old, pos)
+                nn = np.flatnonzero(~known)
                 if nn.size:
                     Gn = hessian_columns(self.rs, pc, XS, nn) / self.W
                     G[:, nn] = Gn
                     G[nn, :] = Gn.T
-                self._cache = (S.copy(), G, pc)
+                self._cache = (ids.copy(), G, pc)
                 return G
         G = hessian_from_factors(*hessian_factors(self.rs, self.pieces, XS)) / self.W
         self.n_hessians += 1
-        self._cache = (S.copy(), G, self.pieces)
+        self._cache = (ids.copy(), G, self.pieces)
         return G
 
-    def _fit_working_set(self, S, lam1, lam2, max_cycles):
+    def _fit_working_set(self, S, lam1_all, lam2_all, max_cycles):
         """Proximal Newton on the working set with the exact Hessian of the partial likelihood,
         in compiled code (:func:`workbench.models.coxkernels.newton_working_set`); the Hessian
-        is renewed only when progress slows or a step has to be shortened."""
-        XS = np.asfortranarray(self.X[:, S])
+        is renewed only when progress slows or a step has to be shortened. Coordinates are
+        visited in feature order whatever the order of the buffered columns. Returns
+        ``(converged, features, their gradient)``."""
+        XS, ids, held = self._working_columns(S)
         # a small Hessian is cheaper to recompute in compiled code than to extend in Python
-        fresh = XS.size * S.size < _SMALL
-        G = np.zeros((S.size, S.size)) if fresh else self._hessian(S, XS, fresh=False)
+        fresh = XS.size * ids.size < _SMALL
+        G = np.zeros((ids.size, ids.size)) if fresh else self._hessian(ids, XS)
         rs = self.rs
+        lam1 = lam1_all[ids]
+        lam1[held] = _HOLD  # features outside the set stay at zero (their coefficient is 0)
         b, eta, G, renewed, ref, cyc, conv, pc, gS = newton_working_set(
-            XS, self.eta, self.beta[S].copy(), np.ascontiguousarray(lam1), np.ascontiguousarray(lam2),
+            XS, self.eta, self.beta[ids], lam1, lam2_all[ids],
             np.ascontiguousarray(G), fresh, self.W, self.eps, self.eps * _INNER,
-            max(max_cycles - self.cycles, 1), _RENEW, *rs.kernel_args(), rs.row_blk, rs.ev_blk, rs.efron)
+            max(max_cycles - self.cycles, 1), _RENEW, *rs.kernel_args(), rs.row_blk, rs.ev_blk, rs.efron,
+            np.argsort(ids))
         self.cycles += cyc
         self.beta = self.beta.copy()
-        self.beta[S] = b
+        self.beta[ids] = b
         self.eta = eta
         self._set_pieces(Pieces(*pc))
         if renewed:
             self.n_hessians += 1
-            self._cache = (S.copy(), G, Pieces(*ref))
-        return conv and self.cycles < max_cycles, gS
+            self._cache = (ids.copy(), G, Pieces(*ref))
+        return conv and self.cycles < max_cycles, ids, gS
 
 
 def cox_alpha_max(X, time, event, *, l1_ratio=1.0, penalty_factor=None, weights=None) -> float:
