@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import streamlit as st
 
-from workbench.app import nomo, state, tables
+from workbench.app import charts, nomo, state, tables
 from workbench.app.messages import plain
 
 FORMATS = (("png", "PNG", "image/png"), ("svg", "SVG", "image/svg+xml"), ("pdf", "PDF", "application/pdf"))
@@ -18,14 +18,15 @@ def _drawing(run_key: tuple, models: tuple, horizons: tuple, layout: str, _scale
 
 
 @st.cache_data(show_spinner=False, max_entries=8)
-def _png(run_key: tuple, models: tuple, horizons: tuple, layout: str, _fig) -> bytes:
-    return nomo.screen_png(_fig, tight=False)  # the nomogram lays itself out to fit its page
+def _screen(run_key: tuple, models: tuple, horizons: tuple, layout: str, _fig) -> str:
+    # SVG: quicker to write than a PNG of the nomogram's many ticks, and sharp when zoomed
+    return charts.screen_svg(_fig)
 
 
 def _files(run_key: tuple, models: tuple, horizons: tuple, layout: str, scales) -> dict:
     """The PNG for the page at once; the files (PNG at 300 dpi, SVG, PDF) written when their button is pressed."""
     fig = _drawing(run_key, models, horizons, layout, scales)
-    out = {"screen": _png(run_key, models, horizons, layout, fig)}
+    out = {"screen": _screen(run_key, models, horizons, layout, fig)}
     for fmt, _, _ in FORMATS:
         out[fmt] = lambda f=fig, x=fmt: nomo.save_figure(f, x)
     return out
