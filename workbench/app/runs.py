@@ -103,12 +103,20 @@ class RunJob:
             self._phase, self._phase_start, self._phase_done0 = message, time.monotonic(), int(done)
         self.done, self.total, self.message = int(done), int(total), message
 
+    def _compute(self):
+        return run_study_cached(self.key[0], self.key[1], self.replicates, self.workers,
+                                self.spec, self._progress, self._cancel.is_set)
+
+    def _finished(self) -> None:
+        from workbench.app import exports
+
+        self.exports = exports.prepare(self.result)  # the Export files are built while the user reads
+
     def _work(self) -> None:
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")  # the result carries its warning counts
-                self.result = run_study_cached(self.key[0], self.key[1], self.replicates, self.workers,
-                                               self.spec, self._progress, self._cancel.is_set)
+                self.result = self._compute()
         except BaseException as exc:  # noqa: BLE001 - reported in the page, never re-raised
             if self._cancel.is_set():
                 self.cancelled = True
@@ -117,10 +125,8 @@ class RunJob:
         finally:
             if self._cancel.is_set():  # a run cancelled after its last check is discarded all the same
                 self.cancelled, self.result = True, None
-            if self.result is not None:  # the Export files are built while the user reads the results
-                from workbench.app import exports
-
-                self.exports = exports.prepare(self.result)
+            if self.result is not None:
+                self._finished()
             self.finished = time.monotonic()
 
     def cancel(self) -> None:
@@ -143,6 +149,28 @@ class RunJob:
     def wait(self, seconds: float) -> None:
         if self._thread is not None:
             self._thread.join(seconds)
+
+
+@dataclass
+class CompetingJob(RunJob):
+    """The competing-risks analysis of the Results page, in the background like a study run."""
+
+    PHASE = "Competing-risks bootstrap"
+
+    def _compute(self):
+        from workbench.competing.analysis import run_competing
+        from workbench.workflow import RunCancelled
+
+        def progress(done: int, total: int) -> None:
+            if self._cancel.is_set():
+                raise RunCancelled(f"the competing-risks analysis was stopped ({done} of {total} replicates done).")
+            self._progress(done, total, self.PHASE)
+
+        self._progress(0, 0, "Fitting the competing-risks models on all patients")
+        return run_competing(self.spec, replicates=self.replicates, workers=self.workers, progress=progress)
+
+    def _finished(self) -> None:
+        pass  # nothing to export: the section draws its own figures
 
 
 def run_key(spec: StudySpec, replicates: int, workers: int) -> tuple:

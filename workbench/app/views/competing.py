@@ -2,8 +2,8 @@
 
 Shown when the study names competing codes (the Data page's third set of event values).
 The analysis is :func:`workbench.competing.analysis.run_competing`, the same as
-``workbench competing``; it is run on request, apart from the main study run, and kept
-for the study and number of replicates it was run with.
+``workbench competing``; it is run on request in the background (with progress and Cancel),
+apart from the main study run, and kept for the study and number of replicates it was run with.
 """
 
 from __future__ import annotations
@@ -19,6 +19,7 @@ MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
                "combined_minus_clinical": "Difference (signature added)"}
 METHOD_WORDS = {"cause_specific": "cause-specific Cox", "fine_gray": "Fine-Gray"}
 KEY = "wb_competing_result"
+JOB = "wb_competing_job"
 
 
 def _fmt(x: float, lo: float | None = None, hi: float | None = None) -> str:
@@ -106,19 +107,27 @@ def render_section(spec) -> None:
                                 "or more.")
     ss["wb_competing_reps"] = int(reps)
     run_key = (state.study_text(spec), int(reps))
-    if st.button("Run the competing-risks analysis", key="competing_run"):
-        from workbench.competing.analysis import run_competing
+    job = ss.get(JOB)
+    if st.button("Run the competing-risks analysis", key="competing_run",
+                 disabled=job is not None and job.running):
+        from workbench.app.runs import CompetingJob
 
-        bar = st.progress(0.0, text="Competing-risks bootstrap")
-        try:
-            with st.spinner("Fitting and validating the competing-risks models..."):
-                result = run_competing(spec, replicates=int(reps),
-                                       progress=lambda done, total: bar.progress(done / max(total, 1)))
-        except Exception as exc:  # noqa: BLE001
-            state.show_error("The competing-risks analysis", exc)
-            return
-        ss[KEY] = (run_key, result)
+        # in the background, like the study run: the page stays responsive and Cancel acts between replicates
+        job = ss[JOB] = CompetingJob(run_key, spec, int(reps), int(spec.validation.workers)).start()
+    if job is not None and job.running:
+        from workbench.app import progress
+
+        progress.watch(job, cancel_label="Cancel the competing-risks analysis", key="competing_cancel",
+                       idle="Fitting the competing-risks models on all patients...")
+        return
+    if job is not None and job.result is not None and ss.get(KEY, (None, None))[1] is not job.result:
+        ss[KEY] = (job.key, job.result)
     held = ss.get(KEY)
+    if job is not None and job.cancelled:
+        st.warning("The competing-risks analysis was cancelled." + (" The results below are those of the last "
+                                                                   "complete analysis." if held else ""))
+    elif job is not None and job.error is not None:
+        state.show_error("The competing-risks analysis", job.error)
     if held is None:
         st.info("Press the button to run it.")
         return

@@ -7,11 +7,10 @@ import os
 import numpy as np
 import streamlit as st
 
-from workbench.app import charts, exports, roles, state, tables
+from workbench.app import charts, exports, progress, roles, state, tables
 from workbench.app.messages import plain
 from workbench.validation.compare import LR_CAUTION
 
-POLL_SECONDS = 0.5
 METHODS = {"bootstrap": "bootstrap validation", "cv": "repeated cross-validation",
            "by_centre": "leave-one-centre-out validation", "external": "external validation"}
 
@@ -57,29 +56,6 @@ def _run_controls(spec) -> None:
     if st.button("Run the study", type="primary", disabled=busy, key="results_run"):
         state.start_run(spec, int(reps), int(workers))
         st.rerun()
-
-
-def _clock(seconds: float) -> str:
-    seconds = max(0, int(round(seconds)))
-    return f"{seconds // 60}:{seconds % 60:02d}"
-
-
-def _watch(job) -> None:
-    """Show progress while the background run goes on; a click on Cancel stops it between replicates."""
-    st.button("Cancel the run", on_click=job.cancel, key="results_cancel")
-    bar = st.progress(0.0, text="Preparing the cohort and fitting the models on all patients...")
-    while job.running:
-        if job._cancel.is_set():
-            text = "Stopping after the replicates under way..."
-        elif job.total:
-            text = f"{job.message}: {job.done} of {job.total} replicates"
-        else:
-            text = "Preparing the cohort and fitting the models on all patients..."
-        left = job.remaining()
-        text += f" (elapsed {_clock(job.elapsed)}" + (f", about {_clock(left)} left)" if left is not None else ")")
-        bar.progress(min(job.done / job.total, 1.0) if job.total else 0.0, text=text)
-        job.wait(POLL_SECONDS)
-    st.rerun()
 
 
 def _decision_figure(dc, model: str, baseline: str, outcome: str = "the event"):
@@ -373,7 +349,7 @@ def _main(spec) -> None:
         st.info("Press Run the study to fit the models and validate them.")
         return
     if job.running:
-        _watch(job)
+        progress.watch(job)
         return
     last = state.result_job()
     if job.stopping:
