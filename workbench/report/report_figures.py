@@ -26,11 +26,38 @@ FIGURE_SLOTS = ("data", "harmonisation", "calibration", "decision", "difference"
 """Places in the report that hold figures."""
 
 
+def _settle_layout(fig) -> None:
+    """Run the figure's layout engine once, measuring text as the SVG printer will.
+
+    ``savefig`` on a figure with a layout engine draws it twice: a full draw with the output
+    switched off (only to run the layout), then the real one. Running the engine directly with
+    the SVG canvas (text measured as paths, 72 dpi, as in that first draw) places every axes at
+    the same spot without drawing every artist a second time."""
+    from matplotlib.backends.backend_svg import FigureCanvasSVG
+
+    canvas, dpi = fig.canvas, fig.dpi
+    FigureCanvasSVG(fig)  # attaches itself to the figure for the measurement
+    try:
+        fig.get_layout_engine().execute(fig)
+    finally:
+        fig.set_canvas(canvas)
+        fig.dpi = dpi
+
+
 def _embed(fig) -> str:
     """A matplotlib Figure as an SVG data URI (text as paths, so no font is needed to show it)."""
     buf = io.BytesIO()
     with matplotlib.rc_context({"svg.hashsalt": "workbench-report", "svg.fonttype": "path"}):
-        fig.savefig(buf, format="svg", metadata={"Date": None})
+        engine = fig.get_layout_engine()
+        if engine is None or not fig.axes:  # nothing to lay out (a figure's draw skips the engine too)
+            fig.savefig(buf, format="svg", metadata={"Date": None})
+        else:
+            _settle_layout(fig)
+            fig.set_layout_engine(None)  # laid out above: save without drawing twice
+            try:
+                fig.savefig(buf, format="svg", metadata={"Date": None})
+            finally:
+                fig.set_layout_engine(engine)
     return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
