@@ -44,10 +44,36 @@ def _settle_layout(fig) -> None:
         fig.dpi = dpi
 
 
+def _fix_title_heights(fig) -> None:
+    """Keep each axes title at the top of its axes without matplotlib searching for a clash at every draw.
+
+    Left to itself, matplotlib re-measures every tick label of the y axis of an axes (and of its inset and
+    aligned axes) each time the title is placed, only to check that the axis's offset text ("1e-3") does
+    not reach the title, and lifts the title above ticks or a label on top. Where no y axis can show an
+    offset text (their tick labels do not come from a scalar formatter) and nothing sits on top, the title
+    stays at the top of the axes (axes fraction 1, plus its pad) anyway: it is put there directly."""
+    from matplotlib.ticker import ScalarFormatter
+
+    for ax in fig.axes:
+        titles = (ax.title, ax._left_title, ax._right_title)
+        if not any(t.get_text() for t in titles) or getattr(ax, "_autotitlepos", None) is False:
+            continue
+        group = {ax, *ax.child_axes, *ax._twinned_axes.get_siblings(ax),
+                 *ax.get_figure(root=False)._align_label_groups["title"].get_siblings(ax)}
+        if any(isinstance(a.yaxis.get_major_formatter(), ScalarFormatter)
+               or a.xaxis.get_ticks_position() in ("top", "unknown") or a.xaxis.get_label_position() == "top"
+               for a in group):
+            continue
+        for t in titles:
+            t.set_y(1.0)
+        ax._autotitlepos = False
+
+
 def _embed(fig) -> str:
     """A matplotlib Figure as an SVG data URI (text as paths, so no font is needed to show it)."""
     buf = io.BytesIO()
     with matplotlib.rc_context({"svg.hashsalt": "workbench-report", "svg.fonttype": "path"}):
+        _fix_title_heights(fig)
         engine = fig.get_layout_engine()
         if engine is None or not fig.axes:  # nothing to lay out (a figure's draw skips the engine too)
             fig.savefig(buf, format="svg", metadata={"Date": None})
