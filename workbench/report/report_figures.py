@@ -44,6 +44,24 @@ def _settle_layout(fig) -> None:
         fig.dpi = dpi
 
 
+def _no_offset_text(axis) -> bool:
+    """True when the axis cannot show an offset text ("1e-3", "+1e4") whatever its final length.
+
+    Tick labels not from a scalar formatter have none. A scalar formatter with automatic offset and
+    tick spacing has none when 0 lies in the view (0 is then a tick, and matplotlib adds an offset only
+    to ticks of one sign) and the largest value shown is between 0.01 and 10^5 (the ticks stay within
+    matplotlib's default power limits, 10^-5 and 10^6)."""
+    from matplotlib.ticker import MaxNLocator, ScalarFormatter
+
+    fmt = axis.get_major_formatter()
+    if not isinstance(fmt, ScalarFormatter):
+        return True
+    lo, hi = sorted(axis.get_view_interval())
+    return (isinstance(axis.get_major_locator(), MaxNLocator) and fmt.get_useOffset() and not fmt.offset
+            and tuple(getattr(fmt, "_powerlimits", (-5, 6))) == (-5, 6)
+            and lo <= 0.0 <= hi and 1e-2 <= max(-lo, hi) < 1e5)
+
+
 def _fix_title_heights(fig) -> None:
     """Keep each axes title at the top of its axes without matplotlib searching for a clash at every draw.
 
@@ -52,7 +70,6 @@ def _fix_title_heights(fig) -> None:
     not reach the title, and lifts the title above ticks or a label on top. Where no y axis can show an
     offset text (their tick labels do not come from a scalar formatter) and nothing sits on top, the title
     stays at the top of the axes (axes fraction 1, plus its pad) anyway: it is put there directly."""
-    from matplotlib.ticker import ScalarFormatter
 
     for ax in fig.axes:
         titles = (ax.title, ax._left_title, ax._right_title)
@@ -60,7 +77,7 @@ def _fix_title_heights(fig) -> None:
             continue
         group = {ax, *ax.child_axes, *ax._twinned_axes.get_siblings(ax),
                  *ax.get_figure(root=False)._align_label_groups["title"].get_siblings(ax)}
-        if any(isinstance(a.yaxis.get_major_formatter(), ScalarFormatter)
+        if any(not _no_offset_text(a.yaxis)
                or a.xaxis.get_ticks_position() in ("top", "unknown") or a.xaxis.get_label_position() == "top"
                for a in group):
             continue
