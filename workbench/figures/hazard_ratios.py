@@ -92,7 +92,11 @@ class _Wrapper:
 
 def _axes_width_pt(a) -> float:
     fig = a.figure
-    fig.draw_without_rendering()  # settle the constrained layout before measuring the panel
+    engine = fig.get_layout_engine()
+    if engine is not None:
+        # settle the constrained layout before measuring the panel: the engine alone places the
+        # axes (a full draw without rendering would also draw every artist, for nothing)
+        engine.execute(fig)
     return a.get_position().width * fig.get_figwidth() * 72.0
 
 

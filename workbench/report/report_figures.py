@@ -26,11 +26,81 @@ FIGURE_SLOTS = ("data", "harmonisation", "calibration", "decision", "difference"
 """Places in the report that hold figures."""
 
 
+def _settle_layout(fig) -> None:
+    """Run the figure's layout engine once, measuring text as the SVG printer will.
+
+    ``savefig`` on a figure with a layout engine draws it twice: a full draw with the output
+    switched off (only to run the layout), then the real one. Running the engine directly with
+    the SVG canvas (text measured as paths, 72 dpi, as in that first draw) places every axes at
+    the same spot without drawing every artist a second time."""
+    from matplotlib.backends.backend_svg import FigureCanvasSVG
+
+    canvas, dpi = fig.canvas, fig.dpi
+    FigureCanvasSVG(fig)  # attaches itself to the figure for the measurement
+    try:
+        fig.get_layout_engine().execute(fig)
+    finally:
+        fig.set_canvas(canvas)
+        fig.dpi = dpi
+
+
+def _no_offset_text(axis) -> bool:
+    """True when the axis cannot show an offset text ("1e-3", "+1e4") whatever its final length.
+
+    Tick labels not from a scalar formatter have none. A scalar formatter with automatic offset and
+    tick spacing has none when 0 lies in the view (0 is then a tick, and matplotlib adds an offset only
+    to ticks of one sign) and the largest value shown is between 0.01 and 10^5 (the ticks stay within
+    matplotlib's default power limits, 10^-5 and 10^6)."""
+    from matplotlib.ticker import MaxNLocator, ScalarFormatter
+
+    fmt = axis.get_major_formatter()
+    if not isinstance(fmt, ScalarFormatter):
+        return True
+    lo, hi = sorted(axis.get_view_interval())
+    return (isinstance(axis.get_major_locator(), MaxNLocator) and fmt.get_useOffset() and not fmt.offset
+            and tuple(getattr(fmt, "_powerlimits", (-5, 6))) == (-5, 6)
+            and lo <= 0.0 <= hi and 1e-2 <= max(-lo, hi) < 1e5)
+
+
+def _fix_title_heights(fig) -> None:
+    """Keep each axes title at the top of its axes without matplotlib searching for a clash at every draw.
+
+    Left to itself, matplotlib re-measures every tick label of the y axis of an axes (and of its inset and
+    aligned axes) each time the title is placed, only to check that the axis's offset text ("1e-3") does
+    not reach the title, and lifts the title above ticks or a label on top. Where no y axis can show an
+    offset text (their tick labels do not come from a scalar formatter) and nothing sits on top, the title
+    stays at the top of the axes (axes fraction 1, plus its pad) anyway: it is put there directly."""
+
+    for ax in fig.axes:
+        titles = (ax.title, ax._left_title, ax._right_title)
+        if not any(t.get_text() for t in titles) or getattr(ax, "_autotitlepos", None) is False:
+            continue
+        group = {ax, *ax.child_axes, *ax._twinned_axes.get_siblings(ax),
+                 *ax.get_figure(root=False)._align_label_groups["title"].get_siblings(ax)}
+        if any(not _no_offset_text(a.yaxis)
+               or a.xaxis.get_ticks_position() in ("top", "unknown") or a.xaxis.get_label_position() == "top"
+               for a in group):
+            continue
+        for t in titles:
+            t.set_y(1.0)
+        ax._autotitlepos = False
+
+
 def _embed(fig) -> str:
     """A matplotlib Figure as an SVG data URI (text as paths, so no font is needed to show it)."""
     buf = io.BytesIO()
     with matplotlib.rc_context({"svg.hashsalt": "workbench-report", "svg.fonttype": "path"}):
-        fig.savefig(buf, format="svg", metadata={"Date": None})
+        _fix_title_heights(fig)
+        engine = fig.get_layout_engine()
+        if engine is None or not fig.axes:  # nothing to lay out (a figure's draw skips the engine too)
+            fig.savefig(buf, format="svg", metadata={"Date": None})
+        else:
+            _settle_layout(fig)
+            fig.set_layout_engine(None)  # laid out above: save without drawing twice
+            try:
+                fig.savefig(buf, format="svg", metadata={"Date": None})
+            finally:
+                fig.set_layout_engine(engine)
     return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
