@@ -26,10 +26,9 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from fine_gray_expansion import independent_expansion
 from lifelines import CoxPHFitter
 from sksurv.datasets import load_cgvhd
-from sksurv.nonparametric import CensoringDistributionEstimator
-from sksurv.util import Surv
 
 from workbench.competing.absolute_risk import cause_specific_risks, cumhaz_influence, fine_gray_risk
 from workbench.competing.outcome import make_competing_outcome
@@ -86,31 +85,6 @@ def _breslow_by_hand(ex, coef, times):
     return np.array(out)
 
 
-def _independent_expansion(D, t, c, cause=1):
-    """Fine-Gray rows, one patient at a time (Geskus 2011, section 3)."""
-    cens = CensoringDistributionEstimator().fit(Surv.from_arrays(c > 0, t))
-
-    def G(s):
-        return float(cens.predict_proba(np.array([s]))[0])
-
-    def G_left(s):
-        earlier = t[t < s]
-        return G(earlier.max()) if earlier.size else 1.0
-
-    t_last = t[c == cause].max()
-    cuts = np.unique(t[c == 0])
-    rows = []
-    for i in range(t.size):
-        rows.append({**D.iloc[i].to_dict(), "start": -1.0, "stop": t[i], "E": int(c[i] == cause), "w": 1.0, "id": i})
-        if c[i] > 0 and c[i] != cause and t[i] < t_last:
-            pts = [t[i], *cuts[(cuts > t[i]) & (cuts < t_last)], t_last]
-            for a, b in zip(pts[:-1], pts[1:], strict=True):
-                w = G(a) / G_left(t[i])
-                if w > 0:
-                    rows.append({**D.iloc[i].to_dict(), "start": a, "stop": b, "E": 0, "w": w, "id": i})
-    return pd.DataFrame(rows)
-
-
 def _incidence_by_hand(H):
     """Cumulative incidences from cause-specific cumulative hazards H (causes x grid), each step's
     leaving probability shared in proportion to the causes' increments."""
@@ -141,7 +115,7 @@ def test_fine_gray_absolute_risk_matches_weighted_lifelines_fit():
     y = make_competing_outcome(t, c)
     fit = fit_fine_gray(D, y, cause=1, min_events_per_parameter=0, baseline_ties="breslow", tol=1e-12)
     ours = fine_gray_risk(fit, D, y, PATIENT, HORIZONS)
-    ex = _independent_expansion(D, t, c)
+    ex = independent_expansion(D, t, c, 1, ids=True)
     ref = _lifelines(ex.drop(columns="id"), duration_col="stop", event_col="E", entry_col="start", weights_col="w")
     # lifelines' own baseline ignores delayed entry in its risk sets, so the baseline is
     # summed by hand (Breslow, risk sets start < t <= stop) at lifelines' coefficients
@@ -174,7 +148,7 @@ def test_influence_equals_the_derivative_of_lifelines_refits_in_a_case_weight(ro
         start[:n] = -np.inf
         tk, psi = cumhaz_influence(fit, D.to_numpy()[rows.patient], start, rows.stop, rows.event, rows.weight,
                                    rows.patient, n, x)
-        df = _independent_expansion(D, t, c)
+        df = independent_expansion(D, t, c, 1, ids=True)
         kw = {"duration_col": "stop", "event_col": "E", "entry_col": "start"}
     j = np.searchsorted(tk, HORIZONS, side="right") - 1
 

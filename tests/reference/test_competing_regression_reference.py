@@ -13,11 +13,10 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from fine_gray_expansion import independent_expansion
 from lifelines import CoxPHFitter
 from lifelines.datasets import load_rossi
 from sksurv.datasets import load_bmt, load_cgvhd
-from sksurv.nonparametric import CensoringDistributionEstimator
-from sksurv.util import Surv
 
 from workbench.competing.outcome import make_competing_outcome
 from workbench.competing.regression import (
@@ -82,37 +81,11 @@ def test_coxph_entry_matches_lifelines_on_rossi():
     np.testing.assert_allclose(ours.se, ref.standard_errors_[cols].values, rtol=0, atol=1e-6)
 
 
-def _independent_expansion(D, t, c, cause):
-    """Fine-Gray rows, one patient at a time (Geskus 2011, section 3)."""
-    cens = CensoringDistributionEstimator().fit(Surv.from_arrays(c > 0, t))
-
-    def G(s):  # right-continuous P(C > s), events before censorings at ties
-        return float(cens.predict_proba(np.array([s]))[0])
-
-    def G_left(s):  # P(C >= s): G just before s
-        earlier = t[t < s]
-        return G(earlier.max()) if earlier.size else 1.0
-
-    t_last = t[c == cause].max()
-    cuts = np.unique(t[c == 0])
-    rows = []
-    for i in range(t.size):
-        # start -1: at risk from before time 0, so a time-0 event (bmt) is in its own risk set
-        rows.append({**D.iloc[i].to_dict(), "start": -1.0, "stop": t[i], "E": int(c[i] == cause), "w": 1.0})
-        if c[i] > 0 and c[i] != cause and t[i] < t_last:
-            pts = [t[i], *cuts[(cuts > t[i]) & (cuts < t_last)], t_last]
-            for a, b in zip(pts[:-1], pts[1:], strict=True):
-                w = G(a) / G_left(t[i])
-                if w > 0:
-                    rows.append({**D.iloc[i].to_dict(), "start": a, "stop": b, "E": 0, "w": w})
-    return pd.DataFrame(rows)
-
-
 @pytest.mark.parametrize("data", [_cgvhd, _bmt])
 def test_fine_gray_matches_weighted_lifelines_on_independent_expansion(data):
     D, t, c = data()
     fit = fit_fine_gray(D, make_competing_outcome(t, c), cause=1, min_events_per_parameter=0)
-    ex = _independent_expansion(D, t, c, 1)
+    ex = independent_expansion(D, t, c, 1)
     assert len(ex) > len(D)  # competing events did add weighted rows
     ref = _lifelines_fit(ex, duration_col="stop", event_col="E", entry_col="start", weights_col="w",
                          fit_options={"precision": 1e-12})
