@@ -6,7 +6,8 @@ the target:
 
 - cold start: process start to the first view showing the cohort summary (target < 5 s);
 - Results view re-rendered with the run cached, reached from another view (target < 0.5 s);
-- a figure switched on the Results view (target < 0.5 s);
+- a figure switched on the Results view: from the choice in the open list to the other figure shown
+  (target < 0.5 s);
 - a nomogram at a time that is not one of the study's horizons (target < 1 s);
 - Export ready: results.json and the bundle, then the report (target < 3 s), visited after the
   Results and Nomogram views as a user would (the report is written in the background after the
@@ -118,7 +119,8 @@ def one_round(page, args, times) -> None:
     goto(page, "Data", "Cohort summary")
     record(times, "Results view, cached run", goto(page, "Results", "Download PDF"))
     select = page.get_by_label("Figure", exact=True).first
-    t0 = time.monotonic()
+    shown = page.locator("[data-testid='stImage'] img").first
+    before = shown.get_attribute("src")
     for _ in range(3):  # the list sometimes closes when a redraw lands on the click: open it again
         select.click()
         try:
@@ -126,7 +128,12 @@ def one_round(page, args, times) -> None:
             break
         except Exception:  # noqa: BLE001
             continue
+    # timed from the choice in the open list to the other figure on the page (its picture's
+    # address changes) with the script run finished; opening the list is the browser's part
+    t0 = time.monotonic()
     page.get_by_role("option").nth(1).click()
+    while shown.get_attribute("src") == before:
+        time.sleep(0.02)
     ready(page, "Download PDF")
     record(times, "Results figure switch", time.monotonic() - t0)
     goto(page, "Nomogram", "Download PNG")
