@@ -189,6 +189,42 @@ def cv_interval(v: np.ndarray, estimate: float, test_train_ratio: float, conf_le
     return estimate - half, estimate + half
 
 
+_CV_CALIBRATION_ERROR = (
+    "no interval under cross-validation: the calibration error measured on a held-out fold of about n/k "
+    "patients is biased upward (a smoothed calibration curve fitted to few patients strays from the diagonal "
+    "by noise alone), so the cross-validated ICI, E50 and E90 overstate the calibration error and an interval "
+    "around them would not cover it")
+_CV_TOO_WIDE = (
+    "no interval under cross-validation: this measure fitted or counted on a held-out fold of about n/k "
+    "patients is so unstable that the spread of the fold values far overstates the uncertainty of their "
+    "mean; the corrected interval would be much too wide (simulation coverage 1.00 for a nominal 0.95)")
+_CV_IBS = (
+    "no interval under cross-validation: each held-out fold integrates the Brier score from its own first "
+    "follow-up time, later than the whole cohort's, so the cross-validated integrated Brier score is biased "
+    "upward and an interval around it would fall short (the IPA, integrated or at a horizon, keeps its interval)")
+_CV_IDI = (
+    "no interval under cross-validation: in simulation the corrected interval of the cross-validated IDI "
+    "fell short of the expected IDI of the modelling process")
+
+CV_WITHHELD = {"ici": _CV_CALIBRATION_ERROR, "e50": _CV_CALIBRATION_ERROR, "e90": _CV_CALIBRATION_ERROR,
+               "ibs": _CV_IBS, "null_ibs": _CV_IBS, "cal_slope": _CV_TOO_WIDE, "oe_ratio": _CV_TOO_WIDE}
+"""Metric families whose cross-validated interval is withheld, with the reason (:func:`cv_withheld`)."""
+
+CV_WITHHELD_DIFFERENCE = {"ici": _CV_TOO_WIDE, "e50": _CV_TOO_WIDE, "e90": _CV_TOO_WIDE,
+                          "cal_slope": _CV_TOO_WIDE, "idi": _CV_IDI, "idi_events": _CV_IDI,
+                          "idi_nonevents": _CV_IDI}
+"""Metric families whose cross-validated model-minus-baseline difference has its interval withheld."""
+
+
+def cv_withheld(name: str, difference: bool = False) -> str:
+    """Why the corrected resampled t interval of a cross-validated metric is not shown ("" if it is).
+
+    Measured in bench/bench_cv_metrics.py; see :func:`cv_interval` for the coverage of every metric.
+    """
+    base = name.split("@")[0]
+    return (CV_WITHHELD_DIFFERENCE if difference else CV_WITHHELD).get(base, "")
+
+
 RESAMPLE_RULE = ("normal interval around the estimate (t on B - 1 df times the standard deviation of the "
                  "B resampled values, widened by sqrt(1 + 1/B))")
 """How :func:`resample_interval` forms the interval (for texts)."""
