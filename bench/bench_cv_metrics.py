@@ -23,6 +23,19 @@ intervals missing, mean width, mean reported SE (half-width / t quantile) beside
 Also the coverage the corrected rule WOULD have where the engine withholds the interval
 (column 'rule cov', from the fold values), so the reason to withhold stays measured.
 
+Measured (200 cohorts of n = 120, 5-fold x 10 repeats, rule coverage expected / conditional,
+MC SE 0.007-0.02; 3.7 CPU s per cohort; the engine's decisions in intervals.CV_WITHHELD):
+  C 0.945 / 0.935, Uno's C 0.940 / 0.935, AUC@2 0.915 / 0.915, Brier@2 0.950 / 0.950,
+  IPA@2 0.925 / 0.920, IPA integrated 0.945 / 0.945, IBS 0.900 / 0.895 (bias +0.0065, SE 0.0010),
+  ICI 0.105 / 0.270 (bias +0.067), E50 0.590 / 0.495 (+0.059), E90 0.030 / 0.185 (+0.127),
+  calibration slope 1.000 / 0.995 (bias +0.09; SE 0.26 against SD 0.07 / 0.18),
+  O/E 1.000 / 0.955 (SE 0.089 against SD 0.023 / 0.086);
+  differences: C 0.965 / 0.980, Uno's C 0.970 / 0.985, AUC 0.975 / 0.990, Brier 0.925 / 0.970,
+  IPA 0.920 / 0.965, IBS 0.925 / 0.945, IPA integrated 0.920 / 0.945, ICI 1.000 / 0.985,
+  E50 1.000 / 0.990, E90 1.000 / 1.000, calibration slope 1.000 / 0.990; NRI 0.960 / 0.960,
+  IDI 0.850 / 0.940. Biases of every other quantity within 2 MC SE of 0 except the IPA
+  difference (-0.0063, MC SE 0.0029).
+
 Run (from the repository root):
   PYTHONPATH=. nice -n 19 .venv/bin/python bench/bench_cv_metrics.py [--cohorts 200] [--n 120]
       [--folds 5] [--repeats 10] [--save /tmp/cvm.npz]
