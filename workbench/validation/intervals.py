@@ -220,7 +220,8 @@ _CV_CALIBRATION_ERROR = (
 _CV_TOO_WIDE = (
     "no interval under cross-validation: this measure fitted or counted on a held-out fold of about n/k "
     "patients is so unstable that the spread of the fold values far overstates the uncertainty of their "
-    "mean; the corrected interval would be much too wide (simulation coverage 1.00 for a nominal 0.95)")
+    "mean; the corrected interval would be much too wide (simulation: coverage 1.00 of the expected value "
+    "for a nominal 0.95)")
 _CV_IBS = (
     "no interval under cross-validation: each held-out fold integrates the Brier score from its own first "
     "follow-up time, later than the whole cohort's, so the cross-validated integrated Brier score is biased "
