@@ -18,6 +18,7 @@ from workbench.validation.evaluate import metric_names, pair_metric_names
 from workbench.validation.intervals import (
     CV_MIN_FOLD_VALUES,
     cv_interval,
+    cv_withheld,
     guard,
     two_stage_interval,
 )
@@ -59,7 +60,7 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
     for j, name in enumerate(rm.names):
         a = float(apparent[j])
         opt, est, sd, lo, hi, used, label, note = np.nan, np.nan, np.nan, np.nan, np.nan, 0, method, ""
-        ilabel = ""
+        ilabel = withheld = ""
         if method == "bootstrap":
             est, opt, sd, (lo, hi), used, label = bootstrap_estimate(
                 estimator, name, a, rm.train[:, j][rm.ok] if rm.train is not None else None,
@@ -73,8 +74,10 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
         elif method == "cv":
             est, sd, used = cv_estimate(rm.test[:, j], rm.replicate, rm.ok)
             if outer is None and cv_ratio is not None:
-                lo, hi = cv_interval(rm.test[rm.ok, j], est, cv_ratio, conf_level)
-                ilabel = "corrected-t"
+                withheld = cv_withheld(name, difference)
+                if not withheld:
+                    lo, hi = cv_interval(rm.test[rm.ok, j], est, cv_ratio, conf_level)
+                    ilabel = "corrected-t"
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
         if outer is not None and outer.shape[0]:
@@ -83,7 +86,7 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
             if not np.isfinite(lo):
                 note = "interval not computable: too few usable outer bootstrap samples"
         elif not np.isfinite(lo) and np.isfinite(est):
-            note = _NO_INTERVAL.get(method, "")
+            note = withheld or _NO_INTERVAL.get(method, "")
         lo, hi, why = guard(name, est, lo, hi, difference)
         note = why or note
         out[name] = MetricEstimate(name, a, opt, float(est), float(sd), float(lo), float(hi), int(used),
