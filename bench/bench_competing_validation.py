@@ -90,7 +90,8 @@ def one_cohort(r: int, n: int, replicates: int, truth: Cohort, base_seed: int) -
     h = spec.horizons
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        v = validate_competing(cohort, spec, replicates=replicates, targets=("cause",), metrics=METRICS)
+        # workers=1: the cohorts run in parallel, their replicates in the cohort's own process
+        v = validate_competing(cohort, spec, replicates=replicates, targets=("cause",), metrics=METRICS, workers=1)
         tables = {e: v.table(e) for e in ESTIMATORS}
         true = {model: evaluate_arm(v.arms[("cause", model)], truth, "cause", "cause_specific", h, METRICS)
                 for model in ("clinical", "combined")}

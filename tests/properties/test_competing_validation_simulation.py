@@ -6,13 +6,21 @@ from 5,000 uncensored patients of the same generator, computed without the metho
 under test. Checks, pooled over the horizons and the clinical and clinical + signature
 models:
 
-* the route's validated estimate (out-of-bootstrap) removes the apparent optimism: its
+* the route's validated estimate (.632+, the default) removes the apparent optimism: its
   mean error is within 0.02 of 0 (about 2 MC SEs here, common practice: 2-3 SEs), and
-  the apparent AUC's mean error, larger than 0.01, would fail that check;
-* the width of its AUC interval (model and difference) matches the spread of estimate
-  minus truth: the mean squared standardised error ((estimate - truth) / the interval's
-  implied SE) lies in [0.4, 2.5]. An interval of half the width multiplies it by 4, of
-  twice the width divides it by 4, so either fails.
+  the apparent estimate, whose AUC error is +0.049, would fail that check;
+* the width of the interval rule (workbench.competing.estimates.oob_interval, around the
+  .632+ estimate; not yet shown to users) matches the spread of estimate minus truth:
+  the mean squared standardised error ((estimate - truth) / the interval's implied SE),
+  pooled over the clinical, combined and difference AUC, lies in [0.5, 3.0] (measured
+  1.28). An interval of half the width multiplies it by 4 (5.1), of twice the width
+  divides it by 4 (0.32), so either fails. Per model it is too noisy on 8 cohorts
+  (0.43 to 1.72).
+
+Measured biases here (8 cohorts, pooled): AUC apparent +0.049, .632+ +0.011
+(out-of-bootstrap -0.006, Harrell's optimism correction +0.022); Brier apparent -0.025,
+.632+ -0.006. About 20 s on two quiet cores (8 cohorts x 10 replicates x
+about 5 s of CPU).
 """
 
 from __future__ import annotations
@@ -26,10 +34,12 @@ from joblib import Parallel, delayed
 from scipy.stats import t as t_dist
 
 sys.path.insert(0, str(Path(__file__).parents[2] / "bench"))
-from bench_competing_validation import one_cohort, simulate_competing_cohort  # noqa: E402
+from bench_competing_validation import _limits, one_cohort, simulate_competing_cohort  # noqa: E402
+
+from workbench.competing.estimates import DEFAULT_ESTIMATOR  # noqa: E402
 
 pytestmark = pytest.mark.slow
-COHORTS, N, REPS = 10, 200, 10
+COHORTS, N, REPS = 8, 200, 10
 H = 3  # horizons of the demo competing study
 
 
@@ -46,20 +56,23 @@ def _errors(rows, metric, kind):
 
 @pytest.mark.parametrize("metric", ["auc", "brier"])
 def test_validated_estimate_removes_the_apparent_optimism(rows, metric):
-    apparent, oob = np.nanmean(_errors(rows, metric, "apparent")), np.nanmean(_errors(rows, metric, "oob"))
-    assert abs(oob) < 0.02, (apparent, oob)
-    assert abs(apparent) > 0.005 and abs(oob) < abs(apparent), (apparent, oob)
+    apparent = np.nanmean(_errors(rows, metric, "apparent"))
+    validated = np.nanmean(_errors(rows, metric, DEFAULT_ESTIMATOR))
+    assert abs(validated) < 0.02, (apparent, validated)
+    assert abs(apparent) > 0.005 and abs(validated) < abs(apparent), (apparent, validated)
     assert sum(r["failed"] for r in rows) == 0
 
 
-@pytest.mark.parametrize("model", ["clinical", "combined", "difference"])
-def test_auc_interval_has_the_width_of_the_error(rows, model):
-    t975 = t_dist.ppf(0.975, REPS - 1)
+def test_auc_interval_has_the_width_of_the_error(rows):
+    t_b = t_dist.ppf(0.975, REPS - 1)
     z2 = []
     for r in rows:
-        lo, hi = r[(model, "auc", "lower")], r[(model, "auc", "upper")]  # as the route reports them
-        se = (hi - lo) / 2 / t975
-        ok = np.isfinite(se) & (se > 0)
-        z2 += list(((r[(model, "auc", "oob")] - r[(model, "auc", "truth")])[ok] / se[ok]) ** 2)
-    assert len(z2) >= 0.8 * COHORTS * H  # intervals were reported
-    assert 0.4 <= np.mean(z2) <= 2.5, (model, np.mean(z2))
+        for model in ("clinical", "combined", "difference"):
+            # the route's rule (workbench.competing.estimates.oob_interval) around the route's estimate
+            lo, hi = _limits(r, model, "auc", "nb", range(H), DEFAULT_ESTIMATOR)
+            se = (hi - lo) / 2 / t_b
+            ok = np.isfinite(se) & (se > 0)
+            z2 += list(((r[(model, "auc", DEFAULT_ESTIMATOR)] - r[(model, "auc", "truth")])[ok] / se[ok]) ** 2)
+    assert len(z2) >= 0.8 * COHORTS * H * 3  # intervals were reported
+    # measured 1.28 (clinical 1.72, combined 0.43, difference 1.67): half the width gives 5.1, twice 0.32
+    assert 0.5 <= np.mean(z2) <= 3.0, np.mean(z2)

@@ -10,9 +10,11 @@ cumulative incidence, and the ICI, and so is the combined-minus-clinical
 difference. Validation uses the main engine's bootstrap replicate plan seeded from
 the study seed: in each replicate every step, the signature included, is refitted
 on the bootstrap rows and judged on them, on the original rows and on the patients
-not drawn into the sample. The validated estimate is by default the out-of-bootstrap
-one, with an interval for the AUC and Brier score (and their differences); Harrell's
-optimism correction and .632+ stay selectable (:mod:`workbench.competing.estimates`).
+not drawn into the sample. The validated estimate is by default Efron & Tibshirani's
+.632+ (the one whose bias met the target in bench/bench_competing_validation.py);
+out-of-bootstrap and Harrell's optimism correction stay selectable
+(:mod:`workbench.competing.estimates`). No interval is reported for these internal
+metrics until the interval rule is proven by simulation.
 """
 
 from __future__ import annotations
@@ -197,8 +199,8 @@ def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targ
                        estimator: str = DEFAULT_ESTIMATOR) -> CompetingValidation:
     """Fit on all rows, then the bootstrap validation (replicate plan of the main engine).
 
-    ``estimator``: "oob" (default; out-of-bootstrap, with intervals), "optimism"
-    (Harrell) or "632plus" - see :mod:`workbench.competing.estimates`; the others can be
+    ``estimator``: "632plus" (default), "oob" (out-of-bootstrap) or "optimism"
+    (Harrell) - see :mod:`workbench.competing.estimates`; the others can be
     formed from the same run with :meth:`CompetingValidation.table`.
 
     Replicate ``b`` draws its rows and its model seed from the study seed as
@@ -244,9 +246,9 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
     progress : callable(done, total), optional
     workers : int, optional
         Parallel workers (default: the study's ``[validation] workers``).
-    estimator : {"oob", "optimism", "632plus"}, default "oob"
-        The validated estimate (:mod:`workbench.competing.estimates`): out-of-bootstrap,
-        Harrell's optimism correction or .632+.
+    estimator : {"632plus", "oob", "optimism"}, default "632plus"
+        The validated estimate (:mod:`workbench.competing.estimates`): .632+,
+        out-of-bootstrap or Harrell's optimism correction.
 
     Returns
     -------

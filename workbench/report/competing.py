@@ -35,6 +35,10 @@ def _num(x) -> float | None:
     return round(x, 6) if np.isfinite(x) else None
 
 
+def _any_interval(result: CompetingStudyResult) -> bool:
+    return any(np.any(np.isfinite(v)) for block in result.lower.values() for v in block.values())
+
+
 def _interval(result: CompetingStudyResult, key, m: str, j: int) -> dict:
     """The validated estimate's 95% interval and, where there is none, why."""
     lo, hi = result.lower.get(key, {}).get(m), result.upper.get(key, {}).get(m)
@@ -75,7 +79,7 @@ def competing_results_dict(result: CompetingStudyResult) -> dict:
         "aalen_johansen": {"conf_level": result.incidence.conf_level, "interval": "log(-log) pointwise",
                            "by_cause": inc},
         "validation": {"method": result.estimator_label, "estimator": result.estimator,
-                       "interval": INTERVAL_RULE if result.estimator == "oob" else None,
+                       "interval": INTERVAL_RULE if _any_interval(result) else None,
                        "replicates": result.replicates,
                        "failed_replicates": result.failed,
                        "signature": "refitted in every replicate on the bootstrap rows, outcome of the target "

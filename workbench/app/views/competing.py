@@ -13,7 +13,7 @@ import pandas as pd
 import streamlit as st
 
 from workbench.app import charts, state
-from workbench.competing.estimates import INTERVAL_RULE
+from workbench.competing.estimates import INTERVAL_ESTIMATORS, INTERVAL_RULE
 
 TARGET_WORDS = {"cause": "cause of interest", "all_cause": "death from any cause"}
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
@@ -50,8 +50,8 @@ def interval_words(result) -> str:
     """What the intervals of the validated table are, or why there are none."""
     if any(np.any(np.isfinite(b[m])) for b in result.lower.values() for m in b):
         return f"95% intervals: {INTERVAL_RULE}; none for the ICI (not proven by simulation)."
-    return "No intervals: " + ("none has been proven by simulation for this estimator."
-                               if result.estimator == "oob" else "this estimator has none.")
+    return ("No intervals: the interval rule for these validated metrics is not yet proven by simulation."
+            if result.estimator in INTERVAL_ESTIMATORS else "No intervals: this estimator has none.")
 
 
 def external_table(result) -> pd.DataFrame | None:
