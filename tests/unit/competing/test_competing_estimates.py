@@ -69,6 +69,15 @@ def test_interval_rule_is_the_corrected_resampled_t():
     assert np.isnan(oob_interval("auc", u[:9], 0.72, ratio)[0])  # fewer than 10 values: none
 
 
-def test_no_interval_is_shown_until_proven():
-    tab = estimate_table(APPARENT, ROWS * 6, "632plus", gamma=GAMMA)
-    assert np.isnan(tab.lower[COMB]["auc"][0]) and "not yet proven" in tab.note[COMB]["auc"][0]
+def test_intervals_only_for_the_proven_metrics():
+    apparent = {k: {**v, "ici": v["auc"] * 0.1} for k, v in APPARENT.items()}
+    rows = [ReplicateScores(*({k: {**v, "ici": v["auc"] * 0.1} for k, v in getattr(r, a).items()}
+                              for a in ("boot", "orig", "oob")), r.n_in, r.n_out) for r in ROWS]
+    # 12 replicates with varying out-of-bootstrap AUC
+    rows = [ReplicateScores(r.boot, r.orig, {k: {m: v + 0.002 * i for m, v in d.items()} for k, d in r.oob.items()},
+                            r.n_in, r.n_out) for i, r in enumerate(rows * 6)]
+    tab = estimate_table(apparent, rows, "632plus", gamma=GAMMA)
+    assert np.isfinite(tab.lower[COMB]["auc"][0]) and tab.lower[COMB]["auc"][0] < tab.corrected[COMB]["auc"][0]
+    assert np.isfinite(tab.lower[DIFF]["auc"][0])
+    assert np.isnan(tab.lower[COMB]["ici"][0]) and "not proven" in tab.note[COMB]["ici"][0]
+    assert np.isnan(estimate_table(apparent, rows, "optimism").lower[COMB]["auc"][0])

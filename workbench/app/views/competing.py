@@ -49,8 +49,9 @@ def corrected_table(result) -> pd.DataFrame:
 def interval_words(result) -> str:
     """What the intervals of the validated table are, or why there are none."""
     if any(np.any(np.isfinite(b[m])) for b in result.lower.values() for m in b):
-        return f"95% intervals: {INTERVAL_RULE}; none for the ICI (not proven by simulation)."
-    return ("No intervals: the interval rule for these validated metrics is not yet proven by simulation."
+        return (f"95% intervals for the AUC and Brier score of the cause-specific Cox models of the cause of "
+                f"interest: {INTERVAL_RULE}; none elsewhere (not proven by simulation).")
+    return ("No intervals: fewer than 10 bootstrap replicates with a value."
             if result.estimator in INTERVAL_ESTIMATORS else "No intervals: this estimator has none.")
 
 
