@@ -10,7 +10,7 @@ models:
   mean error is within 0.02 of 0 (about 2 MC SEs here, common practice: 2-3 SEs), and
   the apparent estimate, whose AUC error is +0.049, would fail that check;
 * the width of the interval rule (workbench.competing.estimates.oob_interval, around the
-  .632+ estimate; not yet shown to users) matches the spread of estimate minus truth:
+  .632+ estimate, as the route reports it) matches the spread of estimate minus truth:
   the mean squared standardised error ((estimate - truth) / the interval's implied SE),
   pooled over the clinical, combined and difference AUC, lies in [0.5, 3.0] (measured
   1.28). An interval of half the width multiplies it by 4 (5.1), of twice the width
