@@ -7,10 +7,16 @@ Fine-Gray for the cause of interest, plus the same models for all-cause death
 (any first event) for contrast. Every model is judged at the study horizons by
 the competing-risks AUC (definition 2), the IPCW Brier score and IPA of the
 cumulative incidence, and the ICI, and so is the combined-minus-clinical
-difference. Validation is Harrell's bootstrap optimism correction with the main
-engine's replicate plan seeded from the study seed: in each replicate every step,
-the signature included, is refitted on the bootstrap rows and judged on them and
-on the original rows.
+difference. Validation uses the main engine's bootstrap replicate plan seeded from
+the study seed: in each replicate every step, the signature included, is refitted
+on the bootstrap rows and judged on them, on the original rows and on the patients
+not drawn into the sample. The validated estimate is by default Efron & Tibshirani's
+.632+ (the one whose bias met the target in bench/bench_competing_validation.py);
+out-of-bootstrap and Harrell's optimism correction stay selectable
+(:mod:`workbench.competing.estimates`). The AUC and Brier score (and their
+combined-minus-clinical differences) of the cause-specific Cox models of the cause of
+interest get a 95% interval whose coverage the same bench measured; the IPA, ICI,
+Fine-Gray and all-cause models none (not simulated).
 """
 
 from __future__ import annotations
@@ -24,13 +30,21 @@ import numpy as np
 
 from workbench.cohort.core import Cohort
 from workbench.competing.cif import CumulativeIncidenceResult, aalen_johansen
+from workbench.competing.estimates import (
+    DEFAULT_ESTIMATOR,
+    ESTIMATOR_LABELS,
+    ReplicateScores,
+    ValidatedTable,
+    estimate_table,
+    no_information_table,
+)
 from workbench.competing.external import METRICS, external_block, score_curves, with_differences
 from workbench.competing.fitting import TARGETS, FittedArm, fit_arm, target_outcome
 from workbench.errors import SpecError, WorkbenchError
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.study import StudySpec, dumps_study
 from workbench.validation.backends import run_tasks
-from workbench.validation.plans import _bootstrap_plan, _copy_seed, _root
+from workbench.validation.plans import _bootstrap_plan, _copy_seed, _oob_rows, _root
 
 __all__ = ["METRICS", "CompetingStudyResult", "CompetingValidation", "evaluate_arm", "optimism_table",
            "run_competing", "validate_competing"]
@@ -74,7 +88,9 @@ class CompetingStudyResult:
     """Everything the competing-risks route measured.
 
     ``apparent`` and ``corrected`` map (target, model, method) -> {metric: array over
-    horizons}; model ``"combined_minus_clinical"`` holds the differences. ``arms``
+    horizons}; model ``"combined_minus_clinical"`` holds the differences. ``corrected``
+    holds the validated estimates of ``estimator`` (:attr:`estimator_label`), ``lower`` /
+    ``upper`` their 95% intervals (NaN where none is reported, ``interval_note`` says why). ``arms``
     are the models fitted on all rows (for figures), ``incidence`` the
     Aalen-Johansen curves of every cause. With an ``[external]`` block, ``external``
     holds the fixed predictions' metrics on the external cohort with their intervals
@@ -97,19 +113,32 @@ class CompetingStudyResult:
     external: dict | None = None
     external_prepared: PreparedCohort | None = None
     external_replicates: int = 0
+    estimator: str = DEFAULT_ESTIMATOR
+    lower: dict = field(default_factory=dict)
+    upper: dict = field(default_factory=dict)
+    interval_note: dict = field(default_factory=dict)
+
+    @property
+    def estimator_label(self) -> str:
+        """How the validated (``corrected``) metrics were estimated, in words."""
+        return ESTIMATOR_LABELS.get(self.estimator, self.estimator)
 
     @property
     def cohort(self) -> Cohort:
         return self.prepared.cohort
 
 
-def optimism_table(apparent: dict, replicate_rows: list[tuple[dict, dict]]) -> tuple[dict, dict]:
-    """Mean optimism (bootstrap-sample minus original-sample metric) and the corrected metrics."""
+def optimism_table(apparent: dict, replicate_rows: list) -> tuple[dict, dict]:
+    """Mean optimism (bootstrap-sample minus original-sample metric) and the corrected metrics.
+
+    ``replicate_rows``: :class:`ReplicateScores` or (boot, orig) pairs.
+    """
+    pairs = [(r.boot, r.orig) if isinstance(r, ReplicateScores) else r for r in replicate_rows]
     optimism, corrected = {}, {}
     for key, app in apparent.items():
         opt = {}
         for m in METRICS:
-            diffs = np.array([boot[key][m] - orig[key][m] for boot, orig in replicate_rows]) if replicate_rows \
+            diffs = np.array([boot[key][m] - orig[key][m] for boot, orig in pairs]) if pairs \
                 else np.full((0, app[m].size), np.nan)
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", RuntimeWarning)  # a horizon undefined in every replicate
@@ -121,7 +150,14 @@ def optimism_table(apparent: dict, replicate_rows: list[tuple[dict, dict]]) -> t
 
 @dataclass(frozen=True)
 class CompetingValidation:
-    """Apparent, optimism and corrected metrics, the full-data arms, failed replicates."""
+    """Apparent, optimism and validated (``corrected``) metrics, the full-data arms, failed replicates.
+
+    ``estimator`` names the estimator behind ``corrected`` (``optimism`` = apparent minus
+    it); ``lower`` / ``upper`` / ``note`` hold its 95% interval where one is reported
+    (:mod:`workbench.competing.estimates`); ``rows`` the replicates' scores and ``gamma``
+    the no-information values, so that every estimator can be formed from the same run
+    (:meth:`table`).
+    """
 
     apparent: dict
     optimism: dict
@@ -129,25 +165,45 @@ class CompetingValidation:
     arms: dict
     failed: int
     caught: tuple = ()
+    estimator: str = DEFAULT_ESTIMATOR
+    lower: dict = field(default_factory=dict)
+    upper: dict = field(default_factory=dict)
+    note: dict = field(default_factory=dict)
+    rows: tuple = ()
+    gamma: dict = field(default_factory=dict)
+
+    def table(self, estimator: str, conf_level: float = 0.95) -> ValidatedTable:
+        """The validated estimates of ``estimator`` from this run's replicates."""
+        return estimate_table(self.apparent, list(self.rows), estimator, gamma=self.gamma, conf_level=conf_level)
 
 
 def _replicate(task):
-    """One bootstrap replicate: (metrics on the bootstrap rows, on the original rows), or None if a fit failed."""
+    """One bootstrap replicate's :class:`ReplicateScores`, or None if a fit failed."""
     cohort, spec, idx, seed, targets, h, metrics = task
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the full-data fit reported the warnings once
         try:
             boot = cohort.take(idx)
             fitted = _fit_all(boot, spec, seed, targets)
-            return (with_differences(_evaluate_all(fitted, boot, h, metrics)),
-                    with_differences(_evaluate_all(fitted, cohort, h, metrics)))
+            out_rows = _oob_rows(cohort.ids, idx)
+            oob = None
+            if out_rows.size:
+                oob = with_differences(_evaluate_all(fitted, cohort.take(out_rows), h, metrics))
+            return ReplicateScores(with_differences(_evaluate_all(fitted, boot, h, metrics)),
+                                   with_differences(_evaluate_all(fitted, cohort, h, metrics)), oob,
+                                   int(np.unique(cohort.ids[idx]).size), int(np.unique(cohort.ids[out_rows]).size))
         except WorkbenchError:
             return None
 
 
 def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targets=TARGETS, metrics=METRICS,
-                       progress=None, workers: int | None = None) -> CompetingValidation:
-    """Fit on all rows, then Harrell's bootstrap optimism correction (replicate plan of the main engine).
+                       progress=None, workers: int | None = None,
+                       estimator: str = DEFAULT_ESTIMATOR) -> CompetingValidation:
+    """Fit on all rows, then the bootstrap validation (replicate plan of the main engine).
+
+    ``estimator``: "632plus" (default), "oob" (out-of-bootstrap) or "optimism"
+    (Harrell) - see :mod:`workbench.competing.estimates`; the others can be
+    formed from the same run with :meth:`CompetingValidation.table`.
 
     Replicate ``b`` draws its rows and its model seed from the study seed as
     :func:`workbench.validation.resample.validate` does; a replicate whose fit fails
@@ -170,13 +226,17 @@ def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targ
                         scheduler=v.scheduler, progress=progress)
     rows = [r for r in results if r is not None]
     failed = len(results) - len(rows)
-    optimism, corrected = optimism_table(apparent, rows)
-    caught_pairs = tuple(caught)
-    return CompetingValidation(apparent, optimism, corrected, arms, failed, caught_pairs)
+    curves = {(target, model, method): arm.predict(cohort, h, method)
+              for (target, model), arm in arms.items() for method in _methods(target)
+              if not (method == "fine_gray" and arm.fine_gray is None)}
+    gamma = no_information_table(curves, {t: target_outcome(cohort, t) for t in targets}, h)
+    tab = estimate_table(apparent, rows, estimator, gamma=gamma)
+    return CompetingValidation(apparent, tab.optimism, tab.corrected, arms, failed, tuple(caught), tab.estimator,
+                               tab.lower, tab.upper, tab.note, tuple(rows), gamma)
 
 
 def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=None,
-                  workers: int | None = None) -> CompetingStudyResult:
+                  workers: int | None = None, estimator: str = DEFAULT_ESTIMATOR) -> CompetingStudyResult:
     """Run the competing-risks analysis of a study.
 
     Parameters
@@ -188,6 +248,9 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
     progress : callable(done, total), optional
     workers : int, optional
         Parallel workers (default: the study's ``[validation] workers``).
+    estimator : {"632plus", "oob", "optimism"}, default "632plus"
+        The validated estimate (:mod:`workbench.competing.estimates`): .632+,
+        out-of-bootstrap or Harrell's optimism correction.
 
     Returns
     -------
@@ -196,6 +259,7 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
     References
     ----------
     Harrell FE, Lee KL, Mark DB. Multivariable prognostic models. Stat Med 1996;15:361-87 (optimism).
+    Efron B, Tibshirani R. J Am Stat Assoc 1997;92:548-60 (out-of-bootstrap, .632+).
     Blanche P, Dartigues JF, Jacqmin-Gadda H. Stat Med 2013;32:5381-97 (competing AUC).
     Fine JP, Gray RJ. J Am Stat Assoc 1999;94:496-509.
     """
@@ -212,7 +276,7 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         prepared = prepare_cohort(spec)
     cohort = prepared.cohort
     h = np.asarray(spec.horizons, dtype=float)
-    v = validate_competing(cohort, spec, replicates=B, progress=progress, workers=workers)
+    v = validate_competing(cohort, spec, replicates=B, progress=progress, workers=workers, estimator=estimator)
     external = ext_prepared = None
     if spec.external is not None:
         with warnings.catch_warnings(record=True) as caught_ext:
@@ -233,6 +297,7 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         "started": datetime.fromtimestamp(started, tz=UTC).isoformat(timespec="seconds"),
         "seconds": round(_time.time() - started, 1),
         "replicates": B,
+        "estimator": v.estimator,
         "workers": int(spec.validation.workers if workers is None else workers),
         "backend": spec.validation.backend,
         **provenance_ext,
@@ -241,7 +306,8 @@ def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=No
         spec=spec, study_text=text, prepared=prepared, horizons=h, apparent=v.apparent, optimism=v.optimism,
         corrected=v.corrected, replicates=B, failed=v.failed, incidence=aalen_johansen(cohort.time, cohort.cause),
         arms=v.arms, provenance=provenance, warnings=messages, external=external, external_prepared=ext_prepared,
-        external_replicates=B if external is not None else 0,
+        external_replicates=B if external is not None else 0, estimator=v.estimator, lower=v.lower, upper=v.upper,
+        interval_note=v.note,
     )
 
 

@@ -3,8 +3,9 @@
 ``competing_results.json`` holds the caution, the study, its provenance (seed, data
 hash, study hash, versions), the cause counts, the Aalen-Johansen incidence of each
 cause at the horizons, and for every target / model / method the apparent, optimism
-and optimism-corrected metrics at each horizon (model ``combined_minus_clinical``:
-the differences). Patient identifiers never leave the machine.
+and validated ("corrected", by the estimator named under "validation") metrics at each
+horizon with the validated metric's 95% interval where one is reported (model
+``combined_minus_clinical``: the differences). Patient identifiers never leave the machine.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ import numpy as np
 from workbench.cohort.summary import CAUTION
 from workbench.competing.analysis import METRICS, CompetingStudyResult
 from workbench.competing.cif import incidence_at
+from workbench.competing.estimates import INTERVAL_RULE
 from workbench.report.competing_figures import cause_labels
 
 __all__ = ["FORMAT", "competing_results_dict", "format_competing", "write_competing_folder"]
@@ -31,6 +33,19 @@ METRIC_LABELS = {"auc": "competing AUC (definition 2)", "brier": "IPCW Brier sco
 def _num(x) -> float | None:
     x = float(x)
     return round(x, 6) if np.isfinite(x) else None
+
+
+def _any_interval(result: CompetingStudyResult) -> bool:
+    return any(np.any(np.isfinite(v)) for block in result.lower.values() for v in block.values())
+
+
+def _interval(result: CompetingStudyResult, key, m: str, j: int) -> dict:
+    """The validated estimate's 95% interval and, where there is none, why."""
+    lo, hi = result.lower.get(key, {}).get(m), result.upper.get(key, {}).get(m)
+    if lo is None:
+        return {"lower": None, "upper": None, "interval_note": "no interval"}
+    note = result.interval_note.get(key, {}).get(m, [""] * (j + 1))[j]
+    return {"lower": _num(lo[j]), "upper": _num(hi[j]), "interval_note": note}
 
 
 def competing_results_dict(result: CompetingStudyResult) -> dict:
@@ -50,7 +65,8 @@ def competing_results_dict(result: CompetingStudyResult) -> dict:
                 rows.append({"target": target, "model": model, "method": method, "metric": m, "horizon": float(t),
                              "apparent": _num(app[m][j]),
                              "optimism": _num(result.optimism[(target, model, method)][m][j]),
-                             "corrected": _num(result.corrected[(target, model, method)][m][j])})
+                             "corrected": _num(result.corrected[(target, model, method)][m][j]),
+                             **_interval(result, (target, model, method), m, j)})
     return {
         "format": FORMAT,
         "caution": CAUTION,
@@ -62,7 +78,9 @@ def competing_results_dict(result: CompetingStudyResult) -> dict:
                    "time_unit": cohort.time_unit},
         "aalen_johansen": {"conf_level": result.incidence.conf_level, "interval": "log(-log) pointwise",
                            "by_cause": inc},
-        "validation": {"method": "bootstrap optimism correction (Harrell)", "replicates": result.replicates,
+        "validation": {"method": result.estimator_label, "estimator": result.estimator,
+                       "interval": INTERVAL_RULE if _any_interval(result) else None,
+                       "replicates": result.replicates,
                        "failed_replicates": result.failed,
                        "signature": "refitted in every replicate on the bootstrap rows, outcome of the target "
                                     "cause with other causes censored; its coefficient is "
@@ -150,12 +168,22 @@ def format_competing(result: CompetingStudyResult) -> str:
         est, lo, hi = incidence_at(result.incidence, h, cause=k)
         parts = [f"{t:g}: {e:.3f} ({a:.3f}-{b:.3f})" for t, e, a, b in zip(h, est, lo, hi, strict=True)]
         lines.append(f"Cumulative incidence of {labels.get(k, k)} (Aalen-Johansen, 95% CI): " + "; ".join(parts))
-    lines.append(f"Optimism-corrected at horizons {', '.join(f'{t:g}' for t in h)} "
+    lines.append(f"Validated at horizons {', '.join(f'{t:g}' for t in h)} by {result.estimator_label} "
                  f"({result.replicates} bootstrap replicates, {result.failed} failed); AUC | Brier | ICI:")
     for (target, model, method), v in result.corrected.items():
         name = f"{'cause ' + labels[1] if target == 'cause' else 'all-cause'} {model} [{method}]"
         cells = ["/".join(f"{x:.3f}" for x in v[m]) for m in ("auc", "brier", "ici")]
         lines.append(f"  {name:<58} {' | '.join(cells)}")
+    auc_rows = [(k, result.lower[k]["auc"], result.upper[k]["auc"]) for k in result.corrected
+                if k in result.lower and np.any(np.isfinite(result.lower[k]["auc"]))]
+    if auc_rows:
+        lines.append(f"AUC with 95% interval ({INTERVAL_RULE}):")
+        for (target, model, method), lo, hi in auc_rows:
+            name = f"{'cause ' + labels[1] if target == 'cause' else 'all-cause'} {model} [{method}]"
+            est = result.corrected[(target, model, method)]["auc"]
+            cells = [f"{x:.3f} ({a:.3f} to {b:.3f})" if np.isfinite(a) else f"{x:.3f} (no interval)"
+                     for x, a, b in zip(est, lo, hi, strict=True)]
+            lines.append(f"  {name:<58} {'; '.join(cells)}")
     if result.external is not None:
         e = result.external_prepared.cohort
         lines.append(f"External cohort, {e.n} patients ({int(np.sum(e.cause == 1))} {labels[1]}, "

@@ -13,6 +13,7 @@ import pandas as pd
 import streamlit as st
 
 from workbench.app import charts, state
+from workbench.competing.estimates import INTERVAL_ESTIMATORS, INTERVAL_RULE
 
 TARGET_WORDS = {"cause": "cause of interest", "all_cause": "death from any cause"}
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
@@ -31,16 +32,28 @@ def _fmt(x: float, lo: float | None = None, hi: float | None = None) -> str:
 
 
 def corrected_table(result) -> pd.DataFrame:
-    """One row per target, model and method; the optimism-corrected AUC, Brier and ICI per horizon."""
+    """One row per target, model and method; the validated AUC, Brier and ICI per horizon (95% interval if any)."""
     rows = []
     for (target, model, method), v in result.corrected.items():
         row = {"Outcome": TARGET_WORDS.get(target, target), "Model": MODEL_WORDS.get(model, model),
                "Fitted by": METHOD_WORDS.get(method, method)}
+        lower, upper = result.lower.get((target, model, method), {}), result.upper.get((target, model, method), {})
         for m, label in (("auc", "AUC"), ("brier", "Brier"), ("ici", "ICI")):
             for j, t in enumerate(result.horizons):
-                row[f"{label} {t:g}"] = _fmt(float(v[m][j]))
+                lo = float(lower[m][j]) if m in lower else None
+                hi = float(upper[m][j]) if m in upper else None
+                row[f"{label} {t:g}"] = _fmt(float(v[m][j]), lo, hi)
         rows.append(row)
     return pd.DataFrame(rows)
+
+
+def interval_words(result) -> str:
+    """What the intervals of the validated table are, or why there are none."""
+    if any(np.any(np.isfinite(b[m])) for b in result.lower.values() for m in b):
+        return (f"95% intervals for the AUC and Brier score of the cause-specific Cox models of the cause of "
+                f"interest: {INTERVAL_RULE}; none elsewhere (not proven by simulation).")
+    return ("No intervals: fewer than 10 bootstrap replicates with a value."
+            if result.estimator in INTERVAL_ESTIMATORS else "No intervals: this estimator has none.")
 
 
 def external_table(result) -> pd.DataFrame | None:
@@ -141,9 +154,10 @@ def render_section(spec) -> None:
                f"({result.failed} failed).")
     st.subheader("Cumulative incidence (Aalen-Johansen, 95% interval)")
     state.table(incidence_table(result))
-    st.subheader("Validated performance (optimism-corrected)")
-    st.caption("AUC for the cause of interest (competing events count as controls); Brier score and ICI of the "
-               "predicted cumulative incidence. No intervals: the bootstrap here corrects optimism only.")
+    st.subheader("Validated performance")
+    st.caption(f"Estimated by {result.estimator_label}. AUC for the cause of interest (competing events count as "
+               "controls); Brier score and ICI of the predicted cumulative incidence. "
+               + interval_words(result))
     state.table(corrected_table(result))
     ext = external_table(result)
     if ext is not None:

@@ -1,0 +1,83 @@
+"""The competing route's validated estimates from replicate scores, against the published formulas.
+
+Replicate scores are given by hand (no model is fitted), so every number is worked out
+below from the formulas: Harrell, Lee & Mark (Stat Med 1996;15:361-87) for the optimism
+correction, Efron (JASA 1983;78:316-31) for the out-of-bootstrap mean, Efron &
+Tibshirani (JASA 1997;92:548-60, eqs. 28-32) for .632+, Nadeau & Bengio (Machine
+Learning 2003;52:239-81) for the interval's variance. Tolerance 1e-9 (arithmetic only).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.stats import t as t_dist
+
+from workbench.competing.estimates import (
+    DEFAULT_ESTIMATOR,
+    ReplicateScores,
+    estimate_table,
+    oob_interval,
+)
+
+CLIN, COMB, DIFF = (("cause", m, "cause_specific") for m in ("clinical", "combined", "combined_minus_clinical"))
+
+
+def _scores(clin: float, comb: float) -> dict:
+    return {CLIN: {"auc": np.array([clin])}, COMB: {"auc": np.array([comb])},
+            DIFF: {"auc": np.array([comb - clin])}}
+
+
+APPARENT = _scores(0.75, 0.80)
+# per replicate: bootstrap sample, original rows, out-of-bootstrap rows
+ROWS = [ReplicateScores(_scores(0.78, 0.85), _scores(0.74, 0.78), _scores(0.70, 0.72), 190, 110),
+        ReplicateScores(_scores(0.76, 0.83), _scores(0.73, 0.77), _scores(0.68, 0.68), 189, 111)]
+GAMMA = {k: {"auc": np.array([0.5])} for k in (CLIN, COMB)}
+
+
+def test_optimism_and_out_of_bootstrap_estimates():
+    opt = estimate_table(APPARENT, ROWS, "optimism")
+    # combined: optimism = mean(0.85 - 0.78, 0.83 - 0.77) = 0.065 -> 0.80 - 0.065 = 0.735
+    assert opt.corrected[COMB]["auc"][0] == pytest.approx(0.735, abs=1e-9)
+    assert opt.optimism[COMB]["auc"][0] == pytest.approx(0.065, abs=1e-9)
+    oob = estimate_table(APPARENT, ROWS, "oob")
+    assert oob.corrected[COMB]["auc"][0] == pytest.approx(0.70, abs=1e-9)  # mean(0.72, 0.68)
+    assert oob.corrected[DIFF]["auc"][0] == pytest.approx(0.70 - 0.69, abs=1e-9)
+
+
+def test_632plus_follows_efron_tibshirani():
+    tab = estimate_table(APPARENT, ROWS, "632plus", gamma=GAMMA)
+    # combined, as a loss -AUC: err = -0.80, Err1 = -0.70, gamma = -0.5; R = 0.10 / 0.30 = 1/3,
+    # w = 0.632 / (1 - 0.368 / 3) = 0.7203647..., estimate = 0.80 - 0.10 w = 0.7279635...
+    w = 0.632 / (1 - 0.368 / 3)
+    assert tab.corrected[COMB]["auc"][0] == pytest.approx(0.80 - 0.10 * w, abs=1e-9)
+    # clinical: err = -0.75, Err1 = -0.69, R = 0.06 / 0.25 = 0.24
+    w_c = 0.632 / (1 - 0.368 * 0.24)
+    assert tab.corrected[CLIN]["auc"][0] == pytest.approx(0.75 - 0.06 * w_c, abs=1e-9)
+    # the difference is the difference of the two estimates (.632+ weights are not linear)
+    assert tab.corrected[DIFF]["auc"][0] == pytest.approx((0.80 - 0.10 * w) - (0.75 - 0.06 * w_c), abs=1e-9)
+    assert tab.optimism[COMB]["auc"][0] == pytest.approx(0.10 * w, abs=1e-9)
+    assert DEFAULT_ESTIMATOR == "632plus"
+
+
+def test_interval_rule_is_the_corrected_resampled_t():
+    u = np.linspace(0.62, 0.80, 12)  # 12 out-of-bootstrap values
+    ratio = 110 / 190
+    lo, hi, why = oob_interval("auc", u, 0.72, ratio)
+    half = t_dist.ppf(0.975, 11) * np.sqrt((1 / 12 + ratio) * np.var(u, ddof=1))
+    assert why == "" and lo == pytest.approx(0.72 - half, abs=1e-9) and hi == pytest.approx(0.72 + half, abs=1e-9)
+    assert np.isnan(oob_interval("auc", u[:9], 0.72, ratio)[0])  # fewer than 10 values: none
+
+
+def test_intervals_only_for_the_proven_metrics():
+    apparent = {k: {**v, "ici": v["auc"] * 0.1} for k, v in APPARENT.items()}
+    rows = [ReplicateScores(*({k: {**v, "ici": v["auc"] * 0.1} for k, v in getattr(r, a).items()}
+                              for a in ("boot", "orig", "oob")), r.n_in, r.n_out) for r in ROWS]
+    # 12 replicates with varying out-of-bootstrap AUC
+    rows = [ReplicateScores(r.boot, r.orig, {k: {m: v + 0.002 * i for m, v in d.items()} for k, d in r.oob.items()},
+                            r.n_in, r.n_out) for i, r in enumerate(rows * 6)]
+    tab = estimate_table(apparent, rows, "632plus", gamma=GAMMA)
+    assert np.isfinite(tab.lower[COMB]["auc"][0]) and tab.lower[COMB]["auc"][0] < tab.corrected[COMB]["auc"][0]
+    assert np.isfinite(tab.lower[DIFF]["auc"][0])
+    assert np.isnan(tab.lower[COMB]["ici"][0]) and "not proven" in tab.note[COMB]["ici"][0]
+    assert np.isnan(estimate_table(apparent, rows, "optimism").lower[COMB]["auc"][0])
