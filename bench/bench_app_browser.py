@@ -119,7 +119,10 @@ def one_round(page, args, times) -> None:
     goto(page, "Data", "Cohort summary")
     record(times, "Results view, cached run", goto(page, "Results", "Download PDF"))
     select = page.get_by_label("Figure", exact=True).first
-    shown = page.locator("[data-testid='stImage'] img").first
+    # the picture beside the figure's own download buttons (the comparison above has images too)
+    shown = (page.locator("[data-testid='stHorizontalBlock']")
+             .filter(has=page.get_by_role("button", name="Download PNG")).last
+             .locator("[data-testid='stImage'] img").first)
     before = shown.get_attribute("src")
     for _ in range(3):  # the list sometimes closes when a redraw lands on the click: open it again
         select.click()
@@ -132,8 +135,11 @@ def one_round(page, args, times) -> None:
     # address changes) with the script run finished; opening the list is the browser's part
     t0 = time.monotonic()
     page.get_by_role("option").nth(1).click()
-    while shown.get_attribute("src") == before:
+    deadline = time.monotonic() + 120
+    while shown.get_attribute("src") == before and time.monotonic() < deadline:
         time.sleep(0.02)
+    if shown.get_attribute("src") == before:
+        raise RuntimeError(f"the Results figure did not change after choosing another one (src {before[:60]})")
     ready(page, "Download PDF")
     record(times, "Results figure switch", time.monotonic() - t0)
     goto(page, "Nomogram", "Download PNG")
