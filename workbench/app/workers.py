@@ -36,7 +36,8 @@ def _pool(kind: str) -> ProcessPoolExecutor:
         if _BREAKS.get(kind, 0) >= MAX_BREAKS:
             raise RuntimeError(f"the {kind} worker died {MAX_BREAKS} times")
         if kind not in _POOLS:
-            _POOLS[kind] = ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("spawn"))
+            _POOLS[kind] = ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("spawn"),
+                                               initializer=_lower_priority)
         return _POOLS[kind]
 
 
@@ -109,6 +110,19 @@ def warm() -> None:
 # --- run in the worker processes ---------------------------------------------------------------
 
 _HELD: dict[str, object] = {}
+
+NICENESS = 10
+"""How much lower the workers' CPU priority is than the server's: on a 2-core machine the two
+workers drawing and writing after a run would otherwise slow the views they work for."""
+
+
+def _lower_priority() -> None:
+    import os
+
+    try:
+        os.nice(NICENESS)
+    except (AttributeError, OSError):  # not on this platform, or not allowed: run at the same priority
+        pass
 
 
 def _load_layers() -> None:
