@@ -128,6 +128,13 @@ def coverage(z, zcrit=Z95):
     return p, float(np.sqrt(p * (1 - p) / hits.size))
 
 
+def print_row(lab: str, what: str, h: float, truth: float, b, z) -> None:
+    """One cell: bias with its MC SE, coverage with its MC SE, and the half- and double-width contrasts."""
+    p, se = coverage(z)
+    print(f"   {lab:<9}{what:<11}{h:>5.1f}{truth:>8.3f}{b.mean():>+9.4f}{b.std(ddof=1) / np.sqrt(b.size):>8.4f}"
+          f"{p:>10.3f}{se:>7.3f}{coverage(z, Z95 / 2)[0]:>7.3f}{coverage(z, 2 * Z95)[0]:>8.3f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--cohorts", type=int, default=1000)
@@ -148,11 +155,7 @@ def main() -> None:
         lab = ",".join(str(int(v)) for v in x)
         truth = true_fine_gray(x, HORIZONS)
         for j, h in enumerate(HORIZONS):
-            b, z = fg[:, i, 0, j], fg[:, i, 1, j]
-            p, se = coverage(z)
-            print(f"   {lab:<9}{'cause 1':<11}{h:>5.1f}{truth[j]:>8.3f}{b.mean():>+9.4f}"
-                  f"{b.std(ddof=1) / np.sqrt(R):>8.4f}{p:>10.3f}{se:>7.3f}{coverage(z, Z95 / 2)[0]:>7.3f}"
-                  f"{coverage(z, 2 * Z95)[0]:>8.3f}")
+            print_row(lab, "cause 1", h, truth[j], fg[:, i, 0, j], fg[:, i, 1, j])
     print("\n2. Cause-specific route, true cause-specific proportional hazards")
     print(head)
     cs = np.array([r["cs"] for r in rows])
@@ -161,11 +164,7 @@ def main() -> None:
         truth = true_cause_specific(x, HORIZONS)
         for k, what in enumerate(("cause 1", "cause 2", "event-free")):
             for j, h in enumerate(HORIZONS):
-                b, z = cs[:, i, k, 0, j], cs[:, i, k, 1, j]
-                p, se = coverage(z)
-                print(f"   {lab:<9}{what:<11}{h:>5.1f}{truth[k, j]:>8.3f}{b.mean():>+9.4f}"
-                      f"{b.std(ddof=1) / np.sqrt(R):>8.4f}{p:>10.3f}{se:>7.3f}{coverage(z, Z95 / 2)[0]:>7.3f}"
-                      f"{coverage(z, 2 * Z95)[0]:>8.3f}")
+                print_row(lab, what, h, truth[k, j], cs[:, i, k, 0, j], cs[:, i, k, 1, j])
     print(f"\nwall time {time.perf_counter() - t0:.1f} s (one process)")
 
 
