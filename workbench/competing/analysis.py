@@ -46,7 +46,7 @@ from workbench.study import StudySpec, dumps_study
 from workbench.validation.backends import run_tasks
 from workbench.validation.plans import _bootstrap_plan, _copy_seed, _oob_rows, _root
 
-__all__ = ["METRICS", "CompetingStudyResult", "CompetingValidation", "evaluate_arm", "optimism_table",
+__all__ = ["METRICS", "CompetingStudyResult", "CompetingValidation", "evaluate_arm",
            "run_competing", "validate_competing"]
 
 
@@ -126,26 +126,6 @@ class CompetingStudyResult:
     @property
     def cohort(self) -> Cohort:
         return self.prepared.cohort
-
-
-def optimism_table(apparent: dict, replicate_rows: list) -> tuple[dict, dict]:
-    """Mean optimism (bootstrap-sample minus original-sample metric) and the corrected metrics.
-
-    ``replicate_rows``: :class:`ReplicateScores` or (boot, orig) pairs.
-    """
-    pairs = [(r.boot, r.orig) if isinstance(r, ReplicateScores) else r for r in replicate_rows]
-    optimism, corrected = {}, {}
-    for key, app in apparent.items():
-        opt = {}
-        for m in METRICS:
-            diffs = np.array([boot[key][m] - orig[key][m] for boot, orig in pairs]) if pairs \
-                else np.full((0, app[m].size), np.nan)
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)  # a horizon undefined in every replicate
-                opt[m] = np.nanmean(diffs, axis=0) if diffs.size else np.full(app[m].size, np.nan)
-        optimism[key] = opt
-        corrected[key] = {m: app[m] - opt[m] for m in METRICS}
-    return optimism, corrected
 
 
 @dataclass(frozen=True)
