@@ -16,7 +16,8 @@ import pandas as pd
 from scipy import stats
 
 from workbench.errors import ModelError, ProportionalHazardsWarning
-from workbench.stats.coxph import CoxPHFit, _frozen, _join, _prepare, _RiskSets
+from workbench.stats.coxph_engine import _frozen, _join, _prepare, _RiskSets
+from workbench.stats.coxph_types import CoxPHFit
 
 __all__ = [
     "PHTestResult",
