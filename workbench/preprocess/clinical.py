@@ -31,21 +31,33 @@ References
    Stat Med 2010;29:1219-1227.
 .. [2] Harrell FE Jr. Regression Modeling Strategies, 2nd ed. Springer, 2015,
    Sections 2.4 (splines, knots) and 3 (missing data).
+
+The pieces: the fitted records and their encoding (:mod:`.clinical_terms`) and their use in
+contributions and hazard-ratio rows (:mod:`.clinical_effects`); this module learns the terms
+(:class:`ClinicalTransformer`) and re-exports the public names.
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from numpy.typing import ArrayLike
-from scipy.stats import norm
 from sklearn.base import BaseEstimator
 
 from workbench.cohort import Cohort
-from workbench.errors import CohortError, DataQualityWarning, ModelError, NotFittedError, SpecError
+from workbench.errors import CohortError, DataQualityWarning, NotFittedError, SpecError
+from workbench.preprocess.clinical_effects import hazard_ratio_rows, term_contribution  # noqa: F401  (re-exported)
+from workbench.preprocess.clinical_terms import (  # noqa: F401  (HazardRatioRow re-exported)
+    _INVERSE_FUNCS,
+    _TRANSFORM_FUNCS,
+    PERCENTILES,
+    DesignMatrix,
+    HazardRatioRow,
+    TermInfo,
+    _encode,
+    _impute_row,
+)
 from workbench.preprocess.predictor_spec import (  # noqa: F401  (re-exported)
     DEFAULT_KNOTS,
     KINDS,
@@ -54,7 +66,7 @@ from workbench.preprocess.predictor_spec import (  # noqa: F401  (re-exported)
     UNSEEN_POLICIES,
     PredictorSpec,
 )
-from workbench.preprocess.splines import harrell_knots, rcs_basis
+from workbench.preprocess.splines import harrell_knots
 from workbench.preprocess.values import (
     RowContext,
     apply_detection_limit,
@@ -65,234 +77,6 @@ from workbench.preprocess.values import (
     read_levels,
     read_numbers,
 )
-
-PERCENTILES = (1.0, 5.0, 10.0, 25.0, 50.0, 75.0, 90.0, 95.0, 99.0)
-"""Training percentiles kept on every continuous term (for axes and contrasts)."""
-
-_TRANSFORM_FUNCS = {None: lambda v: v, "log": np.log, "log2": np.log2}
-_INVERSE_FUNCS = {None: lambda v: v, "log": np.exp, "log2": np.exp2}
-
-
-
-# ------------------------------------------------------------------ fitted records
-
-
-@dataclass(frozen=True)
-class TermInfo:
-    """Everything learned for one predictor, and where it sits in the design.
-
-    Attributes
-    ----------
-    column, label, unit, kind, transform, missing, unseen
-        As in :class:`PredictorSpec`.
-    columns : tuple of str
-        Design column names of this term.
-    start, stop : int
-        Position of the term's columns in the design matrix (``X[:, start:stop]``).
-    knots : tuple of float
-        Spline knots on the transformed scale (empty unless spline).
-    knots_raw : tuple of float
-        The same knots on the original scale of the column.
-    levels : tuple of str
-        Categorical / ordinal levels seen in training, in display order.
-    reference : str or None
-        Reference level (hazard ratio 1, contribution 0).
-    scores : tuple of float
-        Ordinal scores per level (0 at the reference).
-    level_counts : tuple of int
-        Training rows per level.
-    detection_limit : float or None
-        Detection limit on the original scale, if any.
-    has_limit_indicator : bool
-        True if the term has a "below the detection limit" indicator column
-        (the last of ``columns``).
-    limit_requested : bool
-        True if the specification asked for detection-limit handling (so a
-        below-limit value without training counterparts is an unestimable case,
-        not a specification mistake).
-    n_below_limit_train : int
-        Training rows below the detection limit.
-    train_min, train_max : float or None
-        Range of the detectable training values (original scale); None for
-        categorical and ordinal terms.
-    percentiles : tuple of (float, float)
-        ``(q, value)`` pairs for ``PERCENTILES`` of the detectable training values.
-    impute_value : float, str or None
-        Value filled in for missing cells when ``missing == "impute"`` (a level
-        name, a number, or ``"<limit"`` when most training values were below it).
-    n_missing_train : int
-        Training rows with this value missing (imputed, or dropped).
-    hr_note : str
-        What one unit of the hazard ratio refers to (for example "per doubling").
-    """
-
-    column: str
-    label: str
-    unit: str
-    kind: str
-    transform: str | None
-    missing: str
-    unseen: str
-    columns: tuple[str, ...]
-    start: int
-    stop: int
-    knots: tuple[float, ...] = ()
-    knots_raw: tuple[float, ...] = ()
-    levels: tuple[str, ...] = ()
-    reference: str | None = None
-    scores: tuple[float, ...] = ()
-    level_counts: tuple[int, ...] = ()
-    detection_limit: float | None = None
-    has_limit_indicator: bool = False
-    limit_requested: bool = False
-    n_below_limit_train: int = 0
-    train_min: float | None = None
-    train_max: float | None = None
-    percentiles: tuple[tuple[float, float], ...] = ()
-    impute_value: float | str | None = None
-    n_missing_train: int = 0
-    hr_note: str = ""
-
-    @property
-    def width(self) -> int:
-        """Number of design columns."""
-        return self.stop - self.start
-
-    @property
-    def design_slice(self) -> slice:
-        return slice(self.start, self.stop)
-
-    def percentile(self, q: float) -> float:
-        """A stored training percentile (``q`` one of ``PERCENTILES``)."""
-        for qq, v in self.percentiles:
-            if np.isclose(qq, q):
-                return v
-        raise SpecError(f"percentile {q} of {self.column!r} is not stored; available: {[p for p, _ in self.percentiles]}.")
-
-
-@dataclass(frozen=True)
-class DesignMatrix:
-    """Model terms for the rows kept.
-
-    Attributes
-    ----------
-    X : ndarray of float, shape (n_used, n_columns)
-        Design matrix of the rows where ``rows_used`` is true.
-    columns : tuple of str
-        Names of the design columns.
-    terms : tuple of TermInfo
-        One per predictor, mapping it to its columns.
-    rows_used : ndarray of bool, shape (n_input,)
-        Rows of the input kept (complete cases for ``complete_case`` predictors);
-        drop the same rows from the outcome: ``y[rows_used]``.
-    n_dropped : int
-        Rows dropped for a missing value.
-    n_imputed : dict of str to int
-        Imputed cells per ``impute`` predictor, among the rows used.
-    """
-
-    X: np.ndarray
-    columns: tuple[str, ...]
-    terms: tuple[TermInfo, ...]
-    rows_used: np.ndarray
-    n_dropped: int
-    n_imputed: dict[str, int]
-
-    def to_frame(self) -> pd.DataFrame:
-        """The design matrix as a DataFrame with the design column names."""
-        return pd.DataFrame(self.X, columns=list(self.columns))
-
-
-@dataclass(frozen=True)
-class HazardRatioRow:
-    """One row of a hazard-ratio table.
-
-    Attributes
-    ----------
-    column, label : str
-        Predictor column and its human-readable name.
-    design_columns : tuple of str
-        Design columns the contrast combines.
-    contrast : str
-        What is compared (for example "per doubling", "III vs I").
-    log_hr, se : float
-        Log hazard ratio and its standard error.
-    hr, lower, upper : float
-        Hazard ratio and confidence limits.
-    p_value : float
-        Two-sided Wald p-value.
-    level : float
-        Confidence level of ``lower`` and ``upper``.
-    """
-
-    column: str
-    label: str
-    design_columns: tuple[str, ...]
-    contrast: str
-    log_hr: float
-    se: float
-    hr: float
-    lower: float
-    upper: float
-    p_value: float
-    level: float
-
-
-# ------------------------------------------------------------------ encoding
-
-
-def _no_estimate_below(term: TermInfo, below: np.ndarray, where: RowContext) -> str:
-    limit = "" if term.detection_limit is None else f" {term.detection_limit:.6g}"
-    return (
-        f"{column_name(term.column, term.label)}: {where.rows(below)} lie below the detection "
-        f"limit{limit}, but no training patient did, so the model has no estimate for them. "
-        "Refit on data that include such patients, or correct the values."
-    )
-
-
-def _encode(term: TermInfo, series: pd.Series, where: RowContext) -> tuple[np.ndarray, np.ndarray]:
-    """Design columns of one term (NaN rows where missing) and the missing mask."""
-    if term.kind in ("categorical", "ordinal"):
-        keys, missing = read_levels(term.column, term.label, series, term.levels, term.unseen, where, "transform")
-        k = np.where(missing, "", keys.astype(str))
-        if term.kind == "categorical":
-            others = [lv for lv in term.levels if lv != term.reference]
-            z = (k[:, None] == np.asarray(others, dtype=str)[None, :]).astype(float)
-        else:
-            score = dict(zip(term.levels, term.scores, strict=True))
-            z = np.array([score.get(v, np.nan) for v in k], dtype=float)[:, None]
-    else:
-        parsed = read_numbers(term.column, term.label, series, where)
-        missing = parsed.missing
-        stated = parsed.below_limit & ~missing
-        if term.limit_requested and term.detection_limit is None and stated.any():
-            raise ModelError(_no_estimate_below(term, stated, where))
-        value, below = apply_detection_limit(term.column, term.label, parsed, term.detection_limit, where)
-        if below.any() and not term.has_limit_indicator:
-            raise ModelError(_no_estimate_below(term, below, where))
-        check_positive(term.column, term.label, term.transform, value, missing, where)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            x = _TRANSFORM_FUNCS[term.transform](np.where(missing, np.nan, value))
-        z = x[:, None] if term.kind == "linear" else rcs_basis(x, term.knots)
-        if term.has_limit_indicator:
-            z = np.column_stack([z, below.astype(float)])
-    z[missing] = np.nan
-    return z, missing
-
-
-def _as_series(values) -> pd.Series:
-    if isinstance(values, pd.Series):
-        return values.reset_index(drop=True)
-    arr = np.asarray(values, dtype=object)
-    return pd.Series(np.atleast_1d(arr).ravel(), dtype=object)
-
-
-def _impute_row(term: TermInfo) -> np.ndarray:
-    z, missing = _encode(term, _as_series([term.impute_value]), RowContext.plain(1))
-    if missing.any():  # cannot happen for values learned in fit; guards hand-made TermInfo
-        raise ModelError(f"the imputation value of {term.column!r} cannot be encoded.")
-    return z[0]
-
 
 # ------------------------------------------------------------------ learning
 
@@ -564,141 +348,3 @@ class ClinicalTransformer(BaseEstimator):
     def fit_transform(self, X: Cohort | pd.DataFrame, y=None) -> DesignMatrix:
         """``fit(X).transform(X)``."""
         return self.fit(X).transform(X)
-
-
-# ------------------------------------------------------------------ using fitted terms
-
-
-def _term_params(term: TermInfo, coef, cov=None):
-    b = np.asarray(coef, dtype=float).ravel()
-    w = term.width
-    if b.size != w:
-        if b.size < term.stop:
-            raise ModelError(
-                f"{term.column!r} has {w} design column(s) at positions {term.start}-{term.stop - 1}, "
-                f"but {b.size} coefficient(s) were given; pass the term's coefficients or the full vector."
-            )
-        b = b[term.design_slice]
-    if cov is None:
-        return b, None
-    v = np.asarray(cov, dtype=float)
-    if v.shape != (w, w):
-        if v.ndim != 2 or v.shape[0] != v.shape[1] or v.shape[0] < term.stop:
-            raise ModelError(
-                f"the covariance matrix for {term.column!r} has shape {v.shape}; expected ({w}, {w}) "
-                "or the full model's square matrix."
-            )
-        v = v[term.design_slice, term.design_slice]
-    return b, v
-
-
-def term_contribution(term_info: TermInfo, coef_slice: ArrayLike, values: ArrayLike) -> np.ndarray:
-    """Contribution of one term to the linear predictor for raw values.
-
-    Parameters
-    ----------
-    term_info : TermInfo
-        A fitted term (from ``ClinicalTransformer.terms_``).
-    coef_slice : array-like
-        The term's coefficients (``term_info.width`` values) or the full
-        coefficient vector of the model (sliced by the term's position).
-    values : array-like of shape (n,)
-        Raw predictor values as they appear in the clinical table: numbers,
-        ``"<0.5"`` texts for detection-limit terms, level names.
-
-    Returns
-    -------
-    ndarray of shape (n,)
-        ``design_row @ coef`` for each value: the spline evaluated at the
-        value for spline terms; 0 for the reference level; NaN for missing.
-    """
-    b, _ = _term_params(term_info, coef_slice)
-    z, missing = _encode(term_info, _as_series(values), RowContext.plain(np.size(values)))
-    out = np.where(missing[:, None], 0.0, z) @ b
-    out[missing] = np.nan
-    return out
-
-
-def _row(term, names, contrast, log_hr, se, level) -> HazardRatioRow:
-    zc = norm.ppf(0.5 + level / 2.0)
-    p = float(2.0 * norm.sf(abs(log_hr / se))) if se > 0 else float("nan")
-    return HazardRatioRow(
-        column=term.column, label=term.label, design_columns=tuple(names), contrast=contrast,
-        log_hr=float(log_hr), se=float(se), hr=float(np.exp(log_hr)),
-        lower=float(np.exp(log_hr - zc * se)), upper=float(np.exp(log_hr + zc * se)),
-        p_value=p, level=level,
-    )
-
-
-def hazard_ratio_rows(
-    term_info: TermInfo, coef: ArrayLike, cov: ArrayLike, *, level: float = 0.95, per: float = 1.0
-) -> tuple[HazardRatioRow, ...]:
-    """Hazard ratios with Wald confidence intervals for one term.
-
-    Parameters
-    ----------
-    term_info : TermInfo
-    coef : array-like
-        The term's coefficients or the full model's coefficient vector.
-    cov : array-like
-        The matching covariance matrix (term block or the full matrix).
-    level : float
-        Confidence level.
-    per : float
-        Increment of an untransformed linear term (HR per ``per`` units).
-
-    Returns
-    -------
-    tuple of HazardRatioRow
-        * linear, no transform: HR per ``per`` units, ``exp(per * b)``;
-        * log2: HR per doubling, ``exp(b)``;
-        * log: HR per e-fold increase, ``exp(b)``, and per doubling, ``exp(b ln 2)``;
-        * spline: HR of the 75th against the 25th training percentile, from the
-          contrast ``c = s(x75) - s(x25)`` of the basis rows: ``log HR = c'b`` with
-          variance ``c' V c`` (the spline has no single per-unit HR);
-        * detection-limit terms also get "below limit vs at the limit", ``exp(b_ind)``;
-        * categorical: each level against the reference; ordinal: per category step.
-
-    Notes
-    -----
-    Intervals are ``exp(log HR +- z se)`` with ``z`` the normal quantile; this
-    is the Wald interval a Cox fit reports for a single coefficient. For a
-    contrast, ``c'b`` is asymptotically normal with variance ``c'Vc``.
-
-    References
-    ----------
-    .. [1] Harrell FE Jr. Regression Modeling Strategies, 2nd ed. Springer,
-       2015 (inter-quartile-range hazard ratios for nonlinear effects).
-    """
-    if not 0.0 < level < 1.0:
-        raise SpecError(f"confidence level must lie between 0 and 1; got {level}.")
-    b, v = _term_params(term_info, coef, cov)
-    t, names, rows = term_info, term_info.columns, []
-    if t.kind in ("categorical", "ordinal"):
-        if t.kind == "ordinal":
-            step = f"per category step ({' < '.join(t.levels)})"
-            rows.append(_row(t, names, step, b[0], np.sqrt(v[0, 0]), level))
-        others = [lv for lv in t.levels if lv != t.reference] if t.kind == "categorical" else []
-        for j, lv in enumerate(others):
-            rows.append(_row(t, (names[j],), f"{lv} vs {t.reference}", b[j], np.sqrt(v[j, j]), level))
-        return tuple(rows)
-    unit = f" {t.unit}" if t.unit else ""
-    if per == 1.0 and unit.endswith("s") and unit.strip() in ("years", "months", "weeks", "days"):
-        unit = unit[:-1]  # "per 1 year", not "per 1 years"
-    if t.kind == "linear":
-        se = np.sqrt(v[0, 0])
-        scales = {None: [(per, f"per {per:g}{unit}")], "log2": [(1.0, "per doubling")],
-                  "log": [(1.0, "per e-fold increase"), (np.log(2.0), "per doubling")]}[t.transform]
-        rows += [_row(t, names[:1], text, s * b[0], s * se, level) for s, text in scales]
-    else:
-        hi, lo = t.percentile(75.0), t.percentile(25.0)
-        d, _ = _encode(t, _as_series([hi, lo]), RowContext.plain(2))
-        c = d[0] - d[1]
-        text = f"75th vs 25th percentile ({hi:.4g} vs {lo:.4g}{unit})"
-        spline_names = names[:-1] if t.has_limit_indicator else names
-        rows.append(_row(t, spline_names, text, c @ b, np.sqrt(max(c @ v @ c, 0.0)), level))
-    if t.has_limit_indicator:
-        j = t.width - 1
-        text = f"below the detection limit vs at the limit ({t.detection_limit:.4g}{unit})"
-        rows.append(_row(t, names[j:], text, b[j], np.sqrt(v[j, j]), level))
-    return tuple(rows)
