@@ -228,8 +228,9 @@ def _group_digest(result) -> list[str]:
     for name, rows in (getattr(result, "new_site", None) or {}).items():
         if rows:
             r = rows[-1]
-            lines.append(f"To validate {name} at a new site (horizon {r.horizon:g}): {r.n_required} patients "
-                         f"(O/E {r.n_oe}, slope {r.n_slope}, C {r.n_c}; about {r.events_expected:.0f} events).")
+            lines.append(f"To validate {name} at a new site (horizon {r.horizon:g} {result.spec.data.time_unit}): "
+                         f"{r.n_required} patients, about {r.events_expected:.0f} events (the most of: {r.n_oe} for "
+                         f"the O/E ratio, {r.n_slope} for the calibration slope, {r.n_c} for the C-index).")
     ch = getattr(result.external, "censoring", None) if result.external is not None else None
     if ch is not None:
         lines.append(f"External censoring weights: {ch.method} ({ch.reason}).")
