@@ -21,6 +21,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
+from matplotlib.font_manager import font_scalings
 
 from workbench.cohort.outcome import make_outcome, split_outcome
 from workbench.errors import SpecError, WorkbenchWarning
@@ -247,7 +248,8 @@ def plot_km_by_group(
             if title:
                 fig.suptitle(wrap_to_width(title, fig, base_font_size(width)), x=0.01, ha="left", fontsize="medium")
             caption = km_caption(result, development=development, min_at_risk=min_at_risk)
-            fig.supxlabel(wrap_to_width(caption, fig, base_font_size(width) - 1.5), x=0.01, ha="left",
+            small = font_scalings["small"] * base_font_size(width)  # measured at the size it is drawn
+            fig.supxlabel(wrap_to_width(caption, fig, small), x=0.01, ha="left",
                           fontsize="small", linespacing=1.2)
         else:
             ax_main.legend(loc="lower left", title="Risk group", title_fontsize="small", handlelength=2.2)
