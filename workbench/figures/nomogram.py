@@ -120,7 +120,10 @@ class _Painter:
         # a label may not reach into the row names on the left or the patient column on the right:
         # at the ends it slides inwards while it still sits over its tick, otherwise it is left out
         half = np.asarray(widths) * self.geo.units_per_pt / 2
-        cx = np.minimum(np.maximum(xs, -2.2 + half), self.right_limit - half)
+        # clear of the row names (right-aligned at -2.5) by a quarter of the tick font: a two-line
+        # name's first line sits at the height of the labels
+        left = -2.5 + 0.25 * self.geo.tick_fs * self.geo.units_per_pt
+        cx = np.minimum(np.maximum(xs, left + half), self.right_limit - half)
         gap = 0.35 * self.geo.tick_fs * self.geo.units_per_pt
         keep = keep & (np.abs(cx - xs) <= 0.6 * half)
         shown = np.flatnonzero(keep)
@@ -428,7 +431,7 @@ def plot_nomogram(
     *,
     patient: Mapping | Sequence | None = None,
     titles: Sequence[str] | None = None,
-    layout: str = "columns",
+    layout: str | None = None,
     width: str | float = "double",
     caution: str = CAUTION,
     ax=None,
@@ -448,9 +451,12 @@ def plot_nomogram(
         under ``"imaging_signature"``) to overlay on every panel.
     titles : sequence of str, optional
         Panel titles (default: each model's name).
-    layout : {"columns", "rows"}
+    layout : {"columns", "rows"}, optional
         Models side by side or stacked; rows before the total-points axis are
-        padded so total-points and survival axes line up across panels.
+        padded so total-points and survival axes line up across panels. Default:
+        stacked at a single-column width (under 120 mm; side by side, each panel
+        would be about 40 mm wide and a categorical axis's labels could outrun it),
+        otherwise side by side.
     width : "single", "double" or millimetres
     caution : str
         Footer small print (default: the workbench's research-use caution).
@@ -484,6 +490,8 @@ def plot_nomogram(
     ivs = list(intervals) if intervals is not None else [None] * len(items)
     if len(ivs) != len(items):
         raise SpecError(f"give one interval mapping per model ({len(items)}), or none; got {len(ivs)}.")
+    if layout is None:
+        layout = "rows" if column_width_inches(width) * 25.4 < 120.0 else "columns"
     if layout not in ("columns", "rows"):
         raise SpecError(f"layout {layout!r} is not known; use 'columns' (side by side) or 'rows' (stacked).")
     titles = list(titles) if titles is not None else [s.model for s in items]

@@ -223,10 +223,16 @@ def _wrap(text: str) -> str:
     return "\n".join(textwrap.wrap(text, _LABEL_CHARS)) or text
 
 
+NAME_GAP = 2.5
+"""Row names end this many x units left of the axes' start (the painter's ``-2.5``)."""
+
+
 def _geometry(panel_width_pt: float, fs: float, right_pt: float, label_pt: float) -> _Geometry:
+    """Units so that 0-100 spans the axes and the row names (``label_pt`` wide, right-aligned
+    ``NAME_GAP`` units left of 0) plus the right margin fit the panel."""
     frac_l, frac_r = label_pt / panel_width_pt, right_pt / panel_width_pt
-    span = 100.0 / max(1.0 - frac_l - frac_r, 0.3)
-    return _Geometry(left=frac_l * span, right=frac_r * span, units_per_pt=span / panel_width_pt, fs=fs)
+    span = (100.0 + NAME_GAP) / max(1.0 - frac_l - frac_r, 0.3)
+    return _Geometry(left=frac_l * span + NAME_GAP, right=frac_r * span, units_per_pt=span / panel_width_pt, fs=fs)
 
 
 def _label_width(items, measure: _Measure, fs: float) -> float:

@@ -379,7 +379,13 @@ def _median_scale(fit, lp_intercept: float, ppl: float, axis_max: float) -> Medi
         Hm = H[np.searchsorted(t, m, side="right") - 1]
         return (np.log(np.log(2.0) / Hm) - lp_intercept) * ppl
 
-    cand = nice_ticks(t[0], t[-1], 12)
+    # Ticks over the medians the total-score axis can reach (from the highest score's to the
+    # lowest score's, or the last event time when that median is not reached), so a model whose
+    # medians span a short stretch of follow-up still gets a readable axis.
+    lp = lp_intercept + np.array([axis_max, 0.0]) / ppl
+    k = np.searchsorted(H, np.log(2.0) * np.exp(-lp), side="left")
+    shortest, longest = (float(t[min(i, t.size - 1)]) for i in k)
+    cand = nice_ticks(shortest, longest, 8) if longest > shortest else nice_ticks(t[0], t[-1], 12)
     ticks = []
     for m in cand:
         if m < t[0]:

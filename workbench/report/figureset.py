@@ -69,7 +69,7 @@ def _evaluation(result):
     return result.cohort, "development cohort, apparent"
 
 
-def nomogram_figure(result, *, patient=None, layout="columns", width="double", notes=None, patient_row=None):
+def nomogram_figure(result, *, patient=None, layout=None, width="double", notes=None, patient_row=None):
     """Nomograms of the Cox models of the study (clinical-only and clinical + signature).
 
     ``patient_row=(cohort, index)`` (the row the ``patient`` values came from) adds the

@@ -153,3 +153,48 @@ def test_a_scanner_note_is_printed_under_the_imaging_panel_only(demo, demo_two_m
     assert len(texts) == 2
     assert note not in texts[0] and f"! {note}" in texts[1]  # the clinical panel has no imaging axis
     assert all("! a note for every panel" in t for t in texts)
+
+
+def test_median_axis_ticks_span_the_medians_the_total_scores_reach(demo_two_models):
+    # A model whose predicted medians cover a short stretch of follow-up still gets a readable axis:
+    # the ticks are chosen over the medians reachable between 0 and the maximum total score. Each tick
+    # m sits where H0(m) exp(LP) = ln 2 (predicted survival exactly 0.5 at m, H0 a step function), so
+    # the predicted median there is the last event time at or before m.
+    spec, cohort, models = demo_two_models
+    sc = nomogram_scales(models["clinical"], spec.horizons, time_unit="months", median_axis=True)
+    assert sc.median is not None and len(sc.median.ticks) >= 3
+    t, H0 = np.asarray(sc.median.event_times), np.asarray(sc.median.baseline_cumhaz)
+    for k in sc.median.ticks:
+        assert 0.0 <= k.points <= sc.total_axis_max
+        at = t <= k.value
+        assert H0[at][-1] * np.exp(sc.linear_predictor(k.points)) == pytest.approx(np.log(2.0), rel=1e-9)
+        assert sc.median_survival(k.points) == pytest.approx(t[at][-1])
+
+
+def test_median_axis_on_a_public_cohort_with_short_medians(tmp_path):
+    # Veterans' Administration lung cancer trial (scikit-survival load_veterans_lung_cancer, split by
+    # examples/public_tables.py): follow-up to 999 days, but the clinical model's predicted medians
+    # lie between about 40 and 160 days. Ticks every 100 days over the whole follow-up gave one
+    # tick in that stretch, and no median axis at all.
+    import importlib.util
+    import warnings
+    from pathlib import Path
+
+    from workbench.models.registry import build_models
+    from workbench.prepare import prepare_cohort
+    from workbench.study import read_study
+
+    script = Path(__file__).parents[3] / "examples" / "public_tables.py"
+    spec_ = importlib.util.spec_from_file_location("public_tables", script)
+    mod = importlib.util.module_from_spec(spec_)
+    spec_.loader.exec_module(mod)
+    assert mod.main(["veterans", "--out", str(tmp_path)]) == 0
+    spec = read_study(tmp_path / "study.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        cohort = prepare_cohort(spec).cohort
+        model = build_models(spec)["clinical"].fit(cohort)
+    sc = nomogram_scales(model, spec.horizons, time_unit="days", median_axis=True)
+    assert sc.median is not None and len(sc.median.ticks) >= 4
+    values = sorted(k.value for k in sc.median.ticks)
+    assert values[-1] - values[0] < 500  # the ticks sit in the reachable stretch, not across follow-up
