@@ -96,7 +96,7 @@ def plot_calibration(
         yerr = np.vstack([gr.observed - gr.observed_lower, gr.observed_upper - gr.observed])
         a.errorbar(gr.mean_predicted, gr.observed, yerr=np.clip(yerr, 0, None), fmt=st.marker,
                    color=st.color, ms=3.5, mfc="white", mew=0.9, elinewidth=0.7, capsize=1.5,
-                   label="Grouped (95% CI)")
+                   label="Grouped (95% CI)", clip_on=False)  # a group observed at 0 or 1 shows whole
         if risks is not None:
             h = a.inset_axes((0.0, 0.0, 1.0, 0.16), sharex=a)
             # one filled step outline rather than 40 bar patches: the same bins and heights, drawn as one shape

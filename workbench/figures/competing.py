@@ -69,7 +69,8 @@ def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="si
                 st = styles[name]
                 err = np.vstack([g.observed - g.observed_lower, g.observed_upper - g.observed])
                 ax.errorbar(g.mean_predicted, g.observed, yerr=np.clip(err, 0, None), fmt=st.marker,
-                            color=st.color, linestyle="none", capsize=1.5, label=MODEL_LABELS.get(name, name))
+                            color=st.color, linestyle="none", capsize=1.5, label=MODEL_LABELS.get(name, name),
+                            clip_on=False)
             ax.plot([0, 1], [0, 1], color=NEUTRAL, linewidth=0.5, linestyle=":")
             ax.set_xlim(0, 1)
             ax.set_ylim(0, 1)
