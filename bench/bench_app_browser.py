@@ -27,6 +27,20 @@ A view counts as ready when its expected text is visible and Streamlit's running
 is gone (polled every 50 ms), so each timing includes up to ~0.1 s of polling. Timings depend on
 what else runs on the machine: run it on a quiet machine and report the load next to it.
 Needs the browser installed by tests/app/install_browser.sh.
+
+Measured 2026-12-03, one round each, the code before and after the per-figure plan, static
+Results tables and the nomogram's reused axes, back to back on a machine at a load average of
+about 40 on 2 cores (five other helpers' work; the wall times are many times the quiet
+machine's, the server CPU seconds less so). Wall s (server CPU s), before -> after: cold start
+29.9 (3.27) -> 29.5 (3.23); first figure after the run 95.8 (5.54) -> 24.2 (1.70); Results view,
+cached 9.75 (0.65) -> 8.66 (2.80); figure switch 9.29 (0.58) -> 2.32 (0.63); nomogram at a new
+time 10.6 (1.74) -> 8.12 (1.33); Export ready 11.9 (2.99) -> 12.8 (2.58); report 309 (30.3) ->
+247 (32.1); cancel 1.00 (0.10) -> 4.05 (0.78). No target was met at that load; none can be
+judged from it. Script-thread CPU from a temporary trace of the same rounds: cached Results
+view 0.036 -> 0.057 s; nomogram at a new time 0.52 -> 0.44 s (axes 0.039 -> 0.004 s, drawing
+~0.16 s, its SVG ~0.22-0.29 s); the Export view's script thread 18.9 s in both, about what the
+report takes to write: it seems to have been written in the server's own process, not in the
+files worker, in both rounds (not investigated further).
 """
 
 from __future__ import annotations
