@@ -41,6 +41,13 @@ view 0.036 -> 0.057 s; nomogram at a new time 0.52 -> 0.44 s (axes 0.039 -> 0.00
 ~0.16 s, its SVG ~0.22-0.29 s); the Export view's script thread 18.9 s in both, about what the
 report takes to write: it seems to have been written in the server's own process, not in the
 files worker, in both rounds (not investigated further).
+A second pair, the two versions run at the same time (load about 30), wall s (server CPU s),
+before -> after: cold start 12.6 (3.39) -> 42.7 (3.59); first figure after the run 43.4 (0.83) ->
+8.78 (0.63); Results view, cached 1.86 (0.13) -> 4.83 (0.48); figure switch 2.37 (0.19) -> 0.95
+(0.06); nomogram 5.22 (0.65) -> 4.56 (0.52); Export ready 1.89 (0.23) -> 2.16 (0.32); report 119
+(1.17) -> 56.5 (0.66); cancel 0.61 (0.08) -> 0.76 (0.45). Only the first figure after a run
+improved clearly in both pairs; the cached Results view did not (better in one pair, worse in
+the other; after the change the figure worker is still drawing the other figures then).
 """
 
 from __future__ import annotations
