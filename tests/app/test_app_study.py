@@ -60,8 +60,8 @@ def cli_results(tmp_path_factory):
 
 
 def _frame_with(at, *columns):
-    """The first table on the page that has all these columns."""
-    for d in at.dataframe:
+    """The first table on the page that has all these columns (data grid or static table)."""
+    for d in [*at.dataframe, *at.table]:
         if all(c in d.value.columns for c in columns):
             return d.value
     raise AssertionError(f"no table with columns {columns}")
@@ -106,6 +106,24 @@ def test_results_page_shows_the_comparison(ran, cli_results):
     assert row["Difference (validated)"] == f"{ref['estimate']:.3f}"
     full = read_study(DEMO / "study.toml").validation.replicates
     assert "Quick mode" in texts and f"the {full} replicates set on the Design page" in texts
+
+
+def test_results_tables_are_static_and_downloadable_with_the_same_cells(ran):
+    import io
+    import zipfile
+
+    import pandas as pd
+
+    from workbench.app.light_tables import tables_zip
+
+    shown = [t.value for t in ran.table]
+    assert len(shown) >= 4  # discrimination, calibration, overall accuracy, the comparison
+    assert not any("Measure" in d.value.columns for d in ran.dataframe)  # no data grid left for them
+    labels = [b.proto.label for b in ran.get("download_button")]
+    assert "Download the tables shown (CSV files, zip)" in labels
+    with zipfile.ZipFile(io.BytesIO(tables_zip({"Discrimination": shown[0]}))) as zf:
+        back = pd.read_csv(zf.open("discrimination.csv"), dtype=str, keep_default_na=False)
+    pd.testing.assert_frame_equal(back, shown[0].astype(str), check_dtype=False)
 
 
 def test_signature_page_matches_the_fitted_signature(ran):

@@ -188,3 +188,35 @@ def test_a_worker_that_dies_leaves_the_build_to_the_server(monkeypatch):
     ex = exports.Exports({"parent": os.getpid()})
     assert ex.get("json") == "built here"
     assert workers._BREAKS == {workers.FILES_POOL: 1}  # counted, and a new worker is started next time
+
+
+def _plan(drawn: list):
+    """A figures layer that returns its figures as drawings still to do (like figureset.figure_plan)."""
+    def plan(result) -> dict:
+        return {"calibration": lambda: drawn.append("calibration") or _figure(),
+                "td_auc": lambda: drawn.append("td_auc") or _figure()}
+    return plan
+
+
+def test_a_plan_of_figures_draws_only_the_figure_asked_for(monkeypatch):
+    drawn = []
+    monkeypatch.setitem(exports.BUILDERS, "figures", _plan(drawn))
+    ex = exports.Exports(object())
+    assert ex.names() == ["calibration", "td_auc"] and drawn == []  # the names cost no drawing
+    assert ex.screen("td_auc").startswith(b"\x89PNG") and drawn == ["td_auc"]
+    assert ex.figure_file("td_auc", "svg").startswith(b"<?xml") and drawn == ["td_auc"]  # held, not redrawn
+
+
+def test_the_figure_worker_draws_each_figure_of_a_plan_when_first_asked(monkeypatch):
+    import pickle
+
+    from workbench.app import workers
+
+    monkeypatch.setattr(workers, "_HELD", {})
+    drawn = []
+    blob = pickle.dumps({"run": 1})
+    assert workers.figure_task("run-1", blob, _plan(drawn), None, None) == ["calibration", "td_auc"]
+    assert drawn == []
+    assert workers.figure_task("run-1", blob, _plan(drawn), "td_auc", "screen").startswith(b"\x89PNG")
+    assert workers.figure_task("run-1", blob, _plan(drawn), "td_auc", "pdf").startswith(b"%PDF")
+    assert drawn == ["td_auc"]

@@ -2,8 +2,9 @@
 
 :func:`prepare` starts building them right after a run finishes, so that the Results and Export
 views find them ready. The building happens in two worker processes kept warm for the server's
-lifetime (:mod:`workbench.app.workers`): one draws the run's figures (held there, so a figure
-is drawn for the screen or written as a download without drawing the others again), the other
+lifetime (:mod:`workbench.app.workers`): one draws the run's figures, each when first asked for
+(the figures layer's plan: the figure the Results view shows is drawn first, without waiting for
+the others, and is held there, so it is written as a download without drawing it again), the other
 writes results.json, the bundle, the results folder and the report (20-30 s). The server's own
 process only waits for them, so a view never competes with a build for the interpreter lock:
 with the builds in a thread of the server, switching the Results figure took ~6 s instead of
@@ -85,9 +86,13 @@ def report_html(result) -> str | None:
 
 
 def figures(result) -> dict:
-    """The run's standard figures (name -> matplotlib Figure), as the Results view shows them."""
+    """The run's standard figures, as the Results view shows them: name -> a function drawing the
+    matplotlib Figure (the figures layer's plan), so the figure shown first is drawn first."""
     mod = _module("workbench.report.figureset")
-    return mod.study_figures(result) if mod is not None and hasattr(mod, "study_figures") else {}
+    for name in ("figure_plan", "study_figures"):
+        if mod is not None and hasattr(mod, name):
+            return getattr(mod, name)(result)
+    return {}
 
 
 BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "folder": results_zip,
@@ -151,8 +156,13 @@ class Exports:
     def _figures_here(self) -> dict:
         with self._local_guard:
             if self._local_figures is None:
-                self._local_figures = BUILDERS["figures"](self.result)
+                self._local_figures = dict(BUILDERS["figures"](self.result))
             return self._local_figures
+
+    def _figure_here(self, name: str):
+        figs = self._figures_here()
+        with self._local_guard:  # one drawing at a time in this process (matplotlib objects are not shared)
+            return workers.drawn(figs, name)
 
     def _build(self, name: str) -> None:
         with self._locks[name]:
@@ -186,7 +196,7 @@ class Exports:
                                            name, fmt))
         if got is not workers.UNAVAILABLE:
             return got
-        fig = self._figures_here()[name]
+        fig = self._figure_here(name)
         return screen_png(fig) if fmt == SCREEN else save_figure(fig, fmt)
 
     def screen(self, name: str) -> bytes:

@@ -9,6 +9,7 @@ import streamlit as st
 
 from workbench.app import state, tables
 from workbench.app.charts import SCREEN_DPI, save_figure, screen_png  # noqa: F401  (re-exported)
+from workbench.errors import WorkbenchError
 
 NOMOGRAM_MODELS = ("clinical", "combined")
 
@@ -25,14 +26,31 @@ def training_scores(result, name: str):
     return None
 
 
-@st.cache_resource(show_spinner=False, max_entries=16)
-def scales_for(run_key: tuple, name: str, horizons: tuple[float, ...], _result):
-    """``NomogramScales`` of one model at the chosen horizons (cached on the run and horizons)."""
+def _scales(result, name: str, horizons: tuple[float, ...]):
     points = state.load_module("workbench.figures.nomogram_points")
     return points.nomogram_scales(
-        _result.models[name], horizons, signature_scores=training_scores(_result, name),
-        time_unit=_result.validation.time_unit, name=tables.label(name),
+        result.models[name], horizons, signature_scores=training_scores(result, name),
+        time_unit=result.validation.time_unit, name=tables.label(name),
     )
+
+
+@st.cache_resource(show_spinner=False, max_entries=8)
+def _axes_for(run_key: tuple, name: str, _result):
+    """``NomogramScales`` of one model at the study's horizons: its predictor and total-points axes
+    (cached on the run; they do not depend on the horizons)."""
+    return _scales(_result, name, tuple(_result.spec.horizons))
+
+
+@st.cache_resource(show_spinner=False, max_entries=16)
+def scales_for(run_key: tuple, name: str, horizons: tuple[float, ...], _result):
+    """``NomogramScales`` of one model at the chosen horizons (cached on the run and horizons): the run's
+    axes with only the survival axes computed for ``horizons``."""
+    points = state.load_module("workbench.figures.nomogram_points")
+    try:
+        axes = _axes_for(run_key, name, _result)
+    except WorkbenchError:  # e.g. a study horizon before the first event: the chosen ones may still do
+        return _scales(_result, name, horizons)
+    return points.with_horizons(axes, _result.models[name], horizons)
 
 
 def rounded_terms(terms):

@@ -147,16 +147,27 @@ def build(token: str, blob: bytes, fn):
 
 
 def figure_task(token: str, blob: bytes, fn, name: str | None, fmt: str | None):
-    """The figures ``fn(result)`` drawn once per token: their names (``name`` None), or one of them
-    as the screen PNG (``fmt`` "screen") or a download file ("png", "svg", "pdf")."""
+    """The figures ``fn(result)`` (Figures, or functions drawing them) held per token, each drawn once
+    when first asked for: their names (``name`` None), or one of them as the screen PNG (``fmt``
+    "screen") or a download file ("png", "svg", "pdf")."""
     from workbench.app.charts import save_figure, screen_png
 
     result = _result(token, blob)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         if "figures" not in _HELD:
-            _HELD["figures"] = fn(result)
+            _HELD["figures"] = dict(fn(result))
         figs = _HELD["figures"]
         if name is None:
             return list(figs)
-        return screen_png(figs[name]) if fmt == "screen" else save_figure(figs[name], fmt)
+        fig = drawn(figs, name)
+        return screen_png(fig) if fmt == "screen" else save_figure(fig, fmt)
+
+
+def drawn(figs: dict, name: str):
+    """Figure ``name`` of ``figs``, drawn now if it is still a drawing to do (a plan's function),
+    and kept drawn: the figure asked for first is drawn first, without waiting for the others."""
+    fig = figs[name]
+    if callable(fig):  # a matplotlib Figure is not callable
+        fig = figs[name] = fig()
+    return fig

@@ -35,6 +35,7 @@ References
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import replace
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -253,9 +254,7 @@ def nomogram_scales(
     """
     fit, infos = _check_model(model)
     coef = np.asarray(fit.coef, dtype=float)
-    hz = np.atleast_1d(np.asarray(horizons, dtype=float))
-    if hz.size == 0 or np.any(~np.isfinite(hz)) or np.any(hz <= 0):
-        raise SpecError(f"nomogram horizons must be positive times, for example [12, 24, 36]; got {list(hz)}.")
+    hz = _horizons(horizons)
     parts = [(_term_from_info(info, coef, percentiles), info) for info in infos]
     has_sig = SIGNATURE_TERM in fit.names
     sig = None
@@ -317,6 +316,40 @@ def nomogram_scales(
     tvals = nice_ticks(0.0, total_max, 11, cover=True)
     axis_max = float(tvals[-1])
     total_ticks = tuple(AxisTick(format_number(v), float(v), float(v)) for v in tvals)
+    scales = _survival_scales(fit, hz, lp_intercept, ppl, axis_max, bool(risk_of))
+    if median_axis and risk_of:
+        raise SpecError("a risk nomogram (risk_of) has no median-survival axis; leave median_axis off.")
+    median = _median_scale(fit, lp_intercept, ppl, axis_max) if median_axis else None
+    return NomogramScales(
+        model=name if name is not None else getattr(model, "name", ""),
+        terms=tuple(terms), points_per_lp=ppl, lp_intercept=lp_intercept,
+        total_ticks=total_ticks, total_axis_max=axis_max, survival=tuple(scales),
+        median=median, time_unit=time_unit, risk_of=risk_of,
+    )
+
+
+def with_horizons(scales: NomogramScales, model, horizons: Sequence[float]) -> NomogramScales:
+    """``scales`` (from :func:`nomogram_scales` of ``model``) with its survival axes at ``horizons``.
+
+    The predictor axes, the total-points axis and the median axis do not depend on the
+    horizons, so only the survival axes are computed: the same scales as
+    ``nomogram_scales(model, horizons, ...)`` with the other arguments unchanged.
+    """
+    fit, _ = _check_model(model)
+    return replace(scales, survival=_survival_scales(fit, _horizons(horizons), scales.lp_intercept,
+                                                     scales.points_per_lp, scales.total_axis_max,
+                                                     bool(scales.risk_of)))
+
+
+def _horizons(horizons) -> np.ndarray:
+    hz = np.atleast_1d(np.asarray(horizons, dtype=float))
+    if hz.size == 0 or np.any(~np.isfinite(hz)) or np.any(hz <= 0):
+        raise SpecError(f"nomogram horizons must be positive times, for example [12, 24, 36]; got {list(hz)}.")
+    return hz
+
+
+def _survival_scales(fit, hz: np.ndarray, lp_intercept: float, ppl: float, axis_max: float,
+                     risk: bool) -> tuple[SurvivalScale, ...]:
     s0 = baseline_survival_at(fit, hz)
     if np.any(s0 >= 1.0):
         bad = hz[s0 >= 1.0]
@@ -327,17 +360,8 @@ def nomogram_scales(
     scales = []
     for h, s in zip(hz, s0, strict=True):
         base = SurvivalScale(float(h), float(s), (), lp_intercept, ppl)
-        scales.append(SurvivalScale(float(h), float(s), _survival_ticks(base, axis_max, bool(risk_of)), lp_intercept,
-                                    ppl))
-    if median_axis and risk_of:
-        raise SpecError("a risk nomogram (risk_of) has no median-survival axis; leave median_axis off.")
-    median = _median_scale(fit, lp_intercept, ppl, axis_max) if median_axis else None
-    return NomogramScales(
-        model=name if name is not None else getattr(model, "name", ""),
-        terms=tuple(terms), points_per_lp=ppl, lp_intercept=lp_intercept,
-        total_ticks=total_ticks, total_axis_max=axis_max, survival=tuple(scales),
-        median=median, time_unit=time_unit, risk_of=risk_of,
-    )
+        scales.append(SurvivalScale(float(h), float(s), _survival_ticks(base, axis_max, risk), lp_intercept, ppl))
+    return tuple(scales)
 
 
 def _signature_scale(sig: dict, ppl: float, method) -> TermScale:

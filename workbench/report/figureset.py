@@ -19,6 +19,7 @@ line, the report and the app show the same pictures:
 from __future__ import annotations
 
 import warnings
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -151,91 +152,143 @@ def study_figures(result, *, width="double") -> dict:
     text sizes and layout are chosen for that width, so draw once per width rather than
     resizing a drawn figure.
     """
-    figs = {}
-    train = result.cohort
-    unit = train.time_unit
-    horizons = tuple(result.spec.horizons)
-    evalc, where = _evaluation(result)
-    models = result.models
-    labels = {k: MODEL_LABELS.get(k, k) for k in models}
-    with warnings.catch_warnings():
-        # scoring an unseen scanner (documented fallback) warns once per call; the run log has it
-        warnings.simplefilter("ignore", WorkbenchWarning)
-        if any(n in models for n in COX_MODELS):
-            figs["nomogram"] = nomogram_figure(result, width=width)
-        top = "combined" if "combined" in models else next(iter(models))
-        m = models[top]
-        k = result.spec.models.risk_groups
-        groups = risk_groups(m.predict_risk(train).values, m.predict_risk(evalc).values, k)
-        figs["km_risk_groups"] = plot_km_by_group(
-            km_by_group(evalc.y, groups, time_unit=unit), title=f"{labels[top]}: {k} risk groups ({where})", width=width,
-            development=result.external_prepared is None, min_at_risk=result.spec.figures.min_at_risk,
-        )
-        since = min(horizons)
-        try:  # alive at the first horizon (a follow-up visit): survival after it, by the same groups
-            figs["conditional_survival"] = plot_km_by_group(
-                conditional_km_by_group(evalc.y, groups, since, time_unit=unit),
-                title=f"{labels[top]}: alive at {since:g} {unit}, by risk group ({where})", width=width,
-                development=result.external_prepared is None, min_at_risk=result.spec.figures.min_at_risk,
-                since=since)
-        except SpecError:
-            pass  # fewer than two patients or one risk group left after the visit: no figure
-        last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
-        grid = np.linspace(min(horizons) / 2, last, 15)
-        risks = {labels[k]: mm.predict_risk(evalc) for k, mm in models.items()}
-        cens_y, row_cens = train.y, None
-        if result.external_prepared is not None:  # the evaluated cohort's own weights, as in the table
-            cens_y, row_cens = evalc.y, external_censoring(result, evalc, risks)
-        # the legend's mean AUC is the results table's: over the study horizons, weighted by events
-        means = {k: r.mean_auc
-                 for k, r in td_auc_by_model(cens_y, evalc.y, risks, horizons, censoring=row_cens).items()}
-        window = ", ".join(format_number(h) for h in horizons) + f" {unit}"
-        figs["td_auc"] = plot_td_auc(td_auc_by_model(cens_y, evalc.y, risks, grid, censoring=row_cens), time_unit=unit,
-                                     horizons=horizons, title=where.capitalize(), width=width,
-                                     mean_auc=means, mean_window=f"at {window}".rstrip())
-        curves = {labels[k]: mm.predict_survival(evalc, horizons) for k, mm in models.items()}
-        cal = {name: [calibration_at(evalc.y, c, h) for h in horizons] for name, c in curves.items()}
-        figs["calibration"] = plot_calibration_panels(cal, predicted=curves, time_unit=unit, width=width,
-                                                        cohort=where)
-        h = horizons[len(horizons) // 2]
-        figs["decision_curve"] = plot_decision_curve(decision_curves(evalc.y, curves, h), time_unit=unit,
-                                                     title=where.capitalize(), width=width)
-    figs.update(_difference_and_site_figures(result, width))
-    for name in (*COX_MODELS, VOLUME_MODEL):
-        if name in models:
-            m = models[name]
-            sd = (float(np.std(m.signature_score(train), ddof=1)) if hasattr(m, "signature_score")
-                  and SIGNATURE_TERM in m.fit_.names else None)
-            figs[f"hazard_ratios_{name}"] = plot_forest(forest_table(m, signature_sd=sd), title=labels[name],
-                                                             width=width)
-    sig_model = models.get("combined")
-    sel = result.validation.selection.get("combined")
-    if sel is not None and sel.n_fits:
-        figs["selection_frequency"] = plot_selection_frequency(
-            sel.frequency, n_replicates=sel.n_fits, selected=sel.apparent,
-            title="Imaging features kept across bootstrap refits", width=width,
-        )
-    if sig_model is not None and sig_model.signature_.path_ is not None:
-        figs["coefficient_path"] = plot_coefficient_path(sig_model.signature_.path_,
-                                                         title="Imaging signature: penalised path",
-                                                         width=width)
-    for name, ph in result.ph_tests.items():
-        figs[f"ph_{name}"] = plot_schoenfeld(ph, width=width, time_unit=unit)
+    return {name: draw() for name, draw in figure_plan(result, width=width).items()}
+
+
+def figure_plan(result, *, width="double") -> dict:
+    """The figures of :func:`study_figures`, in its order, each a drawing still to be done.
+
+    Name -> a function of no argument returning the Figure. Which figures a run has is settled
+    here (cheaply); the drawing waits for the call, so one figure can be shown before the
+    others are drawn. The predictions several figures share are computed once, on first use.
+    """
+    data = _Shared(result)
+    models, horizons, width_ = result.models, data.horizons, width
+    plan = {}
+    if any(n in models for n in COX_MODELS):
+        plan["nomogram"] = lambda: nomogram_figure(result, width=width_)
+    plan["km_risk_groups"] = _quiet(lambda: plot_km_by_group(
+        km_by_group(data.evalc.y, data.groups, time_unit=data.unit),
+        title=f"{data.labels[data.top]}: {data.k} risk groups ({data.where})", width=width_,
+        development=data.development, min_at_risk=result.spec.figures.min_at_risk))
+    since = min(horizons)
+    try:  # alive at the first horizon (a follow-up visit): survival after it, by the same groups
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", WorkbenchWarning)
+            conditional = conditional_km_by_group(data.evalc.y, data.groups, since, time_unit=data.unit)
+        plan["conditional_survival"] = lambda: plot_km_by_group(
+            conditional, title=f"{data.labels[data.top]}: alive at {since:g} {data.unit}, by risk group "
+                               f"({data.where})", width=width_, development=data.development,
+            min_at_risk=result.spec.figures.min_at_risk, since=since)
+    except SpecError:
+        pass  # fewer than two patients or one risk group left after the visit: no figure
+    plan["td_auc"] = _quiet(lambda: _td_auc_figure(data, width_))
+    plan["calibration"] = _quiet(lambda: plot_calibration_panels(
+        {name: [calibration_at(data.evalc.y, c, h) for h in horizons] for name, c in data.curves.items()},
+        predicted=data.curves, time_unit=data.unit, width=width_, cohort=data.where))
+    h_dc = horizons[len(horizons) // 2]
+    plan["decision_curve"] = _quiet(lambda: plot_decision_curve(
+        decision_curves(data.evalc.y, data.curves, h_dc), time_unit=data.unit,
+        title=data.where.capitalize(), width=width_))
+    plan.update(_difference_and_site_figures(result, width))
+    plan.update(_model_figures(result, data, width))
+    return plan
+
+
+def _quiet(draw):
+    """``draw`` with the warnings of scoring an unseen scanner silenced (documented fallback; the run log has it)."""
+    def quiet():
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", WorkbenchWarning)
+            return draw()
+    return quiet
+
+
+class _Shared:
+    """The predictions several figures of a run use, computed once on first use."""
+
+    def __init__(self, result) -> None:
+        self.result = result
+        self.unit = result.cohort.time_unit
+        self.horizons = tuple(result.spec.horizons)
+        self.evalc, self.where = _evaluation(result)
+        self.development = result.external_prepared is None
+        self.labels = {k: MODEL_LABELS.get(k, k) for k in result.models}
+        self.top = "combined" if "combined" in result.models else next(iter(result.models))
+        self.k = result.spec.models.risk_groups
+
+    @cached_property
+    def groups(self):
+        m = self.result.models[self.top]
+        return risk_groups(m.predict_risk(self.result.cohort).values, m.predict_risk(self.evalc).values, self.k)
+
+    @cached_property
+    def risks(self) -> dict:
+        return {self.labels[k]: mm.predict_risk(self.evalc) for k, mm in self.result.models.items()}
+
+    @cached_property
+    def curves(self) -> dict:
+        return {self.labels[k]: mm.predict_survival(self.evalc, self.horizons) for k, mm in self.result.models.items()}
+
+
+def _td_auc_figure(data: _Shared, width):
+    result, evalc, horizons = data.result, data.evalc, data.horizons
+    last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
+    grid = np.linspace(min(horizons) / 2, last, 15)
+    cens_y, row_cens = result.cohort.y, None
+    if result.external_prepared is not None:  # the evaluated cohort's own weights, as in the table
+        cens_y, row_cens = evalc.y, external_censoring(result, evalc, data.risks)
+    # the legend's mean AUC is the results table's: over the study horizons, weighted by events
+    means = {k: r.mean_auc
+             for k, r in td_auc_by_model(cens_y, evalc.y, data.risks, horizons, censoring=row_cens).items()}
+    window = ", ".join(format_number(h) for h in horizons) + f" {data.unit}"
+    return plot_td_auc(td_auc_by_model(cens_y, evalc.y, data.risks, grid, censoring=row_cens), time_unit=data.unit,
+                       horizons=horizons, title=data.where.capitalize(), width=width,
+                       mean_auc=means, mean_window=f"at {window}".rstrip())
+
+
+def _model_figures(result, data: _Shared, width) -> dict:
+    """Hazard ratios, the signature's selection and path, the PH checks, patient flow, harmonisation, baseline."""
     from workbench.figures.baseline import plot_baseline_survival
     from workbench.figures.flow import plot_patient_flow
     from workbench.report.appendix import baseline_curves
     from workbench.report.flow import patient_flow
 
-    figs["patient_flow"] = plot_patient_flow(patient_flow(result), width=width)
+    plan = {}
+    models, train, unit = result.models, result.cohort, data.unit
+
+    def forest(name):
+        m = models[name]
+        sd = (float(np.std(m.signature_score(train), ddof=1)) if hasattr(m, "signature_score")
+              and SIGNATURE_TERM in m.fit_.names else None)
+        return plot_forest(forest_table(m, signature_sd=sd), title=data.labels[name], width=width)
+
+    for name in (*COX_MODELS, VOLUME_MODEL):
+        if name in models:
+            plan[f"hazard_ratios_{name}"] = lambda n=name: forest(n)
+    sig_model = models.get("combined")
+    sel = result.validation.selection.get("combined")
+    if sel is not None and sel.n_fits:
+        plan["selection_frequency"] = lambda: plot_selection_frequency(
+            sel.frequency, n_replicates=sel.n_fits, selected=sel.apparent,
+            title="Imaging features kept across bootstrap refits", width=width,
+        )
+    if sig_model is not None and sig_model.signature_.path_ is not None:
+        plan["coefficient_path"] = lambda: plot_coefficient_path(sig_model.signature_.path_,
+                                                                 title="Imaging signature: penalised path",
+                                                                 width=width)
+    for name, ph in result.ph_tests.items():
+        plan[f"ph_{name}"] = lambda p=ph: plot_schoenfeld(p, width=width, time_unit=unit)
+    plan["patient_flow"] = lambda: plot_patient_flow(patient_flow(result), width=width)
     if getattr(result, "harmonisation", None):
         from workbench.figures.harmonisation import plot_harmonisation_checks
 
-        figs["harmonisation_checks"] = plot_harmonisation_checks(result.harmonisation, width=width)
+        plan["harmonisation_checks"] = lambda: plot_harmonisation_checks(result.harmonisation, width=width)
     curves = baseline_curves(result)
     if curves:
-        figs["baseline_survival"] = plot_baseline_survival({labels[k]: v for k, v in curves.items()},
-                                                           horizons=horizons, time_unit=unit, width=width)
-    return figs
+        plan["baseline_survival"] = lambda: plot_baseline_survival(
+            {data.labels[k]: v for k, v in curves.items()}, horizons=data.horizons, time_unit=unit, width=width)
+    return plan
 
 
 def _difference_and_site_figures(result, width) -> dict:
@@ -245,14 +298,14 @@ def _difference_and_site_figures(result, width) -> dict:
     from workbench.report.external_text import worst_horizon
     from workbench.report.methods import unseen_batches
 
-    figs = {}
+    plan = {}
     unit = result.cohort.time_unit
     bands = (getattr(result, "difference_bands", None) or {}).get("combined")
     if bands is not None:
         base = bands["net_benefit"]["internal"].baseline
-        figs["difference_curves"] = plot_difference_curves(bands, width=width, time_unit=unit,
-                                                           model_label=MODEL_LABELS["combined"],
-                                                           baseline_label=MODEL_LABELS.get(base, base))
+        plan["difference_curves"] = lambda: plot_difference_curves(bands, width=width, time_unit=unit,
+                                                                   model_label=MODEL_LABELS["combined"],
+                                                                   baseline_label=MODEL_LABELS.get(base, base))
     groups = {k: g for k, g in (getattr(result.external, "groups", None) or {}).items() if len(g.levels) >= 2} \
         if result.external is not None else {}
     if groups:
@@ -262,11 +315,11 @@ def _difference_and_site_figures(result, width) -> dict:
         hs = list(result.external.horizons)
         h = worst_horizon({"external": {"n": result.external.n}, "models": perf,
                            "study": {"horizons": list(result.spec.horizons)}}, models, hs[len(hs) // 2])
-        figs["site_calibration"] = plot_site_calibration(
+        plan["site_calibration"] = lambda: plot_site_calibration(
             groups, horizon=h, models=models, labels={k: MODEL_LABELS.get(k, k) for k in models},
             unseen=unseen_batches(result), width=width, time_unit=unit,
             title=f"External cohort, {format_number(h)} {unit}")
-    return figs
+    return plan
 
 
 def write_figures(result, out_dir, *, formats=("png", "svg", "pdf"), widths=("double",)) -> list[Path]:

@@ -23,6 +23,7 @@ from workbench.figures.nomogram_points import (
     points_for_patient,
     points_table,
     survival_from_table,
+    with_horizons,
     write_points_table,
 )
 from workbench.models.cox import ClinicalCox
@@ -76,6 +77,26 @@ def test_points_table_reproduces_predicted_survival(demo, name, tmp_path):
     surv = pd.read_csv(surv_csv)
     assert list(surv.columns[:2]) == ["total_points", "linear_predictor"]
     assert np.all(np.diff(surv["survival_12"]) <= 0)  # survival falls as points rise
+
+
+@pytest.mark.parametrize("name", ["clinical", "combined"])
+def test_new_horizons_recompute_only_the_survival_axes(demo, name):
+    spec, cohort, models, sig, scales, rows = demo
+    new = (7.5, 18.0, 30.0)  # times that are not the study's horizons, inside the demo's follow-up
+    moved = with_horizons(scales[name], models[name], new)
+    fresh = nomogram_scales(models[name], new, signature_scores=sig if name == "combined" else None,
+                            time_unit="months", median_axis=True)
+    # the same scales as built from scratch at those horizons
+    assert moved.survival == fresh.survival and moved.total_ticks == fresh.total_ticks
+    assert (moved.points_per_lp, moved.lp_intercept) == (fresh.points_per_lp, fresh.lp_intercept)
+    pd.testing.assert_frame_equal(points_table(moved).survival, points_table(fresh).survival)
+    pd.testing.assert_frame_equal(points_table(moved).terms, points_table(fresh).terms)
+    assert moved.terms is scales[name].terms  # the predictor axes are reused, not rebuilt
+    # Reference: the model's own predicted survival at the new times (the nomogram arithmetic is exact)
+    pred = models[name].predict_survival(cohort.take(rows[:10]), new).probs
+    for k, i in enumerate(rows[:10]):
+        pp = points_for_patient(moved, patient_values(cohort, i, sig if name == "combined" else None))
+        np.testing.assert_allclose([pp.survival[h] for h in new], pred[k], atol=1e-10)
 
 
 def test_axis_scaling_follows_the_widest_term(demo):

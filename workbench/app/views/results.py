@@ -8,6 +8,7 @@ import numpy as np
 import streamlit as st
 
 from workbench.app import charts, exports, progress, roles, state, tables
+from workbench.app.light_tables import ShownTables
 from workbench.app.messages import plain
 from workbench.validation.compare import LR_CAUTION
 
@@ -143,10 +144,12 @@ def _figures(result, key) -> None:
 
 
 def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added_value=None,
-                details: bool = False) -> None:
+                details: bool = False, shown: ShownTables | None = None) -> None:
+    shown = shown or ShownTables()
     st.markdown(f"**{tables.label(comp.model)} minus {tables.label(comp.baseline)}** (validated differences; "
                 f"{comp.n_paired} paired replicates)")
-    state.table(tables.difference_table(comp, time_unit=u, headline=not details), max_rows=20)
+    shown.show(tables.difference_table(comp, time_unit=u, headline=not details),
+               f"{tables.label(comp.model)} minus {tables.label(comp.baseline)}")
     if added_value is not None:
         st.write(f"Added value of imaging given the clinical model (permutation test): cross-validated "
                  f"log-likelihood gain {added_value.observed:.1f}, p = {added_value.p_value:.3g} "
@@ -169,7 +172,7 @@ def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added
         st.caption(f"Likelihood-ratio test: {lr.note}")
     if details:
         st.markdown("**Reclassification (NRI, IDI)**")
-        state.table(tables.reclassification_table(comp, time_unit=u), max_rows=20)
+        shown.show(tables.reclassification_table(comp, time_unit=u), f"Reclassification {tables.label(comp.model)}")
         if comp.reclassification:
             st.caption(comp.reclassification[0].nri_caution)
             st.caption(comp.reclassification[0].idi_caution)
@@ -209,6 +212,7 @@ def _show(result, job) -> None:
     details = st.toggle("Show every measure: apparent values, optimism, all differences and reclassification",
                         key="results_details",
                         help="Off, the page shows the validated estimates and the headline differences only.")
+    shown, download_slot = ShownTables(), st.empty()  # the tables are static; one download for all of them
     pct = round(100 * v.conf_level)
     fewest = min(reps.values()) if reps else 0
     if fewest < tables.MIN_CI_REPLICATES:
@@ -227,10 +231,10 @@ def _show(result, job) -> None:
         how_text = (", ".join(how.get(e, e) for e in ests) + " (bootstrap)") if ests else "held out"
         st.caption(f"Validated estimate ({pct}% interval): {how_text}; cross-validation and centres: held "
                    f"out. {note}")
-        state.table(tables.wide_metric_table(v, families, time_unit=u))
+        shown.show(tables.wide_metric_table(v, families, time_unit=u), title)
         if details:
             st.markdown(f"**{title}: apparent values and optimism**")
-            state.table(tables.metric_table(v, families, time_unit=u), max_rows=20)
+            shown.show(tables.metric_table(v, families, time_unit=u), f"{title} apparent and optimism")
 
     st.subheader(f"Against the baseline: {tables.label(spec.models.baseline)}")
     try:
@@ -245,29 +249,31 @@ def _show(result, job) -> None:
             format_func=lambda m: f"{tables.label(m)} minus {tables.label(spec.models.baseline)}") or names[0]
         comp = comps[names.index(pick)] if pick in names else comps[0]
         _comparison(comp, u, roles.outcome_name(spec.data.event, spec.data.event_codes), job.key,
-                    getattr(result, "added_value", {}).get(comp.model), details)
+                    getattr(result, "added_value", {}).get(comp.model), details, shown)
     _figures(result, job.key)
     if details:
-        _conditional(result, job.key, u)
+        _conditional(result, job.key, u, shown)
 
     if result.external is not None:
         st.subheader("External validation")
         st.caption("The models fitted on all training patients, applied unchanged to the external cohort "
                    f"({result.external.n} patients, {result.external.n_events} events).")
-        state.table(tables.wide_metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
-                                             + tables.OVERALL, time_unit=u))
+        shown.show(tables.wide_metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
+                                            + tables.OVERALL, time_unit=u), "External validation")
         ext_comps = getattr(result, "external_comparisons", None) or {}
-        shown = ext_comps.get(st.session_state.get("results_comparison")) or next(iter(ext_comps.values()), None)
-        if shown is not None:
-            st.markdown(f"**External: {tables.label(shown.model)} minus {tables.label(shown.baseline)}** "
+        chosen = ext_comps.get(st.session_state.get("results_comparison")) or next(iter(ext_comps.values()), None)
+        if chosen is not None:
+            st.markdown(f"**External: {tables.label(chosen.model)} minus {tables.label(chosen.baseline)}** "
                         "(the comparison chosen above)")
-            state.table(tables.difference_table(shown, time_unit=u, headline=not details), max_rows=20)
+            shown.show(tables.difference_table(chosen, time_unit=u, headline=not details), "External difference")
         if details:
-            _by_group(getattr(result.external, "groups", None), "External cohort")
+            _by_group(getattr(result.external, "groups", None), "External cohort", shown)
     if details:
-        _by_group(getattr(result.validation, "groups", None), "Leave-one-centre-out")
+        _by_group(getattr(result.validation, "groups", None), "Leave-one-centre-out", shown)
     elif getattr(result.validation, "groups", None) or getattr(result.external, "groups", None):
         st.caption("Performance by centre and scanner: switch on 'Show every measure' at the top.")
+    shown.download(download_slot, file_name=state.study_filename(spec, ".zip", "results_tables"),
+                   key="results_tables_zip")
 
 
 @st.cache_data(show_spinner=False, max_entries=4)
@@ -297,7 +303,7 @@ def _nan(x) -> float:
     return float("nan") if x is None else float(x)
 
 
-def _conditional(result, key, u: str) -> None:
+def _conditional(result, key, u: str, shown: ShownTables) -> None:
     try:
         lead, external, df = _conditional_frame(key, result, u)
     except Exception as exc:  # noqa: BLE001
@@ -309,10 +315,10 @@ def _conditional(result, key, u: str) -> None:
     st.caption(f"Kaplan-Meier within the {tables.label(lead)} risk groups among the patients still followed at the "
                f"visit ({'external' if external else 'development'} cohort; on the development cohort the groups' "
                "separation is apparent): the chance of being alive at each later horizon, with 95% limits.")
-    state.table(df, max_rows=30)
+    shown.show(df, "Alive at a follow-up visit by risk group")
 
 
-def _by_group(groups, title: str) -> None:
+def _by_group(groups, title: str, shown: ShownTables) -> None:
     """Per-centre / per-scanner performance with its random-effects pooling (report/heterogeneity.py)."""
     if not groups:
         return
@@ -323,7 +329,7 @@ def _by_group(groups, title: str) -> None:
     st.markdown(f"**{title}: performance by centre and scanner**")
     st.caption("Each level weighted by its own censoring distribution; pooled rows: random-effects "
                "meta-analysis with the 95% prediction interval for a new site (pi_lower, pi_upper).")
-    state.table(df[keep].round(3), max_rows=60)
+    shown.show(df[keep].round(3), f"{title} by centre and scanner")
 
 
 def render() -> None:
