@@ -60,10 +60,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from workbench.competing.cif import aalen_johansen, incidence_at
 from workbench.competing.metrics import competing_brier
-from workbench.competing.outcome import IncidenceCurves
+from workbench.competing.outcome import IncidenceCurves, split_competing
 from workbench.errors import SpecError, WorkbenchError
-from workbench.validation.estimators_bootstrap import ESTIMATORS, bootstrap_estimate
+from workbench.validation.estimators_bootstrap import ESTIMATORS, bootstrap_estimate, point632plus
 from workbench.validation.intervals import cv_interval, guard
 
 __all__ = ["DEFAULT_ESTIMATOR", "ESTIMATORS", "ESTIMATOR_LABELS", "INTERVAL_ESTIMATORS", "INTERVAL_METRICS",
@@ -131,6 +132,10 @@ def no_information_table(arms_curves: dict, outcomes: dict, horizons) -> dict:
                 f = np.column_stack([curves.risk_at(t) for t in h])
                 b = one.brier * np.mean(f**2, axis=0) + zero.brier * np.mean((1.0 - f) ** 2, axis=0)
                 gam["brier"] = b
+                time, cause = split_competing(y)
+                if np.any(cause == curves.cause):
+                    marginal = incidence_at(aalen_johansen(time, cause), h, cause=curves.cause)[0]
+                    gam["ici"] = np.mean(np.abs(f - np.asarray(marginal, float)[None, :]), axis=0)
                 with np.errstate(divide="ignore", invalid="ignore"):
                     gam["ipa"] = np.where(zero.null_brier > 0, 1.0 - b / zero.null_brier, np.nan)
         except WorkbenchError:
@@ -182,10 +187,15 @@ def estimate_table(apparent: dict, rows: list[ReplicateScores], estimator: str =
                 if not diff or estimator != "632plus":
                     g_arr = (gamma or {}).get(key, {}).get(m)
                     g = np.nan if g_arr is None else float(g_arr[j])
-                    e, *_ = bootstrap_estimate(estimator, m, float(a[j]), _values(rows, key, m, j, "boot"),
-                                               _values(rows, key, m, j, "orig"), _values(rows, key, m, j, "oob"),
-                                               g, conf_level)
-                    est[j] = e
+                    u = _values(rows, key, m, j, "oob")
+                    if m == "ici" and estimator == "632plus":
+                        # the main engine has no no-information ICI; the .632+ rule is the same for any loss
+                        uu = u[np.isfinite(u)]
+                        est[j] = np.nan if not uu.size else (point632plus(float(a[j]), float(np.mean(uu)), g, False)
+                                                             if np.isfinite(g) else float(np.mean(uu)))
+                    else:
+                        est[j] = bootstrap_estimate(estimator, m, float(a[j]), _values(rows, key, m, j, "boot"),
+                                                    _values(rows, key, m, j, "orig"), u, g, conf_level)[0]
                 if estimator in INTERVAL_ESTIMATORS and m in INTERVAL_METRICS and (key[0], key[2]) in INTERVAL_ARMS:
                     lo[j], hi[j], why[j] = oob_interval(m, _values(rows, key, m, j, "oob"), est[j], ratio,
                                                         conf_level, diff)
