@@ -67,9 +67,10 @@ from workbench.errors import SpecError, WorkbenchError
 from workbench.validation.estimators_bootstrap import ESTIMATORS, bootstrap_estimate, point632plus
 from workbench.validation.intervals import cv_interval, guard
 
-__all__ = ["DEFAULT_ESTIMATOR", "ESTIMATORS", "ESTIMATOR_LABELS", "INTERVAL_ESTIMATORS", "INTERVAL_METRICS",
-           "INTERVAL_RULE", "NO_INTERVAL",
-           "ReplicateScores", "ValidatedTable", "estimate_table", "no_information_table", "oob_interval"]
+__all__ = ["DEFAULT_ESTIMATOR", "ESTIMATORS", "ESTIMATOR_LABELS", "INTERVAL_CELLS", "INTERVAL_ESTIMATORS",
+           "INTERVAL_METRICS", "INTERVAL_RULE", "NO_INTERVAL", "WITHHELD",
+           "ReplicateScores", "ValidatedTable", "estimate_table", "no_information_table", "oob_interval",
+           "withheld_notes", "withheld_reason"]
 
 DEFAULT_ESTIMATOR = "632plus"
 ESTIMATOR_LABELS = {
@@ -81,14 +82,40 @@ INTERVAL_RULE = ("corrected resampled t interval (Nadeau & Bengio 2003) of the o
                  "(1/B + n_out/n_in) times their variance, t on B - 1 df, around the estimate")
 INTERVAL_ESTIMATORS = ("632plus", "oob")
 """Estimators :func:`oob_interval` applies to."""
+INTERVAL_CELLS: dict[tuple[str, str], tuple[str, ...]] = {("cause", "cause_specific"): ("auc", "brier")}
+"""{(target, method): metrics} given an interval in the route's results (with their
+combined-minus-clinical differences): those whose coverage bench/bench_competing_validation.py
+measured in the target (see the module notes); the bench measures :func:`oob_interval`
+whatever this holds."""
 INTERVAL_METRICS: tuple[str, ...] = ("auc", "brier")
-"""Metrics given an interval in the route's results (with their combined-minus-clinical
-differences): those whose coverage bench/bench_competing_validation.py proved on 200
-simulated cohorts; the bench measures :func:`oob_interval` whatever this holds."""
-INTERVAL_ARMS = (("cause", "cause_specific"),)
-"""(target, method) pairs given intervals: the bench simulated the cause-specific Cox models of
-the cause of interest only (Fine-Gray and all-cause models: not proven, no interval)."""
+INTERVAL_ARMS = tuple(INTERVAL_CELLS)
 NO_INTERVAL = "no interval: not proven by simulation for this metric or model"
+WITHHELD: dict[tuple[str, str, str], str] = {}
+"""{(target, method, metric): the plain-language reason its interval is withheld}, where the
+bench measured it and it failed; other cells outside :data:`INTERVAL_CELLS` get :data:`NO_INTERVAL`."""
+
+
+def withheld_notes(note: dict) -> dict[str, list[tuple]]:
+    """{reason: [(target, model, method, metric), ...]} of the cells whose interval was withheld.
+
+    ``note``: the ``interval_note`` / ``note`` of a validated table; a reason counts once per
+    cell even when it applies at several horizons.
+    """
+    out: dict[str, list[tuple]] = {}
+    for (target, model, method), block in note.items():
+        for m, whys in block.items():
+            for why in dict.fromkeys(w for w in whys if w):
+                out.setdefault(why, []).append((target, model, method, m))
+    return out
+
+
+def withheld_reason(target: str, method: str, metric: str) -> str:
+    """Why the validated ``metric`` of (``target``, ``method``) gets no interval; "" if it gets one."""
+    if metric in INTERVAL_CELLS.get((target, method), ()):
+        return ""
+    return WITHHELD.get((target, method, metric), NO_INTERVAL)
+
+
 DIFFERENCE = "combined_minus_clinical"
 
 
@@ -196,11 +223,12 @@ def estimate_table(apparent: dict, rows: list[ReplicateScores], estimator: str =
                     else:
                         est[j] = bootstrap_estimate(estimator, m, float(a[j]), _values(rows, key, m, j, "boot"),
                                                     _values(rows, key, m, j, "orig"), u, g, conf_level)[0]
-                if estimator in INTERVAL_ESTIMATORS and m in INTERVAL_METRICS and (key[0], key[2]) in INTERVAL_ARMS:
+                reason = withheld_reason(key[0], key[2], m)
+                if estimator in INTERVAL_ESTIMATORS and not reason:
                     lo[j], hi[j], why[j] = oob_interval(m, _values(rows, key, m, j, "oob"), est[j], ratio,
                                                         conf_level, diff)
                 else:
-                    why[j] = NO_INTERVAL if estimator in INTERVAL_ESTIMATORS else "no interval for this estimator"
+                    why[j] = reason if estimator in INTERVAL_ESTIMATORS else "no interval for this estimator"
             opt[m], cor[m], lo_d[m], hi_d[m], why_d[m] = a - est, est, lo, hi, why
         optimism[key], corrected[key], lower[key], upper[key], note[key] = opt, cor, lo_d, hi_d, why_d
     return ValidatedTable(estimator, optimism, corrected, lower, upper, note)
