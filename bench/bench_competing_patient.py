@@ -53,6 +53,8 @@ Measured on this machine (seed 20261203, nice -n 19 on 2 shared cores):
 from __future__ import annotations
 
 import argparse
+import os
+import pickle
 import sys
 import time
 import warnings
@@ -205,12 +207,24 @@ def pipeline_cohort(r: int, n: int, patients, seed: int) -> dict:
     return out
 
 
-def run_pipeline(cohorts: int, n: int, seed: int, workers: int) -> None:
+def run_pipeline(cohorts: int, n: int, seed: int, workers: int, save: str = "", saved: str = "") -> None:
     t0 = time.perf_counter()
     patients, lp1, lp2 = demo_patients(8, seed - 1)
     h = np.asarray(study().horizons, float)
     truth = np.array([true_demo_incidence(a, b, h) for a, b in zip(lp1, lp2, strict=True)])
-    rows = Parallel(n_jobs=workers)(delayed(pipeline_cohort)(r, n, patients, seed) for r in range(cohorts))
+    if saved:  # the rows of an earlier (possibly unfinished) run
+        with open(saved, "rb") as fh:
+            rows = pickle.load(fh)
+        cohorts = len(rows)
+    else:
+        rows = []
+        for row in Parallel(n_jobs=workers, return_as="generator")(
+                delayed(pipeline_cohort)(r, n, patients, seed) for r in range(cohorts)):
+            rows.append(row)
+            if save:  # the rows so far, so that a long run can be read before it ends
+                with open(save + ".part", "wb") as fh:
+                    pickle.dump(rows, fh)
+                os.replace(save + ".part", save)
     print(f"3. Whole pipeline: {cohorts} cohorts of n = {n} from the demo generator (seed {seed}), 8 fixed patients, "
           f"horizons {', '.join(f'{t:g}' for t in h)} months; nominal coverage 0.95, MC SE sqrt(p(1-p)/R). Mean "
           f"signature size {np.mean([r[('combined', 'selected')] for r in rows]):.1f} features.")
@@ -247,9 +261,11 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=20261203)
     ap.add_argument("--pipeline", action="store_true", help="section 3 only: the demo pipeline's patient limits")
     ap.add_argument("--workers", type=int, default=1, help="parallel cohorts of section 3")
+    ap.add_argument("--save", default="", help="section 3: pickle the per-cohort rows here as they arrive")
+    ap.add_argument("--rows", default="", help="section 3: summarise the rows saved by --save instead of running")
     args = ap.parse_args()
     if args.pipeline:
-        return run_pipeline(args.cohorts, args.n, args.seed, args.workers)
+        return run_pipeline(args.cohorts, args.n, args.seed, args.workers, args.save, args.rows)
     t0 = time.perf_counter()
     rows = run(args.cohorts, args.n, args.seed)
     R = args.cohorts
