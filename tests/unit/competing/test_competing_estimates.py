@@ -97,4 +97,4 @@ def test_intervals_only_for_cohorts_as_large_as_the_design_that_proved_them():
     tab = estimate_table(both, rows, "632plus", gamma=GAMMA)
     assert np.isnan(tab.lower[COMB]["auc"][0]) and "this cohort has 150" in tab.note[COMB]["auc"][0]
     assert np.isfinite(tab.lower[("all_cause", "combined", "cause_specific")]["auc"][0])
-    assert INTERVAL_MIN_PATIENTS[("cause", "cause_specific")] == 300
+    assert INTERVAL_MIN_PATIENTS[("cause", "cause_specific", "auc")] == 300
