@@ -52,8 +52,9 @@ Fine-Gray AUC, :data:`WITHHELD` gives the reasons) and :data:`INTERVAL_MIN_PATIE
 cause-specific AUC from 300 patients, the rest from 150; no interval below the smallest
 design measured). At 150 patients .632+ is pessimistic (pooled bias, MC SE 0.004-0.014): AUC
 -0.010 to -0.031, Brier +0.004 to +0.014, IPA -0.017 to -0.070, ICI +0.026 to +0.039 (the
-.632+ ICI, with the no-information value above; out-of-bootstrap +0.035 to +0.054, Harrell
--0.008 to -0.025); Harrell's correction came closest there (AUC within 0.007). IPA intervals
+.632+ ICI, with the no-information value above; out-of-bootstrap +0.034 to +0.054, Harrell
+-0.009 to -0.017 for the combined model); Harrell's correction came closest there (AUC
+within 0.008). IPA intervals
 are wide (0.38-0.66 at 150). With more replicates the 1/B term and the t quantile make the
 interval narrower, which is intended but not measured.
 
