@@ -46,8 +46,31 @@ around the biased out-of-bootstrap estimate: difference AUC 0.905 and Brier 0.89
 months (out of target). Side by side: "plain" 0.955-0.995 (mostly over), "fixed_se"
 0.82-0.91 (under: it ignores the refitting).
 
+Second design, every model family and metric (--n 150 --replicates 12 --truth-n 10000
+--arms cs,fg,all --all-metrics --workers 2; stopped after 48 cohorts, about 65 min at a load
+of about 40 on 2 cores; 17 of 576 replicates failed; mean events 83.8 cancer, 21.3 other).
+Coverage of the "nb" rule around .632+ per cell (model x horizon, MC SE 0.02-0.05), and
+pooled over horizons (MC SE with the cohort as the unit, 0.015-0.044):
+  cause-specific  AUC 0.854-0.979 (pooled clinical 0.889, combined 0.951, difference 0.896)
+                  Brier 0.896-0.958 (0.924 / 0.931 / 0.938); IPA 0.896-0.979 (0.931 / 0.944 / 0.931)
+                  ICI 0.875-0.979 (0.924 / 0.931 / 0.924)
+  Fine-Gray       AUC 0.854-0.979 (0.910 / 0.951 / 0.868); Brier 0.896-0.979 (0.944 / 0.938 / 0.931)
+                  IPA 0.896-0.979 (0.931 / 0.944 / 0.938); ICI 0.854-0.979 (0.924 / 0.938 / 0.903)
+  all-cause Cox   AUC 0.917-0.979 (0.944 / 0.951 / 0.931); Brier 0.917-0.979 (0.951 / 0.951 / 0.938)
+                  IPA 0.938-0.979 (0.965 / 0.958 / 0.951); ICI 0.854-0.938 (0.882 / 0.917 / 0.910)
+Pooled .632+ bias at 150 (MC SE): AUC clinical -0.010 (0.009), combined -0.031 (0.007),
+difference -0.021 (0.004); Brier +0.007 / +0.014 / +0.007 (0.001-0.003); IPA -0.042 / -0.070 /
+-0.028 (0.007-0.014); ICI +0.027 / +0.027 / +0.001 (0.004-0.006) - similar for Fine-Gray;
+all-cause AUC -0.014 / -0.024 / -0.010, IPA -0.047 / -0.064 / -0.017, ICI +0.039 / +0.036.
+Per horizon, cause-specific combined (MC SE 0.004-0.018): Harrell's correction AUC -0.008 /
+-0.000 / +0.006, IPA +0.002 / -0.001 / +0.010, ICI -0.017 / -0.013 / -0.009; out-of-bootstrap
+AUC -0.057 to -0.059, IPA -0.109 to -0.133, ICI +0.034 to +0.054. At 150 patients .632+ is pessimistic beyond the 0.01 target and
+Harrell's correction is closest; at 300 .632+ was closest. Interval widths at 150: AUC
+0.24-0.33, Brier 0.09-0.12, IPA 0.38-0.66, ICI 0.15-0.18.
+
 Run: nice -n 19 .venv/bin/python bench/bench_competing_validation.py [--cohorts 100] [--n 300]
-     [--replicates 20] [--quick] [--workers 2] [--save rows.pkl]; --rows rows.pkl prints the
+     [--replicates 20] [--quick] [--workers 2] [--save rows.pkl] [--arms cs,fg,all] [--all-metrics];
+     --rows rows.pkl prints the
      tables of a saved run with the current code.
 """
 
@@ -78,7 +101,10 @@ from workbench.validation.intervals import resample_interval
 STUDY = Path(__file__).resolve().parents[1] / "demo_cohort" / "study_competing.toml"
 N_FEATURES = 60
 METRICS = ("auc", "brier")
+ALL_METRICS = ("auc", "brier", "ipa", "ici")
 MODELS = {"clinical": "clinical", "combined": "combined", "difference": "combined_minus_clinical"}
+ARMS = {"cs": ("cause", "cause_specific"), "fg": ("cause", "fine_gray"), "all": ("all_cause", "cause_specific")}
+"""Short name -> (target, method): the cause-specific Cox and Fine-Gray models of cancer death, all-cause Cox."""
 
 
 def study(replicates_seed: int = 20261203):
@@ -102,74 +128,92 @@ def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True) -> Coho
                   features=feats, batch=sim.imaging["scanner"].to_numpy(), cause=cause)
 
 
-def one_cohort(r: int, n: int, replicates: int, truth: Cohort, base_seed: int) -> dict:
-    """Every estimator (and the out-of-bootstrap interval) from one run of the route on one cohort."""
+def one_cohort(r: int, n: int, replicates: int, truth: Cohort, base_seed: int, *, arms=("cs",),
+               metrics=METRICS) -> dict:
+    """Every estimator (and the replicates' out-of-bootstrap values) from one run of the route on one cohort.
+
+    Keys (arm, model, metric, kind): arm in :data:`ARMS`, model in :data:`MODELS`; kind "truth",
+    "apparent", each estimator, and "u" (the out-of-bootstrap values, replicates x horizons).
+    """
     spec = study(base_seed + r)
     cohort = simulate_competing_cohort(n, base_seed + 1000 + r)
     h = spec.horizons
+    targets = tuple(dict.fromkeys(ARMS[a][0] for a in arms))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         # workers=1: the cohorts run in parallel, their replicates in the cohort's own process
-        v = validate_competing(cohort, spec, replicates=replicates, targets=("cause",), metrics=METRICS, workers=1)
+        v = validate_competing(cohort, spec, replicates=replicates, targets=targets, metrics=metrics, workers=1)
         tables = {e: v.table(e) for e in ESTIMATORS}
-        true = {model: evaluate_arm(v.arms[("cause", model)], truth, "cause", "cause_specific", h, METRICS)
-                for model in ("clinical", "combined")}
-    true["difference"] = {m: true["combined"][m] - true["clinical"][m] for m in METRICS}
-    ratio = float(np.mean([x.n_out / x.n_in for x in v.rows]))
-    out = {}
-    for model, name in MODELS.items():
-        key = ("cause", name, "cause_specific")
-        for m in METRICS:
-            out[(model, m, "truth")] = true[model][m]
-            out[(model, m, "apparent")] = v.apparent[key][m]
-            for e, tab in tables.items():
-                out[(model, m, e)] = tab.corrected[key][m]
-            out[(model, m, "lower")], out[(model, m, "upper")] = tables["oob"].lower[key][m], tables["oob"].upper[key][m]
-            # the replicates' out-of-bootstrap values: coverage() forms the intervals from them
-            out[(model, m, "u")] = np.array([x.oob[key][m] for x in v.rows if x.oob is not None])
+        true = {}
+        for a in arms:
+            target, method = ARMS[a]
+            for model in ("clinical", "combined"):
+                true[(a, model)] = evaluate_arm(v.arms[(target, model)], truth, target, method, h, metrics)
+            true[(a, "difference")] = {m: true[(a, "combined")][m] - true[(a, "clinical")][m] for m in metrics}
+    out = {"ratio": float(np.mean([x.n_out / x.n_in for x in v.rows]))}
+    for a in arms:
+        target, method = ARMS[a]
+        for model, name in MODELS.items():
+            key = (target, name, method)
+            for m in metrics:
+                out[(a, model, m, "truth")] = true[(a, model)][m]
+                out[(a, model, m, "apparent")] = v.apparent[key][m]
+                for e, tab in tables.items():
+                    out[(a, model, m, e)] = tab.corrected[key][m]
+                # the replicates' out-of-bootstrap values: coverage() forms the intervals from them
+                out[(a, model, m, "u")] = np.array([x.oob[key][m] for x in v.rows if x.oob is not None])
     # side by side, not reported by the route: oob estimate -+ 1.96 x the asymptotic SE of the apparent fit's AUC
     # on all rows (fixed predictions; Blanche et al. 2013)
-    for model in ("clinical", "combined"):
-        curves = v.arms[("cause", model)].predict(cohort, h, "cause_specific")
-        y = target_outcome(cohort, "cause")
-        se = np.array([competing_auc(y, y, curves, t).std_err for t in h])
-        out[(model, "auc", "fixed_se")] = se
+    if "cs" in arms:
+        for model in ("clinical", "combined"):
+            curves = v.arms[("cause", model)].predict(cohort, h, "cause_specific")
+            y = target_outcome(cohort, "cause")
+            se = np.array([competing_auc(y, y, curves, t).std_err for t in h])
+            out[("cs", model, "auc", "fixed_se")] = se
     out["failed"] = v.failed
     out["n"], out["replicates"], out["truth_n"] = n, replicates, truth.n
-    out["ratio"] = ratio
+    out["arms"], out["metrics"] = tuple(arms), tuple(metrics)
+    out["events"] = (int(np.sum(cohort.cause == 1)), int(np.sum(cohort.cause == 2)))
     return out
+
+
+def _design(rows: list[dict]):
+    return rows[0].get("arms", ("cs",)), rows[0].get("metrics", METRICS)
 
 
 def summarise(rows: list[dict], horizons) -> pd.DataFrame:
     """Bias (estimate minus truth) of every estimator, with its MC SE."""
     lines = []
-    for model in MODELS:
-        for m in METRICS:
-            truth = np.array([r[(model, m, "truth")] for r in rows])
-            for kind in ("apparent", *ESTIMATORS):
-                est = np.array([r[(model, m, kind)] for r in rows])
-                d = est - truth
-                ok = np.isfinite(d)
-                for j, t in enumerate(horizons):
-                    dj = d[ok[:, j], j]
-                    lines.append({"model": model, "metric": m, "estimator": kind, "horizon": t,
-                                  "mean_est": np.nanmean(est[:, j]), "mean_truth": np.nanmean(truth[:, j]),
-                                  "bias": dj.mean(), "mc_se": dj.std(ddof=1) / np.sqrt(dj.size),
-                                  "sd_err": dj.std(ddof=1), "cohorts": dj.size})
+    arms, metrics = _design(rows)
+    for a in arms:
+        for model in MODELS:
+            for m in metrics:
+                truth = np.array([r[(a, model, m, "truth")] for r in rows])
+                for kind in ("apparent", *ESTIMATORS):
+                    est = np.array([r[(a, model, m, kind)] for r in rows])
+                    d = est - truth
+                    ok = np.isfinite(d)
+                    for j, t in enumerate(horizons):
+                        dj = d[ok[:, j], j]
+                        lines.append({"arm": a, "model": model, "metric": m, "estimator": kind, "horizon": t,
+                                      "mean_est": np.nanmean(est[:, j]), "mean_truth": np.nanmean(truth[:, j]),
+                                      "bias": dj.mean(), "mc_se": dj.std(ddof=1) / np.sqrt(dj.size),
+                                      "sd_err": dj.std(ddof=1), "cohorts": dj.size})
     return pd.DataFrame(lines)
 
 
-def _limits(r: dict, model: str, m: str, rule: str, horizons, estimator: str = "oob"):
+def _limits(r: dict, model: str, m: str, rule: str, horizons, estimator: str = "oob", arm: str = "cs"):
     """Interval limits of one cohort's ``estimator`` by ``rule`` (arrays over the horizons)."""
-    est, u = r[(model, m, estimator)], r[(model, m, "u")]
+    est, u = r[(arm, model, m, estimator)], r[(arm, model, m, "u")]
     lo, hi = np.full(len(horizons), np.nan), np.full(len(horizons), np.nan)
+    fixed = r.get((arm, model, m, "fixed_se"))
     for j in range(len(horizons)):
         if rule == "nb":  # the route's rule: Nadeau-Bengio variance of the U_b, around the estimate
             lo[j], hi[j], _ = oob_interval(m, u[:, j], est[j], r["ratio"], 0.95, model == "difference")
         elif rule == "plain":  # t sd(U_b) sqrt(1 + 1/B): no 1/B + n_out/n_in factor
             lo[j], hi[j] = resample_interval(u[:, j], est[j], 0.95)
-        elif (model, m, "fixed_se") in r:  # 1.96 x the apparent fit's asymptotic AUC SE (fixed predictions)
-            lo[j], hi[j] = est[j] - 1.96 * r[(model, m, "fixed_se")][j], est[j] + 1.96 * r[(model, m, "fixed_se")][j]
+        elif fixed is not None:  # 1.96 x the apparent fit's asymptotic AUC SE (fixed predictions)
+            lo[j], hi[j] = est[j] - 1.96 * fixed[j], est[j] + 1.96 * fixed[j]
     return lo, hi
 
 
@@ -179,24 +223,54 @@ RULES = (("oob", "nb"), ("632plus", "nb"), ("oob", "plain"), ("oob", "fixed_se")
 def coverage(rows: list[dict], horizons) -> pd.DataFrame:
     """Coverage of the truth by 95% intervals around the oob and .632+ estimates, with MC SE."""
     lines = []
-    for model in MODELS:
-        for m in METRICS:
-            truth = np.array([r[(model, m, "truth")] for r in rows])
-            for estimator, rule in RULES:
-                if rule == "fixed_se" and (model, m, "fixed_se") not in rows[0]:
-                    continue
-                est = np.array([r[(model, m, estimator)] for r in rows])
-                lims = [_limits(r, model, m, rule, horizons, estimator) for r in rows]
-                lo, hi = np.array([x[0] for x in lims]), np.array([x[1] for x in lims])
-                for j, t in enumerate(horizons):
-                    ok = np.isfinite(lo[:, j]) & np.isfinite(truth[:, j])
-                    hit = (lo[ok, j] <= truth[ok, j]) & (truth[ok, j] <= hi[ok, j])
-                    p = hit.mean() if hit.size else np.nan
-                    lines.append({"model": model, "metric": m, "estimator": estimator, "rule": rule, "horizon": t,
-                                  "coverage": p, "mc_se": np.sqrt(p * (1 - p) / max(hit.size, 1)),
-                                  "cohorts": int(hit.size), "mean_width": np.mean(hi[ok, j] - lo[ok, j]),
-                                  "sd_err": np.std(est[ok, j] - truth[ok, j], ddof=1),
-                                  "in_target": bool(0.92 <= p <= 0.98)})
+    arms, metrics = _design(rows)
+    for a in arms:
+        for model in MODELS:
+            for m in metrics:
+                truth = np.array([r[(a, model, m, "truth")] for r in rows])
+                for estimator, rule in RULES:
+                    if rule == "fixed_se" and (a, model, m, "fixed_se") not in rows[0]:
+                        continue
+                    est = np.array([r[(a, model, m, estimator)] for r in rows])
+                    lims = [_limits(r, model, m, rule, horizons, estimator, a) for r in rows]
+                    lo, hi = np.array([x[0] for x in lims]), np.array([x[1] for x in lims])
+                    for j, t in enumerate(horizons):
+                        ok = np.isfinite(lo[:, j]) & np.isfinite(truth[:, j])
+                        hit = (lo[ok, j] <= truth[ok, j]) & (truth[ok, j] <= hi[ok, j])
+                        p = hit.mean() if hit.size else np.nan
+                        lines.append({"arm": a, "model": model, "metric": m, "estimator": estimator, "rule": rule,
+                                      "horizon": t, "coverage": p, "mc_se": np.sqrt(p * (1 - p) / max(hit.size, 1)),
+                                      "cohorts": int(hit.size), "mean_width": np.mean(hi[ok, j] - lo[ok, j]),
+                                      "sd_err": np.std(est[ok, j] - truth[ok, j], ddof=1),
+                                      "in_target": bool(0.92 <= p <= 0.98)})
+    return pd.DataFrame(lines)
+
+
+def pooled_coverage(rows: list[dict], horizons, estimator: str = "632plus") -> pd.DataFrame:
+    """The route's rule around ``estimator`` pooled over the horizons, per arm, model and metric.
+
+    MC SE with the cohort as the unit (the horizons of one cohort are correlated): SD over cohorts
+    of the cohort's hit rate / sqrt(cohorts). Also the mean bias over horizons with its MC SE.
+    """
+    lines = []
+    arms, metrics = _design(rows)
+    for a in arms:
+        for model in MODELS:
+            for m in metrics:
+                hits, errs = [], []
+                for r in rows:
+                    lo, hi = _limits(r, model, m, "nb", horizons, estimator, a)
+                    t = r[(a, model, m, "truth")]
+                    ok = np.isfinite(lo) & np.isfinite(t)
+                    if ok.any():
+                        hits.append(np.mean((lo[ok] <= t[ok]) & (t[ok] <= hi[ok])))
+                    d = r[(a, model, m, estimator)] - t
+                    if np.isfinite(d).any():
+                        errs.append(np.nanmean(d))
+                hits, errs = np.array(hits), np.array(errs)
+                lines.append({"arm": a, "model": model, "metric": m, "coverage": hits.mean(),
+                              "mc_se": hits.std(ddof=1) / np.sqrt(hits.size), "bias": errs.mean(),
+                              "bias_mc_se": errs.std(ddof=1) / np.sqrt(errs.size), "cohorts": hits.size})
     return pd.DataFrame(lines)
 
 
@@ -211,6 +285,9 @@ def main(argv=None) -> pd.DataFrame:
     ap.add_argument("--save", default="", help="pickle the per-cohort rows here as they arrive")
     ap.add_argument("--rows", default="", help="summarise the rows saved by --save instead of running")
     ap.add_argument("--quick", action="store_true", help="12 cohorts, 8 replicates, truth from 8,000 patients")
+    ap.add_argument("--arms", default="cs", help="comma-separated of cs (cause-specific Cox), fg (Fine-Gray), "
+                    "all (all-cause Cox); default cs")
+    ap.add_argument("--all-metrics", action="store_true", help="also the IPA and ICI (default: AUC and Brier)")
     a = ap.parse_args(argv)
     if a.quick:
         a.cohorts, a.replicates, a.truth_n = 12, 8, 8_000
@@ -223,7 +300,8 @@ def main(argv=None) -> pd.DataFrame:
     truth = simulate_competing_cohort(a.truth_n, a.seed - 1, censor=False)
     rows = []
     for row in Parallel(n_jobs=a.workers, return_as="generator")(
-            delayed(one_cohort)(r, a.n, a.replicates, truth, a.seed) for r in range(a.cohorts)):
+            delayed(one_cohort)(r, a.n, a.replicates, truth, a.seed, arms=tuple(a.arms.split(",")),
+                                metrics=ALL_METRICS if a.all_metrics else METRICS) for r in range(a.cohorts)):
         rows.append(row)
         if a.save:  # the rows so far, so that a long run can be read before it ends
             with open(a.save + ".part", "wb") as fh:
@@ -239,15 +317,18 @@ def _print(rows: list[dict], a, start: float) -> pd.DataFrame:
     print(f"Competing-risks route, bootstrap validation: {a.cohorts} cohorts of {a.n} patients, "
           f"{N_FEATURES} imaging features, {a.replicates} replicates each; truth from {a.truth_n} uncensored "
           f"patients. Failed replicates in all: {sum(r['failed'] for r in rows)}; mean n_out/n_in "
-          f"{np.mean([r['ratio'] for r in rows]):.3f}. Nominal bias 0 (target |bias| <= 0.01); "
+          f"{np.mean([r['ratio'] for r in rows]):.3f}; mean events (cancer, other) "
+          f"{np.mean([r.get('events', (np.nan, np.nan)) for r in rows], axis=0).round(1)}. Nominal bias 0 (target |bias| <= 0.01); "
           "model 'difference' = combined minus clinical.")
-    with pd.option_context("display.width", 160, "display.max_rows", 400):
+    with pd.option_context("display.width", 180, "display.max_rows", 2000):
         print(table.round(4).to_string(index=False))
         print("\nCoverage of 95% intervals (target 0.92-0.98; MC SE sqrt(p(1-p)/cohorts)). Rules: 'nb' the route's "
               "(workbench.competing.estimates.oob_interval: Nadeau-Bengio variance of the out-of-bootstrap values) "
               "around the estimator's estimate; side by side only: 'plain' t sd(U_b) sqrt(1 + 1/B), 'fixed_se' "
               "1.96 x the apparent fit's asymptotic AUC SE")
         print(cov.round(4).to_string(index=False))
+        print("\nThe route's rule around .632+, pooled over the horizons (MC SE: cohort as the unit):")
+        print(pooled_coverage(rows, horizons).round(4).to_string(index=False))
     print(f"wall time {time.time() - start:.0f} s with {a.workers} workers")
     return table
 

@@ -18,6 +18,7 @@ from workbench import __version__
 from workbench.errors import WorkbenchError
 
 EXIT_USER_ERROR = 2
+COMPETING_ESTIMATORS = ("632plus", "oob", "optimism")  # workbench.competing.estimates.ESTIMATORS, kept light here
 
 
 def _split_list(text: str | None) -> tuple[str, ...] | None:
@@ -179,7 +180,8 @@ def _cmd_competing(args) -> int:
     out = check_out_folder(args.out, _protected_inputs(args.study, spec), markers=("competing_results.json",))
     replacing = out.is_dir() and any(out.iterdir())
     bar = None if args.quiet else tqdm_progress("competing-risks bootstrap", file=sys.stderr)
-    result = run_competing(spec, replicates=args.replicates, progress=bar, workers=args.workers)
+    result = run_competing(spec, replicates=args.replicates, progress=bar, workers=args.workers,
+                           estimator=args.estimator)
     args.console.show_all(result.warnings)
     with atomic_folder(out) as tmp:
         written = write_competing_folder(result, tmp, figures=not args.no_figures)
@@ -379,6 +381,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--replicates", type=_count(0), metavar="N",
                    help="override the number of bootstrap replicates (0: apparent performance only)")
     p.add_argument("--workers", type=_count(1), metavar="N", help="override the number of parallel workers")
+    p.add_argument("--estimator", choices=COMPETING_ESTIMATORS, default="632plus",
+                   help="how the bootstrap replicates turn into validated metrics: 632plus (default; Efron and "
+                        "Tibshirani's .632+ rule), oob (refits judged only on the patients left out of each "
+                        "replicate) or optimism (Harrell's optimism correction). The choice is written to the "
+                        "summary and to competing_results.json")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-figures", action="store_true", help="skip the figures")
     p.set_defaults(func=_cmd_competing)

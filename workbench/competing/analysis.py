@@ -13,10 +13,12 @@ on the bootstrap rows and judged on them, on the original rows and on the patien
 not drawn into the sample. The validated estimate is by default Efron & Tibshirani's
 .632+ (the one whose bias met the target in bench/bench_competing_validation.py);
 out-of-bootstrap and Harrell's optimism correction stay selectable
-(:mod:`workbench.competing.estimates`). The AUC and Brier score (and their
-combined-minus-clinical differences) of the cause-specific Cox models of the cause of
-interest get a 95% interval whose coverage the same bench measured; the IPA, ICI,
-Fine-Gray and all-cause models none (not simulated).
+(:mod:`workbench.competing.estimates`; ``workbench competing --estimator``). A 95%
+interval is given where the same bench measured its coverage in the target
+(:data:`workbench.competing.estimates.INTERVAL_CELLS`, from a cohort size on):
+AUC, Brier score and IPA of the cause-specific and all-cause Cox models, Brier score and
+IPA of Fine-Gray, and their combined-minus-clinical differences; the ICI and the Fine-Gray
+AUC none, each with its reason in the results.
 """
 
 from __future__ import annotations

@@ -18,7 +18,7 @@ import numpy as np
 from workbench.cohort.summary import CAUTION
 from workbench.competing.analysis import METRICS, CompetingStudyResult
 from workbench.competing.cif import incidence_at
-from workbench.competing.estimates import INTERVAL_RULE
+from workbench.competing.estimates import INTERVAL_RULE, withheld_notes
 from workbench.report.competing_figures import cause_labels
 
 __all__ = ["FORMAT", "competing_results_dict", "format_competing", "write_competing_folder"]
@@ -156,6 +156,21 @@ def write_competing_folder(result: CompetingStudyResult, out, *, figures: bool =
     return written
 
 
+def withheld_lines(result: CompetingStudyResult) -> list[str]:
+    """One line per reason an interval was withheld: the metrics and models it applies to, then the reason."""
+    if not result.replicates:
+        return []
+    words = {"auc": "AUC", "brier": "Brier", "ipa": "IPA", "ici": "ICI"}
+    out = []
+    for why, cells in withheld_notes(result.interval_note).items():
+        arms: dict = {}
+        for t, _model, meth, m in cells:
+            arms.setdefault(f"{'all-cause' if t == 'all_cause' else 'cause of interest'}, {meth}", {})[m] = None
+        where = "; ".join(f"{arm} ({', '.join(words.get(m, m) for m in ms)})" for arm, ms in arms.items())
+        out.append(f"{where}: {why}")
+    return out
+
+
 def format_competing(result: CompetingStudyResult) -> str:
     """A short console summary ending with the caution."""
     h = result.horizons
@@ -184,6 +199,10 @@ def format_competing(result: CompetingStudyResult) -> str:
             cells = [f"{x:.3f} ({a:.3f} to {b:.3f})" if np.isfinite(a) else f"{x:.3f} (no interval)"
                      for x, a, b in zip(est, lo, hi, strict=True)]
             lines.append(f"  {name:<58} {'; '.join(cells)}")
+    withheld = withheld_lines(result)
+    if withheld:
+        lines.append("Validated estimates shown without an interval, and why:")
+        lines += [f"  {x}" for x in withheld]
     if result.external is not None:
         e = result.external_prepared.cohort
         lines.append(f"External cohort, {e.n} patients ({int(np.sum(e.cause == 1))} {labels[1]}, "

@@ -19,6 +19,7 @@ from workbench.competing.fitting import fit_arm
 from workbench.errors import CohortError, ModelError
 from workbench.estimate import patient_cohort
 from workbench.estimate_competing import (
+    SIGNATURE_LIMITS_WITHHELD,
     arm_training_design,
     competing_ranges,
     estimate_competing_patient,
@@ -64,6 +65,10 @@ def test_imaging_values_and_their_score_give_the_same_estimate(small):
     np.testing.assert_allclose(a.fine_gray.risk[0], arm.predict(one, spec.horizons, "fine_gray").risks[0],
                                rtol=0, atol=1e-12)
     assert any("signature as fixed" in n for n in a.notes)
+    # limits withheld (bench_competing_patient.py --pipeline measured them too narrow), estimate kept
+    for r in (a.fine_gray, a.cause_specific):
+        assert np.all(np.isnan(r.lower)) and np.all(np.isnan(r.upper)) and np.all(np.isfinite(r.risk))
+    assert np.all(np.isnan(a.cause_specific.event_free_lower)) and SIGNATURE_LIMITS_WITHHELD in a.notes
 
 
 def test_training_design_is_the_one_the_arm_was_fitted_on(small):
@@ -98,4 +103,5 @@ def test_command_with_a_signature_score(small, capsys):
     assert main(["competing-estimate", str(path), "--model", "combined", "--signature-score", "0.2", *args]) == 0
     out = capsys.readouterr().out
     assert "combined model" in out and "Signature score: 0.2" in out
+    assert "(no limits)" in out and "CI" not in out and "nan" not in out
     assert out.rstrip().endswith(f"Caution: {CAUTION}")

@@ -15,6 +15,8 @@ from scipy.stats import t as t_dist
 
 from workbench.competing.estimates import (
     DEFAULT_ESTIMATOR,
+    INTERVAL_MIN_PATIENTS,
+    WITHHELD,
     ReplicateScores,
     estimate_table,
     oob_interval,
@@ -79,5 +81,20 @@ def test_intervals_only_for_the_proven_metrics():
     tab = estimate_table(apparent, rows, "632plus", gamma=GAMMA)
     assert np.isfinite(tab.lower[COMB]["auc"][0]) and tab.lower[COMB]["auc"][0] < tab.corrected[COMB]["auc"][0]
     assert np.isfinite(tab.lower[DIFF]["auc"][0])
-    assert np.isnan(tab.lower[COMB]["ici"][0]) and "not proven" in tab.note[COMB]["ici"][0]
+    assert np.isnan(tab.lower[COMB]["ici"][0]) and tab.note[COMB]["ici"][0] == WITHHELD[("cause", "cause_specific",
+                                                                                          "ici")]
     assert np.isnan(estimate_table(apparent, rows, "optimism").lower[COMB]["auc"][0])
+
+
+def test_intervals_only_for_cohorts_as_large_as_the_design_that_proved_them():
+    # 75 + 75 distinct patients: below the 300 of the cause-specific interval, at the 150 of the all-cause one
+    both = {**APPARENT, **{("all_cause", k[1], "cause_specific"): v for k, v in APPARENT.items()}}
+    rows = [ReplicateScores(*({**getattr(r, a), **{("all_cause", k[1], "cause_specific"): getattr(r, a)[k]
+                                                   for k in getattr(r, a)}} for a in ("boot", "orig", "oob")), 75, 75)
+            for r in ROWS]
+    rows = [ReplicateScores(r.boot, r.orig, {k: {m: v + 0.002 * i for m, v in d.items()} for k, d in r.oob.items()},
+                            r.n_in, r.n_out) for i, r in enumerate(rows * 6)]
+    tab = estimate_table(both, rows, "632plus", gamma=GAMMA)
+    assert np.isnan(tab.lower[COMB]["auc"][0]) and "this cohort has 150" in tab.note[COMB]["auc"][0]
+    assert np.isfinite(tab.lower[("all_cause", "combined", "cause_specific")]["auc"][0])
+    assert INTERVAL_MIN_PATIENTS[("cause", "cause_specific", "auc")] == 300

@@ -13,7 +13,8 @@ import pandas as pd
 import streamlit as st
 
 from workbench.app import charts, state
-from workbench.competing.estimates import INTERVAL_ESTIMATORS, INTERVAL_RULE
+from workbench.competing.estimates import INTERVAL_CELLS, INTERVAL_ESTIMATORS, INTERVAL_RULE
+from workbench.report.competing import withheld_lines
 
 TARGET_WORDS = {"cause": "cause of interest", "all_cause": "death from any cause"}
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
@@ -50,8 +51,10 @@ def corrected_table(result) -> pd.DataFrame:
 def interval_words(result) -> str:
     """What the intervals of the validated table are, or why there are none."""
     if any(np.any(np.isfinite(b[m])) for b in result.lower.values() for m in b):
-        return (f"95% intervals for the AUC and Brier score of the cause-specific Cox models of the cause of "
-                f"interest: {INTERVAL_RULE}; none elsewhere (not proven by simulation).")
+        shown = "; ".join(f"{TARGET_WORDS.get(t, t)}, {METHOD_WORDS.get(meth, meth)}: {', '.join(ms)}"
+                          for (t, meth), ms in INTERVAL_CELLS.items())
+        why = " ".join(f"Without an interval: {x}." for x in withheld_lines(result))
+        return f"95% intervals ({INTERVAL_RULE}) for {shown}. {why}".strip()
     return ("No intervals: fewer than 10 bootstrap replicates with a value."
             if result.estimator in INTERVAL_ESTIMATORS else "No intervals: this estimator has none.")
 

@@ -8,6 +8,7 @@ signature model the patient's signature score is typed in place of the imaging v
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import streamlit as st
 
@@ -26,8 +27,9 @@ def estimate_frame(est) -> pd.DataFrame:
     for (route, what), g in long.groupby(["route", "quantity"], sort=False):
         row = {"Model": route, "Probability": what}
         for _, r in g.iterrows():
-            row[f"By {r['horizon']:g} {est.time_unit}"] = (
-                f"{100 * r['estimate']:.1f}% ({100 * r['lower']:.1f}% to {100 * r['upper']:.1f}%)")
+            limits = (f" ({100 * r['lower']:.1f}% to {100 * r['upper']:.1f}%)"
+                      if np.isfinite(r["lower"]) and np.isfinite(r["upper"]) else " (no limits)")
+            row[f"By {r['horizon']:g} {est.time_unit}"] = f"{100 * r['estimate']:.1f}%{limits}"
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -74,7 +76,8 @@ def render_patient(result) -> None:
     st.subheader("One patient's absolute risk of each cause")
     st.caption("From the models fitted on all patients: the risk of the cause of interest by Fine-Gray, and of "
                "each cause together with the chance of no event by the cause-specific Cox models, with 95% "
-               "limits (influence-function standard errors).")
+               "limits (influence-function standard errors) for the clinical model; the clinical + signature "
+               "model's estimate is shown without limits (see the note under it).")
     models = [m for (target, m) in result.arms if target == "cause"]
     name = st.radio("Model", models, format_func=lambda m: MODEL_WORDS.get(m, m), horizontal=True,
                     key="cpe_model")
