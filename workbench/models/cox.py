@@ -249,6 +249,16 @@ class CombinedCox(_CoxBase):
         model by the calibration slope of the cross-fitted linear predictor
         (the whole model refitted without each fold) and re-estimates the
         baseline hazard (van Houwelingen & le Cessie 1990).
+    cross_fit : {"inner_folds", "refit"}, default "inner_folds"
+        How the cross-fitted signatures are made. ``"inner_folds"``: they are the
+        fold fits of the signature's own penalty choice at the penalty it chose (a
+        shared penalty; the harmonisation, scaling and unsupervised filters learned
+        once on all rows), so pre-validation costs no extra path; its folds are the
+        ``prevalidation_folds`` patient-grouped folds. A fold's scores have seen that
+        fold's outcomes only through the one penalty. Signatures with an outcome
+        screen or stability selection fall back to ``"refit"``. ``"refit"``: the
+        whole signature, with its own inner cross-validation, refitted without each
+        fold (about six times the cost; the older behaviour).
 
     Attributes
     ----------
@@ -279,6 +289,7 @@ class CombinedCox(_CoxBase):
         coefficient: str = "prevalidated",
         prevalidation_folds: int = 5,
         shrinkage: str = "none",
+        cross_fit: str = "inner_folds",
     ):
         self.predictors = predictors
         self.signature = signature
@@ -288,6 +299,7 @@ class CombinedCox(_CoxBase):
         self.coefficient = coefficient
         self.prevalidation_folds = prevalidation_folds
         self.shrinkage = shrinkage
+        self.cross_fit = cross_fit
 
     def _protected(self, cohort: Cohort) -> np.ndarray | None:
         if not self.protect:
@@ -319,10 +331,26 @@ class CombinedCox(_CoxBase):
             return design.X
         return np.column_stack([design.X, self.signature_score(cohort)])
 
+    def _prevalidation_fold(self, cohort: Cohort) -> np.ndarray:
+        seed = getattr(self.signature, "random_state", None)
+        return patient_folds(cohort.ids, cohort.event, int(self.prevalidation_folds), random_state=seed)
+
+    def _inner_fold_fit(self, X_clin: np.ndarray, cohort: Cohort, names, fold_scores):
+        """Out-of-fold scores and linear predictors from the signature's own fold fits."""
+        fold, S = fold_scores.fold, fold_scores.scores
+        oof_score = fold_scores.out_of_fold
+        oof_lp = np.zeros(cohort.n)
+        if self.shrinkage == "cross_validated_slope":
+            for k in np.unique(fold):
+                tr, te = fold != k, fold == k
+                f = fit_coxph(np.column_stack([X_clin[tr], S[tr, k]]), cohort.time[tr], cohort.event[tr],
+                              ties=self.ties, names=names, min_events_per_parameter=0)
+                oof_lp[te] = linear_predictor(f, np.column_stack([X_clin[te], oof_score[te]]))
+        return oof_score, oof_lp
+
     def _cross_fit(self, cohort: Cohort, X_clin: np.ndarray, names):
         """Out-of-fold signature scores and (for shrinkage) out-of-fold linear predictors."""
-        seed = getattr(self.signature, "random_state", None)
-        fold = patient_folds(cohort.ids, cohort.event, int(self.prevalidation_folds), random_state=seed)
+        fold = self._prevalidation_fold(cohort)
         oof_score = np.zeros(cohort.n)
         oof_lp = np.zeros(cohort.n)
         want_lp = self.shrinkage == "cross_validated_slope"
@@ -349,15 +377,23 @@ class CombinedCox(_CoxBase):
             raise ModelError(f"CombinedCox coefficient {self.coefficient!r}; choose 'prevalidated' or 'in_sample'.")
         if self.shrinkage not in ("none", "cross_validated_slope"):
             raise ModelError(f"CombinedCox shrinkage {self.shrinkage!r}; choose 'none' or 'cross_validated_slope'.")
+        cross_fit = self.cross_fit
+        if cross_fit not in ("inner_folds", "refit"):
+            raise ModelError(f"CombinedCox cross_fit {cross_fit!r}; choose 'inner_folds' or 'refit'.")
         self.transformer_ = ClinicalTransformer(tuple(self.predictors)).fit(cohort)
         self.feature_medians_ = cohort.features.median().to_dict()
-        self.signature_ = clone(self.signature).fit(
-            self._features(cohort),
-            cohort.y,
-            groups=cohort.ids,
-            batch=cohort.batch,
-            covariates=self._protected(cohort),
-        )
+        sig = clone(self.signature)
+        fit_kw = dict(groups=cohort.ids, batch=cohort.batch, covariates=self._protected(cohort))
+        fold_scores = None
+        if cross_fit == "inner_folds" and (self.coefficient == "prevalidated" or self.shrinkage != "none"):
+            # the signature's own folds when they are the pre-validation folds (then its fit
+            # is the one "refit" makes), else the pre-validation folds imposed on it
+            same = int(getattr(sig, "n_folds", -1)) == int(self.prevalidation_folds)
+            folds = None if same else self._prevalidation_fold(cohort)
+            _, fold_scores = sig.fit_fold_scores(self._features(cohort), cohort.y, folds=folds, **fit_kw)
+        else:
+            sig.fit(self._features(cohort), cohort.y, **fit_kw)
+        self.signature_ = sig
         self.selected_features_ = tuple(self.signature_.selected_features_)
         X = self._design(cohort)
         names = (*self.transformer_.columns_, SIGNATURE_TERM) if self.selected_features_ else self.transformer_.columns_
@@ -370,7 +406,10 @@ class CombinedCox(_CoxBase):
             return self
         X_clin = X[:, :-1]
         try:
-            oof_score, oof_lp = self._cross_fit(cohort, X_clin, names)
+            if fold_scores is not None:
+                oof_score, oof_lp = self._inner_fold_fit(X_clin, cohort, names, fold_scores)
+            else:
+                oof_score, oof_lp = self._cross_fit(cohort, X_clin, names)
         except WorkbenchError as exc:
             # e.g. a scanner batch found only in one fold: say so and keep the in-sample fit
             self.coefficient_source_ = f"in_sample (cross-fitting failed: {exc})"
