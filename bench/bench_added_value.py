@@ -170,6 +170,8 @@ def main(argv=None):
             ps_, lr_, k_, z_, cpu_ = one(sim_cohort(a.n, a.p, base + r, effect), preds, a.K, a.folds, base + r,
                                           a.rule)
             rows[label].append({"cohort": r, "p": ps_, "lr_p": lr_, "size": k_, "zeros": z_, "cpu": cpu_})
+            if a.out:  # after every cohort, so a run stopped early still leaves its cohorts
+                Path(a.out).write_text(json.dumps(rows))
             if (r + 1 - a.first) % 25 == 0:
                 print(f"  {label}: {r + 1 - a.first}/{R} cohorts, {time.time() - t0:.0f} s", flush=True)
     if a.out:

@@ -254,9 +254,11 @@ class CombinedCox(_CoxBase):
         fold fits of the signature's own penalty choice at the penalty it chose (a
         shared penalty; the harmonisation, scaling and unsupervised filters learned
         once on all rows), so pre-validation costs no extra path; its folds are the
-        ``prevalidation_folds`` patient-grouped folds. A fold's scores have seen that
-        fold's outcomes only through the one penalty. Signatures with an outcome
-        screen or stability selection fall back to ``"refit"``. ``"refit"``: the
+        signature's own patient-grouped folds. A fold's scores have seen that fold's
+        outcomes only through the one penalty. Falls back to ``"refit"`` when the
+        signature's ``n_folds`` differs from ``prevalidation_folds`` (the signature
+        fitted on all rows never depends on the route), and for signatures with an
+        outcome screen or stability selection. ``"refit"``: the
         whole signature, with its own inner cross-validation, refitted without each
         fold (about six times the cost; the older behaviour).
 
@@ -385,12 +387,12 @@ class CombinedCox(_CoxBase):
         sig = clone(self.signature)
         fit_kw = dict(groups=cohort.ids, batch=cohort.batch, covariates=self._protected(cohort))
         fold_scores = None
-        if cross_fit == "inner_folds" and (self.coefficient == "prevalidated" or self.shrinkage != "none"):
-            # the signature's own folds when they are the pre-validation folds (then its fit
-            # is the one "refit" makes), else the pre-validation folds imposed on it
-            same = int(getattr(sig, "n_folds", -1)) == int(self.prevalidation_folds)
-            folds = None if same else self._prevalidation_fold(cohort)
-            _, fold_scores = sig.fit_fold_scores(self._features(cohort), cohort.y, folds=folds, **fit_kw)
+        same_folds = int(getattr(sig, "n_folds", -1)) == int(self.prevalidation_folds)
+        if (cross_fit == "inner_folds" and same_folds
+                and (self.coefficient == "prevalidated" or self.shrinkage != "none")):
+            # the signature's own penalty-choice folds are the pre-validation folds; its fit
+            # on all rows is the one every other route makes
+            _, fold_scores = sig.fit_fold_scores(self._features(cohort), cohort.y, **fit_kw)
         else:
             sig.fit(self._features(cohort), cohort.y, **fit_kw)
         self.signature_ = sig
