@@ -169,6 +169,7 @@ class CombinedSpec:
     coefficient: str = "prevalidated"  # "prevalidated" (out-of-fold scores) or "in_sample"
     prevalidation_folds: int = 5
     shrinkage: str = "none"  # "none" or "cross_validated_slope"
+    cross_fit: str = "inner_folds"  # "inner_folds" (the penalty choice's fold fits) or "refit" (older, ~5x the cost)
 
 
 @dataclass(frozen=True)
@@ -193,6 +194,7 @@ class AddedValueSpec:
 
     permutations: int = 199
     folds: int = 5
+    refits: str = "inner_folds"  # "inner_folds" (one signature fit per permutation) or "nested" (older)
 
 
 @dataclass(frozen=True)
@@ -333,6 +335,7 @@ def check_spec(spec: StudySpec) -> None:
     cm = spec.models.combined
     _choice("[models.combined] coefficient", cm.coefficient, ("prevalidated", "in_sample"))
     _choice("[models.combined] shrinkage", cm.shrinkage, ("none", "cross_validated_slope"))
+    _choice("[models.combined] cross_fit", cm.cross_fit, ("inner_folds", "refit"))
     if cm.prevalidation_folds < 3:
         raise SpecError(f"[models.combined] prevalidation_folds must be at least 3; got {cm.prevalidation_folds}.")
     av = spec.added_value
@@ -340,6 +343,7 @@ def check_spec(spec: StudySpec) -> None:
         raise SpecError(f"[added_value] permutations must be 0 (test not run) or more; got {av.permutations}.")
     if av.folds < 2:
         raise SpecError(f"[added_value] folds must be at least 2; got {av.folds}.")
+    _choice("[added_value] refits", av.refits, ("inner_folds", "nested"))
     if spec.figures.min_at_risk < 1:
         raise SpecError(f"[figures] min_at_risk must be at least 1 (a curve is drawn while that many patients "
                         f"remain at risk; 10 is common practice); got {spec.figures.min_at_risk}.")

@@ -60,6 +60,7 @@ def build_models(spec: StudySpec) -> dict:
             coefficient=spec.models.combined.coefficient,
             prevalidation_folds=spec.models.combined.prevalidation_folds,
             shrinkage=spec.models.combined.shrinkage,
+            cross_fit=spec.models.combined.cross_fit,
         ),
         "penalised_all": lambda: PenalisedAllCox(
             preds,

@@ -150,3 +150,23 @@ def test_inner_fold_shrinkage_uses_the_fold_fits(cohort):
         warnings.simplefilter("ignore")
         m = _combined("inner_folds", shrinkage="cross_validated_slope").fit(cohort)
     assert 0 < m.shrinkage_factor_ <= 1
+
+
+def test_study_keys_choose_the_routes():
+    import tomllib
+
+    from workbench.errors import SpecError
+    from workbench.models.registry import build_models
+    from workbench.study import dumps_study, study_from_dict
+
+    spec = read_study(DEMO)
+    assert spec.models.combined.cross_fit == "inner_folds" and spec.added_value.refits == "inner_folds"
+    assert build_models(spec)["combined"].cross_fit == "inner_folds"
+    doc = tomllib.loads(dumps_study(spec))
+    doc["models"]["combined"]["cross_fit"] = "refit"
+    doc["added_value"]["refits"] = "nested"
+    old = study_from_dict(doc)
+    assert build_models(old)["combined"].cross_fit == "refit" and old.added_value.refits == "nested"
+    doc["added_value"]["refits"] = "sometimes"
+    with pytest.raises(SpecError, match="refits"):
+        study_from_dict(doc)
