@@ -14,7 +14,10 @@ The coefficient of the signature term is by default estimated on cross-fitted
 (out-of-fold, "pre-validated") signature scores: the signature is refitted on
 the patients outside each fold and scores the patients in it, so the hazard
 ratio per unit of signature is not inflated by scoring the signature on the
-patients it was selected on (Tibshirani & Efron 2002). Optionally the whole
+patients it was selected on (Tibshirani & Efron 2002). By default the fold
+signatures are the fold fits the signature's own penalty choice already made, at
+the penalty it chose (``cross_fit="inner_folds"``: no extra path); ``"refit"``
+refits the whole signature, with its own penalty choice, without each fold. Optionally the whole
 linear predictor is shrunk by the cross-validated calibration slope
 (van Houwelingen & le Cessie 1990).
 

@@ -28,9 +28,19 @@ Scheme (residual permutation of the imaging block)
 3. The statistic is the cross-validated gain of the combined over the clinical
    model: the cross-validated partial log-likelihood (Verweij & van Houwelingen
    1993) of the combined model minus that of the clinical model, with the same
-   patient-grouped folds. Every signature step (ComBat, filters, screen, the
-   penalty choice by inner cross-validation) is refitted in every training fold
-   of every permutation. Folds and model seeds are reused across permutations
+   patient-grouped folds. The signature is rebuilt for every permutation, by one
+   of two routes (``refits``): by default (``"inner_folds"``) it is fitted once on
+   the permuted cohort with the statistic's folds as the folds of its penalty
+   choice, and fold ``k``'s signature is that choice's path without fold ``k`` at
+   the chosen penalty (ComBat, scaling and the unsupervised filters learned on the
+   whole permuted cohort, which uses no outcome); ``"nested"`` refits every
+   signature step (ComBat, filters, screen, the penalty choice by inner
+   cross-validation) in every training fold of every permutation, about five times
+   the cost. Either way the data and every permutation go through the same
+   procedure, which is what the test's level rests on; the default statistic's
+   folds see their own outcomes through the one shared penalty, so as a
+   description of predictive gain it is slightly optimistic (its p-value is not).
+   Folds and model seeds are reused across permutations
    (common random numbers): only the imaging residuals change, so the clinical
    terms of each training fold are learned once and reused (they do not depend
    on imaging).
