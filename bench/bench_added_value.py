@@ -56,7 +56,7 @@ from workbench.study import read_study
 from workbench.validation.added_value import added_value_test
 
 DEMO = Path(__file__).parents[1] / "demo_cohort" / "study.toml"
-ROUTES = ("nested", "inner_folds")  # added_value_test(refits=...): the older statistic, the default
+ROUTES = ("nested", "inner_folds")  # added_value_test(refits=...): the default, the cheaper one
 
 
 def sim_cohort(n: int, p: int, seed: int, effect: float) -> Cohort:

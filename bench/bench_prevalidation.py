@@ -120,7 +120,8 @@ def report(rows: list) -> None:
             cov = float(np.mean((lo[ok] <= truth[ok]) & (truth[ok] <= hi[ok])))
             print(f"{route:<13}{'C difference (cv, corrected t)':<34}{estimand:<13}{e.mean():>+9.4f}"
                   f"{e.std(ddof=1) / np.sqrt(R):>8.4f}{est.std(ddof=1):>8.4f}{cov:>10.3f}"
-                  f"{np.sqrt(cov * (1 - cov) / max(ok.sum(), 1)):>8.3f}{np.mean(hi[ok] - lo[ok]):>8.3f}{cpu:>8.1f}")
+                  f"{np.sqrt(cov * (1 - cov) / max(ok.sum(), 1)):>8.3f}{np.mean(hi[ok] - lo[ok]):>8.3f}{cpu:>8.1f}"
+                  f"   ({int(ok.sum())} intervals)")
     d = np.array([x["inner_folds"]["est"] - x["refit"]["est"] for x in rows])
     print(f"paired difference of the C-difference estimates (inner_folds - refit): {d.mean():+.4f} "
           f"(MC SE {d.std(ddof=1) / np.sqrt(R):.4f}); mean signature size "
