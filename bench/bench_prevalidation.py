@@ -122,6 +122,11 @@ def report(rows: list) -> None:
                   f"{e.std(ddof=1) / np.sqrt(R):>8.4f}{est.std(ddof=1):>8.4f}{cov:>10.3f}"
                   f"{np.sqrt(cov * (1 - cov) / max(ok.sum(), 1)):>8.3f}{np.mean(hi[ok] - lo[ok]):>8.3f}{cpu:>8.1f}"
                   f"   ({int(ok.sum())} intervals)")
+    b = np.array([x["inner_folds"]["coef"] - x["refit"]["coef"] for x in rows])
+    b = b[np.isfinite(b)]
+    if b.size > 1:
+        print(f"paired difference of the pre-validated coefficients (inner_folds - refit): {b.mean():+.4f} "
+              f"(MC SE {b.std(ddof=1) / np.sqrt(b.size):.4f}, {b.size} cohorts)")
     d = np.array([x["inner_folds"]["est"] - x["refit"]["est"] for x in rows])
     print(f"paired difference of the C-difference estimates (inner_folds - refit): {d.mean():+.4f} "
           f"(MC SE {d.std(ddof=1) / np.sqrt(R):.4f}); mean signature size "

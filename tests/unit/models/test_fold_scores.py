@@ -160,13 +160,13 @@ def test_study_keys_choose_the_routes():
     from workbench.study import dumps_study, study_from_dict
 
     spec = read_study(DEMO)
-    assert spec.models.combined.cross_fit == "inner_folds" and spec.added_value.refits == "nested"
-    assert build_models(spec)["combined"].cross_fit == "inner_folds"
+    assert spec.models.combined.cross_fit == "refit" and spec.added_value.refits == "nested"
+    assert build_models(spec)["combined"].cross_fit == "refit"
     doc = tomllib.loads(dumps_study(spec))
-    doc["models"]["combined"]["cross_fit"] = "refit"
+    doc["models"]["combined"]["cross_fit"] = "inner_folds"
     doc["added_value"]["refits"] = "inner_folds"
-    old = study_from_dict(doc)
-    assert build_models(old)["combined"].cross_fit == "refit" and old.added_value.refits == "inner_folds"
+    cheap = study_from_dict(doc)
+    assert build_models(cheap)["combined"].cross_fit == "inner_folds" and cheap.added_value.refits == "inner_folds"
     doc["added_value"]["refits"] = "sometimes"
     with pytest.raises(SpecError, match="refits"):
         study_from_dict(doc)
