@@ -22,6 +22,28 @@ measured single-process efficiency; bench_backends.py measures 90-98%).
 
 Run: PYTHONPATH=. nice -n 19 python bench/bench_reuse.py [--replicates 3] [--permutations 2]
      [--library-samples 2]
+Measured 2026-12-03 (default arguments, one run, machine load average about 40):
+
+                                                       CPU s  200 on 2 workers  (target <= 60 s)
+    (a) library pipeline, per replicate                10.35            1046 s
+    (a) ours, cross_fit='refit', per replicate          4.67             471 s  C difference +0.1791
+    (a) ours, cross_fit='inner_folds', per replicate    1.08             109 s  C difference +0.1797
+    (b) ours, refits='nested', per permutation          5.45             550 s  observed gain 116.1
+    (b) ours, refits='inner_folds', per permutation     1.46             148 s  observed gain 116.7
+    (a) ratio refit / inner_folds 4.34; library / inner_folds 9.63; library / refit 2.22
+    (b) ratio nested / inner_folds 3.72
+
+Neither target is met by either route. The cheap routes are NOT the defaults: the inner-folds
+pre-validated coefficient was higher than the refit one by +0.102 (MC SE 0.017, 46 cohorts,
+true value 0.887; bench_prevalidation.py) and the inner-folds added-value statistic rejected
+0.082 (MC SE 0.020, 182 null cohorts) at 0.05 against 0.033 (0.013) for the nested one
+(bench_added_value.py). Where the CPU goes after the change (profile by process time): a
+replicate of the inner-folds route, 1.5 s with the apparent fit's share: paths 49%, the
+evaluation of both arms 16% (calibration most of it), ComBat fit and transforms 14%, Cox fits
+8%, redundancy filter 4%; a permutation of the inner-folds route, 1.6 s: paths 80% (0.21 s each
+on permuted data, against 0.12 s on a bootstrap sample), ComBat 6%, redundancy filter 5%.
+Before (wall shares, older route): paths 66%, ComBat 9%, redundancy filter 6%, near-zero
+variance filter 3%, cross-validated likelihood 4%, medians 3%, evaluation 4%.
 """
 
 from __future__ import annotations
