@@ -252,6 +252,23 @@ class PenalizedPathResult:
         return tuple(n for n, b in zip(self.feature_names, self.coef, strict=True) if b != 0.0)
 
 
+@dataclass(frozen=True)
+class FoldFits:
+    """The inner cross-validation's fold fits at the chosen penalty (not kept on fitted models).
+
+    Attributes
+    ----------
+    fold : ndarray of int of shape (n_samples,)
+        Fold of every input row (all copies of a patient share one).
+    coefs : ndarray of shape (n_folds, n_features)
+        Coefficients of the path fitted without fold ``k``, at the chosen penalty ``alpha``
+        of the all-rows path (the same penalty for every fold).
+    """
+
+    fold: np.ndarray
+    coefs: np.ndarray
+
+
 # ---------------------------------------------------------------- CV scoring
 
 
@@ -363,6 +380,7 @@ def fit_penalized_path(
     max_iter: int = 100000,
     random_state=None,
     collapse_copies: bool = True,
+    folds=None,
 ) -> PenalizedPathResult:
     """Fit a penalised Cox path and choose its penalty by patient-grouped cross-validation.
 
@@ -396,16 +414,38 @@ def fit_penalized_path(
         With ``groups``, fit a patient whose rows are all exact copies (a bootstrap
         sample) as one row with its count as a frequency weight: the same likelihood,
         folds and penalties on fewer rows (results equal to solver tolerance).
+    folds : array-like of int of shape (n_samples,) or None
+        Fold of every row, given instead of forming ``n_folds`` patient-grouped folds
+        (every row of a patient must share one; ``n_folds`` is then their number).
 
     Returns
     -------
     PenalizedPathResult
+        :func:`fit_penalized_path_folds` also returns the fold fits at the chosen penalty.
 
     References
     ----------
     .. [1] Simon N, Friedman J, Hastie T, Tibshirani R. J Stat Softw 2011;39(5):1-13.
     .. [2] Verweij PJM, van Houwelingen HC. Stat Med 1993;12(24):2305-14.
     .. [3] Dai B, Breheny P. arXiv:1905.10432, 2019.
+    """
+    return fit_penalized_path_folds(
+        X, y, groups=groups, feature_names=feature_names, l1_ratio=l1_ratio, penalty_factor=penalty_factor,
+        n_alphas=n_alphas, alpha_min_ratio=alpha_min_ratio, path_stop_ratio=path_stop_ratio, n_folds=n_folds,
+        rule=rule, score=score, tol=tol, max_iter=max_iter, random_state=random_state,
+        collapse_copies=collapse_copies, folds=folds)[0]
+
+
+def fit_penalized_path_folds(X, y, *, groups=None, feature_names=None, l1_ratio=0.9, penalty_factor=None,
+                             n_alphas=100, alpha_min_ratio=0.01, path_stop_ratio=0.05, n_folds=5, rule="min",
+                             score="basic", tol=1e-7, max_iter=100000, random_state=None,
+                             collapse_copies=True, folds=None) -> tuple[PenalizedPathResult, FoldFits]:
+    """:func:`fit_penalized_path` (same arguments), plus its inner folds' fits at the chosen penalty.
+
+    The fold fits are those the penalty choice already made (no extra path): fold ``k``'s
+    coefficients at the chosen penalty come from the path fitted without fold ``k`` on the
+    all-rows grid, so ``X[fold == k] @ coefs[k]`` is an out-of-fold linear predictor whose
+    only contact with fold ``k``'s outcomes is the choice of the one penalty.
     """
     y = check_outcome(y)
     X = np.ascontiguousarray(X, dtype=float)
@@ -439,11 +479,27 @@ def fit_penalized_path(
     groups = np.asarray(groups)
     if groups.shape[0] != n:
         raise ModelError(f"groups has {groups.shape[0]} entries but X has {n} rows; they must match.")
+    codes = pd.factorize(groups)[0]
+    given = None
+    if folds is not None:
+        given = np.asarray(folds, dtype=int)
+        if given.shape != (n,) or given.min() < 0:
+            raise ModelError(f"folds must give a non-negative fold to each of the {n} rows.")
+        first_row = np.unique(codes, return_index=True)[1]
+        if np.any(given != given[first_row][codes]):
+            raise ModelError("folds split the rows of one patient; every row of a patient needs one fold.")
+        given = np.unique(given, return_inverse=True)[1].reshape(n)
+        n_folds = int(given.max()) + 1
+        if n_folds < 2:
+            raise ModelError("folds must name at least 2 folds.")
     weights = None
     collapsed = _collapse_copies(X, time, event, groups) if grouped and collapse_copies else None
+    kept = np.arange(n)
     if collapsed is not None:
         X, time, event, groups, weights = collapsed
-    fold = patient_folds(groups, event, n_folds, random_state, weights=weights)
+        kept = np.unique(codes, return_index=True)[1]
+    fold = patient_folds(groups, event, n_folds, random_state, weights=weights) if given is None else given[kept]
+    row_fold = fold if collapsed is None else fold[codes]
 
     # One log-spaced grid from alpha_max to alpha_min_ratio * alpha_max; the solver's
     # own path creation gives alpha_max and the first segment with the same spacing.
@@ -473,12 +529,13 @@ def fit_penalized_path(
         n_ext += 1
         coefs = _path(X, time, event, weights, grid[:n_cur], l1_ratio, penalty_factor, tol, max_iter)
     index, i_min = choose_alpha(mean, se, rule)
+    fits = FoldFits(fold=row_fold, coefs=np.array([fc[:, index] for fc in fold_coefs]))
     return PenalizedPathResult(
         feature_names=names, alphas=alphas.copy(), coefs=np.asarray(coefs, dtype=float),
         n_nonzero=np.count_nonzero(coefs, axis=0), cv_mean=mean, cv_se=se, cv_folds=per_fold,
         fold_events=ev_k, alpha_max=alpha_max, index=index, alpha=float(alphas[index]),
         rule=rule, score=score, index_min=i_min, n_extensions=n_ext,
-        on_boundary=bool(i_min == n_cur - 1 and n_cur > 1), grouped=grouped)
+        on_boundary=bool(i_min == n_cur - 1 and n_cur > 1), grouped=grouped), fits
 
 
 class PenalizedCox(BaseEstimator):

@@ -35,7 +35,11 @@ from workbench.errors import (
     SpecError,
     VolumeDominanceWarning,
 )
-from workbench.models.penalized import PenalizedPathResult, fit_penalized_path
+from workbench.models.penalized import (
+    PenalizedPathResult,
+    fit_penalized_path,
+    fit_penalized_path_folds,
+)
 from workbench.predictions import RiskScores
 from workbench.preprocess.harmonize import ComBat
 from workbench.preprocess.reduce import (
@@ -54,6 +58,28 @@ def _frame(X, where: str) -> pd.DataFrame:
     if A.ndim != 2:
         raise CohortError(f"{where}: expected a table of imaging features, got shape {A.shape}.")
     return pd.DataFrame(A, columns=[f"x{j}" for j in range(A.shape[1])])
+
+
+@dataclass(frozen=True)
+class FoldScores:
+    """Scores of an :class:`ImagingSignature`'s inner fold signatures on its training rows.
+
+    Attributes
+    ----------
+    fold : ndarray of int of shape (n_samples,)
+        Inner fold of every training row.
+    scores : ndarray of shape (n_samples, n_folds)
+        Column ``k``: the signature fitted without fold ``k`` at the chosen penalty (with
+        the all-rows harmonisation, scaling and filters, which use no outcome), scoring
+        every training row; ``out_of_fold`` picks each row's own fold.
+    """
+
+    fold: np.ndarray
+    scores: np.ndarray
+
+    @property
+    def out_of_fold(self) -> np.ndarray:
+        return self.scores[np.arange(self.fold.size), self.fold]
 
 
 class ImagingSignature(BaseEstimator):
@@ -133,6 +159,8 @@ class ImagingSignature(BaseEstimator):
     def fit(self, X_features, y, *, groups=None, batch=None, covariates=None) -> ImagingSignature:
         """Fit every step on these (training) rows; returns self.
 
+        See :meth:`fit_fold_scores` for the same fit plus out-of-fold scores.
+
         Parameters
         ----------
         X_features : DataFrame of shape (n_samples, n_features)
@@ -144,6 +172,37 @@ class ImagingSignature(BaseEstimator):
         covariates : array-like of shape (n_samples, n_covariates) or None
             Numeric clinical covariates whose effect ComBat must preserve.
         """
+        self._fit(X_features, y, groups, batch, covariates, None)
+        return self
+
+    def fit_fold_scores(self, X_features, y, *, groups=None, batch=None, covariates=None, folds=None):
+        """:meth:`fit`, plus the scores of the inner cross-validation's fold signatures.
+
+        The penalty's inner cross-validation fits a path without each fold; at the chosen
+        penalty these are fold signatures that never saw their fold's outcomes except
+        through the choice of that one penalty. Scoring the training rows with them costs
+        no extra path (used for pre-validated scores, see
+        :class:`~workbench.models.cox.CombinedCox` ``cross_fit="inner_folds"``).
+
+        Parameters
+        ----------
+        X_features, y, groups, batch, covariates
+            As for :meth:`fit`.
+        folds : array-like of int of shape (n_samples,) or None
+            The inner folds (patient-grouped; every row of a patient in one fold);
+            ``None``: the signature forms its ``n_folds`` folds itself, as in :meth:`fit`.
+
+        Returns
+        -------
+        self : ImagingSignature
+        fold_scores : FoldScores or None
+            ``None`` when no fold fits exist to reuse: stability selection, an outcome
+            screen (``screen_fdr``, fitted on all rows, so its folds would have seen every
+            outcome), or no feature left after the filters.
+        """
+        return self, self._fit(X_features, y, groups, batch, covariates, folds)
+
+    def _fit(self, X_features, y, groups, batch, covariates, folds):
         y = check_outcome(y)
         X = _frame(X_features, "ImagingSignature.fit")
         if X.shape[0] != y.shape[0]:
@@ -171,6 +230,7 @@ class ImagingSignature(BaseEstimator):
             records.append(f.record_)
         self.path_: PenalizedPathResult | None = None
         self.stability_ = None
+        fold_scores = None
         beta = np.zeros(Z.shape[1])
         if self.selection not in ("cv", "stability"):
             raise ModelError(f"selection={self.selection!r} is unknown; choose 'cv' or 'stability'.")
@@ -183,13 +243,17 @@ class ImagingSignature(BaseEstimator):
                             for nm in Z.columns[~nz])
             records.append(StepRecord("stability selection", Z.shape[1], len(kept_names), kept_names, dropped))
         elif Z.shape[1] > 0:
-            self.path_ = fit_penalized_path(
+            self.path_, fits = fit_penalized_path_folds(
                 Z.to_numpy(), y, groups=groups, feature_names=list(Z.columns),
                 l1_ratio=self.l1_ratio, n_alphas=self.n_alphas,
                 alpha_min_ratio=self.alpha_min_ratio, path_stop_ratio=self.path_stop_ratio,
                 n_folds=self.n_folds, rule=self.rule, score=self.cv_score,
-                random_state=self.random_state)
+                random_state=self.random_state, folds=folds)
             beta = self.path_.coef
+            if self.screen_fdr is None:
+                # the standardised score of fold k's signature is Z @ coefs[k], on the scale of
+                # the all-rows signature (same scaling, filters and harmonisation)
+                fold_scores = FoldScores(fits.fold, Z.to_numpy() @ fits.coefs.T)
         if self.stability_ is None:
             nz = beta != 0
             kept_names = tuple(Z.columns[nz])
@@ -204,7 +268,7 @@ class ImagingSignature(BaseEstimator):
         self.coef_original_ = pd.Series(beta[nz] / sd, index=list(kept_names), name="coef")
         self.intercept_original_ = float(-(beta[nz] * mu / sd).sum())
         self.selected_index_ = np.asarray(pos, dtype=int)
-        return self
+        return fold_scores
 
     def _stability_fit(self, Z: pd.DataFrame, y, groups) -> np.ndarray:
         """Stability selection (models/stability.py), then an unpenalised Cox fit on the stable features."""
