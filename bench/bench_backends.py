@@ -13,10 +13,10 @@ replicate) and compared (combined minus clinical), the same seed and replicates 
 * ``joblib-dask x2`` (``--with-before``): the engine's earlier Dask route, joblib's Dask backend
   on a default ``LocalCluster`` (worker profiler on, every task pickled whole), for comparison.
 
-Each configuration is warmed once (worker start-up, imports, compiled kernels), clusters are
-started before the clock (start-up printed apart), and then the configurations run in turn,
-``--rounds`` times (A B C A B C ...), so that a change of load on a shared machine falls on all
-of them. Printed: median wall time, replicates per second, the ratio of throughput to the
+The configurations run in turn, ``--rounds`` times (A B C A B C ...), so that a change of load
+on a shared machine falls on all of them. Each Dask cluster is started for its run only (its
+start-up printed apart, off the clock), and every timed run follows an untimed small run of the
+same backend that warms each worker (imports, compiled kernels). Printed: median wall time, replicates per second, the ratio of throughput to the
 processes backend's (medians of the same run; target for ``dask x --workers``: at least 0.95),
 CPU seconds per replicate summed over this process and all its children (the whole tree:
 workers, nannies, scheduler), whether every per-replicate value equals the first processes
@@ -133,36 +133,37 @@ def main(argv=None) -> int:
     if args.with_before:
         configs.append((f"joblib-dask x{w}", "joblib-dask", w))
     configs += [(f"dask x{n}", "dask", n) for n in [w, *args.scale_workers]]
-    clients, owned, starts = {}, [], {}
-    for label, kind, n in configs:
-        if kind == "processes":
-            continue
-        t0 = time.perf_counter()
-        cluster = (LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
-                   if kind == "joblib-dask" else local_cluster(n, dashboard_address=None))
-        clients[label] = Client(cluster)
-        owned += [clients[label], cluster]
-        starts[label] = time.perf_counter() - t0
     walls = {c[0]: [] for c in configs}
     cpus = {c[0]: [] for c in configs}
+    starts = {c[0]: [] for c in configs}
     ident, cdiff, ref = {}, {}, None
-    try:
-        small = synthetic_cohort(n=200, p=100)  # same code paths, a fraction of the cost
-        for label, kind, n in configs:  # warm every worker: imports and compiled kernels
-            run(small, 2 * n, kind, n, clients.get(label), horizons=HORIZONS[:2])
-        for r in range(args.rounds):
-            for label, kind, n in configs:
-                wall, cpu, res, cmp = run(cohort, args.replicates, kind, n, clients.get(label))
-                ref = res if ref is None else ref
-                walls[label].append(wall)
-                cpus[label].append(cpu)
-                ident[label] = ident.get(label, True) and same(ref, res)
-                cdiff[label] = cmp.differences["harrell_c"].estimate if "harrell_c" in cmp.differences else np.nan
-                print(f"  round {r + 1} {label:16s} {wall:7.1f} s wall, {cpu:7.1f} s CPU, "
-                      f"load {os.getloadavg()[0]:.1f}", flush=True)
-    finally:
-        for obj in owned:
-            obj.close()
+    small = synthetic_cohort(n=200, p=100)  # same code paths as the bench cohort, a fraction of the cost
+    for r in range(args.rounds):
+        for label, kind, n in configs:
+            client = cluster = None
+            if kind != "processes":  # started for this run only: idle workers would burn CPU meanwhile
+                t0 = time.perf_counter()
+                cluster = (LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                        dashboard_address=None)
+                           if kind == "joblib-dask" else local_cluster(n, dashboard_address=None))
+                client = Client(cluster)
+                starts[label].append(time.perf_counter() - t0)
+            try:
+                # untimed warm-up of every worker (imports, compiled kernels); loky's workers also
+                # end after 300 s idle, which on a loaded machine happens between two of its runs
+                run(small, 2 * n, kind, n, client, horizons=HORIZONS[:2])
+                wall, cpu, res, cmp = run(cohort, args.replicates, kind, n, client)
+            finally:
+                if client is not None:
+                    client.close()
+                    cluster.close()
+            ref = res if ref is None else ref
+            walls[label].append(wall)
+            cpus[label].append(cpu)
+            ident[label] = ident.get(label, True) and same(ref, res)
+            cdiff[label] = cmp.differences["harrell_c"].estimate if "harrell_c" in cmp.differences else np.nan
+            print(f"  round {r + 1} {label:16s} {wall:7.1f} s wall, {cpu:7.1f} s CPU, "
+                  f"load {os.getloadavg()[0]:.1f}", flush=True)
     t_proc = statistics.median(walls["processes"])
     print(f"\n{'backend':16s} {'median s':>9s} {'runs':>16s} {'rep/s':>7s} {'vs processes':>13s} "
           f"{'CPU s/rep':>10s} {'start s':>8s}  identical  C difference")
@@ -171,7 +172,7 @@ def main(argv=None) -> int:
         runs = " ".join(f"{x:.0f}" for x in walls[label])
         print(f"{label:16s} {t:9.1f} {runs:>16s} {args.replicates / t:7.3f} {t_proc / t:13.2f} "
               f"{statistics.median(cpus[label]) / args.replicates:10.2f} "
-              f"{'-' if label not in starts else f'{starts[label]:.1f}':>8s}  "
+              f"{f'{statistics.median(starts[label]):.1f}' if starts[label] else '-':>8s}  "
               f"{'yes' if ident[label] else 'NO':9s}  {cdiff[label]:.4f}")
     print(f"target: dask x{w} at least 0.95 of the processes backend's throughput "
           f"(ratio of medians above)")

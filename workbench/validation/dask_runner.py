@@ -11,14 +11,17 @@ loop gives: every task is a pure function of its inputs.
 
 The cluster ``scheduler="local"`` starts (:func:`local_cluster`) is set up as the
 processes backend is: one single-threaded worker process per worker, BLAS/OpenMP pools of
-one thread (each task also runs inside ``threadpool_limits(1)``), and the workers' sampling
-profiler switched off. The profiler walks the running task's Python stack every 10 ms on
-the worker's event loop; on the validation bench it added about a fifth to each worker
-process's CPU time (4.6 s of task CPU plus 1.1 s) -- CPU the processes backend spends on
-replicates. For a cluster of your own, start the workers the same way:
-``DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False dask worker tcp://host:8786 --nthreads 1
---nworkers N``. Several threads per worker run Python-heavy fits under one interpreter
-lock; a warning says so.
+one thread (each task also runs inside ``threadpool_limits(1)``). Its scheduler and workers
+also keep their housekeeping quiet (:data:`WORKER_CONFIG`): no sampling profiler (it walks
+the running task's Python stack every 10 ms), and the event-loop probe, memory monitor and
+system monitor woken every 1-2 s instead of every 20, 100 and 500 ms. Measured on the shared
+2-core machine (2026-12-03, load 40): a default worker used 2.2% of a core idle and 24% more
+CPU than its task's own thread during a 4 s CPU-bound task; with these settings 0.4% and 5%
+(scratch measurement; the side-by-side numbers are in bench/bench_backends.py). For a cluster
+of your own, start the workers the same way, e.g.
+``DASK_DISTRIBUTED__WORKER__PROFILE__ENABLED=False DASK_DISTRIBUTED__ADMIN__TICK__INTERVAL=1s
+dask worker tcp://host:8786 --nthreads 1 --nworkers N``. Several threads per worker run
+Python-heavy fits under one interpreter lock; a warning says so.
 """
 
 from __future__ import annotations
@@ -32,8 +35,13 @@ from workbench.errors import SpecError
 
 __all__ = ["WORKER_CONFIG", "WORKER_ENV", "local_cluster", "run_on_dask"]
 
-#: Dask settings for validation workers (see the module notes).
-WORKER_CONFIG = {"distributed.worker.profile.enabled": False}
+#: Dask settings for a local cluster of validation workers (see the module notes).
+WORKER_CONFIG = {
+    "distributed.worker.profile.enabled": False,
+    "distributed.admin.tick.interval": "1s",  # event-loop latency probe, 20 ms by default
+    "distributed.worker.memory.monitor-interval": "1s",  # 100 ms by default
+    "distributed.admin.system-monitor.interval": "2s",  # 500 ms by default
+}
 #: Thread pools of one thread, set before a worker process imports numpy (as loky does).
 WORKER_ENV = {k: "1" for k in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS", "NUMBA_NUM_THREADS")}
 
@@ -54,15 +62,17 @@ def _import_distributed():
 def local_cluster(workers: int, **kwargs):
     """A ``distributed.LocalCluster`` set up for validation replicates.
 
-    ``workers`` single-threaded worker processes with one-thread BLAS pools and the
-    sampling profiler off (see the module notes). ``kwargs`` go to ``LocalCluster``.
+    ``workers`` single-threaded worker processes with one-thread BLAS pools, the sampling
+    profiler off and slower housekeeping (see the module notes). ``kwargs`` go to
+    ``LocalCluster``.
     """
     import dask
 
     distributed = _import_distributed()
     pre = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {}) or {})
     pre.update(WORKER_ENV)
-    # the nannies copy the configuration when they are made: set it around the cluster's start
+    # the scheduler and the nannies read the configuration when they are made (the nannies pass
+    # their copy to the worker processes): set it around the cluster's start
     with dask.config.set({**WORKER_CONFIG, "distributed.nanny.pre-spawn-environ": pre}):
         opts = {"n_workers": int(workers), "threads_per_worker": 1, "processes": True, **kwargs}
         return distributed.LocalCluster(**opts)

@@ -48,7 +48,7 @@ def cluster():
         yield c
 
 
-def test_local_cluster_workers_single_threaded_without_profiler(cluster):
+def test_local_cluster_workers_single_threaded_with_quiet_housekeeping(cluster):
     with distributed.Client(cluster) as client:
         assert set(client.nthreads().values()) == {1}
         env = client.run(lambda: os.environ.get("NUMBA_NUM_THREADS"))
@@ -58,6 +58,14 @@ def test_local_cluster_workers_single_threaded_without_profiler(cluster):
             return "profile" in dask_worker.periodic_callbacks
 
         assert not any(client.run(profiling).values())
+
+        def housekeeping():
+            import dask
+
+            return (dask.config.get("distributed.admin.tick.interval"),
+                    dask.config.get("distributed.worker.memory.monitor-interval"))
+
+        assert set(client.run(housekeeping).values()) == {("1s", "1s")}
 
 
 def test_shared_part_scattered_once_results_in_task_order(cluster, monkeypatch):
