@@ -25,8 +25,24 @@ run's to the last bit, and the load average.
 Run: ``PYTHONPATH=. nice -n 19 .venv/bin/python bench/bench_backends.py [--replicates 20]
 [--workers 2] [--scale-workers 3 4] [--rounds 2] [--with-before]``.
 
-Measured 2026-12-03 (shared 2-core machine; see the report of that day for the load):
-see the numbers written below by the run this docstring was last updated from.
+Measured 2026-12-03 on the shared 2-core machine under heavy load from other work (load average
+27-36 throughout), ``--replicates 4 --rounds 2 --scale-workers 3 --with-before``, nice 19:
+
+    backend           median s   runs   rep/s  vs processes  CPU s/rep  start s  identical
+    processes             69.5  65 74   0.058          1.00       5.77        -  yes
+    joblib-dask x2        86.9  93 80   0.046          0.80       8.70     16.1  yes
+    dask x2               65.7  55 77   0.061          1.06       6.21     16.7  yes
+    dask x3               83.9 64 104   0.048          0.83       6.92     21.2  yes
+
+(C difference 0.1797 in every run.) Under that load the wall times swing by 15-40% between
+rounds, so the ratios carry that much noise; the CPU per replicate over the process tree is the
+steadier measure: the earlier joblib-Dask route spent 51% more CPU than the processes backend
+for the same replicates (every 4 MB task pickled through the scheduler, and the housekeeping of
+workers and scheduler woken 50-100 times a second,
+whose cost grows with wall time, and so with load), the present route 8%. CPU s/rep includes the
+apparent fit in this process (about 1.2 s per replicate at 4 replicates).
+Not measured on a quiet machine this time; the earlier quiet measurement (20 replicates:
+processes 37.0 s, joblib-Dask x2 55.8 s, ratio 0.66) could not be repeated under this load.
 """
 
 from __future__ import annotations
