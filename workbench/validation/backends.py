@@ -17,10 +17,11 @@ Backends
 ``"serial"``
     A plain loop in this process, for debugging and for ``workers=1``.
 ``"dask"``
-    joblib's Dask backend on a ``distributed.Client``: ``scheduler`` is a
-    scheduler address (``"tcp://host:8786"``), an existing ``Client``, or
-    ``"local"`` to start a local cluster of ``workers`` processes for this run.
-    Dask is imported only when asked for.
+    A Dask cluster (:mod:`.dask_runner`): ``scheduler`` is a scheduler address
+    (``"tcp://host:8786"``), an existing ``distributed.Client``, or ``"local"`` to
+    start a local cluster of ``workers`` single-threaded processes for this run.
+    The data every task shares is sent to each worker once. Dask is imported only
+    when asked for.
 """
 
 from __future__ import annotations
@@ -51,27 +52,6 @@ def _check(backend: str, workers: int) -> None:
         )
     if int(workers) != workers or workers < 1:
         raise SpecError(f"workers must be a whole number of at least 1, got {workers!r}.")
-
-
-def _dask_client(scheduler, workers: int):
-    try:
-        from distributed import Client, LocalCluster
-    except ImportError:  # pragma: no cover - depends on the environment
-        raise SpecError(
-            "the 'dask' backend needs the packages dask and distributed, which are not installed. "
-            "Install them (pip install 'dask[distributed]') or choose backend='processes'."
-        ) from None
-    if scheduler is None:
-        raise SpecError(
-            "the 'dask' backend needs scheduler='tcp://host:8786' (the address of a running Dask "
-            "scheduler), an existing distributed.Client, or scheduler='local' for a local cluster."
-        )
-    if isinstance(scheduler, Client):
-        return scheduler, None, None
-    if scheduler == "local":
-        cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True)
-        return Client(cluster), cluster, True
-    return Client(scheduler), None, True
 
 
 def run_tasks(
@@ -126,7 +106,7 @@ def run_tasks(
         with threadpool_limits(limits=1):
             return collect(fn(t) for t in tasks)
 
-    from joblib import Parallel, delayed, parallel_config
+    from joblib import Parallel, delayed
 
     if backend == "threads":
         # Thread pools are process-wide: limit them once, around all threads.
@@ -137,16 +117,9 @@ def run_tasks(
         par = Parallel(n_jobs=int(workers), backend="loky", return_as="generator")
         return collect(par(delayed(_call_single_threaded)(fn, t) for t in tasks))
 
-    client, cluster, owned = _dask_client(scheduler, workers)
-    try:
-        with parallel_config(backend="dask", client=client):
-            par = Parallel(n_jobs=-1, return_as="generator")
-            return collect(par(delayed(_call_single_threaded)(fn, t) for t in tasks))
-    finally:
-        if owned:
-            client.close()
-        if cluster is not None:
-            cluster.close()
+    from workbench.validation.dask_runner import run_on_dask
+
+    return run_on_dask(fn, tasks, scheduler, int(workers), collect)
 
 
 def tqdm_progress(desc: str = "validation", **tqdm_kwargs) -> Progress:
