@@ -135,7 +135,7 @@ def _pair_metrics(key, tasks, outputs, arms, names, with_fold) -> ReplicateMetri
 
 def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, horizons,
                arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None,
-               cv_ratio=None):
+               cv_ratio=None, outer_pairs=None):
     names = metric_names(horizons)
     pnames = pair_metric_names(horizons)
     first = next(iter(apparent.values()))
@@ -187,8 +187,8 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
         pair_reps[key] = rm
         ests = {(estimator or {}).get(nm, "optimism") for nm in key}
         pair_est[key] = _estimates(method, pp.vector(), rm, conf_level,
-                                   "optimism" if ests == {"optimism"} else "oob", difference=True,
-                                   cv_ratio=cv_ratio)
+                                   "optimism" if ests == {"optimism"} else "oob",
+                                   outer=(outer_pairs or {}).get(key), difference=True, cv_ratio=cv_ratio)
     return dict(metric_names=names, pair_metric_names=pnames, replicates=replicates,
                 estimates=estimates, failures=failures, failure_log=tuple(log),
                 dropped_metrics=dropped, selection=selection, warning_counts=warn,
