@@ -127,9 +127,15 @@ def one_cohort(i: int, args, fresh, fresh_c, models) -> dict:
     if args.band:  # the internal net-benefit difference band of the report (difference_bands.py)
         band = net_benefit_difference(res, "combined", "clinical", list(res.horizons).index(HORIZON))
         t_nb = true_nb_diff(fitted["combined"], fitted["clinical"], fresh)
+        jh = list(res.horizons).index(HORIZON)
+        d = rc.nb_test[:, jh, :] - rb.nb_test[:, jh, :]  # paired per-fold differences (cv)
         for k, th in enumerate(THRESHOLDS):
             b = (band.estimate[k], band.lower[k], band.upper[k], t_nb[k])
-            out[f"band nb@{th:.2f}"] = b + b[1:3]
+            rule = b[1:3]
+            if args.method == "cv":  # the corrected band the engine would draw, withheld or not
+                lo, hi = cv_interval(d[:, k], band.estimate[k], ratio, res.conf_level)
+                rule = guard("net_benefit", band.estimate[k], lo, hi, True)[:2]
+            out[f"band nb@{th:.2f}"] = b + tuple(rule)
     return out
 
 
@@ -139,12 +145,13 @@ def run(args):
     models = {"clinical": SmallCox(("x1", "x2"), "clinical"), "combined": SmallCox(("x1", "x2", "x3"), "combined")}
     rows: dict = {}
     t0 = time.process_time()
-    for i in range(args.cohorts):
+    for i in range(args.first, args.first + args.cohorts):
         for q, r in one_cohort(i, args, fresh, fresh_c, models).items():
             rows.setdefault(q, []).append(r)
-        if (i + 1) % 25 == 0 and i + 1 < args.cohorts:
-            print(f"\n--- interim, {i + 1} cohorts, {time.process_time() - t0:.0f} CPU s ---")
-            report(rows, args, i + 1)
+        done = i + 1 - args.first
+        if done % 25 == 0 and done < args.cohorts:
+            print(f"\n--- interim, {done} cohorts, {time.process_time() - t0:.0f} CPU s ---")
+            report(rows, args, done)
             save(rows, args)
     return rows, time.process_time() - t0
 
@@ -223,10 +230,19 @@ def main() -> None:
     ap.add_argument("--no-calibration", action="store_true", help="skip ICI, E50, E90, slope, O/E (CPU)")
     ap.add_argument("--components", action="store_true", help="also the NRI and IDI components")
     ap.add_argument("--band", action="store_true", help="also the internal net-benefit difference band")
+    ap.add_argument("--first", type=int, default=0, help="first cohort (seed) index: split a run over processes")
+    ap.add_argument("--combine", nargs="+", default=(), help="report the rows saved (--save) by several runs "
+                    "of the same settings instead of running")
     args = ap.parse_args()
     args.horizons = [float(h) for h in args.horizons.split(",")]
     if HORIZON not in args.horizons:
         ap.error(f"--horizons must include {HORIZON:g}")
+    if args.combine:
+        parts = [np.load(f) for f in args.combine]
+        rows = {q: [r for p in parts if q in p for r in p[q]] for q in parts[0].files}
+        args.cohorts = len(next(iter(rows.values())))
+        report(rows, args)
+        return
     t = time.perf_counter()
     rows, cpu = run(args)
     report(rows, args)

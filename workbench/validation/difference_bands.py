@@ -54,6 +54,7 @@ from workbench.errors import SpecError, WorkbenchError
 from workbench.metrics.td_auc import time_dependent_auc
 from workbench.validation.intervals import (
     CV_RULE,
+    CV_WITHHELD_BANDS,
     RESAMPLE_RULE,
     TWO_STAGE_RULE,
     cv_interval,
@@ -201,6 +202,9 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
         if result.method == "cv" and getattr(result, "interval", "") == "corrected-t":
             from workbench.validation.estimators import cv_test_train_ratio
 
+            if CV_WITHHELD_BANDS.get("net_benefit"):
+                return DifferenceBand(**common, estimate=est, lower=nan, upper=nan, band="",
+                                      note=f"cross-validated difference; {CV_WITHHELD_BANDS['net_benefit']}")
             d = rm.nb_test[ra, j] - rbm.nb_test[rb, j]
             lo, hi = nan.copy(), nan.copy()
             for k in range(x.size):

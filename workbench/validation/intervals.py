@@ -240,6 +240,19 @@ CV_WITHHELD_DIFFERENCE = {"ici": _CV_TOO_WIDE, "e50": _CV_TOO_WIDE, "e90": _CV_T
 """Metric families whose cross-validated model-minus-baseline difference has its interval withheld."""
 
 
+_CV_NB_BAND = (
+    "no band under cross-validation: the net benefit counted on a held-out fold of about n/k patients is so "
+    "unstable that the spread of the per-fold differences far overstates the uncertainty of their mean; the "
+    "corrected band would be much too wide (simulation: pointwise coverage 1.00 of the expected difference "
+    "for a nominal 0.95)")
+
+CV_WITHHELD_BANDS = {"net_benefit": _CV_NB_BAND}
+"""Difference curves (:mod:`.difference_bands`) whose cross-validated band is withheld, with the reason.
+
+Measured in bench/bench_cv_metrics.py (``--band``); the AUC band under cv is the AUC differences at
+the horizons, which keep their interval."""
+
+
 def cv_withheld(name: str, difference: bool = False) -> str:
     """Why the corrected resampled t interval of a cross-validated metric is not shown ("" if it is).
 
