@@ -23,7 +23,11 @@ def test_cv_interval_text_names_the_corrected_rule_and_the_run_settings():
 def test_cv_interval_text_names_every_measure_whose_interval_is_withheld():
     # intervals.CV_WITHHELD / CV_WITHHELD_DIFFERENCE list the measures whose cv interval the engine
     # withholds (bench/bench_cv_metrics.py); the methods text must name each of them
-    from workbench.validation.intervals import CV_WITHHELD, CV_WITHHELD_BANDS, CV_WITHHELD_DIFFERENCE
+    from workbench.validation.intervals import (
+        CV_WITHHELD,
+        CV_WITHHELD_BANDS,
+        CV_WITHHELD_DIFFERENCE,
+    )
 
     v = {"method": "cv", "conf_level": 0.95, "interval": "corrected-t", "settings": {"folds": 5, "repeats": 10}}
     t = _interval_text(v)
