@@ -224,9 +224,10 @@ def net_benefit_difference(result, model: str, baseline: str, horizon_index: int
                                   note="optimism-corrected; band: percentiles of the paired bootstrap-sample "
                                        "differences shifted to the corrected estimate")
     what = {"none": "apparent (no internal validation), optimistic"}.get(result.method, "validated")
-    return DifferenceBand(**common, estimate=est, lower=nan, upper=nan, band="",
-                          note=f"{what}; no band: this estimator's intervals need the two-stage bootstrap "
-                               "([validation] interval = 'two-stage')")
+    why = ("no band: leave-one-centre-out gives an event-weighted mean over held-out centres, not an interval"
+           if result.method == "by_centre" else
+           "no band: this estimator's intervals need the two-stage bootstrap ([validation] interval = 'two-stage')")
+    return DifferenceBand(**common, estimate=est, lower=nan, upper=nan, band="", note=f"{what}; {why}")
 
 
 def auc_difference_internal(comparison) -> DifferenceBand:

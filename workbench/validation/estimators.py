@@ -36,7 +36,9 @@ _NO_INTERVAL = {
                  "bootstrap for an interval ([validation] interval = 'two-stage')",
     "cv": f"no interval: fewer than {CV_MIN_FOLD_VALUES} held-out fold values (more folds or repeats "
           "give one)",
-    "by_centre": "",
+    "by_centre": "no interval: the leave-one-centre-out estimate is an event-weighted mean over the held-out "
+                 "centres and its SD is their heterogeneity, not a standard error; see the per-centre values with "
+                 "their intervals and the random-effects pooling (by_group)",
     "external": "no interval: fewer than 10 usable resamples of the external patients (more replicates "
                 "give one)",
 }
