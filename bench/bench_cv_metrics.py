@@ -36,9 +36,21 @@ MC SE 0.007-0.02; 3.7 CPU s per cohort; the engine's decisions in intervals.CV_W
   IDI 0.850 / 0.940. Biases of every other quantity within 2 MC SE of 0 except the IPA
   difference (-0.0063, MC SE 0.0029).
 
+Options added for the intervals not measured above: ``--horizons 1,2,3`` (the mean AUC over the
+horizons and the AUC differences at each horizon, which are the internal AUC difference band of
+difference_bands.py), ``--components`` (NRI and IDI by events / non-events), ``--band`` (the internal
+net-benefit difference band at the middle horizon, thresholds 0.10-0.60, truth from
+bench_difference_bands.true_nb_diff), ``--no-calibration`` (skips ICI, E50, E90, slope and O/E: CPU),
+``--method bootstrap`` (the default method: optimism estimator with the two-stage interval,
+``--replicates``, ``--outer``, ``--inner``; 'rule cov' is then the engine's interval again), and
+``--first`` / ``--combine`` to split one run over processes (cohort seeds first..first+cohorts-1) and
+report the saved rows together.
+
 Run (from the repository root):
   PYTHONPATH=. nice -n 19 .venv/bin/python bench/bench_cv_metrics.py [--cohorts 200] [--n 120]
-      [--folds 5] [--repeats 10] [--save /tmp/cvm.npz]
+      [--folds 5] [--repeats 10] [--save /tmp/cvm.npz] [--horizons 1,2,3 --components --band
+      --no-calibration] [--method bootstrap --replicates 20 --outer 20 --inner 2] [--first 0]
+  PYTHONPATH=. .venv/bin/python bench/bench_cv_metrics.py --combine a.npz b.npz [same settings]
 """
 
 from __future__ import annotations
