@@ -163,7 +163,7 @@ def _interval_text(v: dict) -> str:
                 "the error; the integrated Brier score, for which each fold integrates from its own first "
                 "follow-up time, so it is biased upward; the calibration slope and the observed/expected "
                 "ratio, whose fold values are too unstable (the interval would be far too wide); and, for "
-                "differences between models, the calibration measures and the IDI (with its components); "
+                "differences between models, the calibration measures and the IDI (its components keep theirs); "
                 "nor a band for the difference in net benefit between models, whose per-fold values are too "
                 "unstable (the band would be far too wide). Intervals of the other "
                 "differences between models were conservative (coverage up to 99%).")

@@ -228,15 +228,15 @@ _CV_IBS = (
     "upward and an interval around it would fall short (the IPA, integrated or at a horizon, keeps its interval)")
 _CV_IDI = (
     "no interval under cross-validation: in simulation the corrected interval of the cross-validated IDI "
-    "fell short of the expected IDI of the modelling process")
+    "fell short of the expected IDI of the modelling process (its two components, events and non-events, "
+    "keep their intervals)")
 
 CV_WITHHELD = {"ici": _CV_CALIBRATION_ERROR, "e50": _CV_CALIBRATION_ERROR, "e90": _CV_CALIBRATION_ERROR,
                "ibs": _CV_IBS, "null_ibs": _CV_IBS, "cal_slope": _CV_TOO_WIDE, "oe_ratio": _CV_TOO_WIDE}
 """Metric families whose cross-validated interval is withheld, with the reason (:func:`cv_withheld`)."""
 
 CV_WITHHELD_DIFFERENCE = {"ici": _CV_TOO_WIDE, "e50": _CV_TOO_WIDE, "e90": _CV_TOO_WIDE,
-                          "cal_slope": _CV_TOO_WIDE, "idi": _CV_IDI, "idi_events": _CV_IDI,
-                          "idi_nonevents": _CV_IDI}
+                          "cal_slope": _CV_TOO_WIDE, "idi": _CV_IDI}
 """Metric families whose cross-validated model-minus-baseline difference has its interval withheld."""
 
 
