@@ -165,7 +165,7 @@ def _interval_text(v: dict) -> str:
                 "ratio, whose fold values are too unstable (the interval would be far too wide); and, for "
                 "differences between models, the calibration measures and the IDI (its components keep theirs); "
                 "nor a band for the difference in net benefit between models, whose per-fold values are too "
-                "unstable (the band would be far too wide). Intervals of the other "
+                "unstable (the band would be too wide: coverage 99-100%). Intervals of the other "
                 "differences between models were conservative (coverage up to 99%).")
     if v.get("interval") == "shifted-percentile":
         return (f"{level} intervals are the percentile intervals of the bootstrap-sample performance, "
