@@ -4,6 +4,38 @@ Every interval the workbench reports passes :func:`guard`: it is clipped to the
 range the metric can take (C and AUC in [0, 1], ICI/E50/E90 and Brier scores
 >= 0, differences of C in [-1, 1], ...), and it is withdrawn (NaN, with a note)
 rather than reported when it would have zero width or exclude its own estimate.
+
+Audit: the intervals of the validation engine in results.json, and what proves each
+(nominal 0.95, target 0.92-0.98, coverage of the expected / conditional estimand;
+numbers and MC SEs in the functions' docstrings and the bench scripts):
+
+* bootstrap, ``interval = "two-stage"`` (the study default; optimism estimator for Cox
+  models), :func:`two_stage_interval` for estimates, differences, NRI/IDI and both
+  internal bands - Harrell's C and its difference: bench/bench_intervals.py (0.960 / 0.970,
+  0.955 / 0.955, 200 cohorts); every other discrimination and Brier-score measure, the mean
+  AUC, the differences, NRI/IDI with components, the AUC band (differences at the horizons)
+  and the net-benefit band: bench/bench_cv_metrics.py ``--method bootstrap`` (see
+  :func:`two_stage_interval`). Not benchmarked under the bootstrap: ICI, E50, E90,
+  calibration slope, O/E and their differences, null IBS; the out-of-bootstrap and .632+
+  estimators (forests) with the two-stage interval.
+* bootstrap, ``interval = "shifted-percentile"`` (non-default, exploratory): measured short
+  (about 0.87 for C, bench/bench_intervals.py); the methods text says so. Not withheld.
+* cross-validation, :func:`cv_interval`: C and its difference bench/bench_cv_intervals.py;
+  every other measure, the NRI/IDI components and both bands bench/bench_cv_metrics.py.
+  Withheld with the reason as the estimate's note (:data:`CV_WITHHELD`,
+  :data:`CV_WITHHELD_DIFFERENCE`, :data:`CV_WITHHELD_BANDS`): ICI, E50, E90, IBS, null IBS,
+  calibration slope, O/E; differences of ICI, E50, E90, slope; the IDI; the net-benefit band.
+* external validation, :func:`resample_interval` / :func:`resample_band`:
+  bench/bench_external_intervals.py (C, Uno's C, mean AUC, AUC, Brier, IPA, O/E, slope, ICI
+  at one horizon 0.930-0.985; C and Brier differences 0.970 and 0.930) and
+  bench/bench_difference_bands.py (AUC(t) band 0.947, net-benefit band 0.959). Not
+  benchmarked externally: E50, E90, IBS, null IBS, integrated IPA, the differences of
+  measures other than C and Brier, NRI/IDI and components.
+* leave-one-centre-out: the pooled estimates, differences and the net-benefit band carry no
+  interval (the note says why); the per-centre intervals (by_group) use
+  :func:`resample_interval` on fixed predictions (the external rule); the random-effects
+  pooled C and its prediction interval: bench/bench_meta_coverage.py and
+  bench/bench_meta_pi_variants.py (pooled O/E, slope, Brier not benchmarked).
 """
 
 from __future__ import annotations
