@@ -21,6 +21,7 @@ from workbench.validation.intervals import (
     cv_withheld,
     guard,
     two_stage_interval,
+    two_stage_withheld,
 )
 from workbench.validation.results import (
     MetricEstimate,
@@ -82,7 +83,11 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
                     ilabel = "corrected-t"
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
-        if outer is not None and outer.shape[0]:
+        withheld_2s = two_stage_withheld(name, difference) if method == "bootstrap" else ""
+        if outer is not None and outer.shape[0] and withheld_2s:
+            lo = hi = np.nan
+            note = withheld_2s
+        elif outer is not None and outer.shape[0]:
             lo, hi = two_stage_interval(outer[:, j], est, conf_level)
             ilabel = "two-stage"
             if not np.isfinite(lo):
