@@ -48,15 +48,15 @@ report the saved rows together.
 
 Measured with the new options (n = 120, heavily loaded machine, so fewer cohorts than asked;
 expected / conditional estimand; full tables in intervals.cv_interval and intervals.two_stage_interval):
-  cv, ``--horizons 1,2,3 --components --band --no-calibration``, 150 cohorts (``--cohorts 400`` and
-  ``--first 200 --cohorts 200`` stopped early, ``--combine``d; 2.5 CPU s per cohort): mean AUC 0.947 /
-  0.947, its difference 0.967 / 1.000, AUC differences at 1, 2, 3 0.987-0.993 / 0.993-1.000, NRI
-  events 0.987 / 0.987, non-events 0.980 / 0.980, IDI events 0.933 / 0.993, non-events 0.933 / 0.987,
-  net-benefit band (corrected rule) 0.998 mean pointwise, worst 0.987 -> withheld.
-  bootstrap, ``--method bootstrap`` (20 replicates, 20 outer x 2 inner), same options, 50 cohorts
-  (seeds 0-24 and 100-124; 4.8 CPU s per cohort): estimates 0.920-1.000, differences 0.940-1.000,
-  NRI/IDI and components 0.900-1.000 except IDI non-events 0.840 / 0.920 -> withheld; net-benefit
-  band 0.927 / 0.920 mean pointwise (worst 0.900); AUC band 0.96-1.00.
+  cv, ``--horizons 1,2,3 --components --band --no-calibration``, 225 cohorts (``--cohorts 400`` and
+  ``--first 200 --cohorts 200`` stopped at 150 and 75, ``--combine``d; 2.5 CPU s per cohort): mean AUC
+  0.947 / 0.947, its difference 0.964 / 0.996, AUC differences at 1, 2, 3 0.978-0.987 / 0.991-0.996,
+  NRI events 0.987 / 0.978, non-events 0.987 / 0.978, IDI events 0.924 / 0.991, non-events 0.907 /
+  0.973, net-benefit band (corrected rule) 0.997 mean pointwise, worst 0.991 -> withheld.
+  bootstrap, ``--method bootstrap`` (20 replicates, 20 outer x 2 inner), same options, 75 cohorts
+  (seeds 0-49 and 100-124; 4.8 CPU s per cohort): estimates 0.920-1.000, differences 0.960-1.000,
+  NRI/IDI and components 0.907-1.000 except IDI non-events 0.867 / 0.947 -> withheld; net-benefit
+  band 0.932 / 0.925 mean pointwise (worst 0.893); AUC band 0.96-1.00.
 
 Run (from the repository root):
   PYTHONPATH=. nice -n 19 .venv/bin/python bench/bench_cv_metrics.py [--cohorts 200] [--n 120]

@@ -15,7 +15,7 @@ numbers and MC SEs in the functions' docstrings and the bench scripts):
   0.955 / 0.955, 200 cohorts); every other discrimination and Brier-score measure, the mean
   AUC, the differences, NRI/IDI with components, the AUC band (differences at the horizons)
   and the net-benefit band: bench/bench_cv_metrics.py ``--method bootstrap`` (see
-  :func:`two_stage_interval`; only 50 cohorts). Withheld: the IDI among non-events
+  :func:`two_stage_interval`; only 75 cohorts). Withheld: the IDI among non-events
   (:data:`TWO_STAGE_WITHHELD_DIFFERENCE`). Not benchmarked under the bootstrap: ICI, E50, E90,
   calibration slope, O/E and their differences, null IBS; the out-of-bootstrap and .632+
   estimators (forests) with the two-stage interval.
@@ -171,20 +171,20 @@ def two_stage_interval(v: np.ndarray, estimate: float, conf_level: float) -> tup
 
     Every other measure under the bootstrap (``bench_cv_metrics.py --method bootstrap --horizons
     1,2,3 --components --band --no-calibration``: optimism estimator, 20 replicates, 20 outer x 2
-    inner, n = 120; only 50 cohorts, seeds 0-24 and 100-124, on a heavily loaded machine, so MC SE
-    0.02-0.05; expected / conditional estimand): Harrell's C 1.000 / 1.000 (50 of 50; 0.960 / 0.970
-    over 200 cohorts above), Uno's C 0.960 / 0.960,
-    AUC at 1, 2, 3 0.940 / 0.920, 0.920 / 0.920, 0.960 / 0.960, mean AUC 0.960 / 0.960, Brier@2
-    0.940 / 0.920, IPA@2 0.940 / 0.920, IBS 0.980 / 0.980, integrated IPA 0.980 / 0.960;
-    differences: C 0.980 / 0.980, Uno's C 1.000 / 0.980, AUC at 1, 2, 3 (the internal AUC band)
-    1.000 / 1.000, 0.980 / 0.980, 0.960 / 0.960, mean AUC 1.000 / 1.000, Brier 0.940 / 0.960, IPA
-    0.960 / 0.960, IBS 0.940 / 0.940, integrated IPA 0.960 / 0.940; NRI 0.960 / 0.940, NRI events
-    0.940 / 0.940, NRI non-events 1.000 / 0.980, IDI 0.900 / 1.000, IDI events 0.920 / 0.980,
-    IDI non-events 0.840 / 0.920 (withheld, :data:`TWO_STAGE_WITHHELD_DIFFERENCE`); the internal
-    net-benefit band (11 thresholds 0.10-0.60 at horizon 2) mean pointwise 0.927 / 0.920, worst
-    point 0.900 (MC SE 0.04). Before this run NRI and IDI took the shifted-percentile interval
-    even in a two-stage run (25 cohorts: 0.840-0.960, IDI non-events 0.840 / 0.840); they now take
-    this rule over outer-sample pair estimates (:func:`.two_stage.outer_pair_estimates`). Not
+    inner, n = 120; only 75 cohorts, seeds 0-49 and 100-124, on a heavily loaded machine, so MC SE
+    0.013-0.039; expected / conditional estimand): Harrell's C 1.000 / 1.000 (75 of 75; 0.960 /
+    0.970 over 200 cohorts above), Uno's C 0.960 / 0.960, AUC at 1, 2, 3 0.960 / 0.947, 0.920 /
+    0.920, 0.960 / 0.960, mean AUC 0.960 / 0.960, Brier@2 0.947 / 0.933, IPA@2 0.933 / 0.933, IBS
+    0.960 / 0.973, integrated IPA 0.973 / 0.960; differences: C 0.987 / 0.987, Uno's C 0.987 /
+    0.973, AUC at 1, 2, 3 (the internal AUC band) 1.000 / 1.000, 0.960 / 0.973, 0.973 / 0.973, mean
+    AUC 1.000 / 0.987, Brier 0.960 / 0.973, IPA 0.973 / 0.973, IBS 0.960 / 0.960, integrated IPA
+    0.973 / 0.960; NRI 0.947 / 0.947, NRI events 0.947 / 0.960, NRI non-events 0.987 / 0.973, IDI
+    0.907 / 1.000, IDI events 0.920 / 0.973, IDI non-events 0.867 / 0.947 (MC SE 0.039; withheld,
+    :data:`TWO_STAGE_WITHHELD_DIFFERENCE`); the internal net-benefit band (11 thresholds 0.10-0.60
+    at horizon 2) mean pointwise 0.932 / 0.925, worst point 0.920 / 0.893 (MC SE 0.03). Before
+    this run NRI and IDI took the shifted-percentile interval even in a two-stage run (25 cohorts:
+    0.840-0.960, IDI non-events 0.840 / 0.840); they now take this rule over outer-sample pair
+    estimates (:func:`.two_stage.outer_pair_estimates`). Not
     measured under the bootstrap: ICI, E50, E90, calibration slope, O/E, null IBS; the
     out-of-bootstrap and .632+ estimators.
     """
@@ -245,20 +245,21 @@ def cv_interval(v: np.ndarray, estimate: float, test_train_ratio: float, conf_le
     differences of ICI, E50, E90, calibration slope (1.000 / 0.985-1.000); IDI (0.850 / 0.940).
 
     Horizons 1, 2, 3 (``bench_cv_metrics.py --horizons 1,2,3 --components --band --no-calibration``,
-    150 cohorts of n = 120, 5-fold x 10, expected / conditional, MC SE 0.003-0.019; two processes,
-    ``--first 0`` and ``--first 200``, reported with ``--combine``): shown - mean AUC 0.947 / 0.947,
-    its difference 0.967 / 1.000; AUC differences at 1, 2, 3 (the internal AUC difference band of
-    difference_bands.py) 0.987 / 0.993, 0.987 / 1.000, 0.993 / 1.000 (conservative: one to two MC SE
-    above the upper end, SE 1.2 times the SD; kept, as for the C difference); NRI 0.980 / 0.987, NRI
-    events 0.987 / 0.987, NRI non-events 0.980 / 0.980 (SE 0.173 against an SD of 0.129 / 0.143:
-    conservative); IDI events 0.933 / 0.993, IDI non-events 0.933 / 0.987 (so the components keep
-    their interval while the IDI, 0.867 / 0.980 in this run, stays withheld); AUC@2 0.940 / 0.940
-    (the 0.915 of the 200-cohort run above was one MC SE low; calibration off here, the AUC is the
-    same); Uno's C, Brier, IPA and their differences as above. Withheld (:data:`CV_WITHHELD_BANDS`):
-    the net-benefit difference band (pointwise, 11 thresholds 0.10-0.60 at horizon 2): the corrected
-    band covered 0.998 on average, worst point 0.987, its SE 1.3-1.7 times the SD of estimate - truth
-    (e.g. 0.0320 against 0.0221 at threshold 0.40). IBS with horizons to 3: rule coverage 0.980 /
-    0.973 but still biased (+0.0092, MC SE 0.0011), so it stays withheld. NaN with fewer than
+    225 cohorts of n = 120, 5-fold x 10, expected / conditional, MC SE 0.004-0.019; two processes,
+    ``--first 0`` (150 cohorts) and ``--first 200`` (75), reported with ``--combine``): shown - mean
+    AUC 0.947 / 0.947, its difference 0.964 / 0.996; AUC differences at 1, 2, 3 (the internal AUC
+    difference band of difference_bands.py) 0.982 / 0.991, 0.978 / 0.991, 0.987 / 0.996 (mildly
+    conservative, SE 1.1-1.3 times the SD; kept, as for the C difference); NRI 0.969 / 0.982, NRI
+    events 0.987 / 0.978, NRI non-events 0.987 / 0.978 (SE 0.174 against an SD of 0.133 / 0.144:
+    conservative); IDI events 0.924 / 0.991, IDI non-events 0.907 / 0.973 (at the lower end, within
+    about one MC SE; the components keep their interval while the IDI, 0.840 / 0.973 in this run,
+    stays withheld); AUC@2 0.938 / 0.938 (the 0.915 of the 200-cohort run above was one MC SE low;
+    calibration off here, the AUC is the same); Uno's C, Brier, IPA and their differences as above.
+    Withheld (:data:`CV_WITHHELD_BANDS`): the net-benefit difference band (pointwise, 11 thresholds
+    0.10-0.60 at horizon 2): the corrected band covered 0.997 on average, worst point 0.991, its SE
+    1.2-1.6 times the SD of estimate - truth (e.g. 0.0320 against 0.0232 at threshold 0.40). IBS with
+    horizons to 3: rule coverage 0.978 / 0.969 but still biased (+0.0075, MC SE 0.0010), so it stays
+    withheld. NaN with fewer than
     :data:`CV_MIN_FOLD_VALUES` finite fold values.
 
     References
@@ -315,9 +316,9 @@ _CV_NB_BAND = (
 CV_WITHHELD_BANDS = {"net_benefit": _CV_NB_BAND}
 """Difference curves (:mod:`.difference_bands`) whose cross-validated band is withheld, with the reason.
 
-Measured in bench/bench_cv_metrics.py (``--band``; 150 cohorts of n = 120, 5-fold x 10): the corrected
-band's pointwise coverage 0.998 on average over 11 thresholds (0.987-1.00 each, MC SE 0.003-0.009), its SE
-1.3-1.7 times the SD of estimate - truth. The AUC band under cv is the AUC differences at the horizons,
+Measured in bench/bench_cv_metrics.py (``--band``; 225 cohorts of n = 120, 5-fold x 10): the corrected
+band's pointwise coverage 0.997 on average over 11 thresholds (0.991-1.00 each, MC SE 0.004-0.006), its SE
+1.2-1.6 times the SD of estimate - truth. The AUC band under cv is the AUC differences at the horizons,
 which keep their interval (:func:`cv_interval`)."""
 
 
@@ -332,7 +333,7 @@ def cv_withheld(name: str, difference: bool = False) -> str:
 
 _TWO_STAGE_IDI_NONEVENTS = (
     "no interval under the two-stage bootstrap: in simulation its interval for the IDI among non-events "
-    "fell short of the expected value of the modelling process (coverage about 0.84 for a nominal 0.95)")
+    "fell short of the expected value of the modelling process (coverage about 0.87 for a nominal 0.95)")
 
 TWO_STAGE_WITHHELD_DIFFERENCE = {"idi_nonevents": _TWO_STAGE_IDI_NONEVENTS}
 """Model-against-baseline measures whose two-stage bootstrap interval is withheld, with the reason.
