@@ -105,7 +105,7 @@ def mc_se_prop(p: float, r: int) -> float:
     return float(np.sqrt(p * (1 - p) / r))
 
 
-def true_metrics(fitted: dict, fresh: Cohort, horizon: float, baseline: str | None = None,
+def true_metrics(fitted: dict, fresh: Cohort, horizon, baseline: str | None = None,
                  calibration: bool = True) -> dict:
     """Every scalar metric of each fitted model on a large uncensored fresh sample (the conditional truth).
 
@@ -114,19 +114,21 @@ def true_metrics(fitted: dict, fresh: Cohort, horizon: float, baseline: str | No
     Kaplan-Meier curve (the population marginal survival). The integrated Brier score uses 41
     equally spaced times from horizon/40 to the horizon. With ``baseline``, also the model-minus-
     baseline NRI and IDI (``evaluate_pair``) under the key ``(model, baseline)``; ``calibration=False``
-    leaves the calibration metrics NaN (faster).
+    leaves the calibration metrics NaN (faster). ``horizon`` may be a list of horizons (then the
+    mean AUC over them is defined, and the integration grid runs to the last one).
     Returns ``{model: {metric: value}}`` (plus the pair entries).
     """
     from workbench.validation.evaluate import evaluate_pair, evaluate_predictions
 
-    grid = np.linspace(horizon / 40, horizon, 41)
-    curves = {nm: m.predict_survival(fresh, grid) for nm, m in fitted.items()}
-    out = {nm: evaluate_predictions(m.predict_risk(fresh), curves[nm], fresh.y, fresh.y, [horizon],
+    h = np.atleast_1d(np.asarray(horizon, dtype=float))
+    grid = np.linspace(h[-1] / 40, h[-1], 41)
+    curves = {nm: m.predict_survival(fresh, np.unique(np.r_[grid, h])) for nm, m in fitted.items()}
+    out = {nm: evaluate_predictions(m.predict_risk(fresh), curves[nm], fresh.y, fresh.y, h,
                                     ibs_times=grid, thresholds=[0.5], calibration=calibration,
                                     model=nm).scalars()
            for nm, m in fitted.items()}
     if baseline is not None:
         for nm in fitted:
             if nm != baseline:
-                out[(nm, baseline)] = evaluate_pair(curves[nm], curves[baseline], fresh.y, [horizon]).scalars()
+                out[(nm, baseline)] = evaluate_pair(curves[nm], curves[baseline], fresh.y, h).scalars()
     return out

@@ -21,6 +21,7 @@ from workbench.validation.intervals import (
     cv_withheld,
     guard,
     two_stage_interval,
+    two_stage_withheld,
 )
 from workbench.validation.results import (
     MetricEstimate,
@@ -36,7 +37,9 @@ _NO_INTERVAL = {
                  "bootstrap for an interval ([validation] interval = 'two-stage')",
     "cv": f"no interval: fewer than {CV_MIN_FOLD_VALUES} held-out fold values (more folds or repeats "
           "give one)",
-    "by_centre": "",
+    "by_centre": "no interval: the leave-one-centre-out estimate is an event-weighted mean over the held-out "
+                 "centres and its SD is their heterogeneity, not a standard error; see the per-centre values with "
+                 "their intervals and the random-effects pooling (by_group)",
     "external": "no interval: fewer than 10 usable resamples of the external patients (more replicates "
                 "give one)",
 }
@@ -80,7 +83,11 @@ def _estimates(method: str, apparent: np.ndarray, rm: ReplicateMetrics, conf_lev
                     ilabel = "corrected-t"
         else:
             est, sd, used = by_centre_estimate(rm.test[:, j], rm.events, rm.ok)
-        if outer is not None and outer.shape[0]:
+        withheld_2s = two_stage_withheld(name, difference) if method == "bootstrap" else ""
+        if outer is not None and outer.shape[0] and withheld_2s:
+            lo = hi = np.nan
+            note = withheld_2s
+        elif outer is not None and outer.shape[0]:
             lo, hi = two_stage_interval(outer[:, j], est, conf_level)
             ilabel = "two-stage"
             if not np.isfinite(lo):
@@ -135,7 +142,7 @@ def _pair_metrics(key, tasks, outputs, arms, names, with_fold) -> ReplicateMetri
 
 def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, horizons,
                arms, conf_level, max_failure_rate, unit, estimator=None, gammas=None, outer=None,
-               cv_ratio=None):
+               cv_ratio=None, outer_pairs=None):
     names = metric_names(horizons)
     pnames = pair_metric_names(horizons)
     first = next(iter(apparent.values()))
@@ -187,8 +194,8 @@ def _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, 
         pair_reps[key] = rm
         ests = {(estimator or {}).get(nm, "optimism") for nm in key}
         pair_est[key] = _estimates(method, pp.vector(), rm, conf_level,
-                                   "optimism" if ests == {"optimism"} else "oob", difference=True,
-                                   cv_ratio=cv_ratio)
+                                   "optimism" if ests == {"optimism"} else "oob",
+                                   outer=(outer_pairs or {}).get(key), difference=True, cv_ratio=cv_ratio)
     return dict(metric_names=names, pair_metric_names=pnames, replicates=replicates,
                 estimates=estimates, failures=failures, failure_log=tuple(log),
                 dropped_metrics=dropped, selection=selection, warning_counts=warn,

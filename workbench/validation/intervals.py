@@ -4,6 +4,39 @@ Every interval the workbench reports passes :func:`guard`: it is clipped to the
 range the metric can take (C and AUC in [0, 1], ICI/E50/E90 and Brier scores
 >= 0, differences of C in [-1, 1], ...), and it is withdrawn (NaN, with a note)
 rather than reported when it would have zero width or exclude its own estimate.
+
+Audit: the intervals of the validation engine in results.json, and what proves each
+(nominal 0.95, target 0.92-0.98, coverage of the expected / conditional estimand;
+numbers and MC SEs in the functions' docstrings and the bench scripts):
+
+* bootstrap, ``interval = "two-stage"`` (the study default; optimism estimator for Cox
+  models), :func:`two_stage_interval` for estimates, differences, NRI/IDI and both
+  internal bands - Harrell's C and its difference: bench/bench_intervals.py (0.960 / 0.970,
+  0.955 / 0.955, 200 cohorts); every other discrimination and Brier-score measure, the mean
+  AUC, the differences, NRI/IDI with components, the AUC band (differences at the horizons)
+  and the net-benefit band: bench/bench_cv_metrics.py ``--method bootstrap`` (see
+  :func:`two_stage_interval`; only 75 cohorts). Withheld: the IDI among non-events
+  (:data:`TWO_STAGE_WITHHELD_DIFFERENCE`). Not benchmarked under the bootstrap: ICI, E50, E90,
+  calibration slope, O/E and their differences, null IBS; the out-of-bootstrap and .632+
+  estimators (forests) with the two-stage interval.
+* bootstrap, ``interval = "shifted-percentile"`` (non-default, exploratory): measured short
+  (about 0.87 for C, bench/bench_intervals.py); the methods text says so. Not withheld.
+* cross-validation, :func:`cv_interval`: C and its difference bench/bench_cv_intervals.py;
+  every other measure, the NRI/IDI components and both bands bench/bench_cv_metrics.py.
+  Withheld with the reason as the estimate's note (:data:`CV_WITHHELD`,
+  :data:`CV_WITHHELD_DIFFERENCE`, :data:`CV_WITHHELD_BANDS`): ICI, E50, E90, IBS, null IBS,
+  calibration slope, O/E; differences of ICI, E50, E90, slope; the IDI; the net-benefit band.
+* external validation, :func:`resample_interval` / :func:`resample_band`:
+  bench/bench_external_intervals.py (C, Uno's C, mean AUC, AUC, Brier, IPA, O/E, slope, ICI
+  at one horizon 0.930-0.985; C and Brier differences 0.970 and 0.930) and
+  bench/bench_difference_bands.py (AUC(t) band 0.947, net-benefit band 0.959). Not
+  benchmarked externally: E50, E90, IBS, null IBS, integrated IPA, the differences of
+  measures other than C and Brier, NRI/IDI and components.
+* leave-one-centre-out: the pooled estimates, differences and the net-benefit band carry no
+  interval (the note says why); the per-centre intervals (by_group) use
+  :func:`resample_interval` on fixed predictions (the external rule); the random-effects
+  pooled C and its prediction interval: bench/bench_meta_coverage.py and
+  bench/bench_meta_pi_variants.py (pooled O/E, slope, Brier not benchmarked).
 """
 
 from __future__ import annotations
@@ -135,6 +168,25 @@ def two_stage_interval(v: np.ndarray, estimate: float, conf_level: float) -> tup
     engine therefore gives cross-validation its own interval, :func:`cv_interval`, with no
     outer stage; this rule stays for the bootstrap estimators (and for cross-validation
     only with ``validate(..., cv_interval="two-stage")``).
+
+    Every other measure under the bootstrap (``bench_cv_metrics.py --method bootstrap --horizons
+    1,2,3 --components --band --no-calibration``: optimism estimator, 20 replicates, 20 outer x 2
+    inner, n = 120; only 75 cohorts, seeds 0-49 and 100-124, on a heavily loaded machine, so MC SE
+    0.013-0.039; expected / conditional estimand): Harrell's C 1.000 / 1.000 (75 of 75; 0.960 /
+    0.970 over 200 cohorts above), Uno's C 0.960 / 0.960, AUC at 1, 2, 3 0.960 / 0.947, 0.920 /
+    0.920, 0.960 / 0.960, mean AUC 0.960 / 0.960, Brier@2 0.947 / 0.933, IPA@2 0.933 / 0.933, IBS
+    0.960 / 0.973, integrated IPA 0.973 / 0.960; differences: C 0.987 / 0.987, Uno's C 0.987 /
+    0.973, AUC at 1, 2, 3 (the internal AUC band) 1.000 / 1.000, 0.960 / 0.973, 0.973 / 0.973, mean
+    AUC 1.000 / 0.987, Brier 0.960 / 0.973, IPA 0.973 / 0.973, IBS 0.960 / 0.960, integrated IPA
+    0.973 / 0.960; NRI 0.947 / 0.947, NRI events 0.947 / 0.960, NRI non-events 0.987 / 0.973, IDI
+    0.907 / 1.000, IDI events 0.920 / 0.973, IDI non-events 0.867 / 0.947 (MC SE 0.039; withheld,
+    :data:`TWO_STAGE_WITHHELD_DIFFERENCE`); the internal net-benefit band (11 thresholds 0.10-0.60
+    at horizon 2) mean pointwise 0.932 / 0.925, worst point 0.920 / 0.893 (MC SE 0.03). Before
+    this run NRI and IDI took the shifted-percentile interval even in a two-stage run (25 cohorts:
+    0.840-0.960, IDI non-events 0.840 / 0.840); they now take this rule over outer-sample pair
+    estimates (:func:`.two_stage.outer_pair_estimates`). Not
+    measured under the bootstrap: ICI, E50, E90, calibration slope, O/E, null IBS; the
+    out-of-bootstrap and .632+ estimators.
     """
     return bias_corrected_normal(v, estimate, conf_level)
 
@@ -190,9 +242,24 @@ def cv_interval(v: np.ndarray, estimate: float, test_train_ratio: float, conf_le
     here against 0.02 for the cohort; null IBS by the same mechanism, not measured separately);
     calibration slope (1.000 / 0.995, reported SE 3.7 / 1.4 times the SD, fold-level bias
     +0.09) and observed/expected ratio (1.000 / 0.955, SE 3.9 / 1.0 times the SD): too wide;
-    differences of ICI, E50, E90, calibration slope (1.000 / 0.985-1.000); IDI (0.850 / 0.940;
-    its components not measured separately). Not benchmarked: mean AUC over several horizons,
-    the NRI/IDI components, the cv bands of difference_bands.py. NaN with fewer than
+    differences of ICI, E50, E90, calibration slope (1.000 / 0.985-1.000); IDI (0.850 / 0.940).
+
+    Horizons 1, 2, 3 (``bench_cv_metrics.py --horizons 1,2,3 --components --band --no-calibration``,
+    225 cohorts of n = 120, 5-fold x 10, expected / conditional, MC SE 0.004-0.019; two processes,
+    ``--first 0`` (150 cohorts) and ``--first 200`` (75), reported with ``--combine``): shown - mean
+    AUC 0.947 / 0.947, its difference 0.964 / 0.996; AUC differences at 1, 2, 3 (the internal AUC
+    difference band of difference_bands.py) 0.982 / 0.991, 0.978 / 0.991, 0.987 / 0.996 (mildly
+    conservative, SE 1.1-1.3 times the SD; kept, as for the C difference); NRI 0.969 / 0.982, NRI
+    events 0.987 / 0.978, NRI non-events 0.987 / 0.978 (SE 0.174 against an SD of 0.133 / 0.144:
+    conservative); IDI events 0.924 / 0.991, IDI non-events 0.907 / 0.973 (at the lower end, within
+    about one MC SE; the components keep their interval while the IDI, 0.840 / 0.973 in this run,
+    stays withheld); AUC@2 0.938 / 0.938 (the 0.915 of the 200-cohort run above was one MC SE low;
+    calibration off here, the AUC is the same); Uno's C, Brier, IPA and their differences as above.
+    Withheld (:data:`CV_WITHHELD_BANDS`): the net-benefit difference band (pointwise, 11 thresholds
+    0.10-0.60 at horizon 2): the corrected band covered 0.997 on average, worst point 0.991, its SE
+    1.2-1.6 times the SD of estimate - truth (e.g. 0.0320 against 0.0232 at threshold 0.40). IBS with
+    horizons to 3: rule coverage 0.978 / 0.969 but still biased (+0.0075, MC SE 0.0010), so it stays
+    withheld. NaN with fewer than
     :data:`CV_MIN_FOLD_VALUES` finite fold values.
 
     References
@@ -228,16 +295,31 @@ _CV_IBS = (
     "upward and an interval around it would fall short (the IPA, integrated or at a horizon, keeps its interval)")
 _CV_IDI = (
     "no interval under cross-validation: in simulation the corrected interval of the cross-validated IDI "
-    "fell short of the expected IDI of the modelling process")
+    "fell short of the expected IDI of the modelling process (its two components, events and non-events, "
+    "keep their intervals)")
 
 CV_WITHHELD = {"ici": _CV_CALIBRATION_ERROR, "e50": _CV_CALIBRATION_ERROR, "e90": _CV_CALIBRATION_ERROR,
                "ibs": _CV_IBS, "null_ibs": _CV_IBS, "cal_slope": _CV_TOO_WIDE, "oe_ratio": _CV_TOO_WIDE}
 """Metric families whose cross-validated interval is withheld, with the reason (:func:`cv_withheld`)."""
 
 CV_WITHHELD_DIFFERENCE = {"ici": _CV_TOO_WIDE, "e50": _CV_TOO_WIDE, "e90": _CV_TOO_WIDE,
-                          "cal_slope": _CV_TOO_WIDE, "idi": _CV_IDI, "idi_events": _CV_IDI,
-                          "idi_nonevents": _CV_IDI}
+                          "cal_slope": _CV_TOO_WIDE, "idi": _CV_IDI}
 """Metric families whose cross-validated model-minus-baseline difference has its interval withheld."""
+
+
+_CV_NB_BAND = (
+    "no band under cross-validation: the net benefit counted on a held-out fold of about n/k patients is so "
+    "unstable that the spread of the per-fold differences far overstates the uncertainty of their mean; the "
+    "corrected band would be too wide (simulation: pointwise coverage 0.99-1.00 of the expected difference "
+    "at every threshold for a nominal 0.95)")
+
+CV_WITHHELD_BANDS = {"net_benefit": _CV_NB_BAND}
+"""Difference curves (:mod:`.difference_bands`) whose cross-validated band is withheld, with the reason.
+
+Measured in bench/bench_cv_metrics.py (``--band``; 225 cohorts of n = 120, 5-fold x 10): the corrected
+band's pointwise coverage 0.997 on average over 11 thresholds (0.991-1.00 each, MC SE 0.004-0.006), its SE
+1.2-1.6 times the SD of estimate - truth. The AUC band under cv is the AUC differences at the horizons,
+which keep their interval (:func:`cv_interval`)."""
 
 
 def cv_withheld(name: str, difference: bool = False) -> str:
@@ -247,6 +329,21 @@ def cv_withheld(name: str, difference: bool = False) -> str:
     """
     base = name.split("@")[0]
     return (CV_WITHHELD_DIFFERENCE if difference else CV_WITHHELD).get(base, "")
+
+
+_TWO_STAGE_IDI_NONEVENTS = (
+    "no interval under the two-stage bootstrap: in simulation its interval for the IDI among non-events "
+    "fell short of the expected value of the modelling process (coverage about 0.87 for a nominal 0.95)")
+
+TWO_STAGE_WITHHELD_DIFFERENCE = {"idi_nonevents": _TWO_STAGE_IDI_NONEVENTS}
+"""Model-against-baseline measures whose two-stage bootstrap interval is withheld, with the reason.
+
+Measured in ``bench/bench_cv_metrics.py --method bootstrap`` (see :func:`two_stage_interval`)."""
+
+
+def two_stage_withheld(name: str, difference: bool = False) -> str:
+    """Why the two-stage bootstrap interval of a measure is not shown ("" if it is)."""
+    return TWO_STAGE_WITHHELD_DIFFERENCE.get(name.split("@")[0], "") if difference else ""
 
 
 RESAMPLE_RULE = ("normal interval around the estimate (t on B - 1 df times the standard deviation of the "

@@ -98,7 +98,7 @@ from workbench.validation.backends import run_tasks
 from workbench.validation.engine import _apparent, _chunks, _Job, _run_chunk, _Task
 from workbench.validation.estimators import INTERVALS, _summarise
 from workbench.validation.estimators_bootstrap import ESTIMATORS, no_information
-from workbench.validation.evaluate import ibs_grid, metric_names
+from workbench.validation.evaluate import ibs_grid, metric_names, pair_metric_names
 from workbench.validation.external import validate_external
 from workbench.validation.intervals import CV_MIN_FOLD_VALUES, CV_RULE, TWO_STAGE_RULE
 from workbench.validation.plans import (
@@ -118,7 +118,12 @@ from workbench.validation.results import (
     SelectionSummary,
     ValidationResult,
 )
-from workbench.validation.two_stage import outer_estimates, outer_net_benefit, outer_tasks
+from workbench.validation.two_stage import (
+    outer_estimates,
+    outer_net_benefit,
+    outer_pair_estimates,
+    outer_tasks,
+)
 
 __all__ = [
     "FitSummary",
@@ -382,8 +387,10 @@ def validate(
     outer = (outer_estimates(method, extra, extra_out, metric_names(h), estimators, gammas, conf_level)
              if two_stage else {})
     outer_nb = outer_net_benefit(method, extra, extra_out, estimators) if two_stage else {}
+    outer_pairs = (outer_pair_estimates(method, extra, extra_out, pair_metric_names(h), estimators, conf_level)
+                   if two_stage else {})
     parts = _summarise(method, tasks, outputs, models, n_rep, apparent, apparent_pairs, fits, h,
-                       arms, conf_level, max_failure_rate, unit, estimators, gammas, outer, cv_ratio)
+                       arms, conf_level, max_failure_rate, unit, estimators, gammas, outer, cv_ratio, outer_pairs)
     if two_stage:
         notes.append(f"intervals: two-stage bootstrap, {int(outer_replicates)} outer samples x "
                      + (f"{int(inner_replicates)} inner bootstrap replicates" if method == "bootstrap"

@@ -64,7 +64,7 @@ from workbench.validation.engine import _Task
 from workbench.validation.estimators_bootstrap import bootstrap_estimate
 from workbench.validation.plans import _oob_rows, _seed_int
 
-__all__ = ["outer_estimates", "outer_net_benefit", "outer_tasks"]
+__all__ = ["outer_estimates", "outer_net_benefit", "outer_pair_estimates", "outer_tasks"]
 
 
 def outer_tasks(method: str, cohort: Cohort, outer: int, inner: int, folds: int, seed_ss,
@@ -148,6 +148,52 @@ def outer_estimates(method: str, tasks: list[_Task], outputs: list, names: tuple
                 out[m][s, j] = bootstrap_estimate(
                     est, nm, float(a[j]), None if b is None else b[:, j], None if o is None else o[:, j],
                     u[:, j], np.nan if g is None else float(g[j]), conf_level)[0]
+    return out
+
+
+def _pair_arm(pair, arm, k):
+    v = None if pair is None else pair.get(arm)
+    return np.full(k, np.nan) if v is None else np.asarray(v, dtype=float)
+
+
+def outer_pair_estimates(method: str, tasks: list[_Task], outputs: list, names: tuple, estimators: dict,
+                         conf_level: float) -> dict:
+    """NRI and IDI (model against baseline) in each outer sample: dict (model, baseline) -> (n_outer, n_metrics).
+
+    The estimator of the pair's estimate on the data (:func:`workbench.validation.estimators._summarise`):
+    optimism when both models use it, else the out-of-bootstrap mean; cross-validation the mean over
+    folds. A pair whose apparent value is missing in an outer sample, or that has no more than half of
+    its inner values, gets a NaN row there (left out of the interval).
+    """
+    k = len(names)
+    n_outer = 1 + max((t.outer for t in tasks), default=-1)
+    by_outer: dict[int, list] = {}
+    for t, o in zip(tasks, outputs, strict=True):
+        by_outer.setdefault(t.outer, []).append((t, o))
+    keys = sorted({key for o in outputs for key in o["pairs"]})
+    out = {key: np.full((n_outer, k), np.nan) for key in keys}
+    for s, rows in by_outer.items():
+        for key in keys:
+            app = [o["pairs"].get(key) for t, o in rows if t.fold == -1]
+            inner = [o["pairs"].get(key) for t, o in rows if t.fold != -1]
+            if not app or app[0] is None or sum(p is not None for p in inner) * 2 <= len(inner):
+                continue
+            a = _pair_arm(app[0], "test", k)
+            inner = [p for p in inner if p is not None]
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                if method == "cv":
+                    out[key][s] = np.nanmean([_pair_arm(p, "test", k) for p in inner], axis=0)
+                    continue
+                if all(estimators.get(m, "optimism") == "optimism" for m in key):
+                    b = np.array([_pair_arm(p, "train", k) for p in inner])
+                    o = np.array([_pair_arm(p, "test", k) for p in inner])
+                    for j, nm in enumerate(names):
+                        out[key][s, j] = bootstrap_estimate("optimism", nm, float(a[j]), b[:, j], o[:, j], None,
+                                                            np.nan, conf_level)[0]
+                else:  # out-of-bootstrap rows: the "oob" arm, or "test" when no model needed the original rows
+                    arm = "oob" if any(p.get("oob") is not None for p in inner) else "test"
+                    out[key][s] = np.nanmean([_pair_arm(p, arm, k) for p in inner], axis=0)
     return out
 
 

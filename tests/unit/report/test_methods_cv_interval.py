@@ -23,12 +23,17 @@ def test_cv_interval_text_names_the_corrected_rule_and_the_run_settings():
 def test_cv_interval_text_names_every_measure_whose_interval_is_withheld():
     # intervals.CV_WITHHELD / CV_WITHHELD_DIFFERENCE list the measures whose cv interval the engine
     # withholds (bench/bench_cv_metrics.py); the methods text must name each of them
-    from workbench.validation.intervals import CV_WITHHELD, CV_WITHHELD_DIFFERENCE
+    from workbench.validation.intervals import (
+        CV_WITHHELD,
+        CV_WITHHELD_BANDS,
+        CV_WITHHELD_DIFFERENCE,
+    )
 
     v = {"method": "cv", "conf_level": 0.95, "interval": "corrected-t", "settings": {"folds": 5, "repeats": 10}}
     t = _interval_text(v)
     words = {"ici": "ICI", "e50": "E50", "e90": "E90", "ibs": "integrated Brier score",
              "null_ibs": "integrated Brier score", "cal_slope": "calibration slope",
-             "oe_ratio": "observed/expected", "idi": "IDI", "idi_events": "IDI", "idi_nonevents": "IDI"}
-    for family in {*CV_WITHHELD, *CV_WITHHELD_DIFFERENCE}:
+             "oe_ratio": "observed/expected", "idi": "IDI", "idi_events": "IDI", "idi_nonevents": "IDI",
+             "net_benefit": "band for the difference in net benefit"}
+    for family in {*CV_WITHHELD, *CV_WITHHELD_DIFFERENCE, *CV_WITHHELD_BANDS}:
         assert words[family] in t, family

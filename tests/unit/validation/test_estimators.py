@@ -153,10 +153,12 @@ def test_cv_interval_is_the_corrected_resampled_t_interval_of_the_fold_values(sm
     # a rule without the n_test/n_train term would be about sqrt(1 + J/(k-1)) = 2.2 times narrower
     assert d.ci_upper - d.ci_lower > 2.0 * 2 * t_dist.ppf(0.975, 11) * np.std(ra.test[:, j] - rb.test[:, j],
                                                                                ddof=1) / np.sqrt(12)
+    # the cv net-benefit band is withheld with its reason (bench/bench_cv_metrics.py --band: too wide)
     band = net_benefit_difference(res, "b", "a", 0)
-    assert band.band == "corrected-t"
-    ok = np.isfinite(band.lower)
-    assert ok.any() and np.all(band.lower[ok] <= band.estimate[ok]) and np.all(band.estimate[ok] <= band.upper[ok])
+    assert band.band == "" and np.isnan(band.lower).all() and np.isnan(band.upper).all()
+    from workbench.validation.intervals import CV_WITHHELD_BANDS
+
+    assert CV_WITHHELD_BANDS["net_benefit"] in band.note and np.isfinite(band.estimate).any()
     # the same estimates whatever the interval setting; too few fold values: no interval, and why
     cheap = validate(models, small, H, method="cv", folds=4, repeats=3, random_state=4, backend="serial",
                      calibration=False)

@@ -188,6 +188,9 @@ def test_by_centre_gives_one_result_per_centre(gbsg2):
     j = res.metric_names.index("harrell_c")
     pooled = np.average(rm.test[:, j], weights=events)  # event-weighted pooling
     assert res.estimates["m"]["harrell_c"].estimate == pytest.approx(pooled)
+    # no interval for the pooled value, and the estimate says why (the per-centre blocks have them)
+    e = res.estimates["m"]["harrell_c"]
+    assert np.isnan(e.ci_lower) and "heterogeneity, not a standard error" in e.note
 
 
 def test_by_centre_needs_centres(gbsg2):
