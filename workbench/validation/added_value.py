@@ -486,8 +486,7 @@ def run_added_value(spec, models: dict, cohort: Cohort, *, progress=None) -> dic
             continue
         out[name] = added_value_test(
             m, models[base], cohort, permutations=av.permutations, folds=av.folds, random_state=spec.seed,
-            names=(name, base), backend=v.backend, workers=v.workers, scheduler=v.scheduler, progress=progress,
-            refits=av.refits)
+            names=(name, base), backend=v.backend, workers=v.workers, scheduler=v.scheduler, progress=progress)
     return out
 
 

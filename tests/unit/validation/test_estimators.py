@@ -170,3 +170,23 @@ def test_cv_interval_is_the_corrected_resampled_t_interval_of_the_fold_values(sm
     assert few.interval == "" and compare_models(few, "b", "a").differences["harrell_c"].interval == ""
     with pytest.raises(SpecError, match="cv_interval"):
         validate(models, small, H, method="cv", folds=3, repeats=2, cv_interval="magic", backend="serial")
+
+
+def test_two_stage_withholds_one_models_slope_and_oe_but_not_their_differences(small):
+    # bench/bench_cv_metrics.py --method bootstrap (100 cohorts): one model's calibration slope and O/E
+    # intervals covered 1.00 of the expected and 0.83-0.89 of the conditional calibration, so they are
+    # withheld with the reason; the ICI and the model-minus-baseline differences keep theirs.
+    from workbench.validation.intervals import TWO_STAGE_WITHHELD
+
+    models = {"a": ColumnsCox(("age", "tsize")), "b": ColumnsCox(("age", "tsize", "pnodes"))}
+    res = validate(models, small, H, replicates=4, random_state=5, backend="serial", interval="two-stage",
+                   outer_replicates=10, inner_replicates=1)
+    h = f"@{H[0]:g}"
+    for name in ("cal_slope", "oe_ratio"):
+        e = res.estimates["b"][name + h]
+        assert np.isfinite(e.estimate) and np.isnan(e.ci_lower) and e.note == TWO_STAGE_WITHHELD[name]
+        d = compare_models(res, "b", "a").differences.get(name + h)
+        if d is not None and np.isfinite(d.estimate):
+            assert d.note != TWO_STAGE_WITHHELD[name]
+    ici = res.estimates["b"]["ici" + h]
+    assert ici.interval == "two-stage" and ici.ci_lower <= ici.estimate <= ici.ci_upper
