@@ -181,24 +181,29 @@ def _design(rows: list[dict]):
     return rows[0].get("arms", ("cs",)), rows[0].get("metrics", METRICS)
 
 
-def summarise(rows: list[dict], horizons) -> pd.DataFrame:
-    """Bias (estimate minus truth) of every estimator, with its MC SE."""
-    lines = []
+def _cells(rows: list[dict]):
+    """(arm, model, metric, truth over cohorts x horizons) for every cell the rows hold."""
     arms, metrics = _design(rows)
     for a in arms:
         for model in MODELS:
             for m in metrics:
-                truth = np.array([r[(a, model, m, "truth")] for r in rows])
-                for kind in ("apparent", *ESTIMATORS):
-                    est = np.array([r[(a, model, m, kind)] for r in rows])
-                    d = est - truth
-                    ok = np.isfinite(d)
-                    for j, t in enumerate(horizons):
-                        dj = d[ok[:, j], j]
-                        lines.append({"arm": a, "model": model, "metric": m, "estimator": kind, "horizon": t,
-                                      "mean_est": np.nanmean(est[:, j]), "mean_truth": np.nanmean(truth[:, j]),
-                                      "bias": dj.mean(), "mc_se": dj.std(ddof=1) / np.sqrt(dj.size),
-                                      "sd_err": dj.std(ddof=1), "cohorts": dj.size})
+                yield a, model, m, np.array([r[(a, model, m, "truth")] for r in rows])
+
+
+def summarise(rows: list[dict], horizons) -> pd.DataFrame:
+    """Bias (estimate minus truth) of every estimator, with its MC SE."""
+    lines = []
+    for a, model, m, truth in _cells(rows):
+        for kind in ("apparent", *ESTIMATORS):
+            est = np.array([r[(a, model, m, kind)] for r in rows])
+            d = est - truth
+            ok = np.isfinite(d)
+            for j, t in enumerate(horizons):
+                dj = d[ok[:, j], j]
+                lines.append({"arm": a, "model": model, "metric": m, "estimator": kind, "horizon": t,
+                              "mean_est": np.nanmean(est[:, j]), "mean_truth": np.nanmean(truth[:, j]),
+                              "bias": dj.mean(), "mc_se": dj.std(ddof=1) / np.sqrt(dj.size),
+                              "sd_err": dj.std(ddof=1), "cohorts": dj.size})
     return pd.DataFrame(lines)
 
 
@@ -223,26 +228,22 @@ RULES = (("oob", "nb"), ("632plus", "nb"), ("oob", "plain"), ("oob", "fixed_se")
 def coverage(rows: list[dict], horizons) -> pd.DataFrame:
     """Coverage of the truth by 95% intervals around the oob and .632+ estimates, with MC SE."""
     lines = []
-    arms, metrics = _design(rows)
-    for a in arms:
-        for model in MODELS:
-            for m in metrics:
-                truth = np.array([r[(a, model, m, "truth")] for r in rows])
-                for estimator, rule in RULES:
-                    if rule == "fixed_se" and (a, model, m, "fixed_se") not in rows[0]:
-                        continue
-                    est = np.array([r[(a, model, m, estimator)] for r in rows])
-                    lims = [_limits(r, model, m, rule, horizons, estimator, a) for r in rows]
-                    lo, hi = np.array([x[0] for x in lims]), np.array([x[1] for x in lims])
-                    for j, t in enumerate(horizons):
-                        ok = np.isfinite(lo[:, j]) & np.isfinite(truth[:, j])
-                        hit = (lo[ok, j] <= truth[ok, j]) & (truth[ok, j] <= hi[ok, j])
-                        p = hit.mean() if hit.size else np.nan
-                        lines.append({"arm": a, "model": model, "metric": m, "estimator": estimator, "rule": rule,
-                                      "horizon": t, "coverage": p, "mc_se": np.sqrt(p * (1 - p) / max(hit.size, 1)),
-                                      "cohorts": int(hit.size), "mean_width": np.mean(hi[ok, j] - lo[ok, j]),
-                                      "sd_err": np.std(est[ok, j] - truth[ok, j], ddof=1),
-                                      "in_target": bool(0.92 <= p <= 0.98)})
+    for a, model, m, truth in _cells(rows):
+        for estimator, rule in RULES:
+            if rule == "fixed_se" and (a, model, m, "fixed_se") not in rows[0]:
+                continue
+            est = np.array([r[(a, model, m, estimator)] for r in rows])
+            lims = [_limits(r, model, m, rule, horizons, estimator, a) for r in rows]
+            lo, hi = np.array([x[0] for x in lims]), np.array([x[1] for x in lims])
+            for j, t in enumerate(horizons):
+                ok = np.isfinite(lo[:, j]) & np.isfinite(truth[:, j])
+                hit = (lo[ok, j] <= truth[ok, j]) & (truth[ok, j] <= hi[ok, j])
+                p = hit.mean() if hit.size else np.nan
+                lines.append({"arm": a, "model": model, "metric": m, "estimator": estimator, "rule": rule,
+                              "horizon": t, "coverage": p, "mc_se": np.sqrt(p * (1 - p) / max(hit.size, 1)),
+                              "cohorts": int(hit.size), "mean_width": np.mean(hi[ok, j] - lo[ok, j]),
+                              "sd_err": np.std(est[ok, j] - truth[ok, j], ddof=1),
+                              "in_target": bool(0.92 <= p <= 0.98)})
     return pd.DataFrame(lines)
 
 
