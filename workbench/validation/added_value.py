@@ -263,6 +263,14 @@ def _fold_designs(model, cohort: Cohort, fold: np.ndarray) -> list[_FoldDesign] 
     return out
 
 
+def _held_out_gain(model: CombinedCox, X: np.ndarray, names, tr: np.ndarray, time_, event) -> float:
+    """Held-out partial log-likelihood of one fold: the Cox fit on the training rows ``tr``,
+    the all-rows likelihood minus the training rows' one (Verweij & van Houwelingen)."""
+    fit = fit_coxph(X[tr], time_[tr], event[tr], ties=model.ties, names=names)
+    lp = linear_predictor(fit, X)
+    return float(breslow_loglik(lp, time_, event) - breslow_loglik(lp[tr], time_[tr], event[tr]))
+
+
 def _cvpl_cached(model: CombinedCox, cohort: Cohort, designs: list[_FoldDesign]) -> float:
     """:func:`cv_partial_loglik` of a CombinedCox (in-sample coefficient) with cached clinical designs.
 
@@ -286,9 +294,7 @@ def _cvpl_cached(model: CombinedCox, cohort: Cohort, designs: list[_FoldDesign])
             names = (*d.names, SIGNATURE_TERM)
         else:
             X, names = d.X_clin, d.names
-        fit = fit_coxph(X[tr], time_[tr], event[tr], ties=model.ties, names=names)
-        lp = linear_predictor(fit, X)
-        total += float(breslow_loglik(lp, time_, event) - breslow_loglik(lp[tr], time_[tr], event[tr]))
+        total += _held_out_gain(model, X, names, tr, time_, event)
     return total
 
 
@@ -328,9 +334,7 @@ def _cvpl_inner_folds(model: CombinedCox, cohort: Cohort, designs: list[_FoldDes
             X, names = np.column_stack([d.X_clin, score]), (*d.names, SIGNATURE_TERM)
         else:
             X, names = d.X_clin, d.names
-        fit = fit_coxph(X[tr], time_[tr], event[tr], ties=model.ties, names=names)
-        lp = linear_predictor(fit, X)
-        total += float(breslow_loglik(lp, time_, event) - breslow_loglik(lp[tr], time_[tr], event[tr]))
+        total += _held_out_gain(model, X, names, tr, time_, event)
     return total
 
 
