@@ -93,8 +93,8 @@ from workbench.competing.analysis import evaluate_arm, validate_competing
 from workbench.competing.estimates import ESTIMATORS, oob_interval
 from workbench.competing.fitting import target_outcome
 from workbench.competing.metrics import competing_auc
-from workbench.simulate import NETWORK_HOSPITALS, simulate_cohort
-from workbench.simulate_competing import draw_other_death
+from workbench.simulate import NETWORK_HOSPITALS, WEIBULL_SHAPE, simulate_cohort
+from workbench.simulate_competing import OTHER_SHAPE, draw_other_death
 from workbench.study import read_study
 from workbench.validation.intervals import resample_interval
 
@@ -107,18 +107,34 @@ ARMS = {"cs": ("cause", "cause_specific"), "fg": ("cause", "fine_gray"), "all": 
 """Short name -> (target, method): the cause-specific Cox and Fine-Gray models of cancer death, all-cause Cox."""
 
 
-def study(replicates_seed: int = 20261203):
+def study(replicates_seed: int = 20261203, folds: int | None = None):
+    """The demo competing study with the replicates' seed; ``folds``: the signature's penalty and
+    cross-fitting folds (both; default the study's 5), a cheaper signature for the property test."""
     spec = read_study(STUDY)
     # the bench draws its own cohorts: only predictors, imaging settings and horizons are used
-    return replace(spec, seed=replicates_seed)
+    spec = replace(spec, seed=replicates_seed)
+    if folds is not None:
+        im, models = spec.imaging, spec.models
+        spec = replace(spec, imaging=replace(im, penalty=replace(im.penalty, folds=int(folds))),
+                       models=replace(models, combined=replace(models.combined, prevalidation_folds=int(folds))))
+    return spec
 
 
-def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True) -> Cohort:
-    """A cohort with cause 0/1/2 (censored, cancer death, other death); ``censor=False`` keeps every death."""
+def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True, cancer_rate: float = 1.0,
+                              other_rate: float = 1.0) -> Cohort:
+    """A cohort with cause 0/1/2 (censored, cancer death, other death); ``censor=False`` keeps every death.
+
+    ``cancer_rate`` / ``other_rate``: multipliers of the Weibull rate of each cause's hazard
+    (workbench.simulate.WEIBULL_RATE, workbench.simulate_competing.OTHER_RATE). A Weibull
+    proportional-hazards time drawn with rate r is (-log U / (r exp(lp)))^(1/shape), so the
+    time with rate k r is that time times k^(-1/shape): the same draws, the same
+    covariates and effects, only the baseline hazard of that cause scaled by k.
+    """
     sim = simulate_cohort(n, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=N_FEATURES)
     et = sim.event_times
     t_other = draw_other_death(et["age"].to_numpy(), et["ecog"].to_numpy(), random_state=[seed, 7])
-    t_cancer = et["t_event"].to_numpy(float)
+    t_other = t_other * other_rate ** (-1.0 / OTHER_SHAPE)
+    t_cancer = et["t_event"].to_numpy(float) * cancer_rate ** (-1.0 / WEIBULL_SHAPE)
     t_censor = et["t_censor"].to_numpy(float) if censor else np.full(n, np.inf)
     time_ = np.minimum.reduce([t_cancer, t_other, t_censor])
     cause = np.where(t_cancer <= np.minimum(t_other, t_censor), 1, np.where(t_other < t_censor, 2, 0))
@@ -129,14 +145,14 @@ def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True) -> Coho
 
 
 def one_cohort(r: int, n: int, replicates: int, truth: Cohort, base_seed: int, *, arms=("cs",),
-               metrics=METRICS) -> dict:
+               metrics=METRICS, rates=(1.0, 1.0), folds: int | None = None) -> dict:
     """Every estimator (and the replicates' out-of-bootstrap values) from one run of the route on one cohort.
 
     Keys (arm, model, metric, kind): arm in :data:`ARMS`, model in :data:`MODELS`; kind "truth",
     "apparent", each estimator, and "u" (the out-of-bootstrap values, replicates x horizons).
     """
-    spec = study(base_seed + r)
-    cohort = simulate_competing_cohort(n, base_seed + 1000 + r)
+    spec = study(base_seed + r, folds)
+    cohort = simulate_competing_cohort(n, base_seed + 1000 + r, cancer_rate=rates[0], other_rate=rates[1])
     h = spec.horizons
     targets = tuple(dict.fromkeys(ARMS[a][0] for a in arms))
     with warnings.catch_warnings():
@@ -174,6 +190,7 @@ def one_cohort(r: int, n: int, replicates: int, truth: Cohort, base_seed: int, *
     out["n"], out["replicates"], out["truth_n"] = n, replicates, truth.n
     out["arms"], out["metrics"] = tuple(arms), tuple(metrics)
     out["events"] = (int(np.sum(cohort.cause == 1)), int(np.sum(cohort.cause == 2)))
+    out["cohort"], out["rates"] = r, tuple(rates)
     return out
 
 
@@ -284,7 +301,14 @@ def main(argv=None) -> pd.DataFrame:
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--seed", type=int, default=5150)
     ap.add_argument("--save", default="", help="pickle the per-cohort rows here as they arrive")
-    ap.add_argument("--rows", default="", help="summarise the rows saved by --save instead of running")
+    ap.add_argument("--rows", default="", help="summarise the rows saved by --save instead of running; several "
+                    "comma-separated files (runs of one design with different --start) are combined")
+    ap.add_argument("--start", type=int, default=0, help="first cohort index (seeds seed + index): a run continued "
+                    "with --start equal to the cohorts done draws new cohorts, --rows a,b combines them")
+    ap.add_argument("--cancer-rate", type=float, default=1.0, help="multiplier of the cancer death hazard's "
+                    "Weibull rate (below 1: fewer events of the cause of interest)")
+    ap.add_argument("--other-rate", type=float, default=1.0, help="multiplier of the other-cause death hazard's "
+                    "Weibull rate")
     ap.add_argument("--quick", action="store_true", help="12 cohorts, 8 replicates, truth from 8,000 patients")
     ap.add_argument("--arms", default="cs", help="comma-separated of cs (cause-specific Cox), fg (Fine-Gray), "
                     "all (all-cause Cox); default cs")
@@ -294,21 +318,41 @@ def main(argv=None) -> pd.DataFrame:
         a.cohorts, a.replicates, a.truth_n = 12, 8, 8_000
     start = time.time()
     if a.rows:  # print the tables of a saved run (same cohorts, the current code's intervals)
-        with open(a.rows, "rb") as fh:
-            rows = pickle.load(fh)
+        rows = combine_rows(a.rows.split(","))
         a.cohorts, a.n, a.replicates, a.truth_n = len(rows), rows[0]["n"], rows[0]["replicates"], rows[0]["truth_n"]
         return _print(rows, a, start)
-    truth = simulate_competing_cohort(a.truth_n, a.seed - 1, censor=False)
+    rates = (a.cancer_rate, a.other_rate)
+    truth = simulate_competing_cohort(a.truth_n, a.seed - 1, censor=False, cancer_rate=rates[0], other_rate=rates[1])
     rows = []
     for row in Parallel(n_jobs=a.workers, return_as="generator")(
             delayed(one_cohort)(r, a.n, a.replicates, truth, a.seed, arms=tuple(a.arms.split(",")),
-                                metrics=ALL_METRICS if a.all_metrics else METRICS) for r in range(a.cohorts)):
+                                metrics=ALL_METRICS if a.all_metrics else METRICS, rates=rates)
+            for r in range(a.start, a.start + a.cohorts)):
         rows.append(row)
         if a.save:  # the rows so far, so that a long run can be read before it ends
             with open(a.save + ".part", "wb") as fh:
                 pickle.dump(rows, fh)
             os.replace(a.save + ".part", a.save)
     return _print(rows, a, start)
+
+
+def combine_rows(paths) -> list[dict]:
+    """The rows of several saved runs of one design, each cohort once (checked: same design, no index twice)."""
+    rows, seen = [], set()
+    for p in paths:
+        with open(p, "rb") as fh:
+            part = pickle.load(fh)
+        for r in part:
+            key = r.get("cohort")
+            if key is not None and key in seen:
+                raise SystemExit(f"{p}: cohort {key} is already in an earlier file; give runs with distinct --start.")
+            seen.add(key)
+            rows.append(r)
+    design = {(r["n"], r["replicates"], r["truth_n"], r.get("arms"), r.get("metrics"), r.get("rates", (1.0, 1.0)))
+              for r in rows}
+    if len(design) > 1:
+        raise SystemExit(f"the files hold different designs {sorted(map(str, design))}; combine one design only.")
+    return rows
 
 
 def _print(rows: list[dict], a, start: float) -> pd.DataFrame:
@@ -319,7 +363,9 @@ def _print(rows: list[dict], a, start: float) -> pd.DataFrame:
           f"{N_FEATURES} imaging features, {a.replicates} replicates each; truth from {a.truth_n} uncensored "
           f"patients. Failed replicates in all: {sum(r['failed'] for r in rows)}; mean n_out/n_in "
           f"{np.mean([r['ratio'] for r in rows]):.3f}; mean events (cancer, other) "
-          f"{np.mean([r.get('events', (np.nan, np.nan)) for r in rows], axis=0).round(1)}. Nominal bias 0 (target |bias| <= 0.01); "
+          f"{np.mean([r.get('events', (np.nan, np.nan)) for r in rows], axis=0).round(1)} (min cancer "
+          f"{min(r.get('events', (np.nan,))[0] for r in rows)}); hazard rate multipliers (cancer, other) "
+          f"{rows[0].get('rates', (1.0, 1.0))}. Nominal bias 0 (target |bias| <= 0.01); "
           "model 'difference' = combined minus clinical.")
     with pd.option_context("display.width", 180, "display.max_rows", 2000):
         print(table.round(4).to_string(index=False))
