@@ -153,10 +153,12 @@ class CompetingValidation:
     note: dict = field(default_factory=dict)
     rows: tuple = ()
     gamma: dict = field(default_factory=dict)
+    events: dict = field(default_factory=dict)
 
     def table(self, estimator: str, conf_level: float = 0.95) -> ValidatedTable:
         """The validated estimates of ``estimator`` from this run's replicates."""
-        return estimate_table(self.apparent, list(self.rows), estimator, gamma=self.gamma, conf_level=conf_level)
+        return estimate_table(self.apparent, list(self.rows), estimator, gamma=self.gamma, conf_level=conf_level,
+                              events=self.events)
 
 
 def _replicate(task):
@@ -211,10 +213,12 @@ def validate_competing(cohort: Cohort, spec: StudySpec, *, replicates: int, targ
     curves = {(target, model, method): arm.predict(cohort, h, method)
               for (target, model), arm in arms.items() for method in _methods(target)
               if not (method == "fine_gray" and arm.fine_gray is None)}
-    gamma = no_information_table(curves, {t: target_outcome(cohort, t) for t in targets}, h)
-    tab = estimate_table(apparent, rows, estimator, gamma=gamma)
+    outcomes = {t: target_outcome(cohort, t) for t in targets}
+    gamma = no_information_table(curves, outcomes, h)
+    events = {t: int(np.sum(y["cause"] == 1)) for t, y in outcomes.items()}  # the target's own events
+    tab = estimate_table(apparent, rows, estimator, gamma=gamma, events=events)
     return CompetingValidation(apparent, tab.optimism, tab.corrected, arms, failed, tuple(caught), tab.estimator,
-                               tab.lower, tab.upper, tab.note, tuple(rows), gamma)
+                               tab.lower, tab.upper, tab.note, tuple(rows), gamma, events)
 
 
 def run_competing(spec: StudySpec, *, replicates: int | None = None, progress=None,

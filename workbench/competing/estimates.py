@@ -80,9 +80,9 @@ from workbench.errors import SpecError, WorkbenchError
 from workbench.validation.estimators_bootstrap import ESTIMATORS, bootstrap_estimate, point632plus
 from workbench.validation.intervals import cv_interval, guard
 
-__all__ = ["DEFAULT_ESTIMATOR", "ESTIMATORS", "ESTIMATOR_LABELS", "INTERVAL_CELLS", "INTERVAL_ESTIMATORS", "INTERVAL_MIN_PATIENTS",
-           "INTERVAL_METRICS", "INTERVAL_RULE", "NO_INTERVAL", "WITHHELD",
-           "ReplicateScores", "ValidatedTable", "estimate_table", "no_information_table", "oob_interval",
+__all__ = ["DEFAULT_ESTIMATOR", "ESTIMATORS", "ESTIMATOR_LABELS", "INTERVAL_CELLS", "INTERVAL_ESTIMATORS", "INTERVAL_MIN_EVENTS",
+           "INTERVAL_MIN_PATIENTS", "INTERVAL_METRICS", "INTERVAL_RULE", "NO_INTERVAL", "WITHHELD",
+           "ReplicateScores", "ValidatedTable", "estimate_table", "no_information_table", "oob_interval", "small_cohort_reason",
            "withheld_notes", "withheld_reason"]
 
 DEFAULT_ESTIMATOR = "632plus"
@@ -107,6 +107,13 @@ whatever this holds."""
 INTERVAL_MIN_PATIENTS: dict[tuple[str, str, str], int] = {("cause", "cause_specific", "auc"): 300}
 """Per (target, method, metric): intervals only for cohorts of at least this many patients, the
 smallest design at which the bench measured their coverage in the target; 150 where not listed."""
+INTERVAL_MIN_EVENTS: dict[tuple[str, str, str], int] = {}
+"""Per (target, method, metric): intervals only for cohorts with at least this many events of the
+target (deaths from the cause of interest; any death for ``all_cause``), the fewest at which the
+bench measured their coverage in the target; no event floor where not listed."""
+EVENT_WORDS = {"cause": "deaths from the cause of interest", "all_cause": "deaths"}
+FEW_EVENTS = ("no interval: in simulation its coverage was in the 0.92-0.98 target with about {m} {what} and "
+              "short of it with fewer; this cohort has {e}")
 SMALL_COHORT = ("no interval: in simulation its coverage was in the 0.92-0.98 target with {m} patients, and "
                 "short of it or not measured with fewer; this cohort has {n}")
 INTERVAL_METRICS: tuple[str, ...] = ("auc", "brier", "ipa")
@@ -218,12 +225,26 @@ def _values(rows, key, m, j, arm):
     return np.array([np.nan if getattr(r, arm) is None else getattr(r, arm)[key][m][j] for r in rows], dtype=float)
 
 
+def small_cohort_reason(target: str, method: str, metric: str, n_patients: int, events: dict | None) -> str:
+    """Why a cohort this size gets no interval for the cell (:data:`INTERVAL_MIN_PATIENTS`,
+    :data:`INTERVAL_MIN_EVENTS`); "" if it is large enough. ``events``: {target: events}, None = not checked."""
+    least = INTERVAL_MIN_PATIENTS.get((target, method, metric), 150)
+    if n_patients < least:
+        return SMALL_COHORT.format(n=n_patients, m=least)
+    fewest = INTERVAL_MIN_EVENTS.get((target, method, metric))
+    if fewest is not None and events is not None and events.get(target, 0) < fewest:
+        return FEW_EVENTS.format(m=fewest, what=EVENT_WORDS.get(target, "events"), e=events.get(target, 0))
+    return ""
+
+
 def estimate_table(apparent: dict, rows: list[ReplicateScores], estimator: str = DEFAULT_ESTIMATOR, *,
-                   gamma: dict | None = None, conf_level: float = 0.95) -> ValidatedTable:
+                   gamma: dict | None = None, conf_level: float = 0.95, events: dict | None = None) -> ValidatedTable:
     """Validated estimates (and, where :data:`INTERVAL_METRICS` allows, intervals) from the replicates.
 
     ``apparent``: {(target, model, method): {metric: array over horizons}}, differences
-    included; ``gamma``: :func:`no_information_table` (``632plus`` only).
+    included; ``gamma``: :func:`no_information_table` (``632plus`` only); ``events``:
+    {target: events of the target in the cohort} for :data:`INTERVAL_MIN_EVENTS` (the route
+    always gives it; None leaves the event floor unchecked).
     """
     if estimator not in ESTIMATORS:
         raise SpecError(f"unknown estimator {estimator!r}; use one of {', '.join(ESTIMATORS)}.")
@@ -254,10 +275,8 @@ def estimate_table(apparent: dict, rows: list[ReplicateScores], estimator: str =
                     else:
                         est[j] = bootstrap_estimate(estimator, m, float(a[j]), _values(rows, key, m, j, "boot"),
                                                     _values(rows, key, m, j, "orig"), u, g, conf_level)[0]
-                reason = withheld_reason(key[0], key[2], m)
-                least = INTERVAL_MIN_PATIENTS.get((key[0], key[2], m), 150)
-                if not reason and n_patients < least:
-                    reason = SMALL_COHORT.format(n=n_patients, m=least)
+                reason = withheld_reason(key[0], key[2], m) or small_cohort_reason(key[0], key[2], m, n_patients,
+                                                                                    events)
                 if estimator in INTERVAL_ESTIMATORS and not reason:
                     lo[j], hi[j], why[j] = oob_interval(m, _values(rows, key, m, j, "oob"), est[j], ratio,
                                                         conf_level, diff)

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from scipy.stats import t as t_dist
 
+from workbench.competing import estimates
 from workbench.competing.estimates import (
     DEFAULT_ESTIMATOR,
     INTERVAL_MIN_PATIENTS,
@@ -98,3 +99,25 @@ def test_intervals_only_for_cohorts_as_large_as_the_design_that_proved_them():
     assert np.isnan(tab.lower[COMB]["auc"][0]) and "this cohort has 150" in tab.note[COMB]["auc"][0]
     assert np.isfinite(tab.lower[("all_cause", "combined", "cause_specific")]["auc"][0])
     assert INTERVAL_MIN_PATIENTS[("cause", "cause_specific", "auc")] == 300
+
+
+def _replicates_with_spread(n_in: int, n_out: int) -> list[ReplicateScores]:
+    rows = [ReplicateScores(r.boot, r.orig, r.oob, n_in, n_out) for r in ROWS]
+    return [ReplicateScores(r.boot, r.orig, {k: {m: v + 0.002 * i for m, v in d.items()} for k, d in r.oob.items()},
+                            r.n_in, r.n_out) for i, r in enumerate(rows * 6)]
+
+
+def test_intervals_withheld_below_the_event_floor(monkeypatch):
+    # 190 + 110 = 300 distinct patients: enough patients; the event floor alone decides
+    monkeypatch.setattr(estimates, "INTERVAL_MIN_EVENTS", {("cause", "cause_specific", "auc"): 100})
+    rows = _replicates_with_spread(190, 110)
+    few = estimate_table(APPARENT, rows, "632plus", gamma=GAMMA, events={"cause": 60})
+    assert np.isnan(few.lower[COMB]["auc"][0]) and np.isnan(few.lower[DIFF]["auc"][0])
+    assert few.note[COMB]["auc"][0] == ("no interval: in simulation its coverage was in the 0.92-0.98 target with "
+                                        "about 100 deaths from the cause of interest and short of it with fewer; "
+                                        "this cohort has 60")
+    enough = estimate_table(APPARENT, rows, "632plus", gamma=GAMMA, events={"cause": 100})
+    assert np.isfinite(enough.lower[COMB]["auc"][0]) and enough.note[COMB]["auc"][0] == ""
+    # too few patients is said first: it is the floor the bench measured below
+    small = estimate_table(APPARENT, _replicates_with_spread(75, 75), "632plus", gamma=GAMMA, events={"cause": 60})
+    assert "this cohort has 150" in small.note[COMB]["auc"][0]

@@ -153,3 +153,14 @@ def test_replicates_give_the_same_numbers_on_one_or_two_workers(cgvhd_study):
         for m, v in opt.items():
             np.testing.assert_array_equal(v, two.optimism[key][m], err_msg=str((key, m)))
     assert any(np.any(np.isfinite(v) & (v != 0)) for opt in one.optimism.values() for v in opt.values())
+
+
+def test_validation_counts_each_targets_own_events(cgvhd_study):
+    # the event floor of the intervals (estimates.INTERVAL_MIN_EVENTS) counts the target's own
+    # events: load_cgvhd has 86 of status 1 and 10 of status 2 or 3 (its status counts)
+    from workbench.competing.analysis import validate_competing
+
+    folder, doc, _ = cgvhd_study
+    spec = study_from_dict(doc, base=folder)
+    v = validate_competing(prepare_cohort(spec).cohort, spec, replicates=0)
+    assert v.events == {"cause": 86, "all_cause": 96}
