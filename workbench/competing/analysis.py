@@ -15,10 +15,10 @@ not drawn into the sample. The validated estimate is by default Efron & Tibshira
 out-of-bootstrap and Harrell's optimism correction stay selectable
 (:mod:`workbench.competing.estimates`; ``workbench competing --estimator``). A 95%
 interval is given where the same bench measured its coverage in the target
-(:data:`workbench.competing.estimates.INTERVAL_CELLS`, from a cohort size on):
-AUC, Brier score and IPA of the cause-specific and all-cause Cox models, Brier score and
-IPA of Fine-Gray, and their combined-minus-clinical differences; the ICI and the Fine-Gray
-AUC none, each with its reason in the results.
+(:data:`workbench.competing.estimates.INTERVAL_CELLS`, from a number of patients and of
+events of the target on): AUC, Brier score and IPA of the cause-specific Cox, Fine-Gray and
+all-cause Cox models and their combined-minus-clinical differences; the ICI none, with its
+reason in the results.
 """
 
 from __future__ import annotations

@@ -21,6 +21,7 @@ from workbench.competing.estimates import (
     ReplicateScores,
     estimate_table,
     oob_interval,
+    small_cohort_reason,
 )
 
 CLIN, COMB, DIFF = (("cause", m, "cause_specific") for m in ("clinical", "combined", "combined_minus_clinical"))
@@ -114,10 +115,40 @@ def test_intervals_withheld_below_the_event_floor(monkeypatch):
     few = estimate_table(APPARENT, rows, "632plus", gamma=GAMMA, events={"cause": 60})
     assert np.isnan(few.lower[COMB]["auc"][0]) and np.isnan(few.lower[DIFF]["auc"][0])
     assert few.note[COMB]["auc"][0] == ("no interval: in simulation its coverage was in the 0.92-0.98 target with "
-                                        "about 100 deaths from the cause of interest and short of it with fewer; "
-                                        "this cohort has 60")
+                                        "100 or more deaths from the cause of interest, and short of it, far too wide "
+                                        "or not measured with fewer; this cohort has 60")
     enough = estimate_table(APPARENT, rows, "632plus", gamma=GAMMA, events={"cause": 100})
     assert np.isfinite(enough.lower[COMB]["auc"][0]) and enough.note[COMB]["auc"][0] == ""
     # too few patients is said first: it is the floor the bench measured below
     small = estimate_table(APPARENT, _replicates_with_spread(75, 75), "632plus", gamma=GAMMA, events={"cause": 60})
     assert "this cohort has 150" in small.note[COMB]["auc"][0]
+
+
+def _fine_gray(scores: dict) -> dict:
+    return {(k[0], k[1], "fine_gray"): v for k, v in scores.items()}
+
+
+def test_the_floors_measured_by_the_bench():
+    # bench/bench_competing_validation.py (module notes of workbench.competing.estimates): the
+    # AUC intervals (Fine-Gray too) in the target with 300 patients and 147-182 deaths from the
+    # cause, short of it with 45-82; Brier and IPA with 74-99 deaths in 150 patients; all-cause
+    # with 94-117 deaths in 150
+    fg_clin, fg_comb = ("cause", "clinical", "fine_gray"), ("cause", "combined", "fine_gray")
+    apparent = {**APPARENT, **_fine_gray(APPARENT)}
+
+    def rows(n_in, n_out):
+        return [ReplicateScores(*({**getattr(r, a), **_fine_gray(getattr(r, a))} for a in ("boot", "orig", "oob")),
+                                r.n_in, r.n_out) for r in _replicates_with_spread(n_in, n_out)]
+
+    big = estimate_table(apparent, rows(190, 110), "632plus", gamma=GAMMA, events={"cause": 147})
+    assert np.isfinite(big.lower[fg_comb]["auc"][0]) and np.isfinite(big.lower[COMB]["auc"][0])
+    few = estimate_table(apparent, rows(190, 110), "632plus", gamma=GAMMA, events={"cause": 146})
+    assert np.isnan(few.lower[fg_clin]["auc"][0]) and "this cohort has 146" in few.note[fg_clin]["auc"][0]
+    assert small_cohort_reason("cause", "fine_gray", "brier", 150, {"cause": 74}) == ""
+    assert "147 or more deaths" in small_cohort_reason("cause", "cause_specific", "auc", 300, {"cause": 60})
+    assert "74 or more deaths" in small_cohort_reason("cause", "cause_specific", "ipa", 300, {"cause": 73})
+    small = estimate_table(apparent, rows(95, 55), "632plus", gamma=GAMMA, events={"cause": 80})
+    assert np.isnan(small.lower[fg_comb]["auc"][0]) and "with 300 patients" in small.note[fg_comb]["auc"][0]
+    assert small_cohort_reason("all_cause", "cause_specific", "brier", 150, {"all_cause": 94}) == ""
+    assert "this cohort has 93" in small_cohort_reason("all_cause", "cause_specific", "brier", 150, {"all_cause": 93})
+    assert ("cause", "fine_gray", "auc") not in WITHHELD and ("cause", "fine_gray", "ici") in WITHHELD
