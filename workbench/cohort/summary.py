@@ -239,6 +239,14 @@ def _num(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+def _median_line(what: str, median: float, ci: tuple[float, float], u: str) -> str:
+    """'what: 12.3 months (95% CI ...)', or 'not reached' without a unit after it."""
+    lo, hi = (_num(c) + ("" if not np.isfinite(c) else f" {u}") for c in ci)
+    if not np.isfinite(median):
+        return f"{what}: not reached within follow-up (95% CI {lo} to {hi})"
+    return f"{what}: {median:.1f} {u} (95% CI {_num(ci[0])} to {_num(ci[1])})"
+
+
 def format_summary(s: CohortSummary) -> str:
     """The summary as plain text for a terminal or a log."""
     u = s.time_unit
@@ -252,8 +260,7 @@ def format_summary(s: CohortSummary) -> str:
         f"censored {s.n_censored - s.n_competing}",
         f"Median follow-up (reverse Kaplan-Meier): {_num(s.median_followup)} {u} "
         f"(95% CI {_num(s.median_followup_ci[0])} to {_num(s.median_followup_ci[1])}); longest {s.max_followup:.1f} {u}",
-        f"Median survival: {_num(s.median_survival)} {u} "
-        f"(95% CI {_num(s.median_survival_ci[0])} to {_num(s.median_survival_ci[1])})",
+        _median_line("Median survival", s.median_survival, s.median_survival_ci, u),
     ]
     if s.n_competing is not None:
         lines.append("(Kaplan-Meier figures here censor the competing events: cause-specific, not the risk of the "

@@ -516,7 +516,7 @@ def format_results(result) -> str:
     sel = result.validation.selection.get("combined")
     if sel is not None and sel.n_fits and sel.apparent:
         shaky = sel.unstable
-        lines.append(f"Signature: {len(sel.apparent)} features; "
+        lines.append(f"Signature: {len(sel.apparent)} feature{'s' if len(sel.apparent) != 1 else ''}; "
                      + (f"kept by fewer than half of the {sel.n_fits} refits (unstable): {', '.join(shaky)}."
                         if shaky else f"each kept by at least half of the {sel.n_fits} refits."))
     lines += [
