@@ -233,8 +233,11 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
                              f"the expected number of falsely selected features by {st['bound']:.2f}."))
         weights = ("their unpenalised Cox coefficients on the development rows" if st is not None
                    else "the penalised coefficients")
-        out.append(Claim("imaging.signature", f"The {len(sig['selected'])} kept features formed a signature "
-                         f"score (their standardised values weighted by {weights}), which entered "
+        k = len(sig['selected'])
+        kept = (f"The {k} kept features formed a signature score (their standardised values weighted by {weights})"
+                if k != 1 else f"The one kept feature formed the signature score (its standardised value weighted by "
+                f"{weights.replace('their', 'its').replace('coefficients', 'coefficient')})")
+        out.append(Claim("imaging.signature", f"{kept}, which entered "
                          "a Cox model beside the clinical terms."))
         vc = combined.get("volume_correlation")
         if vc:
