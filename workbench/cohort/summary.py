@@ -239,6 +239,12 @@ def _num(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+def _per_feature_line(epf: float) -> str:
+    if epf < 10:  # fewer than 10 events per candidate parameter: common practice
+        return f"Events per imaging feature: {epf:.2f} (why the signature needs penalisation and honest validation)"
+    return f"Events per imaging feature: {epf:.1f}"
+
+
 def _median_line(what: str, median: float, ci: tuple[float, float], u: str) -> str:
     """'what: 12.3 months (95% CI ...)', or 'not reached' without a unit after it."""
     lo, hi = (_num(c) + ("" if not np.isfinite(c) else f" {u}") for c in ci)
@@ -302,8 +308,8 @@ def format_summary(s: CohortSummary) -> str:
         "",
         f"Events per candidate clinical parameter: {s.events_per_clinical_parameter:.1f} "
         f"({s.n_events} events / {s.n_clinical_parameters} parameters, {s.clinical_parameters_source})",
-        f"Events per imaging feature: {s.events_per_feature:.2f} (why the signature needs penalisation and honest validation)"
-        if s.n_features else "Events per imaging feature: not applicable (no imaging features)",
+        _per_feature_line(s.events_per_feature) if s.n_features
+        else "Events per imaging feature: not applicable (no imaging features)",
         "",
         f"Minimum sample size for a Cox model with {ss.n_parameters} parameters (Riley et al. 2019/2020),",
         f"  Cox-Snell R-squared {ss.r2_cs:.3f}, {ss.r2_cs_source}; maximum {ss.max_r2_cs:.3f}:",
