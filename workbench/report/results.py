@@ -266,6 +266,9 @@ def results_dict(result) -> dict:
             "settings": jsonable(v.settings),
             "n_replicates": jsonable(v.n_replicates),
             "failures": jsonable(v.failures),
+            "failure_log": [{"model": f.model, "replicate": int(f.replicate),
+                             "fold": None if f.fold is None else int(f.fold), "stage": f.stage, "message": f.message}
+                            for f in v.failure_log],
             "dropped_metrics": jsonable(v.dropped_metrics),
             "warning_counts": jsonable(v.warning_counts),
             "notes": list(v.notes),

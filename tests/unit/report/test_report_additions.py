@@ -190,3 +190,19 @@ def test_appendix_names_only_the_whole_pool_models_that_were_fitted(result):
     assert text.startswith("The random survival forest uses every feature of the pool; its ")
     assert "fitted trees" in text and "coefficients" not in text
     assert ("ComBat" in text) == (result.spec.imaging.harmonise.method != "none")
+
+
+def test_results_json_keeps_the_reason_of_every_failed_replicate(result):
+    # The validation note points to the reasons; results.json once kept only the counts.
+    import json
+    from dataclasses import replace
+
+    from workbench.report.results import results_dict
+    from workbench.validation.results import ReplicateFailure
+
+    fail = ReplicateFailure("combined", 7, None, "fit", "the penalised path did not converge")
+    v = replace(result.validation, failure_log=(fail,), failures={**result.validation.failures, "combined": 1})
+    d = json.loads(json.dumps(results_dict(replace(result, validation=v))))
+    assert d["validation"]["failure_log"] == [{"model": "combined", "replicate": 7, "fold": None, "stage": "fit",
+                                               "message": "the penalised path did not converge"}]
+    assert d["validation"]["failures"]["combined"] == 1
