@@ -101,7 +101,7 @@ FILES = ("json", "bundle", "folder", "report")
 """The files the second worker writes, in this order (the slowest last)."""
 
 BACKGROUND_ONLY = ("report",)
-"""Files never built in a view's thread while the background thread runs: the report takes 10-20 s of
+"""Files never built in a view's thread while the background thread runs: the report takes about 10 s of
 CPU, and built in a script thread it would hold the interpreter lock against every view for as long.
 The others take well under a second, so a view that needs one at once may build it (when no worker can)."""
 
