@@ -48,6 +48,11 @@ before -> after: cold start 12.6 (3.39) -> 42.7 (3.59); first figure after the r
 (1.17) -> 56.5 (0.66); cancel 0.61 (0.08) -> 0.76 (0.45). Only the first figure after a run
 improved clearly in both pairs; the cached Results view did not (better in one pair, worse in
 the other; after the change the figure worker is still drawing the other figures then).
+Measured 2026-12-04 16:27-16:53 UTC (3 rounds, load average 15-24 from other work: wall times say
+nothing about the targets), after the report was kept out of the server's script thread and the
+workers stopped running the app's main script: "Export report ready" 148 s median (107-262) with
+the server's CPU meanwhile 1.2 s median (1.17-1.83): the report was written in the files worker
+in every round (written in the server, its CPU was 18.9-30 s in the rounds above).
 """
 
 from __future__ import annotations

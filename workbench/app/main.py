@@ -39,4 +39,9 @@ def main() -> None:
     page.run()
 
 
-main()
+# Streamlit runs this script as "__main__" (its own stand-in module, whose __file__ is this file).
+# A worker process started by app/workers.py while a script runs (spawn) re-runs the file named by
+# __main__.__file__ under the name "__mp_main__": without this test every worker ran the app's
+# first page in bare mode when it started.
+if __name__ == "__main__":
+    main()
