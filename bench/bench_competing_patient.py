@@ -78,15 +78,16 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).parent))
 from bench_competing import FG_B1, FG_P, simulate_fine_gray  # noqa: E402
 from bench_competing_validation import N_FEATURES, simulate_competing_cohort, study  # noqa: E402
-from joblib import Parallel, delayed  # noqa: E402
 
 from workbench.competing.absolute_risk import cause_specific_risks, fine_gray_risk  # noqa: E402
 from workbench.competing.fitting import fit_arm, target_outcome  # noqa: E402
 from workbench.competing.outcome import make_competing_outcome  # noqa: E402
+from workbench.competing.refit_limits import refit_arms, refit_limits, replicate_risks  # noqa: E402
 from workbench.competing.regression import fit_cause_specific, fit_fine_gray  # noqa: E402
 from workbench.estimate_competing import arm_training_design  # noqa: E402
 from workbench.simulate import NETWORK_HOSPITALS, WEIBULL_RATE, WEIBULL_SHAPE, simulate_cohort  # noqa: E402
 from workbench.simulate_competing import OTHER_RATE, OTHER_SHAPE, other_cause_lp  # noqa: E402
+from workbench.validation.backends import run_tasks  # noqa: E402
 
 HORIZONS = np.array([0.5, 1.0, 2.0])
 PATIENTS = np.array([[0.0, 0.0], [1.0, 1.0]])
@@ -172,11 +173,11 @@ def print_row(lab: str, what: str, h: float, truth: float, b, z) -> None:
           f"{p:>10.3f}{se:>7.3f}{coverage(z, Z95 / 2)[0]:>7.3f}{coverage(z, 2 * Z95)[0]:>8.3f}")
 
 
-def demo_patients(k: int, seed: int):
+def demo_patients(k: int, seed: int, n_features: int = N_FEATURES):
     """``k`` patients of the demo generator (a Cohort) and their true cancer and other-cause log hazards."""
-    cohort = simulate_competing_cohort(k, seed, censor=False)
+    cohort = simulate_competing_cohort(k, seed, censor=False, n_features=n_features)
     # the same draw again for its true linear predictors (simulate_competing_cohort keeps the measured values only)
-    sim = simulate_cohort(k, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=N_FEATURES)
+    sim = simulate_cohort(k, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=n_features)
     lps = sim.linear_predictors
     lp1 = (lps["lp_clinical"] + lps["lp_imaging"]).to_numpy(float)
     lp2 = other_cause_lp(sim.event_times["age"].to_numpy(), sim.event_times["ecog"].to_numpy())
@@ -194,10 +195,16 @@ def true_demo_incidence(lp1: float, lp2: float, horizons, steps: int = 4000) -> 
     return np.interp(np.asarray(horizons, float), u, F)
 
 
-def pipeline_cohort(r: int, n: int, patients, seed: int) -> dict:
-    """One simulated cohort: both arms fitted as the route fits them, limits for the fixed patients."""
+def pipeline_cohort(r: int, n: int, patients, seed: int, refits: int = 0, n_features: int = N_FEATURES) -> dict:
+    """One simulated cohort: both arms fitted as the route fits them, limits for the fixed patients.
+
+    With ``refits`` > 0 each arm is also refitted on ``refits`` bootstrap samples
+    (workbench.competing.refit_limits, serially inside this cohort's task) and both refit
+    interval forms are kept: key (model, route, "refit") -> (patient, [estimate, refit SD,
+    cloglog lower, cloglog upper, percentile lower, percentile upper], horizon).
+    """
     spec = study(seed + r)
-    cohort = simulate_competing_cohort(n, seed + 1000 + r)
+    cohort = simulate_competing_cohort(n, seed + 1000 + r, n_features=n_features)
     h = np.asarray(spec.horizons, float)
     y = target_outcome(cohort, "cause")
     out = {}
@@ -217,12 +224,71 @@ def pipeline_cohort(r: int, n: int, patients, seed: int) -> dict:
                     cells.append(np.vstack([a.risk[k], a.se[k], a.lower[k], a.upper[k]]))
                 out[(model, route)] = np.array(cells)  # (patient, [risk, se, lower, upper], horizon)
             out[(model, "selected")] = arm.n_selected
+            if refits:
+                rb = refit_arms(cohort, spec, imaging=model == "combined", replicates=refits,
+                                random_state=int(spec.seed), backend="serial", workers=1)
+                rr = replicate_risks(rb, patients, h)
+                for route, draws in (("cause_specific", rr.cause_specific[:, rr.causes.index(1)]),
+                                     ("fine_gray", rr.fine_gray)):
+                    est = out[(model, route)][:, 0]
+                    lo_c, hi_c, sd = refit_limits(est, draws, form="cloglog")
+                    lo_p, hi_p, _ = refit_limits(est, draws, form="percentile")
+                    out[(model, route, "refit")] = np.stack([est, sd, lo_c, hi_c, lo_p, hi_p], axis=1)
+                out[(model, "refit_failed")] = rb.failed
+                out[(model, "refit_empty")] = rb.empty
     return out
 
 
-def run_pipeline(cohorts: int, n: int, seed: int, workers: int, save: str = "", saved: str = "") -> None:
+def _cohort_task(task):
+    return pipeline_cohort(*task)
+
+
+def _pooled_mc(hits) -> tuple[float, float]:
+    """Pooled coverage over cells and its MC SE from the cohorts (cells of one cohort are correlated)."""
+    per = hits.reshape(hits.shape[0], -1).mean(axis=1)
+    return float(per.mean()), float(per.std(ddof=1) / np.sqrt(per.size))
+
+
+def summarise_refit(rows, truth, h) -> None:
+    """The refit-bootstrap rows next to the delta-method rows, per patient and pooled."""
+    R = len(rows)
+    print(f"\n   refit bootstrap ({rows[0].get('refits', '?')} refits per cohort) next to the delta method; "
+          "SE/SD = mean reported SE / empirical SD of the estimate over cohorts; width = mean upper - lower")
+    print(f"   {'model':<9}{'route':<15}{'limits':<11}{'pat':>4}{'SE/SD':>7}{'width':>7}{'cov mean':>9}"
+          f"{'cov true':>9}   (per patient, pooled over horizons; cell MC SE <= {np.sqrt(.25 / R):.3f})")
+    pooled = []
+    for model in ("clinical", "combined"):
+        for route in ("cause_specific", "fine_gray"):
+            d = np.array([r[(model, route)] for r in rows])  # (cohort, patient, 4, horizon)
+            b = np.array([r[(model, route, "refit")] for r in rows])  # (cohort, patient, 6, horizon)
+            est = d[:, :, 0]
+            mean = est.mean(axis=0)
+            sd = est.std(axis=0, ddof=1)
+            forms = {"delta": (d[:, :, 1], d[:, :, 2], d[:, :, 3]),
+                     "refit clog": (b[:, :, 1], b[:, :, 2], b[:, :, 3]),
+                     "refit pct": (b[:, :, 1], b[:, :, 4], b[:, :, 5])}
+            for lab, (se, lo, hi) in forms.items():
+                cm = (lo <= mean) & (mean <= hi)
+                ct = (lo <= truth) & (truth <= hi)
+                for i in range(truth.shape[0]):
+                    print(f"   {model:<9}{route:<15}{lab:<11}{i:>4}{np.median(se[:, i].mean(0) / sd[i]):>7.2f}"
+                          f"{(hi - lo)[:, i].mean():>7.3f}{cm[:, i].mean():>9.3f}{ct[:, i].mean():>9.3f}")
+                pooled.append((model, route, lab, _pooled_mc(cm), _pooled_mc(ct), np.median(se.mean(0) / sd),
+                               float((hi - lo).mean()), float(np.mean(np.percentile(se.mean(0) / sd, 0)))))
+    print("\n   pooled over the 8 patients and 3 horizons (MC SE from the spread of the per-cohort coverage):")
+    for model, route, lab, (pm, pm_se), (pt, pt_se), ratio, width, worst in pooled:
+        print(f"   {model:<9}{route:<15}{lab:<11} coverage of the mean {pm:.3f} (MC SE {pm_se:.3f}), of the latent "
+              f"truth {pt:.3f} ({pt_se:.3f}); SE/SD median {ratio:.2f}, lowest {worst:.2f}; mean width {width:.3f}")
+    for model in ("clinical", "combined"):
+        f = sum(r.get((model, "refit_failed"), 0) for r in rows)
+        e = sum(r.get((model, "refit_empty"), 0) for r in rows)
+        print(f"   {model}: failed refits {f}, refits with an empty signature {e} (of {R} x {rows[0].get('refits')})")
+
+
+def run_pipeline(cohorts: int, n: int, seed: int, workers: int, save: str = "", saved: str = "", refits: int = 0,
+                 n_features: int = N_FEATURES) -> None:
     t0 = time.perf_counter()
-    patients, lp1, lp2 = demo_patients(8, seed - 1)
+    patients, lp1, lp2 = demo_patients(8, seed - 1, n_features)
     h = np.asarray(study().horizons, float)
     truth = np.array([true_demo_incidence(a, b, h) for a, b in zip(lp1, lp2, strict=True)])
     if saved:  # the rows of an earlier (possibly unfinished) run
@@ -231,14 +297,18 @@ def run_pipeline(cohorts: int, n: int, seed: int, workers: int, save: str = "", 
         cohorts = len(rows)
     else:
         rows = []
-        for row in Parallel(n_jobs=workers, return_as="generator")(
-                delayed(pipeline_cohort)(r, n, patients, seed) for r in range(cohorts)):
-            rows.append(row)
+        tasks = [(r, n, patients, seed, refits, n_features) for r in range(cohorts)]
+        step = max(1, workers)
+        for start in range(0, cohorts, step):  # chunks of one cohort per worker, saved as they finish
+            for row in run_tasks(_cohort_task, tasks[start:start + step], backend="processes", workers=workers):
+                row["refits"] = refits
+                rows.append(row)
             if save:  # the rows so far, so that a long run can be read before it ends
                 with open(save + ".part", "wb") as fh:
                     pickle.dump(rows, fh)
                 os.replace(save + ".part", save)
-    print(f"3. Whole pipeline: {cohorts} cohorts of n = {n} from the demo generator (seed {seed}), 8 fixed patients, "
+    print(f"3. Whole pipeline: {cohorts} cohorts of n = {n} from the demo generator ({n_features} imaging features, "
+          f"seed {seed}), 8 fixed patients, "
           f"horizons {', '.join(f'{t:g}' for t in h)} months; nominal coverage 0.95, MC SE sqrt(p(1-p)/R). Mean "
           f"signature size {np.mean([r[('combined', 'selected')] for r in rows]):.1f} features.")
     print(f"   {'model':<9}{'route':<15}{'pat':>4}{'t':>5}{'true':>7}{'mean':>7}{'emp SD':>8}{'mean SE':>8}"
@@ -264,6 +334,8 @@ def run_pipeline(cohorts: int, n: int, seed: int, workers: int, save: str = "", 
     for (model, route), (pm, pt, ratio) in pooled.items():
         print(f"   {model:<9}{route:<15} coverage of the mean {pm:.3f} (cell MC SE {np.sqrt(pm * (1 - pm) / R):.3f}), "
               f"of the latent truth {pt:.3f}; median SE/SD ratio {ratio:.2f}")
+    if ("combined", "fine_gray", "refit") in rows[0]:
+        summarise_refit(rows, truth, h)
     print(f"\nwall time {time.perf_counter() - t0:.1f} s with {workers} workers")
 
 
@@ -276,9 +348,13 @@ def main() -> None:
     ap.add_argument("--workers", type=int, default=1, help="parallel cohorts of section 3")
     ap.add_argument("--save", default="", help="section 3: pickle the per-cohort rows here as they arrive")
     ap.add_argument("--rows", default="", help="section 3: summarise the rows saved by --save instead of running")
+    ap.add_argument("--refits", type=int, default=0,
+                    help="section 3: also the refit-bootstrap limits with this many refits per arm and cohort")
+    ap.add_argument("--features", type=int, default=N_FEATURES, help="section 3: imaging features (44-291)")
     args = ap.parse_args()
     if args.pipeline:
-        return run_pipeline(args.cohorts, args.n, args.seed, args.workers, args.save, args.rows)
+        return run_pipeline(args.cohorts, args.n, args.seed, args.workers, args.save, args.rows, args.refits,
+                            args.features)
     t0 = time.perf_counter()
     rows = run(args.cohorts, args.n, args.seed)
     R = args.cohorts
