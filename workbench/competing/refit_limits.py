@@ -35,12 +35,13 @@ from __future__ import annotations
 
 import time
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from statistics import NormalDist
 
 import numpy as np
 
 from workbench.cohort.core import Cohort
+from workbench.competing.absolute_risk import AbsoluteRisk
 from workbench.competing.fitting import FittedArm, fit_arm
 from workbench.competing.regression import (
     predict_incidence_cause_specific,
@@ -51,13 +52,17 @@ from workbench.study import StudySpec
 from workbench.validation.backends import run_tasks
 from workbench.validation.plans import _seed_int
 
-__all__ = ["DEFAULT_REFITS", "FORMS", "MIN_REFITS", "RefitBootstrap", "RefitRisks", "refit_arms", "refit_limits",
-           "replicate_risks"]
+__all__ = ["DEFAULT_REFITS", "FORMS", "MIN_REFITS", "REFIT_FORM", "REFIT_WITHHELD", "RefitBootstrap", "RefitRisks",
+           "refit_arms", "refit_limits", "refit_note", "refit_withheld", "replicate_risks", "with_refit_limits"]
 
 FORMS = ("cloglog", "percentile")
 DEFAULT_REFITS = 200
 MIN_REFITS = 50  # fewer replicates leave the 2.5th / 97.5th percentiles and the SD unstable (common practice)
 MIN_SUCCESS = 0.9  # below this share of successful refits the limits are withheld
+REFIT_FORM = "cloglog"
+"""The interval form the patient estimate shows (chosen in bench/bench_competing_patient.py --pipeline --refits)."""
+REFIT_WITHHELD: str | None = None
+"""None when the simulation held the limits in the target; otherwise why they are withheld (shown to the user)."""
 _STREAM = 0x7265666974  # "refit": a seed stream apart from the validation replicates
 
 
@@ -239,3 +244,52 @@ def refit_limits(estimate, draws, *, form: str = "cloglog", conf_level: float = 
     if survival:
         return q_lo, q_hi, se
     return 1 - q_hi, 1 - q_lo, se
+
+
+def refit_withheld(refits: RefitBootstrap | None, *, from_score: bool = False) -> str | None:
+    """Why refit limits cannot be shown for a patient (None: they can)."""
+    if refits is None:
+        return "no refits were asked for"
+    if REFIT_WITHHELD is not None:
+        return REFIT_WITHHELD
+    if not refits.imaging:
+        return "the refits are of the clinical model, not of the clinical + signature model"
+    if from_score:
+        return ("No confidence limits: the refit-bootstrap limits need the patient's imaging values, because every "
+                "refit selects and weights its own signature; a score of the full-data signature cannot be carried "
+                "to the refits. Give the imaging values instead of the score.")
+    if not refits.ok:
+        return (f"No confidence limits: only {len(refits.arms)} of {refits.replicates} refits succeeded (at least "
+                f"{MIN_REFITS} and {MIN_SUCCESS:.0%} are needed).")
+    return None
+
+
+def refit_note(refits: RefitBootstrap) -> str:
+    """The note a patient estimate with refit limits carries: which method made them."""
+    form = {"cloglog": "the full-data estimate +- z x the refits' SD on the log(-log) scale",
+            "percentile": "the refits' percentiles"}[REFIT_FORM]
+    extra = f"; {refits.empty} refits selected no imaging feature" if refits.empty else ""
+    return (f"Limits: bootstrap refitting the whole model ({len(refits.arms)} of {refits.replicates} refits on "
+            f"resampled patients: clinical terms, harmonisation, signature selection and weights, regressions; "
+            f"seed {refits.seed}{extra}); {form}.")
+
+
+def with_refit_limits(cs: AbsoluteRisk, fg: AbsoluteRisk | None, draws: RefitRisks, *,
+                      conf_level: float = 0.95, form: str | None = None) -> tuple[AbsoluteRisk, AbsoluteRisk | None]:
+    """The full-data absolute risks of ONE patient with limits and SE from the refits (probability scale)."""
+    form = REFIT_FORM if form is None else form
+    if draws.cause_specific.shape[2] != 1:
+        raise SpecError(f"refit limits are set one patient at a time; the draws hold {draws.cause_specific.shape[2]}.")
+    if tuple(cs.causes) != draws.causes:
+        raise ModelError(f"the refits modelled causes {draws.causes}, the full-data fit {cs.causes}.")
+    lo, hi, se = refit_limits(cs.risk, draws.cause_specific[:, :, 0], form=form, conf_level=conf_level)
+    flo, fhi, fse = refit_limits(cs.event_free, draws.event_free[:, 0], form=form, conf_level=conf_level,
+                                 survival=True)
+    cs = replace(cs, lower=lo, upper=hi, se=se, event_free_lower=flo, event_free_upper=fhi, event_free_se=fse,
+                 conf_level=float(conf_level))
+    if fg is not None:
+        if draws.fine_gray is None:
+            raise ModelError("a refit has no Fine-Gray model (a bootstrap sample without a competing event).")
+        glo, ghi, gse = refit_limits(fg.risk, draws.fine_gray[:, None, 0], form=form, conf_level=conf_level)
+        fg = replace(fg, lower=glo, upper=ghi, se=gse, conf_level=float(conf_level))
+    return cs, fg
