@@ -254,7 +254,7 @@ def summarise_refit(rows, truth, h) -> None:
     R = len(rows)
     print(f"\n   refit bootstrap ({rows[0].get('refits', '?')} refits per cohort) next to the delta method; "
           "SE/SD = mean reported SE / empirical SD of the estimate over cohorts; width = mean upper - lower")
-    print(f"   {'model':<9}{'route':<15}{'limits':<11}{'pat':>4}{'SE/SD':>7}{'width':>7}{'cov mean':>9}"
+    print(f"   {'model':<9}{'route':<15}{'limits':<11}{'pat':>4}{'true36':>7}{'SE/SD':>7}{'width':>7}{'cov mean':>9}"
           f"{'cov true':>9}   (per patient, pooled over horizons; cell MC SE <= {np.sqrt(.25 / R):.3f})")
     pooled = []
     for model in ("clinical", "combined"):
@@ -271,7 +271,8 @@ def summarise_refit(rows, truth, h) -> None:
                 cm = (lo <= mean) & (mean <= hi)
                 ct = (lo <= truth) & (truth <= hi)
                 for i in range(truth.shape[0]):
-                    print(f"   {model:<9}{route:<15}{lab:<11}{i:>4}{np.median(se[:, i].mean(0) / sd[i]):>7.2f}"
+                    print(f"   {model:<9}{route:<15}{lab:<11}{i:>4}{truth[i, -1]:>7.3f}"
+                          f"{np.median(se[:, i].mean(0) / sd[i]):>7.2f}"
                           f"{(hi - lo)[:, i].mean():>7.3f}{cm[:, i].mean():>9.3f}{ct[:, i].mean():>9.3f}")
                 pooled.append((model, route, lab, _pooled_mc(cm), _pooled_mc(ct), np.median(se.mean(0) / sd),
                                float((hi - lo).mean()), float(np.mean(np.percentile(se.mean(0) / sd, 0)))))

@@ -23,6 +23,7 @@ from workbench.cohort.summary import CAUTION
 from workbench.competing.fitting import fit_arm
 from workbench.competing.refit_limits import (
     MIN_REFITS,
+    REFIT_FORM,
     REFIT_WITHHELD,
     RefitBootstrap,
     _draw,
@@ -30,9 +31,12 @@ from workbench.competing.refit_limits import (
     refit_arms,
     refit_limits,
     refit_withheld,
+    replicate_risks,
+    with_refit_limits,
 )
 from workbench.errors import SpecError
-from workbench.estimate_competing import estimate_competing_patient
+from workbench.estimate import patient_cohort
+from workbench.estimate_competing import competing_ranges, estimate_competing_patient
 from workbench.prepare import prepare_cohort
 from workbench.study import read_study
 
@@ -66,7 +70,7 @@ def small(tmp_path_factory):
     return path, tmp
 
 
-def test_command_refit_limits_for_several_patients_and_json(small, capsys):
+def test_command_for_several_patients_and_json(small, capsys):
     path, tmp = small
     out = tmp / "est.json"
     assert main(["competing-estimate", str(path), "--model", "combined", "--patient", str(tmp / "two.csv"),
@@ -74,29 +78,50 @@ def test_command_refit_limits_for_several_patients_and_json(small, capsys):
     text = capsys.readouterr().out
     assert "Patient 1 of 2" in text and "Patient 2 of 2" in text and text.rstrip().endswith(f"Caution: {CAUTION}")
     got = json.loads(out.read_text())
-    assert got["refits"]["replicates"] == MIN_REFITS and len(got["patients"]) == 2
+    assert len(got["patients"]) == 2 and got["seed"] == read_study(path).seed
+    assert got["patients"][0]["risks"][0]["estimate"] != got["patients"][1]["risks"][0]["estimate"]
     for p in got["patients"]:
         assert p["model"] == "combined" and p["caution"] == CAUTION
-        if REFIT_WITHHELD is None:
+        if REFIT_WITHHELD is None:  # one set of refits for both patients, the method named
+            assert got["refits"]["replicates"] == MIN_REFITS
             assert p["limits_method"] == "refit bootstrap"
             assert any("bootstrap refitting the whole model" in n for n in p["notes"])
-            for r in p["risks"]:
-                assert r["lower"] <= r["estimate"] <= r["upper"]
-        else:  # the simulation withheld them: no limits, the reason among the notes
+            assert all(r["lower"] <= r["estimate"] <= r["upper"] for r in p["risks"])
+        else:  # the simulation withheld them: no minutes spent on refits, the reason among the notes
+            assert got["refits"] is None
             assert p["limits_method"] == "none" and REFIT_WITHHELD in p["notes"]
-            assert all(r["lower"] is None for r in p["risks"])
+            assert all(r["lower"] is None and r["upper"] is None for r in p["risks"])
+            assert REFIT_WITHHELD in text and "CI" not in text
+
+
+def test_refits_make_the_limits_of_the_library_call(small):
+    path, tmp = small
+    spec = read_study(path)
+    cohort = prepare_cohort(spec).cohort
+    arm = fit_arm(cohort, spec, "cause", imaging=True, random_state=int(spec.seed))
+    rb = refit_arms(cohort, spec, imaging=True, replicates=MIN_REFITS, workers=1)
+    assert len(rb.arms) + rb.failed == MIN_REFITS and rb.ok
+    patient = pd.read_csv(tmp / "two.csv", dtype=str, keep_default_na=False).iloc[1].to_dict()
+    est = estimate_competing_patient(arm, cohort, spec, patient, refits=rb)
+    one = patient_cohort(patient, competing_ranges(arm, cohort, batch_column="scanner"))[0]
+    draws = replicate_risks(rb, one, spec.horizons)
+    cs, fg = with_refit_limits(est.cause_specific, est.fine_gray, draws)
+    lo, hi, se = refit_limits(est.fine_gray.risk, draws.fine_gray[:, None, 0], form=REFIT_FORM)
+    np.testing.assert_array_equal(fg.lower, lo) and np.testing.assert_array_equal(fg.upper, hi)
+    np.testing.assert_array_equal(fg.se, se)
+    assert np.all((cs.lower <= cs.risk) & (cs.risk <= cs.upper))
+    assert np.all((cs.event_free_lower <= cs.event_free) & (cs.event_free <= cs.event_free_upper))
     if REFIT_WITHHELD is None:
-        assert "CI" in text and "bootstrap refitting the whole model" in text
-        # the two patients differ, the refits are one set: the JSON's limits are those of the library call
-        spec = read_study(path)
-        cohort = prepare_cohort(spec).cohort
-        arm = fit_arm(cohort, spec, "cause", imaging=True, random_state=int(spec.seed))
-        rb = refit_arms(cohort, spec, imaging=True, replicates=MIN_REFITS, workers=1)
-        patient = pd.read_csv(tmp / "two.csv", dtype=str, keep_default_na=False).iloc[1].to_dict()
-        est = estimate_competing_patient(arm, cohort, spec, patient, refits=rb)
-        fg = [r for r in got["patients"][1]["risks"] if r["route"] == "Fine-Gray"]
-        np.testing.assert_allclose([r["lower"] for r in fg], est.fine_gray.lower[0], rtol=0, atol=1e-12)
-        np.testing.assert_allclose([r["upper"] for r in fg], est.fine_gray.upper[0], rtol=0, atol=1e-12)
+        assert est.limits_method == "refit bootstrap"
+        np.testing.assert_array_equal(est.fine_gray.lower, lo)
+    else:
+        assert est.limits_method == "none" and REFIT_WITHHELD in est.notes
+        assert np.all(np.isnan(est.fine_gray.lower)) and np.all(np.isnan(est.cause_specific.upper))
+    # a signature score cannot stand in for the imaging values of the refits
+    scored = estimate_competing_patient(arm, cohort, spec, {c: patient[c] for c in CLINICAL},
+                                        signature_score=est.signature_score, refits=rb)
+    assert np.all(np.isnan(scored.fine_gray.lower)) and scored.limits_method == "none"
+    assert refit_withheld(rb, from_score=True) in scored.notes
 
 
 @pytest.mark.parametrize(("args", "message"), [
