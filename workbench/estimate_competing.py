@@ -178,9 +178,12 @@ def estimate_competing_patient(arm: FittedArm, train: Cohort, spec: StudySpec, p
     --pipeline (150 cohorts of 300 from the demo generator, the signature reselected in every
     cohort, 8 fixed patients) their SE was 0.80 of the estimate's spread over cohorts (median;
     0.30 for the most extreme patient) and they held the mean estimate in 86% of cohorts, where
-    the clinical model's limits held it in 94% (SE/SD 0.97). With ``refits`` the limits come
-    from a bootstrap refitting the whole pipeline instead (:mod:`workbench.competing.refit_limits`,
-    measured by the same bench with ``--refits``).
+    the clinical model's limits held it in 94% (SE/SD 0.97). A bootstrap refitting the whole
+    pipeline (:mod:`workbench.competing.refit_limits`; same bench with ``--refits 100``, 40 cohorts)
+    was too wide for that spread (coverage of the mean 0.97, SE/SD 1.1) and held the generator's
+    true risk in only 78-80% of cohorts, so its limits are withheld as well
+    (:data:`workbench.competing.refit_limits.REFIT_WITHHELD` among the notes); were the verdict
+    to change, ``refits`` would carry them.
 
     References
     ----------
