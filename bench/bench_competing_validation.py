@@ -113,9 +113,9 @@ def study(replicates_seed: int = 20261203):
     return replace(spec, seed=replicates_seed)
 
 
-def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True) -> Cohort:
+def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True, n_features: int = N_FEATURES) -> Cohort:
     """A cohort with cause 0/1/2 (censored, cancer death, other death); ``censor=False`` keeps every death."""
-    sim = simulate_cohort(n, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=N_FEATURES)
+    sim = simulate_cohort(n, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=n_features)
     et = sim.event_times
     t_other = draw_other_death(et["age"].to_numpy(), et["ecog"].to_numpy(), random_state=[seed, 7])
     t_cancer = et["t_event"].to_numpy(float)

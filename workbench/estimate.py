@@ -522,8 +522,8 @@ def refit_bootstrap(model, cohort: Cohort, n_replicates: int = 200, *, random_st
 # ---------------------------------------------------------------- files and text
 
 
-def read_patient_file(path) -> dict:
-    """Read one patient's raw values from a one-row CSV, TSV or Excel file (header row first)."""
+def read_patient_rows(path) -> list[dict]:
+    """Read patients' raw values from a CSV, TSV or Excel file (header row first, one row per patient)."""
     p = Path(path)
     if not p.is_file():
         raise CohortError(f"{p}: patient file not found.")
@@ -538,9 +538,18 @@ def read_patient_file(path) -> dict:
     except (ValueError, OSError, pd.errors.ParserError) as exc:
         raise CohortError(f"{p}: could not be read as a table ({exc}).") from None
     df = df.dropna(how="all")
-    if len(df) != 1:
-        raise CohortError(f"{p} has {len(df)} data rows; a patient file holds one patient (a header row and one row).")
-    return _one_row(df)
+    if df.empty:
+        raise CohortError(f"{p} has no data rows; give a header row and one row per patient.")
+    return [_one_row(df.iloc[[i]]) for i in range(len(df))]
+
+
+def read_patient_file(path) -> dict:
+    """Read one patient's raw values from a one-row CSV, TSV or Excel file (header row first)."""
+    rows = read_patient_rows(path)
+    if len(rows) != 1:
+        raise CohortError(f"{path} has {len(rows)} data rows; a patient file holds one patient (a header row and "
+                          "one row).")
+    return rows[0]
 
 
 def _pct(x: float) -> str:
