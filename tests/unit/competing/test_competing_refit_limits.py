@@ -185,3 +185,37 @@ def test_refits_asked_wrongly(small):
     if REFIT_WITHHELD is None:
         assert "only 0 of 50 refits succeeded" in refit_withheld(fake)
         assert "need the patient's imaging values" in refit_withheld(fake, from_score=True)
+
+
+def test_arm_with_a_signature_empty_in_every_fold_is_the_clinical_arm(small, monkeypatch):
+    # The ordinary combined model once failed on the Rossi data (lifelines load_rossi) when the
+    # signature kept a feature on all rows and none in any pre-validation fold (a constant
+    # cross-fitted score); a refit of this arm meets the same case in some resamples.
+    import warnings
+
+    from workbench.competing import fitting
+    from workbench.errors import EmptySignatureWarning
+
+    path, _ = small
+    spec = read_study(path)
+    cohort = prepare_cohort(spec).cohort
+    real = fitting._signature_fit
+
+    def all_rows_only(rows, spec_, y_cause, protect, random_state):
+        sig, med = real(rows, spec_, y_cause, protect, random_state)
+        if rows.n < cohort.n:  # a pre-validation fold: as if its signature kept nothing
+            sig.selected_features_ = ()
+        return sig, med
+
+    monkeypatch.setattr(fitting, "_signature_fit", all_rows_only)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        assert real(cohort, spec, fitting.target_outcome(cohort, "cause")["cause"], None, 5)[0].selected_features_
+    with pytest.warns(EmptySignatureWarning, match="none in any pre-validation fold"):
+        arm = fit_arm(cohort, spec, "cause", imaging=True, random_state=5)
+    clin = fit_arm(cohort, spec, "cause", imaging=False, random_state=5)
+    assert arm.n_selected == 0
+    times = (12.0, 24.0)
+    for how in ("cause_specific", "fine_gray"):
+        np.testing.assert_allclose(arm.predict(cohort, times, how).risks, clin.predict(cohort, times, how).risks,
+                                   atol=1e-10)
