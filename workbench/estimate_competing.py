@@ -180,10 +180,10 @@ def estimate_competing_patient(arm: FittedArm, train: Cohort, spec: StudySpec, p
     0.30 for the most extreme patient) and they held the mean estimate in 86% of cohorts, where
     the clinical model's limits held it in 94% (SE/SD 0.97). A bootstrap refitting the whole
     pipeline (:mod:`workbench.competing.refit_limits`; same bench with ``--refits 100``, 40 cohorts)
-    was too wide for that spread (coverage of the mean 0.97, SE/SD 1.1) and held the generator's
-    true risk in only 78-80% of cohorts, so its limits are withheld as well
-    (:data:`workbench.competing.refit_limits.REFIT_WITHHELD` among the notes); were the verdict
-    to change, ``refits`` would carry them.
+    held the mean estimate in 97% of cohorts (SE/SD 1.1; the project's target 92-98%), and the
+    generator's full-information risk in 78-80% (the clinical model's limits: 45%); given
+    ``refits`` (the patient's imaging values needed) the estimate carries those limits, with
+    :data:`workbench.competing.refit_limits.REFIT_CAVEAT` among the notes.
 
     References
     ----------
