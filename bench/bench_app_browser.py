@@ -23,6 +23,18 @@ CPU is not counted.
 
     python bench/bench_app_browser.py [--replicates 2] [--at-once] [--cold-only]
 
+For the cached Results view, the figure switch, the nomogram and Export it also prints where the
+time went: the app's own script runs meanwhile (count, wall and thread CPU seconds, written by the
+app to the file named in ``WORKBENCH_RUN_LOG``), the websocket messages and bytes the server sent
+and the files the page fetched, when the first and last message came after the start and how long
+the page took after the last one, and the browser's main-thread seconds (Chromium's own metrics
+over the DevTools protocol: all tasks, JavaScript, layout and style; and long tasks over 50 ms
+from a PerformanceObserver), and the CPU seconds of the Chromium processes (from /proc, like the
+server's: the main-thread seconds are wall times and grow with the machine's load). For the cold start it prints when the server answered, when the page
+had loaded its scripts, when the first script run ended and when the view was ready. Medians of
+every part are printed at the end. The polling below runs in the page too, so the browser's
+seconds include some of the bench's own querying.
+
 A view counts as ready when its expected text is visible and Streamlit's running indicator
 is gone (polled every 50 ms), so each timing includes up to ~0.1 s of polling. Timings depend on
 what else runs on the machine: run it on a quiet machine and report the load next to it.
@@ -159,6 +171,38 @@ SINCE = """(t0) => {
 BROWSER_METRICS = ("TaskDuration", "ScriptDuration", "LayoutDuration", "RecalcStyleDuration")
 
 
+def browser_cpu() -> float:
+    """CPU seconds used so far by the Chromium processes this bench started (renderer, GPU, browser):
+    less sensitive to the machine's load than the main-thread seconds, which are wall times."""
+    parents, names = {}, {}
+    for d in Path("/proc").iterdir():
+        if not d.name.isdigit():
+            continue
+        try:
+            stat = (d / "stat").read_text()
+        except OSError:
+            continue
+        head, rest = stat.rsplit(")", 1)
+        names[int(d.name)] = head.split("(", 1)[1]
+        parents[int(d.name)] = int(rest.split()[1])
+    ours = set()
+    for pid in parents:
+        p = pid
+        while p in parents and p not in (0, 1):
+            if p == os.getpid():
+                ours.add(pid)
+                break
+            p = parents[p]
+    total = 0.0
+    for pid in ours:
+        if names.get(pid, "").startswith("chrom"):
+            try:
+                total += _cpu_seconds(pid)
+            except OSError:
+                continue
+    return total
+
+
 class Probe:
     """Where a timed step's time went: the server's script runs, the bytes sent to the page, and the
     browser's own work (Chromium's main-thread metrics over the Chrome DevTools Protocol)."""
@@ -174,7 +218,7 @@ class Probe:
 
     def mark(self) -> dict:
         bytes_, now = self.page.evaluate("() => [window.__wbNet.bytes, performance.now()]")
-        return {"bytes": bytes_, "t": now, "metrics": self._metrics(), "epoch": time.time(),
+        return {"bytes": bytes_, "t": now, "metrics": self._metrics(), "epoch": time.time(), "cpu": browser_cpu(),
                 "log": RUN_LOG.stat().st_size if RUN_LOG.exists() else 0}
 
     def parts(self, m: dict) -> dict:
@@ -199,6 +243,7 @@ class Probe:
             "to 1st message": (got["first"] - m["t"]) / ms if got["first"] is not None else float("nan"),
             "to last message": (got["last"] - m["t"]) / ms if got["last"] is not None else float("nan"),
             "last message to ready": (got["now"] - got["last"]) / ms if got["last"] is not None else float("nan"),
+            "browser CPU": browser_cpu() - m["cpu"],
             "browser busy": metrics["TaskDuration"] - m["metrics"]["TaskDuration"],
             "browser script": metrics["ScriptDuration"] - m["metrics"]["ScriptDuration"],
             "layout+style": (metrics["LayoutDuration"] - m["metrics"]["LayoutDuration"]
@@ -263,7 +308,8 @@ def _parts_text(p: dict) -> str:
     return (f"script {p['script runs']:.0f} run(s) {p['script wall']:.2f} s wall, {p['script CPU']:.2f} s CPU; "
             f"sent {p['kB sent']:.0f} kB in {p['messages']:.0f} messages + {p['kB files']:.0f} kB files; "
             f"1st message {p['to 1st message']:.2f} s, last {p['to last message']:.2f} s, then "
-            f"{p['last message to ready']:.2f} s to ready; browser main thread busy {p['browser busy']:.2f} s "
+            f"{p['last message to ready']:.2f} s to ready; browser CPU {p['browser CPU']:.2f} s, main thread busy "
+            f"{p['browser busy']:.2f} s "
             f"(script {p['browser script']:.2f}, layout+style {p['layout+style']:.2f}; long tasks "
             f"{p['long tasks']:.2f} s)")
 

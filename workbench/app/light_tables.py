@@ -44,8 +44,9 @@ STYLE = (
 )
 
 
-def html_table(df: pd.DataFrame, *, label: str = "") -> str:
-    """The table as one block of HTML (every cell escaped; no index), with its style."""
+def html_table(df: pd.DataFrame, *, label: str = "", max_height: str | None = None) -> str:
+    """The table as one block of HTML (every cell escaped; no index), with its style; taller than
+    ``max_height`` (a CSS length) it scrolls."""
     numeric = [pd.api.types.is_numeric_dtype(df[c]) and not pd.api.types.is_bool_dtype(df[c]) for c in df.columns]
     esc = html.escape
 
@@ -58,13 +59,14 @@ def html_table(df: pd.DataFrame, *, label: str = "") -> str:
     rows = "".join("<tr>" + "".join(cell("td", v, n) for v, n in zip(row, numeric, strict=True)) + "</tr>"
                    for row in df.itertuples(index=False, name=None))
     aria = f' aria-label="{esc(label, quote=True)}"' if label else ""
-    return (f'{STYLE}<div class="wb-scroll"><table class="wb-table"{aria}><thead><tr>{head}</tr></thead>'
+    box = f' style="max-height:{max_height};overflow-y:auto"' if max_height else ""
+    return (f'{STYLE}<div class="wb-scroll"{box}><table class="wb-table"{aria}><thead><tr>{head}</tr></thead>'
             f"<tbody>{rows}</tbody></table></div>")
 
 
-def show_table(df: pd.DataFrame, *, label: str = "", where=None) -> None:
+def show_table(df: pd.DataFrame, *, label: str = "", max_height: str | None = None, where=None) -> None:
     """A static table, drawn by the browser in one go (:func:`html_table`)."""
-    (where if where is not None else st).html(html_table(df, label=label))
+    (where if where is not None else st).html(html_table(df, label=label, max_height=max_height))
 
 
 def _file_name(title: str) -> str:
