@@ -60,6 +60,23 @@ before -> after: cold start 12.6 (3.39) -> 42.7 (3.59); first figure after the r
 (1.17) -> 56.5 (0.66); cancel 0.61 (0.08) -> 0.76 (0.45). Only the first figure after a run
 improved clearly in both pairs; the cached Results view did not (better in one pair, worse in
 the other; after the change the figure worker is still drawing the other figures then).
+
+Measured 2026-12-04, before -> after the static HTML tables (Results and Data views), the Results
+figure in a fragment, the worker processes no longer running the app script, the deferred Nomogram
+files and the warmed launch; the two versions run at the same time, medians of 3, load average
+14-20 on 2 cores (other helpers' work; the bench and its server run at nice 19, so the wall times
+are several times a quiet machine's). Where the time went, before -> after: cached Results view:
+script 0.05 -> 0.03 s CPU, 38 -> 28 kB in 79 -> 74 messages, browser main thread 2.35 -> 1.13 s
+(JavaScript 1.63 -> 0.82, long tasks 1.47 -> 0.48); wall 7.0 -> 3.9 s (first message after 1.35 /
+1.29 s: the starved server). Figure switch: 31 kB in 63 messages -> 3.5 kB in 15 (the fragment
+alone), browser 1.00 -> 0.55 s (long tasks 0.70 -> 0.24); wall 1.6 -> 2.4 s (first message after
+0.5 -> 1.0 s). Nomogram at a new time: script 0.33 -> 0.35 s CPU, 285 kB (the SVG) both, wall 6.1
+-> 7.5 s. Switching Data <-> Results three times on one server (load about 18), before -> after:
+Results browser main thread 1.67 -> 0.80 s (JavaScript 1.35 -> 0.38), Data 1.17 -> 0.87 s (0.86 ->
+0.50). Cold start, alternating the versions with ``--cold-only`` (load 11): 4.68, 5.44, 5.27 s
+(server CPU 1.92, 1.87, 2.14) -> 4.45, 3.96, 4.92 s (2.08, 1.87, 2.36); from the first message to
+the view 2.3-3.0 s -> 1.2-1.7 s, the server answering 0.2-0.4 s later and the page's scripts
+loading 0.3 s slower while the warm-up imports run. None of these is a quiet-machine figure.
 """
 
 from __future__ import annotations
