@@ -108,10 +108,11 @@ def render() -> None:
     except Exception as exc:  # noqa: BLE001
         state.show_error("Tabulating the points", exc)
         return
+    # the zip and the CSV files below are written only when their button is pressed
     st.download_button("Download the points tables (CSV files, zip)",
-                       nomo.points_table_zip(tabs, state.study_filename(spec, "_", "")),
+                       lambda: nomo.points_table_zip(tabs, state.study_filename(spec, "_", "")),
                        file_name=state.study_filename(spec, ".zip", f"nomogram_points_{tag}"),
-                       mime="application/zip", key="nomo_dl_points")
+                       mime="application/zip", key="nomo_dl_points", on_click="ignore")
     st.subheader("Points table")
     st.caption("Points per predictor value (between two rows of a continuous predictor, interpolate), and the "
                "survival probability for each total. This is what the drawing shows, as numbers.")
@@ -122,9 +123,9 @@ def render() -> None:
             left.dataframe(nomo.rounded_terms(t.terms), hide_index=True, width="stretch", height=320)
             right.dataframe(nomo.rounded_survival(t.survival), hide_index=True, width="stretch", height=320)
             st.download_button(f"Download the {tables.label(m).lower()} points (CSV)",
-                               nomo.rounded_terms(t.terms).to_csv(index=False),
+                               lambda t=t: nomo.rounded_terms(t.terms).to_csv(index=False),
                                file_name=state.study_filename(spec, ".csv", f"{m}_points"), mime="text/csv",
-                               key=f"nomo_dl_csv_{m}")
+                               key=f"nomo_dl_csv_{m}", on_click="ignore")
 
 
 if __name__ == "__main__":

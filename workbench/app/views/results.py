@@ -107,7 +107,10 @@ def _decision_png(run_key: tuple, model: str, horizon: float, outcome: str, _dc,
     return charts.figure_bytes(_decision_figure(_dc, model, baseline, outcome))
 
 
+@st.fragment
 def _figures(result, key) -> None:
+    """The run's figures, one at a time. A fragment: choosing another figure reruns this part of the
+    page alone, so the browser redraws the picture and its buttons instead of the whole view."""
     spec = result.spec
     st.subheader("Figures")
     # drawn in the app's figure worker as soon as the run finished (workbench.app.exports)
