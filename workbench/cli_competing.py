@@ -121,19 +121,24 @@ def run(args: argparse.Namespace) -> int:
     X = arm_training_design(arm, cohort, spec, random_state=seed)
     from workbench.competing.refit_limits import REFIT_WITHHELD, refit_arms
 
+    def estimate(patient, refits):
+        ignore = tuple(c for c in (d.id, d.time, d.event, d.centre) if c and c in patient)
+        ignore += tuple(f.strip() for item in args.ignore or () for f in item.split(",") if f.strip())
+        return estimate_competing_patient(arm, cohort, spec, patient, random_state=seed,
+                                          signature_score=args.signature_score, conf_level=args.conf_level,
+                                          ignore=ignore, training_design=X, refits=refits)
+
     refits = None
     if B and arm.n_selected and REFIT_WITHHELD is None:  # withheld by the simulation: no minutes spent on refits
         from workbench.validation.backends import tqdm_progress
 
+        for patient in patients:  # every patient's values are checked before minutes go to the refits
+            estimate(patient, None)
         refits = refit_arms(cohort, spec, imaging=True, replicates=B, random_state=seed, workers=args.workers,
                             progress=tqdm_progress("refits", leave=False))
     out = []
     for k, patient in enumerate(patients):
-        ignore = tuple(c for c in (d.id, d.time, d.event, d.centre) if c and c in patient)
-        ignore += tuple(f.strip() for item in args.ignore or () for f in item.split(",") if f.strip())
-        est = estimate_competing_patient(arm, cohort, spec, patient, random_state=seed,
-                                         signature_score=args.signature_score, conf_level=args.conf_level,
-                                         ignore=ignore, training_design=X, refits=refits)
+        est = estimate(patient, refits)
         where = f"{args.patient}, row {k + 1}" if args.patient else "the patient's values"
         check_patient_scale(est.checks, source=where)
         if len(patients) > 1:

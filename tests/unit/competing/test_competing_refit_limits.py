@@ -219,3 +219,21 @@ def test_arm_with_a_signature_empty_in_every_fold_is_the_clinical_arm(small, mon
     for how in ("cause_specific", "fine_gray"):
         np.testing.assert_allclose(arm.predict(cohort, times, how).risks, clin.predict(cohort, times, how).risks,
                                    atol=1e-10)
+
+
+def test_bad_patient_values_stop_the_command_before_any_refit(small, capsys, monkeypatch):
+    # A patient file with a field the model does not know once cost all the refits (minutes with
+    # the default 200) before its error was shown.
+    from workbench.competing import refit_limits
+
+    path, tmp = small
+    bad = pd.read_csv(tmp / "two.csv").assign(unknown_field=1)
+    bad.to_csv(tmp / "bad.csv", index=False)
+
+    def no_refits(*a, **k):
+        raise AssertionError("refits started before the patient's values were checked")
+
+    monkeypatch.setattr(refit_limits, "refit_arms", no_refits)
+    assert main(["competing-estimate", str(path), "--model", "combined", "--patient", str(tmp / "bad.csv"),
+                 "--refits", str(MIN_REFITS), "--workers", "1"]) == 2
+    assert "unknown_field" in capsys.readouterr().err
