@@ -37,6 +37,7 @@ from workbench.report.bundle import (
     describe_inputs,
 )
 from workbench.stats.riskgroups import assign_groups, group_labels
+from workbench.units import time_phrase
 
 METHODS = ("delta", "bootstrap")
 MIN_BOOTSTRAP = 20  # fewer refits give unstable 2.5th / 97.5th percentiles (common practice)
@@ -417,7 +418,7 @@ def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRange
         if not np.isfinite(a) or a <= 0 or a >= float(h.max()):
             unit = getattr(ranges, "time_unit", "") or ""
             raise SpecError(f"the time the patient is known to be alive (--alive-at) must be after 0 and before "
-                            f"the last horizon ({h.max():g} {unit}); got {a:g}.".replace(" )", ")"))
+                            f"the last horizon ({time_phrase(h.max(), unit)}); got {a:g}.".replace(" )", ")"))
     cohort, checks, unestimable = _validate(patient, ranges, ignore)
     if unestimable:
         raise ModelError(
@@ -563,13 +564,13 @@ def format_estimate(est: PatientEstimate) -> str:
     for hz in est.horizons:
         ci = (f" ({100 * est.conf_level:g}% CI {_pct(hz.lower)} to {_pct(hz.upper)}; {label})"
               if est.interval_method != "none" else " (no interval)")
-        lines.append(f"  Survival at {hz.horizon:g} {u}: {_pct(hz.survival)}{ci}")
+        lines.append(f"  Survival at {time_phrase(hz.horizon, u)}: {_pct(hz.survival)}{ci}")
     if est.alive_at is not None:
-        lines.append(f"  Alive at {est.alive_at:g} {u}: chance of being alive at")
+        lines.append(f"  Alive at {time_phrase(est.alive_at, u)}: chance of being alive at")
         for hz in est.conditional:
             ci = (f" ({100 * est.conf_level:g}% CI {_pct(hz.lower)} to {_pct(hz.upper)})"
                   if np.isfinite(hz.lower) else " (no interval)")
-            lines.append(f"    {hz.horizon:g} {u}: {_pct(hz.survival)}{ci}")
+            lines.append(f"    {time_phrase(hz.horizon, u)}: {_pct(hz.survival)}{ci}")
         if not est.conditional:
             lines.append("    (no horizon lies after it)")
     lines.append("")

@@ -46,6 +46,7 @@ from workbench.estimate import (
 )
 from workbench.report.bundle import ClinicalInput
 from workbench.study import StudySpec
+from workbench.units import time_phrase
 
 __all__ = ["SIGNATURE_LIMITS_WITHHELD", "CompetingPatientEstimate", "arm_training_design", "competing_ranges", "estimate_competing_patient",
            "risk_table",
@@ -327,7 +328,7 @@ def format_competing_estimate(est: CompetingPatientEstimate) -> str:
     if est.fine_gray is not None:
         f = est.fine_gray
         lines.append(f"Fine-Gray model, risk of {est.cause_names[1]}:")
-        lines += [f"  by {t:g} {u}: {_ci(f.risk[0, j], f.lower[0, j], f.upper[0, j], lvl)}"
+        lines += [f"  by {time_phrase(t, u)}: {_ci(f.risk[0, j], f.lower[0, j], f.upper[0, j], lvl)}"
                   for j, t in enumerate(f.horizons)]
         lines.append("")
     lines.append("Cause-specific Cox models:")
@@ -335,7 +336,7 @@ def format_competing_estimate(est: CompetingPatientEstimate) -> str:
         parts = [f"risk of {est.cause_names.get(c, c)} {_ci(r.risk[k, j], r.lower[k, j], r.upper[k, j], lvl)}"
                  for k, c in enumerate(r.causes)]
         parts.append(f"free of any event {_ci(r.event_free[j], r.event_free_lower[j], r.event_free_upper[j], lvl)}")
-        lines.append(f"  by {t:g} {u}: " + "; ".join(parts))
+        lines.append(f"  by {time_phrase(t, u)}: " + "; ".join(parts))
     if np.any(np.isfinite(r.lower)) and est.limits_method == "influence function":
         lines += ["", "Limits: influence-function standard errors, symmetric on the log(-log) scale."]
     return "\n".join(lines + checks_lines(est.checks, est.notes, est.caution))

@@ -27,6 +27,7 @@ from workbench.stats.km import (
     reverse_kaplan_meier_median_followup,
     survival_at,
 )
+from workbench.units import time_phrase
 
 CAUTION = (
     "Research use only. Estimates come from a retrospective cohort and model; "
@@ -154,7 +155,7 @@ def summarise_cohort(
             raise CohortError(f"horizon {h} must be a positive time in {cohort.time_unit}.")
         if h > t.max():
             raise CohortError(
-                f"horizon {h:g} {cohort.time_unit} lies beyond the longest follow-up "
+                f"horizon {time_phrase(h, cohort.time_unit)} lies beyond the longest follow-up "
                 f"({t.max():g} {cohort.time_unit}); choose a horizon inside follow-up."
             )
         s = float(survival_at(km, h))
@@ -275,7 +276,7 @@ def format_summary(s: CohortSummary) -> str:
         lines.append("")
         lines.append(f"Kaplan-Meier survival{'':27s}at risk")
         for h in s.horizons:
-            when = f"at {h.horizon:g} {u}:"
+            when = f"at {time_phrase(h.horizon, u)}:"
             lines.append(
                 f"  {when:16s}{100 * h.survival:5.1f}% (95% CI {100 * h.ci_lower:4.1f} to "
                 f"{100 * h.ci_upper:4.1f})  {h.at_risk:6d}"

@@ -34,6 +34,7 @@ from workbench.figures.style import (
 from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import CalibrationResult
 from workbench.predictions import SurvivalCurves
+from workbench.units import unit_for
 
 
 def _risks(predicted, t0: float) -> np.ndarray | None:
@@ -107,8 +108,7 @@ def plot_calibration(
         a.set_xlim(0, limit)
         a.set_ylim(0, limit)
         a.set_aspect("equal", adjustable="box")
-        unit = f" {time_unit}" if time_unit else ""
-        a.set_xlabel(f"Predicted risk by {format_number(result.t0)}{unit}")
+        a.set_xlabel(f"Predicted risk by {format_number(result.t0)} {unit_for(result.t0, time_unit)}".rstrip())
         a.set_ylabel("Observed risk")
         if compact:
             # above the panel, where it cannot cover a point of the curve
@@ -187,7 +187,7 @@ def plot_calibration_panels(
             labelled = j == 0 or not np.isclose(limit, limits[0])
             for i, n in enumerate(names):
                 pred = None if predicted is None else predicted.get(n)
-                horizon = f"{format_number(results[n][j].t0)} {time_unit}".rstrip()
+                horizon = f"{format_number(results[n][j].t0)} {unit_for(results[n][j].t0, time_unit)}".rstrip()
                 a = grid[i, j]
                 plot_calibration(results[n][j], predicted=pred, ax=a, width=width, time_unit=time_unit,
                                  series=n, limit=limit, title=horizon, compact=True)

@@ -14,6 +14,7 @@ import numpy as np
 
 from workbench.cohort.outcome import split_outcome
 from workbench.errors import MetricError
+from workbench.units import time_phrase
 
 __all__ = [
     "DEFAULT_THRESHOLDS",
@@ -209,13 +210,13 @@ def check_horizons(y_eval, horizons, *, time_unit: str = "") -> dict[float, str]
     for h in _as_horizons(horizons):
         if h >= hi:
             bad[float(h)] = (
-                f"horizon {h:g}{unit} lies outside the follow-up of the {time.size} evaluation "
+                f"horizon {time_phrase(h, time_unit)} lies outside the follow-up of the {time.size} evaluation "
                 f"patients (follow-up from {lo:g} to {hi:g}{unit}); a horizon must be shorter than "
                 "the longest follow-up, ideally well inside it. Choose an earlier horizon."
             )
         elif not np.any(event & (time <= h)):
             bad[float(h)] = (
-                f"horizon {h:g}{unit}: none of the {time.size} evaluation patients (follow-up "
+                f"horizon {time_phrase(h, time_unit)}: none of the {time.size} evaluation patients (follow-up "
                 f"{lo:g} to {hi:g}{unit}) had an event by then, so risks at this horizon cannot "
                 "be assessed. Choose a later horizon."
             )

@@ -38,3 +38,28 @@ def test_median_not_reached_reads_without_a_unit(tmp_path):
     # 114 events over 2 imaging features: well above 10 per feature (common practice), so the summary
     # does not claim the signature needs penalisation
     assert "Events per imaging feature: 57.0\n" in text + "\n" and "needs penalisation" not in text
+
+
+def test_a_horizon_of_one_year_reads_in_the_singular():
+    # scikit-survival's GBSG2 (load_gbsg2, German Breast Cancer Study Group 2, 686 patients), follow-up
+    # converted from days to years; the usual horizons 1, 3 and 5 years. The line once read "at 1 years:".
+    import numpy as np
+    import pandas as pd
+    from sksurv.datasets import load_gbsg2
+
+    from workbench.cohort import Cohort, make_outcome
+
+    _, y = load_gbsg2()
+    years = y["time"] / 365.25
+    cohort = Cohort(ids=np.array([f"G{i}" for i in range(len(y))]), y=make_outcome(years, y["cens"]),
+                    clinical=pd.DataFrame(index=range(len(y))), features=pd.DataFrame(index=range(len(y))),
+                    time_unit="years")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        text = format_summary(summarise_cohort(cohort, (1, 3, 5)))
+    lines = {ln.split(":")[0].strip(): ln for ln in text.splitlines() if ln.strip().startswith("at ")}
+    assert set(lines) == {"at 1 year", "at 3 years", "at 5 years"}
+    assert "1 years" not in text
+    # the number beside the words is unchanged: lifelines' Kaplan-Meier survival at 1 year, in percent
+    ref = KaplanMeierFitter().fit(years, y["cens"]).survival_function_at_times(1.0).iloc[0]
+    assert f"{100 * ref:5.1f}%" in lines["at 1 year"]
