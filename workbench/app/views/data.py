@@ -16,6 +16,7 @@ from workbench.cohort.samplesize import criteria_rows
 from workbench.errors import WorkbenchError
 from workbench.stats.km import kaplan_meier
 from workbench.study import DataSpec
+from workbench.units import time_phrase
 
 NONE = "(none)"
 TALL = "26rem"
@@ -250,7 +251,7 @@ def _summary(cohort, horizons) -> None:
         if summary.horizons:
             st.markdown("**Survival at the horizons**")
             show_table(_frame(
-                [(f"{h.horizon:g} {u}", f"{100 * h.survival:.1f}%",
+                [(time_phrase(h.horizon, u), f"{100 * h.survival:.1f}%",
                   f"{100 * h.ci_lower:.1f} to {100 * h.ci_upper:.1f}", h.at_risk) for h in summary.horizons],
                 ["Horizon", "Survival", "95% CI (%)", "At risk"]), label="Survival at the horizons")
         skipped = [h for h in horizons if h not in inside]
