@@ -23,6 +23,18 @@ CPU is not counted.
 
     python bench/bench_app_browser.py [--replicates 2] [--at-once] [--cold-only]
 
+For the cached Results view, the figure switch, the nomogram and Export it also prints where the
+time went: the app's own script runs meanwhile (count, wall and thread CPU seconds, written by the
+app to the file named in ``WORKBENCH_RUN_LOG``), the websocket messages and bytes the server sent
+and the files the page fetched, when the first and last message came after the start and how long
+the page took after the last one, and the browser's main-thread seconds (Chromium's own metrics
+over the DevTools protocol: all tasks, JavaScript, layout and style; and long tasks over 50 ms
+from a PerformanceObserver), and the CPU seconds of the Chromium processes (from /proc, like the
+server's: the main-thread seconds are wall times and grow with the machine's load). For the cold start it prints when the server answered, when the page
+had loaded its scripts, when the first script run ended and when the view was ready. Medians of
+every part are printed at the end. The polling below runs in the page too, so the browser's
+seconds include some of the bench's own querying.
+
 A view counts as ready when its expected text is visible and Streamlit's running indicator
 is gone (polled every 50 ms), so each timing includes up to ~0.1 s of polling. Timings depend on
 what else runs on the machine: run it on a quiet machine and report the load next to it.
@@ -48,6 +60,28 @@ before -> after: cold start 12.6 (3.39) -> 42.7 (3.59); first figure after the r
 (1.17) -> 56.5 (0.66); cancel 0.61 (0.08) -> 0.76 (0.45). Only the first figure after a run
 improved clearly in both pairs; the cached Results view did not (better in one pair, worse in
 the other; after the change the figure worker is still drawing the other figures then).
+Measured 2026-12-04 16:27-16:53 UTC (3 rounds, load average 15-24 from other work: wall times say
+nothing about the targets), after the report was kept out of the server's script thread and the
+workers stopped running the app's main script: "Export report ready" 148 s median (107-262) with
+the server's CPU meanwhile 1.2 s median (1.17-1.83): the report was written in the files worker
+in every round (written in the server, its CPU was 18.9-30 s in the rounds above).
+
+Measured 2026-12-04, before -> after the static HTML tables (Results and Data views), the Results
+figure in a fragment, the worker processes no longer running the app script, the deferred Nomogram
+files and the warmed launch; the two versions run at the same time, medians of 3, load average
+14-20 on 2 cores (other helpers' work; the bench and its server run at nice 19, so the wall times
+are several times a quiet machine's). Where the time went, before -> after: cached Results view:
+script 0.05 -> 0.03 s CPU, 38 -> 28 kB in 79 -> 74 messages, browser main thread 2.35 -> 1.13 s
+(JavaScript 1.63 -> 0.82, long tasks 1.47 -> 0.48); wall 7.0 -> 3.9 s (first message after 1.35 /
+1.29 s: the starved server). Figure switch: 31 kB in 63 messages -> 3.5 kB in 15 (the fragment
+alone), browser 1.00 -> 0.55 s (long tasks 0.70 -> 0.24); wall 1.6 -> 2.4 s (first message after
+0.5 -> 1.0 s). Nomogram at a new time: script 0.33 -> 0.35 s CPU, 285 kB (the SVG) both, wall 6.1
+-> 7.5 s. Switching Data <-> Results three times on one server (load about 18), before -> after:
+Results browser main thread 1.67 -> 0.80 s (JavaScript 1.35 -> 0.38), Data 1.17 -> 0.87 s (0.86 ->
+0.50). Cold start, alternating the versions with ``--cold-only`` (load 11): 4.68, 5.44, 5.27 s
+(server CPU 1.92, 1.87, 2.14) -> 4.45, 3.96, 4.92 s (2.08, 1.87, 2.36); from the first message to
+the view 2.3-3.0 s -> 1.2-1.7 s, the server answering 0.2-0.4 s later and the page's scripts
+loading 0.3 s slower while the warm-up imports run. None of these is a quiet-machine figure.
 """
 
 from __future__ import annotations
@@ -80,7 +114,7 @@ def serve():
     port = launch.free_port(8711)
     log = tempfile.TemporaryFile()
     proc = subprocess.Popen(launch.command(port, sys.executable), cwd=REPO, stdout=log, stderr=log,
-                            env={**os.environ, "PYTHONPATH": str(REPO)})
+                            env={**os.environ, "PYTHONPATH": str(REPO), "WORKBENCH_RUN_LOG": str(RUN_LOG)})
     url = f"http://127.0.0.1:{port}"
     while True:
         try:
@@ -122,20 +156,184 @@ def goto(page, title: str, text: str) -> float:
 SERVER: dict[str, int] = {}
 """The pid of the app server under test (its CPU seconds are read from /proc)."""
 CPU: dict[str, list[float]] = {}
+PARTS: dict[str, list[dict]] = {}
+"""Per measure and round, where the time went (:func:`parts`)."""
+RUN_LOG = Path(tempfile.gettempdir()) / f"workbench-bench-runs-{os.getpid()}.tsv"
+"""The app's own log of its script runs (``WORKBENCH_RUN_LOG``, workbench/app/main.py)."""
+
+# Counted in the page from its first moment: every websocket message the server sends (bytes,
+# when the first and last came, in the page's clock), the main thread's long tasks (> 50 ms)
+# and the files it fetched (the pictures are separate requests to /media/, not in the messages).
+PROBE = """
+window.__wbNet = {n: 0, bytes: 0, times: []};
+const WbSocket = window.WebSocket;
+window.WebSocket = class extends WbSocket {
+  constructor(...args) {
+    super(...args);
+    this.addEventListener('message', (e) => {
+      const d = e.data, s = window.__wbNet;
+      s.n += 1;
+      s.bytes += d.byteLength ?? d.size ?? d.length ?? 0;
+      s.times.push(performance.now());
+    });
+  }
+};
+window.__wbLong = [];
+new PerformanceObserver((l) => { for (const e of l.getEntries()) window.__wbLong.push([e.startTime, e.duration]); })
+  .observe({type: 'longtask', buffered: true});
+"""
+SINCE = """(t0) => {
+  const s = window.__wbNet, after = s.times.filter((t) => t >= t0);
+  const files = performance.getEntriesByType('resource').filter((r) => r.startTime >= t0);
+  return {now: performance.now(), messages: after.length, first: after.length ? after[0] : null,
+          last: after.length ? after[after.length - 1] : null,
+          long: window.__wbLong.filter((x) => x[0] >= t0).reduce((a, x) => a + x[1], 0),
+          files: files.length, file_bytes: files.reduce((a, r) => a + (r.encodedBodySize || 0), 0)};
+}"""
+BROWSER_METRICS = ("TaskDuration", "ScriptDuration", "LayoutDuration", "RecalcStyleDuration")
+
+
+def browser_cpu() -> float:
+    """CPU seconds used so far by the Chromium processes this bench started (renderer, GPU, browser):
+    less sensitive to the machine's load than the main-thread seconds, which are wall times."""
+    parents, names = {}, {}
+    for d in Path("/proc").iterdir():
+        if not d.name.isdigit():
+            continue
+        try:
+            stat = (d / "stat").read_text()
+        except OSError:
+            continue
+        head, rest = stat.rsplit(")", 1)
+        names[int(d.name)] = head.split("(", 1)[1]
+        parents[int(d.name)] = int(rest.split()[1])
+    ours = set()
+    for pid in parents:
+        p = pid
+        while p in parents and p not in (0, 1):
+            if p == os.getpid():
+                ours.add(pid)
+                break
+            p = parents[p]
+    total = 0.0
+    for pid in ours:
+        if names.get(pid, "").startswith("chrom"):
+            try:
+                total += _cpu_seconds(pid)
+            except OSError:
+                continue
+    return total
+
+
+class Probe:
+    """Where a timed step's time went: the server's script runs, the bytes sent to the page, and the
+    browser's own work (Chromium's main-thread metrics over the Chrome DevTools Protocol)."""
+
+    def __init__(self, page) -> None:
+        self.page = page
+        self.cdp = page.context.new_cdp_session(page)
+        self.cdp.send("Performance.enable")
+
+    def _metrics(self) -> dict:
+        got = self.cdp.send("Performance.getMetrics")["metrics"]
+        return {m["name"]: m["value"] for m in got if m["name"] in BROWSER_METRICS}
+
+    def mark(self) -> dict:
+        bytes_, now = self.page.evaluate("() => [window.__wbNet.bytes, performance.now()]")
+        return {"bytes": bytes_, "t": now, "metrics": self._metrics(), "epoch": time.time(), "cpu": browser_cpu(),
+                "log": RUN_LOG.stat().st_size if RUN_LOG.exists() else 0}
+
+    def parts(self, m: dict) -> dict:
+        """The step since mark ``m``: server script runs (count, wall, CPU), websocket bytes, first and
+        last message after the start, then the browser until ready; browser main-thread seconds."""
+        got = self.page.evaluate(SINCE, m["t"])
+        net = self.page.evaluate("() => window.__wbNet.bytes")
+        metrics = self._metrics()
+        runs = []
+        if RUN_LOG.exists():
+            with RUN_LOG.open(encoding="utf-8") as f:
+                f.seek(m["log"])
+                runs = [line.rstrip("\n").split("\t") for line in f if line.strip()]
+        ms = 1000.0
+        return {
+            "script runs": len(runs),
+            "script wall": sum(float(r[2]) for r in runs),
+            "script CPU": sum(float(r[3]) for r in runs),
+            "kB sent": (net - m["bytes"]) / 1024,
+            "messages": got["messages"],
+            "kB files": got["file_bytes"] / 1024,
+            "to 1st message": (got["first"] - m["t"]) / ms if got["first"] is not None else float("nan"),
+            "to last message": (got["last"] - m["t"]) / ms if got["last"] is not None else float("nan"),
+            "last message to ready": (got["now"] - got["last"]) / ms if got["last"] is not None else float("nan"),
+            "browser CPU": browser_cpu() - m["cpu"],
+            "browser busy": metrics["TaskDuration"] - m["metrics"]["TaskDuration"],
+            "browser script": metrics["ScriptDuration"] - m["metrics"]["ScriptDuration"],
+            "layout+style": (metrics["LayoutDuration"] - m["metrics"]["LayoutDuration"]
+                             + metrics["RecalcStyleDuration"] - m["metrics"]["RecalcStyleDuration"]),
+            "long tasks": got["long"] / ms,
+        }
+
+
+PROBES: dict[str, Probe] = {}
+
+COLD = """() => {
+  const nav = performance.getEntriesByType('navigation')[0], s = window.__wbNet;
+  return {origin: performance.timeOrigin, now: performance.now(), dom: nav ? nav.domContentLoadedEventEnd : null,
+          first: s.times.length ? s.times[0] : null, last: s.times.length ? s.times[s.times.length - 1] : null,
+          kb: s.bytes / 1024, files: performance.getEntriesByType('resource')
+            .reduce((a, r) => a + (r.encodedBodySize || 0), 0) / 1024};
+}"""
+
+
+def cold_parts(page, epoch0: float, up: float) -> str:
+    """The cold start split: server up (health answered), the page's HTML and scripts loaded, the
+    first script run (the app's run log), the first and last message, ready; seconds from the start."""
+    got = page.evaluate(COLD)
+    at = lambda t: (got["origin"] + t) / 1000 - epoch0  # noqa: E731  (page clock -> seconds from the start)
+    runs = [line.split("\t") for line in RUN_LOG.read_text(encoding="utf-8").splitlines()] if RUN_LOG.exists() else []
+    first = (f"first script run ended at {float(runs[0][0]) - epoch0:.2f} s ({float(runs[0][2]):.2f} s wall, "
+             f"{float(runs[0][3]):.2f} s CPU; {len(runs)} run(s))") if runs else "no script run logged"
+    return (f"server up at {up - epoch0:.2f} s; page loaded (DOMContentLoaded) at {at(got['dom'] or 0):.2f} s; "
+            f"first message at {at(got['first'] or 0):.2f} s; {first}; last message at {at(got['last'] or 0):.2f} s; "
+            f"ready at {at(got['now']):.2f} s; sent {got['kb']:.0f} kB in messages + {got['files']:.0f} kB files")
+
+
+def mark() -> tuple[float, dict | None]:
+    """Server CPU seconds and the probe's mark at the start of a timed step."""
+    probe = PROBES.get("page")
+    return server_cpu(), (probe.mark() if probe is not None else None)
 
 
 def server_cpu() -> float:
     return _cpu_seconds(SERVER["pid"]) if "pid" in SERVER else float("nan")
 
 
-def record(times: dict, name: str, seconds: float, cpu0: float | None = None) -> None:
-    """One timing; with ``cpu0`` (the server's CPU seconds when it started) also the server's CPU
-    seconds spent meanwhile, which the machine's load changes much less than the wall time."""
+def record(times: dict, name: str, seconds: float, cpu0=None) -> None:
+    """One timing; with ``cpu0`` (the server's CPU seconds when it started, or :func:`mark`'s pair)
+    also the server's CPU seconds spent meanwhile, which the machine's load changes much less than
+    the wall time, and with a probe's mark where the time went (:meth:`Probe.parts`)."""
     times[name].append(seconds)
+    m = None
+    if isinstance(cpu0, tuple):
+        cpu0, m = cpu0
     cpu = "" if cpu0 is None else f" (server CPU {server_cpu() - cpu0:.2f} s)"
     if cpu0 is not None:
         CPU.setdefault(name, []).append(server_cpu() - cpu0)
     print(f"  {name}: {seconds:.2f} s{cpu}", flush=True)
+    if m is not None:
+        p = PARTS.setdefault(name, [])
+        p.append(PROBES["page"].parts(m))
+        print("    " + _parts_text(p[-1]), flush=True)
+
+
+def _parts_text(p: dict) -> str:
+    return (f"script {p['script runs']:.0f} run(s) {p['script wall']:.2f} s wall, {p['script CPU']:.2f} s CPU; "
+            f"sent {p['kB sent']:.0f} kB in {p['messages']:.0f} messages + {p['kB files']:.0f} kB files; "
+            f"1st message {p['to 1st message']:.2f} s, last {p['to last message']:.2f} s, then "
+            f"{p['last message to ready']:.2f} s to ready; browser CPU {p['browser CPU']:.2f} s, main thread busy "
+            f"{p['browser busy']:.2f} s "
+            f"(script {p['browser script']:.2f}, layout+style {p['layout+style']:.2f}; long tasks "
+            f"{p['long tasks']:.2f} s)")
 
 
 def one_round(page, args, times) -> None:
@@ -153,7 +351,8 @@ def one_round(page, args, times) -> None:
     record(times, "first figure after the run", time.monotonic() - t0, c0)
 
     def export(label: str) -> None:
-        t0, c0 = time.monotonic(), server_cpu()
+        c0 = mark()
+        t0 = time.monotonic()
         record(times, f"Export ready (results, bundle){label}", goto(page, "Export", "Download the model bundle (zip)"),
                c0)
         ready(page, "Download the report (HTML)")
@@ -162,7 +361,7 @@ def one_round(page, args, times) -> None:
     if args.at_once:  # the worst case: the background build has had no time at all
         export(", at once")
     goto(page, "Data", "Cohort summary")
-    c0 = server_cpu()
+    c0 = mark()
     record(times, "Results view, cached run", goto(page, "Results", "Download PDF"), c0)
     select = page.get_by_label("Figure", exact=True).first
     # the picture beside the figure's own download buttons (the comparison above has images too)
@@ -179,7 +378,8 @@ def one_round(page, args, times) -> None:
             continue
     # timed from the choice in the open list to the other figure on the page (its picture's
     # address changes) with the script run finished; opening the list is the browser's part
-    t0, c0 = time.monotonic(), server_cpu()
+    c0 = mark()
+    t0 = time.monotonic()
     page.get_by_role("option").nth(1).click()
     deadline = time.monotonic() + 120
     while shown.get_attribute("src") == before and time.monotonic() < deadline:
@@ -190,7 +390,8 @@ def one_round(page, args, times) -> None:
     record(times, "Results figure switch", time.monotonic() - t0, c0)
     goto(page, "Nomogram", "Download PNG")
     box = page.get_by_role("textbox", name="Other times (months, comma separated)")
-    t0, c0 = time.monotonic(), server_cpu()
+    c0 = mark()
+    t0 = time.monotonic()
     new = 18 + len(times["nomogram at a new time"])
     box.fill(str(new))
     box.press("Enter")
@@ -231,18 +432,24 @@ def main(argv=None) -> int:
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=CHROMIUM, headless=True, args=ARGS)
         for _ in range(args.repeats):
-            t0 = time.monotonic()
+            t0, epoch0 = time.monotonic(), time.time()
+            RUN_LOG.unlink(missing_ok=True)
             proc, url = serve()
+            up = time.time()
             SERVER["pid"] = proc.pid
             try:
                 page = browser.new_page(viewport={"width": 1440, "height": 1000})
+                page.add_init_script(PROBE)
+                PROBES["page"] = Probe(page)
                 page.goto(url)
                 ready(page, "Cohort summary")
                 record(times, "cold start to first view", time.monotonic() - t0, 0.0)
+                print("    " + cold_parts(page, epoch0, up), flush=True)
                 if not args.cold_only:
                     one_round(page, args, times)
                 page.close()
             finally:
+                PROBES.pop("page", None)
                 stop(proc)
         browser.close()
     print(f"{'measure':40s} {'runs (s)':24s} {'median':>8s} {'target':>8s}  met  {'server CPU, median':>18s}")
@@ -255,6 +462,14 @@ def main(argv=None) -> int:
         met = "-" if target is None else ("yes" if med < target else "NO")
         cpu = f"{statistics.median(CPU[k]):18.2f}" if CPU.get(k) else f"{'-':>18s}"
         print(f"{k:40s} {runs:24s} {med:8.2f} {'-' if target is None else f'{target:.2f}':>8s}  {met:3s}  {cpu}")
+    if PARTS:
+        print("\nwhere the time went (medians over the rounds; seconds unless said; the browser's main-thread "
+              "seconds overlap the wall time after the last message):")
+        keys = list(next(iter(PARTS.values()))[0])
+        print(f"{'measure':34s} " + " ".join(f"{k:>10.10s}" for k in keys))
+        for name, rows in PARTS.items():
+            print(f"{name:34.34s} " + " ".join(f"{statistics.median(r[k] for r in rows):10.2f}" for k in keys))
+    RUN_LOG.unlink(missing_ok=True)
     print(f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     return 0
 

@@ -147,7 +147,7 @@ def study(replicates_seed: int = 20261203, folds: int | None = None):
 
 
 def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True, cancer_rate: float = 1.0,
-                              other_rate: float = 1.0) -> Cohort:
+                              other_rate: float = 1.0, n_features: int = N_FEATURES) -> Cohort:
     """A cohort with cause 0/1/2 (censored, cancer death, other death); ``censor=False`` keeps every death.
 
     ``cancer_rate`` / ``other_rate``: multipliers of the Weibull rate of each cause's hazard
@@ -156,7 +156,7 @@ def simulate_competing_cohort(n: int, seed: int, *, censor: bool = True, cancer_
     time with rate k r is that time times k^(-1/shape): the same draws, the same
     covariates and effects, only the baseline hazard of that cause scaled by k.
     """
-    sim = simulate_cohort(n, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=N_FEATURES)
+    sim = simulate_cohort(n, random_state=seed, hospitals=NETWORK_HOSPITALS, n_features=n_features)
     et = sim.event_times
     t_other = draw_other_death(et["age"].to_numpy(), et["ecog"].to_numpy(), random_state=[seed, 7])
     t_other = t_other * other_rate ** (-1.0 / OTHER_SHAPE)

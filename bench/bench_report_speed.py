@@ -34,6 +34,18 @@ session) gave 1.2-1.8x less CPU for every figure with axes titles or constrained
 the nomogram and the patient flow; all 31 figures 19.1 -> 13.0 s (1.5x).
 Every report figure's SVG is byte-identical before and after except the two calibration figures,
 whose rasterised PNGs are pixel-identical.
+
+Each arm also prints where its least-CPU render's time went: drawing the figures (the plot calls,
+with the few numbers they compute), the layout engine run before writing, the SVG writing, and
+everything else. Measured 2026-12-04 16:49-16:53 UTC (load average 19.8 at the start, 23.5 at the end,
+other work), ``--before main --rounds 1 --renders 2`` on the same report code in both arms (so the two
+columns show the noise at that load: 10.5 and 8.9 s CPU): drawing 3.0-4.3 s, layout 2.4 s, SVG
+writing 3.0-3.2 s, everything else 0.5-0.6 s (results_dict 0.2 s, computed once per report). In one
+quieter process (load about 15) the report took 7.8-9.9 s CPU, 95% in its 31 figures, no figure
+above 1.2 s, no hot spot: matplotlib's own work (axes and tick objects, text layout, path writing)
+spread over every figure. The predictions the figures share cost 0.39 s in all; the SVG writer's
+text measurements 0.56 s (0.24 s when each text is measured once per font, tried and left out:
+it needs matplotlib's class patched while a report is written, for 4% of it).
 """
 
 from __future__ import annotations
@@ -66,13 +78,33 @@ def timed(items, key, *args, **kwargs):
     rows.append((key, time.perf_counter() - w0, time.process_time() - c0, bool(items[-1]["src"])))
 
 rf._figure = timed
+phases = {"draw": 0.0, "layout": 0.0, "embed": 0.0}
+
+def phase(name, fn):
+    def run(*args, **kwargs):
+        c0 = time.process_time()
+        try:
+            return fn(*args, **kwargs)
+        finally:
+            phases[name] += time.process_time() - c0
+    return run
+
+# where a figure's CPU goes: drawing it (the plot call, with the numbers it computes), the layout
+# engine run before writing, and the SVG writing (the rest of _embed)
+rf._embed = phase("embed", rf._embed)
+if hasattr(rf, "_settle_layout"):
+    rf._settle_layout = phase("layout", rf._settle_layout)
+timed_figure = rf._figure
+rf._figure = lambda items, key, title, caption, draw, *a, **k: timed_figure(items, key, title, caption,
+                                                                           phase("draw", draw), *a, **k)
 out = []
 for _ in range(renders):
     rows.clear()
+    phases.update(draw=0.0, layout=0.0, embed=0.0)
     w0, c0 = time.perf_counter(), time.process_time()
     html = render_report(result)
     out.append({"wall": time.perf_counter() - w0, "cpu": time.process_time() - c0, "figures": list(rows),
-                "chars": len(html)})
+                "chars": len(html), "phases": dict(phases)})
 print("RESULT" + json.dumps(out))
 """
 
@@ -82,6 +114,7 @@ def demo_result(path: str) -> None:
 
     warnings.simplefilter("ignore")
     from workbench import workflow
+    from workbench.app import state  # noqa: F401  (app.runs and app.state import each other; state first)
     from workbench.app.runs import quick_interval, quick_permutations
     from workbench.study import read_study
 
@@ -161,6 +194,14 @@ def report(runs: dict) -> None:
         bw, aw = min(x["wall"] for x in b), min(x["wall"] for x in a)
         print(f"render_report {label:21s} least CPU before {bc:6.1f} s after {ac:6.1f} s (ratio {bc / ac:4.1f}); "
               f"least wall before {bw:6.1f} s after {aw:6.1f} s (ratio {bw / aw:4.1f})")
+    for arm in runs:  # the render with the least CPU of the arm's later renders, split by phase
+        best = min(warm(arm), key=lambda r: r["cpu"])
+        ph = best.get("phases", {})
+        if ph:
+            figs = ph["draw"] + ph["embed"]
+            print(f"{arm:6s} least-CPU render {best['cpu']:5.1f} s: drawing the figures {ph['draw']:5.2f} s, "
+                  f"layout before writing {ph['layout']:5.2f} s, SVG writing {ph['embed'] - ph['layout']:5.2f} s, "
+                  f"everything else (results_dict, tables, text, template) {best['cpu'] - figs:5.2f} s")
     drawn = {arm: {tuple((f[0], f[3]) for f in r["figures"]) for child in runs[arm] for r in child} for arm in runs}
     print(f"same figures drawn (none failed) in both arms: {drawn['before'] == drawn['after']}")
 

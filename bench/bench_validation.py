@@ -58,8 +58,8 @@ from workbench.cohort import Cohort, make_outcome
 from workbench.metrics.concordance import harrell_c, uno_c
 from workbench.metrics.td_auc import time_dependent_auc
 from workbench.models.cox import ClinicalCox, CombinedCox
-from workbench.models.coxlik import cv_partial_loglik
-from workbench.models.penalized import breslow_loglik, fit_penalized_path, patient_folds
+from workbench.models.coxlik import breslow_loglik, cv_partial_loglik
+from workbench.models.penalized import fit_penalized_path, patient_folds
 from workbench.models.signature import ImagingSignature
 from workbench.predictions import RiskScores
 from workbench.preprocess.clinical import PredictorSpec

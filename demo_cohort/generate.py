@@ -15,14 +15,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from workbench.simulate import (
-    EXTERNAL_HOSPITALS,
-    NETWORK_HOSPITALS,
-    population_icc,
-    simulate_cohort,
-    simulate_repeats,
-)
+from workbench.simulate import EXTERNAL_HOSPITALS, NETWORK_HOSPITALS, simulate_cohort
 from workbench.simulate_competing import add_competing_death
+from workbench.simulate_repeats import population_icc, simulate_repeats
 
 HERE = Path(__file__).resolve().parent
 TRAINING_SEED = 20240

@@ -37,6 +37,7 @@ from workbench.report.bundle import (
     describe_inputs,
 )
 from workbench.stats.riskgroups import assign_groups, group_labels
+from workbench.units import time_phrase
 
 METHODS = ("delta", "bootstrap")
 MIN_BOOTSTRAP = 20  # fewer refits give unstable 2.5th / 97.5th percentiles (common practice)
@@ -417,7 +418,7 @@ def estimate_patient(model, patient, horizons, *, training_ranges: TrainingRange
         if not np.isfinite(a) or a <= 0 or a >= float(h.max()):
             unit = getattr(ranges, "time_unit", "") or ""
             raise SpecError(f"the time the patient is known to be alive (--alive-at) must be after 0 and before "
-                            f"the last horizon ({h.max():g} {unit}); got {a:g}.".replace(" )", ")"))
+                            f"the last horizon ({time_phrase(h.max(), unit)}); got {a:g}.".replace(" )", ")"))
     cohort, checks, unestimable = _validate(patient, ranges, ignore)
     if unestimable:
         raise ModelError(
@@ -522,8 +523,8 @@ def refit_bootstrap(model, cohort: Cohort, n_replicates: int = 200, *, random_st
 # ---------------------------------------------------------------- files and text
 
 
-def read_patient_file(path) -> dict:
-    """Read one patient's raw values from a one-row CSV, TSV or Excel file (header row first)."""
+def read_patient_rows(path) -> list[dict]:
+    """Read patients' raw values from a CSV, TSV or Excel file (header row first, one row per patient)."""
     p = Path(path)
     if not p.is_file():
         raise CohortError(f"{p}: patient file not found.")
@@ -538,9 +539,18 @@ def read_patient_file(path) -> dict:
     except (ValueError, OSError, pd.errors.ParserError) as exc:
         raise CohortError(f"{p}: could not be read as a table ({exc}).") from None
     df = df.dropna(how="all")
-    if len(df) != 1:
-        raise CohortError(f"{p} has {len(df)} data rows; a patient file holds one patient (a header row and one row).")
-    return _one_row(df)
+    if df.empty:
+        raise CohortError(f"{p} has no data rows; give a header row and one row per patient.")
+    return [_one_row(df.iloc[[i]]) for i in range(len(df))]
+
+
+def read_patient_file(path) -> dict:
+    """Read one patient's raw values from a one-row CSV, TSV or Excel file (header row first)."""
+    rows = read_patient_rows(path)
+    if len(rows) != 1:
+        raise CohortError(f"{path} has {len(rows)} data rows; a patient file holds one patient (a header row and "
+                          "one row).")
+    return rows[0]
 
 
 def _pct(x: float) -> str:
@@ -554,13 +564,13 @@ def format_estimate(est: PatientEstimate) -> str:
     for hz in est.horizons:
         ci = (f" ({100 * est.conf_level:g}% CI {_pct(hz.lower)} to {_pct(hz.upper)}; {label})"
               if est.interval_method != "none" else " (no interval)")
-        lines.append(f"  Survival at {hz.horizon:g} {u}: {_pct(hz.survival)}{ci}")
+        lines.append(f"  Survival at {time_phrase(hz.horizon, u)}: {_pct(hz.survival)}{ci}")
     if est.alive_at is not None:
-        lines.append(f"  Alive at {est.alive_at:g} {u}: chance of being alive at")
+        lines.append(f"  Alive at {time_phrase(est.alive_at, u)}: chance of being alive at")
         for hz in est.conditional:
             ci = (f" ({100 * est.conf_level:g}% CI {_pct(hz.lower)} to {_pct(hz.upper)})"
                   if np.isfinite(hz.lower) else " (no interval)")
-            lines.append(f"    {hz.horizon:g} {u}: {_pct(hz.survival)}{ci}")
+            lines.append(f"    {time_phrase(hz.horizon, u)}: {_pct(hz.survival)}{ci}")
         if not est.conditional:
             lines.append("    (no horizon lies after it)")
     lines.append("")

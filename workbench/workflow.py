@@ -28,6 +28,7 @@ from workbench.models.volume import VOLUME_MODEL
 from workbench.prepare import PreparedCohort, package_versions, prepare_cohort, spec_digest
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import StudySpec, dumps_study
+from workbench.units import time_phrase
 from workbench.validation.added_value import run_added_value
 from workbench.validation.compare import ComparisonResult, compare_models
 from workbench.validation.difference_bands import study_difference_bands
@@ -196,7 +197,7 @@ def check_uno_tau(tau, cohort, horizons) -> None:
     last = float(cohort.time.max())
     if not 0 < float(tau) < last:
         raise SpecError(
-            f"[validation] uno_tau = {tau:g} {cohort.time_unit} lies outside the follow-up of the "
+            f"[validation] uno_tau = {time_phrase(tau, cohort.time_unit)} lies outside the follow-up of the "
             f"{cohort.n} patients (follow-up up to {last:g} {cohort.time_unit}); choose a time inside it, "
             f"for example the last horizon ({max(horizons):g}), or leave uno_tau out.")
 

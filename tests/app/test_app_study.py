@@ -14,7 +14,7 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-from conftest import APP_MAIN, DEMO, REPO, assert_clean, page_texts
+from conftest import APP_MAIN, DEMO, REPO, assert_clean, page_texts, static_tables
 
 from workbench.app import state
 from workbench.study import read_study, write_study
@@ -61,9 +61,9 @@ def cli_results(tmp_path_factory):
 
 def _frame_with(at, *columns):
     """The first table on the page that has all these columns (data grid or static table)."""
-    for d in [*at.dataframe, *at.table]:
-        if all(c in d.value.columns for c in columns):
-            return d.value
+    for d in [*(d.value for d in at.dataframe), *static_tables(at)]:
+        if all(c in d.columns for c in columns):
+            return d
     raise AssertionError(f"no table with columns {columns}")
 
 
@@ -116,7 +116,7 @@ def test_results_tables_are_static_and_downloadable_with_the_same_cells(ran):
 
     from workbench.app.light_tables import tables_zip
 
-    shown = [t.value for t in ran.table]
+    shown = static_tables(ran)
     assert len(shown) >= 4  # discrimination, calibration, overall accuracy, the comparison
     assert not any("Measure" in d.value.columns for d in ran.dataframe)  # no data grid left for them
     labels = [b.proto.label for b in ran.get("download_button")]

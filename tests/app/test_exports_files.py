@@ -220,3 +220,69 @@ def test_the_figure_worker_draws_each_figure_of_a_plan_when_first_asked(monkeypa
     assert workers.figure_task("run-1", blob, _plan(drawn), "td_auc", "screen").startswith(b"\x89PNG")
     assert workers.figure_task("run-1", blob, _plan(drawn), "td_auc", "pdf").startswith(b"%PDF")
     assert drawn == ["td_auc"]
+
+
+def _wait_until(condition, seconds: float = 60.0) -> None:
+    """Poll a state (not a fixed sleep) until it holds; fail when it never does."""
+    import time
+
+    deadline = time.monotonic() + seconds
+    while not condition():
+        if time.monotonic() > deadline:
+            raise AssertionError("the state waited for never came")
+        time.sleep(0.01)
+
+
+def test_a_view_never_builds_the_report_in_its_own_thread_when_no_worker_can(builders, monkeypatch):
+    # an unpicklable result (a lock) cannot go to a worker: the files are built in this process, by the
+    # background thread only; a view's script thread asking for the report waits, and it is built next
+    where = {}
+    real = exports.BUILDERS["report"]
+
+    def report(result):
+        where["report"] = threading.current_thread().name
+        return real(result)
+
+    monkeypatch.setitem(exports.BUILDERS, "report", report)
+    gate = _hold_figures(monkeypatch)
+    ex = exports.prepare(threading.Lock())
+    got = {}
+    view = threading.Thread(target=lambda: got.setdefault("report", ex.get("report")), name="ScriptRunner.scriptThread")
+    view.start()
+    try:  # until the view either builds the report itself or waits for it
+        _wait_until(lambda: "report" in where or "report" in ex._wanted)
+    finally:
+        gate.set()
+    view.join(timeout=60)
+    ex._thread.join(timeout=60)
+    assert got["report"] == "<html></html>" and not ex.errors
+    assert where["report"] == "workbench-exports"  # the background thread, not the view's
+    assert builders == ["figures", "report", "json", "bundle", "folder"]  # the file waited for went first
+
+
+def test_a_view_waiting_on_a_file_gets_the_error_met_while_building_it(builders, monkeypatch):
+    def broken(result):
+        raise ValueError("no report today")
+
+    monkeypatch.setitem(exports.BUILDERS, "report", broken)
+    ex = exports.prepare(threading.Lock())
+    with pytest.raises(ValueError, match="no report today"):
+        ex.get("report")
+    ex._thread.join(timeout=60)
+    assert set(ex.files) >= {"json", "bundle", "folder"}
+
+
+def test_the_app_script_does_not_run_when_a_worker_process_imports_it(monkeypatch):
+    # A worker process spawned while Streamlit runs the app imports the file named by __main__.__file__
+    # (Streamlit's stand-in module: the app's main.py) under the name "__mp_main__" (multiprocessing's
+    # spawn start method); it must not run the app's pages there.
+    import runpy
+
+    import streamlit as st
+    from conftest import APP_MAIN
+
+    calls = []
+    monkeypatch.setattr(st, "navigation", lambda *a, **k: calls.append("navigation") or pytest.fail("page run"))
+    monkeypatch.setattr(st, "set_page_config", lambda *a, **k: calls.append("set_page_config"))
+    runpy.run_path(str(APP_MAIN), run_name="__mp_main__")
+    assert calls == []

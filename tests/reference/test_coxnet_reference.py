@@ -25,11 +25,10 @@ from sksurv.linear_model.coxph import BreslowEstimator
 from statsmodels.duration.hazard_regression import PHReg
 
 from workbench.cohort.outcome import make_outcome
+from workbench.models.coxlik import breslow_log_cumhaz, breslow_loglik
 from workbench.models.coxpath import fit_cox_path
 from workbench.models.penalized import (
     PenalizedCox,
-    breslow_log_cumhaz,
-    breslow_loglik,
     fit_penalized_path,
     patient_folds,
 )

@@ -41,9 +41,9 @@ from sksurv.linear_model import CoxnetSurvivalAnalysis
 from statsmodels.duration.hazard_regression import PHReg
 
 from workbench.cohort.outcome import make_outcome
-from workbench.models.coxlik import cv_partial_loglik, weighted_loglik
+from workbench.models.coxlik import breslow_loglik, cv_partial_loglik, weighted_loglik
 from workbench.models.coxpath import cox_alpha_max, fit_cox_path
-from workbench.models.penalized import breslow_loglik, fit_penalized_path
+from workbench.models.penalized import fit_penalized_path
 
 REF_TOL = 1e-15  # the reference solver's tolerance (see the module docstring)
 OUR_TOL = 1e-16

@@ -100,6 +100,11 @@ BUILDERS = {"figures": figures, "report": report_html, "json": results_json, "fo
 FILES = ("json", "bundle", "folder", "report")
 """The files the second worker writes, in this order (the slowest last)."""
 
+BACKGROUND_ONLY = ("report",)
+"""Files never built in a view's thread while the background thread runs: the report takes about 10 s of
+CPU, and built in a script thread it would hold the interpreter lock against every view for as long.
+The others take well under a second, so a view that needs one at once may build it (when no worker can)."""
+
 SCREEN = "screen"
 """``fmt`` of :meth:`Exports.figure_file` for the PNG the Results view shows."""
 
@@ -123,6 +128,8 @@ class Exports:
         self._local_figures: dict | None = None
         self._local_guard = threading.Lock()
         self._job = workers.Job(result, token=uuid.uuid4().hex) if apart else None
+        self._done = threading.Condition()
+        self._wanted: list[str] = []
 
     def start(self) -> Exports:
         # the second worker gets every file at once and writes them in order, the report last
@@ -138,9 +145,18 @@ class Exports:
         return self._job.submit(pool, task, *args)
 
     def _all(self) -> None:
-        # the Results view's figures first, then the Export view's files (their futures)
-        for name in ("figures", "screens", *FILES):
+        # the Results view's figures first, then the Export view's files (their futures); a file a view
+        # waits for (see get) goes before the others
+        order = ["figures", "screens", *FILES]
+        while True:
+            with self._done:
+                left = [n for n in order if not self.ready(n)]
+                if not left:
+                    return
+                name = next((n for n in self._wanted if n in left), left[0])
             self._build(name)
+            with self._done:
+                self._done.notify_all()
 
     def _compute(self, name: str):
         if name == "screens":
@@ -149,9 +165,16 @@ class Exports:
             future = self._submit(workers.FIGURES_POOL, workers.figure_task, BUILDERS["figures"], None, None)
             got = workers.outcome(future)
             return got if got is not workers.UNAVAILABLE else list(self._figures_here())
-        got = workers.outcome(self._futures.get(name) or self._submit(workers.FILES_POOL, workers.build,
-                                                                        BUILDERS[name]))
+        got = self._from_worker(name)
         return got if got is not workers.UNAVAILABLE else BUILDERS[name](self.result)
+
+    def _from_worker(self, name: str):
+        """The file as the files worker wrote it (waiting for it), or UNAVAILABLE (not sent, or the worker died)."""
+        with self._guard:
+            future = self._futures.get(name)
+            if future is None:
+                future = self._futures[name] = self._submit(workers.FILES_POOL, workers.build, BUILDERS[name])
+        return workers.outcome(future)
 
     def _figures_here(self) -> dict:
         with self._local_guard:
@@ -178,7 +201,12 @@ class Exports:
     def get(self, name: str):
         """The file's content (None when the layer offers none); raises the error met while building it.
 
-        ``"figures"`` is the list of the run's figure names; ``"screens"`` their screen PNGs."""
+        ``"figures"`` is the list of the run's figure names; ``"screens"`` their screen PNGs.
+        The report (:data:`BACKGROUND_ONLY`) asked for while the background thread runs is never built
+        in the caller's thread (a view's script thread): the caller waits for the files worker's copy,
+        or, when there is none, for the background thread to build it here, next."""
+        if name in BACKGROUND_ONLY and self._background() and not self.ready(name):
+            self._wait_for(name)
         self._build(name)  # waits for the background thread only while it builds this same file
         if name in self.errors:
             raise self.errors[name]
@@ -211,6 +239,32 @@ class Exports:
 
     def ready(self, name: str) -> bool:
         return name in self.files or name in self.errors
+
+    def _background(self) -> bool:
+        """True when called from another thread than the background builder while it still runs."""
+        t = self._thread
+        return t is not None and t.is_alive() and t is not threading.current_thread()
+
+    def _wait_for(self, name: str) -> None:
+        try:
+            got = self._from_worker(name)  # no lock held, no building here: only the worker's copy
+        except Exception as exc:  # noqa: BLE001 - the task's own error, kept like the builder's
+            got, error = workers.UNAVAILABLE, exc
+        else:
+            error = None
+        if got is not workers.UNAVAILABLE or error is not None:
+            with self._locks[name]:
+                if not self.ready(name):
+                    if error is None:
+                        self.files[name] = got
+                    else:
+                        self.errors[name] = error
+            return
+        with self._done:
+            if name not in self._wanted:
+                self._wanted.append(name)
+            while not self.ready(name) and self._background():
+                self._done.wait(0.5)
 
 
 def prepare(result) -> Exports:

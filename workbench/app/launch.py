@@ -1,6 +1,7 @@
 """Start the browser front end on this computer only.
 
-``python -m workbench.app.launch [--port 8501] [--open]`` runs ``streamlit run``
+``python -m workbench.app.launch [--port 8501] [--open]`` runs ``streamlit run`` (by way of
+:mod:`workbench.app.serve`)
 on ``workbench/app/main.py`` bound to 127.0.0.1, with usage statistics off and
 an upload limit, whatever the local Streamlit configuration says. The command
 line's ``app`` subcommand calls :func:`main`.
@@ -43,8 +44,9 @@ def free_port(start: int = 8501, tries: int = 50) -> int:
 
 
 def command(port: int, python: str | None = None) -> list[str]:
-    """The ``streamlit run`` command line for the app on ``port``."""
-    cmd = [python or sys.executable, "-m", "streamlit", "run", str(MAIN), "--server.port", str(port)]
+    """The ``streamlit run`` command line for the app on ``port`` (through :mod:`workbench.app.serve`,
+    which does the first view's imports while the browser loads the page)."""
+    cmd = [python or sys.executable, "-m", "workbench.app.serve", "run", str(MAIN), "--server.port", str(port)]
     for k, v in SAFE_OPTIONS.items():
         cmd += [f"--{k}", v]
     return cmd

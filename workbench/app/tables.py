@@ -7,6 +7,7 @@ import math
 import pandas as pd
 
 from workbench.models.labels import MODEL_LABELS
+from workbench.units import time_phrase
 
 METRIC_LABELS = {
     "harrell_c": "Harrell C",
@@ -37,7 +38,7 @@ def label(model: str) -> str:
 def metric_label(name: str, time_unit: str = "") -> str:
     base, _, h = name.partition("@")
     text = METRIC_LABELS.get(base, base)
-    return f"{text} at {h} {time_unit}".rstrip() if h else text
+    return f"{text} at {time_phrase(float(h), time_unit)}" if h else text
 
 
 def num(x, digits: int = 3) -> str:
@@ -118,7 +119,7 @@ def reclassification_table(comparison, *, time_unit: str = "") -> pd.DataFrame:
                           ("idi_events", "IDI, events"), ("idi_nonevents", "IDI, non-events")):
             e = getattr(r, key)
             rows.append({
-                "Horizon": f"{r.horizon:g} {time_unit}".strip(),
+                "Horizon": time_phrase(r.horizon, time_unit),
                 "Measure": text,
                 "Validated": num(e.estimate),
                 "CI": _ci(e),

@@ -41,20 +41,24 @@ def _pool(kind: str) -> ProcessPoolExecutor:
         return _POOLS[kind]
 
 
-def _drop(kind: str) -> None:
+def _drop(kind: str, pool: ProcessPoolExecutor | None = None) -> None:
+    """Forget the worker ``kind`` (``pool``, when given: not a newer one) and count its death once."""
     with _GUARD:
-        if _POOLS.pop(kind, None) is not None:
+        if _POOLS.get(kind) is not None and (pool is None or _POOLS[kind] is pool):
+            del _POOLS[kind]
             _BREAKS[kind] = _BREAKS.get(kind, 0) + 1
 
 
 def submit(kind: str, fn, *args) -> Future | None:
     """``fn(*args)`` in worker ``kind``; None when the worker cannot be started."""
+    pool = None
     try:
-        future = _pool(kind).submit(fn, *args)
+        pool = _pool(kind)
+        future = pool.submit(fn, *args)
     except (OSError, RuntimeError, BrokenProcessPool):
-        _drop(kind)
+        _drop(kind, pool)
         return None
-    future.pool_kind = kind
+    future.pool_kind, future.pool = kind, pool
     return future
 
 
@@ -66,8 +70,8 @@ def outcome(future: Future | None):
         return UNAVAILABLE
     try:
         return future.result()
-    except BrokenProcessPool:
-        _drop(getattr(future, "pool_kind", ""))
+    except BrokenProcessPool:  # two threads waiting on one task of a dead worker count one death
+        _drop(getattr(future, "pool_kind", ""), getattr(future, "pool", None))
         return UNAVAILABLE
 
 

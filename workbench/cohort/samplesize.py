@@ -27,6 +27,7 @@ import math
 from dataclasses import dataclass
 
 from workbench.errors import CohortError
+from workbench.units import time_phrase
 
 
 @dataclass(frozen=True)
@@ -173,12 +174,11 @@ def criteria_rows(ss, time_unit: str = "") -> list[tuple[str, int]]:
     The last row is the number of patients the study needs: the most demanding criterion.
     Used by the text summary and the app so both say the same thing.
     """
-    u = f" {time_unit}" if time_unit else ""
     rows = [
         (f"fitted effects need shrinking by at most {1 - ss.shrinkage_target:.0%}", ss.n_shrinkage),
         ("explained variation overstated by at most 0.05 (Nagelkerke scale)", ss.n_optimism),
     ]
     if ss.n_overall_risk is not None:
-        rows.append((f"risk at {ss.horizon:g}{u} estimated to within 0.05 either way", ss.n_overall_risk))
+        rows.append((f"risk at {time_phrase(ss.horizon, time_unit)} estimated to within 0.05 either way", ss.n_overall_risk))
     rows.append(("patients needed (the most demanding of these)", ss.n_required))
     return rows

@@ -27,6 +27,7 @@ from workbench.stats.km import (
     reverse_kaplan_meier_median_followup,
     survival_at,
 )
+from workbench.units import time_phrase
 
 CAUTION = (
     "Research use only. Estimates come from a retrospective cohort and model; "
@@ -154,7 +155,7 @@ def summarise_cohort(
             raise CohortError(f"horizon {h} must be a positive time in {cohort.time_unit}.")
         if h > t.max():
             raise CohortError(
-                f"horizon {h:g} {cohort.time_unit} lies beyond the longest follow-up "
+                f"horizon {time_phrase(h, cohort.time_unit)} lies beyond the longest follow-up "
                 f"({t.max():g} {cohort.time_unit}); choose a horizon inside follow-up."
             )
         s = float(survival_at(km, h))
@@ -239,6 +240,20 @@ def _num(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+def _per_feature_line(epf: float) -> str:
+    if epf < 10:  # fewer than 10 events per candidate parameter: common practice
+        return f"Events per imaging feature: {epf:.2f} (why the signature needs penalisation and honest validation)"
+    return f"Events per imaging feature: {epf:.1f}"
+
+
+def _median_line(what: str, median: float, ci: tuple[float, float], u: str) -> str:
+    """'what: 12.3 months (95% CI ...)', or 'not reached' without a unit after it."""
+    lo, hi = (_num(c) + ("" if not np.isfinite(c) else f" {u}") for c in ci)
+    if not np.isfinite(median):
+        return f"{what}: not reached within follow-up (95% CI {lo} to {hi})"
+    return f"{what}: {median:.1f} {u} (95% CI {_num(ci[0])} to {_num(ci[1])})"
+
+
 def format_summary(s: CohortSummary) -> str:
     """The summary as plain text for a terminal or a log."""
     u = s.time_unit
@@ -252,8 +267,7 @@ def format_summary(s: CohortSummary) -> str:
         f"censored {s.n_censored - s.n_competing}",
         f"Median follow-up (reverse Kaplan-Meier): {_num(s.median_followup)} {u} "
         f"(95% CI {_num(s.median_followup_ci[0])} to {_num(s.median_followup_ci[1])}); longest {s.max_followup:.1f} {u}",
-        f"Median survival: {_num(s.median_survival)} {u} "
-        f"(95% CI {_num(s.median_survival_ci[0])} to {_num(s.median_survival_ci[1])})",
+        _median_line("Median survival", s.median_survival, s.median_survival_ci, u),
     ]
     if s.n_competing is not None:
         lines.append("(Kaplan-Meier figures here censor the competing events: cause-specific, not the risk of the "
@@ -262,7 +276,7 @@ def format_summary(s: CohortSummary) -> str:
         lines.append("")
         lines.append(f"Kaplan-Meier survival{'':27s}at risk")
         for h in s.horizons:
-            when = f"at {h.horizon:g} {u}:"
+            when = f"at {time_phrase(h.horizon, u)}:"
             lines.append(
                 f"  {when:16s}{100 * h.survival:5.1f}% (95% CI {100 * h.ci_lower:4.1f} to "
                 f"{100 * h.ci_upper:4.1f})  {h.at_risk:6d}"
@@ -295,8 +309,8 @@ def format_summary(s: CohortSummary) -> str:
         "",
         f"Events per candidate clinical parameter: {s.events_per_clinical_parameter:.1f} "
         f"({s.n_events} events / {s.n_clinical_parameters} parameters, {s.clinical_parameters_source})",
-        f"Events per imaging feature: {s.events_per_feature:.2f} (why the signature needs penalisation and honest validation)"
-        if s.n_features else "Events per imaging feature: not applicable (no imaging features)",
+        _per_feature_line(s.events_per_feature) if s.n_features
+        else "Events per imaging feature: not applicable (no imaging features)",
         "",
         f"Minimum sample size for a Cox model with {ss.n_parameters} parameters (Riley et al. 2019/2020),",
         f"  Cox-Snell R-squared {ss.r2_cs:.3f}, {ss.r2_cs_source}; maximum {ss.max_r2_cs:.3f}:",

@@ -17,6 +17,7 @@ the rows it is judged on.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -33,7 +34,7 @@ from workbench.competing.regression import (
     predict_incidence_cause_specific,
     predict_incidence_fine_gray,
 )
-from workbench.errors import SpecError
+from workbench.errors import EmptySignatureWarning, SpecError
 from workbench.models.cox import fill_missing
 from workbench.models.penalized import patient_folds
 from workbench.models.registry import build_signature
@@ -130,7 +131,17 @@ def fit_arm(train: Cohort, spec: StudySpec, target: str, *, imaging: bool, rando
     Xd = arm.design(train)
     if n_sel and spec.models.combined.coefficient == "prevalidated":
         # coefficients from out-of-fold scores; the arm keeps the signature fitted on all rows
-        Xd = np.column_stack([Xd[:, :-1], _cross_fitted_score(train, spec, y, X, protect, random_state)])
+        oof = _cross_fitted_score(train, spec, y, X, protect, random_state)
+        if np.ptp(oof) == 0.0:
+            # no fold's signature kept a feature: the signature gets no estimable weight and the arm is
+            # the clinical arm (as CombinedCox does), rather than a fit that fails on a constant column
+            warnings.warn(f"the signature kept {n_sel} feature(s) on all patients but none in any pre-validation "
+                          "fold; its pre-validated coefficient cannot be estimated, so the arm is the clinical "
+                          "arm.", EmptySignatureWarning, stacklevel=2)
+            arm.n_selected = n_sel = 0
+            Xd = X
+        else:
+            Xd = np.column_stack([Xd[:, :-1], oof])
     arm.cause_specific = fit_cause_specific(Xd, y, min_events_per_parameter=0)
     if fine_gray and np.any(y["cause"] > 1):
         arm.fine_gray = fit_fine_gray(Xd, y, cause=1, min_events_per_parameter=0)

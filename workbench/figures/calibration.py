@@ -34,6 +34,7 @@ from workbench.figures.style import (
 from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import CalibrationResult
 from workbench.predictions import SurvivalCurves
+from workbench.units import unit_for
 
 
 def _risks(predicted, t0: float) -> np.ndarray | None:
@@ -107,8 +108,7 @@ def plot_calibration(
         a.set_xlim(0, limit)
         a.set_ylim(0, limit)
         a.set_aspect("equal", adjustable="box")
-        unit = f" {time_unit}" if time_unit else ""
-        a.set_xlabel(f"Predicted risk by {format_number(result.t0)}{unit}")
+        a.set_xlabel(f"Predicted risk by {format_number(result.t0)} {unit_for(result.t0, time_unit)}".rstrip())
         a.set_ylabel("Observed risk")
         if compact:
             # above the panel, where it cannot cover a point of the curve
@@ -175,14 +175,19 @@ def plot_calibration_panels(
         fig.set_figheight(len(names) * (panel_in + 6.5 * fs_in) + 9 * fs_in)
         rows = fig.subfigures(len(names), 1, squeeze=False)[:, 0]
         grid = np.array([row.subplots(1, n_h, squeeze=False)[0] for row in rows])
+        limits = []
         for j in range(n_h):
             res = [results[n][j] for n in names]
             top = max(max(float(np.max(r.smoothed.grid_predicted)), float(np.max(r.grouped.observed_upper)))
                       for r in res)
-            limit = min(1.0, np.ceil(top * 10 + 0.5) / 10)
+            limits.append(min(1.0, np.ceil(top * 10 + 0.5) / 10))
+        for j, limit in enumerate(limits):
+            # a panel leaves its observed-risk ticks unlabelled only when its scale is the one labelled
+            # at the row's start: each horizon has its own range
+            labelled = j == 0 or not np.isclose(limit, limits[0])
             for i, n in enumerate(names):
                 pred = None if predicted is None else predicted.get(n)
-                horizon = f"{format_number(results[n][j].t0)} {time_unit}".rstrip()
+                horizon = f"{format_number(results[n][j].t0)} {unit_for(results[n][j].t0, time_unit)}".rstrip()
                 a = grid[i, j]
                 plot_calibration(results[n][j], predicted=pred, ax=a, width=width, time_unit=time_unit,
                                  series=n, limit=limit, title=horizon, compact=True)
@@ -190,7 +195,7 @@ def plot_calibration_panels(
                 a.set_ylabel("Observed" if j == 0 else "")
                 a.set_xticks([0, limit / 2, limit], labels=["0", format_number(limit / 2), format_number(limit)])
                 a.set_yticks([0, limit / 2, limit], labels=["0", format_number(limit / 2), format_number(limit)]
-                             if j == 0 else [])
+                             if labelled else [])
         for row, n in zip(rows, names, strict=True):
             row.suptitle(n, x=0.01, ha="left", fontsize="medium", color=styles[n].color, fontweight="bold")
         where = f"\n({cohort})" if cohort else ""

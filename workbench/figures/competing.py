@@ -17,6 +17,7 @@ from workbench.figures.style import (
     series_style,
     style_context,
 )
+from workbench.units import time_phrase
 
 __all__ = ["plot_cause_incidence", "plot_incidence_calibration"]
 
@@ -76,7 +77,7 @@ def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="si
             ax.set_ylim(0, 1)
             if j:
                 ax.tick_params(labelleft=False)
-            ax.set_title(f"{groups[names[0]][j].t0:g} {time_unit}".strip())
+            ax.set_title(time_phrase(groups[names[0]][j].t0, time_unit).strip())
             ax.set_xlabel("Predicted")
             ax.set_aspect("equal")
             if j == 0:

@@ -22,6 +22,7 @@ from workbench.figures.measure import wrap_to_width
 from workbench.figures.style import INK, NEUTRAL, figure_and_axes, model_styles, style_context
 from workbench.figures.ticks import format_number
 from workbench.metrics.decision import DecisionCurveResult, net_benefit
+from workbench.units import unit_for
 
 
 def decision_curves(y, curves: Mapping, t0: float, thresholds=None) -> dict[str, DecisionCurveResult]:
@@ -90,7 +91,7 @@ def plot_decision_curve(
             ends = [float(p.max()) for p in positive if p.size]
             max_threshold = min(float(pt.max()), (max(ends) if ends else float(pt.max())) + 0.05)
         a.set_xlim(float(pt.min()), max_threshold)
-        a.set_xlabel(f"Threshold risk of an event by {format_number(first.t0)} {time_unit}".rstrip())
+        a.set_xlabel(f"Threshold risk of an event by {format_number(first.t0)} {unit_for(first.t0, time_unit)}".rstrip())
         a.set_ylabel("Net benefit")
         if ax is None:
             # under the panel: curves run into every corner of a decision plot

@@ -16,6 +16,7 @@ import numpy as np
 from workbench.errors import SpecError
 from workbench.figures.style import BAND_ALPHA, NEUTRAL, model_styles, new_figure, style_context
 from workbench.figures.ticks import format_number, time_ticks
+from workbench.units import unit_for
 
 __all__ = ["plot_difference_curves"]
 
@@ -95,7 +96,7 @@ def plot_difference_curves(bands: Mapping[str, Mapping[str, object]], *, width: 
                 else:
                     a.set_xlim(0.0, _x_end([(bands.get(q) or {}).get(c) for c in cols]))
                     sep = "\n" if width == "single" and len(cols) > 1 else " "
-                    a.set_xlabel(f"Threshold risk{sep}by {format_number(b.horizon)} {time_unit}".rstrip())
+                    a.set_xlabel(f"Threshold risk{sep}by {format_number(b.horizon)} {unit_for(b.horizon, time_unit)}".rstrip())
                 if i == 0:
                     a.set_title(_SETTING[s], loc="left")
             axes[i][0].set_ylabel("AUC difference" if q == "auc" else "Net benefit difference")

@@ -40,6 +40,7 @@ from workbench.figures.wording import chi_squared_text
 from workbench.stats.coxph import fit_coxph
 from workbench.stats.km import KaplanMeierResult, kaplan_meier
 from workbench.stats.logrank import LogRankResult, logrank_test
+from workbench.units import time_phrase, unit_for
 
 __all__ = ["KMByGroupResult", "km_by_group", "km_caption", "plot_km_by_group", "risk_groups"]
 
@@ -138,7 +139,7 @@ def conditional_km_by_group(y_eval, grouping: RiskGroups, since: float, *, time_
     time, event = split_outcome(y_eval)
     keep = time > float(since)
     if keep.sum() < 2:
-        raise SpecError(f"fewer than two patients are followed beyond {since:g} {time_unit}; nothing to show.")
+        raise SpecError(f"fewer than two patients are followed beyond {time_phrase(since, time_unit)}; nothing to show.")
     sub = replace(grouping, groups=np.asarray(grouping.groups)[keep])
     return km_by_group(make_outcome(time[keep] - float(since), event[keep]), sub, time_unit=time_unit,
                        conf_level=conf_level)
@@ -237,9 +238,9 @@ def plot_km_by_group(
         ax_main.set_xlim(0, result.tick_times[-1] if result.tick_times.size else None)
         ax_main.set_xticks(result.tick_times)
         unit = f" ({result.time_unit})" if result.time_unit else ""
-        after = "" if since is None else f" since {format_number(since)}"
-        ax_main.set_ylabel("Survival probability" if since is None else
-                           f"Survival, given alive at {format_number(since)}")
+        since_text = "" if since is None else f"{format_number(since)} {unit_for(since, result.time_unit)}".rstrip()
+        after = "" if since is None else f" since {since_text}"
+        ax_main.set_ylabel("Survival probability" if since is None else f"Survival, given alive at {since_text}")
         if ax is None:
             # above the panel, where no curve can be hidden behind it
             ax_main.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=n_groups,

@@ -235,11 +235,13 @@ class _Painter:
                                             alpha=_BAND_ALPHAS[min(i, len(_BAND_ALPHAS) - 1)],
                                             edgecolor="white", linewidth=0.6, clip_on=False))
                 room = (x1 - x0) / self.geo.units_per_pt
-                label = b.label
-                if self.m.width(label, self.geo.tick_fs) > 0.95 * room:
-                    label = label[:3] + "."
-                self.ax.text((x0 + x1) / 2, top - h / 2, label, ha="center", va="center",
-                             fontsize=self.geo.tick_fs, color=INK, clip_on=False)
+                # the name, its abbreviation or its initial, whichever fits inside the band; a band
+                # too narrow for any stays unlabelled (its neighbours and the caption name it)
+                fits = [w for w in (b.label, b.label[:3] + ".", b.label[0])
+                        if self.m.width(w, self.geo.tick_fs) <= 0.95 * room]
+                if fits:
+                    self.ax.text((x0 + x1) / 2, top - h / 2, fits[0], ha="center", va="center",
+                                 fontsize=self.geo.tick_fs, color=INK, clip_on=False)
             self.ax.text(-2.5, top - h / 2, "risk group", ha="right", va="center",
                          fontsize=self.geo.tick_fs, color=NEUTRAL, clip_on=False)
 

@@ -273,7 +273,9 @@ class NomogramScales:
         if self.median is None:
             raise SpecError("this nomogram was built without a median-survival axis (median_axis=True).")
         h = self.median.baseline_cumhaz * np.exp(float(self.linear_predictor(total_points)))
-        k = np.searchsorted(h, np.log(2.0), side="left")
+        # survival exactly 0.5 counts as reached: a median tick is placed where H0(m) exp(LP) = ln 2,
+        # and the round trip through points and back may land a few ulps below ln 2
+        k = np.searchsorted(h, np.log(2.0) * (1.0 - 1e-10), side="left")
         return float(self.median.event_times[k]) if k < h.size else float("inf")
 
 

@@ -15,6 +15,7 @@ import numpy as np
 from workbench.figures.measure import TextMeasure as _Measure
 from workbench.figures.nomogram_axes import NomogramScales, PatientPoints, TermScale
 from workbench.figures.ticks import format_number
+from workbench.units import unit_for, unit_singular
 
 SCORE_AXIS = "Factor score"
 """Name of the top ruler (each factor's contribution, 0-100 for the widest factor)."""
@@ -196,17 +197,13 @@ def _layout(scales: NomogramScales, term_block: float, geo, measure) -> list[_Ro
     return rows
 
 
-def _unit_singular(unit: str) -> str:
-    return unit[:-1] if unit.endswith("s") else unit
-
-
 def _row_label(r: _Row, scales: NomogramScales) -> str:
     if r.kind == "points":
         return SCORE_AXIS
     if r.kind == "total":
         return SUM_AXIS
     if r.kind == "survival":
-        u = _unit_singular(scales.time_unit)
+        u = unit_singular(scales.time_unit)
         if scales.risk_of:  # the event is named in the panel title; the rows stay short
             return f"{format_number(r.horizon)}-{u} risk" if u else f"Risk by {format_number(r.horizon)}"
         return f"{format_number(r.horizon)}-{u} survival" if u else f"Survival at {format_number(r.horizon)}"
@@ -272,8 +269,8 @@ def _panel_notes(sc: NomogramScales, pp: PatientPoints | None, extra: list[str],
                 f"{format_number(t.display_value(hi), 3)}{unit}): the reading is an extrapolation."
             )
         if interval:
-            unit = f" {sc.time_unit}" if sc.time_unit else ""
-            parts = [f"{format_number(h)}{unit} {lo:.2f} to {hi:.2f}" for h, (lo, hi) in sorted(interval.items())]
+            parts = [f"{format_number(h)} {unit_for(h, sc.time_unit)}".rstrip() + f" {lo:.2f} to {hi:.2f}"
+                     for h, (lo, hi) in sorted(interval.items())]
             what = f"risk of {sc.risk_of}" if sc.risk_of else "survival"
             out.append(f"Shaded bars on the {what} axes: 95% interval of this patient's predicted {what} "
                        f"({'; '.join(parts)}).")

@@ -25,6 +25,7 @@ from workbench.figures.style import (
     style_context,
 )
 from workbench.figures.ticks import format_number
+from workbench.units import unit_for
 
 __all__ = ["plot_site_calibration", "site_rows"]
 
@@ -175,7 +176,7 @@ def plot_site_calibration(groups: Mapping, *, horizon: float, models: Sequence[s
         a.spines["left"].set_visible(False)
         a.set_ylim(min(ypos) - 0.6, max(ypos) + 0.6)
         sep = "\n" if width == "single" else " "
-        a.set_xlabel(f"Observed / expected by {format_number(horizon)} {time_unit}".replace("  ", " ") + f"{sep}(log scale)")
+        a.set_xlabel(f"Observed / expected by {format_number(horizon)} {unit_for(horizon, time_unit)}".replace("  ", " ") + f"{sep}(log scale)")
         if title:
             a.set_title(title, loc="left")
         from matplotlib.lines import Line2D

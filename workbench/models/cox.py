@@ -40,7 +40,7 @@ import pandas as pd
 from sklearn.base import clone
 
 from workbench.cohort.core import Cohort
-from workbench.errors import ConvergenceWarning, ModelError, WorkbenchError
+from workbench.errors import ConvergenceWarning, EmptySignatureWarning, ModelError, WorkbenchError
 from workbench.models.base import ModelDescription, TermRow, as_times, check_fitted
 from workbench.models.penalized import patient_folds
 from workbench.predictions import RiskScores, SurvivalCurves
@@ -422,6 +422,18 @@ class CombinedCox(_CoxBase):
             self.coefficient_source_ = f"in_sample (cross-fitting failed: {exc})"
             warnings.warn(f"model {self.name!r}: the signature coefficient could not be pre-validated ({exc}); "
                           "the in-sample coefficient is used and is optimistic.", ConvergenceWarning, stacklevel=2)
+            return self
+        if self.coefficient == "prevalidated" and np.ptp(oof_score) == 0.0:
+            # No fold's signature kept a feature: the cross-fitted scores are constant and give the
+            # signature no estimable weight, so the model is the clinical model (as with an empty
+            # signature). Dropping the replicate instead would keep only those where imaging helps.
+            kept = ", ".join(self.selected_features_)
+            self.selected_features_ = ()
+            self._fit_cox(X_clin, cohort, self.transformer_.columns_)
+            self.coefficient_source_ = "prevalidated (no cross-fitted signature kept a feature: weight 0)"
+            warnings.warn(f"model {self.name!r}: the signature kept {kept} on all patients but no feature in any of "
+                          f"the {self.prevalidation_folds} pre-validation folds, so its pre-validated coefficient "
+                          "cannot be estimated; the model is the clinical model.", EmptySignatureWarning, stacklevel=2)
             return self
         if self.coefficient == "prevalidated":
             # The signature of the final model is the one fitted on all rows; only the

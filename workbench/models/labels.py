@@ -32,7 +32,8 @@ def equal_models(models: dict) -> dict[str, str]:
     """
     m = models.get("combined")
     sig = getattr(m, "signature_", None)
-    if sig is not None and not tuple(sig.selected_features_):
+    # the model's own selection: empty also when every pre-validation fold's signature was
+    if sig is not None and (not tuple(sig.selected_features_) or not tuple(getattr(m, "selected_features_", (1,)))):
         return {"combined": "clinical"}
     return {}
 

@@ -112,4 +112,20 @@ def appendix_context(result) -> dict:
     """Everything the appendix shows, as plain data."""
     curves = baseline_curves(result)
     return {"baseline": baseline_table(result, curves), "clinical": clinical_parameters(result),
-            "signature": signature_parameters(result), "has_curves": bool(curves)}
+            "signature": signature_parameters(result), "has_curves": bool(curves),
+            "wide_models": wide_models_note(result)}
+
+
+def wide_models_note(result) -> str | None:
+    """Where the fitted models that use the whole feature pool keep their learned values (None: none fitted)."""
+    wide = {"penalised_all": "the penalised model with all imaging features", "forest": "the random survival forest"}
+    fitted = [wide[k] for k in result.models if k in wide]
+    if not fitted:
+        return None
+    parts = (["ComBat parameters"] if result.spec.imaging.harmonise.method != "none" else []) + (
+        ["coefficients"] if "penalised_all" in result.models else []) + (
+        ["fitted trees"] if "forest" in result.models else [])
+    who = " and ".join(fitted)
+    verb = "uses" if len(fitted) == 1 else "use"
+    return (f"{who[0].upper()}{who[1:]} {verb} every feature of the pool; {'its' if len(fitted) == 1 else 'their'} "
+            f"{' and '.join(parts)} are in the model bundle rather than printed here.")

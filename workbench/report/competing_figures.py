@@ -17,6 +17,7 @@ from workbench.competing.analysis import CompetingStudyResult
 from workbench.competing.fitting import target_outcome
 from workbench.competing.metrics import competing_grouped_calibration, competing_net_benefit
 from workbench.errors import WorkbenchError
+from workbench.units import time_phrase
 
 __all__ = ["DECISION_LABELS", "NOMOGRAM_TITLES", "cause_labels", "competing_figures", "nomogram_scales_by_model"]
 
@@ -94,7 +95,7 @@ def competing_figures(result: CompetingStudyResult, width: str = "double") -> di
     t0 = float(h[len(h) // 2])
     curves = _decision_curves(result, t0)
     if curves:
-        title = f"Risk of event '{labels[1]}' by {t0:g} {unit}, other events competing; {APPARENT}"
+        title = f"Risk of event '{labels[1]}' by {time_phrase(t0, unit)}, other events competing; {APPARENT}"
         figs["incidence_decision_curve"] = plot_decision_curve(curves, time_unit=unit, width=width, title=title)
     scales = list(nomogram_scales_by_model(result).values())
     if scales:

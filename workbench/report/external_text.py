@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import math
 
+from workbench.units import time_phrase
+
 __all__ = ["CALIBRATED_OE", "worst_horizon", "external_calibration_sentences", "worst_external_calibration"]
 
 CALIBRATED_OE = (0.9, 1.1)
@@ -108,14 +110,14 @@ def external_calibration_sentences(d: dict, labels: dict, unit: str, unseen=()) 
             held.append(w)
             continue
         side, surv = ("more", "too high") if w["oe"] > 1 else ("fewer", "too low")
-        out.append(f"The {label} model was miscalibrated on the external cohort ({n} patients): at {w['horizon']:g} "
-                   f"{unit} observed/expected was {w['oe']:.2f}{_ci(w['oe_lower'], w['oe_upper'])}, "
+        out.append(f"The {label} model was miscalibrated on the external cohort ({n} patients): at {time_phrase(w['horizon'], unit)} "
+                   f"observed/expected was {w['oe']:.2f}{_ci(w['oe_lower'], w['oe_upper'])}, "
                    f"{abs(w['oe'] - 1) * 100:.0f}% {side} events than predicted (predicted survival {surv}){ici_text}.")
         lev = _worst_level(d, w["model"], w["horizon"])
         if lev is not None:
             flag = (", a scanner absent from the development data" if lev["grouping"] == "scanner"
                     and str(lev["level"]) in {str(u) for u in unseen} else "")
-            out.append(f"By {lev['grouping']}, the largest departure for the {label} model at {w['horizon']:g} {unit} "
+            out.append(f"By {lev['grouping']}, the largest departure for the {label} model at {time_phrase(w['horizon'], unit)} "
                        f"was {lev['level']} ({lev['n']} patients{flag}): observed/expected {lev['oe']:.2f}"
                        f"{_ci(lev['lower'], lev['upper'])}; its predictions should not be used there without "
                        "recalibration.")
@@ -125,6 +127,6 @@ def external_calibration_sentences(d: dict, labels: dict, unit: str, unseen=()) 
         w = held[0]
         out.append(f"On the external cohort ({n} patients) calibration in the large held for the {names} "
                    f"model{'s' if len(held) > 1 else ''}: the largest departure was {w['oe']:.2f}"
-                   f"{_ci(w['oe_lower'], w['oe_upper'])} at {w['horizon']:g} {unit} "
+                   f"{_ci(w['oe_lower'], w['oe_upper'])} at {time_phrase(w['horizon'], unit)} "
                    f"({labels.get(w['model'], w['model'])}).")
     return out

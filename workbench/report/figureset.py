@@ -49,6 +49,7 @@ from workbench.figures.ticks import format_number
 from workbench.metrics.calibration import calibration_at
 from workbench.models.registry import MODEL_LABELS
 from workbench.models.volume import VOLUME_MODEL
+from workbench.units import time_phrase, unit_after_list, unit_for
 
 COX_MODELS = ("clinical", "combined")
 
@@ -177,7 +178,7 @@ def figure_plan(result, *, width="double") -> dict:
             warnings.simplefilter("ignore", WorkbenchWarning)
             conditional = conditional_km_by_group(data.evalc.y, data.groups, since, time_unit=data.unit)
         plan["conditional_survival"] = lambda: plot_km_by_group(
-            conditional, title=f"{data.labels[data.top]}: alive at {since:g} {data.unit}, by risk group "
+            conditional, title=f"{data.labels[data.top]}: alive at {time_phrase(since, data.unit)}, by risk group "
                                f"({data.where})", width=width_, development=data.development,
             min_at_risk=result.spec.figures.min_at_risk, since=since)
     except SpecError:
@@ -241,7 +242,7 @@ def _td_auc_figure(data: _Shared, width):
     # the legend's mean AUC is the results table's: over the study horizons, weighted by events
     means = {k: r.mean_auc
              for k, r in td_auc_by_model(cens_y, evalc.y, data.risks, horizons, censoring=row_cens).items()}
-    window = ", ".join(format_number(h) for h in horizons) + f" {data.unit}"
+    window = ", ".join(format_number(h) for h in horizons) + f" {unit_after_list(horizons, data.unit)}"
     return plot_td_auc(td_auc_by_model(cens_y, evalc.y, data.risks, grid, censoring=row_cens), time_unit=data.unit,
                        horizons=horizons, title=data.where.capitalize(), width=width,
                        mean_auc=means, mean_window=f"at {window}".rstrip())
@@ -318,7 +319,7 @@ def _difference_and_site_figures(result, width) -> dict:
         plan["site_calibration"] = lambda: plot_site_calibration(
             groups, horizon=h, models=models, labels={k: MODEL_LABELS.get(k, k) for k in models},
             unseen=unseen_batches(result), width=width, time_unit=unit,
-            title=f"External cohort, {format_number(h)} {unit}")
+            title=f"External cohort, {format_number(h)} {unit_for(h, unit)}".rstrip())
     return plan
 
 

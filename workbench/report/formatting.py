@@ -6,6 +6,7 @@ import math
 from contextvars import ContextVar
 
 from workbench.models.labels import MODEL_LABELS
+from workbench.units import time_phrase
 
 _LABELS = {
     "harrell_c": "Harrell C", "uno_c": "Uno C", "mean_auc": "Mean AUC over the horizons", "ibs": "Integrated Brier score",
@@ -48,7 +49,7 @@ def metric_label(name: str, unit: str) -> str:
     """"auc@12" -> "AUC at 12 months"."""
     base, _, h = name.partition("@")
     text = _LABELS.get(base, base)
-    return f"{text} at {float(h):g} {unit}" if h else text
+    return f"{text} at {time_phrase(float(h), unit)}" if h else text
 
 
 def _metric_order(names, horizons) -> list[str]:

@@ -224,7 +224,8 @@ def limitations(result, data: dict | None = None) -> tuple[str, ...]:
         ss = s["sample_size"]
         out.append(f"The cohort ({ss['n_available']} patients) is smaller than the {ss['n_required']} the Riley "
                    "criteria ask for: expect overfitting and read the optimism-corrected numbers.")
-    if s["events_per_feature"] is not None and any("signature" in m for m in d["models"].values()):
+    if (s["events_per_feature"] is not None and s["events_per_feature"] < EPP_COMMON
+            and any("signature" in m for m in d["models"].values())):
         out.append(f"With {s['events_per_feature']:.2f} events per imaging feature the signature had to be "
                    "selected by penalisation; which features are kept varies between resamples (see the selection "
                    "frequencies).")

@@ -36,6 +36,7 @@ from workbench.report.methods import (
     predictor_handling,
 )
 from workbench.report.results import results_dict
+from workbench.units import time_phrase, unit_after_list
 from workbench.validation.intervals import RESAMPLE_RULE
 
 
@@ -143,7 +144,7 @@ def _cohort_claims(result, d: dict) -> list[Claim]:
         Claim("outcome.followup", f"Median follow-up by the reverse Kaplan-Meier method was "
               f"{_n(s['median_followup'])} {u} (95% CI {_n(s['median_followup_ci'][0])} to "
               f"{_n(s['median_followup_ci'][1])})."),
-        Claim("outcome.horizons", f"Predictions were made at {_join(f'{h:g}' for h in spec.horizons)} {u}."),
+        Claim("outcome.horizons", f"Predictions were made at {_join(f'{h:g}' for h in spec.horizons)} {unit_after_list(spec.horizons, u)}."),
     ]
     return out
 
@@ -233,8 +234,11 @@ def _imaging_claims(result, d: dict) -> list[Claim]:
                              f"the expected number of falsely selected features by {st['bound']:.2f}."))
         weights = ("their unpenalised Cox coefficients on the development rows" if st is not None
                    else "the penalised coefficients")
-        out.append(Claim("imaging.signature", f"The {len(sig['selected'])} kept features formed a signature "
-                         f"score (their standardised values weighted by {weights}), which entered "
+        k = len(sig['selected'])
+        kept = (f"The {k} kept features formed a signature score (their standardised values weighted by {weights})"
+                if k != 1 else f"The one kept feature formed the signature score (its standardised value weighted by "
+                f"{weights.replace('their', 'its').replace('coefficients', 'coefficient')})")
+        out.append(Claim("imaging.signature", f"{kept}, which entered "
                          "a Cox model beside the clinical terms."))
         vc = combined.get("volume_correlation")
         if vc:
@@ -258,7 +262,7 @@ def _metric_claims(result, d: dict) -> list[Claim]:
              else "the rows each model was fitted on")
     return [
         Claim("metrics.discrimination", "Discrimination was measured by Harrell's C over all comparable pairs "
-              f"(not truncated), by Uno's C truncated at {tau:g} {u} and by the cumulative/dynamic AUC at each "
+              f"(not truncated), by Uno's C truncated at {time_phrase(tau, u)} and by the cumulative/dynamic AUC at each "
               "horizon."),
         Claim("metrics.censoring_weights", "The inverse-probability-of-censoring weights of Uno's C, the AUC and "
               f"the Brier score came from a Kaplan-Meier estimate of the censoring distribution on {where}."),

@@ -21,6 +21,7 @@ from workbench.report.methods import (
     estimate_label,
     unseen_batches,
 )
+from workbench.units import time_phrase, unit_after_list
 
 FIGURE_SLOTS = ("data", "harmonisation", "calibration", "decision", "difference", "external", "main", "appendix")
 """Places in the report that hold figures."""
@@ -166,7 +167,7 @@ def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=
     # the legend's mean AUC is the results table's: over the study horizons, weighted by events
     means = {k: r.mean_auc
              for k, r in td_auc_by_model(weights_from.y, cohort.y, risks, horizons, censoring=row_censoring).items()}
-    window = "at " + ", ".join(f"{h:g}" for h in horizons) + (f" {unit}" if unit else "")
+    window = "at " + ", ".join(f"{h:g}" for h in horizons) + (f" {unit_after_list(horizons, unit)}" if unit else "")
     return plot_td_auc(td_auc_by_model(weights_from.y, cohort.y, risks, grid, censoring=row_censoring),
                        time_unit=unit, horizons=horizons, title=title, mean_auc=means, mean_window=window)
 
@@ -195,7 +196,7 @@ def _decision_fig(d: dict, unit: str, j: int, external: bool = False):
     for c in comps:
         res[_label(c["model"])] = curve(c["decision_curves"][j][f"model_{arm}"], c["model"])
     where = "external cohort" if external else "development cohort"
-    return plot_decision_curve(res, time_unit=unit, title=f"{h:g} {unit}, {where}")
+    return plot_decision_curve(res, time_unit=unit, title=f"{time_phrase(h, unit)}, {where}")
 
 
 def _data_and_appendix_figures(result, out: dict) -> None:
@@ -256,13 +257,13 @@ def _figures(result, d: dict) -> dict:
     for j, h in enumerate(horizons if d["comparison"] else ()):
         app = d["validation"]["method"] == "none"
         _figure(out["decision"], f"decision-{j}",
-                f"Decision curves at {h:g} {unit} ({'apparent, not validated' if app else how.lower()})",
+                f"Decision curves at {time_phrase(h, unit)} ({'apparent, not validated' if app else how.lower()})",
                 "Net benefit against the threshold risk, " + ("measured on the development patients (optimistic)"
                 if app else f"validated like the other metrics ({how.lower()})") + ", with the two reference "
                 "strategies (everyone acted on, no one acted on).",
                 lambda j=j: _decision_fig(d, unit, j), half=True)
         if ext_comps:
-            _figure(out["decision"], f"decision-external-{j}", f"Decision curves at {h:g} {unit} (external cohort)",
+            _figure(out["decision"], f"decision-external-{j}", f"Decision curves at {time_phrase(h, unit)} (external cohort)",
                     "The same models applied unchanged to the external patients: nothing to correct, but "
                     "judged on patients the models never saw.",
                     lambda j=j: _decision_fig(d, unit, j, external=True), half=True)
@@ -297,10 +298,10 @@ def _figures(result, d: dict) -> dict:
     first = float(min(horizons))
     on_ext = result.external is not None
     ev = result.external_prepared.cohort if on_ext else train
-    _figure(out["main"], "conditional-km", f"Alive at {first:g} {unit}: survival after it, by risk group",
-            f"The patients still followed at {first:g} {unit} ({'external' if on_ext else 'development'} "
+    _figure(out["main"], "conditional-km", f"Alive at {time_phrase(first, unit)}: survival after it, by risk group",
+            f"The patients still followed at {time_phrase(first, unit)} ({'external' if on_ext else 'development'} "
             "cohort), in the same risk groups, with time counted from then: conditional survival, read off for a "
-            f"patient seen alive at a visit at {first:g} {unit}. Curves stop when fewer than {at_risk} patients "
+            f"patient seen alive at a visit at {time_phrase(first, unit)}. Curves stop when fewer than {at_risk} patients "
             "remain at risk.",
             lambda: _km_fig(lead, train, ev, unit, _label(lead.name), k_groups, at_risk, since=first), half=True)
     _figure(out["main"], "td-auc", "Discrimination over time (development cohort, apparent)",
@@ -347,7 +348,7 @@ def _difference_figures(items: list, result, unit: str) -> None:
         _figure(items, f"difference-{name}", f"{_label(name)} minus {_label(nb.baseline)}: AUC and net benefit",
                 "Differences from the same resamples for both models. Internal: validated AUC differences at the "
                 "study horizons with their intervals, and the validated net-benefit difference at "
-                f"{nb.horizon:g} {unit} " + _BAND_WORDS.get(nb.band, "without a band (see the note in results.json)")
+                f"{time_phrase(nb.horizon, unit)} " + _BAND_WORDS.get(nb.band, "without a band (see the note in results.json)")
                 + "."
                 + (" External: the difference of the unchanged models on the external patients with pointwise "
                    "normal bands over resamples of those patients (the resamples of the external table; in "
@@ -367,7 +368,7 @@ def _site_figure(items: list, result, d: dict, unit: str) -> None:
     models = [k for k in ("clinical", "combined") if k in result.models] or list(result.models)[:2]
     hs = list(result.external.horizons)
     h = worst_horizon(d, models, hs[len(hs) // 2])
-    _figure(items, "external-sites", f"Calibration by centre and scanner at {h:g} {unit} (external cohort)",
+    _figure(items, "external-sites", f"Calibration by centre and scanner at {time_phrase(h, unit)} (external cohort)",
             "Observed/expected risk (Kaplan-Meier observed over mean predicted) with 95% bootstrap intervals of each "
             "site's patients; the pooled random-effects estimate (diamond: 95% confidence interval) and the 95% "
             "prediction interval for a new site (dotted) under each grouping. Open markers: a scanner the "

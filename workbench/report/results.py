@@ -21,6 +21,7 @@ from workbench.cohort.summary import CAUTION, format_summary
 from workbench.figures.wording import chi_squared_text
 from workbench.models.labels import equal_models, model_labels
 from workbench.report.naming import coefficient_rows, hazard_ratio_frame, ph_frame
+from workbench.units import time_phrase, unit_after_list
 
 FORMAT = "workbench-results/1"
 
@@ -228,7 +229,7 @@ def _group_digest(result) -> list[str]:
     for name, rows in (getattr(result, "new_site", None) or {}).items():
         if rows:
             r = rows[-1]
-            lines.append(f"To validate {name} at a new site (horizon {r.horizon:g} {result.spec.data.time_unit}): "
+            lines.append(f"To validate {name} at a new site (horizon {time_phrase(r.horizon, result.spec.data.time_unit)}): "
                          f"{r.n_required} patients, about {r.events_expected:.0f} events (the most of: {r.n_oe} for "
                          f"the O/E ratio, {r.n_slope} for the calibration slope, {r.n_c} for the C-index).")
     ch = getattr(result.external, "censoring", None) if result.external is not None else None
@@ -266,6 +267,9 @@ def results_dict(result) -> dict:
             "settings": jsonable(v.settings),
             "n_replicates": jsonable(v.n_replicates),
             "failures": jsonable(v.failures),
+            "failure_log": [{"model": f.model, "replicate": int(f.replicate),
+                             "fold": None if f.fold is None else int(f.fold), "stage": f.stage, "message": f.message}
+                            for f in v.failure_log],
             "dropped_metrics": jsonable(v.dropped_metrics),
             "warning_counts": jsonable(v.warning_counts),
             "notes": list(v.notes),
@@ -337,7 +341,7 @@ def harmonisation_digest(result) -> list[str]:
             if cal:
                 unit = result.spec.data.time_unit
                 hs = "/".join(f"{c['horizon']:g}" for c in cal)
-                lines.append(f"    its O/E at {hs} {unit}: " + "/".join(f"{c['oe_unadjusted']:.2f}" for c in cal)
+                lines.append(f"    its O/E at {hs} {unit_after_list([c['horizon'] for c in cal], unit)}: " + "/".join(f"{c['oe_unadjusted']:.2f}" for c in cal)
                              + " left unadjusted -> " + "/".join(f"{c['oe_harmonised']:.2f}" for c in cal)
                              + " harmonised")
     return lines
@@ -461,7 +465,7 @@ def run_notes(spec) -> list[str]:
         notes.append("  harmonisation: none, because the study names no batch column ([data] batch); "
                      "name one and set [imaging.harmonise] method = 'combat' to harmonise by scanner.")
     if spec.validation.uno_tau is None:
-        notes.append(f"  Uno's C truncated at the last horizon ({spec.horizons[-1]:g} {spec.data.time_unit}); "
+        notes.append(f"  Uno's C truncated at the last horizon ({time_phrase(spec.horizons[-1], spec.data.time_unit)}); "
                      "set [validation] uno_tau to choose another time.")
     return notes
 
@@ -516,7 +520,7 @@ def format_results(result) -> str:
     sel = result.validation.selection.get("combined")
     if sel is not None and sel.n_fits and sel.apparent:
         shaky = sel.unstable
-        lines.append(f"Signature: {len(sel.apparent)} features; "
+        lines.append(f"Signature: {len(sel.apparent)} feature{'s' if len(sel.apparent) != 1 else ''}; "
                      + (f"kept by fewer than half of the {sel.n_fits} refits (unstable): {', '.join(shaky)}."
                         if shaky else f"each kept by at least half of the {sel.n_fits} refits."))
     lines += [
@@ -535,7 +539,7 @@ def format_results(result) -> str:
         lines.append(f"No intervals: {'; '.join(why)} (more replicates, or [validation] outer_replicates, "
                      "give them).")
     lines.append("")
-    lines.append(f"AUC and calibration (ICI) at {', '.join(horizons)} {u}:")
+    lines.append(f"AUC and calibration (ICI) at {', '.join(horizons)} {unit_after_list(result.spec.horizons, u)}:")
     for name in result.models:
         est = v.estimates[name]
         aucs = "  ".join(fmt_estimate(est.get(f"auc@{h}"), 2, apparent_only=app) for h in horizons)

@@ -89,7 +89,8 @@ from workbench.cohort.core import Cohort
 from workbench.errors import ModelError, SpecError
 from workbench.models.base import get_params
 from workbench.models.cox import SIGNATURE_TERM, CombinedCox
-from workbench.models.penalized import breslow_loglik, patient_folds
+from workbench.models.coxlik import breslow_loglik
+from workbench.models.penalized import patient_folds
 from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.stats.coxph import fit_coxph, linear_predictor
 from workbench.validation.backends import run_tasks

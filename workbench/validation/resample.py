@@ -406,7 +406,8 @@ def validate(
     for nm, c in parts["failures"].items():
         if c:
             notes.append(f"model {nm!r} could not be fitted or evaluated in {c} of {n_rep[nm]} {unit}; "
-                         "those replicates are left out of its estimates (see failure_log).")
+                         "those replicates are left out of its estimates (the reasons: results.json, validation, "
+                         "failure_log).")
     return ValidationResult(
         method=method, models=tuple(models), horizons=h, time_unit=cohort.time_unit, n=cohort.n,
         n_events=cohort.n_events, apparent=apparent, apparent_pairs=apparent_pairs, fits=fits,

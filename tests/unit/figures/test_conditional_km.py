@@ -44,8 +44,21 @@ def test_the_axes_say_the_curves_start_at_the_visit(gbsg2):
     fig = plot_km_by_group(conditional_km_by_group(y, groups, 365.0, time_unit="days"), since=365.0,
                            width="single")
     main = fig.axes[0]
-    assert main.get_ylabel() == "Survival, given alive at 365"
-    assert fig.axes[1].get_xlabel() == "Time since 365 (days)"
+    assert main.get_ylabel() == "Survival, given alive at 365 days"
+    assert fig.axes[1].get_xlabel() == "Time since 365 days (days)"
+
+
+def test_a_visit_at_one_year_reads_in_the_singular(gbsg2):
+    # the same GBSG2 data with follow-up in years (days / 365.25): a visit at 1 year once read
+    # "Time since 1 (years)"
+    y, groups = gbsg2
+    y_years = make_outcome(y["time"] / 365.25, y["event"])
+    res = conditional_km_by_group(y_years, groups, 1.0, time_unit="years")
+    # the patients counted are those followed beyond 1 year (365.25 days) in the data as shipped
+    assert res.at_risk[:, 0].sum() == int(np.sum(y["time"] > 365.25))
+    fig = plot_km_by_group(res, since=1.0, width="single")
+    assert fig.axes[0].get_ylabel() == "Survival, given alive at 1 year"
+    assert fig.axes[1].get_xlabel() == "Time since 1 year (years)"
 
 
 def test_no_figure_when_nobody_is_followed_beyond_the_visit(gbsg2):

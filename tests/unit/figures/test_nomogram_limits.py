@@ -198,3 +198,39 @@ def test_median_axis_on_a_public_cohort_with_short_medians(tmp_path):
     assert sc.median is not None and len(sc.median.ticks) >= 4
     values = sorted(k.value for k in sc.median.ticks)
     assert values[-1] - values[0] < 500  # the ticks sit in the reachable stretch, not across follow-up
+
+
+@pytest.mark.parametrize("low_share", [0.5, 0.06, 0.005])
+def test_risk_band_labels_stay_inside_their_bands(demo, low_share):
+    # On the Rossi data (lifelines load_rossi, a count predictor as the only signature feature) the
+    # low band was a sliver: its abbreviated label "low." spilled over the row name "risk group".
+    # Here the demo's bands are squeezed to the same shape: each drawn label must lie inside its band.
+    from dataclasses import replace
+
+    from matplotlib.text import Text
+
+    _, _, sc = demo
+    t = sc.term(SIGNATURE_TERM)
+    lo, mid, hi = t.bands
+    cut = lo.lo_points + low_share * (hi.hi_points - lo.lo_points)
+    bands = (replace(lo, hi_points=cut), replace(mid, lo_points=cut), hi)
+    sc2 = replace(sc, terms=tuple(replace(x, bands=bands) if x is t else x for x in sc.terms))
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    fig = plot_nomogram(sc2)
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    ax = fig.axes[0]
+    rects = [p for p in ax.patches if isinstance(p, Rectangle) and p.get_height() == pytest.approx(0.42)]
+    assert len(rects) == 3
+    names = {"low", "low.", "l", "intermediate", "int.", "i", "high", "hig.", "h"}
+    labels = [x for x in ax.texts if isinstance(x, Text) and x.get_text() in names]
+    assert labels, "no band label drawn"
+    for x in labels:
+        box = x.get_window_extent(renderer)
+        home = [r for r in rects if r.get_window_extent(renderer).x0 - 0.5 <= (box.x0 + box.x1) / 2
+                <= r.get_window_extent(renderer).x1 + 0.5]
+        assert home, x.get_text()
+        r = home[0].get_window_extent(renderer)
+        assert box.x0 >= r.x0 - 0.5 and box.x1 <= r.x1 + 0.5, (x.get_text(), box, r)
+    if low_share == 0.5:  # a wide band keeps its full name
+        assert {"low", "high"} <= {x.get_text() for x in labels}

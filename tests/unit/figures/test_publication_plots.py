@@ -229,6 +229,35 @@ def test_calibration_plot_draws_the_result(demo):
     assert hist.patches[0].get_data().values.sum() == test.n  # every predicted risk is in the histogram
 
 
+def test_calibration_panels_label_every_scale_they_use(demo):
+    # The panels of a row have one scale per horizon. On the Rossi data (lifelines load_rossi) the
+    # 13-week panel ran to 0.3 and the 39-week one to 0.7, but only the first was labelled, so the
+    # later panels read as if they ran to 0.3.
+    from workbench.figures import plot_calibration_panels
+
+    spec, train, test, models = demo
+    horizons = (1.0, 2.0, 24.0)  # early horizons with small risks, as in a short follow-up study
+    res = {"clinical": [calibration_at(train.y, models["clinical"].predict_survival(train, horizons), h)
+                        for h in horizons]}
+    fig = plot_calibration_panels(res, time_unit="months")
+    panels = [a for a in fig.axes if a.get_title(loc="left")]
+    assert len(panels) == len(horizons)
+    first = {}
+    for a in panels:
+        top = a.get_ylim()[1]
+        assert a.get_xlim()[1] == pytest.approx(top)  # square: the dashed line is the identity
+        labels = [t.get_text() for t in a.get_yticklabels()]
+        row = a.get_figure(root=False)
+        if row not in first:
+            first[row] = top
+            assert labels[-1] == f"{top:g}"
+        elif not np.isclose(top, first[row]):
+            assert labels and labels[-1] == f"{top:g}", (top, first[row], labels)
+        else:
+            assert not any(labels)
+    assert len({a.get_ylim()[1] for a in panels}) > 1  # this demo's horizons do use more than one scale
+
+
 def test_decision_curve_reference_strategies(demo):
     spec, train, test, models = demo
     curves = {k: m.predict_survival(test, spec.horizons) for k, m in models.items()}

@@ -128,3 +128,51 @@ def test_codec_knows_the_new_fitted_attributes(fits):
     assert back.shrinkage_factor_ == 1.0
     assert back.signature_coef_in_sample_ == pytest.approx(pv.signature_coef_in_sample_)
     assert "CombinedCox" in CODECS
+
+
+class _AllRowsOnly:
+    """A stand-in signature that keeps its first feature only when fitted on ``n_all`` rows.
+
+    It reproduces what the Rossi data (lifelines load_rossi, one count feature) did in a bootstrap
+    replicate: the signature kept a feature on all rows and none in any pre-validation fold.
+    """
+
+    def __init__(self, n_all=0):
+        self.n_all = n_all
+
+    def get_params(self, deep=True):
+        return {"n_all": self.n_all}
+
+    def set_params(self, **kw):
+        self.n_all = kw.get("n_all", self.n_all)
+        return self
+
+    def fit(self, X, y, groups=None, batch=None, covariates=None):
+        self.feature_names_in_ = tuple(X.columns)
+        col = X.columns[0]
+        self.selected_features_ = (col,) if len(X) == self.n_all else ()
+        self.mean_, self.sd_ = float(X[col].mean()), float(X[col].std())
+        return self
+
+    def score(self, X, batch=None, covariates=None):
+        if not self.selected_features_:
+            return np.zeros(len(X))
+        return (X[self.selected_features_[0]].to_numpy(float) - self.mean_) / self.sd_
+
+
+def test_signature_empty_in_every_fold_gives_the_clinical_model(cohort):
+    # The replicate once failed ("imaging_signature has the same value for every patient") and was
+    # dropped, so only replicates where imaging helped stayed in the combined model's estimates.
+    from workbench.errors import EmptySignatureWarning
+    from workbench.models.cox import ClinicalCox
+
+    preds = tuple(read_study(DEMO).predictors)
+    m = CombinedCox(preds, signature=_AllRowsOnly(n_all=cohort.n), coefficient="prevalidated")
+    with pytest.warns(EmptySignatureWarning, match="no feature in any of the 5 pre-validation folds"):
+        m.fit(cohort)
+    clin = ClinicalCox(preds).fit(cohort)
+    assert m.selected_features_ == () and m.signature_.selected_features_
+    assert m.coefficient_source_.startswith("prevalidated (no cross-fitted signature")
+    np.testing.assert_allclose(m.fit_.coef, clin.fit_.coef, atol=1e-12)
+    np.testing.assert_allclose(m.predict_survival(cohort, (12.0, 24.0)).probs,
+                               clin.predict_survival(cohort, (12.0, 24.0)).probs, atol=1e-12)

@@ -170,3 +170,39 @@ def test_baseline_curve_is_the_whole_step_function(result):
         x, y = lines[0].get_data()
         assert x[0] == 0 and y[0] == 1.0 and y[-1] == pytest.approx(curves["clinical"][1][-1])
         assert [float(v) for v in fig.axes[0].get_xticks()][:3] == [0.0, 12.0, 24.0]
+
+
+def test_appendix_names_only_the_whole_pool_models_that_were_fitted(result):
+    # A study of the clinical and combined models alone (the Rossi data split by
+    # examples/public_tables.py) had read "the penalised model ... and the random survival forest use
+    # every feature of the pool; their ComBat parameters ..." with neither fitted nor ComBat used.
+    from dataclasses import replace
+
+    from workbench.report.appendix import wide_models_note
+
+    note = wide_models_note(result)
+    fitted = [k for k in ("penalised_all", "forest") if k in result.models]
+    assert (note is None) == (not fitted)
+    two = replace(result, models={k: v for k, v in result.models.items() if k in ("clinical", "combined")})
+    assert wide_models_note(two) is None
+    forest_only = replace(result, models={"clinical": result.models["clinical"], "forest": object()})
+    text = wide_models_note(forest_only)
+    assert text.startswith("The random survival forest uses every feature of the pool; its ")
+    assert "fitted trees" in text and "coefficients" not in text
+    assert ("ComBat" in text) == (result.spec.imaging.harmonise.method != "none")
+
+
+def test_results_json_keeps_the_reason_of_every_failed_replicate(result):
+    # The validation note points to the reasons; results.json once kept only the counts.
+    import json
+    from dataclasses import replace
+
+    from workbench.report.results import results_dict
+    from workbench.validation.results import ReplicateFailure
+
+    fail = ReplicateFailure("combined", 7, None, "fit", "the penalised path did not converge")
+    v = replace(result.validation, failure_log=(fail,), failures={**result.validation.failures, "combined": 1})
+    d = json.loads(json.dumps(results_dict(replace(result, validation=v))))
+    assert d["validation"]["failure_log"] == [{"model": "combined", "replicate": 7, "fold": None, "stage": "fit",
+                                               "message": "the penalised path did not converge"}]
+    assert d["validation"]["failures"]["combined"] == 1

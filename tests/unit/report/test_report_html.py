@@ -308,3 +308,18 @@ def test_difference_figure_sits_with_the_comparison(html, data):
     assert curves["auc"]["x"] == [float(h) for h in data["study"]["horizons"]]
     assert "This run has no external cohort" in text_of(section(html, "external"))
     assert "fig-decision-external" not in section(html, "decision")
+
+
+def test_penalisation_limitation_follows_the_events_per_feature(result, data):
+    # With 10 or more events per imaging feature (common practice) penalisation is not forced: the
+    # Rossi data (lifelines load_rossi, 57 events per feature) had read "the signature had to be
+    # selected by penalisation".
+    import copy
+
+    from workbench.report.methods import limitations
+
+    d = copy.deepcopy(data)
+    d["cohort"]["summary"]["events_per_feature"] = 0.5
+    assert any("had to be selected by penalisation" in x for x in limitations(result, d))
+    d["cohort"]["summary"]["events_per_feature"] = 57.0
+    assert not any("penalisation" in x for x in limitations(result, d))

@@ -13,6 +13,7 @@ import pandas as pd
 import streamlit as st
 
 from workbench.app import state
+from workbench.units import time_phrase
 
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature"}
 KEY = "wb_competing_patient"
@@ -29,7 +30,7 @@ def estimate_frame(est) -> pd.DataFrame:
         for _, r in g.iterrows():
             limits = (f" ({100 * r['lower']:.1f}% to {100 * r['upper']:.1f}%)"
                       if np.isfinite(r["lower"]) and np.isfinite(r["upper"]) else " (no limits)")
-            row[f"By {r['horizon']:g} {est.time_unit}"] = f"{100 * r['estimate']:.1f}%{limits}"
+            row[f"By {time_phrase(r['horizon'], est.time_unit)}"] = f"{100 * r['estimate']:.1f}%{limits}"
         rows.append(row)
     return pd.DataFrame(rows)
 

@@ -9,14 +9,20 @@ import pandas as pd
 import streamlit as st
 
 from workbench.app import charts, roles, state
+from workbench.app.light_tables import show_table
 from workbench.cohort.core import TIME_UNITS
 from workbench.cohort.io import read_table
 from workbench.cohort.samplesize import criteria_rows
 from workbench.errors import WorkbenchError
 from workbench.stats.km import kaplan_meier
 from workbench.study import DataSpec
+from workbench.units import time_phrase
 
 NONE = "(none)"
+TALL = "26rem"
+"""Height beyond which a summary table scrolls (about as tall as the data grid it replaces). The
+summary's tables are static HTML: six data grids (canvases) took most of the browser's time on
+this view, the first one a user sees."""
 
 
 def _choose_tables() -> tuple[str | None, str] | None:
@@ -244,36 +250,36 @@ def _summary(cohort, horizons) -> None:
     with right:
         if summary.horizons:
             st.markdown("**Survival at the horizons**")
-            st.dataframe(_frame(
-                [(f"{h.horizon:g} {u}", f"{100 * h.survival:.1f}%",
+            show_table(_frame(
+                [(time_phrase(h.horizon, u), f"{100 * h.survival:.1f}%",
                   f"{100 * h.ci_lower:.1f} to {100 * h.ci_upper:.1f}", h.at_risk) for h in summary.horizons],
-                ["Horizon", "Survival", "95% CI (%)", "At risk"]), hide_index=True, width="stretch")
+                ["Horizon", "Survival", "95% CI (%)", "At risk"]), label="Survival at the horizons")
         skipped = [h for h in horizons if h not in inside]
         if skipped:
             st.caption(f"Horizons beyond the longest follow-up are left out: {', '.join(f'{h:g}' for h in skipped)}.")
         if summary.centres:
             st.markdown("**Centres**")
-            st.dataframe(_frame(list(summary.centres.items()), ["Centre", "Patients"]), hide_index=True,
-                         width="stretch")
+            show_table(_frame(list(summary.centres.items()), ["Centre", "Patients"]), label="Centres",
+                       max_height=TALL)
         if summary.batches:
             st.markdown("**Scanners / batches**")
-            st.dataframe(_frame(list(summary.batches.items()), ["Scanner", "Patients"]), hide_index=True,
-                         width="stretch")
+            show_table(_frame(list(summary.batches.items()), ["Scanner", "Patients"]), label="Scanners",
+                       max_height=TALL)
 
     a, b = st.columns(2)
     with a:
         st.markdown("**Missing values**")
         if summary.missing:
-            st.dataframe(_frame(
+            show_table(_frame(
                 [(x.table, x.column, x.n_missing, f"{100 * x.fraction:.1f}%")
                  for x in sorted(summary.missing, key=lambda x: -x.n_missing)],
-                ["Table", "Column", "Missing", "Share"]), hide_index=True, width="stretch")
+                ["Table", "Column", "Missing", "Share"]), label="Missing values", max_height=TALL)
         else:
             st.write("None.")
         if summary.n_features:
             st.markdown(f"**Imaging features**: {summary.n_features} in {len(summary.feature_families)} families")
-            st.dataframe(_frame(sorted(summary.feature_families.items()), ["Family prefix", "Features"]),
-                         hide_index=True, width="stretch")
+            show_table(_frame(sorted(summary.feature_families.items()), ["Family prefix", "Features"]),
+                       label="Imaging feature families", max_height=TALL)
         else:
             st.markdown("**Imaging features**: none (a clinical-only study)")
     with b:
@@ -287,7 +293,7 @@ def _summary(cohort, horizons) -> None:
         )
         st.markdown("**Minimum sample size** (Riley et al. 2019/2020)")
         rows = criteria_rows(ss_, u.strip())
-        st.dataframe(_frame(rows, ["Criterion", "Patients"]), hide_index=True, width="stretch")
+        show_table(_frame(rows, ["Criterion", "Patients"]), label="Minimum sample size")
         verdict = "meets" if ss_.adequate else "falls short of"
         st.write(
             f"For a Cox model with {ss_.n_parameters} parameters, anticipated Cox-Snell R-squared "

@@ -30,6 +30,7 @@ from workbench.study import (
     ValidationSpec,
     study_from_dict,
 )
+from workbench.units import time_phrase
 
 K_GEN = state.K_DESIGN_GEN
 K_LOADED = "wb_design_loaded_file"
@@ -493,7 +494,7 @@ def render() -> None:
         st.info("The study is not ready to run: correct the point above.")
         return
     if horizons and max(horizons) > float(cohort.time.max()):
-        st.warning(f"The horizon {max(horizons):g} {data.time_unit} lies beyond the longest follow-up "
+        st.warning(f"The horizon {time_phrase(max(horizons), data.time_unit)} lies beyond the longest follow-up "
                    f"({float(cohort.time.max()):.1f} {data.time_unit}); choose horizons inside follow-up.")
     if spec != tpl:
         state.set_study(spec, note or "")

@@ -6,6 +6,7 @@ import streamlit as st
 
 from workbench.app import charts, nomo, state, tables
 from workbench.app.messages import plain
+from workbench.units import time_phrase, unit_after_list
 
 FORMATS = (("png", "PNG", "image/png"), ("svg", "SVG", "image/svg+xml"), ("pdf", "PDF", "application/pdf"))
 
@@ -54,7 +55,7 @@ def render() -> None:
     a, b, c = st.columns([2, 2, 1])
     chosen = a.multiselect("Models", names, default=names, format_func=tables.label, key="nomo_models")
     hz = b.multiselect(f"Survival axes at ({u})", hz_all, default=hz_all, key="nomo_horizons",
-                       format_func=lambda h: f"{h:g} {u}")
+                       format_func=lambda h: time_phrase(h, u))
     extra = b.text_input(f"Other times ({u}, comma separated)", "", key="nomo_extra",
                          help=f"Any time inside the follow-up (up to {longest:g} {u}); the fitted models give "
                               "survival at every time, not only at the study's horizons.")
@@ -72,7 +73,7 @@ def render() -> None:
         if 0 < v <= longest:
             more.append(v)
         else:
-            st.warning(f"{v:g} {u} is outside the follow-up (0 to {longest:g} {u}) and is left out.")
+            st.warning(f"{time_phrase(v, u)} is outside the follow-up (0 to {longest:g} {u}) and is left out.")
     hz = tuple(sorted(set(hz) | set(more)))
     if not chosen or not hz:
         st.info("Choose at least one model and one horizon.")
@@ -96,7 +97,7 @@ def render() -> None:
             files = None
     if files is not None:
         st.image(files["screen"], width="stretch")
-        st.caption(f"Survival axes at {', '.join(f'{h:g}' for h in hz)} {u}.")
+        st.caption(f"Survival axes at {', '.join(f'{h:g}' for h in hz)} {unit_after_list(hz, u)}.")
         cols = st.columns(len(FORMATS) + 1)
         for col, (fmt, text, mime) in zip(cols, FORMATS, strict=False):
             col.download_button(f"Download {text}", files[fmt], mime=mime,
@@ -108,10 +109,11 @@ def render() -> None:
     except Exception as exc:  # noqa: BLE001
         state.show_error("Tabulating the points", exc)
         return
+    # the zip and the CSV files below are written only when their button is pressed
     st.download_button("Download the points tables (CSV files, zip)",
-                       nomo.points_table_zip(tabs, state.study_filename(spec, "_", "")),
+                       lambda: nomo.points_table_zip(tabs, state.study_filename(spec, "_", "")),
                        file_name=state.study_filename(spec, ".zip", f"nomogram_points_{tag}"),
-                       mime="application/zip", key="nomo_dl_points")
+                       mime="application/zip", key="nomo_dl_points", on_click="ignore")
     st.subheader("Points table")
     st.caption("Points per predictor value (between two rows of a continuous predictor, interpolate), and the "
                "survival probability for each total. This is what the drawing shows, as numbers.")
@@ -122,9 +124,9 @@ def render() -> None:
             left.dataframe(nomo.rounded_terms(t.terms), hide_index=True, width="stretch", height=320)
             right.dataframe(nomo.rounded_survival(t.survival), hide_index=True, width="stretch", height=320)
             st.download_button(f"Download the {tables.label(m).lower()} points (CSV)",
-                               nomo.rounded_terms(t.terms).to_csv(index=False),
+                               lambda t=t: nomo.rounded_terms(t.terms).to_csv(index=False),
                                file_name=state.study_filename(spec, ".csv", f"{m}_points"), mime="text/csv",
-                               key=f"nomo_dl_csv_{m}")
+                               key=f"nomo_dl_csv_{m}", on_click="ignore")
 
 
 if __name__ == "__main__":

@@ -12,6 +12,7 @@ import streamlit as st
 from workbench.app import charts, nomo, state, tables
 from workbench.app.messages import plain
 from workbench.models.registry import offered_models
+from workbench.units import time_phrase
 
 
 @st.cache_resource(show_spinner=False, max_entries=4)
@@ -173,13 +174,13 @@ def _show(result, name: str, est, record: dict, score: float | None = None) -> N
     for col, hz in zip(cols, est.horizons, strict=False):
         ci = (f"{pct}% CI {100 * hz.lower:.1f}% to {100 * hz.upper:.1f}%"
               if np.isfinite(hz.lower) else "no interval for this model")
-        col.metric(f"Survival at {hz.horizon:g} {u}", f"{100 * hz.survival:.1f}%", help=ci)
+        col.metric(f"Survival at {time_phrase(hz.horizon, u)}", f"{100 * hz.survival:.1f}%", help=ci)
         col.caption(ci)
     if est.risk_group is not None:
         cols[-1].metric("Risk group", est.risk_group, help="Tertiles of the training patients' risk.")
     if est.alive_at is not None:
-        st.markdown(f"**Alive at {est.alive_at:g} {u}**: the chance of being alive at each later horizon")
-        rows = [(f"{c.horizon:g} {u}", f"{100 * c.survival:.1f}%",
+        st.markdown(f"**Alive at {time_phrase(est.alive_at, u)}**: the chance of being alive at each later horizon")
+        rows = [(time_phrase(c.horizon, u), f"{100 * c.survival:.1f}%",
                  f"{100 * c.lower:.1f}% to {100 * c.upper:.1f}%" if np.isfinite(c.lower) else "no interval")
                 for c in est.conditional]
         if rows:
@@ -241,7 +242,7 @@ def _on_nomogram(result, name: str, record: dict, score: float | None = None) ->
 
         st.dataframe(pd.DataFrame(rows, columns=["Axis", layout.SCORE_AXIS]), hide_index=True, width="stretch")
         st.caption("Survival read off the nomogram: " + ", ".join(
-            f"{100 * s:.1f}% at {h:g} {result.validation.time_unit}" for h, s in points.survival.items()))
+            f"{100 * s:.1f}% at {time_phrase(h, result.validation.time_unit)}" for h, s in points.survival.items()))
 
 
 def render() -> None:

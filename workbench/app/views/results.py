@@ -10,6 +10,7 @@ import streamlit as st
 from workbench.app import charts, exports, progress, roles, state, tables
 from workbench.app.light_tables import ShownTables
 from workbench.app.messages import plain
+from workbench.units import time_phrase
 from workbench.validation.compare import LR_CAUTION
 
 METHODS = {"bootstrap": "bootstrap validation", "cv": "repeated cross-validation",
@@ -107,7 +108,10 @@ def _decision_png(run_key: tuple, model: str, horizon: float, outcome: str, _dc,
     return charts.figure_bytes(_decision_figure(_dc, model, baseline, outcome))
 
 
+@st.fragment
 def _figures(result, key) -> None:
+    """The run's figures, one at a time. A fragment: choosing another figure reruns this part of the
+    page alone, so the browser redraws the picture and its buttons instead of the whole view."""
     spec = result.spec
     st.subheader("Figures")
     # drawn in the app's figure worker as soon as the run finished (workbench.app.exports)
@@ -180,10 +184,10 @@ def _comparison(comp, u: str, outcome: str = "the event", key: tuple = (), added
         hz = [f"{d.horizon:g}" for d in comp.decision]
         left, right = st.columns([3, 2])
         pick = right.selectbox("Decision curve at horizon", hz, key=f"results_dc_{comp.model}",
-                               format_func=lambda h: f"{h} {u}")
+                               format_func=lambda h: time_phrase(float(h), u))
         dc = comp.decision[hz.index(pick)]
         left.image(_decision_png(key, comp.model, float(dc.horizon), outcome, dc, comp.baseline),
-                   caption=f"Decision curves at {pick} {u}, corrected like the other measures")
+                   caption=f"Decision curves at {time_phrase(float(pick), u)}, corrected like the other measures")
         right.caption("Net benefit of acting on the model's predicted risk at each threshold, against "
                       "treating everyone or no one.")
     for note in comp.notes:
@@ -289,8 +293,8 @@ def _conditional_frame(run_key: tuple, _result, unit: str):
     cuts = learn_cutpoints(m.predict_risk(_result.cohort), _result.spec.models.risk_groups)
     ev = _result.external_prepared.cohort if _result.external_prepared is not None else _result.cohort
     rows = conditional_rows(m, ev, cuts, _result.spec.horizons)
-    df = pd.DataFrame([{"Risk group": r["group"], "Alive at": f"{r['alive_at']:g} {unit}",
-                        "Chance of being alive at": f"{r['horizon']:g} {unit}",
+    df = pd.DataFrame([{"Risk group": r["group"], "Alive at": time_phrase(r["alive_at"], unit),
+                        "Chance of being alive at": time_phrase(r["horizon"], unit),
                         "Estimate (95% CI)": (r.get("note") or "-") if r["survival"] is None else
                         tables.num(_nan(r["survival"]), 2) + (
                             f" ({tables.interval(r['ci_lower'], r['ci_upper'], 2)})"
