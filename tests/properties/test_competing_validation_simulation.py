@@ -28,7 +28,7 @@ Measured biases here (8 cohorts, pooled): AUC apparent +0.049, .632+ +0.011
 Cost: 45 s of CPU for the 8 cohorts with arms cs and all (4.7-7.8 s each, timed with
 time.process_time), so about 23 s on two free cores (the Fine-Gray arm adds only its
 evaluation on the truth: its models are fitted for the cause of interest anyway; fixture
-95 s at a load of 10); the 150-170 s seen on the shared machine (load 15-17) is waiting
+32 s at a load of 1, 61-95 s at 8-10); the 150-170 s seen on the shared machine (load 15-17) is waiting
 for a core. Not made cheaper: 10 replicates is the least that gives an interval
 (oob_interval needs 10 values, so one failed replicate already drops it), and a signature
 with 3 instead of 5 penalty and cross-fitting folds (one_cohort(..., folds=3): 28.5 s of
