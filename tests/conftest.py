@@ -246,3 +246,15 @@ def small_study_result(small_study_file):
     from workbench.workflow import run_study
 
     return run_study(read_study(small_study_file))
+
+
+@pytest.fixture(scope="session")
+def public_tables():
+    """examples/public_tables.py as a module: public registry datasets split into the two tables."""
+    import importlib.util
+
+    script = Path(__file__).parents[1] / "examples" / "public_tables.py"
+    spec = importlib.util.spec_from_file_location("public_tables", script)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod

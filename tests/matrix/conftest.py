@@ -12,17 +12,6 @@ inventing new ones.
 
 from __future__ import annotations
 
-import importlib.util
-from pathlib import Path
-
-import pytest
-
-EXAMPLE = Path(__file__).parents[2] / "examples" / "public_tables.py"
 
 
-@pytest.fixture(scope="session")
-def public_tables():
-    spec = importlib.util.spec_from_file_location("public_tables", EXAMPLE)
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
+

@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import importlib.util
 import warnings
-from pathlib import Path
 
 from lifelines import KaplanMeierFitter
 from lifelines.datasets import load_rossi
@@ -14,17 +12,13 @@ from workbench.prepare import prepare_cohort
 from workbench.study import read_study
 
 
-def test_median_not_reached_reads_without_a_unit(tmp_path):
+def test_median_not_reached_reads_without_a_unit(tmp_path, public_tables):
     # Rossi recidivism data (lifelines load_rossi): 114 arrests among 432 released prisoners in 52
     # weeks, so the Kaplan-Meier curve stays above 0.5 (lifelines' median_survival_time_ is inf).
     # The line once read "not reached weeks (95% CI not reached to not reached)".
     rossi = load_rossi()
     assert KaplanMeierFitter().fit(rossi.week, rossi.arrest).median_survival_time_ == float("inf")
-    script = Path(__file__).parents[3] / "examples" / "public_tables.py"
-    spec_ = importlib.util.spec_from_file_location("public_tables", script)
-    mod = importlib.util.module_from_spec(spec_)
-    spec_.loader.exec_module(mod)
-    assert mod.main(["rossi", "--out", str(tmp_path)]) == 0
+    assert public_tables.main(["rossi", "--out", str(tmp_path)]) == 0
     spec = read_study(tmp_path / "study.toml")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")

@@ -171,24 +171,18 @@ def test_median_axis_ticks_span_the_medians_the_total_scores_reach(demo_two_mode
         assert sc.median_survival(k.points) == pytest.approx(t[at][-1])
 
 
-def test_median_axis_on_a_public_cohort_with_short_medians(tmp_path):
+def test_median_axis_on_a_public_cohort_with_short_medians(tmp_path, public_tables):
     # Veterans' Administration lung cancer trial (scikit-survival load_veterans_lung_cancer, split by
     # examples/public_tables.py): follow-up to 999 days, but the clinical model's predicted medians
     # lie between about 40 and 160 days. Ticks every 100 days over the whole follow-up gave one
     # tick in that stretch, and no median axis at all.
-    import importlib.util
     import warnings
-    from pathlib import Path
 
     from workbench.models.registry import build_models
     from workbench.prepare import prepare_cohort
     from workbench.study import read_study
 
-    script = Path(__file__).parents[3] / "examples" / "public_tables.py"
-    spec_ = importlib.util.spec_from_file_location("public_tables", script)
-    mod = importlib.util.module_from_spec(spec_)
-    spec_.loader.exec_module(mod)
-    assert mod.main(["veterans", "--out", str(tmp_path)]) == 0
+    assert public_tables.main(["veterans", "--out", str(tmp_path)]) == 0
     spec = read_study(tmp_path / "study.toml")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
