@@ -239,7 +239,7 @@ def plot_km_by_group(
         ax_main.set_xticks(result.tick_times)
         unit = f" ({result.time_unit})" if result.time_unit else ""
         since_text = "" if since is None else f"{format_number(since)} {unit_for(since, result.time_unit)}".rstrip()
-        after = "" if since is None else f" since {since_text}"
+        after = "" if since is None else f" since the visit at {since_text}"
         ax_main.set_ylabel("Survival probability" if since is None else f"Survival, given alive at {since_text}")
         if ax is None:
             # above the panel, where no curve can be hidden behind it

@@ -45,7 +45,7 @@ def test_the_axes_say_the_curves_start_at_the_visit(gbsg2):
                            width="single")
     main = fig.axes[0]
     assert main.get_ylabel() == "Survival, given alive at 365 days"
-    assert fig.axes[1].get_xlabel() == "Time since 365 days (days)"
+    assert fig.axes[1].get_xlabel() == "Time since the visit at 365 days (days)"
 
 
 def test_a_visit_at_one_year_reads_in_the_singular(gbsg2):
@@ -58,7 +58,7 @@ def test_a_visit_at_one_year_reads_in_the_singular(gbsg2):
     assert res.at_risk[:, 0].sum() == int(np.sum(y["time"] > 365.25))
     fig = plot_km_by_group(res, since=1.0, width="single")
     assert fig.axes[0].get_ylabel() == "Survival, given alive at 1 year"
-    assert fig.axes[1].get_xlabel() == "Time since 1 year (years)"
+    assert fig.axes[1].get_xlabel() == "Time since the visit at 1 year (years)"
 
 
 def test_no_figure_when_nobody_is_followed_beyond_the_visit(gbsg2):
