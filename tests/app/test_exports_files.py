@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import threading
+from pathlib import Path
 
 import pytest
 from matplotlib.figure import Figure
@@ -279,10 +280,13 @@ def test_the_app_script_does_not_run_when_a_worker_process_imports_it(monkeypatc
     import runpy
 
     import streamlit as st
-    from conftest import APP_MAIN
+
+    import workbench.app
+
+    app_main = Path(workbench.app.__file__).parent / "main.py"
 
     calls = []
     monkeypatch.setattr(st, "navigation", lambda *a, **k: calls.append("navigation") or pytest.fail("page run"))
     monkeypatch.setattr(st, "set_page_config", lambda *a, **k: calls.append("set_page_config"))
-    runpy.run_path(str(APP_MAIN), run_name="__mp_main__")
+    runpy.run_path(str(app_main), run_name="__mp_main__")
     assert calls == []
