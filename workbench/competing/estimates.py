@@ -132,7 +132,8 @@ bench's smallest design whose coverage was in the target (AUC: 147-182 cancer de
 patients; Brier and IPA: 74-99 in 150; all-cause: 94-117 deaths in 150). With 45-82 cancer
 deaths in 300 patients the differences' AUC and Brier intervals covered 0.85-0.92, with
 21-35 the IPA intervals were 3-4 times too wide. No event floor where not listed."""
-EVENT_WORDS = {"cause": "deaths from the cause of interest", "all_cause": "deaths"}
+EVENT_WORDS = {"cause": "events of the cause of interest", "all_cause": "events of any cause"}
+"""Words for the events a floor counts: the study names its own outcome (death, recurrence, ...)."""
 FEW_EVENTS = ("no interval: in simulation its coverage was in the 0.92-0.98 target with {m} or more {what}, and "
               "short of it, far too wide or not measured with fewer; this cohort has {e}")
 INTERVAL_METRICS: tuple[str, ...] = ("auc", "brier", "ipa")

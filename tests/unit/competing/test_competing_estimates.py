@@ -115,7 +115,7 @@ def test_intervals_withheld_below_the_event_floor(monkeypatch):
     few = estimate_table(APPARENT, rows, "632plus", gamma=GAMMA, events={"cause": 60})
     assert np.isnan(few.lower[COMB]["auc"][0]) and np.isnan(few.lower[DIFF]["auc"][0])
     assert few.note[COMB]["auc"][0] == ("no interval: in simulation its coverage was in the 0.92-0.98 target with "
-                                        "100 or more deaths from the cause of interest, and short of it, far too wide "
+                                        "100 or more events of the cause of interest, and short of it, far too wide "
                                         "or not measured with fewer; this cohort has 60")
     enough = estimate_table(APPARENT, rows, "632plus", gamma=GAMMA, events={"cause": 100})
     assert np.isfinite(enough.lower[COMB]["auc"][0]) and enough.note[COMB]["auc"][0] == ""
@@ -145,8 +145,8 @@ def test_the_floors_measured_by_the_bench():
     few = estimate_table(apparent, rows(190, 110), "632plus", gamma=GAMMA, events={"cause": 146})
     assert np.isnan(few.lower[fg_clin]["auc"][0]) and "this cohort has 146" in few.note[fg_clin]["auc"][0]
     assert small_cohort_reason("cause", "fine_gray", "brier", 150, {"cause": 74}) == ""
-    assert "147 or more deaths" in small_cohort_reason("cause", "cause_specific", "auc", 300, {"cause": 60})
-    assert "74 or more deaths" in small_cohort_reason("cause", "cause_specific", "ipa", 300, {"cause": 73})
+    assert "147 or more events of the cause of interest" in small_cohort_reason("cause", "cause_specific", "auc", 300, {"cause": 60})
+    assert "74 or more events of the cause of interest" in small_cohort_reason("cause", "cause_specific", "ipa", 300, {"cause": 73})
     small = estimate_table(apparent, rows(95, 55), "632plus", gamma=GAMMA, events={"cause": 80})
     assert np.isnan(small.lower[fg_comb]["auc"][0]) and "with 300 patients" in small.note[fg_comb]["auc"][0]
     assert small_cohort_reason("all_cause", "cause_specific", "brier", 150, {"all_cause": 94}) == ""
