@@ -30,7 +30,6 @@ from workbench.cohort.summary import CAUTION
 from workbench.competing.absolute_risk import AbsoluteRisk, cause_specific_risks, fine_gray_risk
 from workbench.competing.fitting import FittedArm, _cross_fitted_score, target_outcome
 from workbench.competing.refit_limits import (
-    REFIT_WITHHELD,
     refit_note,
     refit_withheld,
     replicate_risks,
@@ -258,8 +257,6 @@ def estimate_competing_patient(arm: FittedArm, train: Cohort, spec: StudySpec, p
             cs = _without_limits(cs)
             how = "none"
             notes.append(SIGNATURE_LIMITS_WITHHELD if refits is None else why)
-            if refits is None and REFIT_WITHHELD is not None:
-                notes.append(REFIT_WITHHELD)
     late = h[h > ranges.last_event_time] if np.isfinite(ranges.last_event_time) else h[:0]
     if late.size:
         notes.append(f"Horizon(s) {', '.join(f'{t:g}' for t in late)} {ranges.time_unit} lie beyond the last "
@@ -277,8 +274,8 @@ SIGNATURE_LIMITS_WITHHELD = (
     "as fixed, leaving out the uncertainty of selecting and weighting its features, and in a simulation of the "
     "whole pipeline (the signature reselected in every cohort) they were too narrow for patients with unusual "
     "imaging values. The estimate itself is shown; the clinical model's estimate comes with limits."
-    + (" Limits from a bootstrap that refits the whole model come with the patient's imaging values and refits "
-       "(workbench competing-estimate --refits)." if REFIT_WITHHELD is None else ""))
+    " Limits from a bootstrap that refits the whole model come with the patient's imaging values and refits "
+    "(workbench competing-estimate --refits).")
 """Why the combined model's patient limits are withheld (measured in bench/bench_competing_patient.py
 --pipeline; see :func:`estimate_competing_patient`, Notes)."""
 

@@ -70,7 +70,7 @@ from workbench.study import StudySpec
 from workbench.validation.backends import run_tasks
 from workbench.validation.plans import _seed_int
 
-__all__ = ["DEFAULT_REFITS", "FORMS", "MIN_REFITS", "REFIT_CAVEAT", "REFIT_FORM", "REFIT_WITHHELD", "RefitBootstrap", "RefitRisks",
+__all__ = ["DEFAULT_REFITS", "FORMS", "MIN_REFITS", "REFIT_CAVEAT", "REFIT_FORM", "RefitBootstrap", "RefitRisks",
            "refit_arms", "refit_limits", "refit_note", "refit_withheld", "replicate_risks", "with_refit_limits"]
 
 FORMS = ("cloglog", "percentile")
@@ -79,10 +79,6 @@ MIN_REFITS = 50  # fewer replicates leave the 2.5th / 97.5th percentiles and the
 MIN_SUCCESS = 0.9  # below this share of successful refits the limits are withheld
 REFIT_FORM = "cloglog"
 """The interval form the patient estimate shows (chosen in bench/bench_competing_patient.py --pipeline --refits)."""
-REFIT_WITHHELD: str | None = None
-"""Why the refit limits are withheld (None: they are shown). Measured in bench/bench_competing_patient.py
---pipeline --refits, see the module notes: within the project's 0.92-0.98 target for the pipeline's own
-spread, the criterion the clinical model's limits meet too."""
 REFIT_CAVEAT = (
     "These limits describe how much the estimate would vary if the whole model, imaging signature included, "
     "were rebuilt on another cohort of this size (in simulation they held the average estimate in 97% of "
@@ -276,8 +272,6 @@ def refit_withheld(refits: RefitBootstrap | None, *, from_score: bool = False) -
     """Why refit limits cannot be shown for a patient (None: they can)."""
     if refits is None:
         return "no refits were asked for"
-    if REFIT_WITHHELD is not None:
-        return REFIT_WITHHELD
     if not refits.imaging:
         return "the refits are of the clinical model, not of the clinical + signature model"
     if from_score:

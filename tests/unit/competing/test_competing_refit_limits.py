@@ -24,7 +24,6 @@ from workbench.competing.fitting import fit_arm
 from workbench.competing.refit_limits import (
     MIN_REFITS,
     REFIT_FORM,
-    REFIT_WITHHELD,
     RefitBootstrap,
     _draw,
     _plan,
@@ -82,16 +81,11 @@ def test_command_for_several_patients_and_json(small, capsys):
     assert got["patients"][0]["risks"][0]["estimate"] != got["patients"][1]["risks"][0]["estimate"]
     for p in got["patients"]:
         assert p["model"] == "combined" and p["caution"] == CAUTION
-        if REFIT_WITHHELD is None:  # one set of refits for both patients, the method named
-            assert got["refits"]["replicates"] == MIN_REFITS
-            assert p["limits_method"] == "refit bootstrap"
-            assert any("bootstrap refitting the whole model" in n for n in p["notes"])
-            assert all(r["lower"] <= r["estimate"] <= r["upper"] for r in p["risks"])
-        else:  # the simulation withheld them: no minutes spent on refits, the reason among the notes
-            assert got["refits"] is None
-            assert p["limits_method"] == "none" and REFIT_WITHHELD in p["notes"]
-            assert all(r["lower"] is None and r["upper"] is None for r in p["risks"])
-            assert REFIT_WITHHELD in text and "CI" not in text
+        # one set of refits for both patients, the method named
+        assert got["refits"]["replicates"] == MIN_REFITS
+        assert p["limits_method"] == "refit bootstrap"
+        assert any("bootstrap refitting the whole model" in n for n in p["notes"])
+        assert all(r["lower"] <= r["estimate"] <= r["upper"] for r in p["risks"])
 
 
 def test_refits_make_the_limits_of_the_library_call(small):
@@ -111,12 +105,8 @@ def test_refits_make_the_limits_of_the_library_call(small):
     np.testing.assert_array_equal(fg.se, se)
     assert np.all((cs.lower <= cs.risk) & (cs.risk <= cs.upper))
     assert np.all((cs.event_free_lower <= cs.event_free) & (cs.event_free <= cs.event_free_upper))
-    if REFIT_WITHHELD is None:
-        assert est.limits_method == "refit bootstrap"
-        np.testing.assert_array_equal(est.fine_gray.lower, lo)
-    else:
-        assert est.limits_method == "none" and REFIT_WITHHELD in est.notes
-        assert np.all(np.isnan(est.fine_gray.lower)) and np.all(np.isnan(est.cause_specific.upper))
+    assert est.limits_method == "refit bootstrap"
+    np.testing.assert_array_equal(est.fine_gray.lower, lo)
     # a signature score cannot stand in for the imaging values of the refits
     scored = estimate_competing_patient(arm, cohort, spec, {c: patient[c] for c in CLINICAL},
                                         signature_score=est.signature_score, refits=rb)
@@ -182,9 +172,8 @@ def test_refits_asked_wrongly(small):
     fake = RefitBootstrap((), 50, 50, 0, True, 1, 0.0)
     with pytest.raises(SpecError, match="clinical model's limits come from influence functions"):
         estimate_competing_patient(arm, cohort, spec, {c: cohort.clinical.iloc[0][c] for c in CLINICAL}, refits=fake)
-    if REFIT_WITHHELD is None:
-        assert "only 0 of 50 refits succeeded" in refit_withheld(fake)
-        assert "need the patient's imaging values" in refit_withheld(fake, from_score=True)
+    assert "only 0 of 50 refits succeeded" in refit_withheld(fake)
+    assert "need the patient's imaging values" in refit_withheld(fake, from_score=True)
 
 
 def test_arm_with_a_signature_empty_in_every_fold_is_the_clinical_arm(small, monkeypatch):
@@ -237,3 +226,11 @@ def test_bad_patient_values_stop_the_command_before_any_refit(small, capsys, mon
     assert main(["competing-estimate", str(path), "--model", "combined", "--patient", str(tmp / "bad.csv"),
                  "--refits", str(MIN_REFITS), "--workers", "1"]) == 2
     assert "unknown_field" in capsys.readouterr().err
+
+
+def test_command_line_refit_defaults_are_the_library_ones():
+    # cli_competing keeps copies so that building the parser imports nothing heavy; they must not drift
+    from workbench import cli_competing
+    from workbench.competing import refit_limits
+
+    assert (cli_competing.DEFAULT_REFITS, cli_competing.MIN_REFITS) == (refit_limits.DEFAULT_REFITS, MIN_REFITS)
