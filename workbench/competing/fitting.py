@@ -44,6 +44,7 @@ from workbench.study import StudySpec
 __all__ = ["TARGETS", "FittedArm", "fit_arm", "target_outcome"]
 
 TARGETS = ("cause", "all_cause")
+TARGET_WORDS = {"cause": "cause-of-interest", "all_cause": "all-cause"}
 """``cause``: the cause of interest with competing events; ``all_cause``: the first
 event of any cause (competing events counted as events), for contrast."""
 
@@ -127,6 +128,11 @@ def fit_arm(train: Cohort, spec: StudySpec, target: str, *, imaging: bool, rando
         signature, medians = _signature_fit(train, spec, y["cause"], X[:, list(protect)] if protect else None,
                                             random_state)
         n_sel = len(signature.selected_features_)
+        if not n_sel:
+            warnings.warn(f"the {TARGET_WORDS.get(target, target)} signature kept no imaging feature on all "
+                          "patients: the clinical + signature arm has no signature term and equals the clinical "
+                          "arm, so its differences say nothing about imaging; check the feature pool, the "
+                          "screening threshold and the penalty rule.", EmptySignatureWarning, stacklevel=2)
     arm = FittedArm(transformer, signature, medians, protect, None, None, n_sel)  # type: ignore[arg-type]
     Xd = arm.design(train)
     if n_sel and spec.models.combined.coefficient == "prevalidated":

@@ -20,6 +20,7 @@ from workbench.competing.analysis import METRICS, CompetingStudyResult
 from workbench.competing.cif import incidence_at
 from workbench.competing.estimates import INTERVAL_RULE, withheld_notes
 from workbench.report.competing_figures import cause_labels
+from workbench.units import unit_after_list
 
 __all__ = ["FORMAT", "competing_results_dict", "format_competing", "write_competing_folder"]
 
@@ -183,7 +184,8 @@ def format_competing(result: CompetingStudyResult) -> str:
         est, lo, hi = incidence_at(result.incidence, h, cause=k)
         parts = [f"{t:g}: {e:.3f} ({a:.3f}-{b:.3f})" for t, e, a, b in zip(h, est, lo, hi, strict=True)]
         lines.append(f"Cumulative incidence of {labels.get(k, k)} (Aalen-Johansen, 95% CI): " + "; ".join(parts))
-    lines.append(f"Validated at horizons {', '.join(f'{t:g}' for t in h)} by {result.estimator_label} "
+    unit = unit_after_list(h, result.cohort.time_unit or "")
+    lines.append(f"Validated at horizons {', '.join(f'{t:g}' for t in h)} {unit} by {result.estimator_label} "
                  f"({result.replicates} bootstrap replicates, {result.failed} failed); AUC | Brier | ICI:")
     for (target, model, method), v in result.corrected.items():
         name = f"{'cause ' + labels[1] if target == 'cause' else 'all-cause'} {model} [{method}]"
