@@ -48,13 +48,14 @@ def plot_cause_incidence(result: CumulativeIncidenceResult, labels: dict, *, hor
 
 
 def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="single", time_unit: str = "",
-                               title: str = ""):
+                               title: str = "", labels: dict | None = None):
     """Mean predicted against Aalen-Johansen observed incidence by risk group, one panel per horizon.
 
     ``groups`` maps a model name (a study key such as "combined", shown by its label) to a
     list of grouped-calibration results (one per horizon,
     :func:`workbench.competing.metrics.competing_grouped_calibration`). Every panel has the
-    same 0-1 scale, so the horizons can be compared at a glance.
+    same 0-1 scale, so the horizons can be compared at a glance. ``labels`` overrides a
+    model's label in the legend.
     """
     from workbench.models.labels import MODEL_LABELS
 
@@ -62,7 +63,8 @@ def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="si
     n_h = len(next(iter(groups.values()))) if groups else 0
     styles = model_styles(names)
     with style_context(width):
-        fig = new_figure(width, aspect=(0.42 if width == "double" else 0.62) if n_h > 1 else 0.8)
+        # square panels side by side: the height follows the number of horizons, so two panels fill the width
+        fig = new_figure(width, aspect=({2: 0.55}.get(n_h, 0.42) if width == "double" else 0.62) if n_h > 1 else 0.8)
         axes = fig.subplots(1, max(n_h, 1), squeeze=False)[0]
         for j, ax in enumerate(axes):
             for name in names:
@@ -70,7 +72,7 @@ def plot_incidence_calibration(groups: dict, *, cause_label: str = "", width="si
                 st = styles[name]
                 err = np.vstack([g.observed - g.observed_lower, g.observed_upper - g.observed])
                 ax.errorbar(g.mean_predicted, g.observed, yerr=np.clip(err, 0, None), fmt=st.marker,
-                            color=st.color, linestyle="none", capsize=1.5, label=MODEL_LABELS.get(name, name),
+                            color=st.color, linestyle="none", capsize=1.5, label=(labels or {}).get(name, MODEL_LABELS.get(name, name)),
                             clip_on=False)
             ax.plot([0, 1], [0, 1], color=NEUTRAL, linewidth=0.5, linestyle=":")
             ax.set_xlim(0, 1)

@@ -19,11 +19,33 @@ from workbench.competing.metrics import competing_grouped_calibration, competing
 from workbench.errors import WorkbenchError
 from workbench.units import time_phrase
 
-__all__ = ["DECISION_LABELS", "NOMOGRAM_TITLES", "cause_labels", "competing_figures", "nomogram_scales_by_model"]
+__all__ = ["DECISION_LABELS", "EMPTY_NOTE", "NOMOGRAM_TITLES", "cause_labels", "competing_figures", "equal_to_clinical",
+           "nomogram_scales_by_model"]
 
 DECISION_LABELS = {"clinical": "Clinical (cause-specific Cox)", "combined": "Clinical + signature (cause-specific Cox)"}
 NOMOGRAM_TITLES = {"clinical": "Clinical, Fine-Gray", "combined": "Clinical + signature, Fine-Gray"}
 APPARENT = "development cohort, apparent (the models were fitted here)"
+
+
+EMPTY_NOTE = "the signature kept no feature"
+
+
+def equal_to_clinical(result: CompetingStudyResult) -> bool:
+    """Whether the clinical + signature arm of the cause of interest is the clinical arm (its signature is empty).
+
+    The figures then draw the clinical arm alone, its label saying why (``EMPTY_NOTE``), rather
+    than the same points, curve or nomogram twice.
+    """
+    arm = result.arms.get(("cause", "combined"))
+    return arm is not None and arm.signature is not None and not arm.n_selected
+
+
+def _models(result: CompetingStudyResult) -> tuple[str, ...]:
+    return ("clinical",) if equal_to_clinical(result) else ("clinical", "combined")
+
+
+def _label(result: CompetingStudyResult, label: str) -> str:
+    return f"{label} ({EMPTY_NOTE})" if equal_to_clinical(result) else label
 
 
 def cause_labels(result: CompetingStudyResult) -> dict:
@@ -37,7 +59,7 @@ def _calibration_groups(result: CompetingStudyResult, n_groups: int = 5) -> dict
     y = target_outcome(cohort, "cause")
     out = {}
     for (target, model), arm in result.arms.items():
-        if target != "cause":
+        if target != "cause" or model not in _models(result):
             continue
         curves = arm.predict(cohort, result.horizons, "cause_specific")
         try:
@@ -50,12 +72,12 @@ def _calibration_groups(result: CompetingStudyResult, n_groups: int = 5) -> dict
 def _decision_curves(result: CompetingStudyResult, t0: float) -> dict:
     y = target_outcome(result.cohort, "cause")
     curves = {}
-    for model in ("clinical", "combined"):
+    for model in _models(result):
         arm = result.arms.get(("cause", model))
         if arm is None:
             continue
         try:
-            curves[DECISION_LABELS[model]] = competing_net_benefit(
+            curves[_label(result, DECISION_LABELS[model])] = competing_net_benefit(
                 y, arm.predict(result.cohort, [t0], "cause_specific"), t0)
         except WorkbenchError:
             continue
@@ -68,12 +90,13 @@ def nomogram_scales_by_model(result: CompetingStudyResult) -> dict:
 
     label = f"the event coded '{cause_labels(result)[1]}'"
     out = {}
-    for model in ("clinical", "combined"):
+    for model in _models(result):
         arm = result.arms.get(("cause", model))
         if arm is None or arm.fine_gray is None:
             continue
         out[model] = incidence_nomogram_scales(arm, result.cohort, result.horizons, cause_label=label,
-                                               time_unit=result.cohort.time_unit, name=NOMOGRAM_TITLES[model])
+                                               time_unit=result.cohort.time_unit,
+                                               name=_label(result, NOMOGRAM_TITLES[model]))
     return out
 
 
@@ -89,8 +112,11 @@ def competing_figures(result: CompetingStudyResult, width: str = "double") -> di
                                                          time_unit=unit, width=width)}
     groups = _calibration_groups(result)
     if groups:
+        from workbench.models.labels import MODEL_LABELS
+
+        named = {m: _label(result, MODEL_LABELS.get(m, m)) for m in groups}
         figs["incidence_calibration"] = plot_incidence_calibration(groups, cause_label=labels[1], width=width,
-                                                                   time_unit=unit, title=APPARENT)
+                                                                   time_unit=unit, title=APPARENT, labels=named)
     h = result.horizons
     t0 = float(h[len(h) // 2])
     curves = _decision_curves(result, t0)
