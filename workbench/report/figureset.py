@@ -232,10 +232,18 @@ class _Shared:
         return {self.labels[k]: mm.predict_survival(self.evalc, self.horizons) for k, mm in self.result.models.items()}
 
 
+def td_auc_grid(horizons, time, event, n: int = 15) -> np.ndarray:
+    """Times of the AUC-over-time figure: from half the first horizon, but not before the first event
+    (a time with no case has no AUC), to the last horizon and a third, within 90% of the follow-up."""
+    time, event = np.asarray(time, dtype=float), np.asarray(event, dtype=bool)
+    first_event = float(np.min(time[event])) if np.any(event) else 0.0
+    last = min(float(np.max(time)) * 0.9, max(horizons) * 1.34)
+    return np.linspace(max(min(horizons) / 2, first_event), last, n)
+
+
 def _td_auc_figure(data: _Shared, width):
     result, evalc, horizons = data.result, data.evalc, data.horizons
-    last = min(float(np.max(evalc.time)) * 0.9, max(horizons) * 1.34)
-    grid = np.linspace(min(horizons) / 2, last, 15)
+    grid = td_auc_grid(horizons, evalc.time, evalc.event)
     cens_y, row_cens = result.cohort.y, None
     if result.external_prepared is not None:  # the evaluated cohort's own weights, as in the table
         cens_y, row_cens = evalc.y, external_censoring(result, evalc, data.risks)
