@@ -88,5 +88,11 @@ class InputFormatWarning(DataQualityWarning):
 
 class UnitWarning(DataQualityWarning):
     """Follow-up times or measured values look as if they were in another unit than declared or trained on."""
+
+
 class EmptySignatureWarning(WorkbenchWarning):
     """The imaging signature kept no feature: the combined model equals the clinical model."""
+
+
+class FigureWarning(WorkbenchWarning):
+    """A figure could not be drawn from this cohort (the reason is given); the other results stand."""

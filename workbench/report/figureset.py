@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from workbench.errors import SpecError, WorkbenchError, WorkbenchWarning
+from workbench.errors import FigureWarning, SpecError, WorkbenchError, WorkbenchWarning
 from workbench.figures import (
     conditional_km_by_group,
     decision_curves,
@@ -151,9 +151,16 @@ def study_figures(result, *, width="double") -> dict:
 
     Each figure is drawn for ``width`` ("single" 85 mm, "double" 175 mm or millimetres):
     text sizes and layout are chosen for that width, so draw once per width rather than
-    resizing a drawn figure.
+    resizing a drawn figure. A figure this cohort cannot give (its drawing raises a
+    :class:`WorkbenchError`) is left out with a :class:`FigureWarning` that gives the reason.
     """
-    return {name: draw() for name, draw in figure_plan(result, width=width).items()}
+    figs = {}
+    for name, draw in figure_plan(result, width=width).items():
+        try:
+            figs[name] = draw()
+        except WorkbenchError as exc:  # one figure this cohort cannot give must not lose the run's results
+            warnings.warn(f"the figure '{name}' was not drawn: {exc}", FigureWarning, stacklevel=2)
+    return figs
 
 
 def figure_plan(result, *, width="double") -> dict:

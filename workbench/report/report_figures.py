@@ -159,10 +159,9 @@ def _external_row_censoring(result, cohort, models):
 def _auc_fig(models, weights_from, cohort, horizons, unit, title, row_censoring=None):
     """AUC over time; censoring weights from ``weights_from`` (the evaluated cohort itself when external)."""
     from workbench.figures import plot_td_auc, td_auc_by_model
+    from workbench.report.figureset import td_auc_grid
 
-    t = cohort.time[cohort.event]
-    hi = min(float(max(horizons)), float(np.quantile(cohort.time, 0.95)))
-    grid = np.linspace(float(np.quantile(t, 0.1)), hi, 12)
+    grid = td_auc_grid(horizons, cohort.time, cohort.event)  # the same times as the figure files
     risks = {_label(k): m.predict_risk(cohort) for k, m in models.items()}
     # the legend's mean AUC is the results table's: over the study horizons, weighted by events
     means = {k: r.mean_auc
