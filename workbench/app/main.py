@@ -26,9 +26,10 @@ PAGES = (
     ("views/export.py", "Export", "export", ":material/download:"),
 )
 
+# When set, a file each script run appends to: its end (epoch s), view, wall and thread CPU seconds
+# (bench/bench_app_browser.py reads it to split a view's time into the server's part and the browser's).
+# A comment, not a string under the name: Streamlit would show a bare string on every page.
 RUN_LOG = "WORKBENCH_RUN_LOG"
-"""When set, a file each script run appends to: its end (epoch s), view, wall and thread CPU seconds
-(bench/bench_app_browser.py reads it to split a view's time into the server's part and the browser's)."""
 
 
 def main() -> None:

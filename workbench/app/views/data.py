@@ -19,10 +19,10 @@ from workbench.study import DataSpec
 from workbench.units import time_phrase
 
 NONE = "(none)"
+# Height beyond which a summary table scrolls (about as tall as the data grid it replaces). The
+# summary's tables are static HTML: six data grids (canvases) took most of the browser's time on
+# this view, the first one a user sees. (A comment: Streamlit would show a bare string on the page.)
 TALL = "26rem"
-"""Height beyond which a summary table scrolls (about as tall as the data grid it replaces). The
-summary's tables are static HTML: six data grids (canvases) took most of the browser's time on
-this view, the first one a user sees."""
 
 
 def _choose_tables() -> tuple[str | None, str] | None:
