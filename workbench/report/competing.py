@@ -166,7 +166,8 @@ def withheld_lines(result: CompetingStudyResult) -> list[str]:
     for why, cells in withheld_notes(result.interval_note).items():
         arms: dict = {}
         for t, _model, meth, m in cells:
-            arms.setdefault(f"{'all-cause' if t == 'all_cause' else 'cause of interest'}, {meth}", {})[m] = None
+            how = {"cause_specific": "cause-specific Cox", "fine_gray": "Fine-Gray"}.get(meth, meth)
+            arms.setdefault(f"{'all-cause' if t == 'all_cause' else 'cause of interest'}, {how}", {})[m] = None
         where = "; ".join(f"{arm} ({', '.join(words.get(m, m) for m in ms)})" for arm, ms in arms.items())
         out.append(f"{where}: {why}")
     return out

@@ -16,7 +16,8 @@ from workbench.app import charts, state
 from workbench.competing.estimates import INTERVAL_CELLS, INTERVAL_ESTIMATORS, INTERVAL_RULE
 from workbench.report.competing import withheld_lines
 
-TARGET_WORDS = {"cause": "cause of interest", "all_cause": "death from any cause"}
+# "all-cause" is the first event of any cause: death from any cause only when every code is a death
+TARGET_WORDS = {"cause": "cause of interest", "all_cause": "first event of any cause"}
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
                "combined_minus_clinical": "Difference (signature added)"}
 METHOD_WORDS = {"cause_specific": "cause-specific Cox", "fine_gray": "Fine-Gray"}
@@ -50,13 +51,16 @@ def corrected_table(result) -> pd.DataFrame:
 
 def interval_words(result) -> str:
     """What the intervals of the validated table are, or why there are none."""
+    why = " ".join(f"Without an interval: {x}." for x in withheld_lines(result))
     if any(np.any(np.isfinite(b[m])) for b in result.lower.values() for m in b):
         shown = "; ".join(f"{TARGET_WORDS.get(t, t)}, {METHOD_WORDS.get(meth, meth)}: {', '.join(ms)}"
                           for (t, meth), ms in INTERVAL_CELLS.items())
-        why = " ".join(f"Without an interval: {x}." for x in withheld_lines(result))
         return f"95% intervals ({INTERVAL_RULE}) for {shown}. {why}".strip()
-    return ("No intervals: fewer than 10 bootstrap replicates with a value."
-            if result.estimator in INTERVAL_ESTIMATORS else "No intervals: this estimator has none.")
+    if result.estimator not in INTERVAL_ESTIMATORS:
+        return "No intervals: this estimator has none."
+    if result.replicates - result.failed < 10:
+        return "No intervals: fewer than 10 bootstrap replicates with a value."
+    return f"No intervals. {why}".strip()  # every cell withheld: the floors of patients or events say why
 
 
 def external_table(result) -> pd.DataFrame | None:
@@ -112,7 +116,7 @@ def render_section(spec) -> None:
     st.header("Competing risks")
     st.caption(
         f"Events coded {', '.join(spec.data.event_codes or ())} are the cause of interest; "
-        f"{', '.join(spec.data.competing_codes)} compete with them (a patient who dies of another cause can no "
+        f"{', '.join(spec.data.competing_codes)} compete with them (a patient who has a competing event can no "
         "longer have the event of interest). The main results above treat competing events as censored. This "
         "analysis fits cause-specific Cox and Fine-Gray models and validates them by the bootstrap, as "
         "'workbench competing' does.")
@@ -155,6 +159,8 @@ def render_section(spec) -> None:
     st.success(f"{c.n} patients: {int(np.sum(c.cause == 1))} events of interest, {int(np.sum(c.cause == 2))} "
                f"competing, {int(np.sum(c.cause == 0))} censored; {result.replicates} bootstrap replicates "
                f"({result.failed} failed).")
+    for category, message in result.warnings:  # as the command line prints them
+        st.warning(f"{message[:1].upper()}{message[1:]} ({category})")
     st.subheader("Cumulative incidence (Aalen-Johansen, 95% interval)")
     state.table(incidence_table(result))
     st.subheader("Validated performance")
