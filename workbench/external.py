@@ -180,7 +180,8 @@ def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str
 
 def write_external(result: ExternalResult, out_dir) -> Path:
     """Write predictions, performance, comparison and recalibration tables."""
-    from workbench.report.results import comparison_table, jsonable
+    from workbench.report.jsonable import jsonable
+    from workbench.report.results import comparison_table
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
