@@ -194,7 +194,8 @@ def _cmd_competing(args) -> int:
 
 def _write_run_folder(result, out: Path, args) -> list[str]:
     """Everything of a run into ``out`` (a temporary folder renamed into place afterwards)."""
-    from workbench.report.bundle import save_bundle, summarise_training
+    from workbench.report.bundle import save_bundle
+    from workbench.report.bundle_training import summarise_training
     from workbench.report.results import write_results
 
     with warnings.catch_warnings(record=True) as caught:

@@ -164,7 +164,8 @@ def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str
     the recalibration was fitted.
     """
     from workbench.models.recalibrated import RecalibratedModel
-    from workbench.report.bundle import save_bundle, summarise_training
+    from workbench.report.bundle import save_bundle
+    from workbench.report.bundle_training import summarise_training
 
     cohort = result.prepared.cohort
     models = {name: RecalibratedModel(m, method, name=name).fit(cohort)
