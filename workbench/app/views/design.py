@@ -18,9 +18,6 @@ from workbench.preprocess.harmonize import DEFAULT_MIN_NEW_BATCH
 from workbench.preprocess.predictor_spec import PredictorSpec
 from workbench.preprocess.reproducibility import ICC_FORMS
 from workbench.study import (
-    BACKENDS,
-    MODEL_NAMES,
-    VALIDATION_METHODS,
     AddedValueSpec,
     ExternalSpec,
     HarmoniseSpec,
@@ -30,6 +27,7 @@ from workbench.study import (
     ValidationSpec,
     study_from_dict,
 )
+from workbench.study_rules import BACKENDS, MODEL_NAMES, VALIDATION_METHODS
 from workbench.units import time_phrase
 
 K_GEN = state.K_DESIGN_GEN
