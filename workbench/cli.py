@@ -135,7 +135,7 @@ def _protected_inputs(study_path, spec) -> list[tuple[str, object]]:
 def _cmd_run(args) -> int:
     from workbench.cohort.summary import format_summary
     from workbench.outfolder import atomic_folder, check_out_folder
-    from workbench.report.results import format_results
+    from workbench.report.digest import format_results
     from workbench.study import read_study
     from workbench.validation.backends import tqdm_progress
     from workbench.workflow import run_study
@@ -194,7 +194,8 @@ def _cmd_competing(args) -> int:
 
 def _write_run_folder(result, out: Path, args) -> list[str]:
     """Everything of a run into ``out`` (a temporary folder renamed into place afterwards)."""
-    from workbench.report.bundle import save_bundle, summarise_training
+    from workbench.report.bundle import save_bundle
+    from workbench.report.bundle_training import summarise_training
     from workbench.report.results import write_results
 
     with warnings.catch_warnings(record=True) as caught:
@@ -241,7 +242,7 @@ def _cmd_apply(args) -> int:
     from workbench.external import apply_bundle, write_external
     from workbench.outfolder import atomic_folder, check_out_folder
     from workbench.report.bundle import load_bundle
-    from workbench.report.results import fmt_estimate
+    from workbench.report.digest import fmt_estimate
 
     out = check_out_folder(args.out, [("bundle", args.bundle), ("features table", args.features),
                                       ("clinical table", args.clinical)], markers=("external_results.json",))

@@ -164,7 +164,8 @@ def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str
     the recalibration was fitted.
     """
     from workbench.models.recalibrated import RecalibratedModel
-    from workbench.report.bundle import save_bundle, summarise_training
+    from workbench.report.bundle import save_bundle
+    from workbench.report.bundle_training import summarise_training
 
     cohort = result.prepared.cohort
     models = {name: RecalibratedModel(m, method, name=name).fit(cohort)
@@ -180,7 +181,8 @@ def save_recalibrated_bundle(bundle: Bundle, result: ExternalResult, method: str
 
 def write_external(result: ExternalResult, out_dir) -> Path:
     """Write predictions, performance, comparison and recalibration tables."""
-    from workbench.report.results import comparison_table, jsonable
+    from workbench.report.jsonable import jsonable
+    from workbench.report.results import comparison_table
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)

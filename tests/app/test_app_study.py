@@ -186,7 +186,7 @@ def _estimate_page(at, **overrides):
 
 def test_patient_estimate_matches_the_library(ran):
     from workbench.estimate import estimate_patient, ranges_from_model
-    from workbench.report.bundle import summarise_training
+    from workbench.report.bundle_training import summarise_training
 
     at = _estimate_page(ran)
     assert_clean(at)

@@ -100,9 +100,11 @@ def _run_case(tmp_path, feats, clin, doc, *, external=None, cli=False, monkeypat
 
         from workbench.report import html as report_html
         from workbench.report import report_figures
-        from workbench.report.bundle import save_bundle, summarise_training
+        from workbench.report.bundle import save_bundle
+        from workbench.report.bundle_training import summarise_training
+        from workbench.report.digest import format_results
         from workbench.report.figureset import study_figures
-        from workbench.report.results import format_results, write_results
+        from workbench.report.results import write_results
         from workbench.study import read_study
         from workbench.workflow import run_study
 

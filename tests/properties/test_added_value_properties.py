@@ -18,12 +18,8 @@ from workbench.models.signature import ImagingSignature
 from workbench.prepare import select_pool
 from workbench.simulate import simulate_cohort
 from workbench.study import read_study
-from workbench.validation.added_value import (
-    added_value_test,
-    nuisance_design,
-    residualise,
-    within_permutation,
-)
+from workbench.validation.added_value import added_value_test
+from workbench.validation.permutation import nuisance_design, residualise, within_permutation
 
 pytestmark = pytest.mark.slow  # a permutation test on 20 simulated cohorts
 
@@ -87,7 +83,7 @@ def test_null_cohorts_reject_rarely_and_strong_imaging_is_found(preds):
 
 def test_cached_clinical_designs_give_the_same_statistic_as_refitting_the_whole_model(preds):
     from workbench.models.penalized import patient_folds
-    from workbench.validation.added_value import _cvpl_cached, _fold_designs, cv_partial_loglik
+    from workbench.validation.added_value_cvpl import _cvpl_cached, _fold_designs, cv_partial_loglik
 
     c = _cohort(150, 33, 1.0)
     comb, _ = _models(preds, 2)

@@ -18,14 +18,12 @@ from sksurv.preprocessing import OneHotEncoder
 
 from workbench.cohort import make_outcome
 from workbench.metrics.calibration import (
-    _cloglog,
-    _rcs_basis,
-    _rcs_knots,
     calibration_slope,
     grouped_calibration,
     observed_expected,
     smoothed_calibration,
 )
+from workbench.metrics.calibration_cox import _cloglog, _rcs_basis, _rcs_knots
 from workbench.metrics.decision import net_benefit
 from workbench.metrics.reclassification import continuous_nri, integrated_discrimination
 from workbench.predictions import SurvivalCurves

@@ -30,7 +30,7 @@ from workbench.models.cox import ClinicalCox
 from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
 from workbench.preprocess.clinical import PredictorSpec
-from workbench.report.bundle import summarise_training
+from workbench.report.bundle_training import summarise_training
 from workbench.study import read_study
 
 REPO = Path(__file__).resolve().parents[2]

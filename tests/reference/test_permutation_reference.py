@@ -13,7 +13,7 @@ import itertools
 import numpy as np
 import pytest
 
-from workbench.validation.added_value import permutation_p_value, residualise, within_permutation
+from workbench.validation.permutation import permutation_p_value, residualise, within_permutation
 
 
 def test_p_value_equals_the_exact_permutation_distribution_of_a_tiny_case():

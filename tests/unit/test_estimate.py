@@ -28,7 +28,8 @@ from workbench.estimate import (
 )
 from workbench.models.registry import build_models
 from workbench.prepare import prepare_cohort
-from workbench.report.bundle import RISK_GROUPS, load_bundle, save_bundle, summarise_training
+from workbench.report.bundle import RISK_GROUPS, load_bundle, save_bundle
+from workbench.report.bundle_training import summarise_training
 from workbench.study import read_study
 
 REPO = Path(__file__).resolve().parents[2]

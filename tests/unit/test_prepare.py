@@ -131,7 +131,7 @@ def test_reproducibility_input_errors(gbsg2_tables, tmp_path):
     gbsg2_tables.feat_df.iloc[:4].to_csv(path, index=False)
     with pytest.raises(CohortError, match="needs at least 10"):
         prepare_cohort(_repeat_study(gbsg2_tables, path))
-    from workbench.study import check_spec
+    from workbench.study_rules import check_spec
 
     with pytest.raises(SpecError, match=r"\[imaging.reproducibility\] form"):
         check_spec(_repeat_study(gbsg2_tables, path, form="kappa"))

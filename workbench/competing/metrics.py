@@ -21,7 +21,8 @@ from workbench.competing.regression import fit_fine_gray
 from workbench.errors import MetricError, ModelError
 from workbench.metrics._ipcw import fit_censoring
 from workbench.metrics.brier import BrierResult, _check_horizons, _check_single_horizon
-from workbench.metrics.calibration import GroupedCalibrationResult, _cloglog, _rcs_basis, _rcs_knots
+from workbench.metrics.calibration_cox import _cloglog, _rcs_basis, _rcs_knots
+from workbench.metrics.calibration_results import GroupedCalibrationResult
 from workbench.metrics.concordance import _risk_ranks
 from workbench.metrics.decision import DecisionCurveResult
 from workbench.metrics.td_auc import _censoring_influence

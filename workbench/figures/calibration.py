@@ -32,7 +32,7 @@ from workbench.figures.style import (
     style_context,
 )
 from workbench.figures.ticks import format_number
-from workbench.metrics.calibration import CalibrationResult
+from workbench.metrics.calibration_results import CalibrationResult
 from workbench.predictions import SurvivalCurves
 from workbench.units import unit_for
 

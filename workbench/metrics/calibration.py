@@ -15,127 +15,35 @@ together with the horizon therefore leaves every number unchanged: the baseline
 hazard is the Breslow step function summed over event times up to ``t0``, never
 evaluated on a grid or smoothed in time units, and the spline is placed on
 predicted risks, not on times.
+
+The result dataclasses are in ``calibration_results.py`` and the Cox model on the
+spline of predicted risk in ``calibration_cox.py``.
 """
 
 from __future__ import annotations
-
-from dataclasses import dataclass
 
 import numpy as np
 from scipy.stats import norm
 
 from workbench.cohort.outcome import split_outcome
-from workbench.errors import MetricError, ModelError
+from workbench.errors import MetricError
 from workbench.metrics.brier import _check_single_horizon, _require_curves
+from workbench.metrics.calibration_cox import (
+    _cloglog,
+    _fit_cox,
+    _fit_cox_at_horizon,
+    _rcs_basis,
+    _rcs_knots,
+)
+from workbench.metrics.calibration_results import (
+    CalibrationResult,
+    CalibrationSlopeResult,
+    GroupedCalibrationResult,
+    ObservedExpectedResult,
+    SmoothedCalibrationResult,
+)
 from workbench.predictions import SurvivalCurves
-from workbench.stats.coxph import fit_coxph
 from workbench.stats.km import kaplan_meier, km_ci_at, survival_at
-
-# Knot positions (quantiles) for restricted cubic splines, Harrell, Regression
-# Modeling Strategies, 2nd ed., Section 2.4.6 (from memory).
-_HARRELL_QUANTILES = {
-    3: (0.10, 0.50, 0.90),
-    4: (0.05, 0.35, 0.65, 0.95),
-    5: (0.05, 0.275, 0.50, 0.725, 0.95),
-    6: (0.05, 0.23, 0.41, 0.59, 0.77, 0.95),
-    7: (0.025, 0.1833, 0.3417, 0.50, 0.6583, 0.8167, 0.975),
-}
-_EPS = 1e-12
-
-
-def _fit_cox(X: np.ndarray, time: np.ndarray, event: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Coefficients and their covariance from an Efron-ties Cox model (the one Cox adapter)."""
-    try:
-        # The calibration model has one to a few spline terms; the events-per-parameter
-        # warning meant for prognostic models would only confuse here.
-        fit = fit_coxph(X, time, event, ties="efron", min_events_per_parameter=0.0)
-    except ModelError as exc:
-        raise MetricError(
-            "the Cox model relating outcomes to predicted risks could not be fitted "
-            f"({exc}). This usually means too few events or too little spread in the "
-            "predictions at this horizon."
-        ) from exc
-    return np.asarray(fit.coef, dtype=float), np.asarray(fit.cov, dtype=float)
-
-
-def _cloglog(risk: np.ndarray) -> np.ndarray:
-    r = np.clip(risk, _EPS, 1.0 - _EPS)
-    return np.log(-np.log1p(-r))
-
-
-def _rcs_knots(x: np.ndarray, n_knots: int) -> np.ndarray:
-    if n_knots not in _HARRELL_QUANTILES:
-        raise MetricError(f"knots must be one of {sorted(_HARRELL_QUANTILES)}, got {n_knots!r}.")
-    return np.unique(np.quantile(x, _HARRELL_QUANTILES[n_knots]))
-
-
-def _rcs_basis(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
-    """Restricted cubic spline basis (linear term first), Harrell's parametrisation."""
-    cols = [x]
-    k = knots.size
-    if k >= 3:
-        t_last, t_prev = knots[-1], knots[-2]
-        scale = (t_last - knots[0]) ** 2
-
-        def cube(u):
-            return np.maximum(u, 0.0) ** 3
-
-        for tj in knots[: k - 2]:
-            cols.append(
-                (
-                    cube(x - tj)
-                    - cube(x - t_prev) * (t_last - tj) / (t_last - t_prev)
-                    + cube(x - t_last) * (t_prev - tj) / (t_last - t_prev)
-                )
-                / scale
-            )
-    return np.column_stack(cols)
-
-
-@dataclass(frozen=True)
-class _CoxAtHorizon:
-    """What is needed to predict risk at t0 (with a delta-method CI) from a Cox fit."""
-
-    beta: np.ndarray
-    cov: np.ndarray
-    centre: np.ndarray
-    h0: float  # Breslow baseline cumulative hazard at t0 (at the centre)
-    a: float  # sum d_j / S0_j^2
-    b: np.ndarray  # sum d_j S1_j / S0_j^2
-
-    def risk(self, Z: np.ndarray, conf_level: float | None = None):
-        zc = Z - self.centre
-        log_h = np.log(self.h0) + zc @ self.beta
-        risk = -np.expm1(-np.exp(log_h))
-        if conf_level is None:
-            return risk
-        q = zc * self.h0 - self.b
-        var = (self.a + np.einsum("ij,jk,ik->i", q, self.cov, q)) / self.h0**2
-        half = norm.ppf(0.5 + conf_level / 2.0) * np.sqrt(np.maximum(var, 0.0))
-        return risk, -np.expm1(-np.exp(log_h - half)), -np.expm1(-np.exp(log_h + half))
-
-
-def _fit_cox_at_horizon(Z, time, event, t0) -> _CoxAtHorizon:
-    beta, cov = _fit_cox(Z, time, event)
-    centre = Z.mean(axis=0)
-    zc = Z - centre
-    order = np.argsort(time, kind="stable")
-    ts, es, zs = time[order], event[order], zc[order]
-    w = np.exp(zs @ beta)
-    s0 = np.cumsum(w[::-1])[::-1]
-    s1 = np.cumsum((w[:, None] * zs)[::-1], axis=0)[::-1]
-    starts = np.flatnonzero(np.r_[True, ts[1:] != ts[:-1]])
-    d = np.add.reduceat(es.astype(float), starts)
-    keep = (ts[starts] <= t0) & (d > 0)
-    d, s0, s1 = d[keep], s0[starts][keep], s1[starts][keep]
-    return _CoxAtHorizon(
-        beta=beta,
-        cov=cov,
-        centre=centre,
-        h0=float(np.sum(d / s0)),
-        a=float(np.sum(d / s0**2)),
-        b=np.sum((d / s0**2)[:, None] * s1, axis=0),
-    )
 
 
 def _prepare(y, curves, t0, where, censor_at_horizon=False, spread_needed=False):
@@ -157,107 +65,6 @@ def _prepare(y, curves, t0, where, censor_at_horizon=False, spread_needed=False)
         event = event & (time <= t0)
         time = np.minimum(time, t0)
     return curves, time, event, t0, curves.risk_at(t0)
-
-
-# ----------------------------------------------------------------- results
-
-
-@dataclass(frozen=True)
-class GroupedCalibrationResult:
-    """Observed against predicted risk by group of predicted risk.
-
-    Attributes
-    ----------
-    t0 : float
-    edges : ndarray of shape (g + 1,)
-        Predicted-risk boundaries of the groups (a patient on a boundary joins the upper group).
-    n, events : ndarray of shape (g,)
-        Patients per group and events observed by ``t0``.
-    mean_predicted : ndarray of shape (g,)
-    observed, observed_lower, observed_upper : ndarray of shape (g,)
-        Kaplan-Meier risk ``1 - S(t0)`` per group with its pointwise confidence interval
-        (log(-log) interval for survival, turned into risk).
-    conf_level : float
-    """
-
-    t0: float
-    edges: np.ndarray
-    n: np.ndarray
-    events: np.ndarray
-    mean_predicted: np.ndarray
-    observed: np.ndarray
-    observed_lower: np.ndarray
-    observed_upper: np.ndarray
-    conf_level: float = 0.95
-
-
-@dataclass(frozen=True)
-class SmoothedCalibrationResult:
-    """Smoothed calibration at ``t0`` (Austin, Harrell & van Klaveren).
-
-    Attributes
-    ----------
-    t0 : float
-    ici : float
-        Integrated calibration index: mean over patients of |observed - predicted| risk.
-    e50, e90, emax : float
-        Median, 90th percentile and maximum of the same absolute differences.
-    knots : ndarray
-        Spline knots on the complementary log-log scale of predicted risk.
-    grid_predicted, grid_observed, grid_lower, grid_upper : ndarray of shape (m,)
-        Calibration curve: observed risk with a pointwise confidence band at a
-        grid of predicted risks spanning the observed range.
-    conf_level : float
-    """
-
-    t0: float
-    ici: float
-    e50: float
-    e90: float
-    emax: float
-    knots: np.ndarray
-    grid_predicted: np.ndarray
-    grid_observed: np.ndarray
-    grid_lower: np.ndarray
-    grid_upper: np.ndarray
-    conf_level: float = 0.95
-
-
-@dataclass(frozen=True)
-class CalibrationSlopeResult:
-    """Calibration slope at ``t0`` (1 is ideal; below 1 means predictions too extreme)."""
-
-    t0: float
-    slope: float
-    std_err: float
-    ci_lower: float
-    ci_upper: float
-    conf_level: float = 0.95
-
-
-@dataclass(frozen=True)
-class ObservedExpectedResult:
-    """Kaplan-Meier observed risk at ``t0`` over mean predicted risk (1 is ideal)."""
-
-    t0: float
-    observed: float
-    expected: float
-    ratio: float
-    ci_lower: float
-    ci_upper: float
-    conf_level: float = 0.95
-
-
-@dataclass(frozen=True)
-class CalibrationResult:
-    """All calibration views of one model at one horizon."""
-
-    t0: float
-    grouped: GroupedCalibrationResult
-    smoothed: SmoothedCalibrationResult
-    slope: CalibrationSlopeResult
-    observed_expected: ObservedExpectedResult
-    model: str = ""
 
 
 # ---------------------------------------------------------------- functions

@@ -10,7 +10,7 @@ import math
 
 import pandas as pd
 
-from workbench.report.results import jsonable
+from workbench.report.jsonable import jsonable
 
 __all__ = ["censoring_dict", "digest_lines", "group_table", "groups_dict", "heterogeneity_context"]
 

@@ -39,7 +39,7 @@ from workbench.cohort.core import Cohort
 from workbench.cohort.outcome import check_outcome, split_outcome
 from workbench.errors import MetricError, WorkbenchError
 from workbench.metrics.brier import brier_score
-from workbench.metrics.calibration import _cloglog, _rcs_basis, _rcs_knots
+from workbench.metrics.calibration_cox import _cloglog, _rcs_basis, _rcs_knots
 from workbench.metrics.concordance import harrell_c, uno_c
 from workbench.metrics.decision import net_benefit
 from workbench.metrics.reclassification import continuous_nri, integrated_discrimination

@@ -11,13 +11,13 @@ import pytest
 from workbench.cohort import make_outcome
 from workbench.errors import FollowUpWarning, MetricError
 from workbench.metrics.calibration import (
-    _rcs_basis,
     calibration_at,
     calibration_slope,
     grouped_calibration,
     observed_expected,
     smoothed_calibration,
 )
+from workbench.metrics.calibration_cox import _rcs_basis
 from workbench.predictions import RiskScores, SurvivalCurves
 
 

@@ -33,8 +33,8 @@ from workbench.report.bundle import (
     load_bundle,
     manifest_checksum,
     save_bundle,
-    summarise_training,
 )
+from workbench.report.bundle_training import summarise_training
 from workbench.study import dumps_study, read_study
 
 REPO = Path(__file__).resolve().parents[3]

@@ -14,7 +14,7 @@ import pytest
 from lifelines import KaplanMeierFitter
 from sksurv.datasets import load_gbsg2
 
-from workbench.report.results import conditional_rows
+from workbench.report.result_blocks import conditional_rows
 from workbench.stats.riskgroups import assign_groups, learn_cutpoints
 
 

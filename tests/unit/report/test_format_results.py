@@ -6,7 +6,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from workbench.report.results import format_results
+from workbench.report.digest import format_results
 
 WHY = "interval not computable: too few usable outer bootstrap samples"
 

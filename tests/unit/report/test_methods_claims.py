@@ -484,7 +484,7 @@ def test_results_folder_keeps_every_icc(repeats_result, tmp_path):
 
 
 def test_console_digest_names_the_reproducibility_filter(repeats_result, small_study_result):
-    from workbench.report.results import format_results
+    from workbench.report.digest import format_results
 
     r = repeats_result.prepared
     line = next(s for s in format_results(repeats_result).splitlines() if s.startswith("Reproducibility:"))

@@ -27,12 +27,8 @@ from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.simulate import simulate_cohort
 from workbench.stats.coxph import fit_coxph, linear_predictor
 from workbench.study import read_study
-from workbench.validation.added_value import (
-    _cvpl_inner_folds,
-    _fold_designs,
-    _protected_all,
-    added_value_test,
-)
+from workbench.validation.added_value import added_value_test
+from workbench.validation.added_value_cvpl import _cvpl_inner_folds, _fold_designs, _protected_all
 
 DEMO = Path(__file__).parents[3] / "demo_cohort" / "study.toml"
 

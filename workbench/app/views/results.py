@@ -285,7 +285,7 @@ def _conditional_frame(run_key: tuple, _result, unit: str):
     """Observed conditional survival by risk group of the lead model (as results.json has it)."""
     import pandas as pd
 
-    from workbench.report.results import conditional_rows
+    from workbench.report.result_blocks import conditional_rows
     from workbench.stats.riskgroups import learn_cutpoints
 
     lead = "combined" if "combined" in _result.models else next(iter(_result.models))

@@ -66,7 +66,7 @@ def render() -> None:
     with a:
         st.markdown("**Reduction steps** (fitted on all patients)")
         state.table(tables.steps_table(sig.steps_, result.prepared, result.spec.imaging.reproducibility))
-        from workbench.report.results import harmonisation_digest
+        from workbench.report.digest import harmonisation_digest
 
         for line in harmonisation_digest(result):
             st.caption(line.strip())
