@@ -122,14 +122,15 @@ def format_results(result) -> str:
         lines.append(f"Signature: {len(sel.apparent)} feature{'s' if len(sel.apparent) != 1 else ''}; "
                      + (f"kept by fewer than half of the {sel.n_fits} refits (unstable): {', '.join(shaky)}."
                         if shaky else f"each kept by at least half of the {sel.n_fits} refits."))
+    wide = max([40, *(len(labels[name]) + 2 for name in result.models)])  # a long label keeps the columns
     lines += [
         "",
-        f"{'model':<40s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",
+        f"{'model':<{wide}s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}",
     ]
     for name in result.models:
         est = v.estimates[name]
         lines.append(
-            f"{labels[name]:<40s}{fmt_estimate(est.get('harrell_c'), apparent_only=app):>24s}"
+            f"{labels[name]:<{wide}s}{fmt_estimate(est.get('harrell_c'), apparent_only=app):>24s}"
             f"{fmt_estimate(est.get('uno_c'), apparent_only=app):>24s}{fmt_estimate(est.get('ibs'), apparent_only=app):>24s}"
         )
     cs = [v.estimates[m].get("harrell_c") for m in result.models]
