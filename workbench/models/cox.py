@@ -350,10 +350,23 @@ class CombinedCox(_CoxBase):
         if self.shrinkage == "cross_validated_slope":
             for k in np.unique(fold):
                 tr, te = fold != k, fold == k
-                f = fit_coxph(np.column_stack([X_clin[tr], S[tr, k]]), cohort.time[tr], cohort.event[tr],
-                              ties=self.ties, names=names, min_events_per_parameter=0)
-                oof_lp[te] = linear_predictor(f, np.column_stack([X_clin[te], oof_score[te]]))
+                oof_lp[te] = self._fold_lp(X_clin, S[tr, k], oof_score[te], tr, te, cohort, names)
         return oof_score, oof_lp
+
+    def _fold_lp(self, X_clin, s_tr, s_te, tr, te, cohort: Cohort, names) -> np.ndarray:
+        """The held-out rows' linear predictor from a Cox fit of clinical terms + fold score on the fold's rows.
+
+        A fold whose signature kept no feature scores everyone alike: its score gets weight 0 and
+        the fold's model is the clinical model (as for an empty signature on all rows), rather
+        than a fit that fails on a constant column and takes the shrinkage away.
+        """
+        if np.ptp(s_tr) == 0.0:
+            f = fit_coxph(X_clin[tr], cohort.time[tr], cohort.event[tr], ties=self.ties, names=names[:-1],
+                          min_events_per_parameter=0)
+            return linear_predictor(f, X_clin[te])
+        f = fit_coxph(np.column_stack([X_clin[tr], s_tr]), cohort.time[tr], cohort.event[tr], ties=self.ties,
+                      names=names, min_events_per_parameter=0)
+        return linear_predictor(f, np.column_stack([X_clin[te], s_te]))
 
     def _cross_fit(self, cohort: Cohort, X_clin: np.ndarray, names):
         """Out-of-fold signature scores and (for shrinkage) out-of-fold linear predictors."""
@@ -372,9 +385,7 @@ class CombinedCox(_CoxBase):
                                       covariates=self._protected(held))
             if want_lp:
                 s_tr = sig.score(fill_missing(sub.features, med), batch=sub.batch, covariates=prot_tr)
-                f = fit_coxph(np.column_stack([X_clin[tr], s_tr]), sub.time, sub.event, ties=self.ties,
-                              names=names, min_events_per_parameter=0)
-                oof_lp[te] = linear_predictor(f, np.column_stack([X_clin[te], oof_score[te]]))
+                oof_lp[te] = self._fold_lp(X_clin, s_tr, oof_score[te], tr, te, cohort, names)
         return oof_score, oof_lp
 
     def fit(self, cohort: Cohort) -> CombinedCox:

@@ -176,3 +176,52 @@ def test_signature_empty_in_every_fold_gives_the_clinical_model(cohort):
     np.testing.assert_allclose(m.fit_.coef, clin.fit_.coef, atol=1e-12)
     np.testing.assert_allclose(m.predict_survival(cohort, (12.0, 24.0)).probs,
                                clin.predict_survival(cohort, (12.0, 24.0)).probs, atol=1e-12)
+
+
+class _EmptyOnce(_AllRowsOnly):
+    """A stand-in signature whose ``empty_at``-th fit (counted over all copies) keeps no feature."""
+
+    fits = 0
+    random_state = 3  # the pre-validation folds follow the signature's seed: the same folds on replay
+
+    def __init__(self, n_all=0, empty_at=2):
+        self.n_all, self.empty_at = n_all, empty_at
+
+    def get_params(self, deep=True):
+        return {"n_all": self.n_all, "empty_at": self.empty_at}
+
+    def fit(self, X, y, groups=None, batch=None, covariates=None):
+        super().fit(X, y)
+        type(self).fits += 1
+        self.selected_features_ = () if type(self).fits == self.empty_at else (X.columns[0],)
+        return self
+
+
+def test_shrinkage_with_one_empty_fold_signature_keeps_the_shrinkage(cohort):
+    # A fold whose signature kept nothing used to make its Cox fit fail on a constant column, and the
+    # whole model fell back to the unshrunk in-sample fit. That fold's model is now the clinical model.
+    import pandas as pd
+    from lifelines import CoxPHFitter
+
+    from workbench.errors import ConvergenceWarning
+
+    preds = tuple(read_study(DEMO).predictors)
+    _EmptyOnce.fits = 0  # the 1st fit is on all rows, the 2nd the first pre-validation fold's
+    m = CombinedCox(preds, signature=_EmptyOnce(empty_at=2), coefficient="in_sample",
+                    shrinkage="cross_validated_slope")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ConvergenceWarning)
+        m.fit(cohort)
+    assert m.coefficient_source_ == "in_sample" and 0 < m.shrinkage_factor_ < 1
+    X_clin = m._design(cohort)[:, :-1]
+    _EmptyOnce.fits = 1  # replay the folds: the first fold's signature is the empty one again
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        _, oof_lp = m._cross_fit(cohort, X_clin, m.fit_.names)
+    fold = m._prevalidation_fold(cohort)
+    tr, te = fold != np.unique(fold)[0], fold == np.unique(fold)[0]
+    cols = [f"x{j}" for j in range(X_clin.shape[1])]
+    df = pd.DataFrame(X_clin[tr], columns=cols).assign(T=cohort.time[tr], E=cohort.event[tr].astype(int))
+    beta = CoxPHFitter().fit(df, "T", "E").params_[cols].to_numpy()  # lifelines, Efron ties: clinical terms only
+    ref = X_clin[te] @ beta
+    np.testing.assert_allclose(oof_lp[te] - oof_lp[te].mean(), ref - ref.mean(), atol=1e-4)
