@@ -52,9 +52,10 @@ every array over 128 KiB afresh, 0.5 million page faults per replicate); the loc
 now leaves it unset. Per round, CPU s/rep of processes 1.78 / 1.70 / 1.94 and of dask x2
 1.73 / 1.70 / 1.48 (second run): equal within the rounds' spread. With more workers than cores
 (x3, x4) each extra worker costs CPU (10-15% more per replicate) and the wall times no longer
-gain. In the earlier runs below, the CPU per replicate was higher on both backends: a Dask
-cluster's nannies (which run in this process) wrote the setting into this process's
-environment, so loky workers started after a Dask run inherited it too.
+gain. The earlier runs below were made at a load of 16-36, which alone raises the CPU per
+replicate; also, a Dask cluster's nannies (they run in this process) then wrote the setting
+into this process's environment, so loky workers started anew after a Dask run (they end
+after 300 s idle) inherited it: how often that happened there was not traced.
 
 Measured 2026-12-03 on the shared 2-core machine under heavy load from other work (load average
 27-36 throughout), ``--replicates 4 --rounds 2 --scale-workers 3 --with-before``, nice 19:
