@@ -40,12 +40,19 @@ def test_split_finds_the_parts_every_task_shares():
     assert _split([(big, 1)]) == ([], [])  # one task: nothing to share
 
 
+ENV_AROUND_START: dict = {}
+
+
 @pytest.fixture(scope="module")
 def cluster():
     from workbench.validation.dask_runner import local_cluster
 
-    with local_cluster(2, dashboard_address=None) as c:
-        yield c
+    with pytest.MonkeyPatch.context() as mp:
+        mp.delenv("MALLOC_TRIM_THRESHOLD_", raising=False)  # as in a plain shell
+        before = dict(os.environ)
+        with local_cluster(2, dashboard_address=None) as c:
+            ENV_AROUND_START.update(before=before, after=dict(os.environ))
+            yield c
 
 
 def test_local_cluster_workers_single_threaded_with_quiet_housekeeping(cluster):
@@ -66,6 +73,36 @@ def test_local_cluster_workers_single_threaded_with_quiet_housekeeping(cluster):
                     dask.config.get("distributed.worker.memory.monitor-interval"))
 
         assert set(client.run(housekeeping).values()) == {("1s", "1s")}
+
+
+def test_local_cluster_workers_keep_glibc_allocator_defaults(cluster):
+    # Dask's nanny sets MALLOC_TRIM_THRESHOLD_=65536 for its workers by default (distributed's
+    # distributed.yaml, nanny.pre-spawn-environ); glibc's mallopt(3) documents that setting it turns
+    # off the sliding mmap threshold, so large numpy temporaries are mapped and faulted afresh.
+    import dask
+
+    assert dask.config.get("distributed.nanny.pre-spawn-environ").get("MALLOC_TRIM_THRESHOLD_") is not None
+    with distributed.Client(cluster) as client:
+        env = client.run(lambda: os.environ.get("MALLOC_TRIM_THRESHOLD_"))
+        assert set(env.values()) == {None}
+
+
+def test_local_cluster_leaves_this_process_environment_alone(cluster):
+    # the nannies of a local cluster run in this process and write their workers' settings
+    # (thread counts, PYTHONHASHSEED) into os.environ before starting them
+    assert ENV_AROUND_START["after"] == ENV_AROUND_START["before"]
+
+
+def test_workers_with_the_trim_setting_are_warned_about(cluster):
+    with distributed.Client(cluster) as client:
+        client.run(lambda: os.environ.update(MALLOC_TRIM_THRESHOLD_="65536"))
+        try:
+            with pytest.warns(RuntimeWarning, match="2 of 2 Dask workers run with MALLOC_TRIM_THRESHOLD_"):
+                out = run_tasks(_scaled, [({"x": np.arange(3.0), "scale": 2.0}, k) for k in range(3)],
+                                backend="dask", scheduler=client, workers=2)
+        finally:
+            client.run(lambda: os.environ.pop("MALLOC_TRIM_THRESHOLD_", None))
+    assert out == [0.0, 2.0, 4.0]
 
 
 def test_shared_part_scattered_once_results_in_task_order(cluster, monkeypatch):
