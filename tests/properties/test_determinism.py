@@ -120,9 +120,15 @@ def test_same_seed_same_result_different_seed_different(setup, serial):
 @pytest.mark.slow
 def test_local_dask_cluster_equals_serial(setup, serial):
     import distributed
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=None) as cluster:
-        res = _run(setup, backend="dask", scheduler=cluster.scheduler_address, workers=2)
+
+    from workbench.validation.dask_runner import _environ_kept
+
+    # a cluster of the user's own (Dask's defaults: the allocator warning is expected); its nannies write
+    # their workers' settings into this process's environment, put back so later process pools don't inherit them
+    with _environ_kept(), distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                                   dashboard_address=None) as cluster:
+        with pytest.warns(RuntimeWarning, match="MALLOC_TRIM_THRESHOLD_"):
+            res = _run(setup, backend="dask", scheduler=cluster.scheduler_address, workers=2)
     _assert_identical(serial, res)
 
 
