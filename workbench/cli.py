@@ -263,12 +263,20 @@ def _cmd_apply(args) -> int:
     if args.save_recalibrated:
         print(f"Recalibrated models ({args.save_recalibrated}) saved as a bundle in {out / name}")
     c = res.prepared.cohort
-    print(f"Applied {', '.join(bundle.models)} to {c.n} patients ({c.n_events} events).")
+    from workbench.models.labels import MODEL_LABELS
+
+    print(f"Applied {', '.join(MODEL_LABELS.get(m, m) for m in bundle.models)} to {c.n} patients "
+          f"({c.n_events} events).")
     if res.prepared.incomplete_ids:
         print(f"{len(res.prepared.incomplete_ids)} patient(s) left out for a missing complete-case predictor.")
-    print(f"\n{'model':<16s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}")
+    from workbench.units import time_phrase
+
+    labels = {name: MODEL_LABELS.get(name, name) for name in res.validation.estimates}
+    wide = max([16, *(len(v) + 2 for v in labels.values())])
+    print(f"\n{'model':<{wide}s}{'Harrell C':>24s}{'Uno C':>24s}{'IBS':>24s}")
     for name, est in res.validation.estimates.items():
-        print(f"{name:<16s}{fmt_estimate(est.get('harrell_c')):>24s}{fmt_estimate(est.get('uno_c')):>24s}{fmt_estimate(est.get('ibs')):>24s}")
+        print(f"{labels[name]:<{wide}s}{fmt_estimate(est.get('harrell_c')):>24s}{fmt_estimate(est.get('uno_c')):>24s}"
+              f"{fmt_estimate(est.get('ibs')):>24s}")
     import numpy as np
 
     notes = {e.note for est in res.validation.estimates.values() for e in est.values() if e.note}
@@ -277,7 +285,9 @@ def _cmd_apply(args) -> int:
         print(f"{reason[0].upper()}{reason[1:]}.")
     if not res.recalibration.empty:
         print("\nCalibration (ICI) after recalibration on this cohort (apparent):")
-        print(res.recalibration.pivot_table(index=["model", "recalibration"], columns="horizon", values="ici").round(3).to_string())
+        table = res.recalibration.pivot_table(index=["model", "recalibration"], columns="horizon", values="ici").round(3)
+        table.columns = [time_phrase(h, c.time_unit) for h in table.columns]
+        print(table.rename(index=labels, level="model").to_string())
     args.console.show_all(res.warnings)
     args.console.note_hidden("external_results.json")
     from workbench.cohort.summary import CAUTION

@@ -361,6 +361,14 @@ def test_apply_says_why_there_are_no_intervals(study, run_folder, tmp_path, caps
     assert main([*args, "--out", str(tmp_path / "enough"), "--replicates", "10"]) == 0
     out = capsys.readouterr().out
     assert "No interval" not in out and " to " in out.split("IBS")[1].splitlines()[1]
+    # the models by their labels, the recalibration table's horizons with the study's unit (as `run` prints them)
+    from workbench.report.bundle import load_bundle
+    from workbench.units import time_phrase
+
+    spec = load_bundle(run_folder / "bundle").spec
+    assert "Clinical Cox" in out.split("IBS")[1].splitlines()[1]
+    head = out.split("after recalibration on this cohort (apparent):")[1].splitlines()[1]
+    assert head.split() == " ".join(time_phrase(h, spec.data.time_unit) for h in spec.horizons).split()
 
 
 def test_estimate_alive_at_a_visit_prints_the_conditional_chances(run_folder, capsys):
