@@ -152,6 +152,35 @@ def _step(km: KaplanMeierResult, values, min_at_risk: int = 0):
     return x, np.r_[1.0, np.asarray(values)[keep]]
 
 
+def _shown_ticks(result: KMByGroupResult, min_at_risk: int) -> tuple[np.ndarray, np.ndarray]:
+    """The time axis's ticks and at-risk columns, up to the first tick at or after the end of the
+    longest curve: the axis does not run on over follow-up where every curve has stopped. Default
+    ticks are chosen afresh for the shown range (so it keeps four or more); given ones are cut."""
+    ticks = np.asarray(result.tick_times, dtype=float)
+    at_risk = np.asarray(result.at_risk)
+    ends = [float(km.times[km.at_risk >= min_at_risk].max()) for km in result.curves
+            if np.any(km.at_risk >= min_at_risk)]
+    t_max = max(float(km.times.max()) for km in result.curves)
+    if not ticks.size or not ends or max(ends) >= t_max:
+        return ticks, at_risk
+    end = max(ends)
+    default = time_ticks(t_max, result.time_unit, 7)
+    if np.array_equal(default[default <= t_max], ticks):
+        new = time_ticks(end, result.time_unit, 7)
+        if new.size > 1 and new[-1] < end and new[-1] + (new[1] - new[0]) <= t_max:
+            new = np.r_[new, new[-1] + (new[1] - new[0])]
+        counts = np.array([[_at_risk(km, t) for t in new] for km in result.curves])
+        return new, counts
+    n = max(min(int(np.searchsorted(ticks, end, side="left")) + 1, ticks.size), 2)
+    return ticks[:n], at_risk[:, :n]
+
+
+def _at_risk(km: KaplanMeierResult, t: float) -> int:
+    """Patients of the curve still followed at ``t`` (time >= t), read off its risk sets."""
+    k = int(np.searchsorted(km.times, t, side="left"))
+    return int(round(float(km.at_risk[k]))) if k < km.times.size else 0
+
+
 def km_caption(result: KMByGroupResult, *, development: bool = False, min_at_risk: int = 10) -> str:
     """The sentence printed under the curves: group comparison, hazard ratios, where curves stop.
 
@@ -214,6 +243,7 @@ def plot_km_by_group(
     Figure, or the Axes when ``ax`` is given.
     """
     n_groups = len(result.labels)
+    ticks, at_risk = _shown_ticks(result, min_at_risk)
     with style_context(width):
         if ax is None:
             wide = column_width_inches(width) * 25.4 > 120.0
@@ -235,8 +265,8 @@ def plot_km_by_group(
             ax_main.plot(km.times[cens], km.survival[cens], linestyle="none", marker="|", ms=3,
                          color=st.color, mew=0.6)
         ax_main.set_ylim(0, 1.02)
-        ax_main.set_xlim(0, result.tick_times[-1] if result.tick_times.size else None)
-        ax_main.set_xticks(result.tick_times)
+        ax_main.set_xlim(0, ticks[-1] if ticks.size else None)
+        ax_main.set_xticks(ticks)
         unit = f" ({result.time_unit})" if result.time_unit else ""
         since_text = "" if since is None else f"{format_number(since)} {unit_for(since, result.time_unit)}".rstrip()
         after = "" if since is None else f" since the visit at {since_text}"
@@ -259,9 +289,9 @@ def plot_km_by_group(
         if ax_tab is not None:
             ax_main.tick_params(labelbottom=False)
             ax_tab.set_xlabel(f"Time{after}{unit}")
-            for i, row in enumerate(result.at_risk):
+            for i, row in enumerate(at_risk):
                 y = n_groups - 1 - i
-                for t, v in zip(result.tick_times, row, strict=True):
+                for t, v in zip(ticks, row, strict=True):
                     ax_tab.text(t, y, str(int(v)), ha="center", va="center", fontsize="small")
             ax_tab.set_ylim(-0.6, n_groups - 0.4)
             ax_tab.set_yticks(range(n_groups), labels=list(reversed(result.labels)), fontsize="small")
@@ -271,5 +301,5 @@ def plot_km_by_group(
         else:
             ax_main.set_xlabel(f"Time{after}{unit}")
         if ax_tab is not None:
-            ax_tab.set_xticks(result.tick_times, labels=[format_number(t) for t in result.tick_times])
+            ax_tab.set_xticks(ticks, labels=[format_number(t) for t in ticks])
         return out

@@ -79,22 +79,31 @@ def nice_log_ticks(lo: float, hi: float, max_ticks: int) -> np.ndarray:
 _TIME_STEPS = {
     "months": (3.0, 6.0, 12.0, 24.0, 36.0, 60.0, 120.0),
     "weeks": (4.0, 13.0, 26.0, 52.0, 104.0, 260.0),
-    "days": (30.0, 91.0, 182.0, 365.0, 730.0, 1826.0),
+    "days": (30.0, 90.0, 180.0, 365.0, 730.0, 1825.0),
     "years": (0.5, 1.0, 2.0, 5.0, 10.0),
 }
+# Days: whole years (0, 365, 730, 1095 ...) when they give four ticks or more; otherwise 90 or 180 days.
+# Quarter years in days (91, 182, 273, 364) put "364" beside a 365-day horizon, which reads as a slip.
+_WHOLE_YEARS = {"days": (365.0, 730.0, 1825.0)}
 
 
 def time_ticks(t_max: float, time_unit: str = "", max_ticks: int = 7) -> np.ndarray:
     """Ticks from 0 to ``t_max`` at the calendar steps of ``time_unit`` (12/24/36 months ...).
 
     For months the step is a multiple or simple fraction of a year (3, 6, 12, 24 ...), for
-    weeks and days the same in their units; other units fall back to :func:`nice_ticks`.
+    weeks the same in weeks; days step by whole years when that gives four ticks or more, else
+    by 30, 90 or 180 days; other units fall back to :func:`nice_ticks`.
     Uses the smallest such step giving at most ``max_ticks`` ticks.
     """
     t_max = float(t_max)
-    steps = _TIME_STEPS.get(str(time_unit).strip().lower())
+    unit = str(time_unit).strip().lower()
+    steps = _TIME_STEPS.get(unit)
     if steps is None or t_max <= 0:
         return nice_ticks(0.0, max(t_max, 0.0), max_ticks)
+    for step in _WHOLE_YEARS.get(unit, ()):
+        n = int(np.floor(t_max / step + 1e-9)) + 1
+        if 4 <= n <= max_ticks:
+            return step * np.arange(n)
     for step in steps:
         n = int(np.floor(t_max / step + 1e-9)) + 1
         if n <= max_ticks:

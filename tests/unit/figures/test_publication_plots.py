@@ -178,7 +178,10 @@ def test_km_ticks_follow_the_study_time_unit():
 
     np.testing.assert_array_equal(time_ticks(64.0, "months"), [0, 12, 24, 36, 48, 60])
     np.testing.assert_array_equal(time_ticks(30.0, "months"), [0, 6, 12, 18, 24, 30])
-    np.testing.assert_array_equal(time_ticks(1100.0, "days"), [0, 182, 364, 546, 728, 910, 1092])
+    np.testing.assert_array_equal(time_ticks(1100.0, "days"), [0, 365, 730, 1095])  # whole years
+    np.testing.assert_array_equal(time_ticks(490.0, "days"), [0, 90, 180, 270, 360, 450])  # too few years
+    np.testing.assert_array_equal(time_ticks(700.0, "days"), [0, 180, 360, 540])
+    np.testing.assert_array_equal(time_ticks(2659.0, "days"), [0, 730, 1460, 2190])
     np.testing.assert_array_equal(time_ticks(7.0, "years"), [0, 2, 4, 6])  # at most 7 ticks
     np.testing.assert_array_equal(time_ticks(6.0, "years"), [0, 1, 2, 3, 4, 5, 6])
 
