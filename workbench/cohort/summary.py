@@ -240,6 +240,29 @@ def _num(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+def _short(x: float) -> str:
+    return f"{x:.1f}".rstrip("0").rstrip(".")
+
+
+def followup_text(median, ci, unit: str, longest) -> str:
+    """Median follow-up by the reverse Kaplan-Meier method, as the console, report and methods print it.
+
+    "25.6 months (95% CI 23.1 to 28.0)"; with a missing upper limit "(95% CI from 23.1)". When few
+    patients are censored the reverse Kaplan-Meier curve may stay above one half to the end: the
+    median is then not reached, and the phrase says what that means instead of printing "n/a".
+    """
+    def ok(x) -> bool:
+        return x is not None and np.isfinite(float(x))
+
+    lo, hi = ci if ci is not None else (None, None)
+    if ok(median):
+        limits = (f" (95% CI {_short(lo)} to {_short(hi)})" if ok(lo) and ok(hi)
+                  else f" (95% CI from {_short(lo)})" if ok(lo) else "")
+        return f"{_short(median)} {unit}{limits}"
+    return (f"not reached: more than half of the patients were still under follow-up at the longest follow-up "
+            f"({_short(longest)} {unit}); few patients were censored")
+
+
 def _per_feature_line(epf: float) -> str:
     if epf < 10:  # fewer than 10 events per candidate parameter: common practice
         return f"Events per imaging feature: {epf:.2f} (why the signature needs penalisation and honest validation)"
@@ -265,8 +288,8 @@ def format_summary(s: CohortSummary) -> str:
         f"Patients {s.n_patients}   events of interest {s.n_events} ({100 * s.n_events / s.n_patients:.0f}%)   "
         f"competing events {s.n_competing} ({100 * s.n_competing / s.n_patients:.0f}%)   "
         f"censored {s.n_censored - s.n_competing}",
-        f"Median follow-up (reverse Kaplan-Meier): {_num(s.median_followup)} {u} "
-        f"(95% CI {_num(s.median_followup_ci[0])} to {_num(s.median_followup_ci[1])}); longest {s.max_followup:.1f} {u}",
+        f"Median follow-up (reverse Kaplan-Meier): {followup_text(s.median_followup, s.median_followup_ci, u, s.max_followup)}"
+        f"; longest {_short(s.max_followup)} {u}",
         _median_line("Median survival", s.median_survival, s.median_survival_ci, u),
     ]
     if s.n_competing is not None:

@@ -41,6 +41,21 @@ def _fmt(x: float, digits: int = 1) -> str:
     return "n/a" if not np.isfinite(x) else f"{x:.{digits}f}"
 
 
+def _followup(x: float) -> str:
+    return NOT_REACHED if not np.isfinite(x) else f"{x:.1f}"
+
+
+NOT_REACHED = "not reached†"
+
+
+def followup_notes(cells) -> list[str]:
+    """The note under the table when a group's median follow-up is not reached (its cell is marked †)."""
+    if NOT_REACHED not in cells:
+        return []
+    return ["† Median follow-up not reached: more than half of these patients were still under follow-up at their "
+            "longest follow-up (few were censored), so the reverse Kaplan-Meier curve never fell to one half."]
+
+
 def _groups(result) -> list[tuple[str, object]]:
     """(column heading, cohort) pairs: development centres, development, external."""
     out = []
@@ -72,7 +87,7 @@ def characteristics_table(result) -> dict:
         {"label": "Events (%)", "cells": [f"{c.n_events} ({100 * c.n_events / c.n:.0f}%)" for _, c in groups],
          "level": False},
         {"label": f"Median follow-up, reverse Kaplan-Meier ({unit})",
-         "cells": [_fmt(reverse_km_median(c.time, c.event)) for _, c in groups], "level": False},
+         "cells": [_followup(reverse_km_median(c.time, c.event)) for _, c in groups], "level": False},
     ]
     for p in result.spec.predictors:
         name = p.label or p.column
@@ -106,6 +121,7 @@ def characteristics_table(result) -> dict:
              "median and interquartile range of the recorded values (values below a detection limit counted at "
              "the limit); percentages of the patients with a recorded value. Missing values are those left for "
              "imputation inside each fit."]
+    notes += followup_notes(rows[2]["cells"])  # the follow-up row
     cols = [g for g, _ in groups]
     parts = (["by centre"] if cols[0].startswith("Centre ") else []) + (["for the external cohort"]
                                                                          if "External" in cols else [])

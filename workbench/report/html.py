@@ -30,7 +30,7 @@ from pathlib import Path
 import jinja2
 from markupsafe import Markup
 
-from workbench.cohort.summary import CAUTION, feature_family
+from workbench.cohort.summary import CAUTION, feature_family, followup_text
 from workbench.models.labels import EQUAL_NOTE, equal_models, model_labels
 from workbench.models.registry import MODEL_LABELS
 from workbench.report.appendix import appendix_context
@@ -209,6 +209,7 @@ def report_context(result, *, include_ids: bool = False, figures: bool = True) -
     return {
         "d": d, "caution": CAUTION, "title": spec.name, "unit": unit, "horizons": horizons,
         "sections": SECTIONS, "summary": s, "spec": spec,
+        "followup": followup_text(s["median_followup"], s["median_followup_ci"], unit, s["max_followup"]),
         "methods": methods_paragraph(result, d).split("\n\n"),
         "validation_text": validation_text(result, d),
         "estimate_label": estimate_label(d),

@@ -24,13 +24,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from workbench.cohort.summary import followup_text
 from workbench.report.methods import (
     _censoring_clause,
     _imaging_sample_size,
     _interval_text,
     _join,
     _label,
-    _n,
     _steps_text,
     added_value_text,
     predictor_handling,
@@ -142,8 +142,7 @@ def _cohort_claims(result, d: dict) -> list[Claim]:
               f"patients censored at their last follow-up; {s['n_events']} events were observed and "
               f"{s['n_censored']} patients were censored."),
         Claim("outcome.followup", f"Median follow-up by the reverse Kaplan-Meier method was "
-              f"{_n(s['median_followup'])} {u} (95% CI {_n(s['median_followup_ci'][0])} to "
-              f"{_n(s['median_followup_ci'][1])})."),
+              f"{followup_text(s['median_followup'], s['median_followup_ci'], u, s['max_followup'])}."),
         Claim("outcome.horizons", f"Predictions were made at {_join(f'{h:g}' for h in spec.horizons)} {unit_after_list(spec.horizons, u)}."),
     ]
     return out

@@ -28,7 +28,7 @@ def test_median_not_reached_reads_without_a_unit(tmp_path, public_tables):
     assert line.startswith("Median survival: not reached within follow-up (95% CI ")
     assert "not reached weeks" not in text
     # the median follow-up is reached (52 weeks of administrative follow-up) and keeps its unit
-    assert "Median follow-up (reverse Kaplan-Meier): 52.0 weeks" in text
+    assert "Median follow-up (reverse Kaplan-Meier): 52 weeks" in text
     # 114 events over 2 imaging features: well above 10 per feature (common practice), so the summary
     # does not claim the signature needs penalisation
     assert "Events per imaging feature: 57.0\n" in text + "\n" and "needs penalisation" not in text

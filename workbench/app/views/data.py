@@ -234,8 +234,11 @@ def _summary(cohort, horizons) -> None:
     m[3].metric(f"Median follow-up ({u})", _fmt(summary.median_followup),
                 help="Reverse Kaplan-Meier (Schemper & Smith 1996): censoring treated as the event.")
     m[4].metric(f"Median survival ({u})", _fmt(summary.median_survival))
+    from workbench.cohort.summary import followup_text
+
     st.caption(
-        f"Median follow-up 95% CI {_fmt(summary.median_followup_ci[0])} to {_fmt(summary.median_followup_ci[1])} {u}; "
+        "Median follow-up "
+        f"{followup_text(summary.median_followup, summary.median_followup_ci, u, summary.max_followup)}; "
         f"longest follow-up {summary.max_followup:.1f} {u}. Median survival 95% CI "
         f"{_fmt(summary.median_survival_ci[0])} to {_fmt(summary.median_survival_ci[1])} {u}."
     )
