@@ -21,7 +21,12 @@ from workbench.cohort.summary import CohortSummary, summarise_cohort
 from workbench.errors import DataQualityWarning, SpecError, WorkbenchError
 from workbench.models.base import clone_model
 from workbench.models.collinearity import signature_collinearity, warn_level_order
-from workbench.models.labels import model_labels, warn_empty_signatures
+from workbench.models.labels import (
+    MODEL_LABELS,
+    design_column_words,
+    model_labels,
+    warn_empty_signatures,
+)
 from workbench.models.registry import build_models, candidate_parameters
 from workbench.models.signature import check_volume_dominance, volume_correlation
 from workbench.models.volume import VOLUME_MODEL
@@ -284,7 +289,8 @@ def run_study(
         for name, m in fitted.items():
             if hasattr(m, "ph_test"):
                 ph_tests[name] = m.ph_test(cohort)
-                warn_if_nonproportional(ph_tests[name])
+                warn_if_nonproportional(ph_tests[name], model=MODEL_LABELS.get(name, name),
+                                        labels=lambda col: design_column_words(spec.predictors, col))
         warn_empty_signatures(fitted)
         volume = {}
         if spec.imaging.volume_feature and spec.imaging.volume_feature in cohort.feature_names:

@@ -62,3 +62,25 @@ def warn_empty_signatures(models: dict) -> None:
             f"{MODEL_LABELS.get(name, name)} kept no imaging feature on all patients: {what}. "
             f"Its performance and comparisons say nothing about imaging; check the feature pool, {check}.",
             EmptySignatureWarning, stacklevel=2)
+
+
+def design_column_words(predictors, name: str) -> str:
+    """A design column as people read it: "Cell type (large)", "Age", "the imaging signature".
+
+    ``name`` is the column's name in the design ("celltype=large", "log2(cea_ng_ml)",
+    "cea_ng_ml:below_limit", "imaging_signature"); ``predictors`` the study's predictors,
+    whose labels name them. A name no predictor matches is returned as it is.
+    """
+    if name == "imaging_signature":
+        return "the imaging signature"
+    found = [p for p in predictors if p.column in name]
+    if not found:
+        return name
+    p = max(found, key=lambda q: len(q.column))  # the longest column name inside ``name``
+    label = p.label or p.column
+    _, eq, level = name.partition("=")
+    if eq:
+        return f"{label} ({level})"
+    if name.endswith(":below_limit"):
+        return f"{label} (below the detection limit)"
+    return label

@@ -263,17 +263,22 @@ def proportional_hazards_test(
     )
 
 
-def warn_if_nonproportional(result: PHTestResult, *, alpha: float = 0.05, stacklevel: int = 2) -> tuple[str, ...]:
+def warn_if_nonproportional(result: PHTestResult, *, alpha: float = 0.05, stacklevel: int = 2,
+                            labels=None, model: str = "") -> tuple[str, ...]:
     """Warn with :class:`ProportionalHazardsWarning` when a term's test has p < alpha.
 
     Returns the names of the flagged terms (plus "GLOBAL" when the global test
-    alone is below ``alpha``); an empty tuple means no warning was raised.
+    alone is below ``alpha``); an empty tuple means no warning was raised. ``labels``
+    (a function of a design-column name) words the terms for people; ``model`` names
+    the model in the message.
     """
     flagged = tuple(n for n, p in zip(result.names, result.p_value, strict=True) if p < alpha)
     if not flagged and result.global_p_value < alpha:
         flagged = ("GLOBAL",)
     if flagged:
-        which = "the model as a whole" if flagged == ("GLOBAL",) else _join(flagged)
+        words = [labels(n) if labels is not None else n for n in flagged]
+        which = "the model as a whole" if flagged == ("GLOBAL",) else _join(words)
+        which = f"{which} in the {model} model" if model else which
         warnings.warn(
             f"The effect of {which} seems to change over follow-up (proportional-hazards test, "
             f"p < {alpha:g}, time scale '{result.time_transform}'), so a single hazard ratio may "
