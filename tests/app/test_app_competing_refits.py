@@ -135,6 +135,10 @@ def test_refits_give_the_command_line_limits_for_every_patient_and_file(page, sm
     finally:
         refit_limits.refit_arms = real
     assert calls == [] and len(cache["refits"]) == 1
+    # the choices, the file and the refits come back after a visit to another page
+    at.switch_page("views/data.py").run()
+    at.switch_page("views/results.py").run()
+    assert at.radio(key="cpe_model").value == "combined" and [c.value for c in at.code] == [printed[1]]
     assert_clean(at)
 
 

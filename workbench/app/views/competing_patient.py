@@ -64,7 +64,8 @@ def show_estimate(est, *, source: str = "the patient's values") -> None:
     from workbench.plausibility import check_patient_scale
 
     pct = round(100 * est.cause_specific.conf_level)
-    st.markdown(f"**Estimate ({pct}% limits in brackets)**" if est.limits_method != "none" else "**Estimate**")
+    st.markdown(f"**Estimated risks** ({pct}% limits after each value)" if est.limits_method != "none"
+                else "**Estimated risks** (no limits: see the note below)")
     state.table(estimate_frame(est))
     ch = est.checks
     if ch.out_of_range:
@@ -81,6 +82,8 @@ def show_estimate(est, *, source: str = "the patient's values") -> None:
         st.caption("All values lie within the training data.")
     for t in ch.imputed:
         st.caption(plain(f"Imputed: {t}"))
+    if est.notes:
+        st.markdown("**Notes**")
     for note in est.notes:
         st.caption(plain(note))
     st.info(f"**Caution.** {est.caution}")

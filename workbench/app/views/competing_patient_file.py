@@ -33,6 +33,15 @@ REFITS_HELP = (
     "study takes about a second on one core.")
 
 
+def _against_default(reps: int) -> str:
+    if reps == DEFAULT_REFITS:
+        return " (the default)."
+    if reps < DEFAULT_REFITS:
+        return (f" instead of the default {DEFAULT_REFITS}: quicker, but limits that move more from one set of "
+                "refits to another.")
+    return f" instead of the default {DEFAULT_REFITS}: slower, and limits that move less from one set of refits to another."
+
+
 def _cache(result) -> dict:
     """The refits and estimates of this analysis (those of an earlier analysis are dropped)."""
     ss = st.session_state
@@ -121,31 +130,31 @@ def render_file(result, name: str, arm, ranges) -> None:
     if df is None:
         running_note()
         return
-    reps = int(st.number_input("Refits of the whole model for the limits", MIN_REFITS, 2000,
-                               int(ss.get(REPS, DEFAULT_REFITS)), step=10, key="cpe_refits", help=REFITS_HELP))
+    left, right = st.columns([1, 3], vertical_alignment="bottom")
+    reps = int(left.number_input("Refits of the whole model for the limits", MIN_REFITS, 2000,
+                                 int(ss.get(REPS, DEFAULT_REFITS)), step=10, key="cpe_refits", help=REFITS_HELP))
     ss[REPS] = reps
-    st.caption(f"{reps} refits" + (" (the default)." if reps == DEFAULT_REFITS else
-                                   f" instead of the default {DEFAULT_REFITS}: quicker, but limits that move more "
-                                   "from one set of refits to another.")
-               + " The refits belong to this analysis: every patient and every file is estimated from the same "
-                 "ones.")
+    right.caption(f"{reps} refits{_against_default(reps)} The refits belong to this analysis: every patient and "
+                  "every file is estimated from the same ones.")
     cache = _cache(result)
-    job = ss.get(JOB)
-    if job is not None and job.running:
-        progress.watch(job, cancel_label="Cancel the refits", key="cpe_refit_cancel", idle="Starting the refits...")
-        return
     _job_state(result, cache)
-    refits = cache["refits"].get((name, reps))
+    job = ss.get(JOB)
+    running = job is not None and job.running
+    refits = None if running else cache["refits"].get((name, reps))
     if refits is None:
-        if st.button(f"Check the patients' values and start {reps} refits", type="primary", key="cpe_refit_start"):
-            if _checked(result, name, arm, df, shown):
-                ss[JOB] = RefitJob((name, reps), result.spec, reps, int(result.spec.validation.workers),
-                                   analysis=result).start()
-                progress.watch(ss[JOB], cancel_label="Cancel the refits", key="cpe_refit_cancel",
-                               idle="Starting the refits...")
-            return
-        st.info(f"Every patient's values in {shown} are checked first; the estimates with their limits appear "
-                "when the refits are done.")
+        # the button stays (disabled while refits run), so the page keeps its layout under the progress bar
+        start = st.button(f"Check the patients' values and start {reps} refits", type="primary",
+                          key="cpe_refit_start", disabled=running)
+        if start and not running and _checked(result, name, arm, df, shown):
+            ss[JOB] = RefitJob((name, reps), result.spec, reps, int(result.spec.validation.workers),
+                               analysis=result).start()
+            st.rerun()  # the next run shows the button disabled above the progress
+        if running:
+            progress.watch(job, cancel_label="Cancel the refits", key="cpe_refit_cancel",
+                           idle="Starting the refits...")
+        elif not start:
+            st.info(f"Every patient's values in {shown} are checked first; the estimates with their limits "
+                    "appear when the refits are done.")
         return
     i = patient_file.pick_row(result, df, key="cpe_row")
     label = patient_file.row_labels(result, df)[i]
