@@ -19,6 +19,7 @@ import streamlit as st
 
 from workbench.app import state
 from workbench.app.messages import plain
+from workbench.app.views.patient_file import show_outside
 from workbench.units import time_phrase
 
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature"}
@@ -68,13 +69,7 @@ def show_estimate(est, *, source: str = "the patient's values") -> None:
                 else "**Estimated risks** (no limits: see the note below)")
     state.table(estimate_frame(est))
     ch = est.checks
-    if ch.out_of_range:
-        st.markdown("**Values outside the training data** (the model extrapolates there)")
-        for f in ch.flags:
-            st.warning(plain(f.message))
-        if ch.imaging_outside:
-            st.warning(f"{ch.imaging_outside} of {ch.imaging_checked} imaging features lie beyond the training "
-                       "1st-99th percentiles; furthest: " + plain("; ".join(f.message for f in ch.imaging_worst)))
+    if show_outside(ch):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # shown on the page instead
             state.show_warnings(check_patient_scale(ch, source=source))

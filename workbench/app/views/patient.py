@@ -11,7 +11,7 @@ import streamlit as st
 
 from workbench.app import charts, nomo, state, tables
 from workbench.app.messages import plain
-from workbench.app.views.patient_file import file_record
+from workbench.app.views.patient_file import file_record, show_outside
 from workbench.models.registry import offered_models
 from workbench.units import time_phrase
 
@@ -122,14 +122,7 @@ def _show(result, name: str, est, record: dict, score: float | None = None) -> N
         else:
             st.caption("No horizon of the study lies after this time.")
     ch = est.checks
-    if ch.out_of_range:
-        st.markdown("**Values outside the training data** (the model extrapolates there)")
-        for f in ch.flags:
-            st.warning(plain(f.message))
-        if ch.imaging_outside:
-            st.warning(f"{ch.imaging_outside} of {ch.imaging_checked} imaging features lie beyond the training "
-                       "1st-99th percentiles; furthest: " + plain("; ".join(f.message for f in ch.imaging_worst)))
-    else:
+    if not show_outside(ch):
         st.success("All values lie within the range of the training patients.")
     for t in ch.imputed:
         st.caption(f"Imputed: {t}")

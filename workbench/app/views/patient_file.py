@@ -1,5 +1,6 @@
 """Patients' values read from an uploaded file: the template of the columns a model needs, the
-reader, the check that every needed column is there, and the row picker.
+reader, the check that every needed column is there, the row picker; and the values outside the
+training data.
 
 Shared by the Patient page and the Results page's competing-risks patient subsection; ``key``
 keeps their widgets apart.
@@ -85,6 +86,20 @@ def row_record(df: pd.DataFrame, i: int) -> dict:
     """One row's values, blanks as None."""
     return {str(k): (None if v is None or (isinstance(v, str) and not v.strip()) or
                      (isinstance(v, float) and np.isnan(v)) else v) for k, v in df.iloc[int(i)].items()}
+
+
+def show_outside(ch) -> bool:
+    """The patient's values outside the training data (:class:`~workbench.estimate.PatientChecks`), as
+    warnings under one heading; True when there are any (both patient views)."""
+    if not ch.out_of_range:
+        return False
+    st.markdown("**Values outside the training data** (the model extrapolates there)")
+    for f in ch.flags:
+        st.warning(plain(f.message))
+    if ch.imaging_outside:
+        st.warning(f"{ch.imaging_outside} of {ch.imaging_checked} imaging features lie beyond the training "
+                   "1st-99th percentiles; furthest: " + plain("; ".join(f.message for f in ch.imaging_worst)))
+    return True
 
 
 def file_record(result, ranges, name: str) -> dict | None:
