@@ -24,6 +24,7 @@ JOB = "wb_competing_refit_job"
 CACHE = "wb_competing_refits"  # {"analysis": result, "refits": {(model, B): RefitBootstrap}, "estimates": {...}}
 FILE = "wb_competing_patient_file"  # (saved path, name as uploaded): the file outlives the uploader widget
 REPS = "wb_competing_refit_count"
+KEEP = 2  # sets of refits kept per analysis (one per model and number of refits)
 REFITS_HELP = (
     f"Each refit rebuilds the whole model (clinical terms, harmonisation, the signature's selection and weights, "
     f"the regressions) on a bootstrap sample of the patients; the limits come from how the refits' estimates "
@@ -110,7 +111,10 @@ def _job_state(result, cache: dict) -> None:
     if job is None or job.running:
         return
     if job.result is not None and job.analysis is result:
-        cache["refits"][job.key] = job.result
+        held = cache["refits"]
+        held[job.key] = job.result
+        for old in list(held)[:-KEEP]:  # a set of refits holds every refitted model: keep the latest few
+            del held[old]
     elif job.cancelled:
         st.warning(f"The refits were cancelled after {job.done} of {job.total}: no limits were computed. Start "
                    "them again when you need the limits.")
