@@ -258,3 +258,40 @@ def public_tables():
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
     return mod
+
+
+@pytest.fixture(scope="session")
+def small_competing_study(tmp_path_factory):
+    """The demo competing study (invented data, demo_cohort/study_competing.toml) cut to its first
+    150 patients and the 24 shape features (``morph_*``), without harmonisation, 3 folds, no external
+    cohort, one worker: 50 refits of the whole clinical + signature arm take seconds.
+
+    Returns (study path, folder); the folder holds ``two.csv``, two of its patients with every value
+    the combined model reads (clinical, scanner, shape features).
+    """
+    import tomllib
+
+    import tomli_w
+
+    demo = Path(__file__).resolve().parents[1] / "demo_cohort"
+    tmp = tmp_path_factory.mktemp("small_competing")
+    doc = tomllib.loads((demo / "study_competing.toml").read_text())
+    doc.pop("external", None)
+    doc["imaging"]["include"] = ["morph_*"]
+    doc["imaging"]["harmonise"] = {"method": "none"}
+    doc["imaging"]["penalty"]["folds"] = 3
+    doc["models"]["combined"] = {"prevalidation_folds": 3}
+    doc["validation"]["workers"] = 1
+    clinical = pd.read_csv(demo / "clinical.csv").iloc[:150]
+    imaging = pd.read_csv(demo / "imaging.csv")
+    imaging = imaging[imaging["patient_id"].isin(clinical["patient_id"])]
+    clinical.to_csv(tmp / "clinical.csv", index=False)
+    imaging.to_csv(tmp / "imaging.csv", index=False)
+    doc["data"]["clinical"], doc["data"]["features"] = str(tmp / "clinical.csv"), str(tmp / "imaging.csv")
+    path = tmp / "study.toml"
+    path.write_text(tomli_w.dumps(doc))
+    shown = ("age", "sex", "ecog", "stage", "cea_ng_ml")
+    rows = clinical.iloc[[3, 40]][["patient_id", *shown]].merge(imaging, on="patient_id")
+    keep = [*shown, "scanner", *(c for c in imaging.columns if c.startswith("morph_"))]
+    rows[keep].to_csv(tmp / "two.csv", index=False)
+    return path, tmp

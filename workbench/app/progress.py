@@ -22,7 +22,7 @@ def watch(job, *, cancel_label: str = "Cancel the run", key: str = "results_canc
         if job._cancel.is_set():
             text = "Stopping after the replicates under way..."
         elif job.total:
-            text = f"{job.message}: {job.done} of {job.total} replicates"
+            text = job.count_text()
         else:
             text = idle
         left = job.remaining()

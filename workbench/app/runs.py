@@ -150,6 +150,10 @@ class RunJob:
         if self._thread is not None:
             self._thread.join(seconds)
 
+    def count_text(self) -> str:
+        """How far the run is, for the progress bar."""
+        return f"{self.message}: {self.done} of {self.total} replicates"
+
 
 @dataclass
 class CompetingJob(RunJob):
@@ -171,6 +175,36 @@ class CompetingJob(RunJob):
 
     def _finished(self) -> None:
         pass  # nothing to export: the section draws its own figures
+
+
+@dataclass
+class RefitJob(RunJob):
+    """Refits of the clinical + signature arm of a competing-risks analysis for patients' limits
+    (:func:`workbench.competing.refit_limits.refit_arms` on the analysis's cohort, study and seed,
+    as ``workbench competing-estimate --refits`` makes them), in the background."""
+
+    analysis: object = None
+
+    def _compute(self):
+        from workbench.competing.refit_limits import refit_arms
+        from workbench.workflow import RunCancelled
+
+        a = self.analysis
+
+        def progress(done: int, total: int) -> None:
+            if self._cancel.is_set():
+                raise RunCancelled(f"the refits were stopped ({done} of {total} done).")
+            self._progress(done, total, "refit")
+
+        self._progress(0, self.replicates, "refit")
+        return refit_arms(a.cohort, a.spec, imaging=True, replicates=self.replicates,
+                          random_state=int(a.spec.seed), workers=self.workers, progress=progress)
+
+    def count_text(self) -> str:
+        return f"Refit {self.done} of {self.total}"
+
+    def _finished(self) -> None:
+        pass  # the refits are the result: the patient subsection keeps them with its analysis
 
 
 def run_key(spec: StudySpec, replicates: int, workers: int) -> tuple:

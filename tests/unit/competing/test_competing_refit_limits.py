@@ -1,8 +1,7 @@
 """Refit-bootstrap limits of a patient's absolute risks: the functions, the command line and its JSON.
 
-Data: the demo competing study (invented data, demo_cohort/study_competing.toml) cut to its
-first 150 patients and the 24 shape features (``morph_*``), without harmonisation and with
-3 folds, so that 50 refits of the whole arm take a few seconds. The interval forms are
+Data: the demo competing study (invented data) cut down so that 50 refits of the whole arm take
+a few seconds (``small_competing_study``, tests/conftest.py). The interval forms are
 checked against numpy's percentiles and the normal quantile of the standard library
 (statistics.NormalDist); coverage is measured in bench/bench_competing_patient.py.
 """
@@ -10,7 +9,6 @@ checked against numpy's percentiles and the normal quantile of the standard libr
 from __future__ import annotations
 
 import json
-import tomllib
 from pathlib import Path
 from statistics import NormalDist
 
@@ -44,29 +42,8 @@ CLINICAL = ("age", "sex", "ecog", "stage", "cea_ng_ml")
 
 
 @pytest.fixture(scope="module")
-def small(tmp_path_factory):
-    import tomli_w
-
-    tmp = tmp_path_factory.mktemp("refit")
-    doc = tomllib.loads((DEMO / "study_competing.toml").read_text())
-    doc.pop("external", None)
-    doc["imaging"]["include"] = ["morph_*"]
-    doc["imaging"]["harmonise"] = {"method": "none"}
-    doc["imaging"]["penalty"]["folds"] = 3
-    doc["models"]["combined"] = {"prevalidation_folds": 3}
-    clinical = pd.read_csv(DEMO / "clinical.csv").iloc[:150]
-    imaging = pd.read_csv(DEMO / "imaging.csv")
-    imaging = imaging[imaging["patient_id"].isin(clinical["patient_id"])]
-    clinical.to_csv(tmp / "clinical.csv", index=False)
-    imaging.to_csv(tmp / "imaging.csv", index=False)
-    doc["data"]["clinical"], doc["data"]["features"] = str(tmp / "clinical.csv"), str(tmp / "imaging.csv")
-    path = tmp / "study.toml"
-    path.write_text(tomli_w.dumps(doc))
-    # two patients of the cohort with every value the combined model reads
-    rows = clinical.iloc[[3, 40]][["patient_id", *CLINICAL]].merge(imaging, on="patient_id")
-    keep = [*CLINICAL, "scanner", *(c for c in imaging.columns if c.startswith("morph_"))]
-    rows[keep].to_csv(tmp / "two.csv", index=False)
-    return path, tmp
+def small(small_competing_study):
+    return small_competing_study
 
 
 def test_command_for_several_patients_and_json(small, capsys):

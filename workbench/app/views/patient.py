@@ -11,6 +11,7 @@ import streamlit as st
 
 from workbench.app import charts, nomo, state, tables
 from workbench.app.messages import plain
+from workbench.app.views.patient_file import file_record, show_outside
 from workbench.models.registry import offered_models
 from workbench.units import time_phrase
 
@@ -25,75 +26,6 @@ def _ranges(run_key: tuple, name: str, _result):
     return estimate.ranges_from_model(_result.models[name], training, name=name,
                                       batch_column=_result.spec.data.batch or "batch",
                                       time_unit=_result.validation.time_unit)
-
-
-def needed_columns(result, ranges) -> list[str]:
-    """Exactly the columns a patient file needs for this model: id, clinical predictors, scanner, imaging."""
-    cols = [result.spec.data.id]
-    cols += [c.column for c in ranges.clinical]
-    if ranges.harmonised:
-        cols.append(result.spec.data.batch or ranges.batch_column)
-    cols += list(ranges.imaging_features)
-    return list(dict.fromkeys(cols))
-
-
-def _template(result, ranges, name: str) -> None:
-    cols = needed_columns(result, ranges)
-    st.download_button(
-        f"Download a template for the patient file ({len(cols)} columns)", ",".join(cols) + "\n",
-        file_name=state.study_filename(result.spec, ".csv", f"{name}_patient_template"), mime="text/csv",
-        key=f"patient_template_{name}",
-        help="A CSV file with exactly the columns this model needs, one row per patient. Fill it in with a "
-             "spreadsheet program and upload it here.")
-
-
-def _read_patients(up) -> pd.DataFrame | None:
-    """The rows of an uploaded patient file (text kept as written; blanks become missing)."""
-    path = state.save_upload(up, "patient")
-    try:
-        if path.suffix.lower() in (".xlsx", ".xls"):
-            df = pd.read_excel(path, dtype=object)
-        else:
-            df = pd.read_csv(path, dtype=str, keep_default_na=False,
-                             sep="\t" if path.suffix.lower() == ".tsv" else ",")
-    except Exception as exc:  # noqa: BLE001 - any reading error is explained in words
-        st.error(plain(f"{up.name}: could not be read as a table ({state.friendly(str(exc))}). Save it as CSV "
-                       "(comma separated, UTF-8) or Excel, with the column names in the first row."))
-        return None
-    df = df.dropna(how="all")
-    df.columns = [str(c).strip() for c in df.columns]
-    if df.empty:
-        st.error(plain(f"{up.name} has a header row but no patient rows."))
-        return None
-    return df
-
-
-def _file_record(result, ranges, name: str) -> dict | None:
-    """One patient's values from an uploaded file with one or more patients."""
-    _template(result, ranges, name)
-    up = st.file_uploader("Patient file (CSV or Excel, one row per patient)", type=["csv", "tsv", "txt", "xlsx", "xls"],
-                          key="patient_file")
-    if up is None:
-        return None
-    df = _read_patients(up)
-    if df is None:
-        return None
-    need = needed_columns(result, ranges)[1:]
-    missing = [c for c in need if c not in df.columns]
-    if missing:
-        shown = ", ".join(missing[:8]) + (f" and {len(missing) - 8} more" if len(missing) > 8 else "")
-        st.error(plain(f"{up.name} lacks {len(missing)} column(s) this model needs: {shown}. "
-                       "Download the template above for the exact column names."))
-        return None
-    idc = result.spec.data.id
-    labels = [str(v) for v in df[idc]] if idc in df.columns else [f"row {i + 1}" for i in range(len(df))]
-    pick = 0
-    if len(df) > 1:
-        pick = st.selectbox(f"Patient ({len(df)} in the file)", range(len(df)), format_func=lambda i: labels[i],
-                            key="patient_row")
-    row = df.iloc[int(pick)]
-    return {str(k): (None if v is None or (isinstance(v, str) and not v.strip()) or
-                     (isinstance(v, float) and np.isnan(v)) else v) for k, v in row.items()}
 
 
 def _score_bounds(result, name: str) -> tuple[float, float] | None:
@@ -190,14 +122,7 @@ def _show(result, name: str, est, record: dict, score: float | None = None) -> N
         else:
             st.caption("No horizon of the study lies after this time.")
     ch = est.checks
-    if ch.out_of_range:
-        st.markdown("**Values outside the training data** (the model extrapolates there)")
-        for f in ch.flags:
-            st.warning(plain(f.message))
-        if ch.imaging_outside:
-            st.warning(f"{ch.imaging_outside} of {ch.imaging_checked} imaging features lie beyond the training "
-                       "1st-99th percentiles; furthest: " + plain("; ".join(f.message for f in ch.imaging_worst)))
-    else:
+    if not show_outside(ch):
         st.success("All values lie within the range of the training patients.")
     for t in ch.imputed:
         st.caption(f"Imputed: {t}")
@@ -276,7 +201,7 @@ def render() -> None:
                   help="A new patient starts empty: no value is taken from another patient. Imaging features "
                        "(hundreds of numbers) come from a file; or type the signature score itself.")
     if how == "file" or (imaging and not hasattr(model, "signature_score")):
-        base = _file_record(result, ranges, name)
+        base = file_record(result, ranges, name)
         if base is None:
             st.info("Upload a file with the patient's values (the template above has the columns).")
             return
