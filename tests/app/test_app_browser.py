@@ -22,7 +22,7 @@ import urllib.request
 from pathlib import Path
 
 import pytest
-from conftest import REPO
+from apphelpers import REPO
 
 from workbench.app import launch
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import APP_MAIN, DEMO, assert_clean, page_texts
+from apphelpers import APP_MAIN, DEMO, assert_clean, page_texts
 
 from workbench.app import state
 from workbench.study import read_study

@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import APP_MAIN, assert_clean, page_texts
+from apphelpers import APP_MAIN, assert_clean, page_texts
 
 from workbench.app import state
 from workbench.competing.analysis import run_competing

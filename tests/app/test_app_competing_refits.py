@@ -18,7 +18,7 @@ from types import SimpleNamespace
 
 import pandas as pd
 import pytest
-from conftest import APP_MAIN, assert_clean, page_texts
+from apphelpers import APP_MAIN, assert_clean, page_texts
 
 from workbench.app import state
 from workbench.study import read_study

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from conftest import DEMO, assert_clean, page_texts, static_tables
+from apphelpers import DEMO, assert_clean, page_texts, static_tables
 
 
 def _metric(at, label: str) -> str:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from conftest import DEMO, assert_clean
+from apphelpers import DEMO, assert_clean
 
 from workbench.app import state
 from workbench.study import dumps_study, read_study, study_from_dict

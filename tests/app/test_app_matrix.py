@@ -13,7 +13,7 @@ from __future__ import annotations
 import importlib.util
 
 import pytest
-from conftest import APP_MAIN, REPO, assert_clean, page_texts
+from apphelpers import APP_MAIN, REPO, assert_clean, page_texts
 
 from workbench.app import state
 from workbench.study import study_from_dict

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import assert_clean
+from apphelpers import assert_clean
 from public_data import gbsg2_frames
 
 from workbench.app import messages, roles, state

@@ -22,7 +22,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import test_app_browser as demo_browser
-from conftest import REPO
+from apphelpers import REPO
 from public_data import write_gbsg2
 from test_app_browser import RUN_TIMEOUT_MS, _act, _goto, _main, _no_traceback, _settle, _shot
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import replace
 
-from conftest import DEMO
+from apphelpers import DEMO
 
 from workbench.app.state import QUICK_PERMUTATIONS, quick_permutations
 from workbench.study import read_study

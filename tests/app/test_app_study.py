@@ -14,7 +14,7 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-from conftest import APP_MAIN, DEMO, REPO, assert_clean, page_texts, static_tables
+from apphelpers import APP_MAIN, DEMO, REPO, assert_clean, page_texts, static_tables
 
 from workbench.app import state
 from workbench.study import read_study, write_study
