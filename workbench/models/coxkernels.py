@@ -379,12 +379,12 @@ def sorted_centred_columns(X, order, mean):
 
 
 @njit(cache=True)
-def carry_hessian(G_old, pos):
-    """A matrix for a new working set holding the entries of ``G_old`` between features it
-    already covered (``pos[k]``: position of feature ``k`` in ``G_old``, -1 for a new one);
-    the rows and columns of new features are left for the caller to fill."""
+def carry_hessian(G_old, pos, G):
+    """Fill ``G`` (m x m, C order, not sharing memory with ``G_old``) for a new working set
+    with the entries of ``G_old`` between features it already covered (``pos[k]``: position
+    of feature ``k`` in ``G_old``, -1 for a new one); the rows and columns of new features
+    are left for the caller to fill."""
     m = pos.shape[0]
-    G = np.empty((m, m))
     for a in range(m):
         pa = pos[a]
         if pa < 0:
@@ -393,7 +393,6 @@ def carry_hessian(G_old, pos):
             pb = pos[b]
             if pb >= 0:
                 G[a, b] = G_old[pa, pb]
-    return G
 
 
 @njit(cache=True)
