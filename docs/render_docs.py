@@ -44,7 +44,8 @@ SOURCES = {
                      "docs/render_docs.py"),
     # screenshots: the app's own code, the figures it shows and the browser tests that take them
     "screenshots": ("workbench/app", "workbench/figures", "tests/app/test_app_browser.py",
-                    "tests/app/test_app_own_study_browser.py", "tests/app/public_data.py", "demo_cohort"),
+                    "tests/app/test_app_own_study_browser.py", "tests/app/test_app_competing_browser.py",
+                    "tests/app/public_data.py", "demo_cohort"),
 }
 """Source paths (folders are walked) whose content each target depends on, relative to the root."""
 
@@ -111,7 +112,8 @@ def _report_pages(result, out: Path) -> list[Path]:
 
 def _screenshots() -> None:
     env = {**os.environ, "WORKBENCH_SCREENSHOTS": str(ROOT / OUTPUTS["screenshots"])}
-    for test in ("tests/app/test_app_browser.py", "tests/app/test_app_own_study_browser.py"):
+    for test in ("tests/app/test_app_browser.py", "tests/app/test_app_own_study_browser.py",
+                 "tests/app/test_app_competing_browser.py"):
         subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider", test], cwd=ROOT, env=env,
                        check=True)
 
