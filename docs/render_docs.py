@@ -7,7 +7,7 @@ Run from the repository root (or ``./tasks.sh docs``):
 * ``docs/figures/``: every standard figure of the demo study (``render_demo_figures.py``);
 * ``docs/report_pages/``: the demo report printed to PDF by headless Chromium and cut into
   pages with ``pdftoppm -r 80`` (Debian package poppler-utils);
-* ``docs/screenshots/``: the two browser test files run with
+* ``docs/screenshots/``: the three browser test files run with
   ``WORKBENCH_SCREENSHOTS=docs/screenshots`` (Playwright and Chromium, several minutes).
 
 The demo study runs once, with ``--replicates`` bootstrap replicates (few: the pictures
