@@ -226,24 +226,40 @@ def _summary(cohort, horizons) -> None:
     inside = tuple(h for h in horizons if 0 < h <= float(cohort.time.max()))
     summary, warns = state.cohort_summary(cohort.source.data_hash, inside, cohort)
     u = summary.time_unit
+    d = state.current_data()
+    outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
+    # "survival" only where the event is death: a median time to relapse or to cGVHD is no survival time
+    median_words = "Median survival" if outcome == "death" else f"Median time to {outcome}"
+    competing = summary.n_competing or 0
     st.subheader("Cohort summary")
     m = st.columns(5)
     m[0].metric("Patients", summary.n_patients)
     m[1].metric("Events", summary.n_events, help=f"{100 * summary.n_events / summary.n_patients:.0f}% of patients")
-    m[2].metric("Censored", summary.n_censored)
+    if summary.n_competing is None:
+        m[2].metric("Censored", summary.n_censored)
+    else:  # the competing events are not censored observations: counted apart
+        m[2].metric("Competing / censored", f"{competing} / {summary.n_censored - competing}",
+                    help="Patients whose first event was a competing one / patients event-free at last follow-up.")
     m[3].metric(f"Median follow-up ({u})", _fmt(summary.median_followup),
                 help="Reverse Kaplan-Meier (Schemper & Smith 1996): censoring treated as the event.")
-    m[4].metric(f"Median survival ({u})", _fmt(summary.median_survival))
+    m[4].metric(f"{median_words} ({u})", _fmt(summary.median_survival))
     st.caption(
         f"Median follow-up 95% CI {_fmt(summary.median_followup_ci[0])} to {_fmt(summary.median_followup_ci[1])} {u}; "
-        f"longest follow-up {summary.max_followup:.1f} {u}. Median survival 95% CI "
+        f"longest follow-up {summary.max_followup:.1f} {u}. {median_words} 95% CI "
         f"{_fmt(summary.median_survival_ci[0])} to {_fmt(summary.median_survival_ci[1])} {u}."
     )
+    if summary.n_competing is not None:
+        codes = ", ".join(str(c) for c in (d.competing_codes or ())) if d else ""
+        st.warning(
+            f"{competing} patients ({100 * competing / summary.n_patients:.0f}%) had a competing event first"
+            f"{f' ({codes})' if codes else ''}. The Kaplan-Meier figures on this page count them as censored: "
+            "that is the cause-specific view, and one minus it overstates the risk of the event when competing "
+            "events are common. The competing-risks section of the Results page gives the cumulative incidence "
+            "of each cause."
+        )
     state.show_warnings(warns)
     left, right = st.columns([3, 2])
     with left:
-        d = state.current_data()
-        outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
         ylabel = "Overall survival" if outcome == "death" else f"Free of {outcome}"
         st.image(_km_png(cohort.source.data_hash, inside, u, ylabel, cohort), caption=f"Kaplan-Meier estimate of freedom from {outcome}, "
                  "with 95% confidence band")
