@@ -62,6 +62,18 @@ def test_short_survival_in_days_is_not_guessed_as_months():
     assert roles.guess_unit("time", pd.Series([0.2, 0.5, 1, 2, 5, 8.0])) == "years"
 
 
+def test_week_column_of_the_rossi_data_is_the_follow_up_time():
+    # lifelines' load_rossi: weeks to arrest in a column named "week" (lifelines' documentation); the
+    # time column was not found at all, so the page proposed none and a new user had to find it
+    from lifelines.datasets import load_rossi
+
+    rossi = load_rossi()
+    clinical = rossi.drop(columns=["prio"]).assign(patient_id=[f"R{i:03d}" for i in range(len(rossi))])
+    features = pd.DataFrame({"patient_id": clinical["patient_id"], "prio": rossi["prio"].astype(float)})
+    g = roles.guess_roles(clinical, features)
+    assert (g.time, g.time_unit, g.event) == ("week", "weeks", "arrest")
+
+
 def test_data_page_counts_competing_events_apart(new_app, cgvhd_frames):
     features, clinical, status = cgvhd_frames
     at = new_app(120).run()
@@ -85,10 +97,14 @@ def test_data_page_counts_competing_events_apart(new_app, cgvhd_frames):
     assert "Censored" not in metrics
     # the event is cGVHD, not death: no "median survival"
     assert not any(label.startswith("Median survival") for label in metrics)
-    assert "Median time to the event (years)" in metrics
+    assert "Median time (years)" in metrics
+    assert "Free of the event at the horizons" in [m.value.strip("*") for m in at.markdown]
     warned = " ".join(w.value for w in at.warning)
     assert f"{n_comp} patients" in warned and "count them as censored" in warned and "relapse, death" in warned
-    assert "Research use only" in " ".join(page_texts(at))
+    texts = " ".join(page_texts(at))
+    assert "Research use only" in texts
+    # events per imaging feature with one decimal, as events per clinical parameter (was "43.00")
+    assert f"{int((status == 1).sum()) / 2:.1f} per imaging feature" in texts
 
 
 def test_competing_section_words_metrics_and_units(cgvhd_frames, tmp_path):

@@ -16,7 +16,7 @@ import pandas as pd
 
 ID_WORDS = ("patient_id", "patientid", "pid", "patient", "subject", "case", "id", "record", "mrn")
 TIME_WORDS = ("time", "surv", "follow", "fu", "os", "pfs", "dfs", "rfs", "efs", "months", "days", "years",
-              "duration", "ttr", "tte")
+              "duration", "ttr", "tte", "weeks", "week", "month", "day")  # "week": lifelines' Rossi data
 EVENT_WORDS = ("event", "status", "cens", "death", "dead", "died", "vital", "relapse", "recur", "progress",
                "outcome", "fail")
 CENTRE_WORDS = ("centre", "center", "site", "hospital", "institution", "institute", "clinic")

@@ -242,7 +242,9 @@ def _summary(cohort, horizons) -> None:
                     help="Patients whose first event was a competing one / patients event-free at last follow-up.")
     m[3].metric(f"Median follow-up ({u})", _fmt(summary.median_followup),
                 help="Reverse Kaplan-Meier (Schemper & Smith 1996): censoring treated as the event.")
-    m[4].metric(f"{median_words} ({u})", _fmt(summary.median_survival))
+    # the metric's label stays short enough for its column ("Median time to the event (years)" was cut off)
+    m[4].metric(f"Median survival ({u})" if outcome == "death" else f"Median time ({u})", _fmt(summary.median_survival),
+                help=None if outcome == "death" else f"Median time to {outcome} (Kaplan-Meier).")
     st.caption(
         f"Median follow-up 95% CI {_fmt(summary.median_followup_ci[0])} to {_fmt(summary.median_followup_ci[1])} {u}; "
         f"longest follow-up {summary.max_followup:.1f} {u}. {median_words} 95% CI "
@@ -265,11 +267,13 @@ def _summary(cohort, horizons) -> None:
                  "with 95% confidence band")
     with right:
         if summary.horizons:
-            st.markdown("**Survival at the horizons**")
+            free = "Survival" if outcome == "death" else "Event-free"
+            title = "Survival at the horizons" if outcome == "death" else f"Free of {outcome} at the horizons"
+            st.markdown(f"**{title}**")
             show_table(_frame(
                 [(time_phrase(h.horizon, u), f"{100 * h.survival:.1f}%",
                   f"{100 * h.ci_lower:.1f} to {100 * h.ci_upper:.1f}", h.at_risk) for h in summary.horizons],
-                ["Horizon", "Survival", "95% CI (%)", "At risk"]), label="Survival at the horizons")
+                ["Horizon", free, "95% CI (%)", "At risk"]), label=title)
         skipped = [h for h in horizons if h not in inside]
         if skipped:
             st.caption(f"Horizons beyond the longest follow-up are left out: {', '.join(f'{h:g}' for h in skipped)}.")
@@ -304,7 +308,7 @@ def _summary(cohort, horizons) -> None:
         st.write(
             f"{summary.events_per_clinical_parameter:.1f} events per candidate clinical parameter "
             f"({summary.n_events} events / {summary.n_clinical_parameters} parameters); "
-            + (f"{summary.events_per_feature:.2f} per imaging feature, which is why the signature needs "
+            + (f"{summary.events_per_feature:.1f} per imaging feature, which is why the signature needs "
                "penalisation and honest validation." if summary.n_features else "no imaging features.")
         )
         st.markdown("**Minimum sample size** (Riley et al. 2019/2020)")
