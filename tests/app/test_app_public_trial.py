@@ -107,6 +107,35 @@ def test_data_page_counts_competing_events_apart(new_app, cgvhd_frames):
     assert f"{int((status == 1).sum()) / 2:.1f} per imaging feature" in texts
 
 
+def test_first_edit_of_proposed_horizons_in_years_is_kept(new_app, cgvhd_frames):
+    # cgvhd's follow-up is in years: the proposed horizons were 0.30000000000000004, 0.4, 0.5, shown as
+    # "0.3, 0.4, 0.5"; the value read back differed, the horizons box was replaced on the next run and
+    # the user's first edit was lost (seen in the browser: a study run at 0.3/0.4/0.5 after typing 0.5, 1)
+    features, clinical, status = cgvhd_frames
+    proposed = roles.propose_horizons(clinical["years"], status > 0, "years")
+    assert proposed and all(float(f"{h:g}") == h for h in proposed), proposed
+    at = new_app(120).run()
+    at.radio(key="data_source").set_value("upload").run()
+    at.file_uploader(key="upload_features").set_value(("f.csv", features.to_csv(index=False).encode(), "text/csv"))
+    at.file_uploader(key="upload_clinical").set_value(("c.csv", clinical.to_csv(index=False).encode(), "text/csv"))
+    at = at.run()
+    at.multiselect(key="map_event_codes").set_value(["cgvhd"])
+    at = at.run()
+    at.multiselect(key="map_competing_codes").set_value(["relapse", "death"])
+    at = at.run()
+    at = at.button(key="map_confirm").click().run()
+    at.switch_page("views/design.py").run()
+
+    def box():
+        return next(t for t in at.text_input if t.label == "Horizons (years, comma separated)")
+
+    box().set_value("0.5, 1").run()
+    at.run()  # any later rerun (another widget, another page) keeps the typed horizons
+    assert_clean(at)
+    assert box().value == "0.5, 1"
+    assert tuple(at.session_state[state.K_STUDY].horizons) == (0.5, 1.0)
+
+
 def test_competing_section_words_metrics_and_units(cgvhd_frames, tmp_path):
     from workbench.app.views.competing import (
         corrected_table,

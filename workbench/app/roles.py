@@ -210,7 +210,10 @@ def _nice(x: float) -> float:
         return 0.0
     mag = 10 ** math.floor(math.log10(x))
     steps = np.array([1, 1.2, 1.5, 2, 2.5, 3, 4, 5, 6, 8, 10]) * mag
-    return float(steps[np.argmin(np.abs(steps - x))])
+    # as written (3 * 0.1 is 0.30000000000000004): the Design page shows a horizon as "0.3" and reads it
+    # back; a proposal that did not survive that round trip counted as typed by the user, which replaced
+    # the horizons box and lost the user's first edit
+    return float(f"{steps[np.argmin(np.abs(steps - x))]:.10g}")
 
 
 def propose_horizons(time, event, unit: str) -> tuple[float, ...]:
