@@ -174,3 +174,12 @@ def test_data_page_of_a_study_without_competing_codes_is_unchanged(new_app):
     labels = [m.label for m in at.metric]
     assert "Censored" in labels and any(x.startswith("Median survival") for x in labels)
     assert state.DEMO_NOTE == at.session_state[state.K_STUDY_NOTE]
+
+
+def test_stability_sentence_when_no_refit_kept_a_feature():
+    # cgvhd: age and log(age) as the pool; no refit kept either (the Signature page read
+    # "5 refits kept between 0 and 0 features (median 0)" above an empty table)
+    from workbench.app.views.signature import kept_words
+
+    assert kept_words([0, 0, 0, 0, 0], 5) == "None of the 5 refits kept a feature."
+    assert kept_words([1, 2, 4], 3) == "3 refits kept between 1 and 4 features (median 2)."
