@@ -183,3 +183,29 @@ def test_stability_sentence_when_no_refit_kept_a_feature():
 
     assert kept_words([0, 0, 0, 0, 0], 5) == "None of the 5 refits kept a feature."
     assert kept_words([1, 2, 4], 3) == "3 refits kept between 1 and 4 features (median 2)."
+
+
+def test_veterans_data_page_in_days_and_unreached_median_follow_up(new_app):
+    # scikit-survival's veterans data: survival in days (its own column name); 9 of 137 censored, so the
+    # reverse Kaplan-Meier never falls to one half: the median follow-up and its interval are not reached
+    from sksurv.datasets import load_veterans_lung_cancer
+
+    X, y = load_veterans_lung_cancer()
+    ids = [f"V{i:03d}" for i in range(len(X))]
+    clinical = pd.DataFrame({"patient_id": ids, "time": y["Survival_in_days"], "event": y["Status"].astype(int),
+                             "age": X["Age_in_years"].to_numpy(float), "celltype": X["Celltype"].astype(str)})
+    features = pd.DataFrame({"patient_id": ids, "karnofsky": X["Karnofsky_score"].to_numpy(float)})
+    at = new_app(120).run()
+    at.radio(key="data_source").set_value("upload").run()
+    at.file_uploader(key="upload_features").set_value(("f.csv", features.to_csv(index=False).encode(), "text/csv"))
+    at.file_uploader(key="upload_clinical").set_value(("c.csv", clinical.to_csv(index=False).encode(), "text/csv"))
+    at = at.run()
+    assert at.selectbox(key="map_unit").value == "days"
+    at = at.button(key="map_confirm").click().run()
+    assert_clean(at)
+    metrics = {m.label: str(m.value) for m in at.metric}
+    assert metrics["Censored"] == str(int((~y["Status"]).sum())) == "9"
+    assert metrics["Median follow-up (days)"] == "not reached"
+    captions = " ".join(c.value for c in at.caption)
+    assert "Median follow-up 95% CI not estimable;" in captions and "not reached to not reached" not in captions
+    assert "longest follow-up 999.0 days" in captions

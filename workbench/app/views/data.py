@@ -214,6 +214,14 @@ def _fmt(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+def _ci(lo: float, hi: float, unit: str) -> str:
+    """A median's 95% interval in words; "not estimable" when neither end is reached (not "not reached to
+    not reached"), and the unit after a number only."""
+    if not np.isfinite(lo) and not np.isfinite(hi):
+        return "not estimable"
+    return f"{_fmt(lo)} to {_fmt(hi)}" + (f" {unit}" if np.isfinite(hi) else "")
+
+
 @st.cache_data(show_spinner=False, max_entries=8)
 def _km_png(data_hash: str, horizons: tuple, time_unit: str, ylabel: str, _cohort) -> bytes:
     """The cohort's Kaplan-Meier figure as PNG, drawn once per table content, horizons and labels."""
@@ -246,9 +254,9 @@ def _summary(cohort, horizons) -> None:
     m[4].metric(f"Median survival ({u})" if outcome == "death" else f"Median time ({u})", _fmt(summary.median_survival),
                 help=None if outcome == "death" else f"Median time to {outcome} (Kaplan-Meier).")
     st.caption(
-        f"Median follow-up 95% CI {_fmt(summary.median_followup_ci[0])} to {_fmt(summary.median_followup_ci[1])} {u}; "
+        f"Median follow-up 95% CI {_ci(*summary.median_followup_ci, u)}; "
         f"longest follow-up {summary.max_followup:.1f} {u}. {median_words} 95% CI "
-        f"{_fmt(summary.median_survival_ci[0])} to {_fmt(summary.median_survival_ci[1])} {u}."
+        f"{_ci(*summary.median_survival_ci, u)}."
     )
     if summary.n_competing is not None:
         codes = ", ".join(str(c) for c in (d.competing_codes or ())) if d else ""
