@@ -13,6 +13,7 @@ from apphelpers import APP_MAIN, DEMO, assert_clean, page_texts
 
 from workbench.app import state
 from workbench.study import read_study
+from workbench.units import time_phrase
 
 pytestmark = pytest.mark.slow  # two competing-risks analyses of the demo (about a minute)
 REPS = 2
@@ -51,12 +52,12 @@ def test_results_page_runs_the_competing_analysis_with_the_library_numbers(compe
     assert "Competing risks" in [h.value for h in at.header]
     ref = run_competing(read_study(DEMO / "study_competing.toml"), replicates=REPS)
     frames = [d.value for d in at.dataframe]
-    corrected = next(f for f in frames if "Brier 12" in f.columns)
+    corrected = next(f for f in frames if "Brier 12 months" in f.columns)
     diff = corrected[(corrected["Model"] == "Difference (signature added)")
                      & (corrected["Outcome"] == "cause of interest") & (corrected["Fitted by"] == "cause-specific Cox")]
     want = ref.corrected[("cause", "combined_minus_clinical", "cause_specific")]["auc"]
-    assert [diff.iloc[0][f"AUC {t:g}"] for t in ref.horizons] == [f"{x:.3f}" for x in want]
-    external = next(f for f in frames if "AUC 12" in f.columns and "Brier 12" not in f.columns)
+    assert [diff.iloc[0][f"AUC {time_phrase(t, 'months')}"] for t in ref.horizons] == [f"{x:.3f}" for x in want]
+    external = next(f for f in frames if "AUC 12 months" in f.columns and "Brier 12 months" not in f.columns)
     assert len(external) == len(ref.external)  # one row per target, model and method
     c = ref.cohort
     assert f"{int(np.sum(c.cause == 1))} events of interest, {int(np.sum(c.cause == 2))} competing" in texts

@@ -18,6 +18,7 @@ from apphelpers import APP_MAIN, assert_clean, page_texts
 from workbench.app import state
 from workbench.competing.analysis import run_competing
 from workbench.study import study_from_dict
+from workbench.units import time_phrase
 
 pytestmark = pytest.mark.slow  # one competing-risks analysis with 10 replicates (about 15 s)
 REPS = 10
@@ -59,12 +60,12 @@ def test_section_names_the_empty_signature_the_outcome_and_why_no_interval(cgvhd
     assert any("signature kept no imaging feature" in w and w[0].isupper() for w in warnings), warnings
     texts = " ".join(page_texts(at))
     frames = [d.value for d in at.dataframe]
-    corrected = next(f for f in frames if "Brier 0.5" in f.columns)
+    corrected = next(f for f in frames if "Brier 0.5 years" in f.columns)
     assert "first event of any cause" in set(corrected["Outcome"]) and "death" not in " ".join(corrected["Outcome"])
     want = ref.corrected[("cause", "clinical", "cause_specific")]["auc"]
     row = corrected[(corrected["Model"] == "Clinical") & (corrected["Fitted by"] == "cause-specific Cox")
                     & (corrected["Outcome"] == "cause of interest")].iloc[0]
-    assert [row[f"AUC {t:g}"] for t in ref.horizons] == [f"{x:.3f}" for x in want]
+    assert [row[f"AUC {time_phrase(t, 'years')}"] for t in ref.horizons] == [f"{x:.3f}" for x in want]
     # 100 patients: below every interval floor, and the caption says that, not "fewer than 10 replicates"
     assert "No intervals. Without an interval:" in texts and "this cohort has 100" in texts
     assert "fewer than 10 bootstrap replicates" not in texts

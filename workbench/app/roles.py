@@ -16,7 +16,7 @@ import pandas as pd
 
 ID_WORDS = ("patient_id", "patientid", "pid", "patient", "subject", "case", "id", "record", "mrn")
 TIME_WORDS = ("time", "surv", "follow", "fu", "os", "pfs", "dfs", "rfs", "efs", "months", "days", "years",
-              "duration", "ttr", "tte")
+              "duration", "ttr", "tte", "weeks", "week", "month", "day")  # "week": lifelines' Rossi data
 EVENT_WORDS = ("event", "status", "cens", "death", "dead", "died", "vital", "relapse", "recur", "progress",
                "outcome", "fail")
 CENTRE_WORDS = ("centre", "center", "site", "hospital", "institution", "institute", "clinic")
@@ -105,20 +105,42 @@ def guess_time(clinical: pd.DataFrame, taken=()) -> str | None:
     return _pick(scores)
 
 
+MAX_EVENT_LEVELS = 8
+"""An event column named like one (status, event...) may hold up to this many codes: censored, the
+event and competing events such as relapse and death (a rule of thumb: more look like a measurement)."""
+
+
 def guess_event(clinical: pd.DataFrame, taken=()) -> str | None:
+    """The event column: two-valued columns, and columns named like an event with a few codes.
+
+    A competing-risks status (censored / event / relapse / death) has more than two values;
+    taking only two-valued columns once proposed a two-valued diagnosis column instead.
+    """
     scores = {}
     for c in clinical.columns:
         if c in taken:
             continue
         n = len(_levels(clinical[c]))
+        name = _score(c, EVENT_WORDS)
         if n == 2:
-            scores[c] = _score(c, EVENT_WORDS) + 10
+            scores[c] = name + 10
+        elif 2 < n <= MAX_EVENT_LEVELS and name > 0 and not _is_numeric(clinical[c]):
+            scores[c] = name
     return _pick(scores)
 
 
 def guess_codes(levels: list[str]) -> tuple[tuple[str, ...], tuple[str, ...]]:
-    """(event codes, censoring codes) for a two-valued event column; empty for 0/1 and true/false."""
-    if {x.lower() for x in levels} <= BINARY or len(levels) != 2:
+    """(event codes, censoring codes) for a two-valued event column; empty for 0/1 and true/false.
+
+    With more than two codes (an event and competing events) only the censoring code is
+    suggested: which code is the event of interest is the user's choice.
+    """
+    if {x.lower() for x in levels} <= BINARY:
+        return (), ()
+    if len(levels) > 2:
+        cz = [x for x in levels if _score(x, CENSOR_CODE_WORDS) > 0]
+        return (), tuple(cz) if len(cz) == 1 else ()
+    if len(levels) != 2:
         return (), ()
     ev = [x for x in levels if _score(x, EVENT_CODE_WORDS) > 0 and _score(x, CENSOR_CODE_WORDS) == 0]
     cz = [x for x in levels if _score(x, CENSOR_CODE_WORDS) > 0]
@@ -129,6 +151,12 @@ def guess_codes(levels: list[str]) -> tuple[tuple[str, ...], tuple[str, ...]]:
     if len(cz) == 1:
         return tuple(x for x in levels if x != cz[0]), (cz[0],)
     return (), ()
+
+
+MAX_GUESS_YEARS = 40.0
+"""Longest follow-up believed when the unit is guessed from the values alone (rule of thumb: few
+clinical cohorts follow anyone for more than 40 years); cohort/followup.py refuses only beyond a lifetime."""
+_PER_YEAR = {"days": 365.25, "weeks": 365.25 / 7.0, "months": 12.0, "years": 1.0}  # as cohort.core.TIME_UNITS
 
 
 def guess_unit(name: str | None, values: pd.Series | None) -> str | None:
@@ -145,7 +173,13 @@ def guess_unit(name: str | None, values: pd.Series | None) -> str | None:
         return None
     med = float(v.median())
     # common practice for unlabelled follow-up: hundreds are days, tens are months, single figures years
-    return "days" if med > 200 else "months" if med > 15 else "years"
+    unit = "days" if med > 200 else "months" if med > 15 else "years"
+    # ... unless the longest time would then be a follow-up of more than MAX_GUESS_YEARS: a cohort with
+    # short survival (veterans' lung cancer: median 80, longest 999) is in days, not months
+    longest = float(v.max())
+    if unit != "days" and longest / _PER_YEAR[unit] > MAX_GUESS_YEARS:
+        unit = "days" if longest / _PER_YEAR["months"] > MAX_GUESS_YEARS else "months"
+    return unit
 
 
 def guess_roles(clinical: pd.DataFrame, features: pd.DataFrame) -> RoleGuess:
@@ -176,7 +210,10 @@ def _nice(x: float) -> float:
         return 0.0
     mag = 10 ** math.floor(math.log10(x))
     steps = np.array([1, 1.2, 1.5, 2, 2.5, 3, 4, 5, 6, 8, 10]) * mag
-    return float(steps[np.argmin(np.abs(steps - x))])
+    # as written (3 * 0.1 is 0.30000000000000004): the Design page shows a horizon as "0.3" and reads it
+    # back; a proposal that did not survive that round trip counted as typed by the user, which replaced
+    # the horizons box and lost the user's first edit
+    return float(f"{steps[np.argmin(np.abs(steps - x))]:.10g}")
 
 
 def propose_horizons(time, event, unit: str) -> tuple[float, ...]:

@@ -140,8 +140,8 @@ INTERVAL_METRICS: tuple[str, ...] = ("auc", "brier", "ipa")
 INTERVAL_ARMS = tuple(INTERVAL_CELLS)
 NO_INTERVAL = "no interval: not proven by simulation for this metric or model"
 _ICI = ("no interval: in simulation the interval of the validated ICI's combined-minus-clinical difference missed "
-        "the truth too often (coverage down to 0.88 against 0.95 with 300 patients, to 0.80 with fewer deaths from "
-        "the cause), and with 150 patients the validated ICI overstated the miscalibration by 0.03 to 0.04")
+        "the truth too often (coverage down to 0.88 against 0.95 with 300 patients, to 0.80 with fewer events of "
+        "the cause of interest), and with 150 patients the validated ICI overstated the miscalibration by 0.03 to 0.04")
 WITHHELD: dict[tuple[str, str, str], str] = {
     ("cause", "cause_specific", "ici"): _ICI, ("cause", "fine_gray", "ici"): _ICI,
     ("all_cause", "cause_specific", "ici"): _ICI,

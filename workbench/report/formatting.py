@@ -25,6 +25,11 @@ def fmt_num(x, digits: int = 3) -> str:
     return f"{x:.{digits}f}".replace("-", "\u2212") if _finite(x) else "n/a"
 
 
+def fmt_time(x) -> str:
+    """A horizon or time as written in the study (0.5, 1, 730), or "n/a"."""
+    return f"{x:g}".replace("-", "\u2212") if _finite(x) else "n/a"
+
+
 def fmt_sig(x, digits: int = 6) -> str:
     """A number to ``digits`` significant digits (reproduction parameters of very different sizes), or "n/a"."""
     return f"{x:.{digits}g}".replace("-", "\u2212") if _finite(x) else "n/a"

@@ -45,6 +45,7 @@ from workbench.report.formatting import (  # noqa: F401  (re-exported)
     fmt_num,
     fmt_p,
     fmt_sig,
+    fmt_time,
     metric_label,
 )
 from workbench.report.methods import (
@@ -59,6 +60,7 @@ from workbench.report.methods import (
 from workbench.report.pdf import print_pdf
 from workbench.report.report_figures import FIGURE_SLOTS, _figures  # noqa: F401  (re-exported)
 from workbench.report.results import results_dict
+from workbench.units import time_phrase
 
 TEMPLATES = Path(__file__).with_name("templates")
 
@@ -246,7 +248,9 @@ def _environment() -> jinja2.Environment:
     env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
                              autoescape=jinja2.select_autoescape(["html", "j2"]), undefined=jinja2.StrictUndefined,
                              trim_blocks=True, lstrip_blocks=True)
-    env.filters.update(num=fmt_num, sig=fmt_sig, p=fmt_p, css_string=_css_string, label=_label)
+    # horizons and times as written ("0.5", "1 year"): fixed decimals printed a half-year horizon as "0"
+    env.filters.update(num=fmt_num, sig=fmt_sig, p=fmt_p, css_string=_css_string, label=_label, hz=fmt_time,
+                       when=time_phrase)
     return env
 
 

@@ -8,6 +8,8 @@ apart from the main study run, and kept for the study and number of replicates i
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import streamlit as st
@@ -15,14 +17,37 @@ import streamlit as st
 from workbench.app import charts, state
 from workbench.competing.estimates import INTERVAL_CELLS, INTERVAL_ESTIMATORS, INTERVAL_RULE
 from workbench.report.competing import withheld_lines
+from workbench.units import time_phrase
 
 # "all-cause" is the first event of any cause: death from any cause only when every code is a death
 TARGET_WORDS = {"cause": "cause of interest", "all_cause": "first event of any cause"}
 MODEL_WORDS = {"clinical": "Clinical", "combined": "Clinical + signature",
                "combined_minus_clinical": "Difference (signature added)"}
 METHOD_WORDS = {"cause_specific": "cause-specific Cox", "fine_gray": "Fine-Gray"}
+# the metric functions name themselves at the start of their warnings; people read what was measured
+METRIC_WORDS = {"competing_auc": "AUC for the cause of interest", "competing_brier": "Brier score",
+                "competing_grouped_calibration": "Calibration by risk group",
+                "competing_smoothed_calibration": "Calibration curve (ICI)",
+                "competing_net_benefit": "Decision curve"}
+_PREFIX = re.compile(r"^([a-z][a-z0-9]*(?:_[a-z0-9]+)+):\s+")
+_HORIZON = re.compile(r"\b(horizons?) (\d+(?:\.\d+)?)(?![\d.]| ?(?:days?|weeks?|months?|years?)\b)")
 KEY = "wb_competing_result"
 JOB = "wb_competing_job"
+
+
+def _unit(result) -> str:
+    return result.spec.data.time_unit
+
+
+def warning_text(message: str, unit: str) -> str:
+    """A warning of the analysis for people: the metric in words instead of its function's name,
+    a horizon with its time unit ("the horizon 1 year", not "the horizon 1")."""
+    text = str(message)
+    m = _PREFIX.match(text)
+    if m:
+        text = f"{METRIC_WORDS.get(m.group(1), m.group(1).replace('_', ' '))}: {text[m.end():]}"
+    text = _HORIZON.sub(lambda h: f"{h.group(1)} {time_phrase(float(h.group(2)), unit)}", text)
+    return text[:1].upper() + text[1:]
 
 
 def _fmt(x: float, lo: float | None = None, hi: float | None = None) -> str:
@@ -44,7 +69,7 @@ def corrected_table(result) -> pd.DataFrame:
             for j, t in enumerate(result.horizons):
                 lo = float(lower[m][j]) if m in lower else None
                 hi = float(upper[m][j]) if m in upper else None
-                row[f"{label} {t:g}"] = _fmt(float(v[m][j]), lo, hi)
+                row[f"{label} {time_phrase(t, _unit(result))}"] = _fmt(float(v[m][j]), lo, hi)
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -73,7 +98,8 @@ def external_table(result) -> pd.DataFrame | None:
                "Fitted by": METHOD_WORDS.get(method, method)}
         a = block["auc"]
         for j, t in enumerate(result.horizons):
-            row[f"AUC {t:g}"] = _fmt(float(a["estimate"][j]), float(a["lower"][j]), float(a["upper"][j]))
+            row[f"AUC {time_phrase(t, _unit(result))}"] = _fmt(float(a["estimate"][j]), float(a["lower"][j]),
+                                                                float(a["upper"][j]))
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -88,7 +114,7 @@ def incidence_table(result) -> pd.DataFrame:
         est, lo, hi = incidence_at(result.incidence, result.horizons, cause=k)
         row = {"Cause": labels.get(k, str(k))}
         for t, e, a, b in zip(result.horizons, est, lo, hi, strict=True):
-            row[f"By {t:g}"] = _fmt(float(e), float(a), float(b))
+            row[f"By {time_phrase(t, _unit(result))}"] = _fmt(float(e), float(a), float(b))
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -160,7 +186,7 @@ def render_section(spec) -> None:
                f"competing, {int(np.sum(c.cause == 0))} censored; {result.replicates} bootstrap replicates "
                f"({result.failed} failed).")
     for category, message in result.warnings:  # as the command line prints them
-        st.warning(f"{message[:1].upper()}{message[1:]} ({category})")
+        st.warning(f"{warning_text(message, _unit(result))} ({category})")
     st.subheader("Cumulative incidence (Aalen-Johansen, 95% interval)")
     state.table(incidence_table(result))
     st.subheader("Validated performance")

@@ -214,6 +214,14 @@ def _fmt(x: float) -> str:
     return "not reached" if not np.isfinite(x) else f"{x:.1f}"
 
 
+def _ci(lo: float, hi: float, unit: str) -> str:
+    """A median's 95% interval in words; "not estimable" when neither end is reached (not "not reached to
+    not reached"), and the unit after a number only."""
+    if not np.isfinite(lo) and not np.isfinite(hi):
+        return "not estimable"
+    return f"{_fmt(lo)} to {_fmt(hi)}" + (f" {unit}" if np.isfinite(hi) else "")
+
+
 @st.cache_data(show_spinner=False, max_entries=8)
 def _km_png(data_hash: str, horizons: tuple, time_unit: str, ylabel: str, _cohort) -> bytes:
     """The cohort's Kaplan-Meier figure as PNG, drawn once per table content, horizons and labels."""
@@ -226,37 +234,57 @@ def _summary(cohort, horizons) -> None:
     inside = tuple(h for h in horizons if 0 < h <= float(cohort.time.max()))
     summary, warns = state.cohort_summary(cohort.source.data_hash, inside, cohort)
     u = summary.time_unit
+    d = state.current_data()
+    outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
+    # "survival" only where the event is death: a median time to relapse or to cGVHD is no survival time
+    median_words = "Median survival" if outcome == "death" else f"Median time to {outcome}"
+    competing = summary.n_competing or 0
     st.subheader("Cohort summary")
     m = st.columns(5)
     m[0].metric("Patients", summary.n_patients)
     m[1].metric("Events", summary.n_events, help=f"{100 * summary.n_events / summary.n_patients:.0f}% of patients")
-    m[2].metric("Censored", summary.n_censored)
+    if summary.n_competing is None:
+        m[2].metric("Censored", summary.n_censored)
+    else:  # the competing events are not censored observations: counted apart
+        m[2].metric("Competing / censored", f"{competing} / {summary.n_censored - competing}",
+                    help="Patients whose first event was a competing one / patients event-free at last follow-up.")
     m[3].metric(f"Median follow-up ({u})", _fmt(summary.median_followup),
                 help="Reverse Kaplan-Meier (Schemper & Smith 1996): censoring treated as the event.")
-    m[4].metric(f"Median survival ({u})", _fmt(summary.median_survival))
+    # the metric's label stays short enough for its column ("Median time to the event (years)" was cut off)
+    m[4].metric(f"Median survival ({u})" if outcome == "death" else f"Median time ({u})", _fmt(summary.median_survival),
+                help=None if outcome == "death" else f"Median time to {outcome} (Kaplan-Meier).")
     from workbench.cohort.summary import followup_text
 
     st.caption(
         "Median follow-up "
         f"{followup_text(summary.median_followup, summary.median_followup_ci, u, summary.max_followup)}; "
-        f"longest follow-up {summary.max_followup:.1f} {u}. Median survival 95% CI "
-        f"{_fmt(summary.median_survival_ci[0])} to {_fmt(summary.median_survival_ci[1])} {u}."
+        f"longest follow-up {summary.max_followup:.1f} {u}. {median_words} 95% CI "
+        f"{_ci(*summary.median_survival_ci, u)}."
     )
+    if summary.n_competing is not None:
+        codes = ", ".join(str(c) for c in (d.competing_codes or ())) if d else ""
+        st.warning(
+            f"{competing} patients ({100 * competing / summary.n_patients:.0f}%) had a competing event first"
+            f"{f' ({codes})' if codes else ''}. The Kaplan-Meier figures on this page count them as censored: "
+            "that is the cause-specific view, and one minus it overstates the risk of the event when competing "
+            "events are common. The competing-risks section of the Results page gives the cumulative incidence "
+            "of each cause."
+        )
     state.show_warnings(warns)
     left, right = st.columns([3, 2])
     with left:
-        d = state.current_data()
-        outcome = roles.outcome_name(d.event if d else None, d.event_codes if d else ())
         ylabel = "Overall survival" if outcome == "death" else f"Free of {outcome}"
         st.image(_km_png(cohort.source.data_hash, inside, u, ylabel, cohort), caption=f"Kaplan-Meier estimate of freedom from {outcome}, "
                  "with 95% confidence band")
     with right:
         if summary.horizons:
-            st.markdown("**Survival at the horizons**")
+            free = "Survival" if outcome == "death" else "Event-free"
+            title = "Survival at the horizons" if outcome == "death" else f"Free of {outcome} at the horizons"
+            st.markdown(f"**{title}**")
             show_table(_frame(
                 [(time_phrase(h.horizon, u), f"{100 * h.survival:.1f}%",
                   f"{100 * h.ci_lower:.1f} to {100 * h.ci_upper:.1f}", h.at_risk) for h in summary.horizons],
-                ["Horizon", "Survival", "95% CI (%)", "At risk"]), label="Survival at the horizons")
+                ["Horizon", free, "95% CI (%)", "At risk"]), label=title)
         skipped = [h for h in horizons if h not in inside]
         if skipped:
             st.caption(f"Horizons beyond the longest follow-up are left out: {', '.join(f'{h:g}' for h in skipped)}.")
@@ -291,7 +319,7 @@ def _summary(cohort, horizons) -> None:
         st.write(
             f"{summary.events_per_clinical_parameter:.1f} events per candidate clinical parameter "
             f"({summary.n_events} events / {summary.n_clinical_parameters} parameters); "
-            + (f"{summary.events_per_feature:.2f} per imaging feature, which is why the signature needs "
+            + (f"{summary.events_per_feature:.1f} per imaging feature, which is why the signature needs "
                "penalisation and honest validation." if summary.n_features else "no imaging features.")
         )
         st.markdown("**Minimum sample size** (Riley et al. 2019/2020)")

@@ -82,8 +82,8 @@ def render() -> None:
         if vol is not None and hasattr(vol, "pearson"):
             st.caption(f"Correlation of the signature with {vol.feature}: Pearson {float(vol.pearson):.2f}, "
                        f"Spearman {float(vol.spearman):.2f}.")
-        else:
-            why = "the signature kept no feature" if not tuple(sig.selected_features_) else "no volume feature named"
+        elif result.spec.imaging.volume_feature:  # said only where the study names a tumour-volume feature
+            why = "the signature kept no feature" if not tuple(sig.selected_features_) else "not computed"
             st.caption(f"Correlation of the signature with tumour volume: not applicable ({why}).")
     with b:
         _path(sig)
@@ -100,10 +100,18 @@ def render() -> None:
     left, right = st.columns([3, 2])
     left.image(charts.figure_bytes(fig))
     with right:
-        n_sel = np.asarray(sel.n_selected)
-        st.write(f"{sel.n_fits} refits kept between {int(n_sel.min())} and {int(n_sel.max())} features "
-                 f"(median {float(np.median(n_sel)):.0f}).")
-        state.table(top, max_rows=25)
+        st.write(kept_words(sel.n_selected, sel.n_fits))
+        if len(top):
+            state.table(top, max_rows=25)
+
+
+def kept_words(n_selected, n_fits: int) -> str:
+    """How many features the resample refits kept, in words ("between 0 and 0 features" once read oddly)."""
+    n = np.asarray(n_selected, dtype=int)
+    if not n.size or n.max() == 0:
+        return f"None of the {n_fits} refits kept a feature."
+    return (f"{n_fits} refits kept between {int(n.min())} and {int(n.max())} features "
+            f"(median {float(np.median(n)):g}).")
 
 
 if __name__ == "__main__":
