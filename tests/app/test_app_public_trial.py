@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import assert_clean, page_texts
+from apphelpers import assert_clean, page_texts
 
 from workbench.app import roles, state
 
