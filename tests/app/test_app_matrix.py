@@ -13,7 +13,7 @@ from __future__ import annotations
 import importlib.util
 
 import pytest
-from apphelpers import APP_MAIN, REPO, assert_clean, page_texts
+from apphelpers import APP_MAIN, REPO, assert_clean, page_texts, static_tables
 
 from workbench.app import state
 from workbench.study import study_from_dict
@@ -73,6 +73,9 @@ def test_study_runs_and_every_view_opens(case, tmp_path):
     if case == "empty_signature_apparent_only":
         done = next(s.value for s in at.success if "Finished in" in s.value)
         assert "apparent performance only" in done and "0 replicates" not in done
+        # the Results tables name the combined model as the clinical one too (it was only said elsewhere)
+        heads = [c for t in static_tables(at) for c in t.columns]
+        assert any("equal to the clinical model" in c for c in heads), heads
     for view in ("signature", "nomogram", "patient", "export"):
         at.switch_page(f"views/{view}.py").run()
         assert_clean(at)

@@ -69,15 +69,19 @@ def _ordered(names, families) -> list[str]:
     return out
 
 
-def metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
-    """One row per model and metric: validated estimate with its interval, apparent value and optimism."""
+def metric_table(validation, families, *, time_unit: str = "", labels: dict | None = None) -> pd.DataFrame:
+    """One row per model and metric: validated estimate with its interval, apparent value and optimism.
+
+    ``labels``: the run's model labels (:func:`workbench.models.labels.model_labels`, which say when
+    the combined model equals the clinical one); by default the plain labels."""
+    labels = labels or {}
     rows = []
     for m in validation.models:
         est = validation.estimates.get(m, {})
         for name in _ordered(list(est), families):
             e = est[name]
             rows.append({
-                "Model": label(m),
+                "Model": labels.get(m, label(m)),
                 "Measure": metric_label(name, time_unit),
                 "Validated": num(e.estimate),
                 f"{round(100 * validation.conf_level)}% CI": _ci(e),
@@ -152,8 +156,10 @@ def steps_table(steps, prepared=None, reproducibility=None) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def wide_metric_table(validation, families, *, time_unit: str = "") -> pd.DataFrame:
-    """One row per measure, one column per model: validated estimate with its interval."""
+def wide_metric_table(validation, families, *, time_unit: str = "", labels: dict | None = None) -> pd.DataFrame:
+    """One row per measure, one column per model: validated estimate with its interval (``labels``: as
+    :func:`metric_table`)."""
+    labels = labels or {}
     models = list(validation.models)
     names: list[str] = []
     for m in models:
@@ -165,10 +171,11 @@ def wide_metric_table(validation, families, *, time_unit: str = "") -> pd.DataFr
         row = {"Measure": metric_label(n, time_unit)}
         for m in models:
             e = validation.estimates.get(m, {}).get(n)
+            head = labels.get(m, label(m))
             if e is None:
-                row[label(m)] = "-"
+                row[head] = "-"
                 continue
             ci = _ci(e)
-            row[label(m)] = num(e.estimate) + ("" if ci == "-" else f" ({ci})")
+            row[head] = num(e.estimate) + ("" if ci == "-" else f" ({ci})")
         rows.append(row)
     return pd.DataFrame(rows)

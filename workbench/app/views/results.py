@@ -217,6 +217,9 @@ def _show(result, job) -> None:
                         key="results_details",
                         help="Off, the page shows the validated estimates and the headline differences only.")
     shown, download_slot = ShownTables(), st.empty()  # the tables are static; one download for all of them
+    from workbench.models.labels import model_labels
+
+    run_labels = model_labels(result.models)  # an empty signature: "(equal to the clinical model)"
     pct = round(100 * v.conf_level)
     fewest = min(reps.values()) if reps else 0
     if fewest < tables.MIN_CI_REPLICATES:
@@ -235,10 +238,11 @@ def _show(result, job) -> None:
         how_text = (", ".join(how.get(e, e) for e in ests) + " (bootstrap)") if ests else "held out"
         st.caption(f"Validated estimate ({pct}% interval): {how_text}; cross-validation and centres: held "
                    f"out. {note}")
-        shown.show(tables.wide_metric_table(v, families, time_unit=u), title)
+        shown.show(tables.wide_metric_table(v, families, time_unit=u, labels=run_labels), title)
         if details:
             st.markdown(f"**{title}: apparent values and optimism**")
-            shown.show(tables.metric_table(v, families, time_unit=u), f"{title} apparent and optimism")
+            shown.show(tables.metric_table(v, families, time_unit=u, labels=run_labels),
+                       f"{title} apparent and optimism")
 
     st.subheader(f"Against the baseline: {tables.label(spec.models.baseline)}")
     try:
@@ -263,7 +267,7 @@ def _show(result, job) -> None:
         st.caption("The models fitted on all training patients, applied unchanged to the external cohort "
                    f"({result.external.n} patients, {result.external.n_events} events).")
         shown.show(tables.wide_metric_table(result.external, tables.DISCRIMINATION + tables.CALIBRATION
-                                            + tables.OVERALL, time_unit=u), "External validation")
+                                            + tables.OVERALL, time_unit=u, labels=run_labels), "External validation")
         ext_comps = getattr(result, "external_comparisons", None) or {}
         chosen = ext_comps.get(st.session_state.get("results_comparison")) or next(iter(ext_comps.values()), None)
         if chosen is not None:
