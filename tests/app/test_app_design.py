@@ -150,6 +150,7 @@ def test_predictor_table_shows_the_reference_level_the_transformer_uses(new_app)
     assert next(p for p in at.session_state[state.K_STUDY].predictors if p.column == "ecog").reference is None
     columns = json.loads(at.dataframe[0].proto.columns)
     assert columns["transform"].get("width") != "small"  # "small" cut the header to "Transfo"
+    assert list(at.dataframe[0].proto.column_order)[:3] == ["use", "column", "label"]  # seen without scrolling
     caption = next(c.value for c in at.caption if "Tick the predictors" in c.value)
     assert "Label and unit: type the names" in caption
 

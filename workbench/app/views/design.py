@@ -125,6 +125,9 @@ def render() -> None:
     table = st.data_editor(
         _predictor_table(cohort, tpl, data), key=_key("predictors"), hide_index=True, width="stretch",
         disabled=["column"],
+        # the label beside its column, where it is seen without scrolling the table sideways
+        column_order=("use", "column", "label", "kind", "transform", "missing", "reference", "levels",
+                      "detection_limit", "knots", "unit"),
         column_config={
             "use": st.column_config.CheckboxColumn("Use", width="small"),
             "column": st.column_config.TextColumn("Column"),

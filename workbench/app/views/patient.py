@@ -115,11 +115,11 @@ def competing_note(spec) -> str | None:
     d = spec.data
     if not d.competing_codes:
         return None
-    return (f"This study has competing events ({', '.join(d.competing_codes)}). The survival above is from the "
-            "ordinary (cause-specific) model, which counts a competing event as censoring: it is the chance of "
-            f"escaping the event of interest ({', '.join(d.event_codes or ())}) were competing events removed, "
-            "not the chance of being free of every event. For each cause's risk with the others competing, see "
-            "the Competing risks section of the Results page.")
+    return (f"This study has competing events ({', '.join(d.competing_codes)}). The survival above comes from the "
+            "ordinary (cause-specific) model, which counts a competing event as censoring. It is not the chance "
+            "of being free of every event, and one minus it overstates the risk of the event of interest "
+            f"({', '.join(d.event_codes or ())}), the more so the more competing events there are. For the risk "
+            "of each cause with the others competing, see the Competing risks section of the Results page.")
 
 
 def _show(result, name: str, est, record: dict, score: float | None = None) -> None:
