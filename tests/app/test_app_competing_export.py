@@ -67,6 +67,7 @@ def test_export_page_says_when_no_competing_analysis_has_run(app):
     assert "Research use only" in texts  # the caution stays on the page
 
 
+@pytest.mark.slow  # two competing-risks analyses with their figures (the app's and the command line's)
 def test_export_page_offers_the_command_lines_competing_results(app, downloads, small_competing_study, tmp_path):
     from workbench.cli import main
 
