@@ -127,3 +127,49 @@ def test_scanner_and_signature_choices_reach_the_study(new_app):
     assert spec.imaging.harmonise.reference_scanner == "scanner_B"
     assert spec.imaging.harmonise.unseen_batch == "reference"
     assert spec.imaging.penalty.selection == "stability"
+
+
+def test_predictor_table_shows_the_reference_level_the_transformer_uses(new_app):
+    import json
+
+    import pandas as pd
+
+    from workbench.preprocess.clinical import ClinicalTransformer
+
+    at = _design(new_app)
+    assert_clean(at)
+    spec = read_study(DEMO / "study.toml")
+    shown = at.dataframe[0].value.set_index("column")
+    # reference: the library's clinical transformer fitted on the demo table (the cohort the page reads)
+    fitted = ClinicalTransformer(spec.predictors).fit(pd.read_csv(DEMO / "clinical.csv"))
+    levelled = [t for t in fitted.terms_ if t.kind in ("categorical", "ordinal")]
+    assert any(p.kind == "ordinal" and p.reference is None for p in spec.predictors)  # ecog names none
+    assert {t.column: shown.loc[t.column, "reference"] for t in levelled} == {t.column: t.reference for t in levelled}
+    assert shown.loc["ecog", "reference"] == "0"  # was blank: the first declared level
+    # shown, not written: the study still names no reference for ecog (it follows the levels' order)
+    assert next(p for p in at.session_state[state.K_STUDY].predictors if p.column == "ecog").reference is None
+    columns = json.loads(at.dataframe[0].proto.columns)
+    assert columns["transform"].get("width") != "small"  # "small" cut the header to "Transfo"
+    assert list(at.dataframe[0].proto.column_order)[:3] == ["use", "column", "label"]  # seen without scrolling
+    caption = next(c.value for c in at.caption if "Tick the predictors" in c.value)
+    assert "Label and unit: type the names" in caption
+
+
+def test_a_typed_reference_level_is_kept_and_the_default_one_left_unnamed():
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from workbench.app.views.design_inputs import _predictor_table, _predictors_from
+
+    clinical = pd.DataFrame({"age": [61, 70, 55, 48, 66], "grade": ["G2", "G1", "G3", "G2", None],
+                             "site": ["lung", "colon", "lung", "breast", "lung"]})
+    cohort = SimpleNamespace(clinical=clinical)
+    data = SimpleNamespace(centre=None, batch=None)
+    table = _predictor_table(cohort, None, data)
+    # a linear term has none; levels in natural order (workbench.preprocess.values.natural_order)
+    assert list(table["reference"]) == ["", "G1", "breast"]
+    specs = {p.column: p for p in _predictors_from(table, None, cohort)}
+    assert specs["age"].reference is specs["grade"].reference is specs["site"].reference is None
+    table.loc[table["column"] == "site", "reference"] = "lung"
+    assert {p.column: p.reference for p in _predictors_from(table, None, cohort)}["site"] == "lung"

@@ -174,7 +174,10 @@ class CompetingJob(RunJob):
         return run_competing(self.spec, replicates=self.replicates, workers=self.workers, progress=progress)
 
     def _finished(self) -> None:
-        pass  # nothing to export: the section draws its own figures
+        from workbench.app import competing_exports
+
+        # the Export view's files (competing_results.json, the folder as a zip), written while the user reads
+        self.exports = competing_exports.prepare(self.result)
 
 
 @dataclass

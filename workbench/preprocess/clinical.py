@@ -73,9 +73,10 @@ from workbench.preprocess.values import (
     check_positive,
     column_name,
     level_keys,
-    natural_order,
+    level_order,
     read_levels,
     read_numbers,
+    reference_level,
 )
 
 # ------------------------------------------------------------------ learning
@@ -111,14 +112,14 @@ def _learn_levels(spec: PredictorSpec, series: pd.Series, where: RowContext, sta
                      else read_levels(spec.column, spec.label, series, allowed, spec.unseen, where, "fit"))
     seen, counts = np.unique(keys[~missing].astype(str), return_counts=True)
     count = dict(zip(seen.tolist(), counts.tolist(), strict=True))
-    order = natural_order(count) if allowed is None else [lv for lv in allowed if lv in count]
+    order = level_order(count, allowed)
     if len(order) < 2:
         raise SpecError(
             f"{column_name(spec.column, spec.label)} has {len(order)} level(s) among the training patients "
             f"({', '.join(map(repr, order))}); at least two are needed to estimate an effect. "
             "Remove this predictor or merge it with another."
         )
-    ref = order[0] if spec.reference is None else spec.reference
+    ref = reference_level(order, spec.reference)
     if ref not in count:
         raise SpecError(
             f"{column_name(spec.column, spec.label)}: the reference level {ref!r} does not occur among the "

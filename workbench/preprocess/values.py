@@ -180,6 +180,22 @@ def natural_order(keys) -> list[str]:
     return sorted(keys, key=sort_key)
 
 
+def level_order(seen, allowed=None) -> list[str]:
+    """The order of a categorical or ordinal predictor's levels among the rows it is learned on.
+
+    ``seen``: the level keys present (a set, or a dict of counts). The declared levels in their
+    order (those absent left out), or, when none are declared, :func:`natural_order`.
+    """
+    return natural_order(seen) if allowed is None else [lv for lv in allowed if lv in seen]
+
+
+def reference_level(order, reference: str | None = None) -> str | None:
+    """The reference level: the one the study names, else the first level of ``order``."""
+    if reference is not None:
+        return reference
+    return order[0] if len(order) else None
+
+
 def describe_rows(mask: ArrayLike, index: pd.Index, ids: ArrayLike | None = None, limit: int = 8) -> str:
     """Human-readable list of the rows where ``mask`` is true.
 

@@ -133,6 +133,15 @@ FIGURE_TITLES = {"cumulative_incidence": "Cumulative incidence of each cause",
                  "incidence_nomogram": "Fine-Gray nomogram: risk of the cause of interest"}
 
 
+def held_analysis() -> tuple | None:
+    """The last finished analysis as (its key, its result), taking in one finished since last shown."""
+    ss = st.session_state
+    job = ss.get(JOB)
+    if job is not None and job.result is not None and ss.get(KEY, (None, None))[1] is not job.result:
+        ss[KEY] = (job.key, job.result)
+    return ss.get(KEY)
+
+
 def render_section(spec) -> None:
     """The competing-risks section (nothing when the study names no competing codes)."""
     if not spec.data.competing_codes:
@@ -166,9 +175,7 @@ def render_section(spec) -> None:
         progress.watch(job, cancel_label="Cancel the competing-risks analysis", key="competing_cancel",
                        idle="Fitting the competing-risks models on all patients...")
         return
-    if job is not None and job.result is not None and ss.get(KEY, (None, None))[1] is not job.result:
-        ss[KEY] = (job.key, job.result)
-    held = ss.get(KEY)
+    held = held_analysis()
     if job is not None and job.cancelled:
         st.warning("The competing-risks analysis was cancelled." + (" The results below are those of the last "
                                                                    "complete analysis." if held else ""))

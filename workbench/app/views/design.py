@@ -118,15 +118,21 @@ def render() -> None:
     st.subheader("Clinical predictors")
     st.caption("Tick the predictors of the clinical model. Kind: linear, spline (restricted cubic), "
                "categorical or ordinal (levels in order, comma separated). Transform log2 gives hazard ratios "
-               "per doubling. Detection limit 'auto' reads values such as <0.5 from the data.")
+               "per doubling. Reference level: the level the others are compared with; unless you type another, "
+               "the first level in the order given (or, with none given, numbers first, then alphabetical), as "
+               "shown. Detection limit 'auto' reads values such as <0.5 from the data. Label and unit: type the "
+               "names the tables, figures and nomogram should show; an empty label shows the column name.")
     table = st.data_editor(
         _predictor_table(cohort, tpl, data), key=_key("predictors"), hide_index=True, width="stretch",
         disabled=["column"],
+        # the label beside its column, where it is seen without scrolling the table sideways
+        column_order=("use", "column", "label", "kind", "transform", "missing", "reference", "levels",
+                      "detection_limit", "knots", "unit"),
         column_config={
             "use": st.column_config.CheckboxColumn("Use", width="small"),
             "column": st.column_config.TextColumn("Column"),
             "kind": st.column_config.SelectboxColumn("Kind", options=list(KINDS), required=True, width="small"),
-            "transform": st.column_config.SelectboxColumn("Transform", options=list(TRANSFORMS), width="small"),
+            "transform": st.column_config.SelectboxColumn("Transform", options=list(TRANSFORMS)),
             "missing": st.column_config.SelectboxColumn("Missing values", options=list(MISSING), required=True,
                                                         help=HELP["missing"]),
             "reference": st.column_config.TextColumn("Reference level"),
@@ -139,7 +145,7 @@ def render() -> None:
     )
     problems = []
     try:
-        predictors = _predictors_from(table, tpl)
+        predictors = _predictors_from(table, tpl, cohort)
     except WorkbenchError as exc:
         problems.append(exc)
         state.show_error("Clinical predictors", exc)

@@ -14,6 +14,7 @@ import pandas as pd
 
 from workbench.errors import WorkbenchError
 from workbench.preprocess.predictor_spec import PredictorSpec
+from workbench.preprocess.values import level_keys, level_order, reference_level
 from workbench.study import StudySpec
 
 
@@ -21,6 +22,19 @@ def _is_numeric(values: pd.Series) -> bool:
     v = values.dropna().astype(str).str.strip().str.lstrip("<")
     v = v[v != ""]
     return not v.empty and pd.to_numeric(v, errors="coerce").notna().mean() > 0.9
+
+
+LEVELLED = ("categorical", "ordinal")
+
+
+def reference_used(values: pd.Series, kind: str, levels=None, reference: str | None = None) -> str:
+    """The reference level the clinical transformer takes on these rows (the one named, else the first
+    level in declared or natural order: workbench.preprocess.values), or "" (not a levelled kind)."""
+    if kind not in LEVELLED:
+        return ""
+    keys, missing = level_keys(values)
+    seen = set(keys[~missing].astype(str))
+    return str(reference_level(level_order(seen, tuple(levels) if levels else None), reference) or "")
 
 
 def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
@@ -41,7 +55,7 @@ def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
             "kind": p.kind,
             "transform": p.transform or "",
             "missing": p.missing,
-            "reference": p.reference or "",
+            "reference": reference_used(cohort.clinical[col], p.kind, p.levels, p.reference),
             "levels": ", ".join(p.levels or ()),
             "detection_limit": "" if p.detection_limit is None else str(p.detection_limit),
             "knots": int(p.knots) if p.knots else None,
@@ -51,8 +65,12 @@ def _predictor_table(cohort, template: StudySpec | None, data) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _predictors_from(table: pd.DataFrame, template: StudySpec | None) -> tuple[PredictorSpec, ...]:
-    """Predictor specs from the edited table; settings the table does not show are kept from the template."""
+def _predictors_from(table: pd.DataFrame, template: StudySpec | None, cohort=None) -> tuple[PredictorSpec, ...]:
+    """Predictor specs from the edited table; settings the table does not show are kept from the template.
+
+    A reference level equal to the one the transformer takes by itself (shown in the table, see
+    :func:`reference_used`) is left unnamed unless the template named it: the study keeps
+    following the levels' order."""
     known = {p.column: p for p in (template.predictors if template else ())}
     out = []
     for i, r in table.iterrows():
@@ -69,11 +87,16 @@ def _predictors_from(table: pd.DataFrame, template: StudySpec | None) -> tuple[P
                 ) from None
         levels = tuple(x.strip() for x in str(r.get("levels") or "").split(",") if x.strip())
         knots = r.get("knots")
+        reference = str(r.get("reference") or "").strip() or None
+        if (reference is not None and cohort is not None and col in cohort.clinical.columns
+                and (col not in known or known[col].reference is None)
+                and reference == reference_used(cohort.clinical[col], str(r["kind"]), levels)):
+            reference = None
         fields = dict(
             kind=str(r["kind"] or "linear"),
             transform=str(r["transform"]) or None,
             knots=int(knots) if knots is not None and pd.notna(knots) and r["kind"] == "spline" else None,
-            reference=str(r.get("reference") or "").strip() or None,
+            reference=reference,
             levels=levels or None,
             detection_limit=limit or None,
             missing=str(r["missing"] or "complete_case"),

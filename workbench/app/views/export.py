@@ -68,7 +68,13 @@ def render() -> None:
     result = state.current_result()
     if result is None:
         st.info("Run the study on the Results page first.")
-        return
+    else:
+        _study_files(result)
+    _competing(state.current_study() or (result.spec if result is not None else None))
+
+
+def _study_files(result) -> None:
+    """The study run's files: study file, results.json and folder, bundle, report."""
     state.show_provenance("These files")
     job = state.result_job()
     key = job.key
@@ -131,6 +137,47 @@ def render() -> None:
         else:
             _pdf(key, html, spec)
 
+
+def _competing(spec) -> None:
+    """The competing-risks analysis's files, as 'workbench competing' writes them (studies with competing codes)."""
+    if spec is None or not spec.data.competing_codes:
+        return
+    from workbench.app import competing_exports
+    from workbench.app.views import competing
+
+    st.subheader("Competing-risks results")
+    held = competing.held_analysis()
+    if held is None:
+        st.info("No competing-risks analysis has run yet. The study names competing events "
+                f"({', '.join(spec.data.competing_codes)}): run the analysis in the Competing risks section of "
+                "the Results page, and its files are offered here.")
+        return
+    key, result = held
+    if key[0] != state.study_text(spec):
+        st.warning("The study changed since the competing-risks analysis ran: these files are those of the "
+                   "analysis as it ran. Run it again on the Results page to bring them up to date.")
+    st.caption(f"As 'workbench competing' writes them, from the analysis with {result.replicates} bootstrap "
+               "replicates: competing_results.json (every number, with the study, seed, data hash and package "
+               "versions), and the whole folder with the figures at both journal widths and the Fine-Gray "
+               "nomogram's points tables.")
+    ex = competing_exports.of_analysis(result, st.session_state.get(competing.JOB), st.session_state,
+                                       "wb_competing_files")
+    a, b = st.columns(2)
+    try:
+        text = _get(ex, "json", "Writing competing_results.json...")
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Writing competing_results.json", exc)
+    else:
+        a.download_button("Download competing_results.json", text, mime="application/json",
+                          file_name=state.study_filename(spec, ".json", "competing_results"), key="export_cr_json")
+    try:
+        folder = _get(ex, "folder", "Writing the competing-risks results folder (figures at both widths)...")
+    except Exception as exc:  # noqa: BLE001
+        state.show_error("Writing the competing-risks results folder", exc)
+    else:
+        b.download_button("Download the competing-risks results folder (JSON, figures, points tables; zip)",
+                          folder, file_name=state.study_filename(spec, ".zip", "competing"), mime="application/zip",
+                          key="export_cr_folder")
 
 
 if __name__ == "__main__":

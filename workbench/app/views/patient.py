@@ -98,6 +98,30 @@ def _with_score(model, ranges, score: float):
     return proxy, replace(ranges, imaging_features=(), imaging_p01={}, imaging_p99={}, harmonised=False)
 
 
+def alive_input(horizons) -> dict:
+    """Bounds, step and format of the "known to be alive at" input, written like the study's horizons:
+    whole numbers when every horizon is one (days always are), else as many decimals as they have."""
+    hz = [float(h) for h in horizons]
+    decimals = max(len(f"{h:g}".partition(".")[2]) for h in hz)
+    if decimals == 0:
+        return {"min_value": 0, "max_value": int(max(hz)), "value": 0, "step": max(1, int(min(hz)) // 2),
+                "format": "%d"}
+    return {"min_value": 0.0, "max_value": max(hz), "value": 0.0, "step": min(hz) / 2,
+            "format": f"%.{decimals}f"}
+
+
+def competing_note(spec) -> str | None:
+    """Why a competing-risks study's survival estimate here is not the risk of each cause (None otherwise)."""
+    d = spec.data
+    if not d.competing_codes:
+        return None
+    return (f"This study has competing events ({', '.join(d.competing_codes)}). The survival above comes from the "
+            "ordinary (cause-specific) model, which counts a competing event as censoring. It is not the chance "
+            "of being free of every event, and one minus it overstates the risk of the event of interest "
+            f"({', '.join(d.event_codes or ())}), the more so the more competing events there are. For the risk "
+            "of each cause with the others competing, see the Competing risks section of the Results page.")
+
+
 def _show(result, name: str, est, record: dict, score: float | None = None) -> None:
     u = est.time_unit
     st.subheader(f"Estimate from the {tables.label(name).lower()} model")
@@ -110,6 +134,9 @@ def _show(result, name: str, est, record: dict, score: float | None = None) -> N
         col.caption(ci)
     if est.risk_group is not None:
         cols[-1].metric("Risk group", est.risk_group, help="Tertiles of the training patients' risk.")
+    note = competing_note(result.spec)
+    if note is not None:
+        st.info(note)
     if est.alive_at is not None:
         st.markdown(f"**Alive at {time_phrase(est.alive_at, u)}**: the chance of being alive at each later horizon")
         rows = [(time_phrase(c.horizon, u), f"{100 * c.survival:.1f}%",
@@ -229,8 +256,7 @@ def render() -> None:
     hz = [float(h) for h in result.spec.horizons]
     u = result.validation.time_unit
     alive = st.number_input(
-        f"Known to be alive at ({u}; optional)", min_value=0.0, max_value=float(max(hz)), value=0.0,
-        step=float(min(hz)) / 2, key=f"pt_alive_{tag}",
+        f"Known to be alive at ({u}; optional)", **alive_input(hz), key=f"pt_alive_{tag}",
         help="At a follow-up visit: the chance of reaching each later horizon given that the patient is alive "
              "now (conditional survival). 0 leaves it out.")
     try:
