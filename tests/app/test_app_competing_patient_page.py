@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from apphelpers import APP_MAIN, assert_clean
+from apphelpers import APP_MAIN, assert_clean, page_texts
 
 from workbench.app import state
 from workbench.study import read_study
@@ -74,3 +74,9 @@ def test_alive_at_input_for_horizons_in_days_and_in_fractions():
     assert days["format"] == "%d" and days["value"] == 0 and days["step"] == 182
     years = alive_input([0.5, 1.0, 2.0])
     assert years["format"] == "%.1f" and years["max_value"] == 2.0
+
+
+def test_one_replicate_reads_in_the_singular(estimated):
+    # the provenance line above the patient view once read "(finished at hh:mm, 1 replicates)"
+    texts = " ".join(page_texts(estimated))
+    assert "1 replicate)" in texts and "1 replicates" not in texts

@@ -277,7 +277,7 @@ def show_provenance(what: str = "These numbers") -> bool:
     spec = job.result.spec
     at = time.strftime("%H:%M", time.localtime(time.time() - (time.monotonic() - (job.finished or job.started))))
     text = (f"{what} come from run {getattr(job, 'number', 1)} of the study \u201c{plain(spec.name)}\u201d "
-            f"(finished at {at}, {job.replicates} replicates).")
+            f"(finished at {at}, {job.replicates} replicate{'' if job.replicates == 1 else 's'}).")
     current = result_is_current(job)
     if current:
         st.caption(text)

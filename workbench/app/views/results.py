@@ -205,7 +205,7 @@ def _show(result, job) -> None:
         how = "no internal validation: the values are apparent performance only, which is optimistic"
     else:
         how = f"{METHODS.get(v.method, v.method)} with " + ", ".join(
-            f"{r} replicates for the {tables.label(m)} model" for m, r in reps.items())
+            f"{r} replicate{'' if r == 1 else 's'} for the {tables.label(m)} model" for m, r in reps.items())
     st.success(f"Finished in {took}: {v.n} patients, {v.n_events} events; {how}.")
     state.show_provenance()
     if result.warnings:
