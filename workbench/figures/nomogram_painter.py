@@ -37,6 +37,9 @@ from workbench.figures.ticks import format_number
 
 PATIENT_COLOUR = PALETTE[3]
 PATIENT_COLUMN = 0.2  # where the patient's numbers start, as a share of the right margin
+# tick labels sit this far (in rows) above the axis line, and below it past the grey training
+# strip's median mark: a patient's marker (3.6 pt) or that mark must not touch a label's digits
+LABEL_ABOVE, LABEL_BELOW = 0.17, 0.2
 
 
 _BAND_ALPHAS = (0.10, 0.25, 0.42, 0.60)
@@ -92,7 +95,7 @@ class _Painter:
         for x, c, lab, k in zip(xs, cx, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:
-                self._text(c, y + 0.17, lab)
+                self._text(c, y + LABEL_ABOVE, lab)
 
     def level_ticks(self, xs, labels, y, lanes):
         centres = _label_centres(xs, [self.m.width(lab, self.geo.tick_fs) for lab in labels], self.geo)
@@ -103,7 +106,7 @@ class _Painter:
             up = lane in (0, 2)
             self._tick(x, y, up=up)
             far = lane >= 2
-            ty = (y + 0.17 + 0.34 * far) if up else (y - 0.17 - 0.34 * far)
+            ty = (y + LABEL_ABOVE + 0.34 * far) if up else (y - LABEL_BELOW - 0.34 * far)
             if far:
                 self.ax.plot([x, x], [y + (0.13 if up else -0.13), ty + (-0.03 if up else 0.03)],
                              color=NEUTRAL, lw=0.4, clip_on=False)
@@ -116,7 +119,7 @@ class _Painter:
             self._tick(x, y, up=False, length=0.11)
         for cx, text, lane in groups:
             up = lane == 0
-            self._text(cx, (y + 0.17) if up else (y - 0.17), text, up=up)
+            self._text(cx, (y + LABEL_ABOVE) if up else (y - LABEL_BELOW), text, up=up)
 
     def training_strip(self, t: TermScale, y: float):
         """Where the training patients lie, just under the axis line: for continuous and
@@ -219,18 +222,21 @@ class _Painter:
 
     def open_end(self, ticks, y):
         """Mark where the median axis stops because longer medians are not estimable from the
-        follow-up: "> 35" just left of the longest median shown."""
+        follow-up: "> 35" under an arrow just left of the longest median shown.
+
+        The words go below the line, not on it: a patient whose median lies beyond the axis is
+        marked on the line there, and the mark covered the words."""
         if not ticks:
             return
         k = max(ticks, key=lambda t: t.value)
         x = float(self.total_x([k.points])[0])
         text = f"> {k.label}"
         w = self.m.width(text, self.geo.tick_fs) * self.geo.units_per_pt
-        if x - 1.5 - w < -2.2:
+        if x - 0.6 - w < -2.2:
             return  # no room before the row name: the axis simply starts there
         self.ax.plot([x - 1.2], [y], marker="<", ms=2.6, color=INK, clip_on=False, gid="open_end")
-        self.ax.text(x - 2.2, y, text, ha="right", va="center", fontsize=self.geo.tick_fs, color=NEUTRAL,
-                     clip_on=False)
+        self.ax.text(x - 0.6, y - LABEL_BELOW, text, ha="right", va="top", fontsize=self.geo.tick_fs,
+                     color=NEUTRAL, clip_on=False)
 
     # ---------------------------------------------------------------- patient
 
