@@ -52,6 +52,7 @@ class _Painter:
         self.ax, self.s, self.geo, self.m = ax, scales, geo, measure
         self.right_limit = 100.0 + geo.right  # labels may use the right margin unless a patient column is there
         self._ticks: dict[str, list] = {}  # colour -> tick segments, drawn as one collection (finish)
+        self._labels: list = []  # (Text, centre x, half width) of every tick label, for the patient's line
 
     def total_x(self, total):
         return np.asarray(total, dtype=float) * 100.0 / self.s.total_axis_max
@@ -71,8 +72,10 @@ class _Painter:
         self._ticks = {}
 
     def _text(self, x, y, text, up=True, size=None, colour=INK, **kw):
-        self.ax.text(x, y, text, ha=kw.pop("ha", "center"), va="bottom" if up else "top",
-                     fontsize=size or self.geo.tick_fs, color=colour, clip_on=False, **kw)
+        fs = size or self.geo.tick_fs
+        t = self.ax.text(x, y, text, ha=kw.pop("ha", "center"), va="bottom" if up else "top",
+                         fontsize=fs, color=colour, clip_on=False, **kw)
+        self._labels.append((t, float(x), self.m.width(str(text), fs) * self.geo.units_per_pt / 2))
 
     def scale_ticks(self, xs, labels, y, order=None):
         """A scale: every tick marked; labels thinned (uniformly, or by preference) so none overlap."""
@@ -275,7 +278,8 @@ class _Painter:
         x_tot = float(self.total_x(pp.total))
         shown = float(np.clip(x_tot, 0, 100))
         ys = [r.line for r in rows if r.kind in ("total", "survival", "median")]
-        ax.plot([shown, shown], [max(ys), min(ys)], color=c, lw=0.8, ls=(0, (3, 2)), clip_on=False)
+        ax.plot([shown, shown], [max(ys), min(ys)], color=c, lw=0.8, ls=(0, (3, 2)), clip_on=False, gid="reading_line")
+        self._clear_labels_on_line(shown, min(ys), max(ys))
         for r in rows:
             if r.kind not in ("total", "survival", "median"):
                 continue
@@ -294,6 +298,16 @@ class _Painter:
                     text = f"> {format_number(longest, 3)}" if longest is not None else "> end"
             ax.text(xr, r.line, text, ha="left", va="center", fontsize=fs, color=c,
                     fontweight="bold" if r.kind != "median" else "normal", clip_on=False)
+
+    def _clear_labels_on_line(self, x: float, y_low: float, y_high: float) -> None:
+        """The reading line runs down through the tick labels of the sum and survival axes: a label
+        it crosses gets a white ground (drawn above the line, under the patient's marks), so a
+        "0.6" is not read struck through."""
+        for t, cx, half in self._labels:
+            y = t.get_position()[1]
+            if y_low - 0.5 <= y <= y_high + 0.5 and abs(cx - x) <= half + 0.5:
+                t.set_bbox({"facecolor": "white", "edgecolor": "none", "pad": 0.4})
+                t.set_zorder(4)
 
     def _patient_place(self, t: TermScale, value, rows):
         mine = [r for r in rows if r.kind == "term" and r.term is t]

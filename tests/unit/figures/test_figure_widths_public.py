@@ -144,3 +144,41 @@ def test_coefficient_path_with_long_radiomic_names_is_readable(public_result):
         assert len(lines) == active.size >= 2
         for j in active:
             np.testing.assert_array_equal(lines[f"path:{long[j]}"].get_ydata(), path.coefs[j])
+
+
+@pytest.mark.slow
+def test_the_reading_line_does_not_strike_through_tick_labels(public_result):
+    # The patient's dashed reading line runs down through the sum, survival and median axes; where
+    # it crosses a tick label ("0.6") the label must stay whole: no pixel of the line's colour inside
+    # the label's box (the patient's marks keep clear of labels, which the width test checks).
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.colors import to_rgb
+
+    from workbench.figures.legibility import drawn_texts
+    from workbench.figures.nomogram_painter import PATIENT_COLOUR
+
+    train = public_result.cohort
+    lp = public_result.models["clinical"].predict_risk(train).values
+    scales = nomogram_scales(public_result.models["clinical"], tuple(public_result.spec.horizons),
+                             time_unit=train.time_unit, median_axis=True, name=MODEL_LABELS["clinical"])
+    crossed = 0
+    for i in (int(np.argsort(lp)[lp.size // 2]), int(np.argsort(lp)[lp.size // 4])):
+        fig = plot_nomogram([scales], patient=patient_values(train, i), width="double")
+        fig.set_dpi(200)
+        canvas = FigureCanvasAgg(fig)
+        canvas.draw()
+        img = np.asarray(canvas.buffer_rgba())[:, :, :3].astype(float) / 255.0
+        line = next(ln for ln in fig.axes[0].lines if ln.get_gid() == "reading_line")
+        x_px = line.get_transform().transform([[line.get_xdata()[0], line.get_ydata()[0]]])[0, 0]
+        target = np.array(to_rgb(PATIENT_COLOUR))
+        h = img.shape[0]
+        for t, bb in drawn_texts(fig):
+            if not (bb.x0 < x_px < bb.x1) or t.get_color() == PATIENT_COLOUR or t.axes is None:
+                continue
+            box = img[int(h - bb.y1) + 1:int(h - bb.y0) - 1, int(bb.x0) + 1:int(bb.x1) - 1]
+            if box.size == 0:
+                continue
+            crossed += 1
+            near = np.linalg.norm(box - target, axis=2) < 0.25
+            assert not near.any(), f"the reading line strikes through {t.get_text()!r}"
+    assert crossed >= 1  # the line does cross labels in these patients
