@@ -55,10 +55,11 @@ def plot_baseline_survival(curves: Mapping[str, tuple], *, horizons=(), time_uni
         ax.set_ylim(0, 1.02)
         ax.set_xlabel(f"Time since start of follow-up ({time_unit})" if time_unit else "Time")
         ax.set_ylabel("Baseline survival S0(t)")
-        if own and (width == "single" or len(curves) > 2):
-            # below the plot: at column width, or with three or more models, a legend inside the axes
-            # covers the curves' lower tails
-            fig.legend(loc="outside lower center", ncols=1 if width == "single" else 3, fontsize="small")
+        if own:
+            # below the plot: a legend inside the axes covers a curve somewhere (the lower tails where
+            # survival falls to near zero, as in the veterans' lung cancer trial; the top where it stays high)
+            fig.legend(loc="outside lower center", ncols=1 if width == "single" else min(3, len(curves)),
+                       fontsize="small")
         else:
             ax.legend(loc="lower left")
     return fig

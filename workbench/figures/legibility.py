@@ -9,7 +9,9 @@ is measured with ``get_window_extent``. :func:`legibility_problems` lists
 * a text that reaches outside the figure (clipped on export);
 * a data panel narrower or lower than a few millimetres (a panel squeezed to
   nothing by its neighbours);
-* a legend drawn over the data points of its own panel.
+* a legend drawn over the data points of its own panel;
+* a marker (a point drawn on its own, such as a patient's value on a nomogram axis)
+  drawn over a text.
 
 The width test renders every standard figure at 85 mm and 175 mm and asserts
 that the list is empty; ``docs/render_demo_figures.py`` prints it for a quick look.
@@ -22,7 +24,7 @@ import itertools
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.lines import Line2D
-from matplotlib.text import Text
+from matplotlib.text import Annotation, Text
 
 __all__ = ["legibility_problems", "drawn_texts"]
 
@@ -86,7 +88,7 @@ def _name(t: Text) -> str:
 
 
 def legibility_problems(fig, *, tolerance_pt: float = 0.75, min_panel_mm: float = 12.0,
-                        dpi: float = 300.0) -> list[str]:
+                        dpi: float = 300.0, marker_clearance_pt: float = 0.0) -> list[str]:
     """Everything that makes ``fig`` hard to read at its current size (empty list when none).
 
     Parameters
@@ -100,16 +102,20 @@ def legibility_problems(fig, *, tolerance_pt: float = 0.75, min_panel_mm: float 
     dpi : float
         Resolution to draw at: the export resolution, because hinted glyphs are not exactly
         proportional to it (a legend that fits at 100 dpi can overhang at 300).
+    marker_clearance_pt : float
+        White space a lone marker (a patient's value on a nomogram axis) must keep from every
+        text, in points (0: the marker's box may not meet the text's box at all; a filled dot
+        on a digit reads as part of it even where glyph boxes overlap by less than ``tolerance_pt``).
     """
     old_dpi = fig.dpi
     fig.set_dpi(dpi)
     try:
-        return _problems(fig, tolerance_pt, min_panel_mm)
+        return _problems(fig, tolerance_pt, min_panel_mm, marker_clearance_pt)
     finally:
         fig.set_dpi(old_dpi)
 
 
-def _problems(fig, tolerance_pt: float, min_panel_mm: float) -> list[str]:
+def _problems(fig, tolerance_pt: float, min_panel_mm: float, marker_clearance_pt: float) -> list[str]:
     texts = drawn_texts(fig)
     px_per_pt = fig.dpi / 72.0
     tol = tolerance_pt * px_per_pt
@@ -148,4 +154,45 @@ def _problems(fig, tolerance_pt: float, min_panel_mm: float) -> list[str]:
             inside = (d[:, 0] > lb.x0) & (d[:, 0] < lb.x1) & (d[:, 1] > lb.y0) & (d[:, 1] < lb.y1)
             if inside.any():
                 problems.append(f"legend over data: the legend hides part of {line.get_label()!r}")
+    problems += _markers_on_text(fig, texts, marker_clearance_pt * px_per_pt)
     return problems
+
+
+def _marker_boxes(line: Line2D, px_per_pt: float) -> np.ndarray:
+    """(x0, y0, x1, y1) in pixels of each marker a line draws on its own (no connecting line)."""
+    if not line.get_visible() or line.get_marker() in (None, "", " ", "None", "none") \
+            or line.get_linestyle() not in ("None", "none", "", " ") and len(line.get_xdata()) > 1:
+        return np.empty((0, 4))
+    xy = np.column_stack([line.get_xdata(orig=False), line.get_ydata(orig=False)]).astype(float)
+    xy = xy[np.all(np.isfinite(xy), axis=1)]
+    if xy.size == 0:
+        return np.empty((0, 4))
+    d = line.get_transform().transform(xy)
+    r = (line.get_markersize() + line.get_markeredgewidth()) / 2 * px_per_pt
+    rx = ry = r
+    if line.get_marker() == "_":  # a stroke (error-bar caps): as tall as its line width
+        ry = line.get_markeredgewidth() / 2 * px_per_pt
+    elif line.get_marker() == "|":
+        rx = line.get_markeredgewidth() / 2 * px_per_pt
+    return np.column_stack([d[:, 0] - rx, d[:, 1] - ry, d[:, 0] + rx, d[:, 1] + ry])
+
+
+def _markers_on_text(fig, texts, clearance: float) -> list[str]:
+    """A marker drawn over a text or closer to it than ``clearance`` (pixels)."""
+    px_per_pt = fig.dpi / 72.0
+    out = []
+    for ax in fig.axes:
+        if not ax.get_visible():
+            continue
+        for line in ax.get_lines():
+            boxes = _marker_boxes(line, px_per_pt)
+            for t, bb in texts:
+                if isinstance(t, Annotation):  # its own words, not the arrow that points at the marker
+                    bb = Text.get_window_extent(t)
+                w = np.minimum(boxes[:, 2], bb.x1) - np.maximum(boxes[:, 0], bb.x0)
+                h = np.minimum(boxes[:, 3], bb.y1) - np.maximum(boxes[:, 1], bb.y0)
+                if np.any((w > -clearance) & (h > -clearance)):
+                    label = line.get_label()
+                    what = repr(label) if label and not label.startswith("_") else f"a {line.get_marker()!r} marker"
+                    out.append(f"marker on text: {what} touches {_name(t)}")
+    return out

@@ -37,6 +37,9 @@ from workbench.figures.ticks import format_number
 
 PATIENT_COLOUR = PALETTE[3]
 PATIENT_COLUMN = 0.2  # where the patient's numbers start, as a share of the right margin
+# tick labels sit this far (in rows) above the axis line, and below it past the grey training
+# strip's median mark: a patient's marker (3.6 pt) or that mark must not touch a label's digits
+LABEL_ABOVE, LABEL_BELOW = 0.17, 0.2
 
 
 _BAND_ALPHAS = (0.10, 0.25, 0.42, 0.60)
@@ -49,6 +52,7 @@ class _Painter:
         self.ax, self.s, self.geo, self.m = ax, scales, geo, measure
         self.right_limit = 100.0 + geo.right  # labels may use the right margin unless a patient column is there
         self._ticks: dict[str, list] = {}  # colour -> tick segments, drawn as one collection (finish)
+        self._labels: list = []  # (Text, centre x, half width) of every tick label, for the patient's line
 
     def total_x(self, total):
         return np.asarray(total, dtype=float) * 100.0 / self.s.total_axis_max
@@ -68,8 +72,10 @@ class _Painter:
         self._ticks = {}
 
     def _text(self, x, y, text, up=True, size=None, colour=INK, **kw):
-        self.ax.text(x, y, text, ha=kw.pop("ha", "center"), va="bottom" if up else "top",
-                     fontsize=size or self.geo.tick_fs, color=colour, clip_on=False, **kw)
+        fs = size or self.geo.tick_fs
+        t = self.ax.text(x, y, text, ha=kw.pop("ha", "center"), va="bottom" if up else "top",
+                         fontsize=fs, color=colour, clip_on=False, **kw)
+        self._labels.append((t, float(x), self.m.width(str(text), fs) * self.geo.units_per_pt / 2))
 
     def scale_ticks(self, xs, labels, y, order=None):
         """A scale: every tick marked; labels thinned (uniformly, or by preference) so none overlap."""
@@ -92,7 +98,7 @@ class _Painter:
         for x, c, lab, k in zip(xs, cx, labels, keep, strict=True):
             self._tick(x, y, length=0.13 if k else 0.08)
             if k:
-                self._text(c, y + 0.17, lab)
+                self._text(c, y + LABEL_ABOVE, lab)
 
     def level_ticks(self, xs, labels, y, lanes):
         centres = _label_centres(xs, [self.m.width(lab, self.geo.tick_fs) for lab in labels], self.geo)
@@ -103,7 +109,7 @@ class _Painter:
             up = lane in (0, 2)
             self._tick(x, y, up=up)
             far = lane >= 2
-            ty = (y + 0.17 + 0.34 * far) if up else (y - 0.17 - 0.34 * far)
+            ty = (y + LABEL_ABOVE + 0.34 * far) if up else (y - LABEL_BELOW - 0.34 * far)
             if far:
                 self.ax.plot([x, x], [y + (0.13 if up else -0.13), ty + (-0.03 if up else 0.03)],
                              color=NEUTRAL, lw=0.4, clip_on=False)
@@ -116,7 +122,7 @@ class _Painter:
             self._tick(x, y, up=False, length=0.11)
         for cx, text, lane in groups:
             up = lane == 0
-            self._text(cx, (y + 0.17) if up else (y - 0.17), text, up=up)
+            self._text(cx, (y + LABEL_ABOVE) if up else (y - LABEL_BELOW), text, up=up)
 
     def training_strip(self, t: TermScale, y: float):
         """Where the training patients lie, just under the axis line: for continuous and
@@ -219,18 +225,21 @@ class _Painter:
 
     def open_end(self, ticks, y):
         """Mark where the median axis stops because longer medians are not estimable from the
-        follow-up: "> 35" just left of the longest median shown."""
+        follow-up: "> 35" under an arrow just left of the longest median shown.
+
+        The words go below the line, not on it: a patient whose median lies beyond the axis is
+        marked on the line there, and the mark covered the words."""
         if not ticks:
             return
         k = max(ticks, key=lambda t: t.value)
         x = float(self.total_x([k.points])[0])
         text = f"> {k.label}"
         w = self.m.width(text, self.geo.tick_fs) * self.geo.units_per_pt
-        if x - 1.5 - w < -2.2:
+        if x - 0.6 - w < -2.2:
             return  # no room before the row name: the axis simply starts there
         self.ax.plot([x - 1.2], [y], marker="<", ms=2.6, color=INK, clip_on=False, gid="open_end")
-        self.ax.text(x - 2.2, y, text, ha="right", va="center", fontsize=self.geo.tick_fs, color=NEUTRAL,
-                     clip_on=False)
+        self.ax.text(x - 0.6, y - LABEL_BELOW, text, ha="right", va="top", fontsize=self.geo.tick_fs,
+                     color=NEUTRAL, clip_on=False)
 
     # ---------------------------------------------------------------- patient
 
@@ -269,7 +278,8 @@ class _Painter:
         x_tot = float(self.total_x(pp.total))
         shown = float(np.clip(x_tot, 0, 100))
         ys = [r.line for r in rows if r.kind in ("total", "survival", "median")]
-        ax.plot([shown, shown], [max(ys), min(ys)], color=c, lw=0.8, ls=(0, (3, 2)), clip_on=False)
+        ax.plot([shown, shown], [max(ys), min(ys)], color=c, lw=0.8, ls=(0, (3, 2)), clip_on=False, gid="reading_line")
+        self._clear_labels_on_line(shown, min(ys), max(ys))
         for r in rows:
             if r.kind not in ("total", "survival", "median"):
                 continue
@@ -288,6 +298,16 @@ class _Painter:
                     text = f"> {format_number(longest, 3)}" if longest is not None else "> end"
             ax.text(xr, r.line, text, ha="left", va="center", fontsize=fs, color=c,
                     fontweight="bold" if r.kind != "median" else "normal", clip_on=False)
+
+    def _clear_labels_on_line(self, x: float, y_low: float, y_high: float) -> None:
+        """The reading line runs down through the tick labels of the sum and survival axes: a label
+        it crosses gets a white ground (drawn above the line, under the patient's marks), so a
+        "0.6" is not read struck through."""
+        for t, cx, half in self._labels:
+            y = t.get_position()[1]
+            if y_low - 0.5 <= y <= y_high + 0.5 and abs(cx - x) <= half + 0.5:
+                t.set_bbox({"facecolor": "white", "edgecolor": "none", "pad": 0.4})
+                t.set_zorder(4)
 
     def _patient_place(self, t: TermScale, value, rows):
         mine = [r for r in rows if r.kind == "term" and r.term is t]

@@ -121,8 +121,23 @@ def _spread(y, gap: float) -> np.ndarray:
     return res
 
 
+def _two_lines(name: str, longest: int = 22) -> str:
+    """A long feature name broken at the separator nearest its middle (radiomic names run to 40
+    characters and more; on one line their labels took the path panel's width at 85 mm)."""
+    if len(name) <= longest:
+        return name
+    cuts = [i for i, c in enumerate(name) if c in "_-. " and 0 < i < len(name) - 1]
+    if not cuts:
+        return name
+    i = min(cuts, key=lambda k: abs(k - len(name) / 2))
+    return f"{name[:i + 1]}\n{name[i + 1:]}" if name[i] != " " else f"{name[:i]}\n{name[i + 1:]}"
+
+
 def _log_ticks(a, alphas) -> None:
-    vals = nice_log_ticks(float(np.min(alphas)), float(np.max(alphas)), 5)
+    # at a single column the feature names at the right leave the panel about 45 mm: five penalty
+    # labels such as "0.07 0.05 0.03" ran together there (GBSG2 with long feature names)
+    narrow = a.figure.get_figwidth() * 25.4 < 120.0
+    vals = nice_log_ticks(float(np.min(alphas)), float(np.max(alphas)), 4 if narrow else 5)
     a.set_xticks(vals, labels=[format_number(v, 2) for v in vals])
     a.xaxis.set_minor_formatter(NullFormatter())
 
@@ -176,9 +191,11 @@ def plot_coefficient_path(
                   label=f"chosen penalty ({path.rule})")
         a.axhline(0, color=NEUTRAL, lw=0.5)
         ends = path.coefs[order[:label_top], -1]
-        placed = _spread(ends, 0.06 * float(np.ptp(path.coefs[active])) if active.size else 0.0)
-        for rank, (j, yy) in enumerate(zip(order[:label_top], placed, strict=True)):
-            a.annotate(path.feature_names[j], (alphas[-1], path.coefs[j, -1]), xytext=(alphas[-1], yy),
+        names = [_two_lines(path.feature_names[j]) for j in order[:label_top]]
+        lines = max((n.count("\n") + 1 for n in names), default=1)  # a broken name needs two lines' room
+        placed = _spread(ends, 0.06 * lines * float(np.ptp(path.coefs[active])) if active.size else 0.0)
+        for rank, (j, yy, name) in enumerate(zip(order[:label_top], placed, names, strict=True)):
+            a.annotate(name, (alphas[-1], path.coefs[j, -1]), xytext=(alphas[-1], yy),
                        textcoords="data", fontsize="x-small", va="center", ha="left",
                        color=series_style(rank).color, annotation_clip=False)
         a.set_ylabel("Coefficient (per SD)")
@@ -204,7 +221,8 @@ def _deviance_panel(b, path: PenalizedPathResult, alphas: np.ndarray) -> None:
     kept = np.sum(path.coefs != 0, axis=0)
     (mk,) = b.plot([path.alpha], [mean[path.index]], linestyle="none", marker="D", ms=4.5, mfc="white",
                    mec=PALETTE[3], mew=1.1, gid="chosen_penalty")
-    note = f"chosen ({path.rule}): {int(kept[path.index])} features"
+    n_kept = int(kept[path.index])
+    note = f"chosen ({path.rule}): {n_kept} feature{'' if n_kept == 1 else 's'}"
     if path.index_min != path.index:
         note += f"\nlowest deviance: {int(kept[path.index_min])}"
     right = path.index < alphas.size / 2  # the label goes towards the emptier side

@@ -205,6 +205,22 @@ def test_checker_finds_a_legend_on_the_data_and_a_squeezed_panel():
     assert any(p.startswith("squeezed panel") for p in legibility_problems(fig))
 
 
+def test_checker_finds_a_marker_on_a_text_but_not_an_arrow_pointing_at_it():
+    fig, ax = _fig()
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.text(0.5, 0.5, "40", ha="center", va="center")
+    ax.plot([0.5], [0.5], marker="o", ms=3.6, linestyle="none")
+    assert any(p.startswith("marker on text") and "'40'" in p for p in legibility_problems(fig))
+    fig, ax = _fig()
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.plot([0.3], [0.5], marker="D", ms=4.5, linestyle="none", label="chosen")
+    ax.annotate("chosen here", (0.3, 0.5), xytext=(12, 12), textcoords="offset points",
+                arrowprops={"arrowstyle": "-"})
+    assert legibility_problems(fig) == []
+
+
 def test_checker_passes_a_plain_figure():
     fig, ax = _fig()
     ax.plot([0, 1], [0, 1], label="line")
