@@ -197,6 +197,17 @@ def _goto(page, title: str):
     _settle(page)
 
 
+def _upload(page, label: str, path: Path):
+    box = page.locator("[data-testid='stFileUploader']").filter(has_text=label).first
+    # An upload reruns the page; wait until the page is idle after it, or the next action may be
+    # folded into that run. Not counted as a run (_act): a fast run can start and end within one
+    # render of the page, leaving no trace in the attribute the counter watches.
+    _settle(page)
+    box.locator("input[type='file']").set_input_files(str(path))
+    page.get_by_text(path.name).first.wait_for()
+    _settle(page)
+
+
 CONTENT_HEIGHT = """() => {
   const c = document.querySelector('[data-testid="stMainBlockContainer"]')
          || document.querySelector('[data-testid="stMain"]') || document.body;

@@ -15,21 +15,22 @@ from pathlib import Path
 
 import pytest
 import test_app_browser as demo_browser
-from test_app_browser import RUN_TIMEOUT_MS, _act, _goto, _main, _no_traceback, _settle, _shot
+from test_app_browser import (
+    RUN_TIMEOUT_MS,
+    _act,
+    _goto,
+    _main,
+    _no_traceback,
+    _settle,
+    _shot,
+    _upload,
+)
 
 # the app and the browser page of the demo walk-through, started afresh for this module
 app_url = demo_browser.app_url
 page = demo_browser.page
 
 pytestmark = pytest.mark.slow
-
-
-def _upload(page, label: str, path: Path):
-    box = page.locator("[data-testid='stFileUploader']").filter(has_text=label).first
-    _settle(page)
-    box.locator("input[type='file']").set_input_files(str(path))
-    page.get_by_text(path.name).first.wait_for()
-    _settle(page)
 
 
 def test_competing_section_runs(page, small_competing_study):

@@ -10,14 +10,12 @@ and with every interval withheld for the cohort's size the caption blamed the re
 
 from __future__ import annotations
 
-import numpy as np
-import pandas as pd
 import pytest
 from apphelpers import APP_MAIN, assert_clean, page_texts
+from public_data import cgvhd_study
 
 from workbench.app import state
 from workbench.competing.analysis import run_competing
-from workbench.study import study_from_dict
 from workbench.units import time_phrase
 
 pytestmark = pytest.mark.slow  # one competing-risks analysis with 10 replicates (about 15 s)
@@ -26,24 +24,7 @@ REPS = 10
 
 @pytest.fixture(scope="module")
 def cgvhd(tmp_path_factory):
-    from sksurv.datasets import load_cgvhd
-
-    X, y = load_cgvhd()
-    folder = tmp_path_factory.mktemp("cgvhd_app")
-    ids = [f"C{i:03d}" for i in range(len(X))]
-    codes = {0: "censored", 1: "cgvhd", 2: "relapse", 3: "death"}
-    age = X["age"].to_numpy(float)
-    pd.DataFrame({"patient_id": ids, "age": age, "log_age": np.log(age)}).to_csv(folder / "f.csv", index=False)
-    pd.DataFrame({"patient_id": ids, "years": y["ftime"], "status": [codes[int(s)] for s in y["status"]],
-                  "dx": X["dx"].astype(str), "extent": X["extent"].astype(str)}).to_csv(folder / "c.csv", index=False)
-    doc = {"study": {"name": "cgvhd", "horizons": [0.5, 1.0], "seed": 3},
-           "data": {"features": "f.csv", "clinical": "c.csv", "id": "patient_id", "time": "years",
-                    "time_unit": "years", "event": "status", "event_codes": ["cgvhd"],
-                    "competing_codes": ["relapse", "death"], "censor_codes": ["censored"]},
-           "predictor": [{"column": "dx", "kind": "categorical", "reference": "CML"},
-                         {"column": "extent", "kind": "categorical", "reference": "L"}]}
-    return study_from_dict(doc, base=folder)
-
+    return cgvhd_study(tmp_path_factory.mktemp("cgvhd_app"))
 
 def test_section_names_the_empty_signature_the_outcome_and_why_no_interval(cgvhd):
     from streamlit.testing.v1 import AppTest

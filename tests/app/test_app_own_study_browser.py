@@ -24,7 +24,16 @@ import pytest
 import test_app_browser as demo_browser
 from apphelpers import REPO
 from public_data import write_gbsg2
-from test_app_browser import RUN_TIMEOUT_MS, _act, _goto, _main, _no_traceback, _settle, _shot
+from test_app_browser import (
+    RUN_TIMEOUT_MS,
+    _act,
+    _goto,
+    _main,
+    _no_traceback,
+    _settle,
+    _shot,
+    _upload,
+)
 
 from workbench.app.state import QUICK_PERMUTATIONS
 
@@ -46,17 +55,6 @@ def folder(tmp_path_factory):
 @pytest.fixture(scope="module")
 def tables(folder):
     return write_gbsg2(folder)
-
-
-def _upload(page, label: str, path: Path):
-    box = page.locator("[data-testid='stFileUploader']").filter(has_text=label).first
-    # An upload reruns the page; wait until the page is idle after it, or the next action may be
-    # folded into that run. Not counted as a run (_act): a fast run can start and end within one
-    # render of the page, leaving no trace in the attribute the counter watches.
-    _settle(page)
-    box.locator("input[type='file']").set_input_files(str(path))
-    page.get_by_text(path.name).first.wait_for()
-    _settle(page)
 
 
 def _download(page, button: str, target: Path) -> Path:

@@ -18,28 +18,16 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import public_data
 import pytest
 from apphelpers import assert_clean, page_texts
 
 from workbench.app import roles, state
 
-CODES = {0: "censored", 1: "cgvhd", 2: "relapse", 3: "death"}  # scikit-survival's documentation of status
-
 
 @pytest.fixture(scope="module")
 def cgvhd_frames():
-    from sksurv.datasets import load_cgvhd
-
-    X, y = load_cgvhd()
-    ids = [f"C{i:03d}" for i in range(len(X))]
-    age = X["age"].to_numpy(float)
-    features = pd.DataFrame({"patient_id": ids, "age": age, "log_age": np.log(age)})
-    clinical = pd.DataFrame({"patient_id": ids, "years": y["ftime"],
-                             "status": [CODES[int(s)] for s in y["status"]],
-                             "dx": X["dx"].astype(str).to_numpy(), "tx": X["tx"].astype(str).to_numpy(),
-                             "extent": X["extent"].astype(str).to_numpy()})
-    return features, clinical, np.asarray(y["status"], int)
-
+    return public_data.cgvhd_frames()
 
 def test_multi_code_status_column_is_the_suggested_event(cgvhd_frames):
     features, clinical, _ = cgvhd_frames
@@ -136,7 +124,7 @@ def test_first_edit_of_proposed_horizons_in_years_is_kept(new_app, cgvhd_frames)
     assert tuple(at.session_state[state.K_STUDY].horizons) == (0.5, 1.0)
 
 
-def test_competing_section_words_metrics_and_units(cgvhd_frames, tmp_path):
+def test_competing_section_words_metrics_and_units(tmp_path):
     from workbench.app.views.competing import (
         corrected_table,
         incidence_table,
@@ -144,18 +132,8 @@ def test_competing_section_words_metrics_and_units(cgvhd_frames, tmp_path):
         warning_text,
     )
     from workbench.competing.analysis import run_competing
-    from workbench.study import study_from_dict
 
-    features, clinical, _ = cgvhd_frames
-    features.to_csv(tmp_path / "f.csv", index=False)
-    clinical.to_csv(tmp_path / "c.csv", index=False)
-    doc = {"study": {"name": "cgvhd", "horizons": [0.5, 1.0], "seed": 3},
-           "data": {"features": "f.csv", "clinical": "c.csv", "id": "patient_id", "time": "years",
-                    "time_unit": "years", "event": "status", "event_codes": ["cgvhd"],
-                    "competing_codes": ["relapse", "death"], "censor_codes": ["censored"]},
-           "predictor": [{"column": "dx", "kind": "categorical", "reference": "CML"},
-                         {"column": "extent", "kind": "categorical", "reference": "L"}]}
-    result = run_competing(study_from_dict(doc, base=tmp_path), replicates=0)
+    result = run_competing(public_data.cgvhd_study(tmp_path), replicates=0)
     assert list(incidence_table(result).columns) == ["Cause", "By 0.5 years", "By 1 year"]
     assert {"AUC 0.5 years", "AUC 1 year", "Brier 1 year", "ICI 0.5 years"} <= set(corrected_table(result).columns)
     # four patients are followed beyond 1 year (scikit-survival's ftime): the metrics warn
