@@ -139,7 +139,7 @@ def render() -> None:
             "levels": st.column_config.TextColumn("Levels (in order)"),
             "detection_limit": st.column_config.TextColumn("Detection limit"),
             "knots": st.column_config.NumberColumn("Knots", min_value=3, max_value=7, step=1, width="small"),
-            "label": st.column_config.TextColumn("Label"),
+            "label": st.column_config.TextColumn("Label", width="medium"),  # "ECOG performance status" in full
             "unit": st.column_config.TextColumn("Unit"),
         },
     )
