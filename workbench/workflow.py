@@ -289,8 +289,9 @@ def run_study(
         for name, m in fitted.items():
             if hasattr(m, "ph_test"):
                 ph_tests[name] = m.ph_test(cohort)
+                terms = m.transformer_.terms_
                 warn_if_nonproportional(ph_tests[name], model=MODEL_LABELS.get(name, name),
-                                        labels=lambda col: design_column_words(spec.predictors, col))
+                                        labels=lambda col, terms=terms: design_column_words(terms, col))
         warn_empty_signatures(fitted)
         volume = {}
         if spec.imaging.volume_feature and spec.imaging.volume_feature in cohort.feature_names:

@@ -64,20 +64,20 @@ def warn_empty_signatures(models: dict) -> None:
             EmptySignatureWarning, stacklevel=2)
 
 
-def design_column_words(predictors, name: str) -> str:
+def design_column_words(terms, name: str) -> str:
     """A design column as people read it: "Cell type (large)", "Age", "the imaging signature".
 
-    ``name`` is the column's name in the design ("celltype=large", "log2(cea_ng_ml)",
-    "cea_ng_ml:below_limit", "imaging_signature"); ``predictors`` the study's predictors,
-    whose labels name them. A name no predictor matches is returned as it is.
+    ``terms`` are the fitted clinical transformer's terms (``transformer_.terms_``), which know
+    the design columns of each predictor and its label; ``name`` is one design column
+    ("celltype=large", "log2(cea_ng_ml)", "cea_ng_ml:below_limit", "imaging_signature"). A name
+    no term holds is returned as it is.
     """
     if name == "imaging_signature":
         return "the imaging signature"
-    found = [p for p in predictors if p.column in name]
-    if not found:
+    term = next((t for t in terms if name in t.columns), None)
+    if term is None:
         return name
-    p = max(found, key=lambda q: len(q.column))  # the longest column name inside ``name``
-    label = p.label or p.column
+    label = term.label or term.column
     _, eq, level = name.partition("=")
     if eq:
         return f"{label} ({level})"

@@ -10,6 +10,7 @@ tests/unit/stats/test_coxph.py checks). On the veterans data the warning once re
 from __future__ import annotations
 
 import warnings
+from pathlib import Path
 
 import pytest
 
@@ -17,21 +18,28 @@ from workbench.errors import ProportionalHazardsWarning
 from workbench.models.cox import ClinicalCox
 from workbench.models.labels import design_column_words
 from workbench.prepare import prepare_cohort
-from workbench.preprocess.predictor_spec import PredictorSpec
+from workbench.preprocess.clinical import ClinicalTransformer
 from workbench.stats.schoenfeld import warn_if_nonproportional
 from workbench.study import read_study
 
+DEMO = Path(__file__).resolve().parents[3] / "demo_cohort" / "study.toml"
+
 
 def test_words_of_each_kind_of_column():
-    preds = (PredictorSpec("celltype", kind="categorical", label="Cell type"),
-             PredictorSpec("cea_ng_ml", kind="linear", transform="log2", label="CEA"),
-             PredictorSpec("age", kind="linear"))
-    assert design_column_words(preds, "celltype=large") == "Cell type (large)"
-    assert design_column_words(preds, "log2(cea_ng_ml)") == "CEA"
-    assert design_column_words(preds, "cea_ng_ml:below_limit") == "CEA (below the detection limit)"
-    assert design_column_words(preds, "age") == "age"
-    assert design_column_words(preds, "imaging_signature") == "the imaging signature"
-    assert design_column_words(preds, "unknown_column") == "unknown_column"
+    # the demo study's fitted transformer (its design-column names: the categorical levels, the log2
+    # CEA and its below-detection-limit indicator; invented data, a naming check only)
+    spec = read_study(DEMO)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        terms = ClinicalTransformer(tuple(spec.predictors)).fit(prepare_cohort(spec).cohort).terms_
+    columns = {c for t in terms for c in t.columns}
+    assert {"stage=III", "log2(cea_ng_ml)", "cea_ng_ml:below_limit", "age"} <= columns
+    assert design_column_words(terms, "stage=III") == "Stage (III)"
+    assert design_column_words(terms, "log2(cea_ng_ml)") == "Serum CEA"
+    assert design_column_words(terms, "cea_ng_ml:below_limit") == "Serum CEA (below the detection limit)"
+    assert design_column_words(terms, "age") == "Age"  # "age" inside "stage=III" does not confuse it
+    assert design_column_words(terms, "imaging_signature") == "the imaging signature"
+    assert design_column_words(terms, "unknown_column") == "unknown_column"
 
 
 def test_the_warning_names_the_study_labels_and_the_model(tmp_path, public_tables):
@@ -45,5 +53,5 @@ def test_the_warning_names_the_study_labels_and_the_model(tmp_path, public_table
     with pytest.warns(ProportionalHazardsWarning,
                       match=r"effect of 'Age' and 'Work experience \(yes\)' in the Clinical Cox model seems"):
         flagged = warn_if_nonproportional(res, model="Clinical Cox",
-                                          labels=lambda c: design_column_words(spec.predictors, c))
+                                          labels=lambda c: design_column_words(model.transformer_.terms_, c))
     assert flagged == ("age", "wexp=yes")
