@@ -65,6 +65,9 @@ class KMByGroupResult:
         limits, from a Cox model of the group indicators (Efron ties).
     cutpoints : ndarray
     time_unit : str
+    ticks_given : bool
+        The caller chose ``tick_times``: the figure keeps them (cut at the curves' end) rather
+        than choosing ticks for the range it shows.
     """
 
     labels: tuple[str, ...]
@@ -77,6 +80,7 @@ class KMByGroupResult:
     hr_upper: np.ndarray
     cutpoints: np.ndarray
     time_unit: str = ""
+    ticks_given: bool = False
 
 
 def km_by_group(
@@ -127,7 +131,7 @@ def km_by_group(
     return KMByGroupResult(
         labels=labels, curves=curves, tick_times=ticks, at_risk=at_risk, logrank=lr,
         hazard_ratios=np.exp(fit.coef), hr_lower=np.exp(fit.ci_lower), hr_upper=np.exp(fit.ci_upper),
-        cutpoints=grouping.cutpoints, time_unit=time_unit,
+        cutpoints=grouping.cutpoints, time_unit=time_unit, ticks_given=tick_times is not None,
     )
 
 
@@ -164,8 +168,7 @@ def _shown_ticks(result: KMByGroupResult, min_at_risk: int) -> tuple[np.ndarray,
     if not ticks.size or not ends or max(ends) >= t_max:
         return ticks, at_risk
     end = max(ends)
-    default = time_ticks(t_max, result.time_unit, 7)
-    if np.array_equal(default[default <= t_max], ticks):
+    if not result.ticks_given:
         new = time_ticks(end, result.time_unit, 7)
         if new.size > 1 and new[-1] < end and new[-1] + (new[1] - new[0]) <= t_max:
             new = np.r_[new, new[-1] + (new[1] - new[0])]

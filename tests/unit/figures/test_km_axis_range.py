@@ -45,3 +45,13 @@ def test_with_every_patient_shown_the_axis_is_unchanged():
     ticks, at_risk = _shown_ticks(result, 0)
     np.testing.assert_array_equal(ticks, result.tick_times)
     np.testing.assert_array_equal(at_risk, result.at_risk)
+
+
+def test_given_ticks_are_kept_and_cut_at_the_curves_end():
+    time, event, groups, _ = _veterans()
+    given = [0.0, 100.0, 200.0, 300.0, 400.0, 500.0, 600.0]
+    result = km_by_group(make_outcome(time, event), groups, time_unit="days", tick_times=given)
+    ticks, at_risk = _shown_ticks(result, 10)
+    end = max(float(km.times[km.at_risk >= 10].max()) for km in result.curves)
+    assert set(ticks) <= set(given) and ticks[-1] >= end > ticks[-2]
+    np.testing.assert_array_equal(at_risk, np.asarray(result.at_risk)[:, :ticks.size])
